@@ -1,0 +1,1 @@
+"""Trust checks on libraries and results (conditioning, range, residuals, shift)."""

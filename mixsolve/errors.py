@@ -1,0 +1,48 @@
+"""Exceptions and warnings raised by mixsolve.
+
+Every error a user can cause derives from :class:`InputError`, which is also a
+``ValueError`` so callers may catch either. The command line maps these to exit
+code 2 with the message on one line; anything else is a bug (exit code 1).
+"""
+
+from __future__ import annotations
+
+
+class MixsolveError(Exception):
+    """Root of all mixsolve exceptions."""
+
+
+class InputError(MixsolveError, ValueError):
+    """Bad input: a file, a table cell, an option or an array the user supplied.
+
+    The message names where (file, line, column or sample), the offending value
+    and what would be accepted.
+    """
+
+
+class FileFormatError(InputError):
+    """A file could not be read as the table, library or model it should be."""
+
+
+class UnitError(InputError):
+    """A unit string was not understood or cannot be converted as asked."""
+
+
+class SolveError(InputError):
+    """The system of equations cannot be solved as posed (underdetermined, rank deficient)."""
+
+
+class OutputError(MixsolveError, OSError):
+    """An output file could not be written."""
+
+
+class MixsolveWarning(UserWarning):
+    """Root of mixsolve warnings."""
+
+
+class LinearityWarning(MixsolveWarning):
+    """A component's standards series is short or not linear enough."""
+
+
+class ExtrapolationWarning(MixsolveWarning):
+    """Measured wavelengths fall outside the library and were left out of the fit."""

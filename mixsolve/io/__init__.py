@@ -1,0 +1,1 @@
+"""Readers and writers: tables of spectra, standards sheets, library files, results."""

@@ -1,0 +1,199 @@
+"""Read spectra tables (wide or long layout) into labelled arrays.
+
+Wide: first column ``wavelength_nm`` (or ``wavelength``), one column per sample.
+Long: columns ``sample``, ``wavelength_nm`` (or ``wavelength``) and ``absorbance``,
+in any order. The layout found is recorded in ``attrs["layout"]``.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from mixsolve.errors import FileFormatError, InputError
+from mixsolve.io.tables import SEPARATOR_NAMES, RawTable, parse_number, read_table
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+
+WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]")
+
+
+def _norm(text: object) -> str:
+    return str(text).strip().lstrip("\ufeff").lower()
+
+
+def read_spectra(
+    path: str | os.PathLike[str],
+    *,
+    sheet: str | None = None,
+    pathlength_cm: float | None = None,
+) -> xr.DataArray:
+    """Read absorbance spectra from CSV, TSV or XLSX.
+
+    Parameters
+    ----------
+    path : path-like
+        Wide or long table (see the module docstring).
+    sheet : str, optional
+        XLSX sheet; default the first.
+    pathlength_cm : float, optional
+        Pathlength (cm) to record in ``attrs``.
+
+    Returns
+    -------
+    DataArray with dims ("sample", "wavelength")
+        Absorbance (AU), wavelengths ascending (nm). Empty cells are NaN (missing).
+
+    Raises
+    ------
+    FileFormatError, InputError
+        Unreadable files, unknown layout, duplicate wavelengths or samples, text in
+        numeric cells; the message names the file, line, column and value.
+    """
+    table = read_table(path, sheet=sheet)
+    da = _to_array(table, SAMPLE)
+    if pathlength_cm is not None:
+        da.attrs["pathlength_cm"] = float(pathlength_cm)
+    return da
+
+
+def read_absorptivity_table(path: str | os.PathLike[str], *, sheet: str | None = None
+                            ) -> xr.DataArray:
+    """Read a wide table of absorptivities: ``wavelength_nm`` then one column per component.
+
+    Returns
+    -------
+    DataArray with dims ("component", "wavelength")
+    """
+    table = read_table(path, sheet=sheet)
+    if _norm(table.header[0]) not in WAVELENGTH_HEADERS:
+        raise FileFormatError(
+            f"{table.name}, line {table.header_line}: first column is {table.header[0]!r}; an "
+            "absorptivity table starts with wavelength_nm, then one column per component")
+    da = _wide(table, "component")
+    for i, _ in enumerate(da["component"].values):
+        values = da.values[i]
+        if np.isnan(values).any():
+            w = da[WAVELENGTH].values[np.isnan(values)][0]
+            raise InputError(
+                f"{table.name}: component {str(da['component'].values[i])!r} has no value at "
+                f"{w:g} nm; an absorptivity table must be complete")
+    return da
+
+
+def _to_array(table: RawTable, label: str) -> xr.DataArray:
+    first = _norm(table.header[0])
+    names = [_norm(h) for h in table.header]
+    if first in WAVELENGTH_HEADERS:
+        return _wide(table, label)
+    wl_cols = [i for i, n in enumerate(names) if n in WAVELENGTH_HEADERS]
+    if "sample" in names and "absorbance" in names and wl_cols:
+        return _long(table, names.index("sample"), wl_cols[0], names.index("absorbance"))
+    raise FileFormatError(
+        f"{table.name}, line {table.header_line}: cannot tell the layout from the header "
+        f"{', '.join(map(repr, table.header[:4]))}; expected wide (first column wavelength_nm, "
+        "then one column per sample) or long (columns sample, wavelength_nm, absorbance)")
+
+
+def _attrs(table: RawTable, layout: str) -> dict[str, object]:
+    return {
+        "quantity": "absorbance",
+        "source": table.name,
+        "layout": layout,
+        "separator": SEPARATOR_NAMES[table.separator],
+        "decimal": table.decimal,
+    }
+
+
+def _wide(table: RawTable, label: str) -> xr.DataArray:
+    header = list(table.header)
+    while len(header) > 1 and not str(header[-1]).strip():
+        header.pop()  # trailing empty header cells from spreadsheet exports
+    names = [str(h).strip() for h in header[1:]]
+    if not names:
+        raise FileFormatError(f"{table.name}, line {table.header_line}: no {label} columns "
+                              "after the wavelength column")
+    for j, n in enumerate(names):
+        if not n:
+            raise FileFormatError(f"{table.name}, line {table.header_line}, column {j + 2}: "
+                                  f"empty {label} name")
+        if n in names[:j]:
+            raise FileFormatError(
+                f"{table.name}, line {table.header_line}: {label} name {n!r} appears twice "
+                f"(columns {names.index(n) + 2} and {j + 2})")
+    width = len(header)
+    wl = np.empty(len(table.rows))
+    values = np.empty((len(table.rows), width - 1))
+    for i, row in enumerate(table.rows):
+        if len(row) < width:
+            raise FileFormatError(f"{table.where(i)}: {len(row)} cells, but the header has "
+                                  f"{width}")
+        extra = [c for c in row[width:] if str(c).strip()]
+        if extra:
+            raise FileFormatError(f"{table.where(i)}: {len(row)} cells, but the header has "
+                                  f"{width}")
+        wl[i] = parse_number(row[0], table.decimal, table.where(i, 0) + " wavelength",
+                             allow_missing=False)
+        for j in range(1, width):
+            values[i, j - 1] = parse_number(row[j], table.decimal, table.where(i, j))
+    _check_wavelengths(table, wl)
+    order = np.argsort(wl)
+    da = xr.DataArray(
+        values[order].T,
+        dims=(label, WAVELENGTH),
+        coords={label: names, WAVELENGTH: wl[order]},
+        attrs=_attrs(table, "wide"),
+        name="absorbance" if label == SAMPLE else "absorptivity",
+    )
+    return check_spectra(da, table.name)
+
+
+def _check_wavelengths(table: RawTable, wl: np.ndarray) -> None:
+    for i, w in enumerate(wl):
+        if w <= 0:
+            raise InputError(f"{table.where(i, 0)}: wavelength {w:g} nm is not positive")
+    _, first, counts = np.unique(wl, return_index=True, return_counts=True)
+    if (counts > 1).any():
+        w = wl[first[counts > 1][0]]
+        dup_rows = np.flatnonzero(wl == w)
+        raise InputError(f"{table.name}, line {table.lines[dup_rows[1]]}: wavelength {w:g} nm "
+                         f"appears twice (also on line {table.lines[dup_rows[0]]})")
+
+
+def _long(table: RawTable, s_col: int, w_col: int, a_col: int) -> xr.DataArray:
+    samples: dict[str, dict[float, float]] = {}
+    first_line: dict[tuple[str, float], int] = {}
+    need = max(s_col, w_col, a_col) + 1
+    for i, row in enumerate(table.rows):
+        if len(row) < need:
+            raise FileFormatError(f"{table.where(i)}: {len(row)} cells, expected at least {need}")
+        name = str(row[s_col]).strip()
+        if not name:
+            raise FileFormatError(f"{table.where(i, s_col)}: empty sample name")
+        w = parse_number(row[w_col], table.decimal, table.where(i, w_col), allow_missing=False)
+        if w <= 0:
+            raise InputError(f"{table.where(i, w_col)}: wavelength {w:g} nm is not positive")
+        a = parse_number(row[a_col], table.decimal, table.where(i, a_col))
+        spectrum = samples.setdefault(name, {})
+        if w in spectrum:
+            raise InputError(
+                f"{table.where(i)}: sample {name!r} has wavelength {w:g} nm twice (also on line "
+                f"{first_line[(name, w)]})")
+        spectrum[w] = a
+        first_line[(name, w)] = table.lines[i]
+    grid = np.unique(np.concatenate([np.fromiter(s, float) for s in samples.values()]))
+    values = np.full((len(samples), grid.size), np.nan)
+    for k, spectrum in enumerate(samples.values()):
+        pos = np.searchsorted(grid, np.fromiter(spectrum, float))
+        values[k, pos] = np.fromiter(spectrum.values(), float)
+    da = xr.DataArray(values, dims=(SAMPLE, WAVELENGTH),
+                      coords={SAMPLE: list(samples), WAVELENGTH: grid},
+                      attrs=_attrs(table, "long"), name="absorbance")
+    return check_spectra(da, table.name)
+
+
+def describe_source(path: str | os.PathLike[str]) -> str:
+    """Short display name of an input file."""
+    return Path(path).name

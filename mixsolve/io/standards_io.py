@@ -1,0 +1,75 @@
+"""Read a standards sheet: ``sample, component, concentration, unit`` [, ``pathlength_cm``]."""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pandas as pd
+
+from mixsolve.errors import FileFormatError
+from mixsolve.io.tables import parse_number, read_table
+
+REQUIRED = ("sample", "component", "concentration", "unit")
+OPTIONAL = ("pathlength_cm", "molar_mass_g_per_mol")
+
+
+def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd.DataFrame:
+    """Read a standards sheet into a DataFrame with a ``line`` column for messages.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``sample``, ``component``, ``concentration`` (float), ``unit``,
+        ``pathlength_cm`` (float, NaN when not given) and ``line`` (file line number).
+
+    Raises
+    ------
+    FileFormatError, InputError
+        Missing columns, text where a number belongs; the message names line and column.
+    """
+    table = read_table(path, sheet=sheet)
+    names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
+    missing = [c for c in REQUIRED if c not in names]
+    if missing:
+        raise FileFormatError(
+            f"{table.name}, line {table.header_line}: missing column(s) {', '.join(missing)}; "
+            f"a standards sheet has columns {', '.join(REQUIRED)} (optional: pathlength_cm)")
+    records = []
+    for i, row in enumerate(table.rows):
+        cells = list(row) + [""] * (len(names) - len(row))
+        rec: dict[str, object] = {"line": table.lines[i]}
+        for col in REQUIRED + OPTIONAL:
+            if col not in names:
+                continue
+            j = names.index(col)
+            if col in ("concentration",):
+                rec[col] = parse_number(cells[j], table.decimal, table.where(i, j),
+                                        allow_missing=False)
+            elif col in OPTIONAL:
+                rec[col] = parse_number(cells[j], table.decimal, table.where(i, j))
+            else:
+                text = str(cells[j]).strip()
+                if not text:
+                    raise FileFormatError(f"{table.where(i, j)}: empty {col}")
+                rec[col] = text
+        records.append(rec)
+    frame = pd.DataFrame.from_records(records)
+    if "pathlength_cm" not in frame:
+        frame["pathlength_cm"] = np.nan
+    return frame
+
+
+def molar_masses_from_sheet(frame: pd.DataFrame) -> dict[str, float]:
+    """Molar masses (g/mol) per component from an optional ``molar_mass_g_per_mol`` column."""
+    if "molar_mass_g_per_mol" not in frame:
+        return {}
+    out: dict[str, float] = {}
+    for comp, group in frame.groupby("component"):
+        values = group["molar_mass_g_per_mol"].dropna().unique()
+        if values.size > 1:
+            raise FileFormatError(f"standards sheet: component {comp!r} has different molar "
+                                  f"masses {', '.join(f'{v:g}' for v in values)}")
+        if values.size:
+            out[str(comp)] = float(values[0])
+    return out

@@ -1,0 +1,241 @@
+"""Read a delimited text table (CSV/TSV) or the first sheet of an XLSX workbook.
+
+Text files: UTF-8 with or without BOM, any line ending; the separator (comma, semicolon
+or tab) and the decimal mark (point or comma) are detected and recorded, never guessed
+silently: an ambiguous or mixed file is refused with the reason. Cells stay as read
+(text, or numbers from XLSX); :func:`parse_number` turns one into a float and names its
+place when it cannot.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import os
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from mixsolve.errors import FileFormatError, InputError
+
+SEPARATORS = ("\t", ";", ",")
+SEPARATOR_NAMES = {"\t": "tab", ";": "semicolon", ",": "comma", None: "xlsx"}
+_DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+([eE][+-]?\d+)?$")
+_DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+([eE][+-]?\d+)?$")
+_MISSING = {"", "nan", "na", "n/a"}
+#: Largest text table read in memory (bytes); bigger inputs belong in netCDF/Zarr.
+MAX_TEXT_BYTES = 2_000_000_000
+
+
+@dataclass
+class RawTable:
+    """Cells of a table as read, with their places in the file."""
+
+    name: str
+    header: list[str]
+    rows: list[list[Any]]
+    lines: list[int]
+    header_line: int
+    separator: str | None
+    decimal: str
+    notes: list[str] = field(default_factory=list)
+
+    def where(self, i: int, column: int | None = None) -> str:
+        """Describe data row ``i`` (and a column) for an error message."""
+        text = f"{self.name}, line {self.lines[i]}"
+        if column is not None:
+            label = self.header[column] if column < len(self.header) else ""
+            text += f", column {column + 1}" + (f" ({label!r})" if label else "")
+        return text
+
+
+def read_table(path: str | os.PathLike[str], *, sheet: str | None = None) -> RawTable:
+    """Read a CSV, TSV or XLSX table.
+
+    Parameters
+    ----------
+    path : path-like
+        The file. XLSX is recognised by its content, not only its suffix.
+    sheet : str, optional
+        XLSX sheet name; default the first sheet.
+
+    Returns
+    -------
+    RawTable
+        Header (first non-blank row) and data rows, blank rows skipped.
+
+    Raises
+    ------
+    FileFormatError
+        Missing, unreadable, binary, non-UTF-8, empty or header-only files.
+    """
+    p = Path(path)
+    name = p.name
+    if not p.exists():
+        raise FileFormatError(f"{path}: file not found")
+    if p.is_dir():
+        raise FileFormatError(f"{path}: is a folder, not a table file")
+    try:
+        size = p.stat().st_size
+        if size > MAX_TEXT_BYTES:
+            raise FileFormatError(
+                f"{name}: {size / 1e9:.1f} GB is more than the {MAX_TEXT_BYTES / 1e9:g} GB a "
+                "text table may have; store large data as netCDF or Zarr")
+        with open(p, "rb") as fh:
+            head = fh.read(8)
+            if head.startswith(b"PK\x03\x04"):
+                table = _read_xlsx(p, name, sheet)
+            else:
+                table = _read_text(head + fh.read(), name)
+    except OSError as exc:
+        raise FileFormatError(f"{path}: cannot read the file ({exc.strerror})") from None
+    if not table.rows:
+        raise FileFormatError(f"{name}: header only, no data rows")
+    return table
+
+
+def _read_text(raw: bytes, name: str) -> RawTable:
+    if not raw.strip():
+        raise FileFormatError(f"{name}: the file is empty")
+    if b"\x00" in raw[:65536]:
+        raise FileFormatError(f"{name}: binary data, not a text table (CSV, TSV) or XLSX file")
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        raise FileFormatError(
+            f"{name}, line {line}: byte 0x{raw[exc.start]:02x} is not UTF-8 text; save the "
+            "file as UTF-8 (CSV UTF-8 in a spreadsheet program)") from None
+    lines = text.splitlines()
+    numbered = [(i + 1, ln) for i, ln in enumerate(lines) if ln.strip()]
+    if not numbered:
+        raise FileFormatError(f"{name}: the file is empty")
+    separator = _detect_separator(numbered, name)
+    parsed = _split(numbered, separator, name)
+    header_line, header = parsed[0]
+    header = [h.strip() for h in header]
+    rows = [[c.strip() for c in cells] for _, cells in parsed[1:]]
+    row_lines = [ln for ln, _ in parsed[1:]]
+    decimal = _detect_decimal(rows, row_lines, separator, name)
+    return RawTable(name, header, rows, row_lines, header_line, separator, decimal)
+
+
+def _split(numbered: list[tuple[int, str]], sep: str, name: str) -> list[tuple[int, list[str]]]:
+    out = []
+    for number, line in numbered:
+        try:
+            cells = next(csv.reader(io.StringIO(line), delimiter=sep))
+        except csv.Error as exc:
+            raise FileFormatError(f"{name}, line {number}: {exc}") from None
+        out.append((number, cells))
+    return out
+
+
+def _detect_separator(numbered: list[tuple[int, str]], name: str) -> str:
+    header = numbered[0][1]
+    sample = numbered[: 200]
+    best, best_score = None, -1
+    for sep in SEPARATORS:
+        width = len(next(csv.reader(io.StringIO(header), delimiter=sep)))
+        if width < 2:
+            continue
+        score = sum(
+            len(next(csv.reader(io.StringIO(line), delimiter=sep))) == width
+            for _, line in sample)
+        if score > best_score:
+            best, best_score = sep, score
+    if best is None:
+        raise FileFormatError(
+            f"{name}, line {numbered[0][0]}: the header has one column only; expected columns "
+            "separated by commas, semicolons or tabs")
+    return best
+
+
+def _detect_decimal(rows: list[list[str]], lines: list[int], sep: str, name: str) -> str:
+    if sep == ",":
+        return "."
+    comma = point = None
+    for row, line in zip(rows, lines, strict=True):
+        for cell in row:
+            if comma is None and _DECIMAL_COMMA.match(cell):
+                comma = line
+            elif point is None and _DECIMAL_POINT.match(cell):
+                point = line
+        if comma is not None and point is not None:
+            raise FileFormatError(
+                f"{name}: mixed decimal marks (comma on line {comma}, point on line {point}); "
+                "use one decimal mark throughout")
+    return "," if comma is not None else "."
+
+
+def _read_xlsx(p: Path, name: str, sheet: str | None) -> RawTable:
+    import openpyxl  # deferred: only XLSX input needs it
+
+    try:
+        book = openpyxl.load_workbook(p, read_only=True, data_only=True)
+    except Exception as exc:  # openpyxl raises zipfile/KeyError/etc. on damaged files
+        raise FileFormatError(f"{name}: not a readable XLSX workbook ({exc})") from None
+    try:
+        if sheet is not None and sheet not in book.sheetnames:
+            raise FileFormatError(
+                f"{name}: no sheet {sheet!r}; sheets are {', '.join(book.sheetnames)}")
+        ws = book[sheet] if sheet is not None else book.worksheets[0]
+        numbered = []
+        for number, values in enumerate(ws.iter_rows(values_only=True), start=1):
+            cells = ["" if v is None else v for v in values]
+            if any(str(c).strip() for c in cells):
+                numbered.append((number, cells))
+    finally:
+        book.close()
+    if not numbered:
+        raise FileFormatError(f"{name}: the first sheet is empty")
+    header_line, header = numbered[0]
+    header_text = [str(h).strip() for h in header]
+    while header_text and not header_text[-1]:
+        header_text.pop()
+    rows = [[c.strip() if isinstance(c, str) else c for c in cells] for _, cells in numbered[1:]]
+    return RawTable(name, header_text, rows, [n for n, _ in numbered[1:]], header_line, None,
+                    ".", [f"sheet {ws.title!r}"])
+
+
+def parse_number(cell: Any, decimal: str, where: str, *, allow_missing: bool = True) -> float:
+    """Turn one table cell into a float.
+
+    Empty cells and ``NaN``/``NA`` text are missing readings (NaN) when
+    ``allow_missing``; anything else that is not a finite number is refused.
+
+    Raises
+    ------
+    InputError
+        Text that is not a number, an infinite value, or a missing value where one
+        is required; the message starts with ``where``.
+    """
+    if isinstance(cell, bool):
+        raise InputError(f"{where}: {cell!r} is not a number")
+    if isinstance(cell, int | float):
+        value = float(cell)
+    else:
+        text = str(cell).strip()
+        if text.lower() in _MISSING:
+            value = float("nan")
+        else:
+            if decimal == ",":
+                if "." in text:
+                    raise InputError(f"{where}: {text!r} uses a decimal point but the file "
+                                     "uses decimal commas")
+                text = text.replace(",", ".")
+            try:
+                value = float(text)
+            except ValueError:
+                raise InputError(f"{where}: {str(cell)!r} is not a number") from None
+    if np.isnan(value):
+        if not allow_missing:
+            raise InputError(f"{where}: value is missing")
+        return value
+    if not np.isfinite(value):
+        raise InputError(f"{where}: {cell!r} is infinite; leave the cell empty for a missing "
+                         "reading")
+    return value

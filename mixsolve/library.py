@@ -1,0 +1,525 @@
+"""Pure-component absorptivity libraries: import, build from standards, resample.
+
+A library is an :class:`xarray.Dataset` with dims ``("component", "wavelength")``:
+
+``absorptivity``
+    ε(λ) in the library's canonical unit, ``L/(mol*cm)`` or ``L/(g*cm)`` (``attrs["unit"]``).
+``u_absorptivity``
+    Standard uncertainty of ε(λ), same unit; NaN where not stated (imported tables).
+``molar_mass_g_per_mol`` (component)
+    NaN where unknown.
+
+Libraries built from standards also carry per-component linearity figures (see
+:func:`build_library`). ``attrs`` hold ``unit``, ``basis`` ("molar"/"mass"),
+``concentration_unit``, ``solvent``, ``bandwidth_nm`` (NaN if unknown) and ``provenance``
+(a JSON string saying how the library was made).
+"""
+
+from __future__ import annotations
+
+import json
+import warnings
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from mixsolve._version import __version__
+from mixsolve.errors import InputError, LinearityWarning
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+from mixsolve.units import (
+    ABSORPTIVITY_UNITS,
+    CONCENTRATION_UNITS,
+    absorptivity_basis,
+    concentration_basis,
+)
+
+COMPONENT = "component"
+LIBRARY_KIND = "mixsolve-library"
+FORMAT_VERSION = 1
+
+#: Default linearity criteria for standards (common practice, configurable).
+DEFAULT_MIN_R2 = 0.995
+DEFAULT_MAX_RELATIVE_DEVIATION = 0.05
+DEFAULT_MIN_LEVELS = 3
+
+
+def _molar_masses(components: list[str], molar_mass: Mapping[str, float] | None) -> np.ndarray:
+    masses = np.full(len(components), np.nan)
+    for name, value in (molar_mass or {}).items():
+        if name not in components:
+            raise InputError(
+                f"molar mass given for {name!r}, which is not a component "
+                f"(components: {', '.join(components)})"
+            )
+        value = float(value)
+        if not np.isfinite(value) or value <= 0:
+            raise InputError(f"molar mass of {name!r}: {value:g} g/mol is not a positive number")
+        masses[components.index(name)] = value
+    return masses
+
+
+def _new_library(
+    absorptivity: np.ndarray,
+    u_absorptivity: np.ndarray,
+    components: list[str],
+    wavelengths: np.ndarray,
+    basis: str,
+    molar_mass: Mapping[str, float] | None,
+    solvent: str,
+    bandwidth_nm: float | None,
+    provenance: dict[str, Any],
+) -> xr.Dataset:
+    unit = ABSORPTIVITY_UNITS[basis]
+    dims = (COMPONENT, WAVELENGTH)
+    ds = xr.Dataset(
+        {
+            "absorptivity": (dims, absorptivity, {"units": unit}),
+            "u_absorptivity": (dims, u_absorptivity, {"units": unit}),
+            "molar_mass_g_per_mol": ((COMPONENT,), _molar_masses(components, molar_mass),
+                                     {"units": "g/mol"}),
+        },
+        coords={COMPONENT: components, WAVELENGTH: ("wavelength", wavelengths, {"units": "nm"})},
+        attrs={
+            "mixsolve_kind": LIBRARY_KIND,
+            "format_version": FORMAT_VERSION,
+            "unit": unit,
+            "basis": basis,
+            "concentration_unit": CONCENTRATION_UNITS[basis],
+            "solvent": solvent,
+            "bandwidth_nm": float("nan") if bandwidth_nm is None else float(bandwidth_nm),
+            "provenance": json.dumps({**provenance, "mixsolve_version": __version__}),
+        },
+    )
+    return check_library(ds)
+
+
+def import_absorptivities(
+    absorptivity: xr.DataArray | pd.DataFrame,
+    unit: str,
+    *,
+    u_absorptivity: xr.DataArray | pd.DataFrame | None = None,
+    molar_mass_g_per_mol: Mapping[str, float] | None = None,
+    solvent: str = "",
+    bandwidth_nm: float | None = None,
+    source: str = "",
+) -> xr.Dataset:
+    """Make a library from a table of known absorptivities.
+
+    Parameters
+    ----------
+    absorptivity : DataArray with dims ("component", "wavelength") or DataFrame
+        Absorptivity per component and wavelength (nm). A DataFrame has wavelengths
+        (nm) as its index and one column per component.
+    unit : str
+        Unit of the values, parsed with pint: molar (``"L/(mol*cm)"``) or specific
+        (``"L/(g*cm)"``), or any equivalent such as ``"mL/(mg*cm)"``.
+    u_absorptivity : same shape as ``absorptivity``, optional
+        Standard uncertainties in ``unit``; NaN (not stated) when omitted.
+    molar_mass_g_per_mol : mapping of component to g/mol, optional
+        Allows results in the other basis (mass ↔ amount concentration).
+    solvent : str
+        Solvent or matrix the absorptivities hold for.
+    bandwidth_nm : float, optional
+        Spectral bandwidth (nm) of the instrument the values were measured with.
+    source : str
+        Where the table came from; recorded in the provenance.
+
+    Returns
+    -------
+    Dataset
+        A library (see the module docstring), values converted to the canonical unit.
+
+    Raises
+    ------
+    UnitError
+        Unknown unit, or one that is not an absorptivity.
+    InputError
+        Non-finite values, duplicate components or wavelengths.
+    """
+    basis, factor = absorptivity_basis(unit)
+    eps = _as_component_array(absorptivity, "absorptivity")
+    u = (
+        np.full(eps.shape, np.nan)
+        if u_absorptivity is None
+        else _as_component_array(u_absorptivity, "u_absorptivity")
+        .reindex_like(eps)
+        .values
+    )
+    values = eps.values * factor
+    if not np.all(np.isfinite(values)):
+        comp, idx = np.argwhere(~np.isfinite(values))[0]
+        raise InputError(
+            f"absorptivity of {eps[COMPONENT].values[comp]!r} at "
+            f"{eps[WAVELENGTH].values[idx]:g} nm is missing or not a number"
+        )
+    provenance = {"method": "imported table", "source": source, "unit_given": unit}
+    return _new_library(
+        values,
+        np.asarray(u, dtype=float) * factor,
+        [str(c) for c in eps[COMPONENT].values],
+        eps[WAVELENGTH].values,
+        basis,
+        molar_mass_g_per_mol,
+        solvent,
+        bandwidth_nm,
+        provenance,
+    )
+
+
+def _as_component_array(table: xr.DataArray | pd.DataFrame, name: str) -> xr.DataArray:
+    if isinstance(table, pd.DataFrame):
+        if table.columns.has_duplicates:
+            dup = table.columns[table.columns.duplicated()][0]
+            raise InputError(f"{name}: component {dup!r} appears twice")
+        da = xr.DataArray(
+            table.to_numpy(dtype=float).T,
+            dims=(COMPONENT, WAVELENGTH),
+            coords={COMPONENT: [str(c) for c in table.columns],
+                    WAVELENGTH: table.index.to_numpy(dtype=float)},
+        )
+    elif isinstance(table, xr.DataArray):
+        other = [d for d in table.dims if d != WAVELENGTH]
+        if len(other) != 1:
+            raise InputError(f"{name}: expected dims (component, wavelength), got {table.dims}")
+        da = table.rename({other[0]: COMPONENT}).transpose(COMPONENT, WAVELENGTH)
+    else:
+        raise InputError(f"{name}: expected a DataFrame or DataArray, got {type(table).__name__}")
+    da = check_spectra(da, name)
+    names = [str(c) for c in da[COMPONENT].values]
+    if len(set(names)) != len(names):
+        dup = next(n for n in names if names.count(n) > 1)
+        raise InputError(f"{name}: component {dup!r} appears twice")
+    if len(names) == 0:
+        raise InputError(f"{name}: no components")
+    return da.astype(float)
+
+
+def check_library(library: Any, name: str = "library") -> xr.Dataset:
+    """Check that ``library`` is a mixsolve library Dataset and return it.
+
+    Raises
+    ------
+    InputError
+        If it is not a Dataset, lacks ``absorptivity`` or has an unknown unit.
+    """
+    if not isinstance(library, xr.Dataset) or "absorptivity" not in library:
+        raise InputError(
+            f"{name}: not a mixsolve library (expected an xarray.Dataset with an "
+            "'absorptivity' variable; make one with import_absorptivities or build_library)"
+        )
+    if library.attrs.get("unit") not in ABSORPTIVITY_UNITS.values():
+        raise InputError(
+            f"{name}: absorptivity unit {library.attrs.get('unit')!r} is not one of "
+            f"{', '.join(ABSORPTIVITY_UNITS.values())}"
+        )
+    if library.sizes.get(COMPONENT, 0) == 0:
+        raise InputError(f"{name}: the library has no components")
+    check_spectra(library["absorptivity"], name)
+    return library
+
+
+def build_library(
+    standards: xr.DataArray,
+    sheet: pd.DataFrame,
+    *,
+    intercept: bool = False,
+    pathlength_cm: float | None = None,
+    molar_mass_g_per_mol: Mapping[str, float] | None = None,
+    solvent: str = "",
+    bandwidth_nm: float | None = None,
+    min_r2: float = DEFAULT_MIN_R2,
+    max_relative_deviation: float = DEFAULT_MAX_RELATIVE_DEVIATION,
+    min_levels: int = DEFAULT_MIN_LEVELS,
+    source: str = "",
+) -> xr.Dataset:
+    """Build a library from spectra of pure standards of known concentration.
+
+    Parameters
+    ----------
+    standards : DataArray with dims ("sample", "wavelength")
+        Blank-corrected absorbance of each standard solution.
+    sheet : DataFrame
+        One row per standard: ``sample``, ``component``, ``concentration``, ``unit``
+        and optionally ``pathlength_cm`` (cm). A ``line`` column, if present, is used
+        to name the row in error messages. Every sample must be a pure standard of one
+        component; a row with concentration 0 is a blank of that component's series.
+    intercept : bool
+        Fit A = ε·b·c + a₀ instead of A = ε·b·c, exposing a blank offset a₀(λ)
+        (stored as ``intercept`` and ``u_intercept``).
+    pathlength_cm : float, optional
+        Pathlength (cm) of rows without a ``pathlength_cm`` value; default the
+        ``pathlength_cm`` attribute of ``standards``, else 1 cm.
+    molar_mass_g_per_mol : mapping, optional
+        Molar masses (g/mol) per component.
+    solvent, bandwidth_nm, source
+        Recorded in the library (see :func:`import_absorptivities`).
+    min_r2, max_relative_deviation, min_levels
+        Linearity criteria at each component's peak wavelength; a component that
+        misses one triggers a :class:`LinearityWarning` (common practice: R² ≥ 0.995,
+        every standard within 5 % of the line, at least 3 concentration levels).
+
+    Returns
+    -------
+    Dataset
+        A library with, besides ``absorptivity`` and ``u_absorptivity``, per component:
+        ``n_standards``, ``n_levels`` (distinct non-zero concentrations),
+        ``concentration_min``/``concentration_max`` (library concentration unit),
+        ``peak_wavelength_nm``, and at that peak ``r_squared``, ``residual_sd``
+        (AU) and ``worst_relative_deviation`` (fraction).
+
+    Warns
+    -----
+    LinearityWarning
+        A component has fewer than ``min_levels`` levels or fails a linearity criterion.
+
+    Notes
+    -----
+    Per wavelength and component, with x = b·c over that component's standards, the
+    slope through the origin is ε = Σ x·A / Σ x², with u(ε) = s/√(Σ x²) and
+    s² = Σ (A − εx)² / (n − 1). With ``intercept`` the ordinary straight-line fit is
+    used, u(ε) = s/√Sxx with s² = RSS/(n − 2). R² is the centred coefficient
+    1 − RSS/Σ(A − Ā)². The worst relative deviation is max |A − Â|/Â over standards
+    with c > 0.
+    """
+    spectra = check_spectra(standards, "standards")
+    table = _check_sheet(sheet, spectra)
+    default_b = pathlength_cm if pathlength_cm is not None else spectra.attrs.get(
+        "pathlength_cm", 1.0)
+    if not np.isfinite(default_b) or default_b <= 0:
+        raise InputError(f"pathlength: {default_b:g} cm is not a positive number")
+    basis = table["basis"].iloc[0]
+    components = list(dict.fromkeys(table["component"]))
+    wl = spectra[WAVELENGTH].values
+    shape = (len(components), wl.size)
+    eps = np.empty(shape)
+    u_eps = np.empty(shape)
+    icpt = np.zeros(shape)
+    u_icpt = np.zeros(shape)
+    figures: dict[str, list[float]] = {k: [] for k in (
+        "n_standards", "n_levels", "concentration_min", "concentration_max",
+        "peak_wavelength_nm", "r_squared", "residual_sd", "worst_relative_deviation")}
+    for k, comp in enumerate(components):
+        rows = table[table["component"] == comp]
+        conc = rows["concentration_canonical"].to_numpy(dtype=float)
+        b = rows["pathlength_cm"].fillna(default_b).to_numpy(dtype=float)
+        x = conc * b
+        absorb = spectra.sel({SAMPLE: rows["sample"].tolist()}).transpose(
+            SAMPLE, WAVELENGTH).values
+        if np.isnan(absorb).any():
+            s_idx, w_idx = np.argwhere(np.isnan(absorb))[0]
+            raise InputError(
+                f"standards: sample {rows['sample'].iloc[s_idx]!r} has no reading at "
+                f"{wl[w_idx]:g} nm; every standard needs a full spectrum"
+            )
+        fit = _line_fit(x, absorb, intercept)
+        eps[k], u_eps[k], icpt[k], u_icpt[k] = fit["slope"], fit["u_slope"], fit["icpt"], \
+            fit["u_icpt"]
+        peak = int(np.argmax(eps[k]))
+        predicted = fit["slope"][peak] * x + fit["icpt"][peak]
+        observed = absorb[:, peak]
+        resid = observed - predicted
+        sst = float(np.sum((observed - observed.mean()) ** 2))
+        positive = conc > 0
+        rel = np.abs(resid[positive]) / np.abs(predicted[positive]) if positive.any() else []
+        levels = np.unique(conc[positive]).size
+        figures["n_standards"].append(conc.size)
+        figures["n_levels"].append(levels)
+        figures["concentration_min"].append(float(conc.min()))
+        figures["concentration_max"].append(float(conc.max()))
+        figures["peak_wavelength_nm"].append(float(wl[peak]))
+        figures["r_squared"].append(1 - float(np.sum(resid**2)) / sst if sst > 0 else np.nan)
+        figures["residual_sd"].append(float(fit["s"][peak]))
+        figures["worst_relative_deviation"].append(float(np.max(rel)) if len(rel) else np.nan)
+        _warn_linearity(comp, figures, min_r2, max_relative_deviation, min_levels)
+    provenance = {
+        "method": "built from standards",
+        "source": source,
+        "fit": "slope and intercept" if intercept else "through the origin",
+        "standards": {c: table.loc[table["component"] == c, "sample"].tolist()
+                      for c in components},
+        "criteria": {"min_r2": min_r2, "max_relative_deviation": max_relative_deviation,
+                     "min_levels": min_levels},
+    }
+    lib = _new_library(eps, u_eps, components, wl, basis, molar_mass_g_per_mol, solvent,
+                       bandwidth_nm, provenance)
+    for name, values in figures.items():
+        lib[name] = ((COMPONENT,), np.asarray(values))
+    lib["concentration_min"].attrs["units"] = lib.attrs["concentration_unit"]
+    lib["concentration_max"].attrs["units"] = lib.attrs["concentration_unit"]
+    lib["residual_sd"].attrs["units"] = "AU"
+    if intercept:
+        lib["intercept"] = ((COMPONENT, WAVELENGTH), icpt, {"units": "AU"})
+        lib["u_intercept"] = ((COMPONENT, WAVELENGTH), u_icpt, {"units": "AU"})
+    return lib
+
+
+def _line_fit(x: np.ndarray, absorb: np.ndarray, intercept: bool) -> dict[str, np.ndarray]:
+    """Least-squares line per wavelength column of ``absorb`` against ``x``."""
+    n = x.size
+    if intercept:
+        xm = x.mean()
+        sxx = float(np.sum((x - xm) ** 2))
+        if n < 2 or sxx == 0:
+            raise InputError("standards: a fit with intercept needs at least two different "
+                             "concentrations per component")
+        slope = (x - xm) @ (absorb - absorb.mean(axis=0)) / sxx
+        icpt = absorb.mean(axis=0) - slope * xm
+        dof = n - 2
+        resid = absorb - np.outer(x, slope) - icpt
+        s = np.sqrt(np.sum(resid**2, axis=0) / dof) if dof > 0 else np.full(slope.shape, np.nan)
+        u_slope = s / np.sqrt(sxx)
+        u_icpt = s * np.sqrt(1 / n + xm**2 / sxx)
+    else:
+        sxx = float(x @ x)
+        if sxx == 0:
+            raise InputError("standards: every standard of a component has concentration 0")
+        slope = x @ absorb / sxx
+        icpt = np.zeros_like(slope)
+        dof = n - 1
+        resid = absorb - np.outer(x, slope)
+        s = np.sqrt(np.sum(resid**2, axis=0) / dof) if dof > 0 else np.full(slope.shape, np.nan)
+        u_slope = s / np.sqrt(sxx)
+        u_icpt = np.zeros_like(slope)
+    return {"slope": slope, "u_slope": u_slope, "icpt": icpt, "u_icpt": u_icpt, "s": s}
+
+
+def _warn_linearity(comp: str, figures: dict[str, list[float]], min_r2: float,
+                    max_rel: float, min_levels: int) -> None:
+    problems = []
+    if figures["n_levels"][-1] < min_levels:
+        problems.append(f"only {figures['n_levels'][-1]} concentration level(s), "
+                        f"fewer than {min_levels}")
+    r2 = figures["r_squared"][-1]
+    if np.isfinite(r2) and r2 < min_r2:
+        problems.append(f"R² {r2:.4f} below {min_r2}")
+    worst = figures["worst_relative_deviation"][-1]
+    if np.isfinite(worst) and worst > max_rel:
+        problems.append(f"a standard deviates {100 * worst:.1f} % from the line "
+                        f"(limit {100 * max_rel:g} %)")
+    if problems:
+        warnings.warn(
+            f"component {comp!r} at {figures['peak_wavelength_nm'][-1]:g} nm: "
+            + "; ".join(problems),
+            LinearityWarning,
+            stacklevel=3,
+        )
+
+
+def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray) -> pd.DataFrame:
+    """Validate the standards sheet and add canonical concentrations."""
+    if not isinstance(sheet, pd.DataFrame):
+        raise InputError(f"standards sheet: expected a DataFrame, got {type(sheet).__name__}")
+    table = sheet.copy()
+    table.columns = [str(c).strip().lower() for c in table.columns]
+    missing = [c for c in ("sample", "component", "concentration", "unit")
+               if c not in table.columns]
+    if missing:
+        raise InputError(
+            f"standards sheet: missing column(s) {', '.join(missing)}; expected "
+            "sample, component, concentration, unit (and optionally pathlength_cm)")
+    if table.empty:
+        raise InputError("standards sheet: no rows")
+    if "line" not in table.columns:
+        table["line"] = np.arange(len(table)) + 2
+    if "pathlength_cm" not in table.columns:
+        table["pathlength_cm"] = np.nan
+    table["sample"] = table["sample"].astype(str).str.strip()
+    table["component"] = table["component"].astype(str).str.strip()
+    known = set(map(str, spectra[SAMPLE].values))
+    canon, bases = [], []
+    for row in table.itertuples(index=False):
+        where = f"standards sheet, line {row.line}"
+        if row.sample not in known:
+            raise InputError(f"{where}: sample {row.sample!r} has no spectrum in the standards "
+                             "spectra file")
+        if not row.component or row.component.lower() == "nan":
+            raise InputError(f"{where}: empty component")
+        try:
+            value = float(row.concentration)
+        except (TypeError, ValueError):
+            raise InputError(f"{where}: concentration {row.concentration!r} is not a number") \
+                from None
+        if not np.isfinite(value) or value < 0:
+            raise InputError(f"{where}: concentration {value:g} is not a number ≥ 0")
+        b = float(row.pathlength_cm)
+        if not np.isnan(b) and (not np.isfinite(b) or b <= 0):
+            raise InputError(f"{where}: pathlength_cm {b:g} is not a positive number")
+        basis, factor = concentration_basis(str(row.unit), f"{where}: unit")
+        canon.append(value * factor)
+        bases.append(basis)
+    table["concentration_canonical"] = canon
+    table["basis"] = bases
+    if len(set(bases)) > 1:
+        first = table.iloc[0]
+        other = table[table["basis"] != first["basis"]].iloc[0]
+        raise InputError(
+            f"standards sheet, line {other['line']}: unit {other['unit']!r} is "
+            f"{other['basis']}-based but line {first['line']} uses {first['unit']!r}; give all "
+            "standards as amount (mol/L) or all as mass (g/L) concentrations")
+    per_sample = table.groupby("sample")["component"].nunique()
+    if (per_sample > 1).any():
+        bad = per_sample[per_sample > 1].index[0]
+        raise InputError(
+            f"standards sheet: sample {bad!r} lists more than one component; library build "
+            "needs pure standards (use `mixsolve calibrate` for mixtures)")
+    dup = table["sample"].duplicated()
+    if dup.any():
+        row = table[dup].iloc[0]
+        raise InputError(f"standards sheet, line {row['line']}: sample {row['sample']!r} "
+                         "appears twice")
+    unused = sorted(known - set(table["sample"]))
+    if unused:
+        raise InputError(
+            f"standards: spectra {', '.join(map(repr, unused[:5]))} have no row in the standards "
+            "sheet; add them or remove them from the spectra file")
+    return table
+
+
+def resample_library(
+    library: xr.Dataset, wavelengths_nm: np.ndarray
+) -> tuple[xr.Dataset, np.ndarray]:
+    """Interpolate a library onto measured wavelengths, inside its range only.
+
+    Parameters
+    ----------
+    library : Dataset
+        A mixsolve library.
+    wavelengths_nm : array, shape (n,)
+        Target wavelengths (nm), ascending.
+
+    Returns
+    -------
+    resampled : Dataset
+        The library on the target wavelengths that lie within its range.
+    outside : ndarray
+        Target wavelengths (nm) outside the library's range, which were left out.
+
+    Notes
+    -----
+    Linear interpolation (``numpy.interp``) of ε and of u(ε); wavelengths that are
+    already on the library grid keep their values exactly. Nothing is extrapolated.
+    """
+    library = check_library(library)
+    target = np.asarray(wavelengths_nm, dtype=float)
+    grid = library[WAVELENGTH].values
+    tol = 1e-9 * max(1.0, float(grid.max()))
+    inside = (target >= grid[0] - tol) & (target <= grid[-1] + tol)
+    keep = np.clip(target[inside], grid[0], grid[-1])
+    data_vars = {}
+    for name, var in library.data_vars.items():
+        if WAVELENGTH not in var.dims:
+            data_vars[name] = var
+            continue
+        moved = np.moveaxis(var.values, var.dims.index(WAVELENGTH), -1)
+        flat = moved.reshape(-1, grid.size)
+        new = np.stack([np.interp(keep, grid, row) for row in flat]) if flat.size else flat
+        new = np.moveaxis(new.reshape(*moved.shape[:-1], keep.size), -1,
+                          var.dims.index(WAVELENGTH))
+        data_vars[name] = (var.dims, new, var.attrs)
+    coords = {c: library.coords[c] for c in library.coords if c != WAVELENGTH}
+    coords[WAVELENGTH] = (WAVELENGTH, target[inside], library[WAVELENGTH].attrs)
+    out = xr.Dataset(data_vars, coords=coords, attrs=library.attrs)
+    return out, target[~inside]

@@ -1,0 +1,1 @@
+"""Tables and text summaries derived from results and libraries (no I/O)."""

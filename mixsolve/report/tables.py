@@ -1,0 +1,53 @@
+"""Tidy tables from result Datasets (the Dataset is the source; tables derive from it)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from mixsolve.library import COMPONENT
+
+RESULT_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
+                  "rms_residual_au", "dof", "flags")
+
+
+def results_table(result: xr.Dataset) -> pd.DataFrame:
+    """One row per sample × component.
+
+    Parameters
+    ----------
+    result : Dataset
+        Output of :func:`mixsolve.unmix` with a ``sample`` dimension.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``sample, component, concentration, std_uncertainty, unit,
+        rms_residual_au, dof, flags``. ``flags`` holds the sample's ``;``-joined flag codes
+        (empty when nothing is doubtful).
+    """
+    conc = result["concentration"].transpose(..., COMPONENT)
+    sample_dims = [d for d in conc.dims if d != COMPONENT]
+    stacked = result.stack(_row=sample_dims) if len(sample_dims) != 1 else result
+    row_dim = "_row" if len(sample_dims) != 1 else sample_dims[0]
+    conc = stacked["concentration"].transpose(row_dim, COMPONENT).values
+    u = stacked["std_uncertainty"].transpose(row_dim, COMPONENT).values
+    comps = [str(c) for c in stacked[COMPONENT].values]
+    if row_dim == "_row":
+        labels = ["/".join(map(str, idx)) if isinstance(idx, tuple) else str(idx)
+                  for idx in stacked.indexes["_row"]]
+    else:
+        labels = [str(s) for s in stacked[row_dim].values]
+    flags = stacked["flags"].values if "flags" in stacked else np.full(len(labels), "")
+    n_c = len(comps)
+    return pd.DataFrame({
+        "sample": np.repeat(labels, n_c),
+        "component": np.tile(comps, len(labels)),
+        "concentration": conc.ravel(),
+        "std_uncertainty": u.ravel(),
+        "unit": result.attrs["unit"],
+        "rms_residual_au": np.repeat(stacked["rms_residual"].values, n_c),
+        "dof": np.repeat(stacked["dof"].values, n_c),
+        "flags": np.repeat(flags, n_c),
+    }, columns=list(RESULT_COLUMNS))

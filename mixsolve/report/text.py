@@ -1,0 +1,191 @@
+"""Plain-text summaries: pure functions returning ``str`` (the CLI prints them)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from mixsolve.library import COMPONENT
+from mixsolve.spectra import WAVELENGTH
+
+CAUTION = (
+    "mixsolve results support, and do not replace, a validated method where results carry "
+    "regulatory or clinical weight."
+)
+
+
+def _num(value: float, width: int = 10) -> str:
+    if value is None or not np.isfinite(value):
+        return f"{'n/a':>{width}}"
+    return f"{value:>{width}.4g}"
+
+
+def _notes(lines: list[str]) -> list[str]:
+    if not lines:
+        return ["Notes: none."]
+    return ["Notes:"] + [f" {i}. {text}" for i, text in enumerate(lines, start=1)]
+
+
+def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str:
+    """Summarise an :func:`mixsolve.unmix` result as an aligned text table.
+
+    Parameters
+    ----------
+    result : Dataset with a ``sample`` dimension
+    truth : DataFrame, optional
+        Known concentrations (index sample, columns component, result unit), printed
+        beside each value (used by the demo).
+
+    Returns
+    -------
+    str
+        Header lines, one row per sample with value ± standard uncertainty for every
+        component, the RMS residual (AU) and flags, then numbered notes on anything
+        doubtful.
+    """
+    comps = [str(c) for c in result[COMPONENT].values]
+    samples = [str(s) for s in result["sample"].values]
+    unit = result.attrs["unit"]
+    used = json.loads(result.attrs["wavelengths_nm"])
+    left_out = json.loads(result.attrs.get("left_out_wavelengths_nm", "[]"))
+    b = np.atleast_1d(result["pathlength_cm"].values)
+    b_text = f"{b[0]:g} cm" if np.unique(b).size == 1 else f"{b.min():g}-{b.max():g} cm"
+    lines = [
+        f"Concentrations by classical least squares ({result.attrs['method']}, baseline "
+        f"{result.attrs['baseline']})",
+        f"  wavelengths   {len(used)} used, {min(used):g}-{max(used):g} nm",
+        f"  pathlength    {b_text}",
+        f"  unit          {unit}, value ± standard uncertainty"
+        + ("  [known value]" if truth is not None else ""),
+        "",
+    ]
+    name_w = max(8, *(len(s) for s in samples)) + 2
+    cell_w = 24 if truth is None else 36
+    head = f"{'sample':<{name_w}}" + "".join(f"{c:<{cell_w}}" for c in comps)
+    lines.append(head + f"{'rms AU':>9}  flags")
+    conc = result["concentration"].transpose("sample", COMPONENT).values
+    u = result["std_uncertainty"].transpose("sample", COMPONENT).values
+    flags = result["flags"].values if "flags" in result else [""] * len(samples)
+    for i, s in enumerate(samples):
+        cells = []
+        for k, c in enumerate(comps):
+            cell = f"{_num(conc[i, k], 9).strip()} ± {_num(u[i, k], 8).strip()}"
+            if truth is not None and s in truth.index and c in truth.columns:
+                cell += f"  [{truth.loc[s, c]:.4g}]"
+            cells.append(f"{cell:<{cell_w}}")
+        rms = float(result["rms_residual"].values[i])
+        lines.append(f"{s:<{name_w}}" + "".join(cells) + f"{rms:>9.2g}  {flags[i]}")
+    lines.append("")
+    lines += _notes(_result_notes(result, samples, left_out))
+    lines.append(CAUTION)
+    return "\n".join(lines) + "\n"
+
+
+def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float]) -> list[str]:
+    notes = []
+    if left_out:
+        notes.append(f"{len(left_out)} measured wavelength(s) lie outside the library and were "
+                     f"left out ({min(left_out):g}-{max(left_out):g} nm); nothing is "
+                     "extrapolated.")
+    flags = result["flags"].values if "flags" in result else []
+    by_code: dict[str, list[str]] = {}
+    for s, text in zip(samples, flags, strict=False):
+        for code in filter(None, str(text).split(";")):
+            by_code.setdefault(code, []).append(s)
+    explain = {
+        "no_dof": "as many unknowns as wavelengths: the fit is exact, so the residual says "
+                  "nothing and the uncertainty is not available (n/a); measure more "
+                  "wavelengths",
+        "missing_readings": "some readings were missing; fitted on the wavelengths present",
+        "too_few_readings": "too few readings left to fit; no result",
+        "rank_deficient": "the readings left cannot separate the components; no result",
+    }
+    for code, who in by_code.items():
+        base, _, comp = code.partition(":")
+        names = ", ".join(who[:6]) + (f" and {len(who) - 6} more" if len(who) > 6 else "")
+        if base == "at_zero":
+            text = f"{comp!r} held at zero by the non-negativity constraint"
+        elif base == "negative":
+            text = f"{comp!r} came out negative (below zero beyond what the model allows)"
+        else:
+            text = explain.get(base, base)
+        notes.append(f"{names}: {text} [{code}].")
+    return notes
+
+
+def format_library(library: xr.Dataset, name: str = "") -> str:
+    """Summarise a library: header facts, one line per component, notes.
+
+    Returns
+    -------
+    str
+        Components, unit, wavelength grid, solvent, bandwidth and provenance, then per
+        component the peak wavelength (nm), ε and u(ε) at the peak, molar mass and, for
+        libraries built from standards, the linearity figures.
+    """
+    comps = [str(c) for c in library[COMPONENT].values]
+    wl = library[WAVELENGTH].values
+    prov = json.loads(library.attrs.get("provenance", "{}") or "{}")
+    bw = library.attrs.get("bandwidth_nm", float("nan"))
+    step = np.unique(np.round(np.diff(wl), 6)) if wl.size > 1 else np.array([])
+    grid = f"{wl.size} from {wl[0]:g} to {wl[-1]:g} nm"
+    if step.size == 1:
+        grid += f" (step {step[0]:g} nm)"
+    lines = [
+        f"Library {name}".rstrip(),
+        f"  components    {len(comps)}: {', '.join(comps)}",
+        f"  absorptivity  {library.attrs['unit']} (concentrations in "
+        f"{library.attrs['concentration_unit']} at 1 cm)",
+        f"  wavelengths   {grid}",
+        f"  solvent       {library.attrs.get('solvent') or 'not stated'}",
+        f"  bandwidth     {f'{bw:g} nm' if np.isfinite(bw) else 'not stated'}",
+        f"  made          {prov.get('method', 'unknown')}"
+        + (f" ({prov['fit']})" if "fit" in prov else "")
+        + (f" from {prov['source']}" if prov.get("source") else ""),
+        "",
+    ]
+    built = "r_squared" in library
+    cw = max(12, *(len(c) for c in comps)) + 2
+    head = f"{'component':<{cw}}{'peak nm':>8}{'ε at peak':>12}{'u(ε)':>10}{'M g/mol':>9}"
+    if built:
+        head += f"{'levels':>7}{'range':>22}{'R²':>9}{'sd AU':>9}{'worst':>8}"
+    lines.append(head)
+    notes = []
+    eps = library["absorptivity"].values
+    u = library["u_absorptivity"].values
+    mm = library["molar_mass_g_per_mol"].values
+    for k, c in enumerate(comps):
+        peak = int(np.argmax(eps[k]))
+        row = (f"{c:<{cw}}{wl[peak]:>8g}{_num(eps[k, peak], 12)}{_num(u[k, peak], 10)}"
+               f"{_num(mm[k], 9)}")
+        if built:
+            lo = float(library["concentration_min"].values[k])
+            hi = float(library["concentration_max"].values[k])
+            worst = float(library["worst_relative_deviation"].values[k])
+            r2 = float(library["r_squared"].values[k])
+            levels = int(library["n_levels"].values[k])
+            row += (f"{levels:>7d}{f'{lo:.3g}-{hi:.3g}':>22}{_num(r2, 9)}"
+                    f"{_num(float(library['residual_sd'].values[k]), 9)}"
+                    f"{f'{100 * worst:.1f} %' if np.isfinite(worst) else 'n/a':>8}")
+            crit = prov.get("criteria", {})
+            if levels < crit.get("min_levels", 3):
+                notes.append(f"{c}: only {levels} concentration level(s).")
+            if np.isfinite(r2) and r2 < crit.get("min_r2", 0.995):
+                notes.append(f"{c}: R² {r2:.4f} is below {crit.get('min_r2', 0.995)}.")
+            if np.isfinite(worst) and worst > crit.get("max_relative_deviation", 0.05):
+                notes.append(f"{c}: a standard lies {100 * worst:.1f} % off the line.")
+        lines.append(row)
+    if not np.isfinite(u).any():
+        notes.append("absorptivity uncertainties were not stated (imported table).")
+    if not np.isfinite(bw):
+        notes.append("spectral bandwidth not stated: absorptivities of narrow bands depend on "
+                     "it, so measure with the bandwidth the library was made with.")
+    if built:
+        lines.append(f"  (range in {library.attrs['concentration_unit']}; R², sd and worst "
+                     "relative deviation at each component's peak)")
+    lines.append("")
+    lines += _notes(notes)
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,134 @@
+"""Labelled spectra: construction and validation at the public boundary.
+
+A spectra array is an :class:`xarray.DataArray` with a ``wavelength`` dimension
+(nm, float, strictly increasing) and any other dimensions (usually ``sample``).
+Attributes: ``quantity`` ("absorbance"), ``pathlength_cm`` where known, ``source``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from mixsolve.errors import InputError
+
+WAVELENGTH = "wavelength"
+SAMPLE = "sample"
+
+
+def make_spectra(
+    values: Any,
+    wavelengths_nm: Sequence[float] | np.ndarray,
+    samples: Sequence[str] | None = None,
+    *,
+    source: str = "",
+    pathlength_cm: float | None = None,
+) -> xr.DataArray:
+    """Build a validated spectra array from plain arrays.
+
+    Parameters
+    ----------
+    values : array_like, shape (n_samples, n_wavelengths)
+        Absorbance (dimensionless, AU). NaN marks a missing reading.
+    wavelengths_nm : array_like, shape (n_wavelengths,)
+        Wavelengths in nm, any order; they are sorted ascending.
+    samples : sequence of str, optional
+        Sample names; ``sample_1``, ``sample_2`` ... when omitted.
+    source : str
+        Where the spectra came from (file name), kept in ``attrs``.
+    pathlength_cm : float, optional
+        Cell pathlength, if known, kept in ``attrs``.
+
+    Returns
+    -------
+    DataArray with dims ("sample", "wavelength")
+    """
+    data = np.atleast_2d(np.asarray(values, dtype=float))
+    wl = np.asarray(wavelengths_nm, dtype=float)
+    if samples is None:
+        samples = [f"sample_{i + 1}" for i in range(data.shape[0])]
+    if data.shape != (len(samples), wl.size):
+        raise InputError(
+            f"spectra values have shape {data.shape}; expected (samples, wavelengths) = "
+            f"({len(samples)}, {wl.size})"
+        )
+    attrs: dict[str, Any] = {"quantity": "absorbance", "source": source}
+    if pathlength_cm is not None:
+        attrs["pathlength_cm"] = float(pathlength_cm)
+    da = xr.DataArray(
+        data,
+        dims=(SAMPLE, WAVELENGTH),
+        coords={SAMPLE: [str(s) for s in samples], WAVELENGTH: wl},
+        attrs=attrs,
+        name="absorbance",
+    )
+    return check_spectra(da.sortby(WAVELENGTH))
+
+
+def check_spectra(spectra: xr.DataArray, name: str = "spectra") -> xr.DataArray:
+    """Check a spectra array and return it with float64 wavelengths in ascending order.
+
+    Parameters
+    ----------
+    spectra : DataArray with dims (..., "wavelength")
+    name : str
+        How to refer to the array in error messages.
+
+    Raises
+    ------
+    InputError
+        Not a DataArray, no ``wavelength`` dimension, duplicate or non-finite wavelengths,
+        or infinite absorbance values.
+    """
+    if not isinstance(spectra, xr.DataArray):
+        raise InputError(
+            f"{name}: expected an xarray.DataArray with a 'wavelength' dimension, got "
+            f"{type(spectra).__name__}; build one with mixsolve.make_spectra or read_spectra"
+        )
+    if WAVELENGTH not in spectra.dims:
+        raise InputError(f"{name}: dims {spectra.dims} have no 'wavelength' dimension")
+    if WAVELENGTH not in spectra.coords:
+        raise InputError(f"{name}: the 'wavelength' dimension has no coordinate (nm)")
+    wl = np.asarray(spectra[WAVELENGTH].values, dtype=float)
+    if wl.size == 0:
+        raise InputError(f"{name}: no wavelengths")
+    if not np.all(np.isfinite(wl)):
+        raise InputError(f"{name}: wavelength coordinate holds non-finite values")
+    if np.any(wl <= 0):
+        raise InputError(f"{name}: wavelength {wl[wl <= 0][0]:g} nm is not positive")
+    if np.unique(wl).size != wl.size:
+        values, counts = np.unique(wl, return_counts=True)
+        raise InputError(f"{name}: wavelength {values[counts > 1][0]:g} nm appears twice")
+    out = spectra.assign_coords({WAVELENGTH: wl})
+    if np.any(np.diff(wl) < 0):
+        out = out.sortby(WAVELENGTH)
+    if not _is_dask(out) and np.isinf(out.values).any():
+        raise InputError(f"{name}: absorbance values include infinity; use NaN for a missing reading")
+    return out
+
+
+def _is_dask(da: xr.DataArray) -> bool:
+    return da.chunks is not None
+
+
+def check_window(window: Any, name: str = "window") -> tuple[float, float] | None:
+    """Validate a wavelength window ``(low, high)`` in nm, both ends included."""
+    if window is None:
+        return None
+    try:
+        low, high = (float(v) for v in window)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: expected (low, high) in nm, got {window!r}") from None
+    if not (np.isfinite(low) and np.isfinite(high)) or low >= high:
+        raise InputError(f"{name}: {low:g}-{high:g} nm is not an increasing pair of wavelengths")
+    return low, high
+
+
+def check_option(value: str, allowed: Sequence[str], name: str) -> str:
+    """Check a string option against its closed set of values."""
+    if value not in allowed:
+        raise InputError(f"{name}: {value!r} is not one of {', '.join(map(repr, allowed))}")
+    return value

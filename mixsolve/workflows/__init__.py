@@ -1,0 +1,1 @@
+"""Workflows: file-to-file jobs that join readers, the core and reports."""

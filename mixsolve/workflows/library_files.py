@@ -1,0 +1,42 @@
+"""Library jobs from files to a library file (what `mixsolve library ...` runs)."""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping
+
+import xarray as xr
+
+from mixsolve.io.library_store import write_library
+from mixsolve.io.spectra_io import read_absorptivity_table, read_spectra
+from mixsolve.io.standards_io import molar_masses_from_sheet, read_standards
+from mixsolve.library import build_library, import_absorptivities
+
+PathLike = str | os.PathLike[str]
+
+
+def import_library_file(table: PathLike, unit: str, out: PathLike, *,
+                        molar_mass: Mapping[str, float] | None = None, solvent: str = "",
+                        bandwidth_nm: float | None = None) -> xr.Dataset:
+    """Read an absorptivity table, make a library and write it to ``out``."""
+    eps = read_absorptivity_table(table)
+    lib = import_absorptivities(eps, unit, molar_mass_g_per_mol=molar_mass, solvent=solvent,
+                                bandwidth_nm=bandwidth_nm, source=os.path.basename(table))
+    write_library(lib, out)
+    return lib
+
+
+def build_library_files(spectra: PathLike, standards: PathLike, out: PathLike | None, *,
+                        intercept: bool = False, pathlength_cm: float | None = None,
+                        molar_mass: Mapping[str, float] | None = None, solvent: str = "",
+                        bandwidth_nm: float | None = None) -> xr.Dataset:
+    """Read standards spectra and sheet, build a library and write it to ``out`` (if given)."""
+    measured = read_spectra(spectra)
+    sheet = read_standards(standards)
+    masses = {**molar_masses_from_sheet(sheet), **(molar_mass or {})}
+    lib = build_library(measured, sheet, intercept=intercept, pathlength_cm=pathlength_cm,
+                        molar_mass_g_per_mol=masses or None, solvent=solvent,
+                        bandwidth_nm=bandwidth_nm, source=os.path.basename(spectra))
+    if out is not None:
+        write_library(lib, out)
+    return lib
