@@ -106,7 +106,8 @@ def check_spectra(spectra: xr.DataArray, name: str = "spectra") -> xr.DataArray:
     if np.any(np.diff(wl) < 0):
         out = out.sortby(WAVELENGTH)
     if not _is_dask(out) and np.isinf(out.values).any():
-        raise InputError(f"{name}: absorbance values include infinity; use NaN for a missing reading")
+        raise InputError(
+            f"{name}: absorbance values include infinity; use NaN for a missing reading")
     return out
 
 

@@ -23,6 +23,25 @@ def _num(value: float, width: int = 10) -> str:
     return f"{value:>{width}.4g}"
 
 
+def value_with_uncertainty(value: float, u: float) -> str:
+    """Format ``value ± u`` with u to two significant digits and the value to match (GUM 7.2.6).
+
+    Very small or large magnitudes share one power of ten: ``(7.30 ± 0.12)e-05``.
+    """
+    if not np.isfinite(value):
+        return "n/a"
+    if not np.isfinite(u) or u <= 0:
+        return f"{value:.4g} ± n/a"
+    exponent = 0
+    scale = max(abs(value), u)
+    if scale < 1e-3 or scale >= 1e6:
+        exponent = int(np.floor(np.log10(scale)))
+        value, u = value / 10.0**exponent, u / 10.0**exponent
+    decimals = max(0, 1 - int(np.floor(np.log10(u))))
+    text = f"{value:.{decimals}f} ± {u:.{decimals}f}"
+    return f"({text})e{exponent:+03d}" if exponent else text
+
+
 def _notes(lines: list[str]) -> list[str]:
     if not lines:
         return ["Notes: none."]
@@ -63,7 +82,7 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
         "",
     ]
     name_w = max(8, *(len(s) for s in samples)) + 2
-    cell_w = 24 if truth is None else 36
+    cell_w = max(26 if truth is None else 34, *(len(c) + 2 for c in comps))
     head = f"{'sample':<{name_w}}" + "".join(f"{c:<{cell_w}}" for c in comps)
     lines.append(head + f"{'rms AU':>9}  flags")
     conc = result["concentration"].transpose("sample", COMPONENT).values
@@ -72,9 +91,9 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
     for i, s in enumerate(samples):
         cells = []
         for k, c in enumerate(comps):
-            cell = f"{_num(conc[i, k], 9).strip()} ± {_num(u[i, k], 8).strip()}"
+            cell = value_with_uncertainty(conc[i, k], u[i, k])
             if truth is not None and s in truth.index and c in truth.columns:
-                cell += f"  [{truth.loc[s, c]:.4g}]"
+                cell = f"{cell:<20}[{truth.loc[s, c]:.4g}]"
             cells.append(f"{cell:<{cell_w}}")
         rms = float(result["rms_residual"].values[i])
         lines.append(f"{s:<{name_w}}" + "".join(cells) + f"{rms:>9.2g}  {flags[i]}")
@@ -151,7 +170,7 @@ def format_library(library: xr.Dataset, name: str = "") -> str:
     cw = max(12, *(len(c) for c in comps)) + 2
     head = f"{'component':<{cw}}{'peak nm':>8}{'ε at peak':>12}{'u(ε)':>10}{'M g/mol':>9}"
     if built:
-        head += f"{'levels':>7}{'range':>22}{'R²':>9}{'sd AU':>9}{'worst':>8}"
+        head += f"{'levels':>7}{'range':>16}{'R²':>9}{'sd AU':>9}{'worst':>8}"
     lines.append(head)
     notes = []
     eps = library["absorptivity"].values
@@ -167,7 +186,7 @@ def format_library(library: xr.Dataset, name: str = "") -> str:
             worst = float(library["worst_relative_deviation"].values[k])
             r2 = float(library["r_squared"].values[k])
             levels = int(library["n_levels"].values[k])
-            row += (f"{levels:>7d}{f'{lo:.3g}-{hi:.3g}':>22}{_num(r2, 9)}"
+            row += (f"{levels:>7d}{f'{lo:.3g}-{hi:.3g}':>16}{r2:>9.5f}"
                     f"{_num(float(library['residual_sd'].values[k]), 9)}"
                     f"{f'{100 * worst:.1f} %' if np.isfinite(worst) else 'n/a':>8}")
             crit = prov.get("criteria", {})

@@ -8,7 +8,6 @@ each component at 1 cm (columns) followed by the optional baseline columns:
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np

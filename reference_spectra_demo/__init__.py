@@ -1,0 +1,1 @@
+"""Synthetic demo data (invented scenario); see README.md in this folder."""
