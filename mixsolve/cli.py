@@ -48,7 +48,7 @@ def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
     return wrapper
 
 
-def parse_window(text: str | None) -> tuple[float, float] | None:
+def parse_window(text: str | None, option: str = "--window") -> tuple[float, float] | None:
     """Parse ``"400-700"`` (nm) into a pair; both ends are included in the fit."""
     if text is None:
         return None
@@ -56,7 +56,7 @@ def parse_window(text: str | None) -> tuple[float, float] | None:
     try:
         low, high = (float(p) for p in parts)
     except ValueError:
-        raise InputError(f"--window: {text!r} is not LOW-HIGH in nm, e.g. 400-700") from None
+        raise InputError(f"{option}: {text!r} is not LOW-HIGH, e.g. 400-700") from None
     return low, high
 
 
@@ -69,6 +69,16 @@ def parse_wavelengths(text: str | None) -> list[float] | None:
     except ValueError:
         raise InputError(f"--wavelengths: {text!r} is not a comma-separated list of nm, "
                          "e.g. 663.6,646.6") from None
+
+
+def parse_noise(text: str | None) -> str | float | None:
+    """``--noise``: a preset name or σ_A in AU."""
+    if text is None:
+        return None
+    try:
+        return float(text)
+    except ValueError:
+        return text
 
 
 def parse_molar_masses(text: str | None) -> dict[str, float] | None:
@@ -188,18 +198,98 @@ def library_show(library_file: str) -> None:
               show_default=True)
 @click.option("--pathlength", type=float, help="Pathlength in cm [1].")
 @click.option("--unit", help='Concentration unit of the results, e.g. "mg/L", "umol/L".')
+@click.option("--weights", type=click.Choice(["none", "noise"]), default="none",
+              show_default=True, help="Weight readings by 1/σ_A² of the noise model.")
+@click.option("--noise", help="Noise model: a preset (benchtop_double_beam, diode_array, "
+              "microplate, field_photometer) or σ_A in AU; enables the lack-of-fit test.")
+@click.option("--range", "absorbance_range", default="0.3-2", show_default=True,
+              help="Reliable absorbance range LOW-HIGH (AU) for the range flags.")
+@click.option("--fit-shift", is_flag=True, help="Fit one wavelength offset per sample.")
+@click.option("--max-shift", type=float, default=3.0, show_default=True,
+              help="Largest wavelength offset searched with --fit-shift (nm).")
+@click.option("--wavelength-tolerance", type=float, default=0.5, show_default=True,
+              help="Instrument wavelength accuracy (nm) for the shift_sensitive flag.")
 @click.option("--out", help="Tidy results CSV to write.")
 @_guarded
 def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str | None,
           method: str, baseline: str, pathlength: float | None, unit: str | None,
-          out: str | None) -> None:
+          weights: str, noise: str | None, absorbance_range: str, fit_shift: bool,
+          max_shift: float, wavelength_tolerance: float, out: str | None) -> None:
     """Resolve SPECTRA into concentrations with the library LIBRARY_FILE."""
     from mixsolve.report.text import format_results
     from mixsolve.workflows.unmix_files import unmix_files
 
     result = unmix_files(library_file, spectra, window=parse_window(window),
                          wavelengths=parse_wavelengths(wavelengths), method=method,
-                         baseline=baseline, pathlength_cm=pathlength, unit=unit, out=out)
+                         baseline=baseline, pathlength_cm=pathlength, unit=unit, out=out,
+                         weights=weights, noise=parse_noise(noise),
+                         absorbance_range=parse_window(absorbance_range, "--range"),
+                         fit_shift=fit_shift, max_shift_nm=max_shift,
+                         wavelength_tolerance_nm=wavelength_tolerance)
     click.echo(format_results(result), nl=False)
     if out:
         click.echo(f"wrote {out}", err=True)
+
+
+@main.group()
+def wavelengths() -> None:
+    """Check a wavelength selection, or choose a better one."""
+
+
+@wavelengths.command("check")
+@click.argument("library_file")
+@add_options(selection_options)
+@click.option("--components", help="Check only these components (comma-separated).")
+@click.option("--noise", type=float, default=0.001, show_default=True,
+              help="Reading noise σ_A in AU.")
+@click.option("--baseline", type=click.Choice(["none", "offset", "linear"]), default="none",
+              show_default=True)
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead.")
+@_guarded
+def wavelengths_check(library_file: str, window: str | None, wavelengths: str | None,
+                      components: str | None, noise: float, baseline: str,
+                      as_json: bool) -> None:
+    """Conditioning and figures of merit of LIBRARY_FILE at the chosen wavelengths."""
+    import json
+
+    from mixsolve.diagnostics.check import check_wavelengths, merit_to_dict
+    from mixsolve.io.library_store import read_library
+    from mixsolve.report.merit_text import format_check
+
+    check = check_wavelengths(
+        read_library(library_file), window=parse_window(window),
+        wavelengths=parse_wavelengths(wavelengths), noise=noise,
+        components=[c.strip() for c in components.split(",")] if components else None,
+        baseline=baseline)  # type: ignore[arg-type]
+    click.echo(json.dumps(merit_to_dict(check)) if as_json else format_check(check),
+               nl=as_json)
+
+
+@wavelengths.command("choose")
+@click.argument("library_file")
+@click.option("--count", type=int, required=True, help="How many wavelengths to choose.")
+@click.option("--window", help="Candidate window LOW-HIGH in nm, both ends included.")
+@click.option("--contiguous", is_flag=True, help="Choose a contiguous run of wavelengths.")
+@click.option("--compare", help="Your own wavelengths (nm, comma-separated) to compare.")
+@click.option("--noise", type=float, default=0.001, show_default=True,
+              help="Reading noise σ_A in AU.")
+@click.option("--baseline", type=click.Choice(["none", "offset", "linear"]), default="none",
+              show_default=True)
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead.")
+@_guarded
+def wavelengths_choose(library_file: str, count: int, window: str | None, contiguous: bool,
+                       compare: str | None, noise: float, baseline: str,
+                       as_json: bool) -> None:
+    """Choose COUNT wavelengths that minimise the predicted concentration variance."""
+    import json
+
+    from mixsolve.diagnostics.choose import choose_wavelengths
+    from mixsolve.io.library_store import read_library
+    from mixsolve.report.merit_text import format_choice
+
+    choice = choose_wavelengths(read_library(library_file), count, window=parse_window(window),
+                                contiguous=contiguous, noise=noise,
+                                baseline=baseline,  # type: ignore[arg-type]
+                                compare=parse_wavelengths(compare))
+    click.echo(json.dumps(choice.to_dict()) if as_json else format_choice(choice),
+               nl=as_json)

@@ -121,7 +121,16 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
         "missing_readings": "some readings were missing; fitted on the wavelengths present",
         "too_few_readings": "too few readings left to fit; no result",
         "rank_deficient": "the readings left cannot separate the components; no result",
+        "above_range": f"peak absorbance above the reliable range "
+                       f"({result.attrs.get('absorbance_range', '')} AU)",
+        "below_range": f"peak absorbance below the reliable range "
+                       f"({result.attrs.get('absorbance_range', '')} AU)",
+        "lack_of_fit": "the residual is larger than the noise model allows: an unmodelled "
+                       "absorber, scatter, a wrong library or a wrong noise model",
+        "structured_residual": "the residual has shape, not noise (runs test): look at the "
+                               "residual spectrum for a missing absorber, scatter or a shift",
     }
+    dilution = result["suggested_dilution"].values if "suggested_dilution" in result else None
     for code, who in by_code.items():
         base, _, comp = code.partition(":")
         names = ", ".join(who[:6]) + (f" and {len(who) - 6} more" if len(who) > 6 else "")
@@ -129,8 +138,17 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
             text = f"{comp!r} held at zero by the non-negativity constraint"
         elif base == "negative":
             text = f"{comp!r} came out negative (below zero beyond what the model allows)"
+        elif base == "shift_sensitive":
+            tol = result.attrs.get("wavelength_tolerance_nm", "")
+            text = (f"a {tol} nm wavelength error would move {comp!r} by more than 2 %; check "
+                    "the wavelength scale or measure nearer band maxima")
         else:
             text = explain.get(base, base)
+        if base in ("above_range", "below_range") and dilution is not None:
+            factors = [float(dilution[samples.index(s)]) for s in who[:6]]
+            verb = "dilute" if base == "above_range" else "concentrate (or longer cell)"
+            text += "; " + verb + " about " + ", ".join(
+                f"{f if f >= 1 else 1 / f:.1f}-fold" for f in factors)
         notes.append(f"{names}: {text} [{code}].")
     return notes
 

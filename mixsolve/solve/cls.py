@@ -11,26 +11,21 @@ from typing import Literal
 
 import numpy as np
 
+from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, STATUS_CODES, TOO_FEW
 from mixsolve.solve.nnls import nnls_free
 
 Method = Literal["ols", "nnls"]
 METHODS: tuple[str, ...] = ("nnls", "ols")
 
-# Status bits per spectrum (see docs/flags.md for the codes they become).
-NO_DOF = 1  # as many unknowns as wavelengths: no residual, uncertainty unknown
-MISSING = 2  # some used wavelengths had no reading; fitted on the rest
-TOO_FEW = 4  # too few readings left to fit: results are NaN
-DEPENDENT = 8  # the wavelengths left make the design rank deficient: results are NaN
-STATUS_CODES: dict[int, str] = {
-    NO_DOF: "no_dof",
-    MISSING: "missing_readings",
-    TOO_FEW: "too_few_readings",
-    DEPENDENT: "rank_deficient",
-}
+__all__ = ["DEPENDENT", "METHODS", "MISSING", "NO_DOF", "STATUS_CODES", "TOO_FEW", "solve_cls"]
 
 
 def solve_cls(
-    spectra: np.ndarray, design: np.ndarray, n_components: int, method: Method
+    spectra: np.ndarray,
+    design: np.ndarray,
+    n_components: int,
+    method: Method,
+    weights: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Fit every spectrum (last axis: wavelength) to the design matrix.
 
@@ -43,6 +38,9 @@ def solve_cls(
     n_components : int
         How many leading columns are absorptivities (constrained ≥ 0 by ``nnls``).
     method : {"ols", "nnls"}
+    weights : array, same shape as ``spectra``, optional
+        Weights wᵢ = 1/σᵢ² per reading; each spectrum is then solved on its own with
+        rows scaled by √wᵢ, and s² = Σ wᵢrᵢ²/(n − p) (so u stays in concentration units).
 
     Returns
     -------
@@ -59,6 +57,9 @@ def solve_cls(
         Bitwise OR of the status bits of this module.
     """
     spectra = np.asarray(spectra, dtype=float)
+    if weights is not None:
+        w = np.broadcast_to(np.asarray(weights, dtype=float), spectra.shape)
+        spectra = np.where(np.isfinite(w) & (w > 0), spectra, np.nan)
     lead = spectra.shape[:-1]
     flat = spectra.reshape(-1, spectra.shape[-1])
     n_spec, n_wl = flat.shape
@@ -68,9 +69,14 @@ def solve_cls(
     dof = np.zeros(n_spec, dtype=np.int64)
     status = np.zeros(n_spec, dtype=np.int64)
     present = ~np.isnan(flat)
-    patterns, group = np.unique(present, axis=0, return_inverse=True)
-    for g, mask in enumerate(patterns):
-        rows = np.flatnonzero(group.ravel() == g)
+    if weights is None:
+        patterns, group = np.unique(present, axis=0, return_inverse=True)
+        groups = [(mask, np.flatnonzero(group.ravel() == g)) for g, mask in enumerate(patterns)]
+        root_w = np.ones_like(flat)
+    else:
+        groups = [(present[i], np.array([i])) for i in range(n_spec)]
+        root_w = np.sqrt(np.where(present, w.reshape(flat.shape), 0.0))
+    for mask, rows in groups:
         if not mask.all():
             status[rows] |= MISSING
         sub = design[mask]
@@ -83,7 +89,14 @@ def solve_cls(
                 < n_terms:
             status[rows] |= DEPENDENT
             continue
-        values = flat[np.ix_(rows, np.flatnonzero(mask))]
+        cols = np.flatnonzero(mask)
+        if weights is not None:
+            scale = root_w[rows[0], cols]
+            sub = sub * scale[:, None]
+            norms = np.linalg.norm(sub, axis=0)
+            values = flat[np.ix_(rows, cols)] * scale
+        else:
+            values = flat[np.ix_(rows, cols)]
         coef[rows] = _fit(sub, values, n_components, method)
         resid = values - coef[rows] @ sub.T
         k = n_used - n_terms

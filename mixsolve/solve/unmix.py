@@ -2,17 +2,24 @@
 
 from __future__ import annotations
 
+import functools
 import json
 import warnings
 from collections.abc import Sequence
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
 
 from mixsolve._version import __version__
+from mixsolve.diagnostics.trust import (
+    DEFAULT_WAVELENGTH_TOLERANCE_NM,
+    SHIFT_FLAG_FRACTION,
+    add_trust_checks,
+)
 from mixsolve.errors import ExtrapolationWarning, InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
 from mixsolve.solve.cls import METHODS, STATUS_CODES, Method, solve_cls
 from mixsolve.solve.design import (
     BASELINE_TERMS,
@@ -22,10 +29,13 @@ from mixsolve.solve.design import (
     design_matrix,
     select_wavelengths,
 )
+from mixsolve.solve.shift_fit import fit_with_shift
 from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_window
 from mixsolve.units import conversion_factor
 
 TERM = "term"
+Weights = Literal["none", "noise"]
+WEIGHTS: tuple[str, ...] = ("none", "noise")
 
 UNCERTAINTY_BASIS = (
     "Type A from the fit only: s * sqrt(diag((D^T D)^-1)) / pathlength, s^2 = RSS/(n - p) of "
@@ -44,6 +54,12 @@ def unmix(
     baseline: Baseline = "none",
     pathlength_cm: float | xr.DataArray | None = None,
     unit: str | None = None,
+    weights: Weights = "none",
+    noise: NoiseModel | str | float | None = None,
+    absorbance_range: tuple[float, float] = DEFAULT_ABSORBANCE_RANGE,
+    fit_shift: bool = False,
+    max_shift_nm: float = 3.0,
+    wavelength_tolerance_nm: float = DEFAULT_WAVELENGTH_TOLERANCE_NM,
 ) -> xr.Dataset:
     """Resolve absorbance spectra into component concentrations by classical least squares.
 
@@ -74,6 +90,23 @@ def unmix(
         Concentration unit of the result, e.g. ``"mg/L"``, ``"µmol/L"``; default the
         library's (mol/L or g/L). Converting between mass and amount needs the library's
         molar masses.
+    weights : {"none", "noise"}
+        ``noise`` weights each reading by 1/σ_A² from the noise model, evaluated at the
+        fitted absorbance of a first, unweighted pass (two-pass weighted least squares).
+    noise : NoiseModel, preset name or float, optional
+        Photometric noise model (:mod:`mixsolve.noise`); a float is a constant σ_A in AU.
+        Needed for ``weights="noise"``; when given, each fit is also tested for lack of fit.
+    absorbance_range : (float, float)
+        Reliable absorbance range (AU) for the range flags; default 0.3–2 (common practice
+        for a benchtop double-beam instrument).
+    fit_shift : bool
+        Also fit one wavelength offset per spectrum (``wavelength_shift_nm``), searched
+        within ±``max_shift_nm``.
+    max_shift_nm : float
+        Bound of the shift search (nm).
+    wavelength_tolerance_nm : float
+        Wavelength accuracy of the instrument (nm) for the ``shift_sensitive`` flag: a
+        component is flagged when an error this large would move it by more than 2 %.
 
     Returns
     -------
@@ -83,8 +116,14 @@ def unmix(
         (..., wavelength) over the used wavelengths (AU); ``rms_residual`` (AU);
         ``dof`` (residual degrees of freedom n − p); ``status`` (bit mask, see
         ``mixsolve.solve.cls``); ``at_zero`` (..., component), true where NNLS held a
-        component at 0; and, for numpy input, ``flags``: the sample's ``;``-joined flag
-        codes (docs/flags.md). ``attrs`` record method, baseline, wavelengths,
+        component at 0; trust checks per spectrum (docs/diagnostics.md):
+        ``absorbance_max``/``absorbance_min`` (AU, used wavelengths), ``suggested_dilution``
+        (A_max over the middle of the reliable range), ``lack_of_fit_ratio`` and
+        ``lack_of_fit_p`` (with a noise model), ``runs_z``/``runs_p``/``residual_lag1``
+        (residual structure), ``shift_bias_per_nm`` (..., component; result unit per +1 nm
+        of wavelength error), and with ``fit_shift`` ``wavelength_shift_nm`` and
+        ``u_wavelength_shift_nm``; and, for numpy input, ``flags``: the sample's
+        ``;``-joined flag codes (docs/flags.md). ``attrs`` record method, baseline, wavelengths,
         pathlength, unit, the uncertainty basis and the library provenance.
 
     Raises
@@ -119,7 +158,18 @@ def unmix(
     library = check_library(library)
     check_option(method, METHODS, "method")
     check_option(baseline, BASELINES, "baseline")
+    check_option(weights, WEIGHTS, "weights")
     window = check_window(window)
+    low, high = check_window(absorbance_range, "absorbance_range")  # type: ignore[misc]
+    if low <= 0:
+        raise InputError(f"absorbance_range: low end {low:g} AU must be above 0")
+    model = noise_model(noise)
+    tolerance = float(wavelength_tolerance_nm)
+    if not np.isfinite(tolerance) or tolerance < 0:
+        raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm must be a number ≥ 0")
+    if weights == "noise" and model is None:
+        raise InputError("weights='noise' needs a noise model: give noise= a preset name "
+                         f"({', '.join(PRESETS)}), a NoiseModel or σ_A in AU")
     if spectra.chunks is not None:
         axis = spectra.dims.index(WAVELENGTH)
         if len(spectra.chunks[axis]) > 1:
@@ -146,15 +196,28 @@ def unmix(
     terms = components + list(BASELINE_TERMS[baseline])
     check_solvable(design, terms)
 
-    coef, std_error, fitted, dof, status = xr.apply_ufunc(
-        solve_cls, used,
-        kwargs={"design": design, "n_components": len(components), "method": method},
+    n_comp = len(components)
+    kernel_kwargs = {"design": design, "n_components": n_comp, "method": method}
+    if fit_shift:
+        kernel = _shift_kernel(library, used_wl, baseline, method, max_shift_nm)
+        kernel_kwargs = {}
+        n_out = 7
+    elif weights == "noise":
+        kernel = functools.partial(_weighted_kernel, noise=model)
+        n_out = 5
+    else:
+        kernel = solve_cls
+        n_out = 5
+    outputs = xr.apply_ufunc(
+        kernel, used,
+        kwargs=kernel_kwargs if not fit_shift else {},
         input_core_dims=[[WAVELENGTH]],
-        output_core_dims=[[TERM], [TERM], [WAVELENGTH], [], []],
+        output_core_dims=[[TERM], [TERM], [WAVELENGTH], [], [], [], []][:n_out],
         dask="parallelized",
-        output_dtypes=[float, float, float, np.int64, np.int64],
+        output_dtypes=[float, float, float, np.int64, np.int64, float, float][:n_out],
         dask_gufunc_kwargs={"output_sizes": {TERM: len(terms)}},
     )
+    coef, std_error, fitted, dof, status = outputs[:5]
     coef = coef.assign_coords({TERM: terms})
     std_error = std_error.assign_coords({TERM: terms})
 
@@ -165,7 +228,6 @@ def unmix(
         conc_unit = unit
     factor = xr.DataArray(np.broadcast_to(factor, (len(components),)), dims=(COMPONENT,),
                           coords={COMPONENT: components})
-    n_comp = len(components)
     conc = (coef.isel({TERM: slice(0, n_comp)}).rename({TERM: COMPONENT}) / b) * factor
     u_conc = (std_error.isel({TERM: slice(0, n_comp)}).rename({TERM: COMPONENT}) / b) * factor
     fitted = fitted.assign_coords({WAVELENGTH: used_wl})
@@ -184,6 +246,8 @@ def unmix(
             "status": status,
             "at_zero": (conc == 0) & (method == "nnls"),
             "pathlength_cm": b,
+            "unit_factor": factor.assign_attrs(
+                meaning="result unit per library concentration unit"),
         },
         attrs={
             "method": method,
@@ -191,7 +255,6 @@ def unmix(
             "window_nm": "" if window is None else f"{window[0]:g}-{window[1]:g}",
             "wavelengths_nm": json.dumps([float(w) for w in used_wl]),
             "left_out_wavelengths_nm": json.dumps([float(w) for w in left_out]),
-            "weights": "none",
             "unit": conc_unit,
             "library_unit": library.attrs["unit"],
             "library_provenance": library.attrs.get("provenance", ""),
@@ -201,9 +264,48 @@ def unmix(
         },
     )
     result = result.rename({TERM: "baseline_term"})
+    if fit_shift:
+        result["wavelength_shift_nm"] = outputs[5].assign_attrs(units="nm")
+        result["u_wavelength_shift_nm"] = outputs[6].assign_attrs(units="nm")
+    result = add_trust_checks(result, used, library, design, (low, high), model)
+    result.attrs.update({
+        "weights": weights,
+        "noise_model": json.dumps(model.to_dict()) if model is not None else "",
+        "absorbance_range": f"{low:g}-{high:g}",
+        "fit_shift": int(fit_shift),
+        "wavelength_tolerance_nm": tolerance,
+    })
     if spectra.chunks is None:
         result["flags"] = flag_strings(result)
     return result
+
+
+def _weighted_kernel(spectra: np.ndarray, design: np.ndarray, n_components: int,
+                     method: Method, noise: NoiseModel) -> tuple[np.ndarray, ...]:
+    """Two-pass weighted fit: unweighted pass, then weights 1/σ_A(fitted)²."""
+    first = solve_cls(spectra, design, n_components, method)
+    fitted = np.where(np.isfinite(first[2]), first[2], spectra)
+    weights = 1.0 / noise.sigma_absorbance(np.clip(fitted, 0.0, None)) ** 2
+    return solve_cls(spectra, design, n_components, method, weights=weights)
+
+
+def _shift_kernel(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline, method: Method,
+                  max_shift_nm: float) -> Any:
+    grid = library[WAVELENGTH].values
+    max_shift = float(max_shift_nm)
+    if not np.isfinite(max_shift) or max_shift <= 0:
+        raise InputError(f"max_shift_nm: {max_shift:g} nm must be a positive number")
+    if grid.size < 3:
+        raise InputError("fit_shift: the library has fewer than 3 wavelengths, so it "
+                         "carries no slope to fit a shift with")
+    if used_wl[0] - max_shift < grid[0] or used_wl[-1] + max_shift > grid[-1]:
+        raise InputError(
+            f"fit_shift: the used wavelengths {used_wl[0]:g}-{used_wl[-1]:g} nm ± "
+            f"{max_shift:g} nm reach outside the library ({grid[0]:g}-{grid[-1]:g} nm); "
+            f"narrow the window to {grid[0] + max_shift:g}-{grid[-1] - max_shift:g} nm")
+    eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
+    return functools.partial(fit_with_shift, eps=eps, grid_nm=grid, wavelengths_nm=used_wl,
+                             baseline=baseline, method=method, max_shift_nm=max_shift)
 
 
 def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
@@ -221,13 +323,17 @@ def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
 def flag_strings(result: xr.Dataset) -> xr.DataArray:
     """Join each spectrum's flag codes with ``;`` (empty string when nothing is doubtful).
 
-    Codes: the status codes of ``mixsolve.solve.cls.STATUS_CODES``; ``at_zero:<component>``
+    Codes: the status codes of ``mixsolve.flags.STATUS_CODES``; ``at_zero:<component>``
     where NNLS held a component at zero; ``negative:<component>`` where OLS returned a
-    negative concentration. See docs/flags.md.
+    negative concentration; ``shift_sensitive:<component>`` where a wavelength error of
+    ``attrs["wavelength_tolerance_nm"]`` would move a quantifiable concentration (c > 3u) by
+    more than 2 %. See docs/flags.md.
     """
     status = result["status"].values
     at_zero = result["at_zero"].values
     conc = result["concentration"].values
+    u = result["std_uncertainty"].values
+    bias = result["shift_bias_per_nm"].values if "shift_bias_per_nm" in result else None
     comps = [str(c) for c in result[COMPONENT].values]
     out = np.empty(status.shape, dtype=object)
     for idx in np.ndindex(status.shape):
@@ -235,6 +341,12 @@ def flag_strings(result: xr.Dataset) -> xr.DataArray:
         codes += [f"at_zero:{c}" for c, z in zip(comps, at_zero[idx], strict=True) if z]
         if result.attrs["method"] == "ols":
             codes += [f"negative:{c}" for c, v in zip(comps, conc[idx], strict=True) if v < 0]
+        if bias is not None:
+            quantified = conc[idx] > 3 * np.where(np.isfinite(u[idx]), u[idx], 0.0)
+            tol = result.attrs.get("wavelength_tolerance_nm", DEFAULT_WAVELENGTH_TOLERANCE_NM)
+            risky = np.abs(bias[idx]) * tol > SHIFT_FLAG_FRACTION * np.abs(conc[idx])
+            codes += [f"shift_sensitive:{c}" for c, q, r in zip(comps, quantified, risky,
+                                                                strict=True) if q and r]
         out[idx] = ";".join(codes)
     return xr.DataArray(out.astype(str), dims=result["status"].dims,
                         coords=result["status"].coords)

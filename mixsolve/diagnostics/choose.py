@@ -1,0 +1,193 @@
+"""Choose measuring wavelengths that minimise the predicted concentration variance.
+
+Criterion (A-optimal, made unit-free): with D_S the design matrix at a set S of
+wavelengths and constant reading noise σ_A, the predicted variance of component k is
+σ_A²·[(D_SᵀD_S)⁻¹]ₖₖ. Components have different scales, so each is divided by its variance
+over the whole candidate window F, and the criterion is the mean ratio
+
+    J(S) = (1/n) Σₖ [(D_SᵀD_S)⁻¹]ₖₖ / [(D_FᵀD_F)⁻¹]ₖₖ.
+
+J(S) compares one reading per wavelength. At equal total measuring time (each of |S|
+wavelengths read |F|/|S| times as long, so σ² ∝ |S|/|F|) the figure is
+J_time(S) = J(S)·|S|/|F|; J_time ≤ 1 means the short set measures as well as the full
+window in the same time. For a fixed |S| both criteria rank sets the same way.
+
+Search: greedy forward selection (add the wavelength that lowers J most; while |S| is
+below the number of unknowns, a tiny ridge keeps the inverse defined), then exchange
+passes (swap a chosen wavelength for a candidate whenever J falls) until none helps.
+Ties go to the shorter wavelength, so the result is reproducible. ``contiguous`` scans
+every run of |S| neighbouring candidate wavelengths instead.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+import xarray as xr
+
+from mixsolve.diagnostics.check import DEFAULT_SIGMA_A, _figures, candidate_wavelengths
+from mixsolve.errors import InputError
+from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
+from mixsolve.spectra import WAVELENGTH, check_option
+
+#: Documented margin for the demo acceptance: at equal measuring time the chosen set's
+#: criterion should not exceed the full window's (1.0) by more than this factor.
+EQUAL_TIME_MARGIN = 1.25
+MAX_EXCHANGE_PASSES = 100
+
+
+@dataclass
+class WavelengthChoice:
+    """The chosen wavelengths with figures of merit beside the full window's."""
+
+    wavelengths_nm: list[float]
+    criterion: float
+    criterion_equal_time: float
+    chosen: xr.Dataset
+    full: xr.Dataset
+    user: xr.Dataset | None
+    user_criterion: float | None
+    contiguous: bool
+
+    def to_dict(self) -> dict[str, object]:
+        """Plain JSON-safe summary."""
+        from mixsolve.diagnostics.check import merit_to_dict
+
+        return {
+            "wavelengths_nm": self.wavelengths_nm,
+            "criterion": self.criterion,
+            "criterion_equal_time": self.criterion_equal_time,
+            "contiguous": self.contiguous,
+            "chosen": merit_to_dict(self.chosen),
+            "full_window": merit_to_dict(self.full),
+            "user_set": None if self.user is None else merit_to_dict(self.user),
+            "user_criterion": self.user_criterion,
+        }
+
+
+def _variances(design: np.ndarray, n: int, ridge: float = 0.0) -> np.ndarray:
+    gram = design.T @ design
+    if ridge:
+        gram = gram + ridge * np.trace(gram) / gram.shape[0] * np.eye(gram.shape[0])
+    try:
+        return np.diag(np.linalg.inv(gram))[:n]
+    except np.linalg.LinAlgError:
+        return np.full(n, np.inf)
+
+
+def choose_wavelengths(
+    library: xr.Dataset,
+    count: int,
+    *,
+    window: tuple[float, float] | None = None,
+    contiguous: bool = False,
+    noise: float = DEFAULT_SIGMA_A,
+    baseline: Baseline = "none",
+    compare: list[float] | None = None,
+) -> WavelengthChoice:
+    """Find ``count`` wavelengths that minimise the predicted concentration variance.
+
+    Parameters
+    ----------
+    library : Dataset
+    count : int
+        How many wavelengths; at least the number of unknowns (components + baseline terms).
+    window : (float, float), optional
+        Candidate library wavelengths (nm), both ends included; default the whole library.
+    contiguous : bool
+        Choose the best run of ``count`` neighbouring candidate wavelengths instead.
+    noise : float
+        σ_A (AU) for the figures of merit (the choice itself does not depend on it).
+    baseline : {"none", "offset", "linear"}
+    compare : list of float, optional
+        A user's own wavelength set (nm) to report beside the choice.
+
+    Returns
+    -------
+    WavelengthChoice
+        See the module docstring for the criterion and the search.
+    """
+    library = check_library(library)
+    check_option(baseline, BASELINES, "baseline")
+    candidates = candidate_wavelengths(library, window=window)
+    n = library.sizes[COMPONENT]
+    p = n + len(BASELINE_TERMS[baseline])
+    count = int(count)
+    if count < p:
+        raise InputError(f"--count {count}: at least {p} wavelengths are needed for {p} "
+                         "unknowns (components and baseline terms)")
+    if count > candidates.size:
+        raise InputError(f"--count {count}: only {candidates.size} candidate wavelengths in "
+                         "the window")
+    lib_c, _ = resample_library(library, candidates)
+    k = lib_c["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
+    full_design = design_matrix(k, candidates, baseline)
+    full_var = _variances(full_design, n)
+    if not np.all(np.isfinite(full_var)) or np.any(full_var <= 0):
+        raise InputError("the full window cannot separate the components (singular); no "
+                         "wavelength subset can")
+
+    def crit(index: np.ndarray, ridge: float = 0.0) -> float:
+        rows = full_design[np.sort(index)]
+        # The slope column is centred on the candidate window, which is fine: it only
+        # needs to be linear in wavelength.
+        return float(np.mean(_variances(rows, n, ridge) / full_var))
+
+    if contiguous:
+        scores = [crit(np.arange(i, i + count)) for i in range(candidates.size - count + 1)]
+        start = int(np.argmin(scores))
+        chosen = np.arange(start, start + count)
+    else:
+        chosen = _greedy_exchange(crit, candidates.size, count, p)
+    value = crit(chosen)
+    chosen_nm = candidates[np.sort(chosen)]
+    sigma = float(noise)
+    user = user_value = None
+    if compare:
+        user = _figures(library, candidate_wavelengths(library, wavelengths=compare), sigma,
+                        baseline)
+        lib_u, _ = resample_library(library, np.sort(np.asarray(compare, float)))
+        ku = lib_u["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
+        user_value = float(np.mean(_variances(design_matrix(ku, lib_u[WAVELENGTH].values,
+                                                            baseline), n) / full_var))
+    return WavelengthChoice(
+        wavelengths_nm=[float(w) for w in chosen_nm],
+        criterion=value,
+        criterion_equal_time=value * count / candidates.size,
+        chosen=_figures(library, chosen_nm, sigma, baseline),
+        full=_figures(library, candidates, sigma, baseline),
+        user=user,
+        user_criterion=user_value,
+        contiguous=contiguous,
+    )
+
+
+def _greedy_exchange(crit: Callable[..., float], n_candidates: int, count: int,
+                     p: int) -> np.ndarray:
+    chosen: list[int] = []
+    pool = list(range(n_candidates))
+    while len(chosen) < count:
+        ridge = 1e-9 if len(chosen) + 1 < p else 0.0
+        scores = [crit(np.array([*chosen, c]), ridge) if c not in chosen else np.inf
+                  for c in pool]
+        chosen.append(int(np.argmin(scores)))
+    current = crit(np.array(chosen))
+    for _ in range(MAX_EXCHANGE_PASSES):
+        best = (current, None, None)
+        for i in range(len(chosen)):
+            for c in pool:
+                if c in chosen:
+                    continue
+                trial = chosen.copy()
+                trial[i] = c
+                value = crit(np.array(trial))
+                if value < best[0] - 1e-12:
+                    best = (value, i, c)
+        if best[1] is None:
+            break
+        chosen[best[1]] = best[2]
+        current = best[0]
+    return np.sort(np.array(chosen))

@@ -1,0 +1,84 @@
+"""Per-spectrum trust checks on a fit: photometric range and residual structure.
+
+All functions take plain arrays with wavelength on the last axis (NaN = missing reading)
+and return arrays over the leading axes.
+
+- Absorbance range: the largest and smallest measured absorbance over the used
+  wavelengths; the dilution factor d = A_max / A_target (A_target = √(low·high), the
+  geometric middle of the reliable range) that would bring the peak there. d > 1: dilute
+  d-fold (or use a cell 1/d as long); d < 1: concentrate 1/d-fold or use a cell 1/d longer.
+- Lack of fit (needs a noise model): χ² = Σ (rᵢ/σᵢ)² with σᵢ = σ_A(fitted Aᵢ); the ratio
+  √(χ²/dof) is 1 when the residual is as large as the noise predicts; p = P(χ²_dof ≥ χ²).
+- Residual structure: the Wald–Wolfowitz runs test on the signs of the residual in
+  wavelength order. Too few runs (long stretches of one sign) mean the residual has shape —
+  an unmodelled absorber, scatter or a wavelength shift — rather than noise. One-sided
+  p = Φ(z), z = (R − μ)/√v, μ = 2n₊n₋/n + 1, v = (μ − 1)(μ − 2)/(n − 1). The lag-1
+  autocorrelation r₁ = Σ rᵢrᵢ₊₁ / Σ rᵢ² is reported beside it.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from mixsolve.noise import NoiseModel
+
+#: Fewest residual points for the runs test to mean anything.
+MIN_POINTS_RUNS = 10
+
+
+def absorbance_extent(used: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Largest and smallest measured absorbance (AU) over the used wavelengths."""
+    with np.errstate(all="ignore"):
+        empty = np.all(np.isnan(used), axis=-1)
+        filled = np.where(np.isnan(used), -np.inf, used)
+        a_max = np.where(empty, np.nan, filled.max(axis=-1))
+        filled = np.where(np.isnan(used), np.inf, used)
+        a_min = np.where(empty, np.nan, filled.min(axis=-1))
+    return a_max, a_min
+
+
+def target_absorbance(low: float, high: float) -> float:
+    """Geometric middle √(low·high) of a reliable range (AU)."""
+    return float(np.sqrt(low * high))
+
+
+def lack_of_fit(residual: np.ndarray, fitted: np.ndarray, dof: np.ndarray,
+                noise: NoiseModel) -> tuple[np.ndarray, np.ndarray]:
+    """Ratio √(χ²/dof) and its p-value per spectrum (NaN where dof = 0)."""
+    sigma = noise.sigma_absorbance(np.clip(fitted, 0.0, None))
+    chi2 = np.nansum((residual / sigma) ** 2, axis=-1)
+    dof = np.asarray(dof, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ratio = np.where(dof > 0, np.sqrt(chi2 / dof), np.nan)
+        p = np.where(dof > 0, stats.chi2.sf(chi2, np.where(dof > 0, dof, 1)), np.nan)
+    return ratio, p
+
+
+def runs_test(residual: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Runs test z, one-sided p (too few runs) and lag-1 autocorrelation per spectrum.
+
+    NaN where fewer than ``MIN_POINTS_RUNS`` non-zero residuals are available or all share
+    one sign.
+    """
+    lead = residual.shape[:-1]
+    flat = residual.reshape(-1, residual.shape[-1])
+    z = np.full(flat.shape[0], np.nan)
+    lag1 = np.full(flat.shape[0], np.nan)
+    for i, row in enumerate(flat):
+        r = row[np.isfinite(row)]
+        if r.size >= 2 and np.sum(r**2) > 0:
+            lag1[i] = float(np.sum(r[:-1] * r[1:]) / np.sum(r**2))
+        signs = np.sign(r[r != 0])
+        n = signs.size
+        n_pos = int(np.sum(signs > 0))
+        n_neg = n - n_pos
+        if n < MIN_POINTS_RUNS or n_pos == 0 or n_neg == 0:
+            continue
+        runs = 1 + int(np.sum(signs[1:] != signs[:-1]))
+        mu = 2.0 * n_pos * n_neg / n + 1.0
+        var = (mu - 1.0) * (mu - 2.0) / (n - 1.0)
+        if var > 0:
+            z[i] = (runs - mu) / np.sqrt(var)
+    p = stats.norm.cdf(z)
+    return z.reshape(lead), p.reshape(lead), lag1.reshape(lead)
