@@ -152,7 +152,7 @@ def import_absorptivities(
     if not np.all(np.isfinite(values)):
         comp, idx = np.argwhere(~np.isfinite(values))[0]
         raise InputError(
-            f"absorptivity of {eps[COMPONENT].values[comp]!r} at "
+            f"absorptivity of {str(eps[COMPONENT].values[comp])!r} at "
             f"{eps[WAVELENGTH].values[idx]:g} nm is missing or not a number"
         )
     provenance = {"method": "imported table", "source": source, "unit_given": unit}
@@ -198,7 +198,7 @@ def _as_component_array(table: xr.DataArray | pd.DataFrame, name: str) -> xr.Dat
 
 
 def check_library(library: Any, name: str = "library") -> xr.Dataset:
-    """Check that ``library`` is a mixsolve library Dataset and return it.
+    """Check that ``library`` is a mixsolve library Dataset and return it, λ ascending.
 
     Raises
     ------
@@ -218,6 +218,8 @@ def check_library(library: Any, name: str = "library") -> xr.Dataset:
     if library.sizes.get(COMPONENT, 0) == 0:
         raise InputError(f"{name}: the library has no components")
     check_spectra(library["absorptivity"], name)
+    if np.any(np.diff(library[WAVELENGTH].values) < 0):
+        library = library.sortby(WAVELENGTH)  # resampling and range checks need ascending λ
     return library
 
 
@@ -234,6 +236,7 @@ def build_library(
     max_relative_deviation: float = DEFAULT_MAX_RELATIVE_DEVIATION,
     min_levels: int = DEFAULT_MIN_LEVELS,
     source: str = "",
+    sheet_name: str = "standards sheet",
 ) -> xr.Dataset:
     """Build a library from spectra of pure standards of known concentration.
 
@@ -260,6 +263,8 @@ def build_library(
         Linearity criteria at each component's peak wavelength; a component that
         misses one triggers a :class:`LinearityWarning` (common practice: R² ≥ 0.995,
         every standard within 5 % of the line, at least 3 concentration levels).
+    sheet_name : str
+        How error messages name the sheet (the workflow passes the file name).
 
     Returns
     -------
@@ -285,7 +290,7 @@ def build_library(
     with c > 0.
     """
     spectra = check_spectra(standards, "standards")
-    table = _check_sheet(sheet, spectra)
+    table = _check_sheet(sheet, spectra, sheet_name)
     default_b = pathlength_cm if pathlength_cm is not None else spectra.attrs.get(
         "pathlength_cm", 1.0)
     if not np.isfinite(default_b) or default_b <= 0:
@@ -408,20 +413,21 @@ def _warn_linearity(comp: str, figures: dict[str, list[float]], min_r2: float,
         )
 
 
-def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray) -> pd.DataFrame:
+def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standards sheet"
+                 ) -> pd.DataFrame:
     """Validate the standards sheet and add canonical concentrations."""
     if not isinstance(sheet, pd.DataFrame):
-        raise InputError(f"standards sheet: expected a DataFrame, got {type(sheet).__name__}")
+        raise InputError(f"{name}: expected a DataFrame, got {type(sheet).__name__}")
     table = sheet.copy()
     table.columns = [str(c).strip().lower() for c in table.columns]
     missing = [c for c in ("sample", "component", "concentration", "unit")
                if c not in table.columns]
     if missing:
         raise InputError(
-            f"standards sheet: missing column(s) {', '.join(missing)}; expected "
+            f"{name}: missing column(s) {', '.join(missing)}; expected "
             "sample, component, concentration, unit (and optionally pathlength_cm)")
     if table.empty:
-        raise InputError("standards sheet: no rows")
+        raise InputError(f"{name}: no rows")
     if "line" not in table.columns:
         table["line"] = np.arange(len(table)) + 2
     if "pathlength_cm" not in table.columns:
@@ -431,7 +437,7 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray) -> pd.DataFrame:
     known = set(map(str, spectra[SAMPLE].values))
     canon, bases = [], []
     for row in table.itertuples(index=False):
-        where = f"standards sheet, line {row.line}"
+        where = f"{name}, line {row.line}"
         if row.sample not in known:
             raise InputError(f"{where}: sample {row.sample!r} has no spectrum in the standards "
                              "spectra file")
@@ -456,19 +462,19 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray) -> pd.DataFrame:
         first = table.iloc[0]
         other = table[table["basis"] != first["basis"]].iloc[0]
         raise InputError(
-            f"standards sheet, line {other['line']}: unit {other['unit']!r} is "
+            f"{name}, line {other['line']}: unit {other['unit']!r} is "
             f"{other['basis']}-based but line {first['line']} uses {first['unit']!r}; give all "
             "standards as amount (mol/L) or all as mass (g/L) concentrations")
     per_sample = table.groupby("sample")["component"].nunique()
     if (per_sample > 1).any():
         bad = per_sample[per_sample > 1].index[0]
         raise InputError(
-            f"standards sheet: sample {bad!r} lists more than one component; library build "
+            f"{name}: sample {bad!r} lists more than one component; library build "
             "needs pure standards (use `mixsolve calibrate` for mixtures)")
     dup = table["sample"].duplicated()
     if dup.any():
         row = table[dup].iloc[0]
-        raise InputError(f"standards sheet, line {row['line']}: sample {row['sample']!r} "
+        raise InputError(f"{name}, line {row['line']}: sample {row['sample']!r} "
                          "appears twice")
     unused = sorted(known - set(table["sample"]))
     if unused:

@@ -18,7 +18,8 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     Raises
     ------
     OutputError
-        The target's folder does not exist or is not writable, or the target is a folder.
+        The target's folder does not exist or is not writable, the target is a folder,
+        or writing fails (disk full, permissions); the temporary file is removed.
     """
     target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
@@ -35,10 +36,25 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     tmp = Path(tmp_name)
     try:
         yield tmp
+        # mkstemp makes the file private (0600); give the output the mode a plain open()
+        # would have: that of the file it replaces, else 0666 less the umask.
+        os.chmod(tmp, target.stat().st_mode & 0o7777 if target.exists() else _new_file_mode())
         os.replace(tmp, target)
+    except OSError as exc:  # disk full, quota, permissions: a user's problem, not a bug
+        tmp.unlink(missing_ok=True)
+        if isinstance(exc, OutputError):
+            raise
+        raise OutputError(f"{target}: cannot write the file ({exc.strerror or exc})") from exc
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+
+
+def _new_file_mode() -> int:
+    """Mode of a newly created file under the current umask (0666 & ~umask)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
 
 
 def ensure_folder(path: str | os.PathLike[str]) -> Path:

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import xarray as xr
 
-from mixsolve.errors import FileFormatError
+from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.atomic import atomic_path
 from mixsolve.library import LIBRARY_KIND, check_library
 
@@ -51,4 +51,7 @@ def read_library(path: str | os.PathLike[str]) -> xr.Dataset:
     if kind != LIBRARY_KIND:
         what = f"a {kind!r} file" if kind else "not written by mixsolve"
         raise FileFormatError(f"{Path(path).name}: not a mixsolve library ({what})")
-    return check_library(ds, Path(path).name)
+    try:
+        return check_library(ds, Path(path).name)
+    except InputError as exc:
+        raise FileFormatError(str(exc)) from None

@@ -22,3 +22,10 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
 def write_results(result: xr.Dataset, path: str | os.PathLike[str]) -> Path:
     """Write the tidy results table of :func:`mixsolve.unmix` to ``path``."""
     return write_table(results_table(result), path)
+
+
+def write_text(text: str, path: str | os.PathLike[str]) -> Path:
+    """Write UTF-8 text (an HTML page, a report) to ``path``; atomic."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text, encoding="utf-8")
+    return Path(path)

@@ -86,11 +86,12 @@ def read_absorptivity_table(path: str | os.PathLike[str], *, sheet: str | None =
 def _to_array(table: RawTable, label: str) -> xr.DataArray:
     first = _norm(table.header[0])
     names = [_norm(h) for h in table.header]
-    if first in WAVELENGTH_HEADERS:
-        return _wide(table, label)
     wl_cols = [i for i, n in enumerate(names) if n in WAVELENGTH_HEADERS]
+    # Long first: its columns may come in any order, wavelength_nm first included.
     if "sample" in names and "absorbance" in names and wl_cols:
         return _long(table, names.index("sample"), wl_cols[0], names.index("absorbance"))
+    if first in WAVELENGTH_HEADERS:
+        return _wide(table, label)
     raise FileFormatError(
         f"{table.name}, line {table.header_line}: cannot tell the layout from the header "
         f"{', '.join(map(repr, table.header[:4]))}; expected wide (first column wavelength_nm, "

@@ -13,6 +13,7 @@ import csv
 import io
 import os
 import re
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -72,6 +73,43 @@ def read_table(path: str | os.PathLike[str], *, sheet: str | None = None) -> Raw
     FileFormatError
         Missing, unreadable, binary, non-UTF-8, empty or header-only files.
     """
+    table = _load(path, sheet, _read_text)
+    if not table.rows:
+        raise FileFormatError(f"{table.name}: header only, no data rows")
+    return table
+
+
+def read_rows(path: str | os.PathLike[str], *, sheet: str | None = None) -> RawTable:
+    """Read every non-blank row of a CSV, TSV or XLSX file, assuming no header.
+
+    For files that open with free text rather than a header (plate-reader exports): the
+    separator is the one that splits the most lines into two or more cells (ties go to
+    tab, then semicolon, then comma), and the decimal mark is detected over all cells,
+    as :func:`read_table` does.
+
+    Returns
+    -------
+    RawTable
+        ``header`` empty and ``header_line`` 0; ``rows`` and ``lines`` hold every
+        non-blank row (for XLSX, the first one too).
+
+    Raises
+    ------
+    FileFormatError
+        Missing, unreadable, binary, non-UTF-8 or empty files, or a text file in which
+        no line has two cells.
+    """
+    table = _load(path, sheet, _read_text_rows)
+    if table.header_line:  # XLSX: the reader took the first row as the header
+        first = list(table.header)
+        table = RawTable(table.name, [], [first, *table.rows],
+                         [table.header_line, *table.lines], 0, None, ".", table.notes)
+    return table
+
+
+def _load(path: str | os.PathLike[str], sheet: str | None,
+          read_text: Callable[[bytes, str], RawTable]) -> RawTable:
+    """Open ``path`` and read it as XLSX (by content) or with ``read_text``."""
     p = Path(path)
     name = p.name
     if not p.exists():
@@ -87,17 +125,14 @@ def read_table(path: str | os.PathLike[str], *, sheet: str | None = None) -> Raw
         with open(p, "rb") as fh:
             head = fh.read(8)
             if head.startswith(b"PK\x03\x04"):
-                table = _read_xlsx(p, name, sheet)
-            else:
-                table = _read_text(head + fh.read(), name)
+                return _read_xlsx(p, name, sheet)
+            return read_text(head + fh.read(), name)
     except OSError as exc:
         raise FileFormatError(f"{path}: cannot read the file ({exc.strerror})") from None
-    if not table.rows:
-        raise FileFormatError(f"{name}: header only, no data rows")
-    return table
 
 
-def _read_text(raw: bytes, name: str) -> RawTable:
+def _numbered_lines(raw: bytes, name: str) -> list[tuple[int, str]]:
+    """Decode UTF-8 text and number its non-blank lines (1 = first line of the file)."""
     if not raw.strip():
         raise FileFormatError(f"{name}: the file is empty")
     if b"\x00" in raw[:65536]:
@@ -113,6 +148,11 @@ def _read_text(raw: bytes, name: str) -> RawTable:
     numbered = [(i + 1, ln) for i, ln in enumerate(lines) if ln.strip()]
     if not numbered:
         raise FileFormatError(f"{name}: the file is empty")
+    return numbered
+
+
+def _read_text(raw: bytes, name: str) -> RawTable:
+    numbered = _numbered_lines(raw, name)
     separator = _detect_separator(numbered, name)
     parsed = _split(numbered, separator, name)
     header_line, header = parsed[0]
@@ -121,6 +161,21 @@ def _read_text(raw: bytes, name: str) -> RawTable:
     row_lines = [ln for ln, _ in parsed[1:]]
     decimal = _detect_decimal(rows, row_lines, separator, name)
     return RawTable(name, header, rows, row_lines, header_line, separator, decimal)
+
+
+def _read_text_rows(raw: bytes, name: str) -> RawTable:
+    numbered = _numbered_lines(raw, name)
+    scores = {sep: sum(len(next(csv.reader(io.StringIO(line), delimiter=sep))) >= 2
+                       for _, line in numbered) for sep in SEPARATORS}
+    separator = max(SEPARATORS, key=lambda sep: scores[sep])  # first of the best: tab, ;, ,
+    if scores[separator] == 0:
+        raise FileFormatError(
+            f"{name}: no line has two or more cells separated by commas, semicolons or tabs")
+    parsed = _split(numbered, separator, name)
+    rows = [[c.strip() for c in cells] for _, cells in parsed]
+    lines = [ln for ln, _ in parsed]
+    decimal = _detect_decimal(rows, lines, separator, name)
+    return RawTable(name, [], rows, lines, 0, separator, decimal)
 
 
 def _split(numbered: list[tuple[int, str]], sep: str, name: str) -> list[tuple[int, list[str]]]:
@@ -175,7 +230,10 @@ def _read_xlsx(p: Path, name: str, sheet: str | None) -> RawTable:
     import openpyxl  # deferred: only XLSX input needs it
 
     try:
-        book = openpyxl.load_workbook(p, read_only=True, data_only=True)
+        # From bytes, not the path: openpyxl judges a path by its suffix, and a workbook
+        # saved under another name (data.csv) is still a workbook.
+        book = openpyxl.load_workbook(io.BytesIO(p.read_bytes()), read_only=True,
+                                      data_only=True)
     except Exception as exc:  # openpyxl raises zipfile/KeyError/etc. on damaged files
         raise FileFormatError(f"{name}: not a readable XLSX workbook ({exc})") from None
     try:

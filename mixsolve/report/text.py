@@ -38,6 +38,9 @@ def value_with_uncertainty(value: float, u: float) -> str:
         exponent = int(np.floor(np.log10(scale)))
         value, u = value / 10.0**exponent, u / 10.0**exponent
     decimals = max(0, 1 - int(np.floor(np.log10(u))))
+    if decimals > 8:  # u negligible against the value (noise-free data): no long digit runs
+        text = f"{value:.6g} ± {u:.2g}"
+        return f"({text})e{exponent:+03d}" if exponent else text
     text = f"{value:.{decimals}f} ± {u:.{decimals}f}"
     return f"({text})e{exponent:+03d}" if exponent else text
 
