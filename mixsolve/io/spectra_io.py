@@ -11,10 +11,18 @@ import os
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import xarray as xr
 
 from mixsolve.errors import FileFormatError, InputError
-from mixsolve.io.tables import SEPARATOR_NAMES, RawTable, parse_number, read_table
+from mixsolve.io import fast_read
+from mixsolve.io.tables import (
+    MAX_TEXT_BYTES,
+    SEPARATOR_NAMES,
+    RawTable,
+    parse_number,
+    read_table,
+)
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
 
 WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]")
@@ -52,11 +60,89 @@ def read_spectra(
         Unreadable files, unknown layout, duplicate wavelengths or samples, text in
         numeric cells; the message names the file, line, column and value.
     """
-    table = read_table(path, sheet=sheet)
-    da = _to_array(table, SAMPLE)
+    da = _read_large_text(Path(path)) if sheet is None else None
+    if da is None:
+        table = read_table(path, sheet=sheet)
+        da = _to_array(table, SAMPLE)
     if pathlength_cm is not None:
         da.attrs["pathlength_cm"] = float(pathlength_cm)
     return da
+
+
+def _read_large_text(p: Path) -> xr.DataArray | None:
+    """Fast path for big text files (:mod:`mixsolve.io.fast_read`); None to read carefully."""
+    try:
+        size = p.stat().st_size
+        with open(p, "rb") as fh:
+            is_xlsx = fh.read(4) == b"PK\x03\x04"
+    except OSError:
+        return None
+    if is_xlsx or size < fast_read.FAST_PATH_MIN_BYTES or size > MAX_TEXT_BYTES:
+        return None
+    sniffed = fast_read.sniff(p)
+    if sniffed is None:
+        return None
+    numbered, sep, decimal = sniffed
+    header = [h.strip() for h in fast_read._split(numbered[:1], sep, p.name)[0][1]]
+    names = [_norm(h) for h in header]
+    attrs = {"quantity": "absorbance", "source": p.name, "separator": SEPARATOR_NAMES[sep],
+             "decimal": decimal}
+    text_columns: tuple[int, ...] = ()
+    if names[0] in WAVELENGTH_HEADERS:
+        samples = header[1:]
+        if not all(samples) or len(set(samples)) != len(samples):
+            return None
+        frame = fast_read.read_numeric(p, sep, decimal, header)
+        da = None if frame is None else _fast_wide(frame, samples, attrs)
+    else:
+        wl_cols = [i for i, n in enumerate(names) if n in WAVELENGTH_HEADERS]
+        if not ("sample" in names and "absorbance" in names and wl_cols):
+            return None
+        cols = (names.index("sample"), wl_cols[0], names.index("absorbance"))
+        text_columns = tuple(i for i in range(len(header)) if i not in cols[1:])
+        frame = fast_read.read_numeric(p, sep, decimal, header, text_columns)
+        da = None if frame is None else _fast_long(frame, cols, attrs)
+    if da is None and size > fast_read.CAREFUL_MAX_BYTES:
+        fast_read.locate_problem(p, sep, decimal, len(header), text_columns)
+        raise FileFormatError(
+            f"{p.name}: {size / 1e6:.0f} MB is too large for the line-by-line check "
+            f"(limit {fast_read.CAREFUL_MAX_BYTES / 1e6:.0f} MB) and did not read cleanly: "
+            "look for duplicate wavelengths or names, or store it as netCDF/Zarr")
+    return da
+
+
+def _fast_wide(frame: object, samples: list[str], attrs: dict[str, object]
+               ) -> xr.DataArray | None:
+    values = frame.to_numpy(dtype=float)  # type: ignore[attr-defined]
+    wl = values[:, 0]
+    if np.isnan(wl).any() or np.any(wl <= 0) or np.unique(wl).size != wl.size:
+        return None
+    order = np.argsort(wl)
+    da = xr.DataArray(values[order, 1:].T, dims=(SAMPLE, WAVELENGTH),
+                      coords={SAMPLE: samples, WAVELENGTH: wl[order]},
+                      attrs={**attrs, "layout": "wide"}, name="absorbance")
+    return check_spectra(da, str(attrs["source"]))
+
+
+def _fast_long(frame: object, cols: tuple[int, int, int], attrs: dict[str, object]
+               ) -> xr.DataArray | None:
+    s_col, w_col, a_col = cols
+    names = frame[s_col].fillna("").str.strip()  # type: ignore[index]
+    wl = frame[w_col].to_numpy(dtype=float)  # type: ignore[index]
+    absorb = frame[a_col].to_numpy(dtype=float)  # type: ignore[index]
+    if (names == "").any() or np.isnan(wl).any() or np.any(wl <= 0):
+        return None
+    codes, uniques = pd.factorize(names)
+    grid, w_idx = np.unique(wl, return_inverse=True)
+    flat = codes.astype(np.int64) * grid.size + w_idx
+    if np.unique(flat).size != flat.size:
+        return None
+    values = np.full((uniques.size, grid.size), np.nan)
+    values[codes, w_idx] = absorb
+    da = xr.DataArray(values, dims=(SAMPLE, WAVELENGTH),
+                      coords={SAMPLE: [str(u) for u in uniques], WAVELENGTH: grid},
+                      attrs={**attrs, "layout": "long"}, name="absorbance")
+    return check_spectra(da, str(attrs["source"]))
 
 
 def read_absorptivity_table(path: str | os.PathLike[str], *, sheet: str | None = None

@@ -27,6 +27,9 @@ SEPARATOR_NAMES = {"\t": "tab", ";": "semicolon", ",": "comma", None: "xlsx"}
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+([eE][+-]?\d+)?$")
 _DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+([eE][+-]?\d+)?$")
 _MISSING = {"", "nan", "na", "n/a"}
+# Wide exports can hold 10^5 samples on one line: lift the csv module's 128 KiB cell cap.
+csv.field_size_limit(2**31 - 1)
+
 #: Largest text table read in memory (bytes); bigger inputs belong in netCDF/Zarr.
 MAX_TEXT_BYTES = 2_000_000_000
 
