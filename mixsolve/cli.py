@@ -7,6 +7,7 @@ and exit code 2; ``--debug`` shows the traceback instead. Warnings go to stderr.
 from __future__ import annotations
 
 import functools
+import sys
 import warnings
 from collections.abc import Callable
 from typing import Any
@@ -112,7 +113,30 @@ def add_options(options: list[Callable[..., Any]]) -> Callable[..., Any]:
     return decorate
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+class OneLineErrors(click.Group):
+    """Show click's own usage errors as one ``error:`` line too (exit code 2)."""
+
+    def main(self, *args: Any, **kwargs: Any) -> Any:
+        if not kwargs.pop("standalone_mode", True):
+            return super().main(*args, standalone_mode=False, **kwargs)
+        try:
+            rv = super().main(*args, standalone_mode=False, **kwargs)
+        except click.UsageError as exc:
+            hint = f" (see '{exc.ctx.command_path} --help')" if exc.ctx is not None else ""
+            click.echo(f"error: {' '.join(exc.format_message().split())}{hint}", err=True)
+            sys.exit(exc.exit_code)
+        except click.ClickException as exc:
+            exc.show()
+            sys.exit(exc.exit_code)
+        except click.Abort:
+            click.echo("aborted", err=True)
+            sys.exit(1)
+        if isinstance(rv, int):
+            sys.exit(rv)
+        return rv
+
+
+@click.group(cls=OneLineErrors, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="mixsolve")
 @click.option("--debug", is_flag=True, help="Show tracebacks instead of one-line errors.")
 def main(debug: bool) -> None:
@@ -210,23 +234,25 @@ def library_show(library_file: str) -> None:
 @click.option("--wavelength-tolerance", type=float, default=0.5, show_default=True,
               help="Instrument wavelength accuracy (nm) for the shift_sensitive flag.")
 @click.option("--out", help="Tidy results CSV to write.")
+@click.option("--report", help="HTML page to write: settings, results, notes and figures.")
 @_guarded
 def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str | None,
           method: str, baseline: str, pathlength: float | None, unit: str | None,
           weights: str, noise: str | None, absorbance_range: str, fit_shift: bool,
-          max_shift: float, wavelength_tolerance: float, out: str | None) -> None:
-    """Resolve SPECTRA into concentrations with the library LIBRARY_FILE."""
-    from mixsolve.report.text import format_results
-    from mixsolve.workflows.unmix_files import unmix_files
+          max_shift: float, wavelength_tolerance: float, out: str | None,
+          report: str | None) -> None:
+    """Resolve SPECTRA into concentrations with the library (or PLS model) LIBRARY_FILE."""
+    from mixsolve.workflows.unmix_files import format_unmix, unmix_files
 
     result = unmix_files(library_file, spectra, window=parse_window(window),
                          wavelengths=parse_wavelengths(wavelengths), method=method,
                          baseline=baseline, pathlength_cm=pathlength, unit=unit, out=out,
+                         report=report,
                          weights=weights, noise=parse_noise(noise),
                          absorbance_range=parse_window(absorbance_range, "--range"),
                          fit_shift=fit_shift, max_shift_nm=max_shift,
                          wavelength_tolerance_nm=wavelength_tolerance)
-    click.echo(format_results(result), nl=False)
+    click.echo(format_unmix(result), nl=False)
     if out:
         click.echo(f"wrote {out}", err=True)
 
@@ -293,3 +319,137 @@ def wavelengths_choose(library_file: str, count: int, window: str | None, contig
                                 compare=parse_wavelengths(compare))
     click.echo(json.dumps(choice.to_dict()) if as_json else format_choice(choice),
                nl=as_json)
+
+
+def parse_latent(text: str) -> int | str:
+    """Parse ``--latent``: ``auto`` or a whole number of latent variables."""
+    if text.strip().lower() == "auto":
+        return "auto"
+    try:
+        return int(text)
+    except ValueError:
+        raise InputError(f"--latent: {text!r} is not a whole number or 'auto'") from None
+
+
+@main.command()
+@click.argument("spectra")
+@click.option("--reference", required=True,
+              help="Known concentrations: sample, component, concentration, unit.")
+@click.option("--out", required=True, help="Model file to write (.nc).")
+@click.option("--window", help="Wavelength window LOW-HIGH in nm, both ends included.")
+@click.option("--latent", default="auto", show_default=True,
+              help="Latent variables: a number, or auto (cross-validation).")
+@click.option("--max-latent", type=int, default=15, show_default=True,
+              help="Most latent variables tried by cross-validation.")
+@click.option("--folds", type=int, help="Cross-validation folds [min(10, samples)].")
+@click.option("--split", type=click.Choice(["blocks", "random"]), default="blocks",
+              show_default=True, help="Folds as contiguous blocks in file order, or shuffled.")
+@click.option("--seed", type=int, default=0, show_default=True, help="Seed of --split random.")
+@click.option("--mode", type=click.Choice(["auto", "pls2", "pls1"]), default="auto",
+              show_default=True, help="One PLS2 model, one PLS1 per component, or the better.")
+@click.option("--scale", type=click.Choice(["none", "autoscale"]), default="none",
+              show_default=True, help="Scale each wavelength to unit variance after centring.")
+@click.option("--derivative", type=int,
+              help="Savitzky-Golay first derivative over this many points (odd).")
+@click.option("--polyorder", type=int, default=2, show_default=True,
+              help="Polynomial order of the derivative filter.")
+@click.option("--pathlength", type=float, help="Pathlength of the calibration spectra, cm [1].")
+@click.option("--compare", is_flag=True,
+              help="Also cross-validate CLS on the same folds and print both.")
+@click.option("--plot", help="PNG file for the CV curve and predicted-vs-reference plots.")
+@_guarded
+def calibrate(spectra: str, reference: str, out: str, window: str | None, latent: str,
+              max_latent: int, folds: int | None, split: str, seed: int, mode: str,
+              scale: str, derivative: int | None, polyorder: int, pathlength: float | None,
+              compare: bool, plot: str | None) -> None:
+    """Build a PLS model from SPECTRA of mixtures of known composition (--reference)."""
+    from mixsolve.workflows.calibrate import calibrate_files
+
+    run = calibrate_files(spectra, reference, out, plot=plot, window=parse_window(window),
+                          latent=parse_latent(latent), max_latent=max_latent, folds=folds,
+                          split=split, seed=seed, mode=mode, scale=scale,
+                          derivative=derivative, polyorder=polyorder,
+                          pathlength_cm=pathlength, compare=compare)
+    click.echo(run.text, nl=False)
+    click.echo(f"wrote {out}" + (f" and {plot}" if plot else ""), err=True)
+
+
+class PlateProgress:
+    """Progress of a plate batch on stderr: a bar on a terminal, plain lines otherwise."""
+
+    def __init__(self) -> None:
+        self.bar: Any = None
+
+    def __call__(self, done: int, total: int, message: str) -> None:
+        if not sys.stderr.isatty():
+            click.echo(f"plate {done}/{total}: {message}", err=True)
+            return
+        if self.bar is None:
+            self.bar = click.progressbar(length=total, label="plates", file=sys.stderr)
+            self.bar.__enter__()
+        self.bar.update(1)
+
+    def close(self) -> None:
+        """End the bar's line, if one was drawn."""
+        if self.bar is not None:
+            self.bar.__exit__(None, None, None)
+            self.bar = None
+
+
+@main.command()
+@click.argument("exports", nargs=-1, required=True)
+@click.option("--layout", "layout_file", required=True,
+              help="Layout: well, role, sample, dilution (standards: component, "
+                   "concentration, unit).")
+@click.option("--library", "library_file", help="Library file (.nc).")
+@click.option("--library-from-plate", is_flag=True,
+              help="Build the library from the plate's standard wells.")
+@click.option("--out", "out_dir", required=True,
+              help="Output folder: a subfolder per export, samples.csv for all.")
+@add_options(selection_options)
+@click.option("--method", type=click.Choice(["nnls", "ols"]), default="nnls", show_default=True)
+@click.option("--baseline", type=click.Choice(["none", "offset", "linear"]), default="none",
+              show_default=True)
+@click.option("--unit", help='Concentration unit of the results, e.g. "mg/L", "umol/L".')
+@click.option("--pathlength", type=float, help="One pathlength for every well (cm) [1].")
+@click.option("--volume-ul", type=float, help="Fill volume (µL), with --well-diameter-mm.")
+@click.option("--well-diameter-mm", type=float, help="Well diameter (mm), flat bottom.")
+@click.option("--water-band", is_flag=True,
+              help="Pathlength per well from A(977) - A(900) of the raw readings.")
+@click.option("--water-k", type=float, default=0.18, show_default=True,
+              help="A(977) - A(900) of 1 cm of water (AU/cm); depends on temperature.")
+@click.option("--max-cv", type=float, default=20.0, show_default=True,
+              help="Replicate CV (%) above which a sample is flagged high_cv.")
+@click.option("--sheet", help="XLSX sheet of the exports [first].")
+@click.option("--layout-sheet", help="XLSX sheet of the layout [first].")
+@click.option("--plate-size", type=click.Choice(["96", "384"]), help="Plate format [detected].")
+@click.option("--weights", type=click.Choice(["none", "noise"]), default="none",
+              show_default=True, help="Weight readings by 1/σ_A² of the noise model.")
+@click.option("--noise", help="Noise model: a preset (e.g. microplate) or σ_A in AU.")
+@click.option("--range", "absorbance_range", default="0.3-2", show_default=True,
+              help="Reliable absorbance range LOW-HIGH (AU) for the range flags.")
+@_guarded
+def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
+          library_from_plate: bool, out_dir: str, window: str | None, wavelengths: str | None,
+          method: str, baseline: str, unit: str | None, pathlength: float | None,
+          volume_ul: float | None, well_diameter_mm: float | None, water_band: bool,
+          water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
+          plate_size: str | None, weights: str, noise: str | None,
+          absorbance_range: str) -> None:
+    """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample."""
+    from mixsolve.workflows.plate import run_plates
+
+    progress = PlateProgress()
+    try:
+        batch = run_plates(
+            exports, layout_file, out=out_dir, library=library_file,
+            library_from_plate=library_from_plate, sheet=sheet, layout_sheet=layout_sheet,
+            plate_size=int(plate_size) if plate_size else None, progress=progress,
+            window=parse_window(window), wavelengths=parse_wavelengths(wavelengths),
+            method=method, baseline=baseline, unit=unit, pathlength_cm=pathlength,
+            volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
+            water_k_au_per_cm=water_k, max_cv=max_cv / 100, weights=weights,
+            noise=parse_noise(noise), absorbance_range=parse_window(absorbance_range, "--range"))
+    finally:
+        progress.close()
+    click.echo(batch.text, nl=False)

@@ -10,26 +10,9 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 import xarray as xr
+from helpers_core import COMPONENT_BANDS, COMPONENT_MOLAR_MASS, SEED, gaussian_bands
 
 import mixsolve as ms
-
-SEED = 20240611
-
-
-def gaussian_bands(wl: np.ndarray, bands: list[tuple[float, float, float]]) -> np.ndarray:
-    """Sum of Gaussian bands (height, centre nm, width nm) evaluated at ``wl`` (nm)."""
-    wl = np.asarray(wl, dtype=float)
-    return sum(h * np.exp(-0.5 * ((wl - c) / w) ** 2) for h, c, w in bands)
-
-
-#: Invented components: molar absorptivity bands (L/(mol*cm)), centre and width in nm.
-COMPONENT_BANDS: dict[str, list[tuple[float, float, float]]] = {
-    "yellow": [(12000.0, 440.0, 25.0), (3000.0, 520.0, 30.0)],
-    "red": [(15000.0, 510.0, 30.0)],
-    "blue": [(9000.0, 610.0, 35.0), (4000.0, 660.0, 20.0)],
-}
-#: Invented molar masses (g/mol).
-COMPONENT_MOLAR_MASS = {"yellow": 350.0, "red": 480.0, "blue": 790.0}
 
 
 @pytest.fixture

@@ -10,11 +10,11 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from helpers_core import gaussian_bands
 from scipy import stats
 
 import mixsolve as ms
 from mixsolve.errors import InputError, LinearityWarning, UnitError
-from tests.conftest import gaussian_bands
 
 WL = np.arange(400.0, 701.0, 2.0)
 TRUE_EPS = {  # invented molar absorptivities, L/(mol*cm)

@@ -11,11 +11,11 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from helpers_core import COMPONENT_MOLAR_MASS
 
 import mixsolve as ms
 from mixsolve.errors import ExtrapolationWarning, InputError, SolveError, UnitError
 from mixsolve.solve.cls import DEPENDENT, MISSING, NO_DOF, TOO_FEW
-from tests.conftest import COMPONENT_MOLAR_MASS
 
 CONC = np.array([[2.0e-5, 1.0e-5, 3.0e-5],
                  [0.5e-5, 4.0e-5, 1.0e-5]])  # mol/L; components yellow, red, blue

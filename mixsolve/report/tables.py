@@ -10,6 +10,9 @@ from mixsolve.library import COMPONENT
 
 RESULT_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
                   "rms_residual_au", "dof", "flags")
+#: Columns added after ``flags`` when the result holds them (PLS predictions).
+OPTIONAL_COLUMNS = ("t2", "t2_limit_95", "t2_limit_99", "q_residual", "q_limit_95",
+                    "q_limit_99")
 
 
 def results_table(result: xr.Dataset) -> pd.DataFrame:
@@ -25,7 +28,9 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
     DataFrame
         Columns ``sample, component, concentration, std_uncertainty, unit,
         rms_residual_au, dof, flags``. ``flags`` holds the sample's ``;``-joined flag codes
-        (empty when nothing is doubtful).
+        (empty when nothing is doubtful). Results of :func:`mixsolve.predict` (PLS) add
+        ``t2, t2_limit_95, t2_limit_99, q_residual, q_limit_95, q_limit_99``; there
+        ``rms_residual`` and ``dof`` may differ per component.
     """
     conc = result["concentration"].transpose(..., COMPONENT)
     sample_dims = [d for d in conc.dims if d != COMPONENT]
@@ -41,13 +46,23 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
         labels = [str(s) for s in stacked[row_dim].values]
     flags = stacked["flags"].values if "flags" in stacked else np.full(len(labels), "")
     n_c = len(comps)
+
+    def per_row(name: str) -> np.ndarray:
+        var = stacked[name]
+        if COMPONENT not in var.dims:
+            return np.repeat(var.values, n_c)
+        full = var.broadcast_like(stacked["concentration"])
+        return full.transpose(row_dim, COMPONENT).values.ravel()
+
+    extra = {name: per_row(name) for name in OPTIONAL_COLUMNS if name in stacked}
     return pd.DataFrame({
         "sample": np.repeat(labels, n_c),
         "component": np.tile(comps, len(labels)),
         "concentration": conc.ravel(),
         "std_uncertainty": u.ravel(),
         "unit": result.attrs["unit"],
-        "rms_residual_au": np.repeat(stacked["rms_residual"].values, n_c),
-        "dof": np.repeat(stacked["dof"].values, n_c),
+        "rms_residual_au": per_row("rms_residual"),
+        "dof": per_row("dof"),
         "flags": np.repeat(flags, n_c),
-    }, columns=list(RESULT_COLUMNS))
+        **extra,
+    }, columns=[*RESULT_COLUMNS, *extra])

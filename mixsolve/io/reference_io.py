@@ -1,0 +1,58 @@
+"""Read a reference table of known concentrations: ``sample, component, concentration, unit``.
+
+The layout is that of the tidy results CSV, so the results of one run can serve as the
+reference of another; other columns (``std_uncertainty``, ``flags`` ...) are ignored.
+"""
+
+from __future__ import annotations
+
+import os
+
+import pandas as pd
+
+from mixsolve.errors import FileFormatError
+from mixsolve.io.tables import parse_number, read_table
+
+REQUIRED = ("sample", "component", "concentration", "unit")
+
+
+def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd.DataFrame:
+    """Read a tidy reference table (CSV, TSV or XLSX).
+
+    Returns
+    -------
+    DataFrame
+        Columns ``sample``, ``component``, ``concentration`` (float), ``unit`` and ``line``
+        (the file's line number, for messages); ``attrs["source"]`` is the file name.
+
+    Raises
+    ------
+    FileFormatError, InputError
+        Missing columns, an empty name or unit, a missing or non-numeric concentration;
+        the message names the file, line and column.
+    """
+    table = read_table(path, sheet=sheet)
+    names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
+    missing = [c for c in REQUIRED if c not in names]
+    if missing:
+        raise FileFormatError(
+            f"{table.name}, line {table.header_line}: missing column(s) {', '.join(missing)}; "
+            f"a reference table has columns {', '.join(REQUIRED)}")
+    cols = {c: names.index(c) for c in REQUIRED}
+    records = []
+    for i, row in enumerate(table.rows):
+        cells = list(row) + [""] * (len(names) - len(row))
+        rec: dict[str, object] = {"line": table.lines[i]}
+        for col, j in cols.items():
+            if col == "concentration":
+                rec[col] = parse_number(cells[j], table.decimal, table.where(i, j),
+                                        allow_missing=False)
+                continue
+            text = str(cells[j]).strip()
+            if not text:
+                raise FileFormatError(f"{table.where(i, j)}: empty {col}")
+            rec[col] = text
+        records.append(rec)
+    frame = pd.DataFrame.from_records(records, columns=[*REQUIRED, "line"])
+    frame.attrs["source"] = table.name
+    return frame
