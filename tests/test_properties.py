@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 import mixsolve as ms
 from mixsolve.solve.cls import solve_cls
 
-SETTINGS = settings(max_examples=40, deadline=None,
+SETTINGS = settings(max_examples=25, deadline=None,
                     suppress_health_check=[HealthCheck.too_slow])
 
 
