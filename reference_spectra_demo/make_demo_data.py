@@ -55,7 +55,8 @@ def noisy(absorbance: np.ndarray, rng: np.random.Generator) -> np.ndarray:
 
 
 def main() -> None:
-    """Write standards_spectra.csv, standards.csv, batches_spectra.csv, batches_truth.csv."""
+    """Write standards_spectra.csv, standards.csv, batches_spectra.csv, batches_truth.csv,
+    then the plate files (:func:`write_plate_demo`)."""
     rng = np.random.default_rng(SEED)
     eps = {name: absorptivity(name) for name in BANDS}
     std_cols, sheet = {}, []
@@ -79,6 +80,80 @@ def main() -> None:
     pd.DataFrame({"wavelength_nm": WAVELENGTHS_NM, **batch_cols}).to_csv(
         HERE / "batches_spectra.csv", index=False, float_format=fmt, lineterminator="\n")
     pd.DataFrame(truth).to_csv(HERE / "batches_truth.csv", index=False, lineterminator="\n")
+    write_plate_demo()
+
+
+#: The plate run (invented): eight stronger extracts (mg/L), each in triplicate at two
+#: dilutions, read on a 96-well plate filled with 300 µL per well.
+PLATE_SEED = 20261202
+PLATE_WAVELENGTHS_NM = np.arange(400.0, 701.0, 5.0)
+PLATE_EXTRACTS_MG_L = {
+    "extract_01": (24.0, 10.0, 8.0),
+    "extract_02": (12.0, 30.0, 6.0),
+    "extract_03": (30.0, 0.0, 14.0),
+    "extract_04": (8.0, 16.0, 24.0),
+    "extract_05": (18.0, 18.0, 18.0),
+    "extract_06": (40.0, 6.0, 0.0),
+    "extract_07": (5.0, 24.0, 30.0),
+    "extract_08": (20.0, 12.0, 12.0),
+}
+PLATE_VOLUME_UL = 300.0
+PLATE_WELL_DIAMETER_MM = 6.96
+#: A reading the invented reader marked as saturated (a bubble, say), to show the handling.
+PLATE_MARKERS = {("D3", 450.0): "OVER", ("D3", 455.0): "OVER"}
+
+
+def plate_layout_rows() -> list[dict[str, object]]:
+    """Column 1 blanks; rows A-H one extract each, columns 2-4 diluted 2-fold and 5-7
+    4-fold; columns 8-12 empty."""
+    rows: list[dict[str, object]] = []
+    for letter, sample in zip("ABCDEFGH", PLATE_EXTRACTS_MG_L, strict=True):
+        for col in range(1, 13):
+            role, name, dilution = "empty", "", ""
+            if col == 1:
+                role = "blank"
+            elif col <= 7:
+                role, name, dilution = "sample", sample, 2 if col <= 4 else 4
+            rows.append({"well": f"{letter}{col}", "role": role, "sample": name,
+                         "dilution": dilution})
+    return rows
+
+
+def write_plate_demo() -> None:
+    """Write plate_export.csv (grid blocks), plate_layout.csv and plate_truth.csv."""
+    rng = np.random.default_rng(PLATE_SEED)
+    wl = PLATE_WAVELENGTHS_NM
+    eps = np.vstack([absorptivity(name, wl) for name in BANDS])
+    layout = plate_layout_rows()
+    radius_cm = PLATE_WELL_DIAMETER_MM / 20.0
+    plastic = 0.045 + 2e-5 * (wl - 400.0)  # invented plate absorbance, every well
+    readings = {}
+    for row in layout:
+        if row["role"] == "sample":
+            conc = np.array(PLATE_EXTRACTS_MG_L[str(row["sample"])]) / float(row["dilution"])
+        else:
+            conc = np.zeros(len(BANDS))
+        volume = PLATE_VOLUME_UL * (1.0 + 0.01 * rng.standard_normal())  # pipetting, 1 %
+        b = volume * 1e-3 / (np.pi * radius_cm**2)
+        liquid = b * (conc / 1000.0) @ eps if row["role"] != "empty" else 0.0 * wl
+        readings[str(row["well"])] = noisy(plastic + liquid, rng)
+    lines = ["Hedgerow Colour Works - weekly extracts, plate run (synthetic data)",
+             "Reader: invented; absorbance; 61 wavelengths", ""]
+    for j, w in enumerate(wl):
+        lines += [f"Wavelength: {w:g} nm", ";" + ";".join(str(c) for c in range(1, 13))]
+        for letter in "ABCDEFGH":
+            cells = [PLATE_MARKERS.get((f"{letter}{c}", float(w)),
+                                       f"{readings[f'{letter}{c}'][j]:.4f}".replace(".", ","))
+                     for c in range(1, 13)]
+            lines.append(letter + ";" + ";".join(cells))
+        lines.append("")
+    lines.append("End of run")
+    (HERE / "plate_export.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
+    pd.DataFrame(layout).to_csv(HERE / "plate_layout.csv", index=False, lineterminator="\n")
+    truth = [{"sample": s, "component": n, "concentration": c, "unit": "mg/L"}
+             for s, levels in PLATE_EXTRACTS_MG_L.items()
+             for n, c in zip(BANDS, levels, strict=True)]
+    pd.DataFrame(truth).to_csv(HERE / "plate_truth.csv", index=False, lineterminator="\n")
 
 
 if __name__ == "__main__":

@@ -29,3 +29,11 @@ def write_text(text: str, path: str | os.PathLike[str]) -> Path:
     with atomic_path(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
     return Path(path)
+
+
+def write_workbook(sheets: dict[str, pd.DataFrame], path: str | os.PathLike[str]) -> Path:
+    """Write DataFrames as the sheets of one XLSX workbook (openpyxl); atomic."""
+    with atomic_path(path) as tmp, pd.ExcelWriter(tmp, engine="openpyxl") as writer:
+        for name, frame in sheets.items():
+            frame.to_excel(writer, sheet_name=name, index=False)
+    return Path(path)

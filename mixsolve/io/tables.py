@@ -13,7 +13,7 @@ import csv
 import io
 import os
 import re
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -300,3 +300,39 @@ def parse_number(cell: Any, decimal: str, where: str, *, allow_missing: bool = T
         raise InputError(f"{where}: {cell!r} is infinite; leave the cell empty for a missing "
                          "reading")
     return value
+
+
+def header_names(table: RawTable, required: Sequence[str], what: str,
+                 *, optional_note: str = "") -> list[str]:
+    """The header of ``table`` as lower-case column names, checked for required columns.
+
+    Parameters
+    ----------
+    table : RawTable
+        From :func:`read_table`.
+    required : sequence of str
+        Lower-case names every such table must have, in the order a message lists them.
+    what : str
+        What the table is, for the message (``"a reference table"``).
+    optional_note : str
+        Added in brackets after the list of required columns (``"optional: pathlength_cm"``).
+
+    Returns
+    -------
+    list of str
+        Every header cell stripped, without a byte-order mark, lower-cased; a column's
+        index in this list is its index in the rows.
+
+    Raises
+    ------
+    FileFormatError
+        ``"<file>, line <n>: missing column(s) <names>; <what> has columns <required>"``.
+    """
+    names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
+    missing = [c for c in required if c not in names]
+    if missing:
+        note = f" ({optional_note})" if optional_note else ""
+        raise FileFormatError(
+            f"{table.name}, line {table.header_line}: missing column(s) {', '.join(missing)}; "
+            f"{what} has columns {', '.join(required)}{note}")
+    return names

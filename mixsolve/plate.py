@@ -1,0 +1,229 @@
+"""Microplate science without I/O: well geometry, blank, pathlength, replicate statistics.
+
+Wells are named by row letter and column number (``A1`` ... ``H12`` on a 96-well plate,
+``A1`` ... ``P24`` on a 384-well plate); ``A01`` is read as ``A1``. Spectra of a plate are
+a DataArray with dims ``("well", "wavelength")``.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterable, Sequence
+
+import numpy as np
+import xarray as xr
+
+from mixsolve.errors import InputError
+from mixsolve.spectra import WAVELENGTH
+
+WELL = "well"
+#: Plate formats: wells → (rows, columns).
+PLATE_SHAPES: dict[int, tuple[int, int]] = {96: (8, 12), 384: (16, 24)}
+ROW_LETTERS = "ABCDEFGHIJKLMNOP"
+_WELL_NAME = re.compile(r"^([A-Pa-p])0?([1-9]\d?)$")
+
+#: Water band: A(977 nm) − A(900 nm) per cm of water at room temperature (CHECKS.md, from
+#: memory; it depends on temperature, so keep it settable).
+WATER_BAND_AU_PER_CM = 0.18
+WATER_BAND_NM = (900.0, 977.0)
+#: How close (nm) a reading must be to a water-band wavelength to count as one.
+WATER_BAND_TOLERANCE_NM = 0.5
+#: Replicate CV above which a sample is flagged ``high_cv`` (common practice, settable).
+DEFAULT_MAX_CV = 0.20
+
+SAMPLE_MEAN_RULE = (
+    "u(mean) = sqrt(max(SD^2, mean(u_fit^2)) / n): replicate scatter, with the wells' mean "
+    "fit variance as a floor; n wells with a result, results multiplied by their dilution"
+)
+
+
+def parse_well(text: object) -> tuple[int, int] | None:
+    """Row index (0 = A) and column number (1-based) of a well name, or None.
+
+    ``A1``, ``a1`` and ``A01`` are the same well; rows A–P and columns 1–99 are read
+    (whether the well lies on a given plate is :func:`check_on_plate`'s business).
+    """
+    match = _WELL_NAME.match(str(text).strip())
+    if match is None:
+        return None
+    return ROW_LETTERS.index(match.group(1).upper()), int(match.group(2))
+
+
+def well_name(row: int, column: int) -> str:
+    """Canonical name of a well: ``well_name(1, 3) == "B3"``."""
+    return f"{ROW_LETTERS[row]}{column}"
+
+
+def plate_wells(size: int) -> list[str]:
+    """All wells of a plate in reading order (A1, A2, ..., then B1 ...)."""
+    rows, cols = PLATE_SHAPES[size]
+    return [well_name(r, c) for r in range(rows) for c in range(1, cols + 1)]
+
+
+def plate_size_for(positions: Iterable[tuple[int, int]]) -> int | None:
+    """Smallest plate format (96 or 384) holding every (row, column), or None."""
+    pos = list(positions)
+    for size, (rows, cols) in PLATE_SHAPES.items():
+        if all(r < rows and 1 <= c <= cols for r, c in pos):
+            return size
+    return None
+
+
+def plate_range(size: int) -> str:
+    """Display range of a plate's wells, e.g. ``A1-H12``."""
+    rows, cols = PLATE_SHAPES[size]
+    return f"A1-{ROW_LETTERS[rows - 1]}{cols}"
+
+
+def check_on_plate(position: tuple[int, int], size: int) -> bool:
+    """Whether a (row, column) position lies on a plate of ``size`` wells."""
+    rows, cols = PLATE_SHAPES[size]
+    return position[0] < rows and 1 <= position[1] <= cols
+
+
+def subtract_blank(
+    spectra: xr.DataArray, blank_wells: Sequence[str]
+) -> tuple[xr.DataArray, xr.DataArray, xr.DataArray]:
+    """Subtract the mean blank spectrum from every well.
+
+    Parameters
+    ----------
+    spectra : DataArray with dims ("well", "wavelength")
+        Raw absorbance (AU); NaN marks a missing reading.
+    blank_wells : sequence of str
+        The blank wells; with none, nothing is subtracted.
+
+    Returns
+    -------
+    corrected : DataArray
+        ``spectra`` minus the blank mean (AU). Where every blank lacks a reading, the
+        corrected values are NaN (missing).
+    blank_mean, blank_sd : DataArray with dims ("wavelength",)
+        Mean and standard deviation (n − 1 denominator) of the blank wells (AU); zero
+        and NaN without blanks, NaN SD with a single blank.
+    """
+    wl = spectra[WAVELENGTH]
+    if not blank_wells:
+        zero = xr.zeros_like(wl, dtype=float)
+        return spectra, zero, zero * np.nan
+    blanks = spectra.sel({WELL: list(blank_wells)})
+    present = blanks.notnull().sum(WELL)
+    mean = blanks.mean(WELL, skipna=True)
+    sd = blanks.std(WELL, ddof=1, skipna=True).where(present >= 2)
+    return spectra - mean, mean.assign_attrs(units="AU"), sd.assign_attrs(units="AU")
+
+
+def pathlength_from_volume(volume_ul: float, well_diameter_mm: float) -> float:
+    """Pathlength (cm) of a flat-bottomed cylindrical well filled with ``volume_ul``.
+
+    Notes
+    -----
+    b = V / (π (d/2)²) with V in cm³ (1 µL = 10⁻³ cm³) and d in cm. The meniscus and
+    any taper of the well are ignored.
+
+    Raises
+    ------
+    InputError
+        A volume or diameter that is not a positive number.
+    """
+    for name, value, unit in (("--volume-ul", volume_ul, "µL"),
+                              ("--well-diameter-mm", well_diameter_mm, "mm")):
+        if value is None or not np.isfinite(value) or value <= 0:
+            raise InputError(f"{name}: {value} {unit} is not a positive number")
+    radius_cm = well_diameter_mm / 20.0
+    return float(volume_ul * 1e-3 / (np.pi * radius_cm**2))
+
+
+def water_band_pathlength(
+    spectra: xr.DataArray,
+    *,
+    au_per_cm: float = WATER_BAND_AU_PER_CM,
+    wavelengths_nm: tuple[float, float] = WATER_BAND_NM,
+    name: str = "spectra",
+) -> xr.DataArray:
+    """Pathlength (cm) of each well from the near-infrared water band.
+
+    Parameters
+    ----------
+    spectra : DataArray with dims ("well", "wavelength")
+        Raw absorbance (AU), not blank-corrected: the blank holds water too.
+    au_per_cm : float
+        A(977) − A(900) of 1 cm of water (AU/cm); 0.18 at room temperature (from memory).
+    wavelengths_nm : (float, float)
+        Reference and band wavelengths (nm), read within 0.5 nm.
+    name : str
+        How to name the spectra in an error message.
+
+    Returns
+    -------
+    DataArray with dims ("well",)
+        b = (A(977) − A(900)) / ``au_per_cm`` in cm; NaN where a reading is missing or
+        the difference is not positive.
+
+    Raises
+    ------
+    InputError
+        A wavelength was not read, or ``au_per_cm`` is not positive.
+    """
+    if not np.isfinite(au_per_cm) or au_per_cm <= 0:
+        raise InputError(f"--water-k: {au_per_cm:g} AU/cm is not a positive number")
+    wl = spectra[WAVELENGTH].values
+    picked = []
+    for target in wavelengths_nm:
+        pos = int(np.argmin(np.abs(wl - target)))
+        if abs(wl[pos] - target) > WATER_BAND_TOLERANCE_NM:
+            raise InputError(
+                f"{name}: the water-band pathlength needs readings at {wavelengths_nm[0]:g} and "
+                f"{wavelengths_nm[1]:g} nm, but {target:g} nm was not read (read "
+                f"{wl[0]:g}-{wl[-1]:g} nm); give --pathlength or --volume-ul instead")
+        picked.append(spectra.isel({WAVELENGTH: pos}, drop=True))
+    diff = picked[1] - picked[0]
+    b = (diff / au_per_cm).where(diff > 0)
+    return b.assign_attrs(units="cm")
+
+
+def replicate_statistics(values: np.ndarray, u_fit: np.ndarray) -> dict[str, float]:
+    """Mean, SD, CV and the standard uncertainty of the mean of replicate wells.
+
+    Parameters
+    ----------
+    values : array, shape (n,)
+        Concentrations from each well, already multiplied by the well's dilution; NaN
+        (no result) entries are left out.
+    u_fit : array, shape (n,)
+        Their standard uncertainties from the fit (same unit, same dilution factor).
+
+    Returns
+    -------
+    dict
+        ``n`` (wells with a result), ``mean``, ``sd`` (n − 1 denominator; NaN for n < 2),
+        ``cv`` = sd / |mean| (NaN for n < 2 or a zero mean), ``u_fit_rms`` =
+        √mean(u_fit²), and ``std_uncertainty`` of the mean.
+
+    Notes
+    -----
+    u(mean) = √(max(SD², mean(u_fitᵢ²)) / n). Each well's result scatters by well-to-well
+    effects (pipetting, volume, pathlength) plus the measurement noise the fit
+    uncertainty describes, so SD² already contains the fit variance and adding the two
+    would count it twice; but SD from two or three wells is itself very uncertain and can
+    come out small by chance, so the fit variance is kept as a floor. With n = 1 this is
+    u_fit of that well. A NaN fit uncertainty (``no_dof``) counts as unknown: then only SD
+    is used, and with n = 1 the uncertainty is NaN. See docs/plates.md.
+    """
+    values = np.asarray(values, dtype=float)
+    u_fit = np.asarray(u_fit, dtype=float)
+    keep = np.isfinite(values)
+    x, u = values[keep], u_fit[keep]
+    n = int(x.size)
+    nan = float("nan")
+    if n == 0:
+        return {"n": 0, "mean": nan, "sd": nan, "cv": nan, "u_fit_rms": nan,
+                "std_uncertainty": nan}
+    mean = float(x.mean())
+    sd = float(x.std(ddof=1)) if n >= 2 else nan
+    cv = sd / abs(mean) if n >= 2 and mean != 0 else nan
+    u_rms = float(np.sqrt(np.mean(u**2))) if np.all(np.isfinite(u)) else nan
+    variances = [v for v in (sd**2, u_rms**2) if np.isfinite(v)]
+    u_mean = float(np.sqrt(max(variances) / n)) if variances else nan
+    return {"n": n, "mean": mean, "sd": sd, "cv": cv, "u_fit_rms": u_rms,
+            "std_uncertainty": u_mean}

@@ -1,0 +1,223 @@
+"""The plate report: one self-contained HTML page per plate (a pure function, no I/O).
+
+Heat maps of every component over the plate, the samples, the flagged wells with their
+reasons, the residual spectra of the worst-fitting wells, the run's settings and the
+cautions. Flag codes are explained in docs/plates.md and in :data:`FLAG_TEXT`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from mixsolve.plate import PLATE_SHAPES, ROW_LETTERS, WELL, parse_well
+from mixsolve.report import html
+from mixsolve.report.text import value_with_uncertainty
+from mixsolve.spectra import WAVELENGTH
+
+#: What each flag code means (the part before ``:``).
+FLAG_TEXT: dict[str, str] = {
+    "marker": "non-numeric reading(s) in the export (saturation or error marker): missing "
+              "at those wavelengths, fitted on the rest",
+    "missing_readings": "some fitted wavelengths had no reading; fitted on the rest",
+    "too_few_readings": "too few readings left to fit: no result",
+    "rank_deficient": "the readings left cannot separate the components: no result",
+    "no_dof": "as many unknowns as wavelengths: no fit uncertainty",
+    "no_pathlength": "the water band gave no positive pathlength: no result",
+    "not_read": "listed in the layout but absent from the export: no result",
+    "not_in_layout": "read but not listed in the layout: not fitted",
+    "empty_well": "empty in the layout: not fitted",
+    "at_zero": "held at zero by the non-negativity constraint",
+    "negative": "ordinary least squares gave a negative concentration",
+    "above_range": "peak absorbance above the reliable range: dilute",
+    "below_range": "peak absorbance below the reliable range: less dilution or a longer path",
+    "lack_of_fit": "residual larger than the noise model allows",
+    "structured_residual": "residual has shape, not noise: unmodelled absorber, scatter or "
+                           "a wavelength shift",
+    "shift_sensitive": "a small wavelength error would move this result by more than 2 %",
+    "no_result": "no well of the sample gave a result",
+    "wells_without_result": "some wells of the sample gave no result and were left out",
+    "single_well": "one well only: no SD or CV; the uncertainty is that well's fit uncertainty",
+    "high_cv": "replicate wells disagree more than the CV limit",
+}
+#: Codes that do not make a well worth listing among the flagged ones (for blanks, a
+#: reading near zero is the point, so range and sign codes are routine there too).
+_ROUTINE = ("at_zero", "empty_well")
+_ROUTINE_BLANK = (*_ROUTINE, "below_range", "negative", "structured_residual")
+WORST_WELLS = 6
+
+
+def explain(flags: str) -> str:
+    """Plain-language reasons for a ``;``-joined flag string."""
+    reasons = []
+    for code in filter(None, flags.split(";")):
+        base, _, detail = code.partition(":")
+        text = FLAG_TEXT.get(base, base)
+        reasons.append(f"{text} ({detail})" if detail else text)
+    return "; ".join(dict.fromkeys(reasons))
+
+
+def noteworthy(flags: str, role: str = "sample") -> bool:
+    """Whether a well's flags hold a code beyond the routine ones for its role."""
+    routine = _ROUTINE_BLANK if role == "blank" else _ROUTINE
+    return any(code.partition(":")[0] not in routine for code in filter(None, flags.split(";")))
+
+
+def heat_map(wells: pd.DataFrame, component: str, plate_size: int, unit: str) -> object:
+    """A matplotlib Figure: the component's concentration in every well of the plate.
+
+    Wells without a result are grey; flagged wells (other than routine codes) carry a
+    cross; blanks are marked ``b`` and standards ``s``.
+    """
+    import matplotlib as mpl
+    from matplotlib.figure import Figure
+
+    n_rows, n_cols = PLATE_SHAPES[plate_size]
+    grid = np.full((n_rows, n_cols), np.nan)
+    rows = wells[wells["component"] == component]
+    fig = Figure(figsize=(6.4, 4.2) if plate_size == 96 else (8.4, 5.6))
+    # Axes placed by hand: a layout engine would cost more than the drawing itself.
+    ax = fig.add_axes((0.05, 0.05, 0.82, 0.86))
+    marks = []
+    for well, conc, role, flags in rows[["well", "concentration", "role", "flags"]].itertuples(
+            index=False):
+        r, c = parse_well(well)  # type: ignore[misc]
+        grid[r, c - 1] = conc
+        if noteworthy(flags, role):
+            marks.append((r, c - 1))
+        if role in ("blank", "standard"):
+            ax.text(c - 1, r, role[0], ha="center", va="center", fontsize=7, color="white")
+    cmap = mpl.colormaps["cividis"].with_extremes(bad="#d9d9d9")
+    image = ax.imshow(np.ma.masked_invalid(grid), cmap=cmap, aspect="equal")
+    if marks:
+        ys, xs = zip(*marks, strict=True)
+        ax.scatter(xs, ys, marker="x", s=30 if plate_size == 96 else 14, c="#b32d2e",
+                   linewidths=1.2)
+    step = 1 if plate_size == 96 else 2
+    ax.set_xticks(range(0, n_cols, step), [str(c + 1) for c in range(0, n_cols, step)])
+    ax.set_yticks(range(n_rows), list(ROW_LETTERS[:n_rows]))
+    ax.tick_params(labelsize=7, length=0)
+    ax.set_title(f"{component} ({unit})", fontsize=10)
+    bar = fig.colorbar(image, cax=fig.add_axes((0.89, 0.12, 0.025, 0.72)), format="%.3g")
+    bar.ax.tick_params(labelsize=7)
+    return fig
+
+
+def residual_figure(result: xr.Dataset, wells: Sequence[str], labels: Mapping[str, str]
+                    ) -> object:
+    """A matplotlib Figure of the residual spectra (AU) of ``wells``."""
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(8.0, 3.6))
+    ax = fig.add_axes((0.09, 0.14, 0.58, 0.8))
+    wl = result[WAVELENGTH].values
+    for well in wells:
+        ax.plot(wl, result["residual"].sel({WELL: well}).values, lw=1.2,
+                label=labels.get(well, well))
+    ax.axhline(0.0, color="#50575e", lw=0.8)
+    ax.set_xlabel("wavelength (nm)")
+    ax.set_ylabel("residual (AU)")
+    ax.legend(fontsize=7, frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
+    ax.tick_params(labelsize=8)
+    return fig
+
+
+def _worst_wells(result: xr.Dataset, wells: pd.DataFrame, count: int) -> list[str]:
+    rms = result["rms_residual"].to_series().dropna().sort_values(ascending=False)
+    roles = wells.drop_duplicates("well").set_index("well")["role"]
+    preferred = [w for w in rms.index if roles.get(w) in ("sample", "standard")]
+    return (preferred or list(rms.index))[:count]
+
+
+def _samples_view(samples: pd.DataFrame) -> pd.DataFrame:
+    return pd.DataFrame({
+        "sample": samples["sample"],
+        "component": samples["component"],
+        "value ± u": [value_with_uncertainty(c, u) for c, u in
+                      zip(samples["concentration"], samples["std_uncertainty"], strict=True)],
+        "unit": samples["unit"],
+        "n": samples["n_wells"],
+        "CV %": 100 * samples["cv"],
+        "flags": samples["flags"],
+    })
+
+
+def plate_page(
+    wells: pd.DataFrame,
+    samples: pd.DataFrame,
+    *,
+    result: xr.Dataset | None,
+    plate_size: int,
+    settings: Mapping[str, str],
+    notes: Sequence[str] = (),
+    title: str = "Plate report",
+) -> str:
+    """Build the plate's report page.
+
+    Parameters
+    ----------
+    wells, samples : DataFrame
+        The tidy tables of :func:`mixsolve.workflows.plate_analysis.analyse_plate`.
+    result : Dataset or None
+        The :func:`mixsolve.unmix` result over the fitted wells (for the residuals).
+    plate_size : {96, 384}
+    settings : mapping of str
+        The run's settings, shown as a table.
+    notes : sequence of str
+        Sentences shown at the top.
+    title : str
+
+    Returns
+    -------
+    str
+        A self-contained HTML page with one heat map figure per component.
+    """
+    components = list(dict.fromkeys(wells["component"]))
+    unit = str(wells["unit"].iloc[0]) if len(wells) else ""
+    per_well = wells.drop_duplicates("well")
+    fitted = per_well["rms_residual_au"].notna().sum()
+    flagged = per_well[[noteworthy(f, r) for f, r in zip(per_well["flags"], per_well["role"],
+                                                         strict=True)]]
+    at_zero = per_well["flags"].str.contains("at_zero:").sum()
+    parts = [html.paragraph(
+        f"{len(per_well)} wells, {fitted} fitted, {len(flagged)} flagged; "
+        f"{samples['sample'].nunique()} samples; concentrations in {unit}.")]
+    parts += [html.paragraph(n, kind="note") for n in notes]
+    maps = [html.figure(heat_map(wells, c, plate_size, unit),
+                        f"Heat map of {c}: concentration per well ({unit}), dilution "
+                        "applied; grey = no result, × = flagged, b = blank, s = standard",
+                        alt=f"heat map of {c}")
+            for c in components]
+    sections = ["".join(parts), html.section("Concentration per well", *maps)]
+    sections.append(html.section(
+        "Samples", html.paragraph("Mean of the sample's wells ± standard uncertainty of the "
+                                  "mean (see the settings for the rule)."),
+        html.table(_samples_view(samples), digits=3) if len(samples) else
+        html.paragraph("The layout lists no sample wells.")))
+    listed = pd.DataFrame({"well": flagged["well"], "sample": flagged["sample"],
+                           "role": flagged["role"], "flags": flagged["flags"],
+                           "reasons": flagged["flags"].map(explain)})
+    flag_parts = [html.table(listed) if len(listed) else
+                  html.paragraph("No well is flagged beyond routine codes.")]
+    if at_zero:
+        flag_parts.append(html.paragraph(
+            f"{at_zero} well(s) have a component held at zero (at_zero): usually that "
+            "component is absent; wells.csv lists them."))
+    sections.append(html.section("Flagged wells", *flag_parts))
+    if result is not None and result.sizes.get(WELL, 0):
+        worst = _worst_wells(result, wells, WORST_WELLS)
+        info = per_well.set_index("well")
+        labels = {w: f"{w} ({info.at[w, 'role']} {info.at[w, 'sample']}, rms "
+                     f"{info.at[w, 'rms_residual_au']:.2g} AU)" for w in worst}
+        sections.append(html.section(
+            "Residual spectra of the worst-fitting wells",
+            html.figure(residual_figure(result, worst, labels),
+                        "Measured minus fitted absorbance of the wells with the largest RMS "
+                        "residual; structure above the noise suggests an unmodelled absorber, "
+                        "scatter or a wavelength shift", alt="residual spectra")))
+    sections.append(html.section("Settings", html.key_values(settings)))
+    sections.append(html.cautions())
+    return html.page(title, sections)

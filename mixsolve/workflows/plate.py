@@ -1,0 +1,202 @@
+"""Plate batches from files to files: what `mixsolve plate` runs.
+
+Every export is read and analysed first, and only when all of them succeeded are the
+outputs written (each file atomically), so a bad export leaves no output behind. Each
+export gets its own subfolder of the output folder with ``wells.csv``, ``samples.csv``,
+``results.xlsx`` and ``report.html``; ``samples.csv`` at the top combines all plates.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import xarray as xr
+
+from mixsolve.errors import InputError
+from mixsolve.io.atomic import ensure_folder
+from mixsolve.io.layout_io import read_layout
+from mixsolve.io.library_store import read_library, write_library
+from mixsolve.io.plates import read_plate
+from mixsolve.io.results_io import write_table, write_text, write_workbook
+from mixsolve.report.text import CAUTION
+from mixsolve.workflows.plate_analysis import PlateResult, analyse_plate
+
+PathLike = str | os.PathLike[str]
+#: File suffixes taken from a folder of exports.
+EXPORT_SUFFIXES = (".csv", ".tsv", ".txt", ".xlsx")
+#: ``progress(done, total, message)``, called after each plate.
+Progress = Callable[[int, int, str], None]
+
+
+@dataclass
+class PlateBatch:
+    """What a batch made: one result per plate, the combined samples, the summary text."""
+
+    plates: list[PlateResult]
+    folders: list[Path]
+    samples: pd.DataFrame
+    out_dir: Path
+    text: str
+
+
+def find_exports(exports: Sequence[PathLike], *, exclude: Sequence[PathLike] = ()
+                 ) -> list[Path]:
+    """Expand folders into the export files they hold (.csv, .tsv, .txt, .xlsx), in name order.
+
+    Hidden files and the paths in ``exclude`` (the layout, the library) are skipped.
+
+    Raises
+    ------
+    InputError
+        No export given, a folder without exports, or one file given twice.
+    """
+    skip = {Path(p).resolve() for p in exclude}
+    found: list[Path] = []
+    for item in exports:
+        path = Path(item)
+        if path.is_dir():
+            files = sorted(p for p in path.iterdir() if p.is_file() and not
+                           p.name.startswith(".") and p.suffix.lower() in EXPORT_SUFFIXES
+                           and p.resolve() not in skip)
+            if not files:
+                raise InputError(f"{path}: no plate exports ({', '.join(EXPORT_SUFFIXES)}) in "
+                                 "the folder")
+            found += files
+        else:
+            found.append(path)
+    if not found:
+        raise InputError("no plate export given")
+    seen: set[Path] = set()
+    for path in found:
+        if path.resolve() in seen:
+            raise InputError(f"{path}: export given twice")
+        seen.add(path.resolve())
+    return found
+
+
+def _folder_names(paths: list[Path]) -> list[str]:
+    names: list[str] = []
+    for path in paths:
+        base = re.sub(r"[^\w.-]+", "_", path.stem) or "plate"
+        name, k = base, 2
+        while name in names:
+            name, k = f"{base}-{k}", k + 1
+        names.append(name)
+    return names
+
+
+def run_plates(
+    exports: Sequence[PathLike],
+    layout: PathLike,
+    *,
+    out: PathLike,
+    library: xr.Dataset | PathLike | None = None,
+    library_from_plate: bool = False,
+    sheet: str | None = None,
+    layout_sheet: str | None = None,
+    plate_size: int | None = None,
+    progress: Progress | None = None,
+    **options: Any,
+) -> PlateBatch:
+    """Analyse plate exports with one layout and write every output.
+
+    Parameters
+    ----------
+    exports : sequence of path-like
+        Export files, or folders of them (see :func:`find_exports`).
+    layout : path-like
+        Layout file (:func:`mixsolve.io.layout_io.read_layout`), the same for every plate.
+    out : path-like
+        Output folder (created if needed): one subfolder per export, named after it,
+        holding ``wells.csv``, ``samples.csv``, ``results.xlsx``, ``report.html`` (and
+        ``library.nc`` with ``library_from_plate``); plus ``samples.csv`` for all plates.
+    library : Dataset or path-like, optional
+        A library or its file; exclusive with ``library_from_plate``.
+    library_from_plate : bool
+        Build each plate's library from its standard wells.
+    sheet, layout_sheet : str, optional
+        XLSX sheets of the exports and of the layout; default the first.
+    plate_size : {96, 384}, optional
+        Plate format; detected by default.
+    progress : callable, optional
+        ``progress(done, total, message)`` after each plate (the CLI shows a bar).
+    **options
+        Passed to :func:`mixsolve.workflows.plate_analysis.analyse_plate` (window,
+        wavelengths, method, baseline, unit, pathlength_cm, volume_ul, well_diameter_mm,
+        water_band, water_k_au_per_cm, max_cv) and on to :func:`mixsolve.unmix` (weights,
+        noise, absorbance_range, fit_shift, ...).
+
+    Returns
+    -------
+    PlateBatch
+
+    Raises
+    ------
+    InputError, OutputError
+        As :func:`read_plate`, :func:`read_layout` and :func:`analyse_plate`; nothing is
+        written when any plate fails.
+    """
+    library_path = library if isinstance(library, str | os.PathLike) else None
+    paths = find_exports(exports, exclude=[layout, *([library_path] if library_path else []),
+                                           Path(out) / "samples.csv"])
+    plan = read_layout(layout, sheet=layout_sheet)
+    lib = read_library(library_path) if library_path is not None else library
+    from mixsolve.report.plate_page import plate_page  # deferred: matplotlib is heavy
+
+    plates, pages = [], []
+    for k, path in enumerate(paths, start=1):
+        measured = read_plate(path, sheet=sheet, plate_size=plate_size)
+        result = analyse_plate(measured, plan, lib,  # type: ignore[arg-type]
+                               library_from_plate=library_from_plate, **options)
+        plates.append(result)
+        pages.append(plate_page(result.wells, result.samples, result=result.result,
+                                plate_size=result.plate_size, settings=result.settings,
+                                notes=result.notes, title=f"mixsolve plate report: {path.name}"))
+        if progress is not None:
+            progress(k, len(paths), _summary(result))
+    names = _folder_names(paths)
+    combined = pd.concat([p.samples.assign(plate=n) for p, n in zip(plates, names,
+                                                                  strict=True)],
+                         ignore_index=True)
+    combined = combined[["plate", *plates[0].samples.columns]]
+    folder = ensure_folder(out)
+    folders = [ensure_folder(folder / name) for name in names]  # all places first, then files
+    for result, page, sub in zip(plates, pages, folders, strict=True):
+        _write_plate(sub, result, page, library_from_plate)
+    write_table(combined, folder / "samples.csv")
+    lines = []
+    for result, sub in zip(plates, folders, strict=True):
+        lines.append(f"{_summary(result)} -> {sub}")
+        lines += [f"  note: {note}" for note in result.notes]
+    lines += [f"Wrote {folder / 'samples.csv'}: {combined['sample'].nunique()} samples from "
+              f"{len(plates)} plate(s).", CAUTION, ""]
+    return PlateBatch(plates, folders, combined, folder, "\n".join(lines))
+
+
+def _summary(result: PlateResult) -> str:
+    from mixsolve.report.plate_page import noteworthy
+
+    per_well = result.wells.drop_duplicates("well")
+    flagged = [noteworthy(f, r) for f, r in zip(per_well["flags"], per_well["role"],
+                                                strict=True)]
+    return (f"{result.name}: {result.plate.attrs.get('layout', '')}, {result.plate_size}-well; "
+            f"{per_well['rms_residual_au'].notna().sum()} wells fitted, {sum(flagged)} "
+            f"flagged; {result.samples['sample'].nunique()} samples")
+
+
+def _write_plate(sub: Path, result: PlateResult, page: str, with_library: bool) -> None:
+    write_table(result.wells, sub / "wells.csv")
+    write_table(result.samples, sub / "samples.csv")
+    settings = pd.DataFrame({"setting": list(result.settings),
+                             "value": list(result.settings.values())})
+    write_workbook({"wells": result.wells, "samples": result.samples, "settings": settings},
+                   sub / "results.xlsx")
+    write_text(page, sub / "report.html")
+    if with_library:
+        write_library(result.library, sub / "library.nc")

@@ -1,0 +1,503 @@
+"""Analyse one plate in memory: layout, blank, pathlength, unmixing, replicate statistics.
+
+No files are read or written here (:mod:`mixsolve.workflows.plate` does that); the steps
+are those of docs/plates.md, "Processing".
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from mixsolve._version import __version__
+from mixsolve.errors import InputError
+from mixsolve.library import COMPONENT, build_library, check_library
+from mixsolve.plate import (
+    DEFAULT_MAX_CV,
+    SAMPLE_MEAN_RULE,
+    WATER_BAND_AU_PER_CM,
+    WELL,
+    check_on_plate,
+    parse_well,
+    pathlength_from_volume,
+    plate_range,
+    plate_size_for,
+    plate_wells,
+    replicate_statistics,
+    subtract_blank,
+    water_band_pathlength,
+)
+from mixsolve.solve.cls import Method
+from mixsolve.solve.design import Baseline
+from mixsolve.solve.unmix import unmix
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+
+FITTED_ROLES = ("blank", "sample", "standard")
+WELL_COLUMNS = ("well", "sample", "role", "component", "concentration", "std_uncertainty",
+                "unit", "dilution", "pathlength_cm", "rms_residual_au", "flags")
+SAMPLE_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
+                  "n_wells", "sd", "cv", "wells", "flags")
+#: Codes tied to one component (``code:component``); they go on that component's rows only.
+_COMPONENT_CODES = ("at_zero", "negative", "shift_sensitive")
+
+
+@dataclass
+class PlateResult:
+    """One analysed plate.
+
+    Attributes
+    ----------
+    name : str
+        The export's file name (or the spectra's ``source``).
+    plate, corrected : DataArray with dims ("well", "wavelength")
+        Raw and blank-corrected absorbance (AU).
+    layout : DataFrame
+        The layout as read (:func:`mixsolve.io.layout_io.read_layout`).
+    library : Dataset
+        The library used (given, or built from the plate's standard wells).
+    result : Dataset or None
+        :func:`mixsolve.unmix` over the fitted wells; None when no well was fitted.
+    wells, samples : DataFrame
+        The tidy tables (columns ``WELL_COLUMNS`` and ``SAMPLE_COLUMNS``; docs/plates.md).
+    blank_mean, blank_sd : DataArray with dims ("wavelength",)
+        Mean blank spectrum subtracted, and its SD (AU).
+    pathlength_cm : Series
+        Pathlength (cm) per fitted well; NaN where it could not be found.
+    plate_size : int
+        96 or 384.
+    settings : dict of str
+        The run's settings as display text, in order.
+    notes : list of str
+        Plain sentences on anything the reader of the results should know.
+    """
+
+    name: str
+    plate: xr.DataArray
+    corrected: xr.DataArray
+    layout: pd.DataFrame
+    library: xr.Dataset
+    result: xr.Dataset | None
+    wells: pd.DataFrame
+    samples: pd.DataFrame
+    blank_mean: xr.DataArray
+    blank_sd: xr.DataArray
+    pathlength_cm: pd.Series
+    plate_size: int
+    settings: dict[str, str] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
+
+
+def analyse_plate(
+    plate: xr.DataArray,
+    layout: pd.DataFrame,
+    library: xr.Dataset | None = None,
+    *,
+    library_from_plate: bool = False,
+    window: tuple[float, float] | None = None,
+    wavelengths: Sequence[float] | None = None,
+    method: Method = "nnls",
+    baseline: Baseline = "none",
+    unit: str | None = None,
+    pathlength_cm: float | None = None,
+    volume_ul: float | None = None,
+    well_diameter_mm: float | None = None,
+    water_band: bool = False,
+    water_k_au_per_cm: float = WATER_BAND_AU_PER_CM,
+    max_cv: float = DEFAULT_MAX_CV,
+    **fit_options: Any,
+) -> PlateResult:
+    """Turn one plate's readings into concentrations per well and per sample.
+
+    Parameters
+    ----------
+    plate : DataArray with dims ("well", "wavelength")
+        Raw absorbance (AU) as from :func:`mixsolve.read_plate`.
+    layout : DataFrame
+        As from :func:`mixsolve.io.layout_io.read_layout` (columns ``line, well, role,
+        sample, dilution, component, concentration, unit``).
+    library : Dataset, optional
+        A mixsolve library; exclusive with ``library_from_plate``.
+    library_from_plate : bool
+        Build the library from the plate's standard wells (blank-corrected, each at its
+        own pathlength, in-well concentration = concentration / dilution).
+    window, wavelengths, method, baseline, unit
+        As for :func:`mixsolve.unmix`. Without ``window`` or ``wavelengths`` the fit uses
+        the measured wavelengths inside the library's range (others, such as the water
+        band, are used for the pathlength only).
+    pathlength_cm : float, optional
+        One pathlength (cm) for every well.
+    volume_ul, well_diameter_mm : float, optional
+        Fill volume (µL) and well diameter (mm): b = V / (π (d/2)²).
+    water_band : bool
+        Pathlength per well from A(977) − A(900) of the raw readings / ``water_k_au_per_cm``.
+    water_k_au_per_cm : float
+        A(977) − A(900) of 1 cm of water (AU/cm); 0.18 at room temperature (from memory).
+    max_cv : float
+        Replicate CV (fraction) above which a clearly detected component is flagged
+        ``high_cv``.
+    **fit_options
+        Passed to :func:`mixsolve.unmix` (``weights``, ``noise``, ``absorbance_range``,
+        ``fit_shift``, ``max_shift_nm``, ``wavelength_tolerance_nm``): its trust checks
+        flag each well.
+
+    Returns
+    -------
+    PlateResult
+
+    Raises
+    ------
+    InputError
+        Layout wells off the plate, conflicting pathlength or library options, no
+        standards for ``library_from_plate``, and every error of :func:`mixsolve.unmix`
+        and :func:`mixsolve.build_library`.
+
+    Notes
+    -----
+    Every well of the plate and of the layout gets rows in ``wells`` and every sample
+    rows in ``samples``, with a result or a flag saying why there is none. The sample
+    mean and its uncertainty follow :func:`mixsolve.plate.replicate_statistics`.
+    """
+    plate = check_spectra(plate, "plate")
+    if WELL not in plate.dims:
+        raise InputError(f"plate: dims {plate.dims} have no 'well' dimension; read the export "
+                         "with mixsolve.read_plate")
+    source = str(plate.attrs.get("source", "plate"))
+    layout_name = str(layout.attrs.get("source", "layout"))
+    read = [str(w) for w in plate[WELL].values]
+    size = int(plate.attrs.get("plate_size") or plate_size_for(
+        p for p in map(parse_well, read) if p is not None) or 384)
+    _check_layout(layout, layout_name, size, source)
+    if library is not None and library_from_plate:
+        raise InputError("give either a library or --library-from-plate, not both")
+    if library is None and not library_from_plate:
+        raise InputError("no library: give one (--library LIB.nc) or build it from the plate's "
+                         "standard wells (--library-from-plate)")
+    roles = dict(zip(layout["well"], layout["role"], strict=True))
+    fitted = [w for w in read if roles.get(w) in FITTED_ROLES]
+    mode = _pathlength_mode(pathlength_cm, volume_ul, well_diameter_mm, water_band)
+    blanks = [w for w in fitted if roles[w] == "blank"]
+    corrected, blank_mean, blank_sd = subtract_blank(plate, blanks)
+    b = _pathlengths(plate, fitted, mode, pathlength_cm, volume_ul, well_diameter_mm,
+                     water_k_au_per_cm, source)
+    if library_from_plate:
+        library = _plate_library(corrected, layout, fitted, b, layout_name, source)
+    library = check_library(library)
+    if window is None and wavelengths is None:
+        window = _overlap(plate[WAVELENGTH].values, library[WAVELENGTH].values)
+    fit_wells = [w for w in fitted if np.isfinite(b[w])]
+    result = None
+    if fit_wells:
+        b_da = xr.DataArray(b[fit_wells].to_numpy(), dims=(WELL,), coords={WELL: fit_wells})
+        result = unmix(corrected.sel({WELL: fit_wells}), library, window=window,
+                       wavelengths=wavelengths, method=method, baseline=baseline,
+                       pathlength_cm=b_da, unit=unit, **fit_options)
+    out_unit = result.attrs["unit"] if result is not None else (
+        unit or library.attrs["concentration_unit"])
+    components = [str(c) for c in library[COMPONENT].values]
+    all_wells = [w for w in plate_wells(size) if w in set(read) | set(roles)]
+    wells = _wells_table(plate, layout, all_wells, read, b, result, components, out_unit)
+    samples = _samples_table(layout, wells, components, out_unit, max_cv)
+    settings = _settings(plate, layout, library, result, mode, b, blanks, blank_sd,
+                         water_k_au_per_cm, max_cv, library_from_plate, size, method, baseline,
+                         out_unit)
+    notes = _notes(plate, result, mode, blanks, blank_mean, wells)
+    return PlateResult(source, plate, corrected, layout, library, result, wells, samples,
+                       blank_mean, blank_sd, b, size, settings, notes)
+
+
+def _check_layout(layout: pd.DataFrame, layout_name: str, size: int, source: str) -> None:
+    missing = [c for c in ("line", "well", "role", "sample", "dilution") if c not in layout]
+    if missing:
+        raise InputError(f"layout: missing column(s) {', '.join(missing)}; read it with "
+                         "mixsolve.io.layout_io.read_layout")
+    for row in layout.itertuples(index=False):
+        pos = parse_well(row.well)
+        if pos is None or not check_on_plate(pos, size):
+            raise InputError(f"{layout_name}, line {row.line}: well {row.well} is not on the "
+                             f"{size}-well plate of {source} ({plate_range(size)})")
+
+
+def _pathlength_mode(pathlength_cm: float | None, volume_ul: float | None,
+                     well_diameter_mm: float | None, water_band: bool) -> str:
+    if (volume_ul is None) != (well_diameter_mm is None):
+        raise InputError("--volume-ul and --well-diameter-mm go together: the pathlength from "
+                         "the fill volume needs both")
+    given = [m for m, on in (("fixed", pathlength_cm is not None),
+                             ("volume", volume_ul is not None), ("water band", water_band)) if on]
+    if len(given) > 1:
+        raise InputError(f"pathlength given {len(given)} ways ({', '.join(given)}); give one of "
+                         "--pathlength, --volume-ul with --well-diameter-mm, or --water-band")
+    return given[0] if given else "default"
+
+
+def _pathlengths(plate: xr.DataArray, fitted: list[str], mode: str, pathlength_cm: float | None,
+                 volume_ul: float | None, well_diameter_mm: float | None, water_k: float,
+                 source: str) -> pd.Series:
+    """Pathlength (cm) of every fitted well; NaN where the water band gives none."""
+    if mode == "water band":
+        values = water_band_pathlength(plate.sel({WELL: fitted}), au_per_cm=water_k,
+                                       name=source).values
+    elif mode == "volume":
+        values = np.full(len(fitted), pathlength_from_volume(volume_ul, well_diameter_mm))
+    else:
+        b = 1.0 if pathlength_cm is None else float(pathlength_cm)
+        if not np.isfinite(b) or b <= 0:
+            raise InputError(f"--pathlength: {b:g} cm is not a positive number")
+        values = np.full(len(fitted), b)
+    return pd.Series(values, index=pd.Index(fitted, name=WELL), dtype=float, name="pathlength_cm")
+
+
+def _plate_library(corrected: xr.DataArray, layout: pd.DataFrame, fitted: list[str],
+                   b: pd.Series, layout_name: str, source: str) -> xr.Dataset:
+    standards = layout[(layout["role"] == "standard") & layout["well"].isin(fitted)]
+    if standards.empty:
+        raise InputError(f"{layout_name}: --library-from-plate needs standard wells read in "
+                         f"{source}; the layout has none")
+    for row in standards.itertuples(index=False):
+        if not np.isfinite(b[row.well]):
+            raise InputError(f"{layout_name}, line {row.line}, well {row.well}: the standard "
+                             "has no pathlength (water band missing or not positive)")
+    sheet = pd.DataFrame({
+        "sample": standards["well"].to_numpy(),
+        "component": standards["component"].to_numpy(),
+        "concentration": (standards["concentration"] / standards["dilution"]).to_numpy(),
+        "unit": standards["unit"].to_numpy(),
+        "pathlength_cm": b[standards["well"]].to_numpy(),
+        "line": standards["line"].to_numpy(),
+    })
+    spectra = corrected.sel({WELL: sheet["sample"].tolist()}).rename({WELL: SAMPLE})
+    return build_library(spectra, sheet, source=f"standard wells of {source}")
+
+
+def _overlap(measured: np.ndarray, library_wl: np.ndarray) -> tuple[float, float] | None:
+    low, high = max(measured[0], library_wl[0]), min(measured[-1], library_wl[-1])
+    inside = (measured >= low) & (measured <= high)
+    return (float(low), float(high)) if low < high and inside.sum() >= 1 else None
+
+
+def _marker_codes(plate: xr.DataArray) -> dict[str, list[str]]:
+    markers = json.loads(plate.attrs.get("markers", "{}") or "{}")
+    return {well: list(dict.fromkeys("marker:" + re.sub(r"[^A-Za-z0-9_.+-]", "_", text)
+                                     for _, text in items))
+            for well, items in markers.items()}
+
+
+def _well_flags(well: str, role: str | None, is_read: bool, b: pd.Series,
+                fit_flags: dict[str, str], markers: dict[str, list[str]]) -> list[str]:
+    codes = []
+    if role is None:
+        codes.append("not_in_layout")
+    elif role == "empty":
+        codes.append("empty_well")
+    if not is_read:
+        codes.append("not_read")
+    codes += markers.get(well, [])
+    if role in FITTED_ROLES and is_read and not np.isfinite(b[well]):
+        codes.append("no_pathlength")
+    codes += [c for c in fit_flags.get(well, "").split(";") if c]
+    return codes
+
+
+def _wells_table(plate: xr.DataArray, layout: pd.DataFrame, all_wells: list[str],
+                 read: list[str], b: pd.Series, result: xr.Dataset | None,
+                 components: list[str], unit: str) -> pd.DataFrame:
+    info = layout.set_index("well")[["role", "sample", "dilution"]].to_dict("index")
+    markers = _marker_codes(plate)
+    pos = {w: i for i, w in enumerate(all_wells)}
+    conc = np.full((len(all_wells), len(components)), np.nan)
+    u = conc.copy()
+    rms = np.full(len(all_wells), np.nan)
+    fit_flags: dict[str, str] = {}
+    if result is not None:
+        fit = [str(w) for w in result[WELL].values]
+        rows_fit = [pos[w] for w in fit]
+        conc[rows_fit] = result["concentration"].transpose(WELL, COMPONENT).values
+        u[rows_fit] = result["std_uncertainty"].transpose(WELL, COMPONENT).values
+        rms[rows_fit] = result["rms_residual"].values
+        fit_flags = dict(zip(fit, map(str, result["flags"].values), strict=True))
+    read_set = set(read)
+    lengths = b.to_dict()
+    per_well = {"well": [], "sample": [], "role": [], "dilution": [], "flags": []}
+    for well in all_wells:
+        entry = info.get(well)
+        role = None if entry is None else str(entry["role"])
+        per_well["well"].append(well)
+        per_well["sample"].append("" if entry is None else str(entry["sample"]))
+        per_well["role"].append(role or "unassigned")
+        per_well["dilution"].append(1.0 if entry is None else float(entry["dilution"]))
+        per_well["flags"].append(";".join(
+            _well_flags(well, role, well in read_set, b, fit_flags, markers)))
+    dilution = np.asarray(per_well["dilution"])
+    n_c = len(components)
+    return pd.DataFrame({
+        "well": np.repeat(per_well["well"], n_c),
+        "sample": np.repeat(per_well["sample"], n_c),
+        "role": np.repeat(per_well["role"], n_c),
+        "component": np.tile(components, len(all_wells)),
+        "concentration": (conc * dilution[:, None]).ravel(),
+        "std_uncertainty": (u * dilution[:, None]).ravel(),
+        "unit": unit,
+        "dilution": np.repeat(dilution, n_c),
+        "pathlength_cm": np.repeat([lengths.get(w, np.nan) for w in all_wells], n_c),
+        "rms_residual_au": np.repeat(rms, n_c),
+        "flags": np.repeat(per_well["flags"], n_c),
+    }, columns=list(WELL_COLUMNS))
+
+
+def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, components: list[str],
+                   unit: str, max_cv: float) -> pd.DataFrame:
+    n_c = len(components)
+    names = wells["well"].to_numpy()[::n_c]
+    pos = {w: i for i, w in enumerate(names)}
+    conc = wells["concentration"].to_numpy().reshape(-1, n_c)
+    u = wells["std_uncertainty"].to_numpy().reshape(-1, n_c)
+    flags = wells["flags"].to_numpy()[::n_c]
+    sample_rows = layout[layout["role"] == "sample"]
+    rows = []
+    for sample, group in sample_rows.groupby("sample", sort=False):
+        members = group["well"].tolist()
+        idx = [pos[w] for w in members]
+        for k, comp in enumerate(components):
+            stats = replicate_statistics(conc[idx, k], u[idx, k])
+            codes = _sample_flags(flags[idx], comp, stats, len(members), max_cv)
+            rows.append((sample, comp, stats["mean"], stats["std_uncertainty"], unit,
+                         stats["n"], stats["sd"], stats["cv"], ";".join(members),
+                         ";".join(codes)))
+    return pd.DataFrame(rows, columns=list(SAMPLE_COLUMNS))
+
+
+def _sample_flags(well_flags: Sequence[str], component: str, stats: dict[str, Any],
+                  n_listed: int, max_cv: float) -> list[str]:
+    codes: dict[str, None] = {}
+    for text in well_flags:
+        for code in filter(None, str(text).split(";")):
+            base, _, comp = code.partition(":")
+            if base in _COMPONENT_CODES and comp != component:
+                continue
+            codes[code] = None
+    n = stats["n"]
+    if n == 0:
+        codes["no_result"] = None
+    elif n < n_listed:
+        codes[f"wells_without_result:{n_listed - n}"] = None
+    if n == 1:
+        codes["single_well"] = None
+    detected = np.isfinite(stats["u_fit_rms"]) and stats["mean"] > 3 * stats["u_fit_rms"]
+    if np.isfinite(stats["cv"]) and stats["cv"] > max_cv and detected:
+        codes["high_cv"] = None
+    return list(codes)
+
+
+def _range(values: np.ndarray, unit: str, digits: int = 4) -> str:
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return "n/a"
+    lo, hi = finite.min(), finite.max()
+    return f"{lo:.{digits}g} {unit}" if np.isclose(lo, hi) else \
+        f"{lo:.{digits}g}-{hi:.{digits}g} {unit}"
+
+
+def _settings(plate: xr.DataArray, layout: pd.DataFrame, library: xr.Dataset,
+              result: xr.Dataset | None, mode: str, b: pd.Series, blanks: list[str],
+              blank_sd: xr.DataArray, water_k: float, max_cv: float, from_plate: bool,
+              size: int, method: str, baseline: str, unit: str) -> dict[str, str]:
+    attrs = plate.attrs
+    wl = plate[WAVELENGTH].values
+    counts = layout["role"].value_counts()
+    prov = json.loads(library.attrs.get("provenance", "{}") or "{}")
+    pathlength = {
+        "fixed": f"{_range(b.to_numpy(), 'cm')} (given)",
+        "volume": f"{_range(b.to_numpy(), 'cm')} from the fill volume and well diameter, "
+                  "b = V / (π (d/2)²)",
+        "water band": f"{_range(b.to_numpy(), 'cm')} per well from the water band, "
+                      f"(A(977) − A(900)) / {water_k:g} AU/cm",
+        "default": "1 cm (none given)",
+    }[mode]
+    sd = blank_sd.values
+    blank = "none: nothing subtracted" if not blanks else (
+        f"{len(blanks)} well(s), mean spectrum subtracted; SD "
+        f"{np.nanmedian(sd) if np.isfinite(sd).any() else float('nan'):.2g} AU (median over "
+        f"wavelengths), {np.nanmax(sd) if np.isfinite(sd).any() else float('nan'):.2g} AU "
+        "at most")
+    used = json.loads(result.attrs["wavelengths_nm"]) if result is not None else []
+    settings = {
+        "export": f"{attrs.get('source', '')} ({attrs.get('layout', 'layout unknown')}, "
+                  f"{size}-well, separator {attrs.get('separator', '?')}, decimal "
+                  f"'{attrs.get('decimal', '.')}'"
+                  + (f", {attrs['sheet']}" if attrs.get("sheet") else "") + ")",
+        "readings": f"{plate.sizes[WELL]} wells × {wl.size} wavelengths, "
+                    f"{wl[0]:g}-{wl[-1]:g} nm",
+        "layout": f"{layout.attrs.get('source', '')}: "
+                  + ", ".join(f"{counts.get(r, 0)} {r}" for r in
+                              ("sample", "standard", "blank", "empty")),
+        "library": (f"built from {int((layout['role'] == 'standard').sum())} standard wells "
+                    "of this plate" if from_plate else
+                    f"{prov.get('method', 'given')}"
+                    + (f" from {prov['source']}" if prov.get("source") else ""))
+                   + f"; components {', '.join(map(str, library[COMPONENT].values))}",
+        "fit": f"{method}, baseline {baseline}, "
+               + (f"{len(used)} wavelengths {min(used):g}-{max(used):g} nm" if used else
+                  "no well fitted"),
+        "trust checks": _trust_settings(result),
+        "pathlength": pathlength,
+        "blank": blank,
+        "unit": unit,
+        "well uncertainty": "fit only (Type A): s·√[(DᵀD)⁻¹]ₖₖ / b, times the dilution",
+        "sample uncertainty": SAMPLE_MEAN_RULE,
+        "high_cv flag": f"CV > {100 * max_cv:g} % for a component whose mean exceeds 3 × its "
+                        "fit uncertainty",
+        "mixsolve": __version__,
+    }
+    return settings
+
+
+def _trust_settings(result: xr.Dataset | None) -> str:
+    if result is None:
+        return "n/a"
+    attrs = result.attrs
+    noise = json.loads(attrs.get("noise_model") or "{}")
+    parts = [f"reliable range {attrs.get('absorbance_range', '?')} AU",
+             f"weights {attrs.get('weights', 'none')}",
+             f"noise model {noise.get('name', 'given') if noise else 'none'}"]
+    if attrs.get("fit_shift"):
+        parts.append("wavelength shift fitted")
+    if "wavelength_tolerance_nm" in attrs:
+        parts.append(f"wavelength tolerance {attrs['wavelength_tolerance_nm']:g} nm")
+    return ", ".join(parts)
+
+
+def _notes(plate: xr.DataArray, result: xr.Dataset | None, mode: str, blanks: list[str],
+           blank_mean: xr.DataArray, wells: pd.DataFrame) -> list[str]:
+    notes = []
+    if mode == "default":
+        notes.append("No pathlength was given, so 1 cm was assumed: microplate wells are "
+                     "usually shorter. Give --pathlength, --volume-ul with "
+                     "--well-diameter-mm, or --water-band.")
+    if not blanks:
+        notes.append("The layout has no blank wells: nothing was subtracted, so the readings "
+                     "are taken as blank-corrected already.")
+    elif np.isnan(blank_mean.values).any():
+        missing = plate[WAVELENGTH].values[np.isnan(blank_mean.values)]
+        notes.append(f"No blank well has a reading at {', '.join(f'{w:g}' for w in missing[:6])}"
+                     " nm; those wavelengths are missing readings in every well.")
+    if result is not None:
+        used = json.loads(result.attrs["wavelengths_nm"])
+        wl = plate[WAVELENGTH].values
+        other = wl[(wl < min(used)) | (wl > max(used))]
+        if other.size:
+            notes.append(f"{other.size} wavelength(s) read outside the fitted range "
+                         f"({', '.join(f'{w:g}' for w in other[:6])}"
+                         f"{' ...' if other.size > 6 else ''} nm) were not fitted"
+                         + (" (used for the pathlength)" if mode == "water band" else "") + ".")
+    marked = wells.loc[wells["flags"].str.contains("marker:"), "well"].unique()
+    if marked.size:
+        notes.append(f"{marked.size} well(s) had non-numeric readings (saturation or error "
+                     "markers); each was fitted on the wavelengths it has and is flagged.")
+    return notes
