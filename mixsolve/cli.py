@@ -61,14 +61,14 @@ def parse_window(text: str | None, option: str = "--window") -> tuple[float, flo
     return low, high
 
 
-def parse_wavelengths(text: str | None) -> list[float] | None:
+def parse_wavelengths(text: str | None, option: str = "--wavelengths") -> list[float] | None:
     """Parse ``"663.6,646.6"`` (nm)."""
     if text is None:
         return None
     try:
         return [float(p) for p in text.split(",") if p.strip()]
     except ValueError:
-        raise InputError(f"--wavelengths: {text!r} is not a comma-separated list of nm, "
+        raise InputError(f"{option}: {text!r} is not a comma-separated list of nm, "
                          "e.g. 663.6,646.6") from None
 
 
@@ -101,6 +101,32 @@ def parse_molar_masses(text: str | None) -> dict[str, float] | None:
 selection_options = [
     click.option("--window", help="Wavelength window LOW-HIGH in nm, both ends included."),
     click.option("--wavelengths", help="Discrete wavelengths in nm, comma-separated."),
+]
+
+
+#: Options of ``unmix`` beyond the fit: corrections and the uncertainty budget
+#: (mixsolve.workflows.measurement.MeasurementOptions; docs/uncertainty.md).
+measurement_options = [
+    click.option("--cell-blank", help="Spectra of the sample cell filled with solvent, read "
+                  "against the reference cell; subtracted from every spectrum."),
+    click.option("--cell-ratio", help="Pathlength of the sample cell / nominal, R or R±U; "
+                 "spectra are divided by R."),
+    click.option("--wavelength-offset", help="Known wavelength-scale offset in nm (read - true, "
+                 "from 'instrument wavelength'), NM or NM±U; the axis is corrected first."),
+    click.option("--budget", help="Uncertainty budget CSV to write (GUM; docs/uncertainty.md)."),
+    click.option("--pathlength-u", type=float,
+                 help="Standard uncertainty of the pathlength (cm), for --budget."),
+    click.option("--dilution", help="Dilution before measuring, ALIQUOT/FINAL in mL, e.g. 1/10, "
+                 "0.1:piston/10:flask-A or 1±0.01/10; for --budget."),
+    click.option("--carryover", type=float,
+                 help="Liquid left in the cell when refilled without drying (µL), for --budget."),
+    click.option("--fill-volume", type=float, help="Volume filled into the cell (µL) [3000]."),
+    click.option("--repeat-scans", help="Repeated scans of one solution: their SD per "
+                 "wavelength is the Type A noise of --budget."),
+    click.option("--stray", type=float, help="Stray-light fraction, e.g. 0.0005, for --budget "
+                 "[that of --noise]."),
+    click.option("--monte-carlo", type=int,
+                 help="Also propagate by Monte Carlo with this many draws (--budget)."),
 ]
 
 
@@ -233,15 +259,24 @@ def library_show(library_file: str) -> None:
               help="Largest wavelength offset searched with --fit-shift (nm).")
 @click.option("--wavelength-tolerance", type=float, default=0.5, show_default=True,
               help="Instrument wavelength accuracy (nm) for the shift_sensitive flag.")
-@click.option("--out", help="Tidy results CSV to write.")
+@click.option("--out", help="Results to write: a tidy CSV, or a .zarr or .nc cube.")
 @click.option("--report", help="HTML page to write: settings, results, notes and figures.")
+@click.option("--scheduler", help="Run on this dask.distributed scheduler (tcp://HOST:PORT).")
+@click.option("--workers", type=int, help="Run on a local dask cluster of N worker processes.")
+@add_options(measurement_options)
 @_guarded
 def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str | None,
           method: str, baseline: str, pathlength: float | None, unit: str | None,
           weights: str, noise: str | None, absorbance_range: str, fit_shift: bool,
           max_shift: float, wavelength_tolerance: float, out: str | None,
-          report: str | None) -> None:
-    """Resolve SPECTRA into concentrations with the library (or PLS model) LIBRARY_FILE."""
+          report: str | None, scheduler: str | None, workers: int | None,
+          **measurement: Any) -> None:
+    """Resolve SPECTRA into concentrations with the library (or PLS model) LIBRARY_FILE.
+
+    SPECTRA is a table, or a .zarr/.nc cube (any dims besides wavelength, run chunk by
+    chunk on dask; docs/scale.md).
+    """
+    from mixsolve.workflows.measurement import budget_text
     from mixsolve.workflows.unmix_files import format_unmix, unmix_files
 
     result = unmix_files(library_file, spectra, window=parse_window(window),
@@ -251,10 +286,14 @@ def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str 
                          weights=weights, noise=parse_noise(noise),
                          absorbance_range=parse_window(absorbance_range, "--range"),
                          fit_shift=fit_shift, max_shift_nm=max_shift,
-                         wavelength_tolerance_nm=wavelength_tolerance)
-    click.echo(format_unmix(result), nl=False)
+                         wavelength_tolerance_nm=wavelength_tolerance,
+                         measurement=measurement, scheduler=scheduler, workers=workers,
+                         progress=sys.stderr)
+    click.echo(format_unmix(result) + budget_text(result), nl=False)
     if out:
         click.echo(f"wrote {out}", err=True)
+    if measurement.get("budget"):
+        click.echo(f"wrote {measurement['budget']}", err=True)
 
 
 @main.group()
@@ -316,7 +355,7 @@ def wavelengths_choose(library_file: str, count: int, window: str | None, contig
     choice = choose_wavelengths(read_library(library_file), count, window=parse_window(window),
                                 contiguous=contiguous, noise=noise,
                                 baseline=baseline,  # type: ignore[arg-type]
-                                compare=parse_wavelengths(compare))
+                                compare=parse_wavelengths(compare, "--compare"))
     click.echo(json.dumps(choice.to_dict()) if as_json else format_choice(choice),
                nl=as_json)
 
@@ -453,3 +492,110 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
     finally:
         progress.close()
     click.echo(batch.text, nl=False)
+
+
+def parse_numbers(text: str | None, option: str) -> list[float] | None:
+    """Parse a comma-separated list of numbers given to ``option``."""
+    if text is None:
+        return None
+    try:
+        return [float(p) for p in text.split(",") if p.strip()]
+    except ValueError:
+        raise InputError(f"{option}: {text!r} is not a comma-separated list of numbers") from None
+
+
+@main.group()
+def instrument() -> None:
+    """Check the instrument: absorbance scale, wavelength scale, stray light, repeatability."""
+
+
+log_option = click.option("--log", help="CSV log to append dated records to (created if missing).")
+bandwidth_option = click.option("--bandwidth", type=float,
+                                help="Spectral bandwidth of the instrument (nm), recorded.")
+
+
+@instrument.command("absorbance")
+@click.argument("spectra")
+@click.option("--concentration", required=True,
+              help="Dichromate concentration (mg/L): one value, or one per spectrum in order.")
+@click.option("--pathlength", type=float, default=1.0, show_default=True, help="Cell (cm).")
+@click.option("--tolerance", type=float, help="Accept nominal ± this % instead of the table.")
+@click.option("--linearity-tolerance", type=float, default=1.0, show_default=True,
+              help="Largest deviation of a level from the mean specific absorbance (%).")
+@bandwidth_option
+@log_option
+@_guarded
+def instrument_absorbance(spectra: str, concentration: str, pathlength: float,
+                          tolerance: float | None, linearity_tolerance: float,
+                          bandwidth: float | None, log: str | None) -> None:
+    """Absorbance scale from potassium dichromate SPECTRA (235, 257, 313, 350 nm)."""
+    from mixsolve.workflows.instrument import run_check
+
+    _, text = run_check("absorbance", spectra, log=log,
+                        concentration_mg_l=parse_numbers(concentration, "--concentration"),
+                        pathlength_cm=pathlength, tolerance_pct=tolerance,
+                        linearity_tolerance_pct=linearity_tolerance, bandwidth_nm=bandwidth)
+    click.echo(text, nl=False)
+
+
+@instrument.command("wavelength")
+@click.argument("spectra")
+@click.option("--bands", help="Certified band positions (nm) [241.15,287.15,361.5,536.3].")
+@click.option("--uv-tolerance", type=float, default=1.0, show_default=True,
+              help="± nm accepted below 400 nm.")
+@click.option("--vis-tolerance", type=float, default=3.0, show_default=True,
+              help="± nm accepted from 400 nm.")
+@click.option("--fit", type=click.Choice(["gaussian", "quadratic"]), default="gaussian",
+              show_default=True, help="Peak model fitted around each maximum.")
+@click.option("--fit-half-width", type=float, default=3.0, show_default=True,
+              help="Half-width of the fitted region (nm).")
+@click.option("--search", type=float, help="Half-width of the band search (nm) [tolerance + 2].")
+@click.option("--reference-u", type=float, default=0.0, show_default=True,
+              help="Standard uncertainty of the certified positions (nm).")
+@bandwidth_option
+@log_option
+@_guarded
+def instrument_wavelength(spectra: str, bands: str | None, uv_tolerance: float,
+                          vis_tolerance: float, fit: str, fit_half_width: float,
+                          search: float | None, reference_u: float, bandwidth: float | None,
+                          log: str | None) -> None:
+    """Wavelength scale from a holmium oxide SPECTRA: band positions, offset and its u."""
+    from mixsolve.diagnostics.wavelength_scale import HOLMIUM_BANDS_NM
+    from mixsolve.workflows.instrument import run_check
+
+    _, text = run_check("wavelength", spectra, log=log,
+                        bands_nm=parse_numbers(bands, "--bands") or HOLMIUM_BANDS_NM,
+                        uv_tolerance_nm=uv_tolerance, vis_tolerance_nm=vis_tolerance,
+                        method=fit, fit_half_width_nm=fit_half_width, search_nm=search,
+                        reference_u_nm=reference_u, bandwidth_nm=bandwidth)
+    click.echo(text, nl=False)
+
+
+@instrument.command("stray-light")
+@click.argument("spectra")
+@click.option("--wavelength", type=float, default=200.0, show_default=True,
+              help="Where the limit applies (nm).")
+@click.option("--limit", type=float, default=2.0, show_default=True,
+              help="Each reading must exceed this absorbance (AU).")
+@bandwidth_option
+@log_option
+@_guarded
+def instrument_stray_light(spectra: str, wavelength: float, limit: float,
+                           bandwidth: float | None, log: str | None) -> None:
+    """Stray light from cut-off filter SPECTRA (12 g/L KCl: A at 200 nm above 2)."""
+    from mixsolve.workflows.instrument import run_check
+
+    _, text = run_check("stray_light", spectra, log=log, wavelength_nm=wavelength,
+                        limit_au=limit, bandwidth_nm=bandwidth)
+    click.echo(text, nl=False)
+
+
+@instrument.command("repeatability")
+@click.argument("scans")
+@click.option("--out", help="CSV of mean, SD and drift per wavelength to write.")
+@_guarded
+def instrument_repeatability(scans: str, out: str | None) -> None:
+    """SD per wavelength and drift of repeated SCANS of one solution (columns in order)."""
+    from mixsolve.workflows.instrument import run_repeatability
+
+    click.echo(run_repeatability(scans, out=out)[1], nl=False)

@@ -49,7 +49,7 @@ LOTS_MG_L = {
     "lot_C": (3.0, 8.0, 1.5),
     "lot_D": (5.0, 5.0, 5.0),
 }
-#: The lot with the contaminant, and its band: centre (nm), half-width (nm), peak (AU, 1 cm).
+#: The lot with the contaminant, and its Gaussian band: centre (nm), σ (nm), peak (AU, 1 cm).
 CONTAMINATED_LOT = "lot_D"
 CONTAMINANT_BAND = (675.0, 14.0, 0.05)
 

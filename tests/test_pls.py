@@ -1,4 +1,4 @@
-"""PLS calibration and prediction (mixsolve.solve.pls) and the model and reference files.
+"""PLS calibration and prediction (mixsolve.solve.pls_*) and the model and reference files.
 
 All data are invented: three Gaussian bands ("amber", "rose", "teal"), mixed in seeded
 random amounts with seeded noise. Nothing here is measured.
@@ -18,13 +18,11 @@ import mixsolve as ms
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.model_store import file_kind
 from mixsolve.io.reference_io import read_reference
-from mixsolve.solve.pls import (
-    make_folds,
-    one_standard_error_choice,
-    reference_matrix,
-    resample_to_model,
-)
-from mixsolve.workflows.calibrate import format_calibration, format_prediction
+from mixsolve.report.calibration_text import format_calibration, format_prediction
+from mixsolve.solve.pls_compare import compare_verdict
+from mixsolve.solve.pls_cv import make_folds, one_standard_error_choice
+from mixsolve.solve.pls_predict import resample_to_model
+from mixsolve.solve.pls_reference import reference_matrix
 
 WL = np.arange(420.0, 681.0, 4.0)
 #: Invented bands: centre (nm), width (nm), absorbance per mg/L at 1 cm.
@@ -221,6 +219,16 @@ def test_fixed_latent_and_pls1_mode(calibration) -> None:
     assert model.attrs["mode"] == "pls1"
     assert model["block"].values.tolist() == COMPONENTS
     assert model["n_latent"].values.tolist() == [4, 4, 4]
+
+
+@pytest.mark.parametrize(("cls", "pls", "verdict"), [
+    ([1.0, 1.6], [1.0, 1.0], "pls_better"),          # one component beyond 1.5
+    ([1.2, 0.9], [1.0, 1.0], "additive"),            # every ratio ≤ 1.2
+    ([1.3, 1.0], [1.0, 1.0], "mildly_non_additive"),
+    ([np.nan, 9.0], [1.0, 1.0], "no_verdict"),       # CLS failed on some fold
+])
+def test_compare_verdict_follows_the_ratio_rule(cls, pls, verdict) -> None:
+    assert compare_verdict(np.array(cls), np.array(pls)) == verdict
 
 
 def test_auto_mode_picks_the_lower_cv_error(calibration) -> None:

@@ -139,7 +139,8 @@ def _figures(library: xr.Dataset, at: np.ndarray, sigma: float, baseline: Baseli
     with np.errstate(divide="ignore", invalid="ignore"):
         sel = np.where(col_norm > 0, sen / col_norm, 0.0)
         inv_sen = np.where(sen > 0, 1.0 / sen, np.inf)
-    deriv = library_derivative(library["absorptivity"].values, library[WAVELENGTH].values, at)
+    deriv = library_derivative(library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values,
+                               library[WAVELENGTH].values, at)
     if np.isnan(deriv).all():
         notes.append("the library has too few wavelengths to estimate spectral slopes: "
                      "shift sensitivity not available")

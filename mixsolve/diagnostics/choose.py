@@ -28,6 +28,7 @@ import numpy as np
 import xarray as xr
 
 from mixsolve.diagnostics.check import DEFAULT_SIGMA_A, _figures, candidate_wavelengths
+from mixsolve.diagnostics.merit import scaled_condition_number
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
@@ -56,19 +57,25 @@ class WavelengthChoice:
         """Plain JSON-safe summary."""
         from mixsolve.diagnostics.check import merit_to_dict
 
+        def num(v: float | None) -> float | None:
+            return None if v is None or not np.isfinite(v) else float(v)
+
         return {
             "wavelengths_nm": self.wavelengths_nm,
-            "criterion": self.criterion,
-            "criterion_equal_time": self.criterion_equal_time,
+            "criterion": num(self.criterion),
+            "criterion_equal_time": num(self.criterion_equal_time),
             "contiguous": self.contiguous,
             "chosen": merit_to_dict(self.chosen),
             "full_window": merit_to_dict(self.full),
             "user_set": None if self.user is None else merit_to_dict(self.user),
-            "user_criterion": self.user_criterion,
+            "user_criterion": num(self.user_criterion),
         }
 
 
 def _variances(design: np.ndarray, n: int, ridge: float = 0.0) -> np.ndarray:
+    if not ridge and design.shape[0] < design.shape[1]:
+        # fewer wavelengths than unknowns: the variance is unbounded, whatever inv returns
+        return np.full(n, np.inf)
     gram = design.T @ design
     if ridge:
         gram = gram + ridge * np.trace(gram) / gram.shape[0] * np.eye(gram.shape[0])
@@ -126,7 +133,8 @@ def choose_wavelengths(
     k = lib_c["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
     full_design = design_matrix(k, candidates, baseline)
     full_var = _variances(full_design, n)
-    if not np.all(np.isfinite(full_var)) or np.any(full_var <= 0):
+    if not np.all(np.isfinite(full_var)) or np.any(full_var <= 0) \
+            or not np.isfinite(scaled_condition_number(full_design)):
         raise InputError("the full window cannot separate the components (singular); no "
                          "wavelength subset can")
 

@@ -1,16 +1,23 @@
-"""Attach the per-spectrum trust checks to an unmixing result (called by ``unmix``).
+"""Per-spectrum trust checks of an unmixing result (computed and attached by ``unmix``).
 
-Adds range, residual and wavelength-shift figures (definitions in
-:mod:`mixsolve.diagnostics.sample_checks` and :mod:`mixsolve.diagnostics.shift`) and sets
-the status bits of :mod:`mixsolve.flags`. Works lazily on dask-backed results.
+:func:`spectrum_checks` computes range, residual-structure and lack-of-fit figures on plain
+arrays (definitions in :mod:`mixsolve.diagnostics.sample_checks`); ``unmix`` calls it on
+every block of spectra inside the same ``xarray.apply_ufunc`` as the fit, so numpy- and
+dask-backed spectra alike are read once. :func:`add_trust_checks` then attaches those
+figures, sets the status bits of :mod:`mixsolve.flags` and adds the wavelength-shift bias;
+it uses only xarray operations, so it stays lazy on dask-backed results.
 """
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 import numpy as np
 import xarray as xr
+from scipy.special import ndtr
 
 from mixsolve.diagnostics.sample_checks import (
+    MIN_POINTS_RUNS,
     absorbance_extent,
     lack_of_fit,
     runs_test,
@@ -31,43 +38,121 @@ SHIFT_FLAG_FRACTION = 0.02
 #: Wavelength accuracy assumed for that flag (nm): a typical benchtop instrument, ±0.5 nm
 #: (from memory; plate readers are often ±1-2 nm: set it for your instrument).
 DEFAULT_WAVELENGTH_TOLERANCE_NM = 0.5
+#: Names of the figures :func:`spectrum_checks` returns, in order.
+CHECK_NAMES = ("absorbance_max", "absorbance_min", "runs_z", "runs_p", "residual_lag1",
+               "lack_of_fit_ratio", "lack_of_fit_p")
 
 
-def add_trust_checks(result: xr.Dataset, used: xr.DataArray, library: xr.Dataset,
-                     design: np.ndarray, absorbance_range: tuple[float, float],
+def spectrum_checks(used: np.ndarray, residual: np.ndarray, fitted: np.ndarray,
+                    dof: np.ndarray, noise: NoiseModel | None,
+                    sum_squares: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+    """Trust figures per spectrum, wavelength on the last axis (NaN = missing reading).
+
+    Parameters
+    ----------
+    used : array, shape (..., n_wavelengths)
+        Measured absorbance (AU) at the used wavelengths.
+    residual, fitted : arrays, shape (..., n_wavelengths)
+        Residual and fitted absorbance (AU).
+    dof : array of int, shape (...)
+        Residual degrees of freedom.
+    noise : NoiseModel, optional
+        Without one, the lack-of-fit figures are NaN.
+    sum_squares : array, shape (...), optional
+        Σ r² over each residual (NaN where a reading is missing), if already computed.
+
+    Returns
+    -------
+    tuple of arrays, shape (...)
+        In the order of ``CHECK_NAMES``: A_max and A_min (AU), runs-test z and one-sided p,
+        lag-1 autocorrelation of the residual, lack-of-fit ratio √(χ²/dof) and its p-value.
+    """
+    a_max, a_min = _extent(used)
+    z, p_runs, lag1 = residual_runs(residual, sum_squares)
+    if noise is not None:
+        ratio, p_fit = lack_of_fit(residual, fitted, dof, noise)
+    else:
+        ratio = p_fit = np.full(a_max.shape, np.nan)
+    return a_max, a_min, z, p_runs, lag1, ratio, p_fit
+
+
+def _extent(used: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`~mixsolve.diagnostics.sample_checks.absorbance_extent` without temporaries.
+
+    Plain max/min propagate NaN; only spectra with a missing reading are redone.
+    """
+    a_max, a_min = used.max(axis=-1), used.min(axis=-1)
+    missing = np.isnan(a_max)
+    if missing.any():
+        a_max[missing], a_min[missing] = absorbance_extent(used[missing])
+    return a_max, a_min
+
+
+def residual_runs(residual: np.ndarray, sum_squares: np.ndarray | None = None
+                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The runs test of :func:`mixsolve.diagnostics.sample_checks.runs_test`, vectorised.
+
+    Same definitions and results; spectra whose residual holds a NaN or an exact zero are
+    passed to ``runs_test`` itself, which drops those points first. ``sum_squares``: Σ r²
+    per spectrum if already known (saves a pass over the residual).
+    """
+    lead = residual.shape[:-1]
+    flat = residual.reshape(-1, residual.shape[-1])
+    n_spec, n = flat.shape
+    z = np.full(n_spec, np.nan)
+    lag1 = np.full(n_spec, np.nan)
+    with np.errstate(invalid="ignore"):
+        ss = np.einsum("ij,ij->i", flat, flat) if sum_squares is None \
+            else np.asarray(sum_squares, dtype=float).reshape(-1)
+        lag = np.einsum("ij,ij->i", flat[:, :-1], flat[:, 1:])
+        pos = flat > 0
+    clean = np.isfinite(ss) & (np.count_nonzero(flat, axis=1) == n)
+    n_pos = np.count_nonzero(pos, axis=1)
+    n_neg = n - n_pos
+    runs = 1 + np.count_nonzero(pos[:, 1:] != pos[:, :-1], axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mu = 2.0 * n_pos * n_neg / n + 1.0
+        var = (mu - 1.0) * (mu - 2.0) / (n - 1.0)
+        ok = clean & (n >= MIN_POINTS_RUNS) & (n_pos > 0) & (n_neg > 0) & (var > 0)
+        z[ok] = (runs[ok] - mu[ok]) / np.sqrt(var[ok])
+        fine = clean & (n >= 2) & (ss > 0)
+        lag1[fine] = lag[fine] / ss[fine]
+    p = ndtr(z)  # the standard normal CDF, Φ(z), as a plain ufunc
+    other = np.flatnonzero(~clean)
+    if other.size:
+        z[other], p[other], lag1[other] = runs_test(flat[other])
+    return z.reshape(lead), p.reshape(lead), lag1.reshape(lead)
+
+
+def add_trust_checks(result: xr.Dataset, checks: Mapping[str, xr.DataArray],
+                     library: xr.Dataset, design: np.ndarray,
+                     absorbance_range: tuple[float, float],
                      noise: NoiseModel | None) -> xr.Dataset:
-    """Return ``result`` with range, residual and shift figures and updated ``status``."""
+    """Return ``result`` with the figures of ``checks``, updated ``status`` and shift bias.
+
+    ``checks`` maps each name of ``CHECK_NAMES`` to its per-spectrum DataArray (output of
+    :func:`spectrum_checks` under ``apply_ufunc``). Lazy for dask-backed inputs.
+    """
     low, high = absorbance_range
-    core = [[WAVELENGTH]]
-    a_max, a_min = xr.apply_ufunc(absorbance_extent, used, input_core_dims=core,
-                                  output_core_dims=[[], []], dask="parallelized",
-                                  output_dtypes=[float, float])
+    a_max = checks["absorbance_max"]
     status = result["status"]
     status = status | xr.where(a_max > high, ABOVE_RANGE, 0) \
         | xr.where(a_max < low, BELOW_RANGE, 0)
-    z, p_runs, lag1 = xr.apply_ufunc(runs_test, result["residual"], input_core_dims=core,
-                                     output_core_dims=[[], [], []], dask="parallelized",
-                                     output_dtypes=[float, float, float])
-    status = status | xr.where(p_runs < FLAG_P_VALUE, STRUCTURED, 0)
+    status = status | xr.where(checks["runs_p"] < FLAG_P_VALUE, STRUCTURED, 0)
+    if noise is not None:
+        status = status | xr.where(checks["lack_of_fit_p"] < FLAG_P_VALUE, LACK_OF_FIT, 0)
     out = result.assign(
         absorbance_max=a_max.assign_attrs(units="AU"),
-        absorbance_min=a_min.assign_attrs(units="AU"),
+        absorbance_min=checks["absorbance_min"].assign_attrs(units="AU"),
         suggested_dilution=(a_max / target_absorbance(low, high)).assign_attrs(
             units="1", meaning="dilution factor bringing the peak to sqrt(low*high) AU"),
-        runs_z=z, runs_p=p_runs, residual_lag1=lag1,
+        runs_z=checks["runs_z"], runs_p=checks["runs_p"],
+        residual_lag1=checks["residual_lag1"],
+        lack_of_fit_ratio=checks["lack_of_fit_ratio"], lack_of_fit_p=checks["lack_of_fit_p"],
     )
-    if noise is not None:
-        ratio, p_fit = xr.apply_ufunc(
-            lack_of_fit, result["residual"], result["fitted"], result["dof"],
-            kwargs={"noise": noise}, input_core_dims=[core[0], core[0], []],
-            output_core_dims=[[], []], dask="parallelized", output_dtypes=[float, float])
-        status = status | xr.where(p_fit < FLAG_P_VALUE, LACK_OF_FIT, 0)
-        out = out.assign(lack_of_fit_ratio=ratio, lack_of_fit_p=p_fit)
-    else:
-        nan = xr.full_like(a_max, np.nan)
-        out = out.assign(lack_of_fit_ratio=nan, lack_of_fit_p=nan)
     out["status"] = status.astype(np.int64)
-    out["shift_bias_per_nm"] = _shift_bias(out, library, design, used[WAVELENGTH].values)
+    out["shift_bias_per_nm"] = _shift_bias(out, library, design,
+                                           np.asarray(result[WAVELENGTH].values))
     return out
 
 

@@ -21,12 +21,7 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
         The target's folder does not exist or is not writable, the target is a folder,
         or writing fails (disk full, permissions); the temporary file is removed.
     """
-    target = Path(path)
-    folder = target.parent if str(target.parent) else Path(".")
-    if target.is_dir():
-        raise OutputError(f"{target}: is a folder; give a file name to write")
-    if not folder.is_dir():
-        raise OutputError(f"{target}: folder {folder} does not exist")
+    target, folder = _target(path)
     try:
         handle, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part",
                                             dir=folder)
@@ -50,6 +45,17 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
         raise
 
 
+def _target(path: str | os.PathLike[str]) -> tuple[Path, Path]:
+    """The output path and its folder, refusing a folder target or a missing folder."""
+    target = Path(path)
+    folder = target.parent if str(target.parent) else Path(".")
+    if target.is_dir():
+        raise OutputError(f"{target}: is a folder; give a file name to write")
+    if not folder.is_dir():
+        raise OutputError(f"{target}: folder {folder} does not exist")
+    return target, folder
+
+
 def _new_file_mode() -> int:
     """Mode of a newly created file under the current umask (0666 & ~umask)."""
     mask = os.umask(0)
@@ -67,3 +73,21 @@ def ensure_folder(path: str | os.PathLike[str]) -> Path:
     except OSError as exc:
         raise OutputError(f"{folder}: cannot create the folder ({exc.strerror})") from None
     return folder
+
+
+def check_writable(*paths: str | os.PathLike[str] | None) -> None:
+    """Refuse, before anything is written, outputs whose folder is missing or read-only.
+
+    Jobs that write several files call this first, so that a bad second path cannot leave
+    the first file behind. ``None`` entries (outputs not asked for) are skipped.
+
+    Raises
+    ------
+    OutputError
+    """
+    for path in paths:
+        if path is None:
+            continue
+        target, folder = _target(path)
+        if not os.access(folder, os.W_OK):
+            raise OutputError(f"{target}: cannot write in {folder} (permission denied)")

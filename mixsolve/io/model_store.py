@@ -1,6 +1,6 @@
 """Store PLS models as netCDF-4 files (h5netcdf engine), written atomically.
 
-A model file holds the Dataset of :func:`mixsolve.solve.pls.calibrate` as it is: arrays and
+A model file holds the Dataset of :func:`mixsolve.calibrate` as it is: arrays and
 attributes (JSON text for nested settings), ``mixsolve_kind = "mixsolve-pls-model"``. No
 pickles: any netCDF reader can open it.
 """
@@ -14,7 +14,7 @@ import xarray as xr
 
 from mixsolve.errors import FileFormatError
 from mixsolve.io.atomic import atomic_path
-from mixsolve.solve.pls import MODEL_KIND, check_model
+from mixsolve.solve.pls_model import MODEL_KIND, check_model
 
 ENGINE = "h5netcdf"
 

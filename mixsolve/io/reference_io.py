@@ -11,7 +11,7 @@ import os
 import pandas as pd
 
 from mixsolve.errors import FileFormatError
-from mixsolve.io.tables import parse_number, read_table
+from mixsolve.io.tables import header_names, parse_number, read_table
 
 REQUIRED = ("sample", "component", "concentration", "unit")
 
@@ -32,12 +32,7 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
         the message names the file, line and column.
     """
     table = read_table(path, sheet=sheet)
-    names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
-    missing = [c for c in REQUIRED if c not in names]
-    if missing:
-        raise FileFormatError(
-            f"{table.name}, line {table.header_line}: missing column(s) {', '.join(missing)}; "
-            f"a reference table has columns {', '.join(REQUIRED)}")
+    names = header_names(table, REQUIRED, "a reference table")
     cols = {c: names.index(c) for c in REQUIRED}
     records = []
     for i, row in enumerate(table.rows):

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 
 from mixsolve.errors import FileFormatError
-from mixsolve.io.tables import parse_number, read_table
+from mixsolve.io.tables import header_names, parse_number, read_table
 
 REQUIRED = ("sample", "component", "concentration", "unit")
 OPTIONAL = ("pathlength_cm", "molar_mass_g_per_mol")
@@ -29,12 +29,8 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
         Missing columns, text where a number belongs; the message names line and column.
     """
     table = read_table(path, sheet=sheet)
-    names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
-    missing = [c for c in REQUIRED if c not in names]
-    if missing:
-        raise FileFormatError(
-            f"{table.name}, line {table.header_line}: missing column(s) {', '.join(missing)}; "
-            f"a standards sheet has columns {', '.join(REQUIRED)} (optional: pathlength_cm)")
+    names = header_names(table, REQUIRED, "a standards sheet",
+                         optional_note="optional: pathlength_cm")
     records = []
     for i, row in enumerate(table.rows):
         cells = list(row) + [""] * (len(names) - len(row))

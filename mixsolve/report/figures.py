@@ -12,7 +12,7 @@ from matplotlib.figure import Figure
 
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
-from mixsolve.spectra import WAVELENGTH
+from mixsolve.spectra import SAMPLE, WAVELENGTH
 
 
 def library_figure(library: xr.Dataset, used_nm: np.ndarray | None = None) -> Figure:
@@ -79,4 +79,49 @@ def precision_figure(noise: NoiseModel, absorbance_range: tuple[float, float]) -
     ax.set_ylabel("σc/c (%)")
     ax.set_title(f"Predicted relative error, noise model '{noise.name}'", fontsize="small")
     ax.legend(fontsize="x-small")
+    return fig
+
+
+def calibration_figure(model: xr.Dataset) -> Figure:
+    """Cross-validation curve and predicted-against-reference panels of a PLS ``model``
+    (a Dataset from :func:`mixsolve.calibrate` or :func:`mixsolve.read_model`).
+
+    Returns
+    -------
+    Figure
+        Top: RMSECV divided by the standard deviation of each component's reference
+        values (dimensionless, log scale) against the number of latent variables, the
+        chosen number circled. Below, one panel per component: the cross-validated
+        prediction against the reference value (model unit), with the 1:1 line.
+    """
+    comps = [str(c) for c in model[COMPONENT].values]
+    mode = model.attrs["mode"]
+    unit = model.attrs["unit"]
+    n_c = len(comps)
+    fig = Figure(figsize=(4.0 * max(2, n_c), 7.5), layout="constrained")
+    grid = fig.add_gridspec(2, max(2, n_c))
+    ax = fig.add_subplot(grid[0, :])
+    lv = model["cv_latent"].values
+    sd = model["reference"].std(SAMPLE, ddof=1).values
+    choice = model["cv_choice"].sel(cv_mode=mode).values
+    for k, c in enumerate(comps):
+        curve = model["cv_rmsecv"].sel(cv_mode=mode).values[k] / sd[k]
+        (line,) = ax.plot(lv, curve, marker=".", label=c)
+        ax.plot([choice[k]], [curve[choice[k] - 1]], "o", mfc="none", ms=10,
+                color=line.get_color())
+    ax.set_xlabel("latent variables")
+    ax.set_ylabel("RMSECV / sd of reference")
+    ax.set_yscale("log")
+    ax.set_title(f"Cross-validation ({mode}); circles: chosen by the one-standard-error rule")
+    ax.legend()
+    for k, c in enumerate(comps):
+        sub = fig.add_subplot(grid[1, k])
+        ref = model["reference"].values[:, k]
+        sub.plot(ref, model["cv_predicted"].values[:, k], ".", label="cross-validated")
+        lims = [float(ref.min()), float(ref.max())]
+        sub.plot(lims, lims, "k-", lw=0.8, label="1:1")
+        sub.set_xlabel(f"reference ({unit})")
+        sub.set_ylabel(f"predicted ({unit})")
+        sub.set_title(f"{c}: RMSECV {float(model['rmsecv'].values[k]):.3g}")
+        sub.legend(fontsize="small")
     return fig

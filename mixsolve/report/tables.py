@@ -21,7 +21,8 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
     Parameters
     ----------
     result : Dataset
-        Output of :func:`mixsolve.unmix` with a ``sample`` dimension.
+        Output of :func:`mixsolve.unmix`: spectra along ``sample``, or along several
+        dimensions (``y, x`` of an image), or none (one spectrum); numpy- or dask-backed.
 
     Returns
     -------
@@ -30,11 +31,21 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
         rms_residual_au, dof, flags``. ``flags`` holds the sample's ``;``-joined flag codes
         (empty when nothing is doubtful). Results of :func:`mixsolve.predict` (PLS) add
         ``t2, t2_limit_95, t2_limit_99, q_residual, q_limit_95, q_limit_99``; there
-        ``rms_residual`` and ``dof`` may differ per component.
+        ``rms_residual`` and ``dof`` may differ per component. Over several dimensions,
+        ``sample`` joins the labels with ``/`` (``3/17``) and one column per dimension
+        (``y``, ``x``) follows the others; one spectrum alone is labelled ``spectrum``.
     """
     conc = result["concentration"].transpose(..., COMPONENT)
     sample_dims = [d for d in conc.dims if d != COMPONENT]
-    stacked = result.stack(_row=sample_dims) if len(sample_dims) != 1 else result
+    names = [n for n in ("concentration", "std_uncertainty", "rms_residual", "dof", "flags",
+                         *OPTIONAL_COLUMNS) if n in result]
+    part = result[names]
+    if any(part[n].chunks is not None for n in names):
+        part = part.compute()  # one pass over a dask-backed result, not one per column
+    if not sample_dims:
+        part = part.expand_dims(sample=["spectrum"])
+        sample_dims = ["sample"]
+    stacked = part.stack(_row=sample_dims) if len(sample_dims) != 1 else part
     row_dim = "_row" if len(sample_dims) != 1 else sample_dims[0]
     conc = stacked["concentration"].transpose(row_dim, COMPONENT).values
     u = stacked["std_uncertainty"].transpose(row_dim, COMPONENT).values
@@ -55,6 +66,10 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
         return full.transpose(row_dim, COMPONENT).values.ravel()
 
     extra = {name: per_row(name) for name in OPTIONAL_COLUMNS if name in stacked}
+    if row_dim == "_row":  # one column per dimension of the spectra (y, x of an image)
+        index = stacked.indexes["_row"]
+        extra.update({dim: np.repeat(np.asarray(index.get_level_values(dim)), n_c)
+                      for dim in sample_dims})
     return pd.DataFrame({
         "sample": np.repeat(labels, n_c),
         "component": np.tile(comps, len(labels)),

@@ -13,14 +13,16 @@ import xarray as xr
 
 from mixsolve._version import __version__
 from mixsolve.diagnostics.trust import (
+    CHECK_NAMES,
     DEFAULT_WAVELENGTH_TOLERANCE_NM,
     SHIFT_FLAG_FRACTION,
     add_trust_checks,
+    spectrum_checks,
 )
 from mixsolve.errors import ExtrapolationWarning, InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
-from mixsolve.solve.cls import METHODS, STATUS_CODES, Method, solve_cls
+from mixsolve.solve.cls import METHODS, STATUS_CODES, Fit, Method, fit_spectra
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
@@ -34,6 +36,9 @@ from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_wind
 from mixsolve.units import conversion_factor
 
 TERM = "term"
+#: Variable-length str dtype (object dtype marked as holding str): lazy flags are written
+#: to netCDF and Zarr as strings without being computed first to find their type.
+VLEN_STR = np.dtype(object, metadata={"element_type": str})
 Weights = Literal["none", "noise"]
 WEIGHTS: tuple[str, ...] = ("none", "noise")
 
@@ -67,8 +72,11 @@ def unmix(
     ----------
     spectra : DataArray with dims (..., "wavelength")
         Blank-corrected absorbance (AU); wavelength in nm. NaN marks a missing reading:
-        that spectrum is fitted on the wavelengths it has and flagged. Numpy- or
-        dask-backed (dask stays lazy; chunk along the other dimensions only).
+        that spectrum is fitted on the wavelengths it has and flagged. Any other
+        dimensions (``sample``; ``y, x`` of an image cube; none for one spectrum); the
+        result has the same ones. Numpy- or dask-backed: with dask the whole result,
+        flags included, stays lazy and is computed chunk by chunk (chunk along the other
+        dimensions only; docs/scale.md).
     library : Dataset
         A mixsolve library (:func:`import_absorptivities`, :func:`build_library`).
         It is interpolated onto the measured wavelengths, never extrapolated.
@@ -122,8 +130,8 @@ def unmix(
         ``lack_of_fit_p`` (with a noise model), ``runs_z``/``runs_p``/``residual_lag1``
         (residual structure), ``shift_bias_per_nm`` (..., component; result unit per +1 nm
         of wavelength error), and with ``fit_shift`` ``wavelength_shift_nm`` and
-        ``u_wavelength_shift_nm``; and, for numpy input, ``flags``: the sample's
-        ``;``-joined flag codes (docs/flags.md). ``attrs`` record method, baseline, wavelengths,
+        ``u_wavelength_shift_nm``; and ``flags``: each spectrum's ``;``-joined flag codes
+        (docs/flags.md; :func:`flags_of`). ``attrs`` record method, baseline, wavelengths,
         pathlength, unit, the uncertainty basis and the library provenance.
 
     Raises
@@ -143,11 +151,13 @@ def unmix(
     -----
     Beer–Lambert for non-interacting absorbers (ASTM E169): A(λ) = b Σₖ εₖ(λ) cₖ
     + baseline(λ) + e(λ). With D the design matrix [ε at 1 cm | baseline columns],
-    the fit solves min ‖A − D x‖² (``numpy.linalg.lstsq`` on column-scaled D for
-    ``ols``; ``scipy.optimize.nnls`` after projecting out the free baseline columns for
-    ``nnls``) and c = x / b. The standard uncertainty is Type A from the fit only:
-    u(cₖ) = s √[(DᵀD)⁻¹]ₖₖ / b with s² = RSS/(n − p). For NNLS it is the linearised value
-    of the unconstrained model at the solution, ignoring the constraint.
+    the fit solves min ‖A − D x‖² (the SVD pseudo-inverse of column-scaled D, as
+    ``numpy.linalg.lstsq``, for ``ols``; for ``nnls`` fast combinatorial active-set NNLS
+    over all spectra at once with the baseline columns free, checked against
+    ``scipy.optimize.nnls``: :mod:`mixsolve.solve.nnls`) and c = x / b. The standard
+    uncertainty is Type A from the fit only: u(cₖ) = s √[(DᵀD)⁻¹]ₖₖ / b with
+    s² = RSS/(n − p). For NNLS it is the linearised value of the unconstrained model at
+    the solution, ignoring the constraint.
 
     Examples
     --------
@@ -187,7 +197,7 @@ def unmix(
             f"{left_out.size} measured wavelength(s) outside the library "
             f"({lib_wl[0]:g}-{lib_wl[-1]:g} nm) were left out of the fit",
             ExtrapolationWarning, stacklevel=2)
-    used = spectra.isel({WAVELENGTH: index})
+    used = spectra.isel({WAVELENGTH: _as_slice(index)})
     used_wl = measured[index]
     lib_used, _ = resample_library(library, used_wl)
     components = [str(c) for c in library[COMPONENT].values]
@@ -197,29 +207,30 @@ def unmix(
     check_solvable(design, terms)
 
     n_comp = len(components)
-    kernel_kwargs = {"design": design, "n_components": n_comp, "method": method}
     if fit_shift:
-        kernel = _shift_kernel(library, used_wl, baseline, method, max_shift_nm)
-        kernel_kwargs = {}
-        n_out = 7
+        solver: Any = _shift_solver(library, used_wl, baseline, method, max_shift_nm)
     elif weights == "noise":
-        kernel = functools.partial(_weighted_kernel, noise=model)
-        n_out = 5
-    else:
-        kernel = solve_cls
-        n_out = 5
+        solver = functools.partial(_weighted_fit, design=design, n_components=n_comp,
+                                   method=method, noise=model)
+    else:  # the fast path: trust figures computed block by block inside the fit
+        solver = functools.partial(fit_spectra, design=design, n_components=n_comp,
+                                   method=method)
+    n_out = len(_OUTPUT_DIMS) + (2 if fit_shift else 0)
     outputs = xr.apply_ufunc(
-        kernel, used,
-        kwargs=kernel_kwargs if not fit_shift else {},
+        _block_kernel, used,
+        kwargs={"solver": solver, "noise": model, "n_out": n_out},
         input_core_dims=[[WAVELENGTH]],
-        output_core_dims=[[TERM], [TERM], [WAVELENGTH], [], [], [], []][:n_out],
+        output_core_dims=[list(d) for d in _OUTPUT_DIMS] + [[]] * (n_out - len(_OUTPUT_DIMS)),
         dask="parallelized",
-        output_dtypes=[float, float, float, np.int64, np.int64, float, float][:n_out],
+        output_dtypes=[np.int64 if name in ("dof", "status") else float
+                       for name in _OUTPUT_NAMES] + [float] * (n_out - len(_OUTPUT_DIMS)),
         dask_gufunc_kwargs={"output_sizes": {TERM: len(terms)}},
     )
-    coef, std_error, fitted, dof, status = outputs[:5]
-    coef = coef.assign_coords({TERM: terms})
-    std_error = std_error.assign_coords({TERM: terms})
+    named = dict(zip(_OUTPUT_NAMES, outputs, strict=False))
+    coef = named["coef"].assign_coords({TERM: terms})
+    std_error = named["std_error"].assign_coords({TERM: terms})
+    fitted = named["fitted"].assign_coords({WAVELENGTH: used_wl})
+    residual = named["residual"].assign_coords({WAVELENGTH: used_wl})
 
     conc_unit = library.attrs["concentration_unit"]
     factor: Any = 1.0
@@ -230,8 +241,6 @@ def unmix(
                           coords={COMPONENT: components})
     conc = (coef.isel({TERM: slice(0, n_comp)}).rename({TERM: COMPONENT}) / b) * factor
     u_conc = (std_error.isel({TERM: slice(0, n_comp)}).rename({TERM: COMPONENT}) / b) * factor
-    fitted = fitted.assign_coords({WAVELENGTH: used_wl})
-    residual = used - fitted
     result = xr.Dataset(
         {
             "concentration": conc.assign_attrs(units=conc_unit),
@@ -240,10 +249,9 @@ def unmix(
                 units="AU (offset), AU/nm (slope)"),
             "fitted": fitted.assign_attrs(units="AU"),
             "residual": residual.assign_attrs(units="AU"),
-            "rms_residual": np.sqrt((residual**2).mean(WAVELENGTH, skipna=True)).assign_attrs(
-                units="AU"),
-            "dof": dof,
-            "status": status,
+            "rms_residual": named["rms"].assign_attrs(units="AU"),
+            "dof": named["dof"],
+            "status": named["status"],
             "at_zero": (conc == 0) & (method == "nnls"),
             "pathlength_cm": b,
             "unit_factor": factor.assign_attrs(
@@ -265,9 +273,10 @@ def unmix(
     )
     result = result.rename({TERM: "baseline_term"})
     if fit_shift:
-        result["wavelength_shift_nm"] = outputs[5].assign_attrs(units="nm")
-        result["u_wavelength_shift_nm"] = outputs[6].assign_attrs(units="nm")
-    result = add_trust_checks(result, used, library, design, (low, high), model)
+        result["wavelength_shift_nm"] = outputs[len(_OUTPUT_NAMES)].assign_attrs(units="nm")
+        result["u_wavelength_shift_nm"] = outputs[len(_OUTPUT_NAMES) + 1].assign_attrs(units="nm")
+    checks = {name: named[name] for name in CHECK_NAMES}
+    result = add_trust_checks(result, checks, library, design, (low, high), model)
     result.attrs.update({
         "weights": weights,
         "noise_model": json.dumps(model.to_dict()) if model is not None else "",
@@ -275,22 +284,48 @@ def unmix(
         "fit_shift": int(fit_shift),
         "wavelength_tolerance_nm": tolerance,
     })
-    if spectra.chunks is None:
-        result["flags"] = flag_strings(result)
+    result["flags"] = flags_of(result)
     return result
 
 
-def _weighted_kernel(spectra: np.ndarray, design: np.ndarray, n_components: int,
-                     method: Method, noise: NoiseModel) -> tuple[np.ndarray, ...]:
+#: Outputs of :func:`_block_kernel` before the optional shift pair, with their core dims.
+_OUTPUT_NAMES = ("coef", "std_error", "fitted", "residual", "dof", "status", "rms",
+                 *CHECK_NAMES)
+_OUTPUT_DIMS: tuple[tuple[str, ...], ...] = ((TERM,), (TERM,), (WAVELENGTH,), (WAVELENGTH,),
+                                             *[()] * (3 + len(CHECK_NAMES)))
+
+
+def _block_kernel(spectra: np.ndarray, solver: Any, noise: NoiseModel | None,
+                  n_out: int) -> tuple[np.ndarray, ...]:
+    """Fit one block of spectra and compute its trust figures in the same pass over it."""
+    if isinstance(solver, functools.partial) and solver.func is fit_spectra:
+        lead = spectra.shape[:-1]
+        checks = [np.empty(lead).reshape(-1) for _ in CHECK_NAMES]
+
+        def on_block(rows: slice, used: np.ndarray, fitted: np.ndarray,
+                     residual: np.ndarray, dof: np.ndarray, sum_squares: np.ndarray) -> None:
+            figures = spectrum_checks(used, residual, fitted, dof, noise, sum_squares)
+            for store, value in zip(checks, figures, strict=True):
+                store[rows] = value
+
+        fit = solver(spectra, on_block=on_block)
+        return (*fit, *(c.reshape(lead) for c in checks))
+    fit, extra = solver(spectra)
+    checks = spectrum_checks(spectra, fit.residual, fit.fitted, fit.dof, noise)
+    return (*fit, *checks, *extra)[:n_out]
+
+
+def _weighted_fit(spectra: np.ndarray, design: np.ndarray, n_components: int,
+                  method: Method, noise: NoiseModel) -> tuple[Fit, tuple[np.ndarray, ...]]:
     """Two-pass weighted fit: unweighted pass, then weights 1/σ_A(fitted)²."""
-    first = solve_cls(spectra, design, n_components, method)
-    fitted = np.where(np.isfinite(first[2]), first[2], spectra)
+    first = fit_spectra(spectra, design, n_components, method)
+    fitted = np.where(np.isfinite(first.fitted), first.fitted, spectra)
     weights = 1.0 / noise.sigma_absorbance(np.clip(fitted, 0.0, None)) ** 2
-    return solve_cls(spectra, design, n_components, method, weights=weights)
+    return fit_spectra(spectra, design, n_components, method, weights=weights), ()
 
 
-def _shift_kernel(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline, method: Method,
-                  max_shift_nm: float) -> Any:
+def _shift_solver(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline,
+                  method: Method, max_shift_nm: float) -> Any:
     grid = library[WAVELENGTH].values
     max_shift = float(max_shift_nm)
     if not np.isfinite(max_shift) or max_shift <= 0:
@@ -304,8 +339,23 @@ def _shift_kernel(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline, 
             f"{max_shift:g} nm reach outside the library ({grid[0]:g}-{grid[-1]:g} nm); "
             f"narrow the window to {grid[0] + max_shift:g}-{grid[-1] - max_shift:g} nm")
     eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
-    return functools.partial(fit_with_shift, eps=eps, grid_nm=grid, wavelengths_nm=used_wl,
+    return functools.partial(_shift_fit, eps=eps, grid_nm=grid, wavelengths_nm=used_wl,
                              baseline=baseline, method=method, max_shift_nm=max_shift)
+
+
+def _shift_fit(spectra: np.ndarray, **kwargs: Any) -> tuple[Fit, tuple[np.ndarray, ...]]:
+    coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(spectra, **kwargs)
+    residual = spectra - fitted
+    with np.errstate(invalid="ignore"):
+        rms = np.sqrt(np.nanmean(residual**2, axis=-1))
+    return Fit(coef, se, fitted, residual, dof, status, rms), (shift, u_shift)
+
+
+def _as_slice(index: np.ndarray) -> np.ndarray | slice:
+    """A run of consecutive positions as a slice, so that selecting it copies nothing."""
+    if index.size and np.array_equal(index, np.arange(index[0], index[0] + index.size)):
+        return slice(int(index[0]), int(index[0]) + index.size)
+    return index
 
 
 def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
@@ -336,33 +386,79 @@ def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
     return b.astype(float).assign_attrs(units="cm")
 
 
-def flag_strings(result: xr.Dataset) -> xr.DataArray:
-    """Join each spectrum's flag codes with ``;`` (empty string when nothing is doubtful).
+def flags_of(result: xr.Dataset) -> xr.DataArray:
+    """Each spectrum's flag codes joined with ``;`` (empty string when nothing is doubtful).
 
-    Codes: the status codes of ``mixsolve.flags.STATUS_CODES``; ``at_zero:<component>``
-    where NNLS held a component at zero; ``negative:<component>`` where OLS returned a
-    negative concentration; ``shift_sensitive:<component>`` where a wavelength error of
-    ``attrs["wavelength_tolerance_nm"]`` would move a quantifiable concentration (c > 3u) by
-    more than 2 %. See docs/flags.md.
+    Parameters
+    ----------
+    result : Dataset
+        An :func:`unmix` result (numpy- or dask-backed; ``unmix`` already stores this as
+        ``result["flags"]``, so call it after editing a result or to rebuild the flags).
+
+    Returns
+    -------
+    DataArray of str, dims of ``result["status"]``
+        Lazy (object dtype) when the result is dask-backed: it is computed with the rest
+        of the result, chunk by chunk.
+
+    Notes
+    -----
+    Codes, in this order: the status codes of ``mixsolve.flags.STATUS_CODES``;
+    ``at_zero:<component>`` where NNLS held a component at zero; ``negative:<component>``
+    where OLS returned a negative concentration; ``shift_sensitive:<component>`` where a
+    wavelength error of ``attrs["wavelength_tolerance_nm"]`` would move a quantifiable
+    concentration (c > 3u) by more than 2 %. See docs/flags.md.
     """
-    status = result["status"].values
-    at_zero = result["at_zero"].values
-    conc = result["concentration"].values
-    u = result["std_uncertainty"].values
-    bias = result["shift_bias_per_nm"].values if "shift_bias_per_nm" in result else None
     comps = [str(c) for c in result[COMPONENT].values]
-    out = np.empty(status.shape, dtype=object)
-    for idx in np.ndindex(status.shape):
-        codes = [code for bit, code in STATUS_CODES.items() if status[idx] & bit]
-        codes += [f"at_zero:{c}" for c, z in zip(comps, at_zero[idx], strict=True) if z]
-        if result.attrs["method"] == "ols":
-            codes += [f"negative:{c}" for c, v in zip(comps, conc[idx], strict=True) if v < 0]
-        if bias is not None:
-            quantified = conc[idx] > 3 * np.where(np.isfinite(u[idx]), u[idx], 0.0)
-            tol = result.attrs.get("wavelength_tolerance_nm", DEFAULT_WAVELENGTH_TOLERANCE_NM)
-            risky = np.abs(bias[idx]) * tol > SHIFT_FLAG_FRACTION * np.abs(conc[idx])
-            codes += [f"shift_sensitive:{c}" for c, q, r in zip(comps, quantified, risky,
-                                                                strict=True) if q and r]
-        out[idx] = ";".join(codes)
-    return xr.DataArray(out.astype(str), dims=result["status"].dims,
-                        coords=result["status"].coords)
+    conc = result["concentration"]
+    bias = result["shift_bias_per_nm"] if "shift_bias_per_nm" in result else xr.full_like(
+        conc, np.nan)
+    tol = result.attrs.get("wavelength_tolerance_nm", DEFAULT_WAVELENGTH_TOLERANCE_NM)
+    core = [[], [COMPONENT], [COMPONENT], [COMPONENT], [COMPONENT]]
+    flags = xr.apply_ufunc(
+        _flag_kernel, result["status"], result["at_zero"], conc, result["std_uncertainty"],
+        bias, kwargs={"components": comps, "ols": result.attrs["method"] == "ols",
+                      "shift": "shift_bias_per_nm" in result, "tolerance_nm": float(tol)},
+        input_core_dims=core, dask="parallelized", output_dtypes=[VLEN_STR])
+    if flags.chunks is None:
+        flags = flags.astype(str)
+    return flags.rename("flags")
+
+
+def _flag_kernel(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.ndarray,
+                 bias: np.ndarray, components: list[str], ols: bool, shift: bool,
+                 tolerance_nm: float) -> np.ndarray:
+    """Flag strings of one block: each distinct combination of codes is joined once."""
+    lead = status.shape
+    n = len(components)
+    status = status.reshape(-1)
+    codes = [code for code in STATUS_CODES.values()]
+    columns = [(status & bit) != 0 for bit in STATUS_CODES]
+    codes += [f"at_zero:{c}" for c in components]
+    columns += list(at_zero.reshape(-1, n).T)
+    conc, u, bias = (a.reshape(-1, n) for a in (conc, u, bias))
+    if ols:
+        codes += [f"negative:{c}" for c in components]
+        columns += list((conc < 0).T)
+    if shift:
+        with np.errstate(invalid="ignore"):
+            quantified = conc > 3 * np.where(np.isfinite(u), u, 0.0)
+            risky = np.abs(bias) * tolerance_nm > SHIFT_FLAG_FRACTION * np.abs(conc)
+        codes += [f"shift_sensitive:{c}" for c in components]
+        columns += list((quantified & risky).T)
+    bits = np.stack(columns, axis=1) if status.size else np.zeros((0, len(codes)), bool)
+    packed = np.packbits(bits, axis=1)
+    if packed.shape[1] <= 8:  # one integer per spectrum: a fast 1-d unique
+        keys = np.zeros((packed.shape[0], 8), dtype=np.uint8)
+        keys[:, :packed.shape[1]] = packed
+        _, first, index = np.unique(keys.view(np.uint64)[:, 0], return_index=True,
+                                    return_inverse=True)
+        unique = packed[first]
+    else:
+        unique, index = np.unique(packed, axis=0, return_inverse=True)
+    names = np.asarray(codes)
+    texts = [";".join(names[np.unpackbits(row)[:len(codes)].astype(bool)]) for row in unique]
+    out = np.empty(status.size, dtype=VLEN_STR)
+    if status.size:
+        out[:] = np.asarray(texts, dtype=object)[index.ravel()]
+    return out.reshape(lead)

@@ -1,32 +1,27 @@
 """PLS calibration from files to a model file (what `mixsolve calibrate` runs).
 
-Also the text summaries of a calibration and of a PLS prediction (pure functions returning
-``str``) and the calibration plots (CV curve, predicted against reference).
+Reads the spectra and the reference table, calls :func:`mixsolve.calibrate`, writes the
+model and, when asked, the calibration figure; the summary text comes from
+:mod:`mixsolve.report.calibration_text`, the figure from :mod:`mixsolve.report.figures`.
 """
 
 from __future__ import annotations
 
-import json
 import os
 from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
 import xarray as xr
 
-from mixsolve.io.atomic import atomic_path
+from mixsolve.io.atomic import check_writable
+from mixsolve.io.figure_io import write_png
 from mixsolve.io.model_store import write_model
 from mixsolve.io.reference_io import read_reference
 from mixsolve.io.spectra_io import read_spectra
-from mixsolve.library import COMPONENT
-from mixsolve.report.text import CAUTION, value_with_uncertainty
-from mixsolve.solve.pls import FLAG_CODES, calibrate
-from mixsolve.spectra import SAMPLE, WAVELENGTH
+from mixsolve.report.calibration_text import format_calibration
+from mixsolve.solve.pls_calibrate import calibrate
 
 PathLike = str | os.PathLike[str]
-#: CLS/PLS RMSECV ratios behind the comparison's verdict (our rule of thumb, docs/pls.md).
-CLEARLY_BETTER = 1.5
-AS_GOOD = 1.2
 
 
 @dataclass
@@ -48,257 +43,25 @@ def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None
     out : path-like, optional
         Model file (netCDF) to write.
     plot : path-like, optional
-        PNG file for the cross-validation curve and predicted-against-reference panels.
+        PNG file for the cross-validation curve and predicted-against-reference panels
+        (:func:`mixsolve.report.figures.calibration_figure`).
     **options
         Passed to :func:`mixsolve.calibrate` (window, latent, folds, split, mode, ...).
+
+    Returns
+    -------
+    CalibrationRun
+        The model and :func:`mixsolve.report.calibration_text.format_calibration` of it.
     """
+    check_writable(out, plot)
     model = calibrate(read_spectra(spectra), read_reference(reference), **options)
+    figure = None
+    if plot is not None:  # drawn before anything is written: a failure leaves no file
+        from mixsolve.report.figures import calibration_figure  # deferred: matplotlib
+
+        figure = calibration_figure(model)
     if out is not None:
         write_model(model, out)
-    if plot is not None:
-        write_plot(plot_calibration(model), plot)
+    if plot is not None and figure is not None:
+        write_png(figure, plot)
     return CalibrationRun(model, format_calibration(model))
-
-
-# ----------------------------------------------------------------------------- text
-
-
-def _g(value: float, width: int = 11) -> str:
-    return f"{'n/a':>{width}}" if not np.isfinite(value) else f"{value:>{width}.4g}"
-
-
-def _notes(notes: list[str]) -> list[str]:
-    if not notes:
-        return ["Notes: none."]
-    return ["Notes:"] + [f" {i}. {text}" for i, text in enumerate(notes, start=1)]
-
-
-def _who(names: list[str]) -> str:
-    return ", ".join(names[:6]) + (f" and {len(names) - 6} more" if len(names) > 6 else "")
-
-
-def describe_preprocessing(preprocessing: str) -> str:
-    """One line saying how spectra are preprocessed (from the model's JSON attribute)."""
-    prep = json.loads(preprocessing)
-    parts = ["mean-centred",
-             "each wavelength scaled to unit variance" if prep["scale"] == "autoscale"
-             else "no scaling"]
-    d = prep.get("derivative")
-    parts.insert(0, "no derivative" if not d else
-                 f"Savitzky–Golay 1st derivative ({d['window_points']} points, "
-                 f"order {d['polyorder']})")
-    return "; ".join(parts)
-
-
-def format_calibration(model: xr.Dataset) -> str:
-    """Summarise a PLS model: settings, RMSEC/RMSECV per component, CV curve, limits, notes.
-
-    Returns
-    -------
-    str
-        Header lines, a table per component (latent variables, RMSEC, RMSECV and the
-        reference range, in the model unit), the cross-validation curve (RMSECV against
-        latent variables, the chosen number marked ``*``), the T² and Q limits, the CLS
-        comparison when the model holds one, then numbered notes.
-    """
-    comps = [str(c) for c in model[COMPONENT].values]
-    unit = model.attrs["unit"]
-    cvs = json.loads(model.attrs["cross_validation"])
-    mode = model.attrs["mode"]
-    wl = model[WAVELENGTH].values
-    a = model["n_latent"].values[model["block_of_component"].values]
-    lvs = (f"{a[0]} latent variable(s)" if mode == "pls2"
-           else "one model per component")
-    how = "chosen by cross-validation" if cvs["latent_requested"] == "auto" else "as requested"
-    lines = [
-        f"PLS calibration: {mode}, {lvs} ({how})",
-        f"  mixtures       {model.sizes[SAMPLE]} samples, {wl.size} wavelengths "
-        f"{wl[0]:g}-{wl[-1]:g} nm, pathlength {model.attrs['pathlength_cm']:g} cm",
-        f"  preprocessing  {describe_preprocessing(model.attrs['preprocessing'])}",
-        f"  validation     {cvs['folds']} folds, "
-        + ("contiguous blocks" if cvs["split"] == "blocks" else f"random (seed {cvs['seed']})")
-        + ", one-standard-error rule",
-        f"  unit           {unit}",
-        "",
-    ]
-    cw = max(12, *(len(c) for c in comps)) + 2
-    lines.append(f"{'component':<{cw}}{'LVs':>4}{'RMSEC':>11}{'RMSECV':>11}"
-                 f"{'reference range':>22}")
-    for k, c in enumerate(comps):
-        lo, hi = float(model["reference_min"].values[k]), float(model["reference_max"].values[k])
-        lines.append(f"{c:<{cw}}{a[k]:>4d}{_g(model['rmsec'].values[k])}"
-                     f"{_g(model['rmsecv'].values[k])}{f'{lo:.4g}-{hi:.4g}':>22}")
-    lines += ["", f"Cross-validation curve: RMSECV ({unit}) by latent variables, "
-              f"{mode} (* chosen)"]
-    curve = model["cv_rmsecv"].sel(cv_mode=mode).transpose(COMPONENT, "cv_latent").values
-    choice = model["cv_choice"].sel(cv_mode=mode).values
-    lines.append(f"{'LVs':>5}" + "".join(f"{c:>{max(13, len(c) + 2)}}" for c in comps))
-    for j, n_lv in enumerate(model["cv_latent"].values):
-        cells = "".join(
-            f"{_g(curve[k, j], max(12, len(c) + 1))}{'*' if choice[k] == n_lv else ' '}"
-            for k, c in enumerate(comps))
-        lines.append(f"{n_lv:>5d}{cells}")
-    lines += ["", "Limits for new samples (Hotelling T²; Q residual, preprocessed units)"]
-    for b, name in enumerate(model["block"].values):
-        t2 = model["t2_limit"].values[b]
-        q = model["q_limit"].values[b]
-        label = "all components" if name == "all" else str(name)
-        lines.append(f"  {label:<{cw}} T² 95 % {t2[0]:.4g}, 99 % {t2[1]:.4g};  "
-                     f"Q 95 % {q[0]:.4g}, 99 % {q[1]:.4g}")
-    if "cls_rmsecv" in model:
-        lines += ["", *_comparison(model, comps, cw)]
-    lines += ["", *_notes(_calibration_notes(model, comps, cvs)), CAUTION]
-    return "\n".join(lines) + "\n"
-
-
-def _comparison(model: xr.Dataset, comps: list[str], cw: int) -> list[str]:
-    cls_cv, pls_cv = model["cls_rmsecv"].values, model["rmsecv"].values
-    ratio = cls_cv / pls_cv
-    lines = [f"CLS against PLS on the same folds: RMSECV ({model.attrs['unit']})",
-             f"{'component':<{cw}}{'CLS':>11}{'PLS':>11}{'CLS/PLS':>9}"]
-    for k, c in enumerate(comps):
-        lines.append(f"{c:<{cw}}{_g(cls_cv[k])}{_g(pls_cv[k])}{_g(ratio[k], 9)}")
-    better = [c for c, r in zip(comps, ratio, strict=True) if r > CLEARLY_BETTER]
-    if not np.all(np.isfinite(ratio)):
-        verdict = ("CLS could not be fitted on every fold (the training concentrations do not "
-                   "separate the components); no verdict.")
-    elif better:
-        verdict = (f"PLS predicts {', '.join(better)} clearly better than CLS (CLS/PLS > "
-                   f"{CLEARLY_BETTER:g}): the spectra are probably not additive (interaction, "
-                   "matrix effect or an unlisted absorber that varies); use the PLS model.")
-    elif np.all(ratio <= AS_GOOD):
-        verdict = (f"CLS does as well as PLS (CLS/PLS ≤ {AS_GOOD:g}): the mixtures behave "
-                   "additively; a library (CLS) is simpler and safer to extrapolate.")
-    else:
-        verdict = ("PLS does somewhat better than CLS: mild non-additivity or an unlisted "
-                   "absorber; prefer PLS inside the calibrated range.")
-    return [*lines, f"Verdict: {verdict}"]
-
-
-def _calibration_notes(model: xr.Dataset, comps: list[str], cvs: dict[str, Any]) -> list[str]:
-    notes = []
-    samples = [str(s) for s in model[SAMPLE].values]
-    for stat, limit, label in (("calibration_t2", "t2_limit", "Hotelling T²"),
-                               ("calibration_q", "q_limit", "Q residual")):
-        over = np.any(model[stat].values > model[limit].values[:, 1][None, :], axis=1)
-        if over.any():
-            names = [s for s, o in zip(samples, over, strict=True) if o]
-            notes.append(f"{_who(names)}: {label} above the 99 % limit within the calibration; "
-                         "check for a wrong reference value or an odd spectrum.")
-    mode = model.attrs["mode"]
-    choice = model["cv_choice"].sel(cv_mode=mode).values
-    top = int(model["cv_latent"].values[-1])
-    at_top = [c for c, a in zip(comps, choice, strict=True) if a == top]
-    if at_top and cvs["latent_requested"] == "auto":
-        notes.append(f"{', '.join(at_top)}: the chosen number of latent variables is the most "
-                     f"tried ({top}); the error may still fall with more (--max-latent), or the "
-                     "model needs more calibration mixtures.")
-    if model.attrs["mode_requested"] == "auto" and len(comps) > 1:
-        notes.append(f"{mode} cross-validated better than "
-                     f"{'pls1' if mode == 'pls2' else 'pls2'} (mean RMSECV²/variance of the "
-                     "reference over components).")
-    n, a_max = model.sizes[SAMPLE], int(model["n_latent"].max())
-    if n < 5 * a_max:
-        notes.append(f"{n} calibration mixtures for {a_max} latent variables: limits and RMSECV "
-                     "are rough; use more mixtures spanning the expected range.")
-    return notes
-
-
-def format_prediction(result: xr.Dataset) -> str:
-    """Summarise a PLS prediction: one row per sample, T² and Q against their limits, notes.
-
-    Returns
-    -------
-    str
-        Value ± standard uncertainty per component, the largest T²/T²₉₅ and Q/Q₉₅ over the
-        sample's model blocks (above 1: beyond the 95 % limit) and the flags, then notes.
-    """
-    comps = [str(c) for c in result[COMPONENT].values]
-    samples = [str(s) for s in result[SAMPLE].values]
-    used = json.loads(result.attrs["wavelengths_nm"])
-    lines = [
-        f"Concentrations by PLS prediction ({result.attrs['mode']} model, calibrated on "
-        f"{result.attrs['n_calibration']} mixtures)",
-        f"  wavelengths   {len(used)}, {min(used):g}-{max(used):g} nm (the model's grid)",
-        f"  preprocessing {describe_preprocessing(result.attrs['preprocessing'])}",
-        f"  unit          {result.attrs['unit']}, value ± standard uncertainty "
-        "(from RMSECV and leverage)",
-        "",
-    ]
-    name_w = max(8, *(len(s) for s in samples)) + 2
-    cell_w = max(24, *(len(c) + 2 for c in comps))
-    lines.append(f"{'sample':<{name_w}}" + "".join(f"{c:<{cell_w}}" for c in comps)
-                 + f"{'T²/95%':>8}{'Q/95%':>8}  flags")
-    conc = result["concentration"].transpose(SAMPLE, COMPONENT).values
-    u = result["std_uncertainty"].transpose(SAMPLE, COMPONENT).values
-    t2 = np.nanmax(result["t2"].values / result["t2_limit_95"].values, axis=1, initial=-np.inf)
-    q = np.nanmax(result["q_residual"].values / result["q_limit_95"].values, axis=1,
-                  initial=-np.inf)
-    flags = result["flags"].values
-    for i, s in enumerate(samples):
-        cells = "".join(f"{value_with_uncertainty(conc[i, k], u[i, k]):<{cell_w}}"
-                        for k in range(len(comps)))
-        lines.append(f"{s:<{name_w}}{cells}{_g(t2[i], 8)}{_g(q[i], 8)}  {flags[i]}")
-    by_code: dict[str, list[str]] = {}
-    for s, text in zip(samples, flags, strict=True):
-        for code in filter(None, str(text).split(";")):
-            by_code.setdefault(code, []).append(s)
-    notes = []
-    for code, who in by_code.items():
-        base, _, comp = code.partition(":")
-        meaning = FLAG_CODES.get(base, base) + (f" ({comp})" if comp else "")
-        notes.append(f"{_who(who)}: {meaning} [{code}].")
-    lines += ["", *_notes(notes), CAUTION]
-    return "\n".join(lines) + "\n"
-
-
-# ----------------------------------------------------------------------------- plots
-
-
-def plot_calibration(model: xr.Dataset) -> Any:
-    """Figure with the CV curve (RMSECV/sd of the reference against latent variables, chosen
-    number circled) and, per component, the cross-validated prediction against the reference.
-
-    Returns
-    -------
-    matplotlib.figure.Figure
-    """
-    from matplotlib.figure import Figure  # deferred: only plotting needs matplotlib
-
-    comps = [str(c) for c in model[COMPONENT].values]
-    mode = model.attrs["mode"]
-    unit = model.attrs["unit"]
-    n_c = len(comps)
-    fig = Figure(figsize=(4.0 * max(2, n_c), 7.5), layout="constrained")
-    grid = fig.add_gridspec(2, max(2, n_c))
-    ax = fig.add_subplot(grid[0, :])
-    lv = model["cv_latent"].values
-    sd = model["reference"].std(SAMPLE, ddof=1).values
-    choice = model["cv_choice"].sel(cv_mode=mode).values
-    for k, c in enumerate(comps):
-        curve = model["cv_rmsecv"].sel(cv_mode=mode).values[k] / sd[k]
-        (line,) = ax.plot(lv, curve, marker=".", label=c)
-        ax.plot([choice[k]], [curve[choice[k] - 1]], "o", mfc="none", ms=10,
-                color=line.get_color())
-    ax.set_xlabel("latent variables")
-    ax.set_ylabel("RMSECV / sd of reference")
-    ax.set_yscale("log")
-    ax.set_title(f"Cross-validation ({mode}); circles: chosen by the one-standard-error rule")
-    ax.legend()
-    for k, c in enumerate(comps):
-        sub = fig.add_subplot(grid[1, k])
-        ref = model["reference"].values[:, k]
-        sub.plot(ref, model["cv_predicted"].values[:, k], ".", label="cross-validated")
-        lims = [float(ref.min()), float(ref.max())]
-        sub.plot(lims, lims, "k-", lw=0.8, label="1:1")
-        sub.set_xlabel(f"reference ({unit})")
-        sub.set_ylabel(f"predicted ({unit})")
-        sub.set_title(f"{c}: RMSECV {float(model['rmsecv'].values[k]):.3g}")
-        sub.legend(fontsize="small")
-    return fig
-
-
-def write_plot(figure: Any, path: PathLike) -> None:
-    """Save a figure as PNG, atomically."""
-    with atomic_path(path) as tmp:
-        figure.savefig(tmp, format="png", dpi=110)

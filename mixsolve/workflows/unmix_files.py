@@ -6,22 +6,43 @@ and used in place of a library: the spectra are then predicted by the model.
 
 from __future__ import annotations
 
+import functools
+import json
 import os
-from collections.abc import Sequence
-from typing import Any
+import warnings
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any, TextIO
 
+import numpy as np
 import xarray as xr
 
 from mixsolve.errors import InputError
+from mixsolve.io.atomic import check_writable
+from mixsolve.io.cubes import NETCDF_ENGINE, chunk_plan, is_cube_path, read_cube, write_cube
 from mixsolve.io.library_store import read_library
 from mixsolve.io.model_store import file_kind, read_model
-from mixsolve.io.results_io import write_results, write_text
+from mixsolve.io.results_io import write_results, write_table, write_text
 from mixsolve.io.spectra_io import read_spectra
+from mixsolve.library import COMPONENT
 from mixsolve.report.text import format_results
-from mixsolve.solve.pls import MODEL_KIND, predict
+from mixsolve.scale import compute, dask_client
+from mixsolve.solve.pls_model import MODEL_KIND
+from mixsolve.solve.pls_predict import predict
 from mixsolve.solve.unmix import unmix
+from mixsolve.uncertainty import budget_table
+from mixsolve.workflows.measurement import (
+    MeasurementOptions,
+    attach_budget,
+    attached_budget,
+    file_budget,
+    measurement_options,
+    prepare_spectra,
+)
 
 PathLike = str | os.PathLike[str]
+#: Largest result printed as a full table by :func:`format_unmix` (more: a summary).
+TABLE_MOST_SPECTRA = 500
 
 
 def unmix_files(library: PathLike, spectra: PathLike, *,
@@ -29,7 +50,10 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
                 wavelengths: Sequence[float] | None = None, method: str = "nnls",
                 baseline: str = "none", pathlength_cm: float | None = None,
                 unit: str | None = None, out: PathLike | None = None,
-                report: PathLike | None = None, **options: Any) -> xr.Dataset:
+                report: PathLike | None = None,
+                measurement: MeasurementOptions | Mapping[str, Any] | None = None,
+                scheduler: str | None = None, workers: int | None = None,
+                progress: TextIO | None = None, **options: Any) -> xr.Dataset:
     """Read both files, run :func:`mixsolve.unmix`, write ``out`` (CSV) when given.
 
     ``report`` writes the HTML page of :func:`mixsolve.report.unmix_page.unmix_report`
@@ -37,12 +61,33 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
 
     ``options`` pass on to :func:`mixsolve.unmix` (weights, noise, absorbance_range, ...).
 
+    ``measurement`` (:class:`mixsolve.workflows.measurement.MeasurementOptions` or a mapping
+    of its fields): cell blank, cell ratio and wavelength offset, applied to the spectra
+    before fitting; with ``budget`` the uncertainty budget is built (before any file is
+    written), written as CSV and attached to the result (``budget_*`` variables).
+
     If ``library`` is a PLS model file, :func:`mixsolve.predict` runs instead; a window,
     a wavelength list or a baseline do not apply to a model (its wavelengths and
     preprocessing were fixed at calibration) and are refused; ``method`` and ``options``
     (least-squares settings) are ignored.
+
+    Cubes: ``spectra`` or ``out`` ending in ``.zarr`` or ``.nc``, or a ``scheduler`` or
+    ``workers`` given, run :func:`unmix_cube_files` instead (lazy, chunked, on dask).
     """
+    if is_cube_path(spectra) or (out is not None and is_cube_path(out)) \
+            or scheduler is not None or workers is not None:
+        return unmix_cube_files(
+            library, spectra, window=window, wavelengths=wavelengths, method=method,
+            baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, out=out,
+            report=report, measurement=measurement, scheduler=scheduler, workers=workers,
+            progress=progress, **options)
+    extra = measurement_options(measurement)
+    check_writable(out, report, extra.budget)  # before any work: a bad path costs nothing
+    budget_rows = None
     if file_kind(library) == MODEL_KIND:
+        if extra.budget is not None:
+            raise InputError("--budget: the uncertainty budget covers least-squares results, "
+                             "not a PLS model")
         model = read_model(library)
         for option, value, default in (("--window", window, None),
                                        ("--wavelengths", wavelengths, None),
@@ -54,14 +99,18 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
         if report is not None:
             raise InputError("--report: the HTML page covers least-squares results; for a PLS "
                              "model use the results CSV and the calibration figures")
-        result = predict(read_spectra(spectra), model, pathlength_cm=pathlength_cm, unit=unit)
+        prepared, _ = prepare_spectra(read_spectra(spectra), extra)
+        result = predict(prepared, model, pathlength_cm=pathlength_cm, unit=unit)
     else:
         lib = read_library(library)
-        measured = read_spectra(spectra)
+        measured, done = prepare_spectra(read_spectra(spectra), extra)
         result = unmix(measured, lib, window=window, wavelengths=wavelengths,
                        method=method,  # type: ignore[arg-type]
                        baseline=baseline,  # type: ignore[arg-type]
                        pathlength_cm=pathlength_cm, unit=unit, **options)
+        if extra.budget is not None:  # built before anything is written
+            result = attach_budget(result, file_budget(result, lib, extra, done))
+            budget_rows = budget_table(attached_budget(result))  # type: ignore[arg-type]
     page = None
     if report is not None:  # built before anything is written: a failure leaves no file
         from mixsolve.report.unmix_page import unmix_report
@@ -71,13 +120,140 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
         write_results(result, out)
     if page is not None:
         write_text(page, report)  # type: ignore[arg-type]
+    if budget_rows is not None:
+        write_table(budget_rows, extra.budget)  # type: ignore[arg-type]
     return result
 
 
 def format_unmix(result: xr.Dataset) -> str:
-    """Text summary of an unmix result: CLS (:func:`format_results`) or PLS prediction."""
+    """Text summary of an unmix result: CLS (:func:`format_results`) or PLS prediction.
+
+    A least-squares result over other dimensions than ``sample`` or of more than
+    ``TABLE_MOST_SPECTRA`` spectra gets the short summary of :func:`format_cube_summary`.
+    """
     if result.attrs.get("method") == "pls":
-        from mixsolve.workflows.calibrate import format_prediction
+        from mixsolve.report.calibration_text import format_prediction
 
         return format_prediction(result)
+    if "flags" in result and (result["flags"].dims != ("sample",)
+                              or result["flags"].size > TABLE_MOST_SPECTRA):
+        return format_cube_summary(result)
     return format_results(result)
+
+
+def unmix_cube_files(library: PathLike, spectra: PathLike, *,
+                     window: tuple[float, float] | None = None,
+                     wavelengths: Sequence[float] | None = None, method: str = "nnls",
+                     baseline: str = "none", pathlength_cm: float | None = None,
+                     unit: str | None = None, out: PathLike | None = None,
+                     report: PathLike | None = None,
+                     measurement: MeasurementOptions | Mapping[str, Any] | None = None,
+                     scheduler: str | None = None, workers: int | None = None,
+                     progress: TextIO | None = None, **options: Any) -> xr.Dataset:
+    """Unmix a spectra cube (or a table) on dask, chunk by chunk, into a cube or a CSV.
+
+    Parameters
+    ----------
+    library, spectra : path-like
+        A library file; spectra as a ``.zarr`` store or ``.nc`` file
+        (:func:`mixsolve.io.cubes.read_cube`) or a table (:func:`read_spectra`).
+    out : path-like, optional
+        ``.zarr`` or ``.nc``: the whole result Dataset, written as it is computed (memory
+        holds a few chunks); anything else: the tidy results CSV.
+    scheduler, workers
+        An existing dask.distributed scheduler's address, or a local cluster of this many
+        worker processes (:func:`mixsolve.scale.dask_client`); default dask's threads.
+    progress : text stream, optional
+        Where the progress bar of a long run goes (the CLI passes stderr).
+    window, wavelengths, method, baseline, pathlength_cm, unit, measurement, options
+        As for :func:`unmix_files`; the uncertainty budget, the HTML report and PLS models
+        are not available for cubes.
+
+    Returns
+    -------
+    Dataset
+        With a cube ``out``: the written result, opened lazily from it. Otherwise the
+        computed result without the ``fitted`` and ``residual`` spectra.
+    """
+    extra = measurement_options(measurement)
+    for option, value in (("--budget", extra.budget), ("--report", report)):
+        if value is not None:
+            raise InputError(f"{option}: not available for a cube or a dask run; write the "
+                             "result as .zarr or .nc and the tidy table as .csv")
+    if file_kind(library) == MODEL_KIND:
+        raise InputError(f"{os.path.basename(library)}: a PLS model cannot be applied to a "
+                         "cube or a dask run yet; unmix the cube with a library")
+    lib = read_library(library)
+    measured = read_cube(spectra) if is_cube_path(spectra) else read_spectra(spectra)
+    measured, _ = prepare_spectra(measured, extra)
+    with dask_client(scheduler, workers) as client:
+        if measured.chunks is None:
+            measured = measured.chunk(chunk_plan(dict(measured.sizes)))
+        result = unmix(measured, lib, window=window, wavelengths=wavelengths,
+                       method=method,  # type: ignore[arg-type]
+                       baseline=baseline,  # type: ignore[arg-type]
+                       pathlength_cm=pathlength_cm, unit=unit, **options)
+        run = functools.partial(compute, client=client, progress=progress)
+        if out is not None and is_cube_path(out):
+            write_cube(result, out, compute=run)
+            return open_result(out)
+        small = run(result.drop_vars(["fitted", "residual"]))
+    if out is not None:
+        write_results(small, out)
+    return small
+
+
+def open_result(path: PathLike) -> xr.Dataset:
+    """Open a result written by :func:`unmix_cube_files` (lazily, dask-backed)."""
+    p = Path(path)
+    if p.suffix.lower() == ".zarr":
+        return xr.open_zarr(p, consolidated=False)
+    return xr.open_dataset(p, engine=NETCDF_ENGINE, chunks={})
+
+
+def format_cube_summary(result: xr.Dataset) -> str:
+    """Short text summary of a large or many-dimensional result (computes small parts).
+
+    Returns
+    -------
+    str
+        The spectra's dimensions, the fit settings, per component the median and the 5th
+        and 95th percentiles of the concentration and how many spectra hold it at zero,
+        and how many spectra carry each flag code.
+    """
+    conc = result["concentration"]
+    dims = [d for d in conc.dims if d != COMPONENT]
+    sizes = " × ".join(str(result.sizes[d]) for d in dims) or "1"
+    n_spec = int(np.prod([result.sizes[d] for d in dims])) if dims else 1
+    used = json.loads(result.attrs.get("wavelengths_nm", "[]"))
+    unit = result.attrs.get("unit", "")
+    values = conc.transpose(..., COMPONENT).values.reshape(-1, conc.sizes[COMPONENT])
+    at_zero = result["at_zero"].transpose(..., COMPONENT).values.reshape(values.shape) \
+        if "at_zero" in result else np.zeros(values.shape, dtype=bool)
+    texts, text_counts = np.unique(np.asarray(result["flags"].values, dtype=object),
+                                   return_counts=True)
+    lines = [
+        f"Unmixed {sizes} spectra ({' × '.join(dims) or 'one spectrum'}) by classical least "
+        f"squares ({result.attrs.get('method', '')}, baseline "
+        f"{result.attrs.get('baseline', '')})",
+        f"  wavelengths   {len(used)} used"
+        + (f", {min(used):g}-{max(used):g} nm" if used else ""),
+        f"  unit          {unit}",
+        "",
+        f"{'component':<16}{'median':>12}{'5th pct':>12}{'95th pct':>12}{'at zero':>10}",
+    ]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN columns
+        q05, q50, q95 = np.nanpercentile(values, [5, 50, 95], axis=0)
+    for k, comp in enumerate(result[COMPONENT].values):
+        lines.append(f"{comp!s:<16}{q50[k]:>12.4g}{q05[k]:>12.4g}{q95[k]:>12.4g}"
+                     f"{int(at_zero[:, k].sum()):>10}")
+    counts: dict[str, int] = {}
+    for text, count in zip(texts, text_counts, strict=True):
+        for code in filter(None, str(text).split(";")):
+            counts[code] = counts.get(code, 0) + int(count)
+    flagged = int(sum(c for t, c in zip(texts, text_counts, strict=True) if t))
+    lines += ["", f"Flags: {flagged} of {n_spec} spectra flagged"
+              + (f" ({100 * flagged / n_spec:.1f} %)" if n_spec else "")]
+    lines += [f"  {code:<32}{count:>10}" for code, count in sorted(counts.items())]
+    return "\n".join(lines) + "\n"

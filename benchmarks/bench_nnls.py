@@ -1,0 +1,105 @@
+"""Batched NNLS against scipy.optimize.nnls in a loop and against unconstrained least squares.
+
+Problem: N spectra × 300 wavelengths × 5 components (invented Gaussian bands, about 30 %
+of the components absent in each spectrum, noise 0.003 AU), N = 10⁴, 10⁵, 10⁶.
+Timed, each the best of ``--repeat`` runs in this one process (batched and unconstrained
+interleaved, so that a change in the machine's load affects both):
+
+- ``batched``: :func:`mixsolve.solve.nnls.nnls_batch` on all N spectra at once;
+- ``unconstrained``: the least-squares floor, one GEMM ``pinv(K) @ Aᵀ`` (the fastest
+  unconstrained batch solve found here; ``numpy.linalg.lstsq(K, Aᵀ)`` is also printed);
+- ``scipy loop``: ``scipy.optimize.nnls`` spectrum by spectrum, timed on the first
+  ``--scipy-sample`` spectra and extrapolated linearly to N (stated in the output).
+
+Prints the BLAS threadpoolctl reports, the load average, the times and the ratios.
+Run: ``python benchmarks/bench_nnls.py [--sizes 10000,100000,1000000]``. Never a test.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import time
+
+import numpy as np
+from scipy.optimize import nnls
+from threadpoolctl import threadpool_info
+
+from mixsolve.solve.nnls import nnls_batch
+
+WAVELENGTHS_NM = np.linspace(400.0, 700.0, 300)
+CENTRES_NM = (440.0, 500.0, 560.0, 620.0, 670.0)
+
+
+def design() -> np.ndarray:
+    """K (300 × 5): invented bands, L g⁻¹ cm⁻¹."""
+    return np.stack([50.0 * np.exp(-0.5 * ((WAVELENGTHS_NM - c) / 32.0) ** 2)
+                     for c in CENTRES_NM], axis=1)
+
+
+def spectra(n: int, k: np.ndarray, seed: int = 1) -> np.ndarray:
+    """n invented mixture spectra (n × 300, AU)."""
+    rng = np.random.default_rng(seed)
+    conc = rng.uniform(0.0, 0.02, (n, k.shape[1]))
+    conc[rng.random(conc.shape) < 0.3] = 0.0
+    out = conc @ k.T
+    out += 0.003 * rng.standard_normal(out.shape)
+    return out
+
+
+def best_of(repeat: int, func, *args) -> float:
+    """Fastest wall time (s) of ``repeat`` calls."""
+    times = []
+    for _ in range(repeat):
+        start = time.perf_counter()
+        func(*args)
+        times.append(time.perf_counter() - start)
+    return min(times)
+
+
+def blas_report() -> str:
+    """What threadpoolctl says about the BLAS numpy and scipy use."""
+    return "; ".join(f"{i.get('internal_api')} {i.get('version')} {i.get('architecture')} "
+                     f"threads={i.get('num_threads')}" for i in threadpool_info()
+                     if i.get("user_api") == "blas")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--sizes", default="10000,100000,1000000")
+    parser.add_argument("--repeat", type=int, default=5)
+    parser.add_argument("--scipy-sample", type=int, default=20000)
+    args = parser.parse_args()
+    k = design()
+    pinv = np.linalg.pinv(k)
+    nnls_batch(k, spectra(2000, k), k.shape[1])  # warm up (imports, caches)
+    print(f"BLAS: {blas_report()}")
+    print(f"OPENBLAS_CORETYPE={os.environ.get('OPENBLAS_CORETYPE', '(unset)')} "
+          f"OPENBLAS_L2_SIZE={os.environ.get('OPENBLAS_L2_SIZE', '(unset)')}")
+    print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
+    print(f"{'N':>9} {'batched s':>10} {'unconstr s':>10} {'lstsq s':>9} {'scipy s':>9} "
+          f"{'scipy/batched':>14} {'batched/unconstr':>17} {'us/spectrum':>12}")
+    for n in (int(s) for s in args.sizes.split(",")):
+        a = spectra(n, k)
+        repeat = args.repeat if n <= 100000 else max(2, args.repeat // 2)
+        t_batch = t_unc = np.inf
+        for _ in range(repeat):  # interleaved, so that a change of machine load hits both
+            t_batch = min(t_batch, best_of(1, nnls_batch, k, a, k.shape[1]))
+            t_unc = min(t_unc, best_of(1, lambda a=a: pinv @ a.T))
+        t_lstsq = best_of(1, lambda a=a: np.linalg.lstsq(k, a.T, rcond=None)) \
+            if n <= 100000 else float("nan")
+        sample = min(n, args.scipy_sample)
+        start = time.perf_counter()
+        for row in a[:sample]:
+            nnls(k, row)
+        t_scipy = (time.perf_counter() - start) * n / sample
+        note = "" if sample == n else f"  (scipy timed on {sample}, x{n / sample:g})"
+        print(f"{n:>9} {t_batch:>10.4f} {t_unc:>10.4f} {t_lstsq:>9.4f} {t_scipy:>9.3f} "
+              f"{t_scipy / t_batch:>14.1f} {t_batch / t_unc:>17.2f} "
+              f"{1e6 * t_batch / n:>12.3f}{note}")
+        del a
+    print(f"load average after: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
+
+
+if __name__ == "__main__":
+    main()

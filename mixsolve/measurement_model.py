@@ -1,0 +1,243 @@
+"""The measurement model behind an unmixing result: every input with its uncertainty.
+
+For one sample and component k, the reported quantity (the measurand) is
+
+    y_k = F · f_k · x_k(A_corr, ε) / (b · r) + carry-over correction (0 ± …)
+
+with x = G A_corr the least-squares coefficients (:mod:`mixsolve.solve.sensitivity`),
+A_corr the corrected absorbance at the used wavelengths (AU), ε the library absorptivities
+(canonical unit), b the pathlength (cm), r the cell pathlength ratio, F the dilution factor
+and f_k the unit conversion factor. This module gathers, per sample, the arrays the linear
+budget (:mod:`mixsolve.uncertainty`) and the Monte Carlo propagation
+(:mod:`mixsolve.montecarlo`) both need, so the two always propagate the same inputs.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from typing import Literal
+
+import numpy as np
+import xarray as xr
+
+from mixsolve.corrections import CellCorrection, on_wavelengths
+from mixsolve.diagnostics.shift import library_derivative
+from mixsolve.errors import InputError
+from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.noise import NoiseModel
+from mixsolve.solve.design import design_matrix
+from mixsolve.solve.sensitivity import ls_operators
+from mixsolve.spectra import SAMPLE, WAVELENGTH
+from mixsolve.volumetric import Dilution
+
+CarryFrom = Literal["previous", "solvent"]
+#: Fill volume of a 10 mm macro cuvette (µL), common practice; used for the carry-over
+#: fraction when none is given.
+DEFAULT_FILL_VOLUME_UL = 3000.0
+
+
+@dataclass
+class SampleModel:
+    """Inputs of one sample's fit (rows: the used wavelengths that had a reading).
+
+    Concentrations are in the library's canonical unit; ``coef`` holds b·c for components
+    and the baseline terms. NaN entries mean "not stated".
+    """
+
+    name: str
+    ok: bool
+    wavelengths_nm: np.ndarray = field(default_factory=lambda: np.empty(0))
+    design: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
+    weights: np.ndarray | None = None
+    observed: np.ndarray = field(default_factory=lambda: np.empty(0))
+    residual: np.ndarray = field(default_factory=lambda: np.empty(0))
+    coef: np.ndarray = field(default_factory=lambda: np.empty(0))
+    g: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
+    m: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
+    pathlength_cm: float = 1.0
+    sigma_noise: np.ndarray = field(default_factory=lambda: np.empty(0))
+    u_absorptivity: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
+    derivative: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
+    stray_bias: np.ndarray = field(default_factory=lambda: np.empty(0))
+    sigma_blank: np.ndarray = field(default_factory=lambda: np.empty(0))
+    carry_delta: np.ndarray = field(default_factory=lambda: np.empty(0))
+
+
+@dataclass
+class MeasurementModel:
+    """Everything shared by the samples of one result, and the per-sample models."""
+
+    components: list[str]
+    samples: list[SampleModel]
+    unit: str
+    unit_factor: np.ndarray
+    grid_nm: np.ndarray
+    absorptivity_grid: np.ndarray
+    u_pathlength_cm: float
+    dilution: Dilution | None
+    wavelength_u_nm: float
+    wavelength_distribution: str
+    stray_fraction: float
+    carryover_fraction: float
+    cell: CellCorrection
+    noise_from: str
+    notes: list[str]
+
+    @property
+    def dilution_factor(self) -> float:
+        """F (1 without a dilution)."""
+        return 1.0 if self.dilution is None else self.dilution.factor
+
+
+def _nonneg(value: float | None, name: str, unit: str) -> float:
+    if value is None:
+        return float("nan")
+    out = float(value)
+    if not (np.isfinite(out) and out >= 0):
+        raise InputError(f"{name}: {value!r} {unit} must be a number ≥ 0")
+    return out
+
+
+def _result_noise_model(result: xr.Dataset) -> NoiseModel | None:
+    text = result.attrs.get("noise_model", "")
+    return NoiseModel(**json.loads(text)) if text else None
+
+
+def check_result(result: xr.Dataset, library: xr.Dataset) -> xr.Dataset:
+    """Refuse what the budget cannot handle: PLS, other dims, another library."""
+    if not isinstance(result, xr.Dataset) or "concentration" not in result:
+        raise InputError("budget: expected the Dataset returned by mixsolve.unmix")
+    if result.attrs.get("method") not in ("ols", "nnls"):
+        raise InputError(f"budget: method {result.attrs.get('method')!r} is not a "
+                         "least-squares fit (ols, nnls); PLS predictions have no budget here")
+    dims = set(result["concentration"].dims)
+    if dims != {SAMPLE, COMPONENT}:
+        raise InputError(f"budget: concentration dims {tuple(result['concentration'].dims)} "
+                         "must be (sample, component)")
+    comps = [str(c) for c in result[COMPONENT].values]
+    lib_comps = [str(c) for c in library[COMPONENT].values]
+    if comps != lib_comps:
+        raise InputError(f"budget: the library's components ({', '.join(lib_comps)}) are not "
+                         f"those of the result ({', '.join(comps)})")
+    return result
+
+
+def measurement_model(result: xr.Dataset, library: xr.Dataset, *,
+                      pathlength_u_cm: float | None = None,
+                      dilution: Dilution | None = None,
+                      carryover_ul: float | None = None,
+                      fill_volume_ul: float = DEFAULT_FILL_VOLUME_UL,
+                      carryover_from: CarryFrom = "previous",
+                      wavelength_tolerance_nm: float | None = None,
+                      wavelength_u_nm: float | None = None,
+                      stray_fraction: float | None = None,
+                      noise_sd: xr.DataArray | None = None,
+                      cell: CellCorrection | None = None) -> MeasurementModel:
+    """Assemble the inputs of :func:`mixsolve.uncertainty_budget` (same parameters)."""
+    library = check_library(library)
+    result = check_result(result, library)
+    notes: list[str] = []
+    if carryover_from not in ("previous", "solvent"):
+        raise InputError(f"carryover_from: {carryover_from!r} is not 'previous' or 'solvent'")
+    if wavelength_u_nm is not None and wavelength_tolerance_nm is not None:
+        raise InputError("wavelength: give wavelength_tolerance_nm (± limits) or "
+                         "wavelength_u_nm (a standard uncertainty), not both")
+    if wavelength_u_nm is not None:
+        u_wl, wl_dist = _nonneg(wavelength_u_nm, "wavelength_u_nm", "nm"), "normal"
+    else:
+        tol = wavelength_tolerance_nm
+        if tol is None:
+            tol = result.attrs.get("wavelength_tolerance_nm")
+        u_wl = _nonneg(tol, "wavelength_tolerance_nm", "nm") / np.sqrt(3.0)
+        wl_dist = "rectangular"
+    fill = _nonneg(fill_volume_ul, "fill_volume_ul", "µL")
+    if not fill > 0:
+        raise InputError(f"fill_volume_ul: {fill_volume_ul!r} µL must be positive")
+    carry_ul = _nonneg(carryover_ul, "carryover_ul", "µL")
+    carry_frac = 0.0 if np.isnan(carry_ul) else carry_ul / (fill + carry_ul)
+    if stray_fraction is None:
+        model = _result_noise_model(result)
+        stray = model.stray if model is not None else float("nan")
+    else:
+        stray = _nonneg(stray_fraction, "stray_fraction", "")
+        if stray >= 1:
+            raise InputError(f"stray_fraction: {stray:g} must be below 1")
+    cell = cell if cell is not None else CellCorrection()
+
+    used_wl = np.asarray(json.loads(result.attrs["wavelengths_nm"]), dtype=float)
+    lib_used, outside = resample_library(library, used_wl)
+    if outside.size:
+        raise InputError(f"budget: used wavelength {outside[0]:g} nm lies outside the library")
+    comps = [str(c) for c in library[COMPONENT].values]
+    n_comp = len(comps)
+    eps = lib_used["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
+    design = design_matrix(eps, used_wl, result.attrs["baseline"])
+    u_eps = lib_used["u_absorptivity"].transpose(WAVELENGTH, COMPONENT).values
+    grid = library[WAVELENGTH].values
+    eps_grid = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
+    deriv = library_derivative(eps_grid, grid, used_wl)
+    sd = None if noise_sd is None else on_wavelengths(noise_sd, used_wl, "repeat-scan SD")
+    blank_u = (np.full(used_wl.shape, 0.0) if cell.u_blank is None
+               else on_wavelengths(cell.u_blank, used_wl, "cell blank"))
+    weighted = result.attrs.get("weights") == "noise"
+    noise = _result_noise_model(result)
+    if result.attrs.get("fit_shift"):
+        notes.append("the fit also fitted a wavelength shift; the budget linearises the "
+                     "plain least-squares model at the fitted concentrations")
+
+    factor = result["unit_factor"].values.astype(float)
+    conc = result["concentration"].transpose(SAMPLE, COMPONENT).values
+    b_all = np.broadcast_to(result["pathlength_cm"].values, (conc.shape[0],)) \
+        if result["pathlength_cm"].ndim == 0 else result["pathlength_cm"].values
+    fitted = result["fitted"].transpose(SAMPLE, WAVELENGTH).values
+    residual = result["residual"].transpose(SAMPLE, WAVELENGTH).values
+    base = (result["baseline"].transpose(SAMPLE, ...).values
+            if result["baseline"].size else np.zeros((conc.shape[0], 0)))
+    dof = result["dof"].values
+    samples = []
+    for i, name in enumerate(str(s) for s in result[SAMPLE].values):
+        present = np.isfinite(residual[i]) & np.isfinite(fitted[i])
+        if not np.all(np.isfinite(conc[i])) or present.sum() < design.shape[1]:
+            samples.append(SampleModel(name=name, ok=False))
+            continue
+        b = float(b_all[i])
+        canonical = conc[i] / factor
+        coef = np.concatenate([canonical * b, base[i].reshape(-1)])
+        d = design[present]
+        w = None
+        if weighted and noise is not None:
+            w = 1.0 / noise.sigma_absorbance(np.clip(fitted[i, present], 0.0, None)) ** 2
+        g, m = ls_operators(d, w)
+        r = residual[i, present]
+        if sd is not None:
+            sigma = sd[present]
+        elif dof[i] > 0:
+            wr2 = r**2 if w is None else w * r**2
+            s = np.sqrt(np.sum(wr2) / dof[i])
+            sigma = s / np.sqrt(w) if w is not None else np.full(r.shape, s)
+        else:
+            sigma = np.full(r.shape, np.nan)
+        a_fit = fitted[i, present]
+        if np.isnan(stray):
+            bias = np.full(r.shape, np.nan)
+        else:
+            t = 10.0 ** -a_fit
+            bias = -np.log10((t + stray) / (1.0 + stray)) - a_fit
+        if carryover_from == "previous" and i > 0:
+            previous = conc[i - 1]
+        else:
+            previous = np.zeros(n_comp)
+        samples.append(SampleModel(
+            name=name, ok=True, wavelengths_nm=used_wl[present], design=d, weights=w,
+            observed=a_fit + r, residual=r, coef=coef, g=g, m=m, pathlength_cm=b,
+            sigma_noise=sigma, u_absorptivity=u_eps[present], derivative=deriv[present],
+            stray_bias=bias, sigma_blank=blank_u[present] / cell.ratio,
+            carry_delta=carry_frac * (previous - conc[i]) / factor))
+    u_b = _nonneg(pathlength_u_cm, "pathlength_u_cm", "cm")
+    return MeasurementModel(
+        components=comps, samples=samples, unit=result.attrs["unit"], unit_factor=factor,
+        grid_nm=grid, absorptivity_grid=eps_grid, u_pathlength_cm=u_b, dilution=dilution,
+        wavelength_u_nm=u_wl, wavelength_distribution=wl_dist, stray_fraction=stray,
+        carryover_fraction=carry_frac, cell=cell,
+        noise_from="repeat scans" if sd is not None else "fit residual", notes=notes)

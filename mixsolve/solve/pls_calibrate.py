@@ -1,0 +1,314 @@
+"""Build a PLS calibration from mixtures of known composition: :func:`calibrate`.
+
+The PLS algorithm itself is scikit-learn's ``PLSRegression`` (NIPALS); the modules around
+it do the reference table, preprocessing, cross-validation, limits and labels. What a
+model holds: :mod:`mixsolve.solve.pls_model`.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any, Literal
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from mixsolve._version import __version__
+from mixsolve.errors import InputError
+from mixsolve.library import COMPONENT
+from mixsolve.solve.pls_blocks import block_groups, fit_block, project
+from mixsolve.solve.pls_compare import cls_cross_validate
+from mixsolve.solve.pls_cv import (
+    DEFAULT_MAX_LATENT,
+    ONE_SE_RULE,
+    SPLITS,
+    Split,
+    check_counts,
+    cross_validate,
+    cv_x_residuals,
+    latent_bound,
+    make_folds,
+    rms_error,
+)
+from mixsolve.solve.pls_limits import CONFIDENCE, q_limit, t2_limit
+from mixsolve.solve.pls_model import FORMAT_VERSION, MODEL_KIND, UNCERTAINTY_BASIS
+from mixsolve.solve.pls_preprocessing import (
+    SCALES,
+    Scale,
+    calibration_arrays,
+    centre_scale,
+    check_derivative,
+    preprocess,
+)
+from mixsolve.solve.pls_reference import match_samples, reference_matrix
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_option, check_spectra, check_window
+
+Mode = Literal["auto", "pls2", "pls1"]
+MODES: tuple[str, ...] = ("auto", "pls2", "pls1")
+
+
+def calibrate(
+    spectra: xr.DataArray,
+    reference: pd.DataFrame | xr.DataArray,
+    *,
+    window: tuple[float, float] | None = None,
+    latent: int | Literal["auto"] = "auto",
+    max_latent: int = DEFAULT_MAX_LATENT,
+    folds: int | None = None,
+    split: Split = "blocks",
+    seed: int = 0,
+    mode: Mode = "auto",
+    scale: Scale = "none",
+    derivative: int | None = None,
+    polyorder: int = 2,
+    compare: bool = False,
+    pathlength_cm: float | None = None,
+) -> xr.Dataset:
+    """Build a PLS calibration from mixture spectra and their known concentrations.
+
+    Parameters
+    ----------
+    spectra : DataArray with dims ("sample", "wavelength")
+        Blank-corrected absorbance (AU) of the calibration mixtures; wavelength in nm.
+        Complete (no NaN) over the wavelengths used.
+    reference : DataFrame or DataArray
+        Known concentrations (see :func:`mixsolve.solve.pls_reference.reference_matrix`);
+        its samples must be exactly those of ``spectra``.
+    window : (float, float), optional
+        Use the measured wavelengths from ``low`` to ``high`` nm, both included; default all.
+    latent : int or "auto"
+        Number of latent variables; ``"auto"`` chooses it by cross-validation with the
+        one-standard-error rule (per block).
+    max_latent : int
+        Most latent variables tried (also bounded by the rank of every training set).
+    folds : int, optional
+        Number of cross-validation folds, 2 ≤ folds ≤ n; default min(10, n).
+    split : {"blocks", "random"}
+        Folds as contiguous blocks in the order of the spectra (keeps replicates measured
+        one after another together), or shuffled with ``seed``.
+    seed : int
+        Seed of the ``random`` split.
+    mode : {"auto", "pls2", "pls1"}
+        One PLS2 model for all components, one PLS1 model per component, or whichever
+        cross-validates better (lower mean variance-scaled error).
+    scale : {"none", "autoscale"}
+        After mean-centring (always), divide each wavelength by its standard deviation.
+    derivative : int, optional
+        Savitzky–Golay first derivative over this many points (odd), before centring.
+    polyorder : int
+        Polynomial order of the derivative filter.
+    compare : bool
+        Also cross-validate classical least squares (absorptivities estimated from the
+        same mixtures) on the same folds; adds ``cls_rmsecv`` and ``cls_rmsec``.
+    pathlength_cm : float, optional
+        Pathlength of the calibration spectra (cm), recorded so that :func:`mixsolve.predict` can
+        rescale spectra measured in other cells; default ``spectra.attrs``, else 1 cm.
+
+    Returns
+    -------
+    Dataset
+        The model: ``x_mean``, ``x_scale`` (wavelength); ``y_mean``, ``y_scale``
+        (component); per block ``x_weights`` W, ``x_rotations`` R = W(PᵀW)⁻¹ and
+        ``x_loadings`` P (block, wavelength, latent),
+        ``y_loadings`` (block, component, latent), ``score_variance`` (block, latent),
+        ``n_latent``, ``t2_limit`` and ``q_limit`` (block, confidence), ``q_theta``;
+        ``block_of_component``; calibration figures ``rmsec``, ``rmsecv``,
+        ``reference_min``/``reference_max`` (component); ``reference``, ``fitted``,
+        ``cv_predicted`` (sample, component), ``fold``, ``calibration_t2``/``_q`` (of the
+        final fit) and ``cv_q`` (cross-validated) (sample, block); the CV curves
+        ``cv_rmsecv``, ``cv_criterion``, ``cv_standard_error`` (cv_mode, component,
+        cv_latent) and ``cv_choice`` (cv_mode, component). ``attrs``
+        record ``mixsolve_kind``, the mode, preprocessing, CV settings, unit and pathlength.
+
+    Raises
+    ------
+    InputError
+        Bad options, samples without reference values (or the reverse), incomplete
+        spectra, too few samples, a component that does not vary.
+
+    Notes
+    -----
+    Scikit-learn's ``PLSRegression`` (NIPALS, ``scale=False``) is fitted on X centred
+    (and scaled) here and on Y centred and divided by its standard deviation, so each
+    component weighs equally in PLS2; with ``scale="autoscale"`` this is exactly
+    ``PLSRegression(scale=True)``. Centring and scaling are recomputed inside every CV
+    training set. RMSEC = √(mean (ŷ − y)²) of the final fit (no degrees-of-freedom
+    correction); RMSECV the same over the cross-validated predictions. The number of
+    latent variables follows the one-standard-error rule (Hastie, Tibshirani & Friedman,
+    Elements of Statistical Learning, §7.10): the CV error of a candidate is the mean over
+    samples of (ŷ − y)²/var(y) (averaged over the block's components); its standard error
+    is the standard deviation of the per-fold means over √folds. Hotelling T² and Q limits:
+    :func:`mixsolve.solve.pls_limits.t2_limit`, :func:`mixsolve.solve.pls_limits.q_limit`;
+    the Q limit's eigenvalues are those of E_cvᵀE_cv/n, E_cv the cross-validated spectral
+    residuals of the mixtures at the chosen number of latent variables.
+    """
+    spectra = check_spectra(spectra)
+    if set(spectra.dims) != {SAMPLE, WAVELENGTH}:
+        raise InputError(f"spectra: expected dims ('sample', 'wavelength'), got {spectra.dims}")
+    check_option(split, SPLITS, "split")
+    check_option(mode, MODES, "mode")
+    check_option(scale, SCALES, "scale")
+    window = check_window(window)
+    if latent != "auto" and (isinstance(latent, bool) or not isinstance(latent, int | np.integer)
+                             or latent < 1):
+        raise InputError(f"latent: {latent!r} is not 'auto' or a whole number ≥ 1")
+    b = float(spectra.attrs.get("pathlength_cm", 1.0) if pathlength_cm is None
+              else pathlength_cm)
+    if not np.isfinite(b) or b <= 0:
+        raise InputError(f"pathlength: {b:g} cm is not a positive number")
+    ref = match_samples(spectra, reference_matrix(reference))
+    raw, wl = calibration_arrays(spectra, window)
+    y = ref.values
+    comps = [str(c) for c in ref[COMPONENT].values]
+    flat = np.flatnonzero(y.std(axis=0) == 0)
+    if flat.size:
+        raise InputError(f"reference: component {comps[flat[0]]!r} has the same concentration "
+                         "in every calibration sample; it must vary to be calibrated")
+    deriv = check_derivative(derivative, polyorder, wl)
+    x = preprocess(raw, deriv)
+    n = x.shape[0]
+    k_folds = check_counts(n, folds, max_latent)
+    fold = make_folds(n, k_folds, split, seed)
+    a_max = latent_bound(x, fold, max_latent)
+    if latent != "auto" and latent > a_max:
+        raise InputError(f"latent: {latent} latent variables is more than the {a_max} this "
+                         f"calibration supports ({n} samples in {k_folds} folds, "
+                         f"{wl.size} wavelengths, max_latent {max_latent})")
+
+    cv = cross_validate(x, y, fold, a_max, scale, latent)
+    chosen_mode = mode if mode != "auto" else (
+        "pls1" if len(comps) > 1 and cv["pls1"]["total"] < cv["pls2"]["total"] else "pls2")
+    if len(comps) == 1:
+        chosen_mode = "pls1"
+    model = _final_model(x, y, wl, comps, fold, scale, chosen_mode, cv)
+    model["reference"] = ((SAMPLE, COMPONENT), y)
+    model = model.assign_coords({SAMPLE: [str(s) for s in ref[SAMPLE].values]})
+    model["fold"] = ((SAMPLE,), fold)
+    model["reference_min"] = ((COMPONENT,), y.min(axis=0))
+    model["reference_max"] = ((COMPONENT,), y.max(axis=0))
+    _add_cv_curves(model, cv, y)
+    if compare:
+        cls_cv, cls_fit = cls_cross_validate(x, y, fold)
+        model["cls_rmsecv"] = ((COMPONENT,), rms_error(cls_cv, y))
+        model["cls_rmsec"] = ((COMPONENT,), rms_error(cls_fit, y))
+        model["cls_cv_predicted"] = ((SAMPLE, COMPONENT), cls_cv)
+    unit = ref.attrs["unit"]
+    for name in ("rmsec", "rmsecv", "reference_min", "reference_max", "reference", "fitted",
+                 "cv_predicted", "cv_rmsecv", "y_mean", "y_scale", "cls_rmsecv", "cls_rmsec",
+                 "cls_cv_predicted"):
+        if name in model:
+            model[name].attrs["units"] = unit
+    model.attrs.update({
+        "mixsolve_kind": MODEL_KIND,
+        "format_version": FORMAT_VERSION,
+        "mode": chosen_mode,
+        "mode_requested": mode,
+        "unit": unit,
+        "pathlength_cm": b,
+        "window_nm": "" if window is None else f"{window[0]:g}-{window[1]:g}",
+        "preprocessing": json.dumps({"centring": "mean", "scale": scale, "derivative": deriv}),
+        "cross_validation": json.dumps({
+            "split": split, "folds": k_folds, "seed": seed if split == "random" else None,
+            "latent_requested": latent, "max_latent_tried": a_max, "rule": ONE_SE_RULE}),
+        "uncertainty_basis": UNCERTAINTY_BASIS,
+        "source": str(spectra.attrs.get("source", "")),
+        "reference_source": str(ref.attrs.get("source", "")),
+        "mixsolve_version": __version__,
+    })
+    return model
+
+
+def _final_model(x: np.ndarray, y: np.ndarray, wl: np.ndarray, comps: list[str],
+                 fold: np.ndarray, scale: str, mode: str, cv: dict[str, dict[str, Any]]
+                 ) -> xr.Dataset:
+    """Fit the chosen blocks on all mixtures; loadings, limits and calibration figures.
+
+    The Q limits come from the cross-validated residuals (:func:`cv_x_residuals`), not
+    from the residuals of the final fit: a fit partly absorbs the noise of its own
+    mixtures, so their residuals are smaller than those of new samples, and a limit
+    taken from them would flag ordinary new samples far more often than 5 % or 1 %.
+    """
+    n, n_y = y.shape
+    mx, sx = centre_scale(x, scale)
+    my, sy = y.mean(axis=0), y.std(axis=0, ddof=1)
+    xs, ys = (x - mx) / sx, (y - my) / sy
+    groups = block_groups(n_y, mode)
+    choice = cv[mode]["choice"]
+    a_blocks = [int(choice[cols[0]]) for cols in groups]
+    a_pad = max(a_blocks)
+    nb = len(groups)
+    rot = np.full((nb, wl.size, a_pad), np.nan)
+    weights = np.full((nb, wl.size, a_pad), np.nan)
+    load = np.full((nb, wl.size, a_pad), np.nan)
+    yload = np.full((nb, n_y, a_pad), np.nan)
+    svar = np.full((nb, a_pad), np.nan)
+    t2_lim = np.empty((nb, len(CONFIDENCE)))
+    q_lim = np.empty((nb, len(CONFIDENCE)))
+    theta = np.empty((nb, 3))
+    cal_t2, cal_q, cv_q = np.empty((n, nb)), np.empty((n, nb)), np.empty((n, nb))
+    fitted = np.empty_like(y)
+    block_of = np.empty(n_y, dtype=np.int64)
+    methods = []
+    for b, (cols, a) in enumerate(zip(groups, a_blocks, strict=True)):
+        block = fit_block(xs, ys[:, cols], a)
+        scores = xs @ block["rotations"]
+        var = scores.var(axis=0, ddof=1)
+        _, t2, _, q = project(xs, block["rotations"], block["loadings"], var)
+        cv_resid = cv_x_residuals(x, y, fold, scale, cols, a)
+        lam = np.linalg.svd(cv_resid, compute_uv=False) ** 2 / n
+        rot[b, :, :a], load[b, :, :a], svar[b, :a] = block["rotations"], block["loadings"], var
+        weights[b, :, :a] = block["weights"]
+        yload[b, :, :a] = 0.0
+        yload[b, cols, :a] = block["y_loadings"]
+        fitted[:, cols] = scores @ block["y_loadings"].T * sy[cols] + my[cols]
+        t2_lim[b] = [t2_limit(a, n, c) for c in CONFIDENCE]
+        limits = [q_limit(lam, c) for c in CONFIDENCE]
+        q_lim[b] = [v for v, _ in limits]
+        methods.append(limits[0][1])
+        theta[b] = [np.sum(lam**i) for i in (1, 2, 3)]
+        cal_t2[:, b], cal_q[:, b], cv_q[:, b] = t2, q, np.sum(cv_resid**2, axis=1)
+        block_of[cols] = b
+    cv_pred = np.stack([cv[mode]["pred"][choice[k] - 1, :, k] for k in range(n_y)], axis=1)
+    blocks = ["all"] if mode == "pls2" else comps
+    return xr.Dataset(
+        {
+            "x_mean": ((WAVELENGTH,), mx), "x_scale": ((WAVELENGTH,), sx),
+            "y_mean": ((COMPONENT,), my), "y_scale": ((COMPONENT,), sy),
+            "x_weights": (("block", WAVELENGTH, "latent"), weights),
+            "x_rotations": (("block", WAVELENGTH, "latent"), rot),
+            "x_loadings": (("block", WAVELENGTH, "latent"), load),
+            "y_loadings": (("block", COMPONENT, "latent"), yload),
+            "score_variance": (("block", "latent"), svar),
+            "n_latent": (("block",), np.asarray(a_blocks, dtype=np.int64)),
+            "t2_limit": (("block", "confidence"), t2_lim),
+            "q_limit": (("block", "confidence"), q_lim,
+                        {"method": json.dumps(dict(zip(blocks, methods, strict=True))),
+                         "residuals": "cross-validated"}),
+            "q_theta": (("block", "theta"), theta),
+            "block_of_component": ((COMPONENT,), block_of),
+            "rmsec": ((COMPONENT,), rms_error(fitted, y)),
+            "rmsecv": ((COMPONENT,), rms_error(cv_pred, y)),
+            "fitted": ((SAMPLE, COMPONENT), fitted),
+            "cv_predicted": ((SAMPLE, COMPONENT), cv_pred),
+            "calibration_t2": ((SAMPLE, "block"), cal_t2),
+            "calibration_q": ((SAMPLE, "block"), cal_q),
+            "cv_q": ((SAMPLE, "block"), cv_q),
+        },
+        coords={WAVELENGTH: (WAVELENGTH, wl, {"units": "nm"}), COMPONENT: comps,
+                "block": blocks, "latent": np.arange(1, a_pad + 1),
+                "confidence": list(CONFIDENCE), "theta": [1, 2, 3]},
+    )
+
+
+def _add_cv_curves(model: xr.Dataset, cv: dict[str, dict[str, Any]], y: np.ndarray) -> None:
+    """Store the CV curves and choices of both modes in ``model`` (in place)."""
+    modes = ["pls2", "pls1"]
+    a_max = cv["pls2"]["pred"].shape[0]
+    model.coords["cv_mode"] = modes
+    model.coords["cv_latent"] = np.arange(1, a_max + 1)
+    dims = ("cv_mode", COMPONENT, "cv_latent")
+    model["cv_rmsecv"] = (dims, np.stack([rms_error(cv[m]["pred"], y[None]).T for m in modes]))
+    model["cv_criterion"] = (dims, np.stack([cv[m]["criterion"] for m in modes]))
+    model["cv_standard_error"] = (dims, np.stack([cv[m]["se"] for m in modes]))
+    model["cv_choice"] = (("cv_mode", COMPONENT), np.stack([cv[m]["choice"] for m in modes]))

@@ -1,0 +1,143 @@
+"""Preprocessing of PLS spectra: wavelength window, Savitzky–Golay derivative, centring, scaling.
+
+The same steps, with the settings and means recorded in the model, are applied to the
+calibration mixtures and to every spectrum predicted later (docs/calibration.md).
+"""
+
+from __future__ import annotations
+
+from typing import Any, Literal
+
+import numpy as np
+import xarray as xr
+from scipy.signal import savgol_filter
+
+from mixsolve.errors import InputError
+from mixsolve.spectra import SAMPLE, WAVELENGTH
+
+Scale = Literal["none", "autoscale"]
+SCALES: tuple[str, ...] = ("none", "autoscale")
+
+
+def calibration_arrays(spectra: xr.DataArray, window: tuple[float, float] | None
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Absorbance of the calibration mixtures over the window, checked to be complete.
+
+    Parameters
+    ----------
+    spectra : DataArray with dims ("sample", "wavelength")
+        Absorbance (AU), wavelength in nm, validated by :func:`mixsolve.spectra.check_spectra`.
+    window : (float, float) or None
+        Lowest and highest wavelength (nm) kept, both included; None keeps all.
+
+    Returns
+    -------
+    absorbance : array, shape (n_samples, n_wavelengths)
+        AU.
+    wavelengths_nm : array, shape (n_wavelengths,)
+        The model's wavelength grid (nm).
+
+    Raises
+    ------
+    InputError
+        Fewer than 2 wavelengths in the window, or a missing reading (NaN) in it.
+    """
+    wl = spectra[WAVELENGTH].values
+    if window is not None:
+        tol = 1e-9 * max(1.0, float(wl.max()))
+        keep = (wl >= window[0] - tol) & (wl <= window[1] + tol)
+        if keep.sum() < 2:
+            raise InputError(f"window {window[0]:g}-{window[1]:g} nm holds {int(keep.sum())} "
+                             f"measured wavelength(s) (measured {wl[0]:g}-{wl[-1]:g} nm); a "
+                             "calibration needs at least 2")
+        spectra = spectra.isel({WAVELENGTH: np.flatnonzero(keep)})
+    values = spectra.transpose(SAMPLE, WAVELENGTH).values.astype(float)
+    if np.isnan(values).any():
+        i, j = np.argwhere(np.isnan(values))[0]
+        raise InputError(
+            f"spectra: calibration sample {str(spectra[SAMPLE].values[i])!r} has no reading at "
+            f"{spectra[WAVELENGTH].values[j]:g} nm; calibration spectra must be complete over "
+            "the window (narrow it with a window)")
+    return values, spectra[WAVELENGTH].values.astype(float)
+
+
+def check_derivative(window_points: int | None, polyorder: int, wavelengths_nm: np.ndarray
+                     ) -> dict[str, Any] | None:
+    """Validate Savitzky–Golay settings against the wavelength grid.
+
+    Returns
+    -------
+    dict or None
+        ``{"order": 1, "window_points", "polyorder", "step_nm"}``; None without a derivative.
+
+    Raises
+    ------
+    InputError
+        An even or too short window, a window longer than the grid, or an uneven grid.
+    """
+    if window_points is None:
+        return None
+    w, p = int(window_points), int(polyorder)
+    if w != window_points or w < 3 or w % 2 == 0:
+        raise InputError(f"derivative: window of {window_points} points must be an odd whole "
+                         "number ≥ 3, e.g. 11")
+    if not 1 <= p < w:
+        raise InputError(f"derivative: polynomial order {polyorder} must be ≥ 1 and below the "
+                         f"window ({w} points)")
+    if w > wavelengths_nm.size:
+        raise InputError(f"derivative: window of {w} points is longer than the "
+                         f"{wavelengths_nm.size} wavelengths used")
+    steps = np.diff(wavelengths_nm)
+    step = float(np.median(steps))
+    if np.any(np.abs(steps - step) > 1e-6 * max(step, 1e-12) + 1e-9):
+        raise InputError(
+            f"derivative: the wavelengths used are not evenly spaced (steps "
+            f"{steps.min():g}-{steps.max():g} nm); a Savitzky–Golay derivative needs an even grid")
+    return {"order": 1, "window_points": w, "polyorder": p, "step_nm": step}
+
+
+def preprocess(absorbance: np.ndarray, derivative: dict[str, Any] | None) -> np.ndarray:
+    """Apply the per-spectrum preprocessing (last axis: wavelength).
+
+    Parameters
+    ----------
+    absorbance : array, shape (n_samples, n_wavelengths)
+        Absorbance (AU).
+    derivative : dict or None
+        From :func:`check_derivative`.
+
+    Returns
+    -------
+    ndarray
+        Absorbance (AU) unchanged, or its first derivative dA/dλ (AU/nm) by
+        ``scipy.signal.savgol_filter(..., deriv=1, delta=step_nm)`` (edges: polynomial fit
+        to the first/last window, the filter's ``mode="interp"``).
+    """
+    if derivative is None:
+        return np.asarray(absorbance, dtype=float)
+    return savgol_filter(np.asarray(absorbance, dtype=float), derivative["window_points"],
+                         derivative["polyorder"], deriv=1, delta=derivative["step_nm"],
+                         axis=-1, mode="interp")
+
+
+def centre_scale(x: np.ndarray, scale: str) -> tuple[np.ndarray, np.ndarray]:
+    """Means and scales of preprocessed spectra, per wavelength.
+
+    Parameters
+    ----------
+    x : array, shape (n_samples, n_wavelengths)
+        Preprocessed spectra (AU, or AU/nm after a derivative).
+    scale : {"none", "autoscale"}
+        ``none``: scale 1; ``autoscale``: the standard deviation over samples (ddof 1),
+        1 where a wavelength does not vary.
+
+    Returns
+    -------
+    mean, scale : array, shape (n_wavelengths,)
+        Centred and scaled spectra are (x − mean) / scale.
+    """
+    mean = x.mean(axis=0)
+    if scale == "none":
+        return mean, np.ones(x.shape[1])
+    sd = x.std(axis=0, ddof=1)
+    return mean, np.where(sd > 0, sd, 1.0)

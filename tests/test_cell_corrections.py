@@ -1,0 +1,219 @@
+"""Cell blank, cell pathlength ratio and wavelength offset (mixsolve.corrections), their
+terms in the budget, and ``unmix --cell-blank/--cell-ratio/--wavelength-offset``.
+
+All data are invented (Gaussian bands, seeded noise).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+from click.testing import CliRunner
+from helpers_io import BANDS, MIXTURES, WL, mixture_absorbance, write_library_file, write_wide
+
+import mixsolve as ms
+from mixsolve.cli import main
+
+CONC = np.array([[4.0e-5, 2.0e-5, 3.0e-5], [1.0e-5, 5.0e-5, 2.0e-5]])  # mol/L, invented
+
+
+def window_absorbance(wl: np.ndarray) -> np.ndarray:
+    """An invented cell-window mismatch: 0.012 AU rising to the blue."""
+    return 0.008 + 0.004 * (700.0 - wl) / 300.0
+
+
+def test_cell_blank_is_subtracted_and_ratio_divided(wl_grid, rng) -> None:
+    """(A − A_cb)/r, with the blank's mean of m scans and u = SD/√m."""
+    scans = ms.make_spectra(window_absorbance(wl_grid) + rng.normal(0, 0.001, (4, wl_grid.size)),
+                            wl_grid)
+    corr = ms.cell_blank(scans, ratio=1.02, u_ratio=0.003)
+    assert corr.n_scans == 4
+    assert np.allclose(corr.blank.values, scans.values.mean(axis=0))
+    assert np.allclose(corr.u_blank.values, scans.values.std(axis=0, ddof=1) / 2.0)
+    spectra = ms.make_spectra(np.full((2, wl_grid.size), 0.5), wl_grid)
+    out = ms.correct_cells(spectra, corr)
+    assert np.allclose(out.values, (0.5 - corr.blank.values) / 1.02)
+    assert "cell blank subtracted" in out.attrs["cell_correction"]
+
+
+def test_single_blank_scan_has_no_stated_uncertainty(wl_grid) -> None:
+    """One scan: u not stated (NaN) unless u_au is given."""
+    one = ms.make_spectra(window_absorbance(wl_grid), wl_grid)
+    assert np.all(np.isnan(ms.cell_blank(one).u_blank.values))
+    assert np.all(ms.cell_blank(one, u_au=0.0005).u_blank.values == 0.0005)
+
+
+def test_blank_is_interpolated_never_extrapolated(wl_grid) -> None:
+    """A finer blank grid is interpolated; one that stops short is refused, naming λ."""
+    fine = np.arange(400.0, 700.1, 1.0)
+    corr = ms.cell_blank(ms.make_spectra(window_absorbance(fine), fine))
+    spectra = ms.make_spectra(np.zeros((1, wl_grid.size)), wl_grid)
+    assert np.allclose(ms.correct_cells(spectra, corr).values, -window_absorbance(wl_grid))
+    short = ms.cell_blank(ms.make_spectra(window_absorbance(fine[:200]), fine[:200]))
+    with pytest.raises(ms.InputError, match=r"cell blank: covers 400-599 nm, but 600 nm is"):
+        ms.correct_cells(spectra, short)
+
+
+def test_correction_recovers_concentrations(molar_library, wl_grid) -> None:
+    """Spectra read in a mismatched cell (window absorbance, 2 % longer path) give the true
+    concentrations after the correction, and wrong ones without it."""
+    eps = molar_library["absorptivity"].values
+    read = 1.02 * CONC @ eps + window_absorbance(wl_grid)
+    spectra = ms.make_spectra(read, wl_grid)
+    blank = ms.make_spectra(window_absorbance(wl_grid), wl_grid)
+    fixed = ms.correct_cells(spectra, ms.cell_blank(blank, ratio=1.02))
+    good = ms.unmix(fixed, molar_library, method="ols")["concentration"].values
+    bad = ms.unmix(spectra, molar_library, method="ols")["concentration"].values
+    assert np.allclose(good, CONC, rtol=1e-9)
+    assert not np.allclose(bad, CONC, rtol=0.01)
+
+
+def test_correction_uncertainty_enters_the_budget(molar_library, wl_grid, rng) -> None:
+    """u_blank = σ at every λ propagates like reading noise σ (same operator); u(r)/r
+    gives |y|·u(r)/r; without a cell correction both terms are 0."""
+    eps = molar_library["absorptivity"].values
+    spectra = ms.make_spectra(CONC @ eps + rng.normal(0, 0.002, (2, wl_grid.size)), wl_grid)
+    sigma = 0.0007
+    corr = ms.cell_blank(ms.make_spectra(np.zeros(wl_grid.size), wl_grid), u_au=sigma,
+                         u_ratio=0.004)
+    result = ms.unmix(ms.correct_cells(spectra, corr), molar_library, method="ols")
+    budget = ms.uncertainty_budget(result, molar_library, cell=corr)
+    sd = xr.DataArray(np.full(wl_grid.size, sigma), dims="wavelength",
+                      coords={"wavelength": wl_grid})
+    as_noise = ms.uncertainty_budget(result, molar_library, noise_sd=sd)
+    assert np.allclose(budget["contribution"].sel(source="cell_blank").values,
+                       as_noise["contribution"].sel(source="spectral_noise").values)
+    assert np.allclose(budget["contribution"].sel(source="cell_ratio").values,
+                       np.abs(result["concentration"].values) * 0.004)
+    plain = ms.uncertainty_budget(result, molar_library)
+    assert np.all(plain["contribution"].sel(source=["cell_blank", "cell_ratio"]).values == 0)
+
+
+def test_pathlength_ratio_from_one_solution_in_both_cells(wl_grid, rng) -> None:
+    """r = Σ A_c A_n / Σ A_n² with its standard uncertainty from the scatter."""
+    a_n = 0.2 + 0.8 * np.exp(-0.5 * ((wl_grid - 550) / 60) ** 2)
+    noise = rng.normal(0, 0.001, wl_grid.size)
+    cell = xr.DataArray(1.015 * a_n + noise, dims="wavelength", coords={"wavelength": wl_grid})
+    nominal = xr.DataArray(a_n, dims="wavelength", coords={"wavelength": wl_grid})
+    r, u_r = ms.corrections.pathlength_ratio(cell, nominal)
+    assert r == pytest.approx(1.015, abs=3 * u_r)
+    assert 0 < u_r < 0.002
+
+
+def test_shift_wavelengths_moves_the_axis(wl_grid) -> None:
+    """λ_corrected = λ_read − δ; values unchanged; δ recorded."""
+    spectra = ms.make_spectra(np.ones((1, wl_grid.size)), wl_grid)
+    out = ms.shift_wavelengths(spectra, 0.4)
+    assert np.allclose(out["wavelength"].values, wl_grid - 0.4)
+    assert out.attrs["wavelength_offset_nm"] == 0.4
+    with pytest.raises(ms.InputError, match=r"wavelength offset: 500 nm would make -100 nm"):
+        ms.shift_wavelengths(spectra, 500.0)
+
+
+@pytest.mark.parametrize(("kwargs", "message"), [
+    ({"ratio": 0.0}, r"cell ratio: 0 is not a positive number"),
+    ({"u_ratio": -1.0}, r"cell ratio: uncertainty -1 must be a number ≥ 0"),
+    ({"u_au": -0.1}, r"cell blank: u_au = -0.1 AU must be a number ≥ 0"),
+])
+def test_bad_cell_options(wl_grid, kwargs, message) -> None:
+    """Bad ratio or uncertainties are refused, naming the value."""
+    with pytest.raises(ms.InputError, match=message):
+        ms.cell_blank(ms.make_spectra(np.zeros(wl_grid.size), wl_grid), **kwargs)
+
+
+def test_blank_with_a_missing_reading_is_refused(wl_grid) -> None:
+    """A hole in the blank would put a hole in every sample: refused, naming λ and scan."""
+    values = np.zeros(wl_grid.size)
+    values[3] = np.nan
+    with pytest.raises(ms.InputError, match=r"cell blank: scan 1 has no reading at 415 nm"):
+        ms.cell_blank(ms.make_spectra(values, wl_grid))
+
+
+# --- command line -------------------------------------------------------------------------
+
+
+def invoke(*args: object):
+    """Run ``mixsolve ARGS`` in-process."""
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def read_conc(path) -> pd.DataFrame:
+    """Results CSV → concentration table (sample × component)."""
+    table = pd.read_csv(path, keep_default_na=False, dtype={"flags": str})
+    return table.pivot(index="sample", columns="component", values="concentration")
+
+
+def test_cli_cell_blank_and_ratio(tmp_path) -> None:
+    """--cell-blank FILE and --cell-ratio R±U recover the mixtures read in a mismatched cell,
+    and the budget lists the cell terms."""
+    lib = write_library_file(tmp_path / "lib.nc")
+    read = {n: 1.03 * mixture_absorbance(m) + window_absorbance(WL) for n, m in MIXTURES.items()}
+    spectra = write_wide(tmp_path / "mix.csv", read)
+    blank = write_wide(tmp_path / "blank.csv",
+                       {f"scan{i}": window_absorbance(WL) + 1e-4 * (i - 1) for i in range(3)})
+    run = invoke("unmix", lib, spectra, "--method", "ols", "--cell-blank", blank,
+                 "--cell-ratio", "1.03±0.002", "--out", tmp_path / "r.csv",
+                 "--budget", tmp_path / "b.csv")
+    assert run.exit_code == 0, run.output
+    conc = read_conc(tmp_path / "r.csv")
+    for name, mix in MIXTURES.items():
+        for comp in BANDS:
+            assert conc.loc[name, comp] == pytest.approx(mix[comp], rel=1e-3)
+    budget = pd.read_csv(tmp_path / "b.csv")
+    ratio_rows = budget[budget["source"] == "cell_ratio"]
+    assert np.all(ratio_rows["contribution"] > 0)
+    assert np.all(budget[budget["source"] == "cell_blank"]["contribution"] > 0)
+
+
+def test_cli_wavelength_offset_corrects_a_shifted_instrument(tmp_path) -> None:
+    """Spectra recorded by an instrument reading 0.8 nm high (A_read(λ) = A(λ − 0.8)) are
+    fitted better after --wavelength-offset 0.8."""
+    wl = np.arange(400.0, 701.0, 2.0)
+    fine_lib = write_library_file(tmp_path / "fine.nc", wl=wl)
+    spectra = write_wide(tmp_path / "mix.csv",
+                         {n: mixture_absorbance(m, wl - 0.8) for n, m in MIXTURES.items()}, wl)
+    base = ["unmix", fine_lib, spectra, "--method", "ols", "--window", "420-680"]
+    raw = invoke(*base, "--out", tmp_path / "raw.csv")
+    fixed = invoke(*base, "--wavelength-offset", "0.8", "--out", tmp_path / "fixed.csv")
+    assert raw.exit_code == 0 and fixed.exit_code == 0, (raw.output, fixed.output)
+    truth = pd.DataFrame(MIXTURES).T
+    err_raw = np.abs(read_conc(tmp_path / "raw.csv") / truth - 1).to_numpy().max()
+    err_fixed = np.abs(read_conc(tmp_path / "fixed.csv") / truth - 1).to_numpy().max()
+    assert err_fixed < 1e-3 < err_raw
+
+
+@pytest.mark.parametrize(("args", "message"), [
+    (["--cell-ratio", "abc"], "error: --cell-ratio: 'abc' is not a number or NUMBER±U"),
+    (["--wavelength-offset", "0.4±x"], "error: --wavelength-offset: '0.4±x' is not a number"),
+    (["--cell-blank", "missing.csv"], "missing.csv"),
+])
+def test_cli_bad_corrections(tmp_path, args, message) -> None:
+    """Bad correction options: exit 2, one error line, nothing written."""
+    lib = write_library_file(tmp_path / "lib.nc")
+    spectra = write_wide(tmp_path / "mix.csv")
+    run = invoke("unmix", lib, spectra, "--out", tmp_path / "r.csv", *args)
+    assert run.exit_code == 2, run.output
+    assert run.stderr.count("error:") == 1 and message in run.stderr
+    assert not (tmp_path / "r.csv").exists()
+
+
+def test_cli_offset_uncertainty_replaces_the_tolerance_in_the_budget(tmp_path) -> None:
+    """--wavelength-offset 0.8±0.05 with a cell blank: the budget's wavelength input is
+    u = 0.05 nm (normal), and the shifted blank still covers the shifted spectra."""
+    wl = np.arange(400.0, 701.0, 2.0)
+    lib = write_library_file(tmp_path / "fine.nc", wl=wl)
+    read = {n: mixture_absorbance(m, wl - 0.8) + window_absorbance(wl)
+            for n, m in MIXTURES.items()}
+    spectra = write_wide(tmp_path / "mix.csv", read, wl)
+    blank = write_wide(tmp_path / "blank.csv", {"b": window_absorbance(wl)}, wl)
+    run = invoke("unmix", lib, spectra, "--method", "ols", "--window", "420-680",
+                 "--cell-blank", blank, "--wavelength-offset", "0.8±0.05",
+                 "--budget", tmp_path / "b.csv")
+    assert run.exit_code == 0, run.output
+    budget = pd.read_csv(tmp_path / "b.csv")
+    rows = budget[budget["source"] == "wavelength"]
+    assert np.allclose(rows["input_uncertainty"], 0.05)
+    assert set(rows["distribution"]) == {"normal"}
+    assert "cell_blank" in run.stdout  # a single blank scan: not stated, and said so

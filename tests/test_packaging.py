@@ -1,0 +1,38 @@
+"""The package list in pyproject.toml names every subpackage, and demo data ship with it.
+
+CI installs mixsolve non-editable from that explicit list, so a subpackage left out of it
+would be missing from the installed package while the source tree still looked fine.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _pyproject() -> dict:
+    path = ROOT / "pyproject.toml"
+    if not path.exists():
+        pytest.skip("not run from a source checkout")
+    return tomllib.loads(path.read_text())
+
+
+def test_every_subpackage_is_listed():
+    """Each folder of mixsolve/ holding an __init__.py appears in tool.setuptools.packages."""
+    listed = set(_pyproject()["tool"]["setuptools"]["packages"])
+    found = {".".join(p.parent.relative_to(ROOT).parts)
+             for p in (ROOT / "mixsolve").rglob("__init__.py")}
+    assert found <= listed, f"missing from pyproject.toml: {sorted(found - listed)}"
+
+
+def test_demo_data_are_installed_with_the_package():
+    """The demo's files are reachable through the installed package (or the checkout)."""
+    from mixsolve.workflows.demo import demo_file
+
+    for name in ("standards_spectra.csv", "standards.csv", "batches_spectra.csv",
+                 "batches_truth.csv", "README.md"):
+        assert demo_file(name).is_file(), name

@@ -1,0 +1,268 @@
+"""Wavelength-shift sensitivity (mixsolve.diagnostics.shift) and the shift fit
+(mixsolve.solve.shift_fit, ``unmix(fit_shift=True)``).
+
+The library is made of invented Gaussian bands on a fine 0.5 nm grid so that the "truth"
+can be evaluated analytically at any shifted wavelength; noise is seeded.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import xarray as xr
+
+import mixsolve as ms
+from mixsolve.diagnostics.check import check_wavelengths
+from mixsolve.diagnostics.shift import library_derivative, shift_matrix
+from mixsolve.errors import InputError
+
+SEED = 808
+#: Invented bands: (height L/(mol*cm), centre nm, width nm) per component.
+BANDS = {"amber": (1.2e4, 460.0, 25.0), "rose": (1.0e4, 530.0, 22.0),
+         "teal": (1.4e4, 610.0, 30.0)}
+LIB_WL = np.arange(380.0, 720.01, 0.5)
+MEAS_WL = np.arange(400.0, 700.01, 1.0)
+CONC = np.array([4e-5, 3e-5, 5e-5])  # mol/L; peaks ≈ 0.5-0.8 AU at 1 cm
+
+
+def eps_at(wl: np.ndarray, names: list[str] | None = None) -> np.ndarray:
+    """Analytic absorptivities (component, wavelength) of the invented bands at ``wl``."""
+    names = list(BANDS) if names is None else names
+    return np.vstack([h * np.exp(-0.5 * ((wl - c) / w) ** 2)
+                      for h, c, w in (BANDS[n] for n in names)])
+
+
+def make_library(names: list[str] | None = None, wl: np.ndarray = LIB_WL) -> xr.Dataset:
+    """Library of the invented bands on ``wl`` (default 380-720 nm every 0.5 nm)."""
+    names = list(BANDS) if names is None else names
+    da = xr.DataArray(eps_at(wl, names), dims=("component", "wavelength"),
+                      coords={"component": names, "wavelength": wl})
+    return ms.import_absorptivities(da, "L/(mol*cm)")
+
+
+def shifted_spectra(conc: np.ndarray, shifts: list[float], noise: float = 0.0,
+                    seed: int = SEED, wl: np.ndarray = MEAS_WL) -> xr.DataArray:
+    """Spectra whose true wavelength is λ + δ: A(λ) = Σ cₖ εₖ(λ + δ), one row per δ."""
+    rng = np.random.default_rng(seed)
+    rows = np.vstack([np.atleast_2d(conc)[i % len(np.atleast_2d(conc))] @ eps_at(wl + d)
+                      for i, d in enumerate(shifts)])
+    return ms.make_spectra(rows + noise * rng.standard_normal(rows.shape), wl)
+
+
+@pytest.fixture(scope="module")
+def library() -> xr.Dataset:
+    """Three-component Gaussian library on a 0.5 nm grid."""
+    return make_library()
+
+
+# --- shift sensitivity ---------------------------------------------------------------------
+
+def test_band_maxima_are_insensitive_and_shoulders_are_sensitive(library):
+    """At the band maxima ε′ ≈ 0, so a shift costs nothing to first order; one band width
+    off the centre |ε′/ε| = 1/w, so the self-sensitivity is near ±1/w per nm.
+    """
+    maxima = check_wavelengths(library, wavelengths=[460, 530, 610])
+    low_side = check_wavelengths(library, wavelengths=[435, 508, 580])
+    at_max = np.abs(maxima["shift_sensitivity"].values)
+    at_shoulder = np.abs(low_side["shift_sensitivity"].values)
+    assert np.all(at_max < 0.005), at_max
+    assert np.all(at_shoulder > 10 * at_max.max())
+    widths = np.array([b[2] for b in BANDS.values()])
+    np.testing.assert_allclose(at_shoulder, 1 / widths, rtol=0.05)
+    # a wavelength on the short side of a band reads high for a +1 nm error (ε rising)
+    assert np.all(low_side["shift_sensitivity"].values > 0)
+
+
+def test_shoulders_of_a_pair_are_riskier_than_their_maxima():
+    """Two well-separated components checked alone at two wavelengths."""
+    lib = make_library(["amber", "teal"])
+    peaks = check_wavelengths(lib, wavelengths=[460, 610])
+    shoulders = check_wavelengths(lib, wavelengths=[430, 650])
+    assert np.all(np.abs(shoulders["shift_sensitivity"].values)
+                  > 5 * np.abs(peaks["shift_sensitivity"].values))
+
+
+def _finite_difference_shift(lib: xr.Dataset, wavelengths: list[float] | None,
+                             window: tuple[float, float] | None, h: float = 0.01
+                             ) -> np.ndarray:
+    """∂c/∂δ per unit of each source component by re-solving shifted spectra (±h nm)."""
+    names = [str(c) for c in lib["component"].values]
+    n = len(names)
+    scale = 1e-4  # mol/L of the source component
+    out = np.empty((n, n))
+    for j in range(n):
+        conc = np.zeros(n)
+        conc[j] = scale
+        fits = []
+        for d in (h, -h):
+            spectra = ms.make_spectra(conc @ eps_at(MEAS_WL + d, names), MEAS_WL)
+            res = ms.unmix(spectra, lib, method="ols", wavelengths=wavelengths, window=window)
+            fits.append(res["concentration"].values[0])
+        out[:, j] = (fits[0] - fits[1]) / (2 * h) / scale
+    return out
+
+
+@pytest.mark.parametrize(("wavelengths", "window"), [
+    ([435.0, 470.0, 508.0, 560.0, 640.0], None),
+    (None, (420.0, 680.0)),
+])
+def test_shift_matrix_equals_a_finite_difference_estimate(library, wavelengths, window):
+    """S = D⁺K′ against re-solving spectra shifted by ±0.01 nm, to a few per cent of the
+    largest entry (the analytic bands vs the library's gradient on its 0.5 nm grid).
+    """
+    check = check_wavelengths(library, wavelengths=wavelengths, window=window)
+    fd = _finite_difference_shift(library, wavelengths, window)
+    s = check["shift_matrix"].transpose("component", "source").values
+    np.testing.assert_allclose(s, fd, rtol=0.03, atol=0.03 * np.abs(fd).max())
+    np.testing.assert_allclose(check["shift_sensitivity"].values, np.diag(fd), rtol=0.03,
+                               atol=0.03 * np.abs(fd).max())
+
+
+def test_library_derivative_is_the_slope_of_the_library():
+    """dε/dλ on the grid (interpolated to the wavelengths asked for) against the analytic
+    derivative of a Gaussian; NaN for a library with fewer than 3 wavelengths.
+    """
+    h, c, w = BANDS["rose"]
+    at = np.array([500.0, 512.25, 530.0, 551.0])
+    slope = library_derivative(eps_at(LIB_WL, ["rose"]), LIB_WL, at)
+    exact = -h * (at - c) / w**2 * np.exp(-0.5 * ((at - c) / w) ** 2)
+    np.testing.assert_allclose(slope[:, 0], exact, rtol=0.01, atol=1e-3 * h / w)
+    short = library_derivative(np.ones((2, 2)), np.array([500.0, 510.0]), at)
+    assert short.shape == (4, 2) and np.isnan(short).all()
+
+
+def test_shift_matrix_is_pinv_times_derivative():
+    """shift_matrix(D, K′) = D⁺K′ for a small hand-built system."""
+    d = np.array([[1.0, 0.2], [0.4, 1.0], [0.3, 0.3]])
+    kp = np.array([[0.01, -0.02], [0.0, 0.03], [-0.01, 0.0]])
+    np.testing.assert_allclose(shift_matrix(d, kp), np.linalg.lstsq(d, kp, rcond=None)[0],
+                               rtol=1e-12)
+
+
+def test_discrete_library_has_no_shift_sensitivity():
+    """A two-wavelength library carries no slope: NaN and a note saying so."""
+    lib = make_library(["amber", "teal"], wl=np.array([460.0, 610.0]))
+    check = check_wavelengths(lib)
+    assert np.isnan(check["shift_sensitivity"].values).all()
+    assert any("shift sensitivity not available" in n for n in check.attrs["notes"])
+
+
+def test_unmix_shift_bias_is_the_shift_matrix_times_the_concentrations(library):
+    """``shift_bias_per_nm`` = S·c at the fitted composition, in the result unit."""
+    wl = [435.0, 470.0, 508.0, 560.0, 640.0]
+    spectra = shifted_spectra(CONC, [0.0])
+    res = ms.unmix(spectra, library, method="ols", wavelengths=wl)
+    s = check_wavelengths(library, wavelengths=wl)["shift_matrix"].values
+    expected = s @ res["concentration"].values[0]
+    np.testing.assert_allclose(res["shift_bias_per_nm"].values[0], expected, rtol=1e-9)
+    assert res["shift_bias_per_nm"].attrs["units"] == "mol/L per nm"
+
+
+def test_shift_sensitive_flag_follows_the_wavelength_tolerance(library):
+    """Shoulder wavelengths are flagged ``shift_sensitive`` when a large wavelength error is
+    assumed (2 nm), not when the instrument is perfect (0 nm); maxima are never flagged.
+    """
+    spectra = shifted_spectra(CONC, [0.0], noise=1e-4)
+    shoulders = [430.0, 435.0, 500.0, 505.0, 640.0, 645.0]
+    maxima = [459.0, 460.0, 461.0, 529.0, 530.0, 531.0, 609.0, 610.0, 611.0]
+    loose = ms.unmix(spectra, library, method="ols", wavelengths=shoulders,
+                     wavelength_tolerance_nm=2.0)
+    strict = ms.unmix(spectra, library, method="ols", wavelengths=shoulders,
+                      wavelength_tolerance_nm=0.0)
+    peaks = ms.unmix(spectra, library, method="ols", wavelengths=maxima,
+                     wavelength_tolerance_nm=2.0)
+    assert "shift_sensitive:" in str(loose["flags"].values[0])
+    assert "shift_sensitive" not in str(strict["flags"].values[0])
+    assert "shift_sensitive" not in str(peaks["flags"].values[0])
+    assert loose.attrs["wavelength_tolerance_nm"] == 2.0
+    with pytest.raises(InputError, match=r"wavelength_tolerance_nm: -1 nm must be a number ≥ 0"):
+        ms.unmix(spectra, library, wavelength_tolerance_nm=-1.0)
+
+
+# --- fit_shift -----------------------------------------------------------------------------
+
+def test_fit_shift_recovers_known_offsets_and_improves_concentrations(library):
+    """Spectra at λ + δ (δ = +0.8, −1.5, 0 nm, noise 0.001 AU): the fitted δ lies within
+    3 u(δ) of the truth, and the concentrations of the shifted samples are at least 3×
+    closer to the truth than without the shift term (about 13-80× for these seeds).
+    """
+    shifts = [0.8, -1.5, 0.0]
+    spectra = shifted_spectra(CONC, shifts, noise=1e-3)
+    # 420-600 nm sees teal only on its rising side, where a shift matters most
+    fitted = ms.unmix(spectra, library, window=(420, 600), fit_shift=True)
+    plain = ms.unmix(spectra, library, window=(420, 600))
+    delta = fitted["wavelength_shift_nm"].values
+    u = fitted["u_wavelength_shift_nm"].values
+    assert np.all(np.isfinite(u)) and np.all(u > 0) and np.all(u < 0.1)
+    assert np.all(np.abs(delta - shifts) < 3 * u), (delta, u)
+    err_fit = np.abs(fitted["concentration"].values - CONC) / CONC
+    err_plain = np.abs(plain["concentration"].values - CONC) / CONC
+    for i in (0, 1):  # the shifted samples
+        assert err_fit[i].max() < err_plain[i].max() / 3, (err_fit[i], err_plain[i])
+    assert err_fit.max() < 0.01
+    assert fitted["wavelength_shift_nm"].attrs["units"] == "nm"
+    assert fitted.attrs["fit_shift"] == 1 and plain.attrs["fit_shift"] == 0
+    assert "wavelength_shift_nm" not in plain
+    # the shift costs one degree of freedom
+    np.testing.assert_array_equal(fitted["dof"].values, plain["dof"].values - 1)
+
+
+def test_fit_shift_is_exact_on_noiseless_spectra(library):
+    """Without noise the offset is found to 0.01 nm (library interpolation limits it)."""
+    spectra = shifted_spectra(CONC, [1.2, -0.4])
+    fitted = ms.unmix(spectra, library, method="ols", window=(420, 680), fit_shift=True)
+    np.testing.assert_allclose(fitted["wavelength_shift_nm"].values, [1.2, -0.4], atol=0.01)
+    np.testing.assert_allclose(fitted["concentration"].values, np.vstack([CONC, CONC]),
+                               rtol=2e-3)
+
+
+def test_shift_uncertainty_matches_the_spread_of_replicates(library):
+    """u(δ) is the linearised standard uncertainty: across 40 seeded replicates the SD of
+    the fitted δ agrees with the mean reported u(δ) within 35 %, and the mean δ with the
+    truth within 4 standard errors.
+    """
+    spectra = shifted_spectra(np.tile(CONC, (40, 1)), [-0.7] * 40, noise=2e-3, seed=SEED + 5)
+    fitted = ms.unmix(spectra, library, method="ols", window=(420, 680), fit_shift=True)
+    delta = fitted["wavelength_shift_nm"].values
+    u = fitted["u_wavelength_shift_nm"].values
+    assert np.std(delta, ddof=1) == pytest.approx(u.mean(), rel=0.35)
+    assert abs(delta.mean() + 0.7) < 4 * u.mean() / np.sqrt(40)
+
+
+def test_fit_shift_with_an_offset_baseline(library):
+    """The shift fit works with baseline terms: offset and δ recovered together."""
+    spectra = shifted_spectra(CONC, [0.6])
+    spectra = spectra + 0.02
+    fitted = ms.unmix(spectra, library, window=(420, 680), fit_shift=True, baseline="offset",
+                      method="ols")
+    assert float(fitted["wavelength_shift_nm"].values[0]) == pytest.approx(0.6, abs=0.02)
+    assert float(fitted["baseline"].values[0, 0]) == pytest.approx(0.02, abs=1e-3)
+
+
+def test_fit_shift_refuses_a_window_that_leaves_the_library(library):
+    """λ ± max_shift must stay inside the library; the message gives the window to use."""
+    spectra = shifted_spectra(CONC, [0.0], wl=np.arange(380.0, 720.01, 1.0))
+    with pytest.raises(InputError, match=r"fit_shift: the used wavelengths 380-700 nm ± 3 nm "
+                                         r"reach outside the library \(380-720 nm\); narrow "
+                                         r"the window to 383-717 nm"):
+        ms.unmix(spectra, library, window=(380, 700), fit_shift=True)
+    with pytest.raises(InputError, match=r"reach outside the library"):
+        ms.unmix(spectra, library, window=(400, 716), fit_shift=True, max_shift_nm=5.0)
+    ms.unmix(spectra, library, window=(400, 715), fit_shift=True, max_shift_nm=5.0)
+
+
+@pytest.mark.parametrize("bad", [0.0, -1.0, float("nan")])
+def test_fit_shift_refuses_a_non_positive_search_bound(library, bad):
+    """max_shift_nm must be a positive number."""
+    spectra = shifted_spectra(CONC, [0.0])
+    with pytest.raises(InputError, match=r"max_shift_nm: .* nm must be a positive number"):
+        ms.unmix(spectra, library, window=(420, 680), fit_shift=True, max_shift_nm=bad)
+
+
+def test_fit_shift_needs_a_library_with_slopes():
+    """A library given at two discrete wavelengths carries no slope: refused clearly."""
+    lib = make_library(["amber", "teal"], wl=np.array([460.0, 610.0]))
+    spectra = ms.make_spectra(np.array([[0.5, 0.6]]), [460.0, 610.0])
+    with pytest.raises(InputError, match=r"fit_shift: the library has fewer than 3 "
+                                         r"wavelengths"):
+        ms.unmix(spectra, lib, fit_shift=True)
