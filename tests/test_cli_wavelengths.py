@@ -342,7 +342,7 @@ def test_unmix_noise_weights_through_the_cli(files, tmp_path):
     (("--weights", "noise"), "weights='noise' needs a noise model"),
     (("--noise", "bogus"), "noise: unknown preset 'bogus'; presets are benchtop_double_beam"),
     (("--noise", "-0.001"), "noise: σ_A = -0.001 AU must be a positive number"),
-    (("--range", "0-2"), "absorbance_range: low end 0 AU must be above 0"),
+    (("--range", "0-2"), "absorbance_range: 0-2 AU must be two increasing absorbances above 0"),
     (("--range", "abc"), "--range: 'abc' is not LOW-HIGH"),
     (("--wavelength-tolerance", "-1"), "wavelength_tolerance_nm: -1 nm must be a number ≥ 0"),
 ])
@@ -360,12 +360,13 @@ def test_unmix_bad_weights_choice_is_refused_by_click(files):
 
 
 def test_unmix_on_the_demo_with_every_trust_option(demo_library):
-    """The demo batches with noise weights, a shift fit and a stated range: exit 0, a
-    result row per batch and the flag notes printed.
+    """The demo batches with a noise model, a shift fit and a stated range: exit 0, a
+    result row per batch (and one fitted shift per batch) and the flag notes printed.
     """
     batches = demo_file("batches_spectra.csv")
     out = ok("unmix", demo_library, batches, "--window", "420-700", "--noise", "diode_array",
-             "--weights", "noise", "--fit-shift", "--range", "0.2-1.5")
+             "--fit-shift", "--range", "0.2-1.5")
     rows = [line for line in out.stdout.splitlines() if line.startswith("batch_")]
     assert len(rows) == 8
+    assert "Fitted wavelength shift" in out.stdout
     assert "Notes:" in out.stdout

@@ -424,13 +424,15 @@ def test_narrow_unmodelled_band_shows_in_the_lag1_autocorrelation(library, eps):
     """A narrow missing band (0.05 AU at 570 nm, width 15 nm) leaves a residual of ~20σ
     that covers only part of the window; the reported lag-1 autocorrelation is high for
     every spectrum and the runs z is negative on average (the runs test alone, being
-    blind to magnitude, does not reach p < 1e-3 for every such spectrum).
+    blind to magnitude, does not reach p < 1e-3 for every such spectrum), so the lag-1
+    criterion (r₁√n > 3.09) flags every one ``structured_residual``.
     """
     extra = 0.05 * np.exp(-0.5 * ((WL - 570.0) / 15.0) ** 2)
     spectra = noisy(eps, np.tile(CONC, (10, 1)), 0.002, seed=SEED + 4) + extra
     result = ms.unmix(spectra, library, method="ols")
     assert np.all(result["residual_lag1"].values > 0.7)
     assert float(np.median(result["runs_z"].values)) < -2.5
+    assert all("structured_residual" in f for f in result["flags"].values)
 
 
 def test_pure_noise_is_rarely_flagged_as_structured(library, eps):
@@ -509,9 +511,10 @@ def test_range_uses_only_the_used_wavelengths(library, eps):
 
 
 @pytest.mark.parametrize(("bad", "message"), [
-    ((0.0, 2.0), r"absorbance_range: low end 0 AU must be above 0"),
-    ((-0.1, 2.0), r"absorbance_range: low end -0.1 AU must be above 0"),
-    ((2.0, 0.3), r"absorbance_range: 2-0.3"),
+    ((0.0, 2.0), r"absorbance_range: 0-2 AU must be two increasing absorbances above 0"),
+    ((-0.1, 2.0), r"absorbance_range: -0.1-2 AU must be two increasing absorbances"),
+    ((2.0, 0.3), r"absorbance_range: 2-0.3 AU must be two increasing absorbances"),
+    (("low", 2.0), r"absorbance_range: expected \(low, high\) in AU"),
 ])
 def test_bad_absorbance_ranges_are_refused(library, eps, bad, message):
     """The range must be an increasing pair of positive absorbances."""

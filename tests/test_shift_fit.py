@@ -266,3 +266,14 @@ def test_fit_shift_needs_a_library_with_slopes():
     with pytest.raises(InputError, match=r"fit_shift: the library has fewer than 3 "
                                          r"wavelengths"):
         ms.unmix(spectra, lib, fit_shift=True)
+
+
+def test_fit_shift_with_noise_weights_is_refused(library):
+    """The shift search is unweighted, so asking for both is an error, not a silent drop."""
+    from mixsolve.errors import InputError
+
+    spectra = shifted_spectra(np.full((1, len(BANDS)), 1e-5), [0.5])
+    with pytest.raises(InputError, match=r"fit_shift: .* cannot be combined with "
+                                         r"weights='noise'"):
+        ms.unmix(spectra, library, fit_shift=True, weights="noise",
+                 noise="benchtop_double_beam")

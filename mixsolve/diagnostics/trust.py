@@ -32,6 +32,12 @@ from mixsolve.spectra import WAVELENGTH
 #: p-value below which lack of fit or residual structure is flagged (judgement; 1 in 1000
 #: clean spectra is flagged by chance).
 FLAG_P_VALUE = 1e-3
+#: Lag-1 autocorrelation limit: under white noise r₁√n is about standard normal, and 3.09 is
+#: its one-sided 0.1 % point. It catches a narrow unmodelled band that the runs test,
+#: which sees only signs, can miss.
+LAG1_Z_LIMIT = 3.09
+#: RMS residual (AU) below which a fit is exact to rounding and is not tested for shape.
+NUMERICAL_ZERO_AU = 1e-10
 #: A component is flagged shift-sensitive when a wavelength error of the stated tolerance
 #: would move a quantifiable concentration by more than this fraction (judgement).
 SHIFT_FLAG_FRACTION = 0.02
@@ -138,7 +144,13 @@ def add_trust_checks(result: xr.Dataset, checks: Mapping[str, xr.DataArray],
     status = result["status"]
     status = status | xr.where(a_max > high, ABOVE_RANGE, 0) \
         | xr.where(a_max < low, BELOW_RANGE, 0)
-    status = status | xr.where(checks["runs_p"] < FLAG_P_VALUE, STRUCTURED, 0)
+    n_used = result.sizes[WAVELENGTH]
+    lag_z = checks["residual_lag1"] * np.sqrt(n_used)
+    shaped = (checks["runs_p"] < FLAG_P_VALUE) | (
+        (lag_z > LAG1_Z_LIMIT) & (n_used >= MIN_POINTS_RUNS))
+    # An exact fit leaves only rounding error (~1e-16 AU), whose signs mean nothing.
+    shaped = shaped & (result["rms_residual"] > NUMERICAL_ZERO_AU)
+    status = status | xr.where(shaped, STRUCTURED, 0)
     if noise is not None:
         status = status | xr.where(checks["lack_of_fit_p"] < FLAG_P_VALUE, LACK_OF_FIT, 0)
     out = result.assign(

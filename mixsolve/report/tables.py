@@ -10,9 +10,10 @@ from mixsolve.library import COMPONENT
 
 RESULT_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
                   "rms_residual_au", "dof", "flags")
-#: Columns added after ``flags`` when the result holds them (PLS predictions).
-OPTIONAL_COLUMNS = ("t2", "t2_limit_95", "t2_limit_99", "q_residual", "q_limit_95",
-                    "q_limit_99")
+#: Columns added after ``flags`` when the result holds them (a fitted wavelength shift;
+#: PLS predictions).
+OPTIONAL_COLUMNS = ("wavelength_shift_nm", "u_wavelength_shift_nm", "t2", "t2_limit_95",
+                    "t2_limit_99", "q_residual", "q_limit_95", "q_limit_99")
 
 
 def results_table(result: xr.Dataset) -> pd.DataFrame:
@@ -29,7 +30,9 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
     DataFrame
         Columns ``sample, component, concentration, std_uncertainty, unit,
         rms_residual_au, dof, flags``. ``flags`` holds the sample's ``;``-joined flag codes
-        (empty when nothing is doubtful). Results of :func:`mixsolve.predict` (PLS) add
+        (empty when nothing is doubtful). With ``fit_shift`` the fitted offset adds
+        ``wavelength_shift_nm, u_wavelength_shift_nm``. Results of
+        :func:`mixsolve.predict` (PLS) add
         ``t2, t2_limit_95, t2_limit_99, q_residual, q_limit_95, q_limit_99``; there
         ``rms_residual`` and ``dof`` may differ per component. Over several dimensions,
         ``sample`` joins the labels with ``/`` (``3/17``) and one column per dimension

@@ -100,6 +100,12 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
             cells.append(f"{cell:<{cell_w}}")
         rms = float(result["rms_residual"].values[i])
         lines.append(f"{s:<{name_w}}" + "".join(cells) + f"{rms:>9.2g}  {flags[i]}")
+    if "wavelength_shift_nm" in result:
+        shift = result["wavelength_shift_nm"].values
+        u_shift = result["u_wavelength_shift_nm"].values
+        lines += ["", "Fitted wavelength shift (nm, the spectrum matches the library at λ + δ)"]
+        lines += [f"  {s:<{name_w}}{value_with_uncertainty(shift[i], u_shift[i])}"
+                  for i, s in enumerate(samples)]
     lines.append("")
     lines += _notes(_result_notes(result, samples, left_out))
     lines.append(CAUTION)

@@ -170,13 +170,21 @@ def unmix(
     check_option(baseline, BASELINES, "baseline")
     check_option(weights, WEIGHTS, "weights")
     window = check_window(window)
-    low, high = check_window(absorbance_range, "absorbance_range")  # type: ignore[misc]
-    if low <= 0:
-        raise InputError(f"absorbance_range: low end {low:g} AU must be above 0")
+    try:
+        low, high = (float(v) for v in absorbance_range)
+    except (TypeError, ValueError):
+        raise InputError(f"absorbance_range: expected (low, high) in AU, got "
+                         f"{absorbance_range!r}") from None
+    if not (np.isfinite(low) and np.isfinite(high)) or not 0 < low < high:
+        raise InputError(f"absorbance_range: {low:g}-{high:g} AU must be two increasing "
+                         "absorbances above 0, e.g. 0.3-2")
     model = noise_model(noise)
     tolerance = float(wavelength_tolerance_nm)
     if not np.isfinite(tolerance) or tolerance < 0:
         raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm must be a number ≥ 0")
+    if fit_shift and weights != "none":
+        raise InputError("fit_shift: a fitted wavelength shift cannot be combined with "
+                         "weights='noise' (the shift search is unweighted); drop one of them")
     if weights == "noise" and model is None:
         raise InputError("weights='noise' needs a noise model: give noise= a preset name "
                          f"({', '.join(PRESETS)}), a NoiseModel or σ_A in AU")
