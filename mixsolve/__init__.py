@@ -8,32 +8,91 @@ It states where each uncertainty comes from (a GUM budget) and checks the instru
 Everything is labelled with xarray; units travel with the numbers (pint).
 """
 
+from typing import TYPE_CHECKING
+
 from mixsolve._version import __version__
-from mixsolve.corrections import cell_blank, correct_cells, shift_wavelengths
-from mixsolve.diagnostics.absorbance_scale import check_absorbance_scale
-from mixsolve.diagnostics.check import check_wavelengths
-from mixsolve.diagnostics.choose import choose_wavelengths
-from mixsolve.diagnostics.stray_light import check_stray_light
-from mixsolve.diagnostics.wavelength_scale import check_wavelength_scale
 from mixsolve.errors import InputError, MixsolveError, MixsolveWarning
-from mixsolve.io.cubes import read_cube, write_cube
-from mixsolve.io.layout_io import read_layout
-from mixsolve.io.library_store import read_library, write_library
-from mixsolve.io.model_store import read_model, write_model
-from mixsolve.io.plates import read_plate
-from mixsolve.io.spectra_io import read_spectra
-from mixsolve.library import build_library, import_absorptivities, resample_library
-from mixsolve.noise import NoiseModel
-from mixsolve.repeatability import repeatability
-from mixsolve.report.tables import results_table
-from mixsolve.solve.pls_calibrate import calibrate
-from mixsolve.solve.pls_predict import predict
-from mixsolve.solve.unmix import flags_of, unmix
-from mixsolve.spectra import make_spectra
-from mixsolve.uncertainty import budget_table, uncertainty_budget
-from mixsolve.volumetric import parse_dilution
-from mixsolve.workflows.plate import run_plates
-from mixsolve.workflows.plate_analysis import analyse_plate
+
+# The public names are imported on first use, so that `import mixsolve` (and every CLI
+# call) does not pay for scikit-learn, scipy.stats, matplotlib and dask up front. The
+# explicit imports under TYPE_CHECKING keep the names visible to type checkers and IDEs.
+_LAZY: dict[str, str] = {
+    "NoiseModel": "mixsolve.noise",
+    "analyse_plate": "mixsolve.workflows.plate_analysis",
+    "budget_table": "mixsolve.uncertainty",
+    "build_library": "mixsolve.library",
+    "calibrate": "mixsolve.solve.pls_calibrate",
+    "cell_blank": "mixsolve.corrections",
+    "check_absorbance_scale": "mixsolve.diagnostics.absorbance_scale",
+    "check_stray_light": "mixsolve.diagnostics.stray_light",
+    "check_wavelength_scale": "mixsolve.diagnostics.wavelength_scale",
+    "check_wavelengths": "mixsolve.diagnostics.check",
+    "choose_wavelengths": "mixsolve.diagnostics.choose",
+    "correct_cells": "mixsolve.corrections",
+    "flags_of": "mixsolve.solve.unmix",
+    "import_absorptivities": "mixsolve.library",
+    "make_spectra": "mixsolve.spectra",
+    "parse_dilution": "mixsolve.volumetric",
+    "predict": "mixsolve.solve.pls_predict",
+    "read_cube": "mixsolve.io.cubes",
+    "read_layout": "mixsolve.io.layout_io",
+    "read_library": "mixsolve.io.library_store",
+    "read_model": "mixsolve.io.model_store",
+    "read_plate": "mixsolve.io.plates",
+    "read_spectra": "mixsolve.io.spectra_io",
+    "repeatability": "mixsolve.repeatability",
+    "resample_library": "mixsolve.library",
+    "results_table": "mixsolve.report.tables",
+    "run_plates": "mixsolve.workflows.plate",
+    "shift_wavelengths": "mixsolve.corrections",
+    "uncertainty_budget": "mixsolve.uncertainty",
+    "unmix": "mixsolve.solve.unmix",
+    "write_cube": "mixsolve.io.cubes",
+    "write_library": "mixsolve.io.library_store",
+    "write_model": "mixsolve.io.model_store",
+}
+
+if TYPE_CHECKING:
+    from mixsolve.corrections import cell_blank, correct_cells, shift_wavelengths
+    from mixsolve.diagnostics.absorbance_scale import check_absorbance_scale
+    from mixsolve.diagnostics.check import check_wavelengths
+    from mixsolve.diagnostics.choose import choose_wavelengths
+    from mixsolve.diagnostics.stray_light import check_stray_light
+    from mixsolve.diagnostics.wavelength_scale import check_wavelength_scale
+    from mixsolve.io.cubes import read_cube, write_cube
+    from mixsolve.io.layout_io import read_layout
+    from mixsolve.io.library_store import read_library, write_library
+    from mixsolve.io.model_store import read_model, write_model
+    from mixsolve.io.plates import read_plate
+    from mixsolve.io.spectra_io import read_spectra
+    from mixsolve.library import build_library, import_absorptivities, resample_library
+    from mixsolve.noise import NoiseModel
+    from mixsolve.repeatability import repeatability
+    from mixsolve.report.tables import results_table
+    from mixsolve.solve.pls_calibrate import calibrate
+    from mixsolve.solve.pls_predict import predict
+    from mixsolve.solve.unmix import flags_of, unmix
+    from mixsolve.spectra import make_spectra
+    from mixsolve.uncertainty import budget_table, uncertainty_budget
+    from mixsolve.volumetric import parse_dilution
+    from mixsolve.workflows.plate import run_plates
+    from mixsolve.workflows.plate_analysis import analyse_plate
+
+
+def __getattr__(name: str) -> object:
+    """Import a public name from its module the first time it is asked for."""
+    if name in _LAZY:
+        import importlib
+
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'mixsolve' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))
+
 
 __all__ = [
     "InputError",

@@ -36,3 +36,13 @@ def test_demo_data_are_installed_with_the_package():
     for name in ("standards_spectra.csv", "standards.csv", "batches_spectra.csv",
                  "batches_truth.csv", "README.md"):
         assert demo_file(name).is_file(), name
+
+
+def test_every_public_name_resolves():
+    """Each name of mixsolve.__all__ imports (they are loaded lazily on first use)."""
+    import mixsolve
+
+    for name in mixsolve.__all__:
+        assert getattr(mixsolve, name) is not None, name
+    with pytest.raises(AttributeError, match="no attribute 'not_a_name'"):
+        mixsolve.not_a_name  # noqa: B018
