@@ -40,7 +40,7 @@ _LAZY: dict[str, str] = {
     "read_model": "mixsolve.io.model_store",
     "read_plate": "mixsolve.io.plates",
     "read_spectra": "mixsolve.io.spectra_io",
-    "repeatability": "mixsolve.repeatability",
+    "repeatability": "mixsolve.repeat_scans",
     "resample_library": "mixsolve.library",
     "results_table": "mixsolve.report.tables",
     "run_plates": "mixsolve.workflows.plate",
@@ -67,7 +67,7 @@ if TYPE_CHECKING:
     from mixsolve.io.spectra_io import read_spectra
     from mixsolve.library import build_library, import_absorptivities, resample_library
     from mixsolve.noise import NoiseModel
-    from mixsolve.repeatability import repeatability
+    from mixsolve.repeat_scans import repeatability
     from mixsolve.report.tables import results_table
     from mixsolve.solve.pls_calibrate import calibrate
     from mixsolve.solve.pls_predict import predict

@@ -46,3 +46,12 @@ def test_every_public_name_resolves():
         assert getattr(mixsolve, name) is not None, name
     with pytest.raises(AttributeError, match="no attribute 'not_a_name'"):
         mixsolve.not_a_name  # noqa: B018
+
+
+def test_no_public_name_is_shadowed_by_a_submodule():
+    """A submodule named like a public function would replace it once imported."""
+    import mixsolve
+
+    modules = {p.stem for p in (ROOT / "mixsolve").glob("*.py")} | {
+        p.parent.name for p in (ROOT / "mixsolve").glob("*/__init__.py")}
+    assert not modules & set(mixsolve.__all__)

@@ -23,7 +23,7 @@ from mixsolve.diagnostics.wavelength_scale import check_wavelength_scale
 from mixsolve.io.log_io import append_log
 from mixsolve.io.results_io import write_table
 from mixsolve.io.spectra_io import read_spectra
-from mixsolve.repeatability import repeatability
+from mixsolve.repeat_scans import repeatability
 from mixsolve.report.instrument_text import check_records, format_check, format_repeatability
 
 PathLike = str | os.PathLike[str]

@@ -22,7 +22,7 @@ from mixsolve.corrections import CellCorrection, cell_blank, correct_cells, shif
 from mixsolve.errors import InputError
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.measurement_model import DEFAULT_FILL_VOLUME_UL
-from mixsolve.repeatability import repeatability
+from mixsolve.repeat_scans import repeatability
 from mixsolve.report.budget_text import format_budget
 from mixsolve.uncertainty import uncertainty_budget
 from mixsolve.volumetric import parse_dilution
