@@ -46,3 +46,7 @@ class LinearityWarning(MixsolveWarning):
 
 class ExtrapolationWarning(MixsolveWarning):
     """Measured wavelengths fall outside the library and were left out of the fit."""
+
+
+class IllConditionedWarning(MixsolveWarning):
+    """The wavelength set separates the components poorly (large condition number)."""

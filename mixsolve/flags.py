@@ -10,6 +10,7 @@ ABOVE_RANGE = 16  # peak absorbance above the reliable range
 BELOW_RANGE = 32  # peak absorbance below the reliable range
 LACK_OF_FIT = 64  # residual larger than the noise model allows
 STRUCTURED = 128  # residual has shape (runs test), not noise
+ILL_CONDITIONED = 256  # the wavelength set amplifies noise > 1000-fold (condition number)
 
 STATUS_CODES: dict[int, str] = {
     NO_DOF: "no_dof",
@@ -20,4 +21,5 @@ STATUS_CODES: dict[int, str] = {
     BELOW_RANGE: "below_range",
     LACK_OF_FIT: "lack_of_fit",
     STRUCTURED: "structured_residual",
+    ILL_CONDITIONED: "ill_conditioned",
 }

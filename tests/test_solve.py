@@ -488,3 +488,39 @@ def test_ols_with_baseline_recovers_offset(molar_library: xr.Dataset,
         warnings.simplefilter("error")
         plain = ms.unmix(shifted, molar_library, method="ols")
     assert not np.allclose(_conc(plain), CONC, rtol=1e-3)
+
+
+def test_ill_conditioned_design_warns_and_flags_every_sample():
+    """Scaled condition number between 10³ and 10⁶: a warning and ``ill_conditioned``.
+
+    Two components whose spectra differ by 0.1 % of a second band are nearly collinear;
+    the condition number (numpy.linalg.cond on unit columns) lies in that range.
+    """
+    from mixsolve.errors import IllConditionedWarning
+
+    wl = np.arange(400.0, 701.0, 5.0)
+    a = np.exp(-0.5 * ((wl - 500) / 40) ** 2)
+    b = a + 1e-3 * np.exp(-0.5 * ((wl - 620) / 30) ** 2)
+    cond = np.linalg.cond(np.stack([a / np.linalg.norm(a), b / np.linalg.norm(b)], axis=1))
+    assert 1e3 < cond < 1e6
+    table = xr.DataArray(np.stack([a, b]) * 1e4, dims=("component", "wavelength"),
+                         coords={"component": ["a", "b"], "wavelength": wl})
+    lib = ms.import_absorptivities(table, "L/(mol*cm)")
+    spectra = ms.make_spectra(np.atleast_2d((a + b) * 0.5), wl)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        result = ms.unmix(spectra, lib, method="ols")
+    assert any(issubclass(w.category, IllConditionedWarning) for w in caught)
+    assert result.attrs["condition_number"] == pytest.approx(cond, rel=1e-6)
+    assert "ill_conditioned" in str(result["flags"].values[0])
+
+
+def test_numerically_singular_design_is_refused():
+    """Proportional spectra rounded to 6 digits (condition number > 10⁶) are refused."""
+    wl = np.arange(400.0, 701.0, 10.0)
+    a = np.round(np.exp(-0.5 * ((wl - 500) / 40) ** 2), 6)
+    table = xr.DataArray(np.stack([a, np.round(2.5 * a, 6)]), dims=("component", "wavelength"),
+                         coords={"component": ["a", "b"], "wavelength": wl})
+    lib = ms.import_absorptivities(table, "L/(mol*cm)")
+    with pytest.raises(SolveError, match="rank deficient: 'a' and 'b'"):
+        ms.unmix(ms.make_spectra(np.atleast_2d(a), wl), lib)

@@ -136,6 +136,9 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
                        f"({result.attrs.get('absorbance_range', '')} AU)",
         "lack_of_fit": "the residual is larger than the noise model allows: an unmodelled "
                        "absorber, scatter, a wrong library or a wrong noise model",
+        "ill_conditioned": "the wavelength set separates the components poorly (scaled "
+                           f"condition number {result.attrs.get('condition_number', 0):.3g} "
+                           "> 1000): noise is amplified that much; choose better wavelengths",
         "structured_residual": "the residual has shape, not noise (runs test): look at the "
                                "residual spectrum for a missing absorber, scatter or a shift",
     }

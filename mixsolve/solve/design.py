@@ -135,14 +135,29 @@ def design_matrix(
     return np.hstack(columns)
 
 
-def check_solvable(design: np.ndarray, term_names: Sequence[str]) -> None:
+#: Scaled condition number above which a design is refused as numerically rank deficient:
+#: it would lose six significant digits, more than any absorbance reading or absorptivity
+#: table carries (typically 3-5), so the results would be noise.
+MAX_CONDITION_NUMBER = 1e6
+#: Scaled condition number above which every result is flagged ``ill_conditioned``
+#: (the "poor" threshold of mixsolve.diagnostics.merit.verdict).
+ILL_CONDITIONED_ABOVE = 1e3
+
+
+def check_solvable(design: np.ndarray, term_names: Sequence[str]) -> float:
     """Refuse an underdetermined or rank-deficient design with a reason.
+
+    Returns
+    -------
+    float
+        The 2-norm condition number of the design with unit-length columns.
 
     Raises
     ------
     SolveError
         Fewer wavelengths than unknowns, or columns that are linearly dependent
-        (for example two components with proportional spectra over the used range).
+        (for example two components with proportional spectra over the used range),
+        exactly or numerically (scaled condition number above ``MAX_CONDITION_NUMBER``).
     """
     n_wl, n_terms = design.shape
     if n_wl < n_terms:
@@ -159,10 +174,11 @@ def check_solvable(design: np.ndarray, term_names: Sequence[str]) -> None:
     scaled = design / norms
     _, sv, vt = np.linalg.svd(scaled, full_matrices=False)
     tol = sv.max() * max(design.shape) * np.finfo(float).eps * 10
-    if sv[-1] <= tol:
+    if sv[-1] <= max(tol, sv.max() / MAX_CONDITION_NUMBER):
         null = vt[-1]
         involved = [term_names[i] for i in np.flatnonzero(np.abs(null) > 0.1)]
         raise SolveError(
             f"rank deficient: {' and '.join(map(repr, involved))} are linearly dependent over "
             "the used wavelengths (their spectra are proportional or combine to one "
             "another), so they cannot be told apart; drop one or choose other wavelengths")
+    return float(sv.max() / sv[-1])

@@ -19,13 +19,15 @@ from mixsolve.diagnostics.trust import (
     add_trust_checks,
     spectrum_checks,
 )
-from mixsolve.errors import ExtrapolationWarning, InputError
+from mixsolve.errors import ExtrapolationWarning, IllConditionedWarning, InputError
+from mixsolve.flags import ILL_CONDITIONED
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
 from mixsolve.solve.cls import METHODS, STATUS_CODES, Fit, Method, fit_spectra
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
+    ILL_CONDITIONED_ABOVE,
     Baseline,
     check_solvable,
     design_matrix,
@@ -212,7 +214,12 @@ def unmix(
     absorptivity = lib_used["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
     design = design_matrix(absorptivity, used_wl, baseline)
     terms = components + list(BASELINE_TERMS[baseline])
-    check_solvable(design, terms)
+    condition = check_solvable(design, terms)
+    if condition > ILL_CONDITIONED_ABOVE:
+        warnings.warn(
+            f"the design is ill conditioned (scaled condition number {condition:.3g}): noise "
+            "is amplified that much; choose better wavelengths (mixsolve wavelengths choose)",
+            IllConditionedWarning, stacklevel=2)
 
     n_comp = len(components)
     if fit_shift:
@@ -259,7 +266,8 @@ def unmix(
             "residual": residual.assign_attrs(units="AU"),
             "rms_residual": named["rms"].assign_attrs(units="AU"),
             "dof": named["dof"],
-            "status": named["status"],
+            "status": named["status"] | (ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE
+                                         else 0),
             "at_zero": (conc == 0) & (method == "nnls"),
             "pathlength_cm": b,
             "unit_factor": factor.assign_attrs(
@@ -272,6 +280,7 @@ def unmix(
             "wavelengths_nm": json.dumps([float(w) for w in used_wl]),
             "left_out_wavelengths_nm": json.dumps([float(w) for w in left_out]),
             "unit": conc_unit,
+            "condition_number": condition,
             "library_unit": library.attrs["unit"],
             "library_provenance": library.attrs.get("provenance", ""),
             "source": spectra.attrs.get("source", ""),

@@ -1,0 +1,290 @@
+"""Corpus of broken inputs driven through every command (policy: docs/errors.md).
+
+Each case is either a clear error — exit code 2, exactly one ``error:`` line on stderr, no
+traceback, no output file or temporary left behind — or a run that completes and flags
+the problem in its output. Inputs are invented, small and written fresh per test.
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from mixsolve.cli import main
+from mixsolve.workflows.demo import demo_file
+
+WL = np.arange(400.0, 701.0, 10.0)
+BANDS = {"red": (450.0, 30.0), "blue": (620.0, 35.0)}
+
+
+def _eps(name: str, wl: np.ndarray = WL) -> np.ndarray:
+    centre, width = BANDS[name]
+    return 10000.0 * np.exp(-0.5 * ((wl - centre) / width) ** 2)
+
+
+def _wide(path: Path, columns: dict[str, np.ndarray], wl: np.ndarray = WL) -> Path:
+    lines = ["wavelength_nm," + ",".join(columns)]
+    lines += [f"{w:g}," + ",".join(f"{col[i]:.6g}" for col in columns.values())
+              for i, w in enumerate(wl)]
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+@pytest.fixture
+def files(tmp_path: Path) -> dict[str, Path]:
+    """Good inputs (a library table and file, spectra) and a folder of broken ones."""
+    f: dict[str, Path] = {"dir": tmp_path}
+    f["table"] = _wide(tmp_path / "eps.csv", {n: _eps(n) for n in BANDS})
+    mix = {f"mix_{i}": (1e-5 * (i + 1)) * _eps("red") + 3e-5 * _eps("blue") for i in range(3)}
+    f["spectra"] = _wide(tmp_path / "mix.csv", mix)
+    f["lib"] = tmp_path / "lib.nc"
+    result = CliRunner().invoke(main, ["library", "import", str(f["table"]), "--unit",
+                                       "L/(mol*cm)", "--out", str(f["lib"])])
+    assert result.exit_code == 0, result.output
+    broken = {
+        "missing": None,
+        "empty": b"",
+        "header_only": b"wavelength_nm,a,b\n",
+        "binary": bytes(range(256)) * 4,
+        "latin1": "wavelength_nm,\xb5g\n400,0.1\n".encode("latin-1"),
+        "text_cell": b"wavelength_nm,a\n400,0.1\n410,abc\n420,0.2\n",
+        "inf_cell": b"wavelength_nm,a\n400,0.1\n410,inf\n420,0.2\n",
+        "dup_wavelength": b"wavelength_nm,a\n400,0.1\n410,0.2\n410,0.3\n",
+        "unknown_layout": b"foo,bar\n1,2\n",
+        "short_row": b"wavelength_nm,a,b\n400,0.1,0.2\n410,0.1\n",
+    }
+    for name, data in broken.items():
+        path = tmp_path / f"{name}.csv"
+        if data is not None:
+            path.write_bytes(data)
+        f[name] = path
+    f["not_library"] = tmp_path / "not_library.nc"
+    f["not_library"].write_text("this is not netCDF\n")
+    return f
+
+
+def run(args: list[object]):
+    """Invoke the CLI with string arguments."""
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def assert_clean_error(result, *, must_not_exist: list[Path] = ()) -> None:
+    """Exit 2, one error line, no traceback, no output or temporary file left."""
+    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
+    assert "Traceback" not in result.output
+    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+    errors = [ln for ln in lines if ln.startswith("error:")]
+    assert len(errors) == 1, lines
+    for path in must_not_exist:
+        assert not Path(path).exists(), path
+        assert not list(Path(path).parent.glob(f".{Path(path).name}.*.part"))
+
+
+BAD_SPECTRA = ["missing", "empty", "header_only", "binary", "latin1", "text_cell", "inf_cell",
+               "dup_wavelength", "unknown_layout", "short_row"]
+
+
+@pytest.mark.parametrize("bad", BAD_SPECTRA)
+def test_unmix_with_broken_spectra(files, bad):
+    """unmix LIB BROKEN --out r.csv: an error and no r.csv."""
+    out = files["dir"] / "r.csv"
+    assert_clean_error(run(["unmix", files["lib"], files[bad], "--out", out]),
+                       must_not_exist=[out])
+
+
+@pytest.mark.parametrize("bad", BAD_SPECTRA)
+def test_library_import_with_broken_table(files, bad):
+    """library import BROKEN: an error and no library file."""
+    out = files["dir"] / "new.nc"
+    assert_clean_error(run(["library", "import", files[bad], "--unit", "L/(mol*cm)",
+                            "--out", out]), must_not_exist=[out])
+
+
+@pytest.mark.parametrize("bad", BAD_SPECTRA)
+def test_library_build_with_broken_standards(files, bad):
+    """library build BROKEN --standards SHEET: an error and no library file."""
+    sheet = files["dir"] / "sheet.csv"
+    sheet.write_text("sample,component,concentration,unit\na,red,1,mg/L\n")
+    out = files["dir"] / "built.nc"
+    assert_clean_error(run(["library", "build", files[bad], "--standards", sheet,
+                            "--out", out]), must_not_exist=[out])
+
+
+@pytest.mark.parametrize("bad", BAD_SPECTRA)
+def test_calibrate_with_broken_spectra(files, bad):
+    """calibrate BROKEN --reference REF: an error and no model file."""
+    ref = files["dir"] / "ref.csv"
+    ref.write_text("sample,component,concentration,unit\nmix_0,red,1,mg/L\n")
+    out = files["dir"] / "model.nc"
+    assert_clean_error(run(["calibrate", files[bad], "--reference", ref, "--out", out]),
+                       must_not_exist=[out])
+
+
+@pytest.mark.parametrize("command", [
+    ["instrument", "absorbance", "{bad}", "--concentration", "60"],
+    ["instrument", "wavelength", "{bad}"],
+    ["instrument", "stray-light", "{bad}"],
+    ["instrument", "repeatability", "{bad}"],
+])
+@pytest.mark.parametrize("bad", ["missing", "empty", "binary", "text_cell", "dup_wavelength"])
+def test_instrument_checks_with_broken_spectra(files, command, bad):
+    """Every instrument check refuses a broken spectra file cleanly (no log written)."""
+    log = files["dir"] / "log.csv"
+    args = [files[bad] if a == "{bad}" else a for a in command]
+    if command[1] != "repeatability":
+        args += ["--log", log]
+    assert_clean_error(run(args), must_not_exist=[log])
+
+
+@pytest.mark.parametrize("bad", ["missing", "empty", "binary", "not_library", "table"])
+@pytest.mark.parametrize("command", [
+    ["library", "show", "{lib}"],
+    ["unmix", "{lib}", "{spectra}"],
+    ["wavelengths", "check", "{lib}"],
+    ["wavelengths", "choose", "{lib}", "--count", "3"],
+])
+def test_commands_with_a_file_that_is_not_a_library(files, command, bad):
+    """A file that is missing, empty, binary, not netCDF or a CSV where a library belongs."""
+    args = [files[bad] if a == "{lib}" else files["spectra"] if a == "{spectra}" else a
+            for a in command]
+    assert_clean_error(run(args))
+
+
+@pytest.mark.parametrize(("options", "what"), [
+    (["--window", "800-900"], "window outside the data"),
+    (["--window", "700-400"], "reversed window"),
+    (["--window", "abc"], "window text"),
+    (["--wavelengths", "405"], "wavelength not measured"),
+    (["--wavelengths", "450"], "fewer wavelengths than components"),
+    (["--pathlength", "0"], "zero pathlength"),
+    (["--pathlength", "-1"], "negative pathlength"),
+    (["--unit", "furlong"], "unknown unit"),
+    (["--unit", "mg/L"], "mass unit without molar masses"),
+    (["--noise", "nonsense"], "unknown noise preset"),
+    (["--weights", "noise"], "weights without a noise model"),
+    (["--range", "2-0.3"], "reversed range"),
+    (["--method", "lsq"], "unknown method"),
+    (["--out", "/nonexistent-folder/r.csv"], "unwritable output"),
+    (["--report", "/nonexistent-folder/r.html"], "unwritable report"),
+])
+def test_unmix_with_bad_options(files, options, what):
+    """Each bad option of unmix is one clear error line ({what})."""
+    assert_clean_error(run(["unmix", files["lib"], files["spectra"], *options]))
+
+
+def test_spectra_range_not_matching_the_library(files):
+    """Spectra measured at 800-900 nm against a 400-700 nm library: nothing to fit."""
+    far = _wide(files["dir"] / "far.csv", {"s": np.ones(11)}, np.arange(800.0, 901.0, 10.0))
+    assert_clean_error(run(["unmix", files["lib"], far]))
+
+
+@pytest.mark.parametrize("kind", ["identical", "collinear"])
+def test_library_with_inseparable_components(files, kind):
+    """Identical or proportional component spectra are refused as rank deficient."""
+    red = _eps("red")
+    table = _wide(files["dir"] / "bad_eps.csv",
+                  {"a": red, "b": red if kind == "identical" else 2.5 * red})
+    lib = files["dir"] / "bad.nc"
+    assert run(["library", "import", table, "--unit", "L/(mol*cm)", "--out", lib]
+               ).exit_code == 0
+    result = run(["unmix", lib, files["spectra"]])
+    assert_clean_error(result)
+    assert "rank deficient" in result.stderr
+
+
+def test_more_components_than_wavelengths(files):
+    """Three components at two wavelengths: underdetermined, refused."""
+    wl = np.array([450.0, 620.0])
+    table = _wide(files["dir"] / "three.csv", {"a": np.array([1.0, 2.0]),
+                                              "b": np.array([2.0, 1.0]),
+                                              "c": np.array([1.0, 1.5])}, wl)
+    lib = files["dir"] / "three.nc"
+    assert run(["library", "import", table, "--unit", "L/(mol*cm)", "--out", lib]
+               ).exit_code == 0
+    spectra = _wide(files["dir"] / "two.csv", {"s": np.array([0.5, 0.6])}, wl)
+    result = run(["unmix", lib, spectra])
+    assert_clean_error(result)
+    assert "underdetermined" in result.stderr
+
+
+def test_missing_readings_are_flagged_not_fatal(files):
+    """An empty cell is a missing reading: the run completes and the sample is flagged."""
+    text = files["spectra"].read_text().splitlines()
+    cells = text[3].split(",")
+    cells[1] = ""
+    text[3] = ",".join(cells)
+    gappy = files["dir"] / "gappy.csv"
+    gappy.write_text("\n".join(text) + "\n")
+    out = files["dir"] / "r.csv"
+    result = run(["unmix", files["lib"], gappy, "--method", "ols", "--out", out])
+    assert result.exit_code == 0, result.output
+    rows = out.read_text().splitlines()
+    assert len(rows) == 1 + 3 * 2  # every sample × component is there
+    assert any("missing_readings" in r and r.startswith("mix_0") for r in rows)
+
+
+def test_descending_wavelengths_are_fine(files):
+    """Non-monotonic (descending) wavelengths are sorted on reading, not an error."""
+    lines = files["spectra"].read_text().splitlines()
+    reversed_file = files["dir"] / "desc.csv"
+    reversed_file.write_text("\n".join([lines[0], *lines[:0:-1]]) + "\n")
+    a = run(["unmix", files["lib"], files["spectra"], "--method", "ols"])
+    b = run(["unmix", files["lib"], reversed_file, "--method", "ols"])
+    assert a.exit_code == b.exit_code == 0
+    assert a.stdout == b.stdout
+
+
+@pytest.mark.parametrize(("layout", "message"), [
+    ("well,role,sample,dilution\nA1,blank,,\nZ99,sample,s1,1\n", "Z99"),
+    ("well,role,sample,dilution\nA1,blank,,\nA1,sample,s1,1\n", "A1"),
+    ("well,role,sample,dilution\nA1,blank,,\nA2,wizard,s1,1\n", "wizard"),
+    ("well,role,sample,dilution\nA1,blank,,\nA2,sample,s1,zero\n", "zero"),
+    ("wellname,kind\nA1,blank\n", "column"),
+])
+def test_plate_with_a_malformed_layout(tmp_path, layout, message):
+    """Unknown, duplicated or badly typed layout lines are errors naming the line."""
+    export = tmp_path / "export.csv"
+    shutil.copy(demo_file("plate_export.csv"), export)
+    lay = tmp_path / "layout.csv"
+    lay.write_text(layout)
+    lib = tmp_path / "lib.nc"
+    run(["library", "build", demo_file("standards_spectra.csv"), "--standards",
+         demo_file("standards.csv"), "--out", lib])
+    out = tmp_path / "out"
+    result = run(["plate", export, "--layout", lay, "--library", lib, "--out", out])
+    assert_clean_error(result)
+    assert message in result.stderr
+    assert not out.exists() or not any(out.iterdir())
+
+
+@pytest.mark.parametrize(("reference", "message"), [
+    ("sample,component,concentration,unit\nmix_0,red,1,mg/L\n", "mix_1"),
+    ("sample,component,concentration,unit\nmix_0,red,abc,mg/L\n", "abc"),
+    ("sample,component,concentration,unit\nmix_0,red,1,furlong\n", "furlong"),
+    ("sample,thing\nmix_0,1\n", "column"),
+])
+def test_calibrate_with_a_malformed_reference(files, reference, message):
+    """Missing samples, text numbers, unknown units or columns in the reference table."""
+    ref = files["dir"] / "ref.csv"
+    ref.write_text(reference)
+    out = files["dir"] / "model.nc"
+    result = run(["calibrate", files["spectra"], "--reference", ref, "--out", out])
+    assert_clean_error(result, must_not_exist=[out])
+    assert message in result.stderr
+
+
+def test_unmix_with_a_model_file_that_is_not_a_model(files):
+    """A netCDF library is not a PLS model, and text is neither: both handled cleanly."""
+    assert run(["unmix", files["lib"], files["spectra"]]).exit_code == 0
+    assert_clean_error(run(["unmix", files["not_library"], files["spectra"]]))
+
+
+def test_demo_with_an_output_path_that_is_a_file(tmp_path):
+    """demo --out FILE (not a folder) is refused."""
+    target = tmp_path / "occupied"
+    target.write_text("x")
+    assert_clean_error(run(["demo", "--out", target]))
