@@ -296,6 +296,15 @@ def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str 
         click.echo(f"wrote {measurement['budget']}", err=True)
 
 
+merit_options = [
+    click.option("--noise", type=float, default=0.001, show_default=True,
+                 help="Reading noise σ_A in AU."),
+    click.option("--baseline", type=click.Choice(["none", "offset", "linear"]),
+                 default="none", show_default=True),
+    click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead."),
+]
+
+
 @main.group()
 def wavelengths() -> None:
     """Check a wavelength selection, or choose a better one."""
@@ -305,11 +314,7 @@ def wavelengths() -> None:
 @click.argument("library_file")
 @add_options(selection_options)
 @click.option("--components", help="Check only these components (comma-separated).")
-@click.option("--noise", type=float, default=0.001, show_default=True,
-              help="Reading noise σ_A in AU.")
-@click.option("--baseline", type=click.Choice(["none", "offset", "linear"]), default="none",
-              show_default=True)
-@click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead.")
+@add_options(merit_options)
 @_guarded
 def wavelengths_check(library_file: str, window: str | None, wavelengths: str | None,
                       components: str | None, noise: float, baseline: str,
@@ -336,11 +341,7 @@ def wavelengths_check(library_file: str, window: str | None, wavelengths: str | 
 @click.option("--window", help="Candidate window LOW-HIGH in nm, both ends included.")
 @click.option("--contiguous", is_flag=True, help="Choose a contiguous run of wavelengths.")
 @click.option("--compare", help="Your own wavelengths (nm, comma-separated) to compare.")
-@click.option("--noise", type=float, default=0.001, show_default=True,
-              help="Reading noise σ_A in AU.")
-@click.option("--baseline", type=click.Choice(["none", "offset", "linear"]), default="none",
-              show_default=True)
-@click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead.")
+@add_options(merit_options)
 @_guarded
 def wavelengths_choose(library_file: str, count: int, window: str | None, contiguous: bool,
                        compare: str | None, noise: float, baseline: str,

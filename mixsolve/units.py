@@ -49,6 +49,16 @@ def _parse(text: str, what: str) -> pint.Unit:
     return quantity.units
 
 
+def _classify(parsed: pint.Unit, canonical: dict[str, str]) -> tuple[Basis, float] | None:
+    """The basis whose canonical unit shares ``parsed``'s dimensions, and the factor to it."""
+    ureg = registry()
+    for basis, name in canonical.items():
+        target = ureg.parse_expression(name).units
+        if parsed.dimensionality == target.dimensionality:
+            return basis, float((1 * parsed).to(target).magnitude)  # type: ignore[return-value]
+    return None
+
+
 def absorptivity_basis(unit: str) -> tuple[Basis, float]:
     """Classify an absorptivity unit and give its factor to the canonical unit.
 
@@ -68,14 +78,12 @@ def absorptivity_basis(unit: str) -> tuple[Basis, float]:
     UnitError
         If the unit is unknown or is not volume / (amount or mass · length).
     """
-    parsed = _parse(unit, "absorptivity unit")
-    ureg = registry()
-    for basis, canonical in ABSORPTIVITY_UNITS.items():
-        target = ureg.parse_expression(canonical).units
-        if parsed.dimensionality == target.dimensionality:
-            return basis, float((1 * parsed).to(target).magnitude)  # type: ignore[arg-type]
+    found = _classify(_parse(unit, "absorptivity unit"), ABSORPTIVITY_UNITS)
+    if found is not None:
+        return found
     raise UnitError(
-        f"absorptivity unit {unit!r} has dimensions {parsed.dimensionality}; expected "
+        f"absorptivity unit {unit!r} has dimensions "
+        f"{_parse(unit, 'absorptivity unit').dimensionality}; expected "
         "volume/(amount*length) such as L/(mol*cm) or volume/(mass*length) such as L/(g*cm)"
     )
 
@@ -96,12 +104,9 @@ def concentration_basis(unit: str, where: str = "concentration unit") -> tuple[B
     factor : float
         Multiply values in ``unit`` by this to get mol/L (molar) or g/L (mass).
     """
-    parsed = _parse(unit, where)
-    ureg = registry()
-    for basis, canonical in CONCENTRATION_UNITS.items():
-        target = ureg.parse_expression(canonical).units
-        if parsed.dimensionality == target.dimensionality:
-            return basis, float((1 * parsed).to(target).magnitude)  # type: ignore[arg-type]
+    found = _classify(_parse(unit, where), CONCENTRATION_UNITS)
+    if found is not None:
+        return found
     raise UnitError(
         f"{where}: {unit!r} is not a concentration; expected amount/volume such as mmol/L "
         "or mass/volume such as mg/L"
