@@ -61,6 +61,16 @@ def _molar_masses(components: list[str], molar_mass: Mapping[str, float] | None)
     return masses
 
 
+def _bandwidth(bandwidth_nm: float | None) -> float:
+    """Spectral bandwidth (nm) as stored: NaN when not stated; refused unless positive."""
+    if bandwidth_nm is None:
+        return float("nan")
+    value = float(bandwidth_nm)
+    if not np.isfinite(value) or value <= 0:
+        raise InputError(f"bandwidth: {value:g} nm is not a positive number")
+    return value
+
+
 def _new_library(
     absorptivity: np.ndarray,
     u_absorptivity: np.ndarray,
@@ -89,7 +99,7 @@ def _new_library(
             "basis": basis,
             "concentration_unit": CONCENTRATION_UNITS[basis],
             "solvent": solvent,
-            "bandwidth_nm": float("nan") if bandwidth_nm is None else float(bandwidth_nm),
+            "bandwidth_nm": _bandwidth(bandwidth_nm),
             "provenance": json.dumps({**provenance, "mixsolve_version": __version__}),
         },
     )

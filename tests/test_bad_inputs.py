@@ -288,3 +288,88 @@ def test_demo_with_an_output_path_that_is_a_file(tmp_path):
     target = tmp_path / "occupied"
     target.write_text("x")
     assert_clean_error(run(["demo", "--out", target]))
+
+
+@pytest.mark.parametrize("which", ["spectra", "library", "same_twice"])
+def test_outputs_never_overwrite_inputs(files, which):
+    """--out naming an input (or two outputs naming one file) is refused; nothing changes."""
+    before = {p: p.read_bytes() for p in (files["spectra"], files["lib"])}
+    if which == "same_twice":
+        target = files["dir"] / "both.csv"
+        args = ["unmix", files["lib"], files["spectra"], "--out", target,
+                "--budget", target]
+    else:
+        target = files["spectra"] if which == "spectra" else files["lib"]
+        args = ["unmix", files["lib"], files["spectra"], "--out", target]
+    result = run(args)
+    assert_clean_error(result)
+    assert "would destroy" in result.stderr
+    assert all(p.read_bytes() == data for p, data in before.items())
+
+
+def test_library_import_onto_its_own_table_is_refused(files):
+    """library import TABLE --out TABLE would replace the table with netCDF."""
+    before = files["table"].read_bytes()
+    assert_clean_error(run(["library", "import", files["table"], "--unit", "L/(mol*cm)",
+                            "--out", files["table"]]))
+    assert files["table"].read_bytes() == before
+
+
+@pytest.mark.parametrize("noise", ["0", "-1"])
+def test_wavelengths_choose_refuses_non_positive_noise(files, noise):
+    """σ_A must be positive in choose as in check."""
+    assert_clean_error(run(["wavelengths", "choose", files["lib"], "--count", "3",
+                            "--noise", noise]))
+
+
+def test_negative_bandwidth_is_refused(files):
+    """A spectral bandwidth must be a positive number of nm."""
+    out = files["dir"] / "bw.nc"
+    assert_clean_error(run(["library", "import", files["table"], "--unit", "L/(mol*cm)",
+                            "--bandwidth-nm", "-1", "--out", out]), must_not_exist=[out])
+
+
+def test_plate_with_unwritable_out_fails_before_any_work(tmp_path):
+    """An --out below a file is refused at once (one line), not after the analysis."""
+    blocker = tmp_path / "afile"
+    blocker.write_text("x")
+    result = run(["plate", demo_file("plate_export.csv"), "--layout",
+                  demo_file("plate_layout.csv"), "--library-from-plate", "--out",
+                  blocker / "po"])
+    assert_clean_error(result)
+
+
+def test_cube_paths_without_the_scale_extra_are_refused(files, monkeypatch):
+    """Without dask/zarr installed, a .zarr output is one clear error, not a traceback."""
+    import importlib.util
+
+    real = importlib.util.find_spec
+    monkeypatch.setattr(importlib.util, "find_spec",
+                        lambda name, *a: None if name in ("dask", "zarr") else real(name, *a))
+    result = run(["unmix", files["lib"], files["spectra"], "--out", files["dir"] / "r.zarr"])
+    assert_clean_error(result)
+    assert "mixsolve[scale]" in result.stderr
+
+
+@pytest.mark.parametrize("option", [["--method", "ols"], ["--fit-shift"],
+                                    ["--noise", "microplate"], ["--range", "0.1-1"]])
+def test_least_squares_options_are_refused_with_a_pls_model(tmp_path, option):
+    """A PLS model fixes its own preprocessing: least-squares options are refused, not ignored."""
+    model = tmp_path / "model.nc"
+    made = run(["calibrate", demo_file("calibration_spectra.csv"), "--reference",
+                demo_file("calibration_reference.csv"), "--out", model])
+    assert made.exit_code == 0, made.output
+    result = run(["unmix", model, demo_file("calibration_test_spectra.csv"), *option])
+    assert_clean_error(result)
+    assert "does not apply to the PLS model" in result.stderr
+
+
+def test_report_shows_the_budget_when_one_is_asked_for(files):
+    """unmix --budget B --report R: the page carries the budget section and its table."""
+    budget = files["dir"] / "b.csv"
+    page = files["dir"] / "r.html"
+    result = run(["unmix", files["lib"], files["spectra"], "--budget", budget,
+                  "--report", page])
+    assert result.exit_code == 0, result.output
+    text = page.read_text()
+    assert "Uncertainty budget" in text and "spectral_noise" in text.replace(" ", "_")

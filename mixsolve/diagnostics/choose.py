@@ -119,6 +119,8 @@ def choose_wavelengths(
     """
     library = check_library(library)
     check_option(baseline, BASELINES, "baseline")
+    if not np.isfinite(float(noise)) or float(noise) <= 0:
+        raise InputError(f"noise: σ_A = {float(noise):g} AU must be a positive number")
     candidates = candidate_wavelengths(library, window=window)
     n = library.sizes[COMPONENT]
     p = n + len(BASELINE_TERMS[baseline])

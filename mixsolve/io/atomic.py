@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import os
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -75,19 +75,43 @@ def ensure_folder(path: str | os.PathLike[str]) -> Path:
     return folder
 
 
-def check_writable(*paths: str | os.PathLike[str] | None) -> None:
-    """Refuse, before anything is written, outputs whose folder is missing or read-only.
+def check_writable(*paths: str | os.PathLike[str] | None,
+                   inputs: Sequence[str | os.PathLike[str] | None] = ()) -> None:
+    """Refuse, before anything is written, outputs that cannot or must not be written.
 
     Jobs that write several files call this first, so that a bad second path cannot leave
-    the first file behind. ``None`` entries (outputs not asked for) are skipped.
+    the first file behind. An output whose folder is missing or read-only is refused, and
+    so is an output that is one of the job's ``inputs`` or another output of the same job
+    (writing it would destroy data). ``None`` entries (outputs not asked for) are skipped.
 
     Raises
     ------
     OutputError
     """
+    seen: dict[Path, str] = {}
+    for raw in inputs:
+        if raw is not None and Path(raw).exists():
+            seen[Path(raw).resolve()] = "an input"
     for path in paths:
         if path is None:
             continue
         target, folder = _target(path)
         if not os.access(folder, os.W_OK):
             raise OutputError(f"{target}: cannot write in {folder} (permission denied)")
+        key = target.resolve()
+        if key in seen:
+            raise OutputError(f"{target}: is also {seen[key]} of this run; writing it would "
+                              "destroy that file, so choose another output name")
+        seen[key] = "another output"
+
+
+def check_folder_writable(path: str | os.PathLike[str]) -> None:
+    """Refuse an output folder that cannot be created or written, before any work is done."""
+    folder = Path(path)
+    if folder.exists() and not folder.is_dir():
+        raise OutputError(f"{folder}: exists and is not a folder")
+    probe = folder
+    while not probe.exists():
+        probe = probe.parent
+    if not probe.is_dir() or not os.access(probe, os.W_OK):
+        raise OutputError(f"{folder}: cannot be created in {probe} (not a writable folder)")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import warnings
 from pathlib import Path
 
 import xarray as xr
@@ -30,8 +31,10 @@ def open_netcdf(path: str | os.PathLike[str]) -> xr.Dataset:
     if p.is_dir():
         raise FileFormatError(f"{path}: is a folder, not a netCDF file")
     try:
-        with xr.open_dataset(p, engine=ENGINE) as ds:
-            return ds.load()
+        with warnings.catch_warnings():  # h5netcdf warns about foreign HDF5 layouts
+            warnings.simplefilter("ignore")
+            with xr.open_dataset(p, engine=ENGINE) as ds:
+                return ds.load()
     except (OSError, ValueError, KeyError, TypeError) as exc:
         raise FileFormatError(
             f"{p.name}: not a readable netCDF file ({exc.__class__.__name__}); a library is "

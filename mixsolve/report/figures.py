@@ -17,7 +17,7 @@ from mixsolve.spectra import SAMPLE, WAVELENGTH
 
 def library_figure(library: xr.Dataset, used_nm: np.ndarray | None = None) -> Figure:
     """Absorptivity of every component (± u(ε) where stated), used wavelengths marked."""
-    fig = Figure(figsize=(7.5, 3.4))
+    fig = Figure(figsize=(7.5, 3.4), layout="constrained")
     ax = fig.add_subplot()
     wl = library[WAVELENGTH].values
     for name in library[COMPONENT].values:
@@ -44,7 +44,7 @@ def library_figure(library: xr.Dataset, used_nm: np.ndarray | None = None) -> Fi
 
 def sample_figure(result: xr.Dataset, sample: str) -> Figure:
     """Measured and fitted spectrum (top) and residual (bottom) of one sample."""
-    fig = Figure(figsize=(4.6, 3.4))
+    fig = Figure(figsize=(4.6, 3.4), layout="constrained")
     top, bottom = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [2, 1]})
     one = result.sel(sample=sample)
     wl = one[WAVELENGTH].values
@@ -66,7 +66,7 @@ def sample_figure(result: xr.Dataset, sample: str) -> Figure:
 
 def precision_figure(noise: NoiseModel, absorbance_range: tuple[float, float]) -> Figure:
     """Predicted relative concentration error of one reading against absorbance."""
-    fig = Figure(figsize=(5.5, 3.4))
+    fig = Figure(figsize=(5.5, 3.4), layout="constrained")
     ax = fig.add_subplot()
     a = np.linspace(0.02, min(3.5, 0.98 * noise.saturation_absorbance()), 400)
     ax.plot(a, 100 * noise.relative_concentration_error(a), color="#2f6f73")

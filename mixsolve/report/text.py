@@ -103,9 +103,11 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
     if "wavelength_shift_nm" in result:
         shift = result["wavelength_shift_nm"].values
         u_shift = result["u_wavelength_shift_nm"].values
-        lines += ["", "Fitted wavelength shift (nm, the spectrum matches the library at λ + δ)"]
-        lines += [f"  {s:<{name_w}}{value_with_uncertainty(shift[i], u_shift[i])}"
-                  for i, s in enumerate(samples)]
+        lines += ["", "Fitted wavelength shift δ (nm): the spectrum read at λ matches the library "
+                  "at λ + δ;", "  the instrument reads λ too high by −δ, so "
+                  "--wavelength-offset takes −δ (the sign the holmium check reports)"]
+        lines += [f"  {s:<{name_w}}{value_with_uncertainty(shift[i], u_shift[i]):<22}"
+                  f"--wavelength-offset {-shift[i]:+.3g}" for i, s in enumerate(samples)]
     lines.append("")
     lines += _notes(_result_notes(result, samples, left_out))
     lines.append(CAUTION)

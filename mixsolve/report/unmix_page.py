@@ -9,15 +9,18 @@ import xarray as xr
 
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel
 from mixsolve.report import html
+from mixsolve.report.budget_text import format_budget
 from mixsolve.report.figures import library_figure, precision_figure, sample_figure
 from mixsolve.report.tables import results_table
 from mixsolve.report.text import _result_notes
+from mixsolve.uncertainty import budget_table
 
 #: Most sample figures drawn; beyond this the worst fits (largest RMS residual) are shown.
 MAX_SAMPLE_FIGURES = 36
 
 
-def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "") -> str:
+def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "",
+                 budget: xr.Dataset | None = None) -> str:
     """Build the HTML page of an :func:`mixsolve.unmix` result.
 
     Parameters
@@ -27,6 +30,9 @@ def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "") ->
         The library used (its spectra are drawn with the used wavelengths marked).
     title : str
         Page title; default names the spectra source.
+    budget : Dataset, optional
+        An uncertainty budget (:func:`mixsolve.uncertainty_budget`) to show: its summary
+        with the largest contributors, and the tidy table of every source.
 
     Returns
     -------
@@ -70,6 +76,12 @@ def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "") ->
         html.section("Results", html.table(table, digits=5)),
         html.section("Notes", html.bullet_list(notes, kind="note") if notes
                      else html.paragraph("Nothing doubtful was found by the checks run.")),
+        *([html.section(
+            "Uncertainty budget",
+            html.paragraph("Combined and expanded uncertainty per result, with the largest "
+                           "contributors (share of u_c²); the full table follows."),
+            f"<pre>{html.escape(format_budget(budget))}</pre>",
+            html.table(budget_table(budget), digits=4))] if budget is not None else []),
         html.section("Library and wavelengths", html.figure(
             library_figure(library, used), "library absorptivities; wavelengths used")),
         html.section("Measured, fitted and residual spectra",

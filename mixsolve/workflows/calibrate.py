@@ -53,7 +53,7 @@ def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None
     CalibrationRun
         The model and :func:`mixsolve.report.calibration_text.format_calibration` of it.
     """
-    check_writable(out, plot)
+    check_writable(out, plot, inputs=[spectra, reference])
     model = calibrate(read_spectra(spectra), read_reference(reference), **options)
     figure = None
     if plot is not None:  # drawn before anything is written: a failure leaves no file

@@ -7,6 +7,7 @@ from collections.abc import Mapping
 
 import xarray as xr
 
+from mixsolve.io.atomic import check_writable
 from mixsolve.io.library_store import write_library
 from mixsolve.io.spectra_io import read_absorptivity_table, read_spectra
 from mixsolve.io.standards_io import molar_masses_from_sheet, read_standards
@@ -19,6 +20,7 @@ def import_library_file(table: PathLike, unit: str, out: PathLike, *,
                         molar_mass: Mapping[str, float] | None = None, solvent: str = "",
                         bandwidth_nm: float | None = None) -> xr.Dataset:
     """Read an absorptivity table, make a library and write it to ``out``."""
+    check_writable(out, inputs=[table])
     eps = read_absorptivity_table(table)
     lib = import_absorptivities(eps, unit, molar_mass_g_per_mol=molar_mass, solvent=solvent,
                                 bandwidth_nm=bandwidth_nm, source=os.path.basename(table))
@@ -31,6 +33,7 @@ def build_library_files(spectra: PathLike, standards: PathLike, out: PathLike | 
                         molar_mass: Mapping[str, float] | None = None, solvent: str = "",
                         bandwidth_nm: float | None = None) -> xr.Dataset:
     """Read standards spectra and sheet, build a library and write it to ``out`` (if given)."""
+    check_writable(out, inputs=[spectra, standards])
     measured = read_spectra(spectra)
     sheet = read_standards(standards)
     masses = {**molar_masses_from_sheet(sheet), **(molar_mass or {})}

@@ -19,7 +19,7 @@ import pandas as pd
 import xarray as xr
 
 from mixsolve.errors import InputError
-from mixsolve.io.atomic import ensure_folder
+from mixsolve.io.atomic import check_folder_writable, ensure_folder
 from mixsolve.io.layout_io import read_layout
 from mixsolve.io.library_store import read_library, write_library
 from mixsolve.io.plates import read_plate
@@ -142,6 +142,7 @@ def run_plates(
         As :func:`read_plate`, :func:`read_layout` and :func:`analyse_plate`; nothing is
         written when any plate fails.
     """
+    check_folder_writable(out)  # before any work is done
     library_path = library if isinstance(library, str | os.PathLike) else None
     paths = find_exports(exports, exclude=[layout, *([library_path] if library_path else []),
                                            Path(out) / "samples.csv"])

@@ -17,7 +17,7 @@ from typing import Any, TextIO
 import numpy as np
 import xarray as xr
 
-from mixsolve.errors import InputError
+from mixsolve.errors import InputError, OutputError
 from mixsolve.io.atomic import check_writable
 from mixsolve.io.cubes import NETCDF_ENGINE, chunk_plan, is_cube_path, read_cube, write_cube
 from mixsolve.io.library_store import read_library
@@ -41,6 +41,12 @@ from mixsolve.workflows.measurement import (
 )
 
 PathLike = str | os.PathLike[str]
+#: Least-squares settings and their defaults: refused with a PLS model unless left as is.
+LS_DEFAULTS: dict[str, tuple[str, object]] = {
+    "weights": ("--weights", "none"), "noise": ("--noise", None),
+    "fit_shift": ("--fit-shift", False), "absorbance_range": ("--range", (0.3, 2.0)),
+    "max_shift_nm": ("--max-shift", 3.0),
+    "wavelength_tolerance_nm": ("--wavelength-tolerance", 0.5)}
 #: Largest result printed as a full table by :func:`format_unmix` (more: a summary).
 TABLE_MOST_SPECTRA = 500
 
@@ -82,16 +88,21 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
             report=report, measurement=measurement, scheduler=scheduler, workers=workers,
             progress=progress, **options)
     extra = measurement_options(measurement)
-    check_writable(out, report, extra.budget)  # before any work: a bad path costs nothing
+    # Before any work: a bad path costs nothing, and no output may overwrite an input.
+    check_writable(out, report, extra.budget,
+                   inputs=[library, spectra, getattr(extra, "cell_blank", None)])
     budget_rows = None
     if file_kind(library) == MODEL_KIND:
         if extra.budget is not None:
             raise InputError("--budget: the uncertainty budget covers least-squares results, "
                              "not a PLS model")
         model = read_model(library)
+        ls_options = [(LS_DEFAULTS[k][0], v, LS_DEFAULTS[k][1])
+                      for k, v in options.items() if k in LS_DEFAULTS]
         for option, value, default in (("--window", window, None),
                                        ("--wavelengths", wavelengths, None),
-                                       ("--baseline", baseline, "none")):
+                                       ("--baseline", baseline, "none"),
+                                       ("--method", method, "nnls"), *ls_options):
             if value != default:
                 raise InputError(
                     f"{option}: does not apply to the PLS model {os.path.basename(library)}, "
@@ -115,7 +126,9 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
     if report is not None:  # built before anything is written: a failure leaves no file
         from mixsolve.report.unmix_page import unmix_report
 
-        page = unmix_report(result, lib)  # lib is set: PLS was refused above
+        page = unmix_report(result, lib,  # lib is set: PLS was refused above
+                            budget=attached_budget(result) if budget_rows is not None
+                            else None)
     if out is not None:
         write_results(result, out)
     if page is not None:
@@ -175,6 +188,11 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         With a cube ``out``: the written result, opened lazily from it. Otherwise the
         computed result without the ``fitted`` and ``residual`` spectra.
     """
+    _require_scale(spectra, out)
+    if out is not None and any(Path(out).resolve() == Path(p).resolve()
+                               for p in (library, spectra)):
+        raise OutputError(f"{out}: is also an input of this run; writing it would destroy "
+                          "that file, so choose another output name")
     extra = measurement_options(measurement)
     for option, value in (("--budget", extra.budget), ("--report", report)):
         if value is not None:
@@ -257,3 +275,17 @@ def format_cube_summary(result: xr.Dataset) -> str:
               + (f" ({100 * flagged / n_spec:.1f} %)" if n_spec else "")]
     lines += [f"  {code:<32}{count:>10}" for code, count in sorted(counts.items())]
     return "\n".join(lines) + "\n"
+
+
+def _require_scale(spectra: PathLike, out: PathLike | None) -> None:
+    """Refuse the chunked path cleanly when the ``scale`` extra is not installed."""
+    import importlib.util
+
+    needed = ["dask"]
+    if any(str(p).endswith(".zarr") for p in (spectra, out) if p is not None):
+        needed.append("zarr")
+    missing = [name for name in needed if importlib.util.find_spec(name) is None]
+    if missing:
+        raise InputError(
+            f"cube files and dask runs need {' and '.join(missing)}, which is not installed; "
+            "install the scale extra: pip install 'mixsolve[scale]'")
