@@ -524,3 +524,18 @@ def test_numerically_singular_design_is_refused():
     lib = ms.import_absorptivities(table, "L/(mol*cm)")
     with pytest.raises(SolveError, match="rank deficient: 'a' and 'b'"):
         ms.unmix(ms.make_spectra(np.atleast_2d(a), wl), lib)
+
+
+def test_result_variables_do_not_inherit_the_input_labels():
+    """A concentration is not an 'absorbance' from the input file: attrs describe the variable."""
+    wl = np.arange(400.0, 701.0, 10.0)
+    a = np.exp(-0.5 * ((wl - 480) / 40) ** 2)
+    b = np.exp(-0.5 * ((wl - 620) / 30) ** 2)
+    table = xr.DataArray(np.stack([a, b]) * 1e4, dims=("component", "wavelength"),
+                         coords={"component": ["a", "b"], "wavelength": wl})
+    lib = ms.import_absorptivities(table, "L/(mol*cm)")
+    spectra = ms.make_spectra(np.atleast_2d(a + b), wl, source="samples.csv")
+    result = ms.unmix(spectra, lib)
+    assert result["concentration"].attrs == {"units": "mol/L"}
+    assert "quantity" not in result["residual"].attrs
+    assert result.attrs["source"] == "samples.csv"

@@ -38,6 +38,8 @@ from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_wind
 from mixsolve.units import conversion_factor
 
 TERM = "term"
+#: Attributes of the input spectra that must not label the result's variables.
+INPUT_ATTRS = ("quantity", "source", "layout", "separator", "decimal", "pathlength_cm")
 #: Variable-length str dtype (object dtype marked as holding str): lazy flags are written
 #: to netCDF and Zarr as strings without being computed first to find their type.
 VLEN_STR = np.dtype(object, metadata={"element_type": str})
@@ -302,6 +304,11 @@ def unmix(
         "wavelength_tolerance_nm": tolerance,
     })
     result["flags"] = flags_of(result)
+    # Variables derived from the spectra inherit their attributes; a concentration is not an
+    # "absorbance" from "samples.csv": keep only what describes the variable itself.
+    for var in result.variables.values():
+        for key in INPUT_ATTRS:
+            var.attrs.pop(key, None)
     return result
 
 
