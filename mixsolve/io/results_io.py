@@ -1,4 +1,4 @@
-"""Write results as a tidy CSV table, atomically."""
+"""Write tables, text and workbooks atomically (the tables are made in report/)."""
 
 from __future__ import annotations
 
@@ -6,10 +6,8 @@ import os
 from pathlib import Path
 
 import pandas as pd
-import xarray as xr
 
 from mixsolve.io.atomic import atomic_path
-from mixsolve.report.tables import results_table
 
 
 def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
@@ -17,11 +15,6 @@ def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
     with atomic_path(path) as tmp:
         table.to_csv(tmp, index=False, float_format="%.6g", lineterminator="\n")
     return Path(path)
-
-
-def write_results(result: xr.Dataset, path: str | os.PathLike[str]) -> Path:
-    """Write the tidy results table of :func:`mixsolve.unmix` to ``path``."""
-    return write_table(results_table(result), path)
 
 
 def write_text(text: str, path: str | os.PathLike[str]) -> Path:

@@ -17,7 +17,7 @@ import xarray as xr
 
 from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.library_store import write_library
-from mixsolve.io.results_io import write_results, write_table
+from mixsolve.io.results_io import write_table
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.io.standards_io import molar_masses_from_sheet, read_standards
 from mixsolve.library import build_library
@@ -90,7 +90,7 @@ def run_demo(out_dir: str | os.PathLike[str] = "mixsolve-demo") -> DemoRun:
     truth = pd.read_csv(demo_file("batches_truth.csv"))
     comparison = compare_with_truth(result, truth)
     write_library(library, folder / "library.nc")
-    write_results(result, folder / "results.csv")
+    write_table(results_table(result), folder / "results.csv")
     write_table(comparison, folder / "comparison.csv")
     within = int(np.sum(np.abs(comparison["difference"])
                         <= 2 * comparison["std_uncertainty"].fillna(np.inf)))

@@ -22,9 +22,10 @@ from mixsolve.io.atomic import check_writable
 from mixsolve.io.cubes import NETCDF_ENGINE, chunk_plan, is_cube_path, read_cube, write_cube
 from mixsolve.io.library_store import read_library
 from mixsolve.io.model_store import file_kind, read_model
-from mixsolve.io.results_io import write_results, write_table, write_text
+from mixsolve.io.results_io import write_table, write_text
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.library import COMPONENT
+from mixsolve.report.tables import results_table
 from mixsolve.report.text import format_results
 from mixsolve.scale import compute, dask_client
 from mixsolve.solve.pls_model import MODEL_KIND
@@ -130,7 +131,7 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
                             budget=attached_budget(result) if budget_rows is not None
                             else None)
     if out is not None:
-        write_results(result, out)
+        write_table(results_table(result), out)
     if page is not None:
         write_text(page, report)  # type: ignore[arg-type]
     if budget_rows is not None:
@@ -217,7 +218,7 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
             return open_result(out)
         small = run(result.drop_vars(["fitted", "residual"]))
     if out is not None:
-        write_results(small, out)
+        write_table(results_table(small), out)
     return small
 
 
