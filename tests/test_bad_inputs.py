@@ -51,6 +51,7 @@ def files(tmp_path: Path) -> dict[str, Path]:
         "header_only": b"wavelength_nm,a,b\n",
         "binary": bytes(range(256)) * 4,
         "latin1": "wavelength_nm,\xb5g\n400,0.1\n".encode("latin-1"),
+        "utf16": "wavelength_nm,a\n400,0.1\n410,0.2\n".encode("utf-16"),
         "text_cell": b"wavelength_nm,a\n400,0.1\n410,abc\n420,0.2\n",
         "inf_cell": b"wavelength_nm,a\n400,0.1\n410,inf\n420,0.2\n",
         "dup_wavelength": b"wavelength_nm,a\n400,0.1\n410,0.2\n410,0.3\n",
@@ -84,7 +85,8 @@ def assert_clean_error(result, *, must_not_exist: list[Path] = ()) -> None:
         assert not list(Path(path).parent.glob(f".{Path(path).name}.*.part"))
 
 
-BAD_SPECTRA = ["missing", "empty", "header_only", "binary", "latin1", "text_cell", "inf_cell",
+BAD_SPECTRA = ["missing", "empty", "header_only", "binary", "latin1", "utf16", "text_cell",
+               "inf_cell",
                "dup_wavelength", "unknown_layout", "short_row"]
 
 
@@ -373,3 +375,10 @@ def test_report_shows_the_budget_when_one_is_asked_for(files):
     assert result.exit_code == 0, result.output
     text = page.read_text()
     assert "Uncertainty budget" in text and "spectral_noise" in text.replace(" ", "_")
+
+
+def test_utf16_gets_a_hint_to_save_as_utf8(files):
+    """UTF-16 text (some spreadsheet exports) is named as such, with the fix."""
+    result = run(["unmix", files["lib"], files["utf16"]])
+    assert_clean_error(result)
+    assert "UTF-16 text; save the file as UTF-8" in result.stderr

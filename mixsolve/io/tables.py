@@ -138,7 +138,13 @@ def _numbered_lines(raw: bytes, name: str) -> list[tuple[int, str]]:
     """Decode UTF-8 text and number its non-blank lines (1 = first line of the file)."""
     if not raw.strip():
         raise FileFormatError(f"{name}: the file is empty")
-    if b"\x00" in raw[:65536]:
+    head = raw[:65536]
+    if head.startswith((b"\xff\xfe", b"\xfe\xff")) or (
+            len(head) >= 4 and head.count(b"\x00") * 3 > len(head)
+            and (head[1::2].count(0) > len(head) // 3 or head[0::2].count(0) > len(head) // 3)):
+        raise FileFormatError(f"{name}: UTF-16 text; save the file as UTF-8 (CSV UTF-8 in a "
+                              "spreadsheet program)")
+    if b"\x00" in head:
         raise FileFormatError(f"{name}: binary data, not a text table (CSV, TSV) or XLSX file")
     try:
         text = raw.decode("utf-8-sig")
