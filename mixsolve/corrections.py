@@ -201,6 +201,11 @@ def pathlength_ratio(in_cell: xr.DataArray, in_nominal_cell: xr.DataArray) -> tu
     return r, float(np.sqrt(s2 / sxx))
 
 
+#: Largest wavelength-scale offset accepted as a correction (nm): pharmacopoeial
+#: tolerances are ±1 nm (UV) and ±3 nm (visible), so ten times that is surely a mistake.
+MAX_WAVELENGTH_OFFSET_NM = 10.0
+
+
 def shift_wavelengths(spectra: xr.DataArray, offset_nm: float) -> xr.DataArray:
     """Correct the wavelength axis by a known scale offset: λ_corrected = λ_read − δ.
 
@@ -226,6 +231,11 @@ def shift_wavelengths(spectra: xr.DataArray, offset_nm: float) -> xr.DataArray:
     delta = float(offset_nm)
     if not np.isfinite(delta):
         raise InputError(f"wavelength offset: {offset_nm!r} nm is not a number")
+    if abs(delta) > MAX_WAVELENGTH_OFFSET_NM:
+        raise InputError(
+            f"wavelength offset: {delta:g} nm is beyond ±{MAX_WAVELENGTH_OFFSET_NM:g} nm; an "
+            "error that large is a fault to repair, not to correct for (check the sign and "
+            "the unit)")
     wl = spectra[WAVELENGTH].values - delta
     if wl[0] <= 0:
         raise InputError(f"wavelength offset: {delta:g} nm would make {wl[0]:g} nm ≤ 0")

@@ -382,3 +382,19 @@ def test_utf16_gets_a_hint_to_save_as_utf8(files):
     result = run(["unmix", files["lib"], files["utf16"]])
     assert_clean_error(result)
     assert "UTF-16 text; save the file as UTF-8" in result.stderr
+
+
+def test_plate_refuses_a_non_positive_max_cv(tmp_path):
+    """--max-cv is a percentage above 0."""
+    result = run(["plate", demo_file("plate_export.csv"), "--layout",
+                  demo_file("plate_layout.csv"), "--library-from-plate", "--out",
+                  tmp_path / "po", "--max-cv", "-5"])
+    assert_clean_error(result)
+    assert "--max-cv: -5 % must be a positive number" in result.stderr
+
+
+def test_unmix_refuses_an_implausible_wavelength_offset(files):
+    """A 100 nm 'correction' is a mistake (sign or unit), not a scale offset."""
+    result = run(["unmix", files["lib"], files["spectra"], "--wavelength-offset", "100"])
+    assert_clean_error(result)
+    assert "beyond ±10 nm" in result.stderr

@@ -165,6 +165,8 @@ def analyse_plate(
     mean and its uncertainty follow :func:`mixsolve.plate.replicate_statistics`.
     """
     plate = check_spectra(plate, "plate")
+    if not np.isfinite(float(max_cv)) or float(max_cv) <= 0:
+        raise InputError(f"--max-cv: {100 * float(max_cv):g} % must be a positive number")
     if WELL not in plate.dims:
         raise InputError(f"plate: dims {plate.dims} have no 'well' dimension; read the export "
                          "with mixsolve.read_plate")
