@@ -98,6 +98,21 @@ def parse_molar_masses(text: str | None) -> dict[str, float] | None:
     return out
 
 
+fit_options = [
+    click.option("--method", type=click.Choice(["nnls", "ols"]), default="nnls",
+                 show_default=True),
+    click.option("--baseline", type=click.Choice(["none", "offset", "linear"]),
+                 default="none", show_default=True),
+]
+noise_options = [
+    click.option("--weights", type=click.Choice(["none", "noise"]), default="none",
+                 show_default=True, help="Weight readings by 1/σ_A² of the noise model."),
+    click.option("--noise", help="Noise model: a preset (benchtop_double_beam, diode_array, "
+                 "microplate, field_photometer) or σ_A in AU; enables the lack-of-fit test."),
+    click.option("--range", "absorbance_range", default="0.3-2", show_default=True,
+                 help="Reliable absorbance range LOW-HIGH (AU) for the range flags."),
+]
+
 selection_options = [
     click.option("--window", help="Wavelength window LOW-HIGH in nm, both ends included."),
     click.option("--wavelengths", help="Discrete wavelengths in nm, comma-separated."),
@@ -243,17 +258,10 @@ def library_show(library_file: str) -> None:
 @click.argument("library_file")
 @click.argument("spectra")
 @add_options(selection_options)
-@click.option("--method", type=click.Choice(["nnls", "ols"]), default="nnls", show_default=True)
-@click.option("--baseline", type=click.Choice(["none", "offset", "linear"]), default="none",
-              show_default=True)
+@add_options(fit_options)
 @click.option("--pathlength", type=float, help="Pathlength in cm [1].")
 @click.option("--unit", help='Concentration unit of the results, e.g. "mg/L", "umol/L".')
-@click.option("--weights", type=click.Choice(["none", "noise"]), default="none",
-              show_default=True, help="Weight readings by 1/σ_A² of the noise model.")
-@click.option("--noise", help="Noise model: a preset (benchtop_double_beam, diode_array, "
-              "microplate, field_photometer) or σ_A in AU; enables the lack-of-fit test.")
-@click.option("--range", "absorbance_range", default="0.3-2", show_default=True,
-              help="Reliable absorbance range LOW-HIGH (AU) for the range flags.")
+@add_options(noise_options)
 @click.option("--fit-shift", is_flag=True, help="Fit one wavelength offset per sample.")
 @click.option("--max-shift", type=float, default=3.0, show_default=True,
               help="Largest wavelength offset searched with --fit-shift (nm).")
@@ -447,9 +455,7 @@ class PlateProgress:
 @click.option("--out", "out_dir", required=True,
               help="Output folder: a subfolder per export, samples.csv for all.")
 @add_options(selection_options)
-@click.option("--method", type=click.Choice(["nnls", "ols"]), default="nnls", show_default=True)
-@click.option("--baseline", type=click.Choice(["none", "offset", "linear"]), default="none",
-              show_default=True)
+@add_options(fit_options)
 @click.option("--unit", help='Concentration unit of the results, e.g. "mg/L", "umol/L".')
 @click.option("--pathlength", type=float, help="One pathlength for every well (cm) [1].")
 @click.option("--volume-ul", type=float, help="Fill volume (µL), with --well-diameter-mm.")
@@ -463,11 +469,7 @@ class PlateProgress:
 @click.option("--sheet", help="XLSX sheet of the exports [first].")
 @click.option("--layout-sheet", help="XLSX sheet of the layout [first].")
 @click.option("--plate-size", type=click.Choice(["96", "384"]), help="Plate format [detected].")
-@click.option("--weights", type=click.Choice(["none", "noise"]), default="none",
-              show_default=True, help="Weight readings by 1/σ_A² of the noise model.")
-@click.option("--noise", help="Noise model: a preset (e.g. microplate) or σ_A in AU.")
-@click.option("--range", "absorbance_range", default="0.3-2", show_default=True,
-              help="Reliable absorbance range LOW-HIGH (AU) for the range flags.")
+@add_options(noise_options)
 @_guarded
 def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
           library_from_plate: bool, out_dir: str, window: str | None, wavelengths: str | None,
