@@ -68,7 +68,8 @@ def make_spectra(
     return check_spectra(da.sortby(WAVELENGTH))
 
 
-def check_spectra(spectra: xr.DataArray, name: str = "spectra") -> xr.DataArray:
+def check_spectra(spectra: xr.DataArray, name: str = "spectra", *,
+                  scan_values: bool = True) -> xr.DataArray:
     """Check a spectra array and return it with float64 wavelengths in ascending order.
 
     Parameters
@@ -76,6 +77,10 @@ def check_spectra(spectra: xr.DataArray, name: str = "spectra") -> xr.DataArray:
     spectra : DataArray with dims (..., "wavelength")
     name : str
         How to refer to the array in error messages.
+    scan_values : bool
+        Look for infinite absorbances (numpy-backed arrays). ``unmix`` passes False: its
+        solver reads every value anyway and refuses an infinity with the same message
+        and its position, so the data are not read one more time.
 
     Raises
     ------
@@ -105,7 +110,7 @@ def check_spectra(spectra: xr.DataArray, name: str = "spectra") -> xr.DataArray:
     out = spectra.assign_coords({WAVELENGTH: wl})
     if np.any(np.diff(wl) < 0):
         out = out.sortby(WAVELENGTH)
-    if not _is_dask(out) and np.isinf(out.values).any():
+    if scan_values and not _is_dask(out) and np.isinf(out.values).any():
         raise InputError(
             f"{name}: absorbance values include infinity; use NaN for a missing reading")
     return out

@@ -55,13 +55,19 @@ def make_cube(shape: tuple[int, ...], seed: int = 7, dims: tuple[str, ...] = ("y
 
 
 def assert_same(eager: xr.Dataset, other: xr.Dataset) -> None:
-    """Same variables, dims, attrs and values (floats to 1e-12 relative, NaN = NaN)."""
+    """Same variables, dims, attrs and values (floats to 1e-12 relative, NaN = NaN).
+
+    The residual is a − D·x: a last-bit difference in D·x (a product computed in other
+    blocks) shows at the scale of the spectra, so it is compared to 1e-12 of that scale.
+    """
     assert set(eager.data_vars) == set(other.data_vars)
+    scale = float(np.nanmax(np.abs(eager["fitted"].values)))
     for name in eager.data_vars:
         a, b = eager[name], other[name].transpose(*eager[name].dims)
         assert a.dims == b.dims, name
         if a.dtype.kind == "f":
-            np.testing.assert_allclose(a.values, b.values, rtol=1e-12, atol=1e-18,
+            np.testing.assert_allclose(a.values, b.values, rtol=1e-12,
+                                       atol=1e-12 * scale if name == "residual" else 1e-18,
                                        err_msg=name)
         elif name == "flags":  # str, object or StringDType (read back from Zarr)
             np.testing.assert_array_equal(np.asarray(a.values, dtype=object).astype(str),
@@ -167,7 +173,8 @@ def test_block_checks_equal_whole_array_checks(library: xr.Dataset) -> None:
     z, p, lag1 = runs_test(result["residual"].values)
     np.testing.assert_allclose(result["runs_z"].values, z, rtol=1e-12, equal_nan=True)
     np.testing.assert_allclose(result["runs_p"].values, p, rtol=1e-12, equal_nan=True)
-    np.testing.assert_allclose(result["residual_lag1"].values, lag1, rtol=1e-12,
+    # a correlation in [-1, 1]: summed in another order by the compiled engine
+    np.testing.assert_allclose(result["residual_lag1"].values, lag1, atol=1e-12,
                                equal_nan=True)
     a_max, a_min = absorbance_extent(cube.values)
     np.testing.assert_allclose(result["absorbance_max"].values, a_max)

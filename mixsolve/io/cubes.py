@@ -18,10 +18,10 @@ from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
 
-import numpy as np
 import xarray as xr
 
 from mixsolve.errors import FileFormatError, OutputError
+from mixsolve.flags import VLEN_STR
 from mixsolve.io.atomic import atomic_path
 from mixsolve.spectra import WAVELENGTH
 
@@ -34,8 +34,6 @@ CHUNK_BYTES = 64_000_000
 #: Name of the absorbance variable written by mixsolve and looked for first when reading.
 ABSORBANCE = "absorbance"
 NETCDF_ENGINE = "h5netcdf"
-#: Variable-length str dtype (object dtype marked as holding str), as xarray writes it.
-VLEN_STR = np.dtype(object, metadata={"element_type": str})
 
 
 def is_cube_path(path: str | os.PathLike[str]) -> bool:

@@ -1,31 +1,58 @@
 """Classical least squares kernel: many spectra against one design matrix.
 
 Works on plain float64 arrays; the public :func:`mixsolve.unmix` wraps it with labels.
-Spectra with missing readings (NaN) are fitted on the wavelengths they have, grouped by
-their pattern of missing values so each pattern is solved once; complete spectra (the
-usual case) form one group that is solved without copying the data.
+Returns coefficients, their standard errors and a summary of each residual spectrum
+(:mod:`mixsolve.solve.residuals`); the fitted and residual spectra themselves are not
+stored (``unmix`` computes them on demand from the coefficients).
+
+Complete spectra (the usual case) are fitted in one pass over the data: the projection
+onto the column-scaled design's QR factor, the NNLS or OLS solve of the reduced problem,
+and the residual summary. Two engines do this and agree to rounding: numpy (always
+available; :mod:`mixsolve.solve.nnls`) and compiled code (:mod:`mixsolve.solve.fused`,
+when numba is installed, for batches of at least ``COMPILED_MIN_SPECTRA`` spectra); the
+environment variable ``MIXSOLVE_ENGINE`` (``numpy`` or ``compiled``) forces one
+(:func:`choose_engine`). The caller splits a large batch among threads. Spectra with
+missing readings (NaN) are fitted on the wavelengths they have, grouped by their pattern
+of missing values so that each pattern is solved once.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
-from typing import Literal, NamedTuple
+import functools
+import os
+import threading
+from typing import Any, Literal, NamedTuple
 
 import numpy as np
+from scipy.linalg import solve_triangular
 
+from mixsolve.errors import InputError
 from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, STATUS_CODES, TOO_FEW
-from mixsolve.solve.nnls import nnls_batch
+from mixsolve.solve.nnls import kkt_rtol, nnls_batch, solve_reduced
+from mixsolve.solve.residuals import (
+    ResidualSummary,
+    empty_summary,
+    put,
+    summarise,
+    summarise_model,
+)
 
 Method = Literal["ols", "nnls"]
-#: Spectra per block when computing fitted values and residuals (a few MB at 300 nm).
-BLOCK_SPECTRA = 1024
-#: Rows per product coef @ designᵀ: small enough that OpenBLAS runs it on one thread
-#: (threading a 5-deep product costs more than it saves, badly so on a busy machine).
-GEMM_ROWS = 128
+Engine = Literal["auto", "numpy", "compiled"]
 METHODS: tuple[str, ...] = ("nnls", "ols")
+ENGINES: tuple[str, ...] = ("auto", "numpy", "compiled")
+#: Environment variable that forces an engine (``numpy`` or ``compiled``).
+ENGINE_VARIABLE = "MIXSOLVE_ENGINE"
+#: Smallest batch for which ``auto`` uses compiled code (below, numpy is as quick and
+#: a small job does not load the compiled functions).
+COMPILED_MIN_SPECTRA = 2048
+#: States of a row after the pass over complete spectra (also used by the compiled pass).
+ROW_DONE = 0
+ROW_NOT_FINITE = 1  #: a reading is missing or infinite: fitted, or refused, afterwards
+ROW_ITERATION_LIMIT = 2  #: NNLS not done within its iterations: the numpy solver finishes
 
-__all__ = ["DEPENDENT", "METHODS", "MISSING", "NO_DOF", "STATUS_CODES", "TOO_FEW", "Fit",
-           "fit_spectra", "solve_cls"]
+__all__ = ["DEPENDENT", "ENGINES", "METHODS", "MISSING", "NO_DOF", "STATUS_CODES", "TOO_FEW",
+           "Fit", "choose_engine", "default_threads", "fit_spectra", "solve_cls"]
 
 
 class Fit(NamedTuple):
@@ -33,11 +60,18 @@ class Fit(NamedTuple):
 
     coef: np.ndarray
     std_error: np.ndarray
-    fitted: np.ndarray
-    residual: np.ndarray
     dof: np.ndarray
     status: np.ndarray
     rms: np.ndarray
+    summary: ResidualSummary
+
+
+def default_threads() -> int:
+    """CPUs this process may use (its affinity mask where the system has one)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
 
 
 def solve_cls(
@@ -47,13 +81,13 @@ def solve_cls(
     method: Method,
     weights: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Fit every spectrum (last axis: wavelength) to the design matrix.
+    """Fit every spectrum and return ``coef, std_error, fitted, dof, status``.
 
-    Parameters and the returned ``coef, std_error, fitted, dof, status`` are those of
-    :func:`fit_spectra` (which also returns the residual).
+    As :func:`fit_spectra`, plus the fitted spectra D·coef (..., n_wavelengths), for
+    callers that need them whole (small batches).
     """
     fit = fit_spectra(spectra, design, n_components, method, weights)
-    return fit.coef, fit.std_error, fit.fitted, fit.dof, fit.status
+    return fit.coef, fit.std_error, fit.coef @ design.T, fit.dof, fit.status
 
 
 def fit_spectra(
@@ -62,14 +96,15 @@ def fit_spectra(
     n_components: int,
     method: Method,
     weights: np.ndarray | None = None,
-    on_block: Callable[..., None] | None = None,
+    *,
+    engine: Engine = "auto",
 ) -> Fit:
     """Fit every spectrum (last axis: wavelength) to the design matrix.
 
     Parameters
     ----------
     spectra : array, shape (..., n_wavelengths)
-        Absorbance; NaN marks a missing reading.
+        Absorbance; NaN marks a missing reading. Infinity is refused.
     design : array, shape (n_wavelengths, n_terms)
         Absorptivity columns first (``n_components`` of them), then baseline columns.
     n_components : int
@@ -78,149 +113,291 @@ def fit_spectra(
     weights : array, same shape as ``spectra``, optional
         Weights wᵢ = 1/σᵢ² per reading; each spectrum is then solved on its own with
         rows scaled by √wᵢ, and s² = Σ wᵢrᵢ²/(n − p) (so u stays in concentration units).
-    on_block : callable, optional
-        Called as ``on_block(rows, spectra, fitted, residual, dof, sum_squares)`` (the last
-        Σ r² per spectrum, NaN where a reading is missing) for consecutive blocks
-        of at most ``BLOCK_SPECTRA`` spectra (``rows`` a slice of the flattened leading
-        axes), while the block's arrays are still in cache: for per-spectrum figures that
-        would otherwise take another pass over the data.
+    engine : {"auto", "numpy", "compiled"}
+        Who fits the complete spectra (:func:`choose_engine`).
 
     Returns
     -------
     Fit
         ``coef`` (..., n_terms): fitted coefficients (concentration × pathlength for
         components, AU for the offset, AU/nm for the slope). ``std_error`` (..., n_terms):
-        √(s² · diag (DᵀD)⁻¹) with s² = RSS/(n − p); NaN when n − p = 0. ``fitted``
-        (..., n_wavelengths): D·coef at every used wavelength (also where the reading was
-        missing). ``residual`` (..., n_wavelengths): spectra − fitted (AU, unweighted;
-        NaN where the reading is missing). ``dof`` (...): residual degrees of freedom
-        n − p. ``status`` (...): bitwise OR of the status bits of :mod:`mixsolve.flags`.
-        ``rms`` (...): √(Σ r²/n) over the n readings present (AU, unweighted); NaN when
-        the spectrum could not be fitted.
+        √(s² · diag (DᵀD)⁻¹) with s² = RSS/(n − p); NaN when n − p = 0. ``dof`` (...):
+        residual degrees of freedom n − p. ``status`` (...): bitwise OR of the status bits
+        of :mod:`mixsolve.flags`. ``rms`` (...): √(Σ r²/n) over the n readings present
+        (AU, unweighted); NaN when the spectrum could not be fitted. ``summary``: the
+        :class:`~mixsolve.solve.residuals.ResidualSummary` of each residual
+        (unweighted), fields shaped (...).
+
+    Raises
+    ------
+    InputError
+        A reading is infinite (use NaN for a missing reading).
 
     Notes
     -----
-    ``ols``: ``numpy.linalg.lstsq`` on the column-scaled design. ``nnls``: fast
-    combinatorial active-set NNLS (:func:`mixsolve.solve.nnls.nnls_batch`) with the
-    baseline columns free, checked against ``scipy.optimize.nnls``.
+    ``ols``: least squares through the QR factorisation of the column-scaled design.
+    ``nnls``: fast combinatorial active-set NNLS (:func:`mixsolve.solve.nnls.nnls_batch`,
+    or its compiled twin :mod:`mixsolve.solve.fused`) with the baseline columns free,
+    checked against ``scipy.optimize.nnls``.
     """
     spectra = np.asarray(spectra, dtype=float)
-    if weights is not None:
-        w = np.broadcast_to(np.asarray(weights, dtype=float), spectra.shape)
-        spectra = np.where(np.isfinite(w) & (w > 0), spectra, np.nan)
     lead = spectra.shape[:-1]
     flat = spectra.reshape(-1, spectra.shape[-1])
     n_spec, n_wl = flat.shape
     n_terms = design.shape[1]
-    coef = np.full((n_spec, n_terms), np.nan)
-    std_error = np.full((n_spec, n_terms), np.nan)
-    dof = np.zeros(n_spec, dtype=np.int64)
-    status = np.zeros(n_spec, dtype=np.int64)
-    n_read = np.full(n_spec, np.nan)
-    if weights is None:
-        groups = _missing_groups(flat)
-        root_w = None
-    else:
-        present = ~np.isnan(flat)
+    out = _Outputs(n_spec, n_terms)
+    if weights is not None:
+        w = np.broadcast_to(np.asarray(weights, dtype=float), spectra.shape).reshape(flat.shape)
+        _refuse_infinity(flat, np.arange(n_spec))
+        values = np.where(np.isfinite(w) & (w > 0), flat, np.nan)
+        present = ~np.isnan(values)
         groups = [(present[i], np.array([i])) for i in range(n_spec)]
-        root_w = np.sqrt(np.where(present, w.reshape(flat.shape), 0.0))
-    solved = []
-    for mask, rows in groups:
-        if not mask.all():
-            status[rows] |= MISSING
-        sub = design[mask]
-        n_used = int(mask.sum())
-        if n_used < n_terms:
-            status[rows] |= TOO_FEW
-            continue
-        norms = np.linalg.norm(sub, axis=0)
-        if np.any(norms == 0) or np.linalg.matrix_rank(sub / np.where(norms == 0, 1, norms)) \
-                < n_terms:
-            status[rows] |= DEPENDENT
-            continue
-        values = _take(flat, rows, mask)
-        n_read[rows] = n_used
-        if root_w is not None:
-            scale = root_w[rows[0], mask]
-            sub = sub * scale[:, None]
-            norms = np.linalg.norm(sub, axis=0)
-            values = values * scale
-        coef[rows] = _fit(sub, values, n_components, method)
-        scaled = sub / norms
-        inv = np.linalg.inv(scaled.T @ scaled) / np.outer(norms, norms)
-        dof[rows] = n_used - n_terms
-        solved.append((rows, np.clip(np.diag(inv), 0, None), None if root_w is None else
-                       np.sum((values - coef[rows] @ sub.T) ** 2, axis=1)))
-    fitted = np.empty((n_spec, n_wl))
-    residual = np.empty((n_spec, n_wl))
-    rss = np.empty(n_spec)
-    design_t = np.ascontiguousarray(design.T)
-    for start in range(0, n_spec, BLOCK_SPECTRA):  # blocks small enough to stay in cache
-        block = slice(start, min(start + BLOCK_SPECTRA, n_spec))
-        for sub in range(block.start, block.stop, GEMM_ROWS):
-            np.matmul(coef[sub:sub + GEMM_ROWS], design_t, out=fitted[sub:sub + GEMM_ROWS])
-        f = fitted[block]
-        r = np.subtract(flat[block], f, out=residual[block])
-        ss = np.einsum("ij,ij->i", r, r)  # NaN where a reading is missing
-        rss[block] = _row_sum_squares(r, ss)
-        if on_block is not None:
-            on_block(block, flat[block], f, r, dof[block], ss)
-    for rows, diag, weighted_rss in solved:
-        k = int(dof[rows[0]])
-        if k > 0:
-            s2 = (rss[rows] if weighted_rss is None else weighted_rss) / k
-            std_error[rows] = np.sqrt(np.outer(s2, diag))
-        else:
-            status[rows] |= NO_DOF
+        _fit_groups(values, groups, design, n_components, method, out,
+                    np.sqrt(np.where(present, w, 0.0)))
+    else:
+        rest = np.arange(n_spec)
+        if n_spec and n_wl >= n_terms and _full_rank(design):
+            rest = _fit_complete(flat, design, n_components, method, out, engine)
+        if rest.size:
+            _refuse_infinity(flat, rest)
+            _fit_groups(flat, _missing_groups(flat, rest), design, n_components, method, out)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rms = np.sqrt(out.summary.sum_squares / out.summary.n_points)
     return Fit(
-        coef.reshape(*lead, n_terms),
-        std_error.reshape(*lead, n_terms),
-        fitted.reshape(*lead, n_wl),
-        residual.reshape(*lead, n_wl),
-        dof.reshape(lead),
-        status.reshape(lead),
-        np.sqrt(rss / n_read).reshape(lead),
+        out.coef.reshape(*lead, n_terms),
+        out.std_error.reshape(*lead, n_terms),
+        out.dof.reshape(lead),
+        out.status.reshape(lead),
+        rms.reshape(lead),
+        ResidualSummary(*(f.reshape(lead) for f in out.summary)),
     )
 
 
-def _missing_groups(flat: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
-    """(pattern of readings present, rows) for each pattern; complete rows come first."""
+class _Outputs:
+    """The per-spectrum arrays a fit fills in."""
+
+    def __init__(self, n_spec: int, n_terms: int) -> None:
+        self.coef = np.full((n_spec, n_terms), np.nan)
+        self.std_error = np.full((n_spec, n_terms), np.nan)
+        self.dof = np.zeros(n_spec, dtype=np.int64)
+        self.status = np.zeros(n_spec, dtype=np.int64)
+        self.summary = empty_summary(n_spec)
+
+    def set_errors(self, rows: np.ndarray | slice, dof: int, diag: np.ndarray,
+                   rss: np.ndarray) -> None:
+        """dof and std errors √(s² diag) with s² = rss/dof of the listed rows."""
+        self.dof[rows] = dof
+        if dof > 0:
+            self.std_error[rows] = np.sqrt(rss / dof)[:, None] * np.sqrt(diag)
+        else:
+            self.status[rows] |= NO_DOF
+
+
+def _full_rank(design: np.ndarray) -> bool:
+    norms = np.linalg.norm(design, axis=0)
+    return bool(np.all(norms > 0)) and \
+        np.linalg.matrix_rank(design / norms) == design.shape[1]
+
+
+def _inverse_diag(design: np.ndarray) -> np.ndarray:
+    """diag((DᵀD)⁻¹), computed on the column-scaled design (≥ 0)."""
+    norms = np.linalg.norm(design, axis=0)
+    scaled = design / norms
+    return np.clip(np.diag(np.linalg.inv(scaled.T @ scaled)) / norms**2, 0, None)
+
+
+def _refuse_infinity(flat: np.ndarray, rows: np.ndarray) -> None:
+    """The message of :func:`mixsolve.spectra.check_spectra`, which ``unmix`` leaves to us."""
+    if np.isinf(flat[rows]).any():
+        raise InputError("spectra: absorbance values include infinity; use NaN for a missing "
+                         "reading")
+
+
+# --- complete spectra: one pass, numpy or compiled --------------------------------------------
+
+class _Plan:
+    """What every batch against one design shares: the scaled design's QR and the rest."""
+
+    def __init__(self, design: np.ndarray, n_components: int, method: Method) -> None:
+        m, p = design.shape
+        self.design = design
+        self.norms = np.linalg.norm(design, axis=0)
+        q, self.r = np.linalg.qr(design / self.norms)
+        self.qt = np.ascontiguousarray(q.T)
+        self.design_t = np.ascontiguousarray(design.T)
+        self.ols = method == "ols"
+        self.constrained = np.zeros(p, dtype=bool) if self.ols else np.arange(p) < n_components
+        self.rtol = kkt_rtol(m, p)
+        self.max_iter = 10 * p + 10
+        self._kernel: Any = None
+        self._lock = threading.Lock()
+
+    def compiled(self) -> Any:
+        """The compiled fit of a batch against this design, or None where it does not apply
+        (more than ``fused.MAX_CONSTRAINED`` components, or a degenerate passive set)."""
+        with self._lock:  # the first thread builds it; the others wait and share it
+            if self._kernel is None:
+                self._kernel = _compiled_kernel(self) or False
+        return self._kernel or None
+
+
+@functools.lru_cache(maxsize=16)
+def _plan(design: bytes, shape: tuple[int, int], n_components: int, method: Method) -> _Plan:
+    """One plan per design: the blocks and dask chunks of one unmix call share it."""
+    return _Plan(np.frombuffer(design).reshape(shape), n_components, method)
+
+
+def _fit_complete(flat: np.ndarray, design: np.ndarray, n_components: int, method: Method,
+                  out: _Outputs, engine: Engine) -> np.ndarray:
+    """Fit every spectrum whose readings are all finite; return the rows left over."""
     n_spec, n_wl = flat.shape
-    incomplete = np.isnan(flat.sum(axis=1))  # one pass, no temporary (infinities refused)
-    if not incomplete.any():
-        return [(np.ones(n_wl, dtype=bool), np.arange(n_spec))]
-    groups = []
-    complete = np.flatnonzero(~incomplete)
-    if complete.size:
-        groups.append((np.ones(n_wl, dtype=bool), complete))
-    rest = np.flatnonzero(incomplete)
-    patterns, group = np.unique(~np.isnan(flat[rest]), axis=0, return_inverse=True)
+    plan = _plan(np.ascontiguousarray(design, dtype=float).tobytes(), design.shape,
+                 n_components, method)
+    state = np.zeros(n_spec, dtype=np.int64)
+    kernel = plan.compiled() if choose_engine(engine, n_spec) == "compiled" else None
+    if kernel is not None:
+        kernel(flat, out.coef, out.summary, state)
+        out.summary.n_points[_rows(state == ROW_DONE)] = n_wl
+        # rows not fitted have NaN counts, which compare False
+        _fix_zero_residuals(flat, out, np.flatnonzero(out.summary.n_nonzero < n_wl), design)
+        again = np.flatnonzero(state == ROW_ITERATION_LIMIT)
+        if again.size:
+            values = flat[again]
+            out.coef[again] = nnls_batch(design, values, n_components).x
+            put(out.summary, again, summarise_model(values, out.coef[again], design))
+            state[again] = ROW_DONE
+    else:
+        _numpy_pass(flat, plan, out, state)
+    done = _rows(state == ROW_DONE)
+    out.set_errors(done, n_wl - design.shape[1], _inverse_diag(design),
+                   out.summary.sum_squares[done])
+    return np.flatnonzero(state != ROW_DONE)
+
+
+def _rows(mask: np.ndarray) -> np.ndarray | slice:
+    """A boolean row mask, or a slice of everything when it selects every row (no copies)."""
+    return slice(None) if mask.all() else mask
+
+
+def _numpy_pass(values: np.ndarray, plan: _Plan, out: _Outputs, state: np.ndarray) -> None:
+    """The numpy engine: project, solve the reduced problems, summarise the residuals."""
+    projected = values @ plan.qt.T
+    finite = np.isfinite(projected).all(axis=1)
+    target: np.ndarray | slice = slice(None)
+    if not finite.all():
+        state[~finite] = ROW_NOT_FINITE
+        target = np.flatnonzero(finite)
+        values, projected = values[target], projected[target]
+        if not values.shape[0]:
+            return
+    y = np.ascontiguousarray(projected.T)
+    if plan.ols:
+        x = solve_triangular(plan.r, y)
+    else:
+        x = solve_reduced(plan.r, y, plan.constrained, plan.rtol, plan.max_iter)[0]
+    coef = (x / plan.norms[:, None]).T
+    out.coef[target] = coef
+    put(out.summary, target, summarise_model(values, coef, plan.design))
+
+
+def choose_engine(engine: Engine, n_spectra: int) -> str:
+    """``numpy`` or ``compiled``: who fits a batch of ``n_spectra`` complete spectra.
+
+    ``auto`` reads ``MIXSOLVE_ENGINE`` first; without it, compiled code when numba is
+    installed and the batch holds at least ``COMPILED_MIN_SPECTRA`` spectra.
+
+    Raises
+    ------
+    InputError
+        ``compiled`` asked for without numba, or ``MIXSOLVE_ENGINE`` set to something else.
+    """
+    choice = engine
+    if choice == "auto":
+        forced = os.environ.get(ENGINE_VARIABLE, "").strip().lower()
+        if forced and forced not in ("numpy", "compiled"):
+            raise InputError(f"{ENGINE_VARIABLE}: {forced!r} is not 'numpy' or 'compiled'")
+        choice = forced or "auto"  # type: ignore[assignment]
+    if choice == "numpy" or (choice == "auto" and n_spectra < COMPILED_MIN_SPECTRA):
+        return "numpy"
+    try:
+        import mixsolve.solve.fused  # noqa: F401
+    except ImportError:
+        if choice == "compiled":
+            raise InputError("the compiled engine needs numba, which is not installed: "
+                             "pip install 'mixsolve[fast]'") from None
+        return "numpy"
+    return "compiled"
+
+
+def _compiled_kernel(plan: _Plan) -> Any:
+    """The compiled fit of a batch, or None where it does not apply (then numpy fits)."""
+    from mixsolve.solve import fused
+
+    try:
+        factors = fused.subset_factors(plan.r, plan.constrained)
+    except ValueError:  # too many constrained columns, or a degenerate passive set
+        return None
+    con_mask = int(sum(1 << int(j) for j in np.flatnonzero(plan.constrained)))
+
+    def kernel(values: np.ndarray, coef: np.ndarray, summary: ResidualSummary,
+               state: np.ndarray) -> None:
+        fused.fit_rows(values, plan.qt, plan.r, plan.norms, plan.design_t, con_mask,
+                       *factors, plan.rtol, plan.max_iter, plan.ols, coef,
+                       *(getattr(summary, name) for name in fused.SUMMARY_FIELDS), state)
+
+    return kernel
+
+
+def _fix_zero_residuals(flat: np.ndarray, out: _Outputs, rows: np.ndarray,
+                        design: np.ndarray) -> None:
+    """Summarise these rows again without their exact zero residuals (the runs test drops
+    zeros; the compiled pass counts them as negative)."""
+    if rows.size:
+        values = flat[rows]
+        put(out.summary, rows, summarise_model(values, out.coef[rows], design))
+
+
+# --- spectra with missing readings, and weighted fits: one group per pattern ------------------
+
+def _missing_groups(flat: np.ndarray, rows: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+    """(pattern of readings present, rows) for each pattern among ``rows``."""
+    patterns, group = np.unique(~np.isnan(flat[rows]), axis=0, return_inverse=True)
     group = group.ravel()
-    groups += [(mask, rest[group == g]) for g, mask in enumerate(patterns)]
-    return groups
+    return [(mask, rows[group == g]) for g, mask in enumerate(patterns)]
 
 
-def _take(flat: np.ndarray, rows: np.ndarray, mask: np.ndarray) -> np.ndarray:
-    """flat[rows][:, mask], without a copy when that is the whole array."""
-    if rows.size == flat.shape[0] and mask.all():
-        return flat
-    if mask.all():
-        return flat[rows]
-    return flat[np.ix_(rows, np.flatnonzero(mask))]
-
-
-def _row_sum_squares(residual: np.ndarray, rss: np.ndarray) -> np.ndarray:
-    """Σ r² over present readings per row (NaN readings skipped), from the plain sums."""
-    rss = rss.copy()
-    bad = ~np.isfinite(rss)
-    if bad.any():
-        rss[bad] = np.nansum(residual[bad] ** 2, axis=1)
-    return rss
+def _fit_groups(flat: np.ndarray, groups: list[tuple[np.ndarray, np.ndarray]],
+                design: np.ndarray, n_components: int, method: Method, out: _Outputs,
+                root_w: np.ndarray | None = None) -> None:
+    """Fit each group of rows on the wavelengths of its mask (rows scaled by √w if given)."""
+    n_terms = design.shape[1]
+    for mask, rows in groups:
+        if not mask.all():
+            out.status[rows] |= MISSING
+        sub = design[mask]
+        n_used = int(mask.sum())
+        if n_used < n_terms:
+            out.status[rows] |= TOO_FEW
+            continue
+        if not _full_rank(sub):
+            out.status[rows] |= DEPENDENT
+            continue
+        values = flat[np.ix_(rows, np.flatnonzero(mask))]
+        if root_w is not None:
+            scale = root_w[rows[0], mask]
+            sub = sub * scale[:, None]
+            values = values * scale
+        out.coef[rows] = _fit(sub, values, n_components, method)
+        residual = flat[rows] - out.coef[rows] @ design.T
+        put(out.summary, rows, summarise(flat[rows], residual))
+        rss = out.summary.sum_squares[rows] if root_w is None else \
+            np.sum((values - out.coef[rows] @ sub.T) ** 2, axis=1)
+        out.set_errors(rows, n_used - n_terms, _inverse_diag(sub), rss)
 
 
 def _fit(design: np.ndarray, values: np.ndarray, n_components: int, method: Method) -> np.ndarray:
     if method == "ols":
-        # Column scaling keeps lstsq well behaved when ε (~1e4) and baseline (~1) mix.
+        # Column scaling keeps the solve well behaved when ε (~1e4) and baseline (~1) mix.
         norms = np.linalg.norm(design, axis=0)
         sol = np.linalg.pinv(design / norms) @ values.T
         return (sol / norms[:, None]).T

@@ -177,7 +177,7 @@ def nnls_batch(design: np.ndarray, spectra: np.ndarray, n_constrained: int, *,
     y = q.T @ spectra.T
     if max_iter is None:
         max_iter = 10 * p + 10
-    x, n_iter, fallback = _solve_reduced(r, y, constrained, kkt_rtol(m, p), max_iter)
+    x, n_iter, fallback = solve_reduced(r, y, constrained, kkt_rtol(m, p), max_iter)
     return NNLSSolution((x / norms[:, None]).T, n_iter, fallback)
 
 
@@ -217,9 +217,30 @@ def _argmax(values: np.ndarray) -> np.ndarray:
     return arg
 
 
-def _solve_reduced(r: np.ndarray, y: np.ndarray, constrained: np.ndarray, rtol: float,
-                   max_iter: int) -> tuple[np.ndarray, int, int]:
-    """min ‖y − R x‖, x_j ≥ 0 where ``constrained``, for every column of y (p, n)."""
+def solve_reduced(r: np.ndarray, y: np.ndarray, constrained: np.ndarray, rtol: float,
+                  max_iter: int) -> tuple[np.ndarray, int, int]:
+    """min ‖y − R x‖, x_j ≥ 0 where ``constrained``, for every column of y.
+
+    Parameters
+    ----------
+    r : array, shape (p, p)
+        Upper triangular factor of the column-scaled design (steps 1-3 of the module
+        docstring).
+    y : array, shape (p, n)
+        Qᵀa of each spectrum a (one column per spectrum).
+    constrained : array of bool, shape (p,)
+    rtol : float
+        Relative KKT tolerance (:func:`kkt_rtol`).
+    max_iter : int
+        Outer iterations before the scipy fallback.
+
+    Returns
+    -------
+    x : ndarray, shape (p, n)
+        Coefficients of the scaled columns.
+    n_iter, n_fallback : int
+        Outer iterations used; spectra handed to scipy.optimize.nnls.
+    """
     con = constrained[:, None]
     sub = _Subspace(r)
     x = sub.solve_all(y)

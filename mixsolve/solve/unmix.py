@@ -12,18 +12,12 @@ import numpy as np
 import xarray as xr
 
 from mixsolve._version import __version__
-from mixsolve.diagnostics.trust import (
-    CHECK_NAMES,
-    DEFAULT_WAVELENGTH_TOLERANCE_NM,
-    SHIFT_FLAG_FRACTION,
-    add_trust_checks,
-    spectrum_checks,
-)
+from mixsolve.diagnostics.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
 from mixsolve.errors import ExtrapolationWarning, IllConditionedWarning, InputError
-from mixsolve.flags import ILL_CONDITIONED
+from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
-from mixsolve.solve.cls import METHODS, STATUS_CODES, Fit, Method, fit_spectra
+from mixsolve.solve.cls import METHODS, Method, default_threads
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
@@ -33,16 +27,20 @@ from mixsolve.solve.design import (
     design_matrix,
     select_wavelengths,
 )
-from mixsolve.solve.shift_fit import fit_with_shift
+from mixsolve.solve.model_spectra import fitted_and_residual
+from mixsolve.solve.unmix_block import (
+    DTYPES,
+    OUTPUTS,
+    SHIFT_OUTPUTS,
+    TERM,
+    BlockSettings,
+    unmix_block,
+)
 from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_window
 from mixsolve.units import conversion_factor
 
-TERM = "term"
 #: Attributes of the input spectra that must not label the result's variables.
 INPUT_ATTRS = ("quantity", "source", "layout", "separator", "decimal", "pathlength_cm")
-#: Variable-length str dtype (object dtype marked as holding str): lazy flags are written
-#: to netCDF and Zarr as strings without being computed first to find their type.
-VLEN_STR = np.dtype(object, metadata={"element_type": str})
 Weights = Literal["none", "noise"]
 WEIGHTS: tuple[str, ...] = ("none", "noise")
 
@@ -168,7 +166,7 @@ def unmix(
     >>> result = unmix(spectra, lib, window=(400, 700), method="nnls")  # doctest: +SKIP
     >>> result["concentration"].sel(component="chl_a")  # doctest: +SKIP
     """
-    spectra = check_spectra(spectra)
+    spectra = check_spectra(spectra, scan_values=False)
     library = check_library(library)
     check_option(method, METHODS, "method")
     check_option(baseline, BASELINES, "baseline")
@@ -223,58 +221,60 @@ def unmix(
             "is amplified that much; choose better wavelengths (mixsolve wavelengths choose)",
             IllConditionedWarning, stacklevel=2)
 
-    n_comp = len(components)
-    if fit_shift:
-        solver: Any = _shift_solver(library, used_wl, baseline, method, max_shift_nm)
-    elif weights == "noise":
-        solver = functools.partial(_weighted_fit, design=design, n_components=n_comp,
-                                   method=method, noise=model)
-    else:  # the fast path: trust figures computed block by block inside the fit
-        solver = functools.partial(fit_spectra, design=design, n_components=n_comp,
-                                   method=method)
-    n_out = len(_OUTPUT_DIMS) + (2 if fit_shift else 0)
-    outputs = xr.apply_ufunc(
-        _block_kernel, used,
-        kwargs={"solver": solver, "noise": model, "n_out": n_out},
-        input_core_dims=[[WAVELENGTH]],
-        output_core_dims=[list(d) for d in _OUTPUT_DIMS] + [[]] * (n_out - len(_OUTPUT_DIMS)),
-        dask="parallelized",
-        output_dtypes=[np.int64 if name in ("dof", "status") else float
-                       for name in _OUTPUT_NAMES] + [float] * (n_out - len(_OUTPUT_DIMS)),
-        dask_gufunc_kwargs={"output_sizes": {TERM: len(terms)}},
-    )
-    named = dict(zip(_OUTPUT_NAMES, outputs, strict=False))
-    coef = named["coef"].assign_coords({TERM: terms})
-    std_error = named["std_error"].assign_coords({TERM: terms})
-    fitted = named["fitted"].assign_coords({WAVELENGTH: used_wl})
-    residual = named["residual"].assign_coords({WAVELENGTH: used_wl})
-
     conc_unit = library.attrs["concentration_unit"]
-    factor: Any = 1.0
+    factor = np.ones(len(components))
     if unit is not None:
-        factor = conversion_factor(conc_unit, unit, library["molar_mass_g_per_mol"].values)
+        factor = factor * conversion_factor(conc_unit, unit,
+                                            library["molar_mass_g_per_mol"].values)
         conc_unit = unit
-    factor = xr.DataArray(np.broadcast_to(factor, (len(components),)), dims=(COMPONENT,),
-                          coords={COMPONENT: components})
-    conc = (coef.isel({TERM: slice(0, n_comp)}).rename({TERM: COMPONENT}) / b) * factor
-    u_conc = (std_error.isel({TERM: slice(0, n_comp)}).rename({TERM: COMPONENT}) / b) * factor
+    settings = BlockSettings(
+        design=design, components=components, method=method, noise=model,
+        weighted=weights == "noise",
+        threads=1 if used.chunks is not None else default_threads(),
+        absorbance_range=(low, high),
+        design_status=ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE else 0,
+        unit_factor=factor, shift_matrix=shift_bias_matrix(library, design, used_wl),
+        tolerance_nm=tolerance,
+        shift_options=_shift_options(library, used_wl, baseline, method, max_shift_nm)
+        if fit_shift else None)
+    names = {**OUTPUTS, **(SHIFT_OUTPUTS if fit_shift else {})}
+    outputs = xr.apply_ufunc(
+        unmix_block, used, b, kwargs={"settings": settings},
+        input_core_dims=[[WAVELENGTH], []],
+        output_core_dims=[list(dims) for dims in names.values()],
+        dask="parallelized",
+        output_dtypes=[DTYPES.get(name, float) for name in names],
+        dask_gufunc_kwargs={"output_sizes": {TERM: len(terms), COMPONENT: len(components)}},
+    )
+    named = dict(zip(names, outputs, strict=True))
+    coef = named.pop("coef").assign_coords({TERM: terms})
+    fitted, residual = fitted_and_residual(used, coef, design, named.pop("fitted", None))
+    n_comp = len(components)
+    # plain variables and one set of coordinates: no alignment per variable
+    variables = {name: da.variable for name, da in named.items()}
+    baseline_part = coef.variable[..., n_comp:]
+    variables.update(
+        baseline=xr.Variable(tuple("baseline_term" if d == TERM else d
+                                   for d in baseline_part.dims), baseline_part.data,
+                             {"units": "AU (offset), AU/nm (slope)"}),
+        fitted=fitted.variable, residual=residual.variable, pathlength_cm=b.variable,
+        unit_factor=xr.Variable((COMPONENT,), factor, {
+            "meaning": "result unit per library concentration unit"}))
+    units = {"concentration": conc_unit, "std_uncertainty": conc_unit,
+             "shift_bias_per_nm": f"{conc_unit} per nm", "rms_residual": "AU",
+             "absorbance_max": "AU", "absorbance_min": "AU", "suggested_dilution": "1",
+             "wavelength_shift_nm": "nm", "u_wavelength_shift_nm": "nm", "fitted": "AU",
+             "residual": "AU"}
+    for name, value in units.items():
+        if name in variables:
+            variables[name].attrs["units"] = value
+    variables["std_uncertainty"].attrs["basis"] = UNCERTAINTY_BASIS
+    variables["suggested_dilution"].attrs["meaning"] = (
+        "dilution factor bringing the peak to sqrt(low*high) AU")
+    coords = {**dict(used.coords.items()), COMPONENT: components,
+              "baseline_term": terms[n_comp:]}
     result = xr.Dataset(
-        {
-            "concentration": conc.assign_attrs(units=conc_unit),
-            "std_uncertainty": u_conc.assign_attrs(units=conc_unit, basis=UNCERTAINTY_BASIS),
-            "baseline": coef.isel({TERM: slice(n_comp, None)}).assign_attrs(
-                units="AU (offset), AU/nm (slope)"),
-            "fitted": fitted.assign_attrs(units="AU"),
-            "residual": residual.assign_attrs(units="AU"),
-            "rms_residual": named["rms"].assign_attrs(units="AU"),
-            "dof": named["dof"],
-            "status": named["status"] | (ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE
-                                         else 0),
-            "at_zero": (conc == 0) & (method == "nnls"),
-            "pathlength_cm": b,
-            "unit_factor": factor.assign_attrs(
-                meaning="result unit per library concentration unit"),
-        },
+        variables, coords=coords,
         attrs={
             "method": method,
             "baseline": baseline,
@@ -288,22 +288,13 @@ def unmix(
             "source": spectra.attrs.get("source", ""),
             "uncertainty_basis": UNCERTAINTY_BASIS,
             "mixsolve_version": __version__,
+            "weights": weights,
+            "noise_model": json.dumps(model.to_dict()) if model is not None else "",
+            "absorbance_range": f"{low:g}-{high:g}",
+            "fit_shift": int(fit_shift),
+            "wavelength_tolerance_nm": tolerance,
         },
     )
-    result = result.rename({TERM: "baseline_term"})
-    if fit_shift:
-        result["wavelength_shift_nm"] = outputs[len(_OUTPUT_NAMES)].assign_attrs(units="nm")
-        result["u_wavelength_shift_nm"] = outputs[len(_OUTPUT_NAMES) + 1].assign_attrs(units="nm")
-    checks = {name: named[name] for name in CHECK_NAMES}
-    result = add_trust_checks(result, checks, library, design, (low, high), model)
-    result.attrs.update({
-        "weights": weights,
-        "noise_model": json.dumps(model.to_dict()) if model is not None else "",
-        "absorbance_range": f"{low:g}-{high:g}",
-        "fit_shift": int(fit_shift),
-        "wavelength_tolerance_nm": tolerance,
-    })
-    result["flags"] = flags_of(result)
     # Variables derived from the spectra inherit their attributes; a concentration is not an
     # "absorbance" from "samples.csv": keep only what describes the variable itself.
     for var in result.variables.values():
@@ -312,44 +303,8 @@ def unmix(
     return result
 
 
-#: Outputs of :func:`_block_kernel` before the optional shift pair, with their core dims.
-_OUTPUT_NAMES = ("coef", "std_error", "fitted", "residual", "dof", "status", "rms",
-                 *CHECK_NAMES)
-_OUTPUT_DIMS: tuple[tuple[str, ...], ...] = ((TERM,), (TERM,), (WAVELENGTH,), (WAVELENGTH,),
-                                             *[()] * (3 + len(CHECK_NAMES)))
-
-
-def _block_kernel(spectra: np.ndarray, solver: Any, noise: NoiseModel | None,
-                  n_out: int) -> tuple[np.ndarray, ...]:
-    """Fit one block of spectra and compute its trust figures in the same pass over it."""
-    if isinstance(solver, functools.partial) and solver.func is fit_spectra:
-        lead = spectra.shape[:-1]
-        checks = [np.empty(lead).reshape(-1) for _ in CHECK_NAMES]
-
-        def on_block(rows: slice, used: np.ndarray, fitted: np.ndarray,
-                     residual: np.ndarray, dof: np.ndarray, sum_squares: np.ndarray) -> None:
-            figures = spectrum_checks(used, residual, fitted, dof, noise, sum_squares)
-            for store, value in zip(checks, figures, strict=True):
-                store[rows] = value
-
-        fit = solver(spectra, on_block=on_block)
-        return (*fit, *(c.reshape(lead) for c in checks))
-    fit, extra = solver(spectra)
-    checks = spectrum_checks(spectra, fit.residual, fit.fitted, fit.dof, noise)
-    return (*fit, *checks, *extra)[:n_out]
-
-
-def _weighted_fit(spectra: np.ndarray, design: np.ndarray, n_components: int,
-                  method: Method, noise: NoiseModel) -> tuple[Fit, tuple[np.ndarray, ...]]:
-    """Two-pass weighted fit: unweighted pass, then weights 1/σ_A(fitted)²."""
-    first = fit_spectra(spectra, design, n_components, method)
-    fitted = np.where(np.isfinite(first.fitted), first.fitted, spectra)
-    weights = 1.0 / noise.sigma_absorbance(np.clip(fitted, 0.0, None)) ** 2
-    return fit_spectra(spectra, design, n_components, method, weights=weights), ()
-
-
-def _shift_solver(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline,
-                  method: Method, max_shift_nm: float) -> Any:
+def _shift_options(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline,
+                   method: Method, max_shift_nm: float) -> dict[str, Any]:
     grid = library[WAVELENGTH].values
     max_shift = float(max_shift_nm)
     if not np.isfinite(max_shift) or max_shift <= 0:
@@ -363,16 +318,8 @@ def _shift_solver(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline,
             f"{max_shift:g} nm reach outside the library ({grid[0]:g}-{grid[-1]:g} nm); "
             f"narrow the window to {grid[0] + max_shift:g}-{grid[-1] - max_shift:g} nm")
     eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
-    return functools.partial(_shift_fit, eps=eps, grid_nm=grid, wavelengths_nm=used_wl,
-                             baseline=baseline, method=method, max_shift_nm=max_shift)
-
-
-def _shift_fit(spectra: np.ndarray, **kwargs: Any) -> tuple[Fit, tuple[np.ndarray, ...]]:
-    coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(spectra, **kwargs)
-    residual = spectra - fitted
-    with np.errstate(invalid="ignore"):
-        rms = np.sqrt(np.nanmean(residual**2, axis=-1))
-    return Fit(coef, se, fitted, residual, dof, status, rms), (shift, u_shift)
+    return {"eps": eps, "grid_nm": grid, "wavelengths_nm": used_wl, "baseline": baseline,
+            "method": method, "max_shift_nm": max_shift}
 
 
 def _as_slice(index: np.ndarray) -> np.ndarray | slice:
@@ -422,8 +369,10 @@ def flags_of(result: xr.Dataset) -> xr.DataArray:
     Returns
     -------
     DataArray of str, dims of ``result["status"]``
-        Lazy (object dtype) when the result is dask-backed: it is computed with the rest
-        of the result, chunk by chunk.
+        Python strings (object dtype marked as holding str, which netCDF and Zarr store
+        as variable-length text; one string object per distinct combination of codes).
+        Lazy when the result is dask-backed: computed with the rest of the result, chunk
+        by chunk.
 
     Notes
     -----
@@ -431,7 +380,8 @@ def flags_of(result: xr.Dataset) -> xr.DataArray:
     ``at_zero:<component>`` where NNLS held a component at zero; ``negative:<component>``
     where OLS returned a negative concentration; ``shift_sensitive:<component>`` where a
     wavelength error of ``attrs["wavelength_tolerance_nm"]`` would move a quantifiable
-    concentration (c > 3u) by more than 2 %. See docs/flags.md.
+    concentration (c > 3u) by more than 2 %. See docs/flags.md
+    (:func:`mixsolve.flags.flag_texts`).
     """
     comps = [str(c) for c in result[COMPONENT].values]
     conc = result["concentration"]
@@ -440,49 +390,8 @@ def flags_of(result: xr.Dataset) -> xr.DataArray:
     tol = result.attrs.get("wavelength_tolerance_nm", DEFAULT_WAVELENGTH_TOLERANCE_NM)
     core = [[], [COMPONENT], [COMPONENT], [COMPONENT], [COMPONENT]]
     flags = xr.apply_ufunc(
-        _flag_kernel, result["status"], result["at_zero"], conc, result["std_uncertainty"],
-        bias, kwargs={"components": comps, "ols": result.attrs["method"] == "ols",
-                      "shift": "shift_bias_per_nm" in result, "tolerance_nm": float(tol)},
+        functools.partial(flag_texts, components=comps, ols=result.attrs["method"] == "ols",
+                          tolerance_nm=float(tol)),
+        result["status"], result["at_zero"], conc, result["std_uncertainty"], bias,
         input_core_dims=core, dask="parallelized", output_dtypes=[VLEN_STR])
-    if flags.chunks is None:
-        flags = flags.astype(str)
     return flags.rename("flags")
-
-
-def _flag_kernel(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.ndarray,
-                 bias: np.ndarray, components: list[str], ols: bool, shift: bool,
-                 tolerance_nm: float) -> np.ndarray:
-    """Flag strings of one block: each distinct combination of codes is joined once."""
-    lead = status.shape
-    n = len(components)
-    status = status.reshape(-1)
-    codes = [code for code in STATUS_CODES.values()]
-    columns = [(status & bit) != 0 for bit in STATUS_CODES]
-    codes += [f"at_zero:{c}" for c in components]
-    columns += list(at_zero.reshape(-1, n).T)
-    conc, u, bias = (a.reshape(-1, n) for a in (conc, u, bias))
-    if ols:
-        codes += [f"negative:{c}" for c in components]
-        columns += list((conc < 0).T)
-    if shift:
-        with np.errstate(invalid="ignore"):
-            quantified = conc > 3 * np.where(np.isfinite(u), u, 0.0)
-            risky = np.abs(bias) * tolerance_nm > SHIFT_FLAG_FRACTION * np.abs(conc)
-        codes += [f"shift_sensitive:{c}" for c in components]
-        columns += list((quantified & risky).T)
-    bits = np.stack(columns, axis=1) if status.size else np.zeros((0, len(codes)), bool)
-    packed = np.packbits(bits, axis=1)
-    if packed.shape[1] <= 8:  # one integer per spectrum: a fast 1-d unique
-        keys = np.zeros((packed.shape[0], 8), dtype=np.uint8)
-        keys[:, :packed.shape[1]] = packed
-        _, first, index = np.unique(keys.view(np.uint64)[:, 0], return_index=True,
-                                    return_inverse=True)
-        unique = packed[first]
-    else:
-        unique, index = np.unique(packed, axis=0, return_inverse=True)
-    names = np.asarray(codes)
-    texts = [";".join(names[np.unpackbits(row)[:len(codes)].astype(bool)]) for row in unique]
-    out = np.empty(status.size, dtype=VLEN_STR)
-    if status.size:
-        out[:] = np.asarray(texts, dtype=object)[index.ravel()]
-    return out.reshape(lead)

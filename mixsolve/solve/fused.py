@@ -1,0 +1,360 @@
+"""Compiled one-pass fit of many spectra: projection, NNLS or OLS, residual summary.
+
+Optional: this module needs numba (``pip install 'mixsolve[fast]'``); without it
+:mod:`mixsolve.solve.cls` runs the same method in numpy (:mod:`mixsolve.solve.nnls`).
+Both solve the same problems to the same KKT tolerance and agree to rounding.
+
+Per spectrum a (a row of the spectra), with D̂ = Q R the QR factorisation of the design
+scaled to unit column norms (computed once, by the caller):
+
+1. y = Qᵀa (p dot products), and the largest and smallest reading, while a is read once
+   from memory;
+2. the reduced problem min ‖y − R x̂‖, x̂_j ≥ 0 for the constrained columns, by
+   Lawson & Hanson's active-set method (the same steps, start and stopping test as the
+   batched numpy solver, :mod:`mixsolve.solve.nnls`), every subproblem solved by back
+   substitution from a QR factorisation of R[:, S] precomputed for every passive set S
+   (2^k sets for k constrained columns: :func:`subset_factors`);
+3. the residual r = a − D x (x = x̂ / column norms) while a is still in the first-level
+   cache, summarised as Σr², Σrᵢrᵢ₊₁, how many rᵢ are > 0 and ≠ 0, and how many sign
+   changes occur between neighbours. The fitted and residual spectra are not stored.
+
+The kernel is serial and releases the GIL (``nogil``): the caller runs it on blocks of
+spectra in several threads, or inside dask's threads. The sums of steps 1 and 3 may be
+reassociated (``REORDER``), which changes their last bits but keeps NaN and infinity.
+
+A row whose projection y is not finite (a missing reading, an infinity, or an overflow)
+is not fitted here: its state is ``ROW_NOT_FINITE`` and the caller fits it another way.
+A row not solved within ``max_iter`` outer iterations gets ``ROW_ITERATION_LIMIT``.
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+from mixsolve.solve.cls import ROW_DONE, ROW_ITERATION_LIMIT, ROW_NOT_FINITE
+
+#: Largest number of constrained columns handled here (2^k passive sets are precomputed).
+MAX_CONSTRAINED = 10
+#: Floating-point liberties allowed in the sums: reassociation (so that they vectorise) and
+#: fused multiply-add, but not the assumption that no NaN or infinity occurs.
+REORDER = {"reassoc", "contract", "nsz", "arcp"}
+#: The fields of :class:`mixsolve.solve.residuals.ResidualSummary` that
+#: :func:`fit_rows` fills, in the order of its arguments (``n_points`` is the caller's).
+SUMMARY_FIELDS = ("sum_squares", "lag_sum", "n_positive", "n_nonzero", "sign_changes",
+                  "absorbance_max", "absorbance_min")
+
+
+def subset_factors(r: np.ndarray, constrained: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """QR factors of R[:, S] for every passive set S (free columns always in S).
+
+    Parameters
+    ----------
+    r : array, shape (p, p)
+        Upper triangular factor of the column-scaled design.
+    constrained : array of bool, shape (p,)
+        Columns whose coefficients must be ≥ 0.
+
+    Returns
+    -------
+    qt, rs, cols, size : arrays indexed by the bit mask of S (bit j set: column j passive)
+        ``qt[S, :k]`` is Q_Sᵀ (k × p), ``rs[S, :k, :k]`` is R_S, ``cols[S, :k]`` the
+        columns of S, ``size[S]`` = k = |S|. Masks that leave out a free column are not
+        used and stay empty.
+
+    Raises
+    ------
+    ValueError
+        More than ``MAX_CONSTRAINED`` constrained columns, or a rank-deficient R[:, S]
+        (the caller then uses the numpy solver, which handles it).
+    """
+    p = r.shape[1]
+    con = np.flatnonzero(constrained)
+    if con.size > MAX_CONSTRAINED:
+        raise ValueError(f"{con.size} constrained columns; at most {MAX_CONSTRAINED}")
+    free_bits = sum(1 << int(j) for j in np.flatnonzero(~constrained))
+    qt = np.zeros((1 << p, p, p))
+    rs = np.zeros((1 << p, p, p))
+    cols = np.zeros((1 << p, p), dtype=np.int64)
+    size = np.zeros(1 << p, dtype=np.int64)
+    tiny = max(r.shape) * np.finfo(float).eps
+    for subset in range(1 << con.size):
+        mask = free_bits | sum(1 << int(con[i]) for i in range(con.size) if subset >> i & 1)
+        chosen = [j for j in range(p) if mask >> j & 1]
+        if not chosen:
+            continue
+        q, r1 = np.linalg.qr(r[:, chosen])
+        diag = np.abs(np.diag(r1))
+        if diag.min() <= diag.max() * tiny:
+            raise ValueError("rank-deficient passive set")
+        k = len(chosen)
+        qt[mask, :k] = q.T
+        rs[mask, :k, :k] = r1
+        cols[mask, :k] = chosen
+        size[mask] = k
+    return qt, rs, cols, size
+
+
+@numba.njit(nogil=True, cache=True, fastmath=REORDER)
+def _project(a_row: np.ndarray, qt: np.ndarray, row: np.ndarray, y: np.ndarray
+             ) -> tuple[float, float]:
+    """Copy a_row into the contiguous ``row``; y = Qᵀ row; return (max, min) of the row.
+
+    A NaN or infinite reading makes y non-finite (``REORDER`` keeps NaN and infinity).
+    """
+    m = a_row.shape[0]
+    p = qt.shape[0]
+    for j in range(m):
+        row[j] = a_row[j]
+    for k in range(p):
+        acc = 0.0
+        for j in range(m):
+            acc += qt[k, j] * row[j]
+        y[k] = acc
+    # eight running extremes: independent chains the processor overlaps
+    m8 = m - m % 8
+    h0 = h1 = h2 = h3 = h4 = h5 = h6 = h7 = row[0]
+    l0 = l1 = l2 = l3 = l4 = l5 = l6 = l7 = row[0]
+    for j in range(0, m8, 8):
+        h0, l0 = max(h0, row[j]), min(l0, row[j])
+        h1, l1 = max(h1, row[j + 1]), min(l1, row[j + 1])
+        h2, l2 = max(h2, row[j + 2]), min(l2, row[j + 2])
+        h3, l3 = max(h3, row[j + 3]), min(l3, row[j + 3])
+        h4, l4 = max(h4, row[j + 4]), min(l4, row[j + 4])
+        h5, l5 = max(h5, row[j + 5]), min(l5, row[j + 5])
+        h6, l6 = max(h6, row[j + 6]), min(l6, row[j + 6])
+        h7, l7 = max(h7, row[j + 7]), min(l7, row[j + 7])
+    high = max(max(max(h0, h1), max(h2, h3)), max(max(h4, h5), max(h6, h7)))
+    low = min(min(min(l0, l1), min(l2, l3)), min(min(l4, l5), min(l6, l7)))
+    for j in range(m8, m):
+        high, low = max(high, row[j]), min(low, row[j])
+    return high, low
+
+
+@numba.njit(nogil=True, cache=True)
+def _solve_set(mask: int, y: np.ndarray, qt: np.ndarray, rs: np.ndarray, cols: np.ndarray,
+               size: np.ndarray, t: np.ndarray, z: np.ndarray) -> None:
+    """z = the least-squares solution on passive set ``mask`` (0 off the set)."""
+    p = y.shape[0]
+    k = size[mask]
+    for i in range(k):
+        acc = 0.0
+        for j in range(p):
+            acc += qt[mask, i, j] * y[j]
+        t[i] = acc
+    for j in range(p):
+        z[j] = 0.0
+    for i in range(k - 1, -1, -1):
+        acc = t[i]
+        for j in range(i + 1, k):
+            acc -= rs[mask, i, j] * t[j]
+        t[i] = acc / rs[mask, i, i]
+        z[cols[mask, i]] = t[i]
+
+
+@numba.njit(nogil=True, cache=True)
+def _nnls(y: np.ndarray, r: np.ndarray, con_mask: int, qt: np.ndarray, rs: np.ndarray,
+          cols: np.ndarray, size: np.ndarray, rtol: float, max_iter: int,
+          x: np.ndarray, z: np.ndarray, t: np.ndarray, res: np.ndarray) -> int:
+    """Active-set NNLS of min ‖y − R x‖ (constrained bits of ``con_mask``); x is written.
+
+    ``z``, ``t`` and ``res`` (p each) are scratch space. Returns the outer iterations
+    used, or −1 when ``max_iter`` was reached.
+    """
+    p = y.shape[0]
+    full = (1 << p) - 1
+    _solve_set(full, y, qt, rs, cols, size, t, z)
+    passive = full
+    while True:  # drop the negatives until feasible (Van Benthem & Keenan's start)
+        bad = 0
+        for j in range(p):
+            if (passive >> j) & 1 and (con_mask >> j) & 1 and z[j] <= 0.0:
+                bad |= 1 << j
+        if bad == 0:
+            break
+        passive &= ~bad
+        _solve_set(passive, y, qt, rs, cols, size, t, z)
+    for j in range(p):
+        x[j] = z[j] if (passive >> j) & 1 else 0.0
+    if passive == full:
+        return 0
+    y_norm = 0.0
+    for j in range(p):
+        y_norm += y[j] * y[j]
+    y_norm = np.sqrt(y_norm)
+    rejected = 0
+    n_iter = 0
+    while True:
+        for i in range(p):  # residual of the reduced problem, then w = Rᵀ res
+            acc = y[i]
+            for j in range(i, p):
+                acc -= r[i, j] * x[j]
+            res[i] = acc
+        x_norm = 0.0
+        for j in range(p):
+            x_norm += x[j] * x[j]
+        tau = rtol * max(y_norm, np.sqrt(x_norm))
+        best = -1
+        best_w = 0.0
+        for j in range(p):
+            if not ((con_mask >> j) & 1) or (passive >> j) & 1 or (rejected >> j) & 1:
+                continue
+            w = 0.0
+            for i in range(j + 1):
+                w += r[i, j] * res[i]
+            if w > tau and (best < 0 or w > best_w):
+                best = j
+                best_w = w
+        if best < 0:
+            return n_iter
+        if n_iter == max_iter:
+            return -1
+        n_iter += 1
+        trial = passive | (1 << best)
+        _solve_set(trial, y, qt, rs, cols, size, t, z)
+        if z[best] <= 0.0:  # w_best > τ was rounding: try the next candidate
+            rejected |= 1 << best
+            continue
+        rejected = 0
+        passive = trial
+        while True:  # Lawson–Hanson inner loop: step back until z is feasible
+            alpha = np.inf
+            first = -1
+            for j in range(p):
+                if (passive >> j) & 1 and (con_mask >> j) & 1 and z[j] <= 0.0:
+                    ratio = x[j] / (x[j] - z[j])
+                    if ratio < alpha:
+                        alpha = ratio
+                        first = j
+            if first < 0:
+                break
+            for j in range(p):
+                x[j] += alpha * (z[j] - x[j])
+            passive &= ~(1 << first)
+            for j in range(p):
+                if (passive >> j) & 1 and (con_mask >> j) & 1 and x[j] <= 0.0:
+                    passive &= ~(1 << j)
+            for j in range(p):
+                if not (passive >> j) & 1:
+                    x[j] = 0.0
+            _solve_set(passive, y, qt, rs, cols, size, t, z)
+        for j in range(p):
+            x[j] = z[j]
+
+
+@numba.njit(nogil=True, cache=True, fastmath=REORDER)
+def _residual_summary(row: np.ndarray, x: np.ndarray, design_t: np.ndarray,
+                      r: np.ndarray, out: np.ndarray) -> None:
+    """r = row − Dx, then Σr², Σrᵢrᵢ₊₁, #(r > 0), #(r ≠ 0), sign changes into out[:5].
+
+    Exact zeros count as negative in the sign changes; the caller summarises rows with
+    zeros again (#(r ≠ 0) < m tells which).
+    """
+    p, m = design_t.shape
+    for j in range(m):
+        r[j] = row[j]
+    for k in range(p):
+        xk = x[k]
+        for j in range(m):
+            r[j] -= xk * design_t[k, j]
+    ss = 0.0
+    n_pos = 0.0
+    n_neg = 0.0
+    for j in range(m):
+        v = r[j]
+        ss += v * v
+        n_pos += 1.0 if v > 0.0 else 0.0
+        n_neg += 1.0 if v < 0.0 else 0.0
+    lag = 0.0
+    changes = 0.0
+    for j in range(m - 1):
+        lag += r[j] * r[j + 1]
+        changes += 1.0 if (r[j] > 0.0) != (r[j + 1] > 0.0) else 0.0
+    out[0] = ss
+    out[1] = lag
+    out[2] = n_pos
+    out[3] = n_pos + n_neg
+    out[4] = changes
+
+
+@numba.njit(nogil=True, cache=True)
+def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndarray,
+             design_t: np.ndarray, con_mask: int, qt: np.ndarray, rs: np.ndarray,
+             cols: np.ndarray, size: np.ndarray, rtol: float, max_iter: int, ols: bool,
+             coef: np.ndarray, sum_squares: np.ndarray, lag_sum: np.ndarray,
+             n_positive: np.ndarray, n_nonzero: np.ndarray, sign_changes: np.ndarray,
+             absorbance_max: np.ndarray, absorbance_min: np.ndarray,
+             state: np.ndarray) -> None:
+    """Fit every row of ``a`` and summarise its residual (module docstring).
+
+    Parameters
+    ----------
+    a : array, shape (n, m)
+        Spectra (AU), any strides.
+    qt_design : array, shape (p, m)
+        Qᵀ of the column-scaled design D̂ = Q R.
+    r : array, shape (p, p)
+        R of that factorisation.
+    norms : array, shape (p,)
+        Column norms of the design (x = x̂ / norms).
+    design_t : array, shape (p, m)
+        The design, transposed (for the residual).
+    con_mask : int
+        Bit j set: column j constrained ≥ 0 (ignored when ``ols``).
+    qt, rs, cols, size
+        :func:`subset_factors`.
+    rtol : float
+        Relative KKT tolerance (:func:`mixsolve.solve.nnls.kkt_rtol`).
+    max_iter : int
+        Outer iterations before giving up on a row.
+    ols : bool
+        Unconstrained least squares instead of NNLS.
+    coef : array, shape (n, p), output
+        Coefficients in the units of the design's columns (left as they were where not
+        fitted).
+    sum_squares, lag_sum, n_positive, n_nonzero, sign_changes, absorbance_max,
+    absorbance_min : arrays, shape (n,), output
+        The residual summary (``SUMMARY_FIELDS``); left as they were where not fitted.
+    state : array of int64, shape (n,), output
+        ``ROW_DONE``, ``ROW_NOT_FINITE`` or ``ROW_ITERATION_LIMIT``.
+    """
+    n, m = a.shape
+    p = r.shape[0]
+    row = np.empty(m)
+    y = np.empty(p)
+    xs = np.empty(p)
+    x = np.empty(p)
+    t = np.empty(p)
+    z = np.empty(p)
+    res = np.empty(p)
+    resid = np.empty(m)
+    out = np.empty(5)
+    full = (1 << p) - 1
+    for i in range(n):
+        a_max, a_min = _project(a[i], qt_design, row, y)
+        finite = True
+        for k in range(p):
+            if not np.isfinite(y[k]):
+                finite = False
+        if not finite:
+            state[i] = ROW_NOT_FINITE
+            continue
+        if ols:
+            _solve_set(full, y, qt, rs, cols, size, t, xs)
+            state[i] = ROW_DONE
+        elif _nnls(y, r, con_mask, qt, rs, cols, size, rtol, max_iter, xs, z, t, res) < 0:
+            state[i] = ROW_ITERATION_LIMIT
+        else:
+            state[i] = ROW_DONE
+        for k in range(p):
+            x[k] = xs[k] / norms[k]
+            coef[i, k] = x[k]
+        _residual_summary(row, x, design_t, resid, out)
+        sum_squares[i] = out[0]
+        lag_sum[i] = out[1]
+        n_positive[i] = out[2]
+        n_nonzero[i] = out[3]
+        sign_changes[i] = out[4]
+        absorbance_max[i] = a_max
+        absorbance_min[i] = a_min

@@ -1,0 +1,111 @@
+"""Fitted and residual spectra of a linear fit, computed when read instead of stored.
+
+A fit of n spectra at m wavelengths with p terms keeps its coefficients (n × p); the
+fitted spectra D·x and the residuals a − D·x would each take as much memory as the
+spectra themselves. :func:`model_variable` wraps them as an xarray variable whose values
+are computed from the coefficients (and, for the residual, the spectra) when they are
+read, for just the part that is read (``.sel(sample="s1")`` computes one spectrum), and
+kept once read whole, the way xarray treats a variable opened lazily from a file
+(``xarray.backends.BackendArray`` with basic indexing; xarray's guide to writing a
+backend describes the pattern).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import xarray as xr
+from xarray.backends import BackendArray
+from xarray.core import indexing
+
+
+class _ModelSpectra(BackendArray):
+    """D·x (or a − D·x) for coefficients x (..., p), design D (m, p) and spectra a."""
+
+    def __init__(self, coef: np.ndarray, design: np.ndarray,
+                 values: np.ndarray | None = None) -> None:
+        self.coef = coef
+        self.design_t = np.ascontiguousarray(design.T)
+        self.values = values
+        self.shape = (*coef.shape[:-1], design.shape[0])
+        self.dtype = np.dtype(float)
+
+    def __getitem__(self, key: indexing.ExplicitIndexer) -> Any:
+        return indexing.explicit_indexing_adapter(
+            key, self.shape, indexing.IndexingSupport.BASIC, self._read)
+
+    def _read(self, key: tuple[Any, ...]) -> np.ndarray:
+        fitted = np.matmul(self.coef[key[:-1]], self.design_t[:, key[-1]])
+        if self.values is None:
+            return fitted
+        return self.values[key] - fitted
+
+
+def model_variable(dims: tuple[str, ...], coef: np.ndarray, design: np.ndarray,
+                   values: np.ndarray | None = None) -> xr.Variable:
+    """A lazily computed variable holding D·coef, or ``values`` − D·coef.
+
+    Parameters
+    ----------
+    dims : tuple of str
+        The spectra's dims, ``wavelength`` last.
+    coef : array, shape (..., p)
+        Coefficients in the units of the design's columns (NaN rows give NaN spectra).
+    design : array, shape (m, p)
+    values : array, shape (..., m), optional
+        The measured spectra: with them the variable is the residual, without it the
+        fitted spectra. Held by reference: changing them in place changes the residual
+        until it has been read whole (``.load()``).
+
+    Returns
+    -------
+    xarray.Variable
+        Float64 values in AU, computed when read.
+    """
+    array = _ModelSpectra(np.asarray(coef, dtype=float), np.asarray(design, dtype=float),
+                          values)
+    return xr.Variable(dims, indexing.MemoryCachedArray(indexing.LazilyIndexedArray(array)))
+
+
+def fitted_and_residual(spectra: xr.DataArray, coef: xr.DataArray, design: np.ndarray,
+                        fitted: xr.DataArray | None = None
+                        ) -> tuple[xr.DataArray, xr.DataArray]:
+    """The fitted and residual spectra (AU) of a fit, labelled like ``spectra``.
+
+    Parameters
+    ----------
+    spectra : DataArray with dims (..., "wavelength")
+        The spectra fitted, at the used wavelengths (numpy- or dask-backed).
+    coef : DataArray with dims (..., "term")
+        Coefficients in the units of the design's columns.
+    design : array, shape (n_wavelengths, n_terms)
+    fitted : DataArray, optional
+        Fitted spectra already computed (a fit with one design per spectrum): used as
+        they are, and the residual is ``spectra − fitted``.
+
+    Returns
+    -------
+    fitted, residual : DataArray with dims (..., "wavelength")
+        Numpy-backed: computed when read (:func:`model_variable`). Dask-backed: lazy,
+        chunk by chunk.
+    """
+    wl = spectra["wavelength"].values
+    term = coef.dims[-1]
+    if fitted is None and spectra.chunks is not None:
+        fitted = xr.apply_ufunc(
+            np.matmul, coef, np.ascontiguousarray(design.T),
+            input_core_dims=[[term], [term, "wavelength"]], output_core_dims=[["wavelength"]],
+            dask="parallelized", output_dtypes=[float],
+            dask_gufunc_kwargs={"output_sizes": {"wavelength": wl.size}})
+    if fitted is not None:
+        fitted = fitted.assign_coords({"wavelength": wl})
+        return fitted, (spectra - fitted).transpose(*fitted.dims)
+    lead = [d for d in coef.dims if d != term]
+    ordered = spectra.transpose(*lead, "wavelength")
+    coords = dict(ordered.coords.items())
+    values = np.asarray(ordered.values)
+    c = np.asarray(coef.transpose(*lead, term).values)
+    dims = (*lead, "wavelength")
+    return (xr.DataArray(model_variable(dims, c, design), coords=coords),
+            xr.DataArray(model_variable(dims, c, design, values), coords=coords))

@@ -1,0 +1,166 @@
+"""Everything :func:`mixsolve.unmix` computes per spectrum, for one block of spectra.
+
+:func:`unmix_block` works on plain arrays (wavelength on the last axis) and returns every
+per-spectrum variable of the result in final units: the fit (:mod:`mixsolve.solve.cls`,
+or the shift fit of :mod:`mixsolve.solve.shift_fit`), concentrations and uncertainties,
+the trust figures and status bits (:mod:`mixsolve.diagnostics.trust`), the shift bias and
+the flag strings. ``unmix`` runs it once under ``xarray.apply_ufunc``: on the whole array
+for numpy-backed spectra, chunk by chunk for dask-backed ones. Keeping all of it in one
+function keeps the data to one pass and the result to one set of labelled variables.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+from mixsolve.diagnostics.sample_checks import lack_of_fit, target_absorbance
+from mixsolve.diagnostics.trust import (
+    CHECK_NAMES,
+    lack_of_fit_model,
+    summary_checks,
+    trust_status,
+)
+from mixsolve.flags import VLEN_STR, flag_texts
+from mixsolve.noise import NoiseModel
+from mixsolve.solve.cls import Engine, Method, choose_engine, fit_spectra
+from mixsolve.solve.residuals import summarise
+from mixsolve.solve.shift_fit import fit_with_shift
+
+TERM = "term"
+COMPONENT = "component"
+WAVELENGTH = "wavelength"
+#: Outputs of :func:`unmix_block`, in order, with their core dims (none: one value per
+#: spectrum). ``coef`` holds the fitted coefficients (concentration × pathlength in the
+#: library's unit, AU, AU/nm), from which the fitted spectra are computed.
+OUTPUTS: dict[str, tuple[str, ...]] = {
+    "coef": (TERM,), "concentration": (COMPONENT,), "std_uncertainty": (COMPONENT,),
+    "at_zero": (COMPONENT,), "shift_bias_per_nm": (COMPONENT,), "rms_residual": (),
+    "dof": (), "status": (), **{name: () for name in CHECK_NAMES},
+    "suggested_dilution": (), "flags": (),
+}
+#: Extra outputs of the shift fit (one design per spectrum, so its fitted spectra too).
+SHIFT_OUTPUTS: dict[str, tuple[str, ...]] = {
+    "wavelength_shift_nm": (), "u_wavelength_shift_nm": (), "fitted": (WAVELENGTH,)}
+#: Spectra per task when several threads share a block.
+TASK_SPECTRA = 8192
+DTYPES: dict[str, Any] = {"dof": np.int64, "status": np.int64, "at_zero": bool,
+                          "flags": VLEN_STR}
+
+
+@dataclass(frozen=True)
+class BlockSettings:
+    """What every block of one ``unmix`` call shares (all validated by ``unmix``)."""
+
+    design: np.ndarray  #: (m, p) absorptivity columns at 1 cm, then baseline columns
+    components: list[str]
+    method: Method
+    noise: NoiseModel | None
+    weighted: bool  #: two-pass fit weighted by 1/σ_A² of ``noise``
+    threads: int  #: threads sharing a block (1 when dask's threads run the blocks)
+    absorbance_range: tuple[float, float]  #: AU
+    design_status: int  #: status bits that hold for every spectrum (ill conditioning)
+    unit_factor: np.ndarray  #: (n,) result unit per library concentration unit
+    shift_matrix: np.ndarray  #: (n, n) library-unit bias per nm per unit of each component
+    tolerance_nm: float  #: wavelength accuracy for the shift_sensitive flag
+    shift_options: dict[str, Any] | None = None  #: :func:`fit_with_shift` options, or None
+
+
+def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
+                ) -> tuple[np.ndarray, ...]:
+    """All per-spectrum outputs of one block, in ``OUTPUTS`` (then ``SHIFT_OUTPUTS``) order.
+
+    Parameters
+    ----------
+    spectra : array, shape (..., m)
+        Absorbance (AU) at the used wavelengths; NaN = missing reading.
+    pathlength_cm : array, broadcastable to shape (...)
+        Pathlength b (cm).
+    settings : BlockSettings
+
+    Returns
+    -------
+    tuple of arrays
+        Concentrations c = x/b × unit factor and u(c) likewise; ``at_zero`` where NNLS
+        held a component at 0; the bias S·(c/factor)·factor per +1 nm; the trust figures
+        and status bits; the flag strings.
+
+    Notes
+    -----
+    A block of more than ``TASK_SPECTRA`` spectra is cut into tasks of that many, which
+    ``settings.threads`` threads share (the compiled and numpy passes release the GIL);
+    every task uses the engine chosen for the whole block, so results do not depend on
+    how the block is cut.
+    """
+    lead = spectra.shape[:-1]
+    m = spectra.shape[-1]
+    flat = spectra.reshape(-1, m)
+    b = np.broadcast_to(np.asarray(pathlength_cm, dtype=float), lead).reshape(-1)
+    n_spec = flat.shape[0]
+    engine = choose_engine("auto", n_spec)
+    names = {**OUTPUTS, **(SHIFT_OUTPUTS if settings.shift_options is not None else {})}
+    sizes = {TERM: settings.design.shape[1], COMPONENT: len(settings.components),
+             WAVELENGTH: m}
+    outputs = [np.empty((n_spec, *(sizes[d] for d in dims)), dtype=DTYPES.get(name, float))
+               for name, dims in names.items()]
+    texts: dict[int, str] = {}
+
+    def run(rows: slice) -> None:
+        for store, value in zip(outputs, _task(flat[rows], b[rows], settings, engine, texts),
+                                strict=True):
+            store[rows] = value
+
+    tasks = [slice(s, min(s + TASK_SPECTRA, n_spec)) for s in range(0, n_spec, TASK_SPECTRA)]
+    if settings.threads > 1 and len(tasks) > 1:
+        with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, \
+                threadpool_limits(1, user_api="blas"):
+            list(pool.map(run, tasks))
+    else:
+        for rows in tasks:
+            run(rows)
+    return tuple(out.reshape((*lead, *out.shape[1:])) for out in outputs)
+
+
+def _task(spectra: np.ndarray, b: np.ndarray, settings: BlockSettings, engine: Engine,
+          texts: dict[int, str]) -> tuple[np.ndarray, ...]:
+    """:func:`unmix_block` for spectra (n, m) and pathlengths (n,), in one thread."""
+    n = len(settings.components)
+    if settings.shift_options is not None:
+        coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
+            spectra, **settings.shift_options)
+        summary = summarise(spectra, spectra - fitted)
+        lack = None if settings.noise is None else lack_of_fit(
+            spectra - fitted, fitted, dof, settings.noise)
+        extra: tuple[np.ndarray, ...] = (shift, u_shift, fitted)
+    else:
+        fit = fit_spectra(spectra, settings.design, n, settings.method, engine=engine)
+        if settings.weighted and settings.noise is not None:
+            first = fit.coef @ settings.design.T
+            at = np.where(np.isfinite(first), first, spectra)
+            weights = 1.0 / settings.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
+            fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights)
+        coef, se, dof, status, summary = fit.coef, fit.std_error, fit.dof, fit.status, \
+            fit.summary
+        lack = None if settings.noise is None else lack_of_fit_model(
+            spectra, coef, settings.design, dof, settings.noise)
+        extra = ()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rms = np.sqrt(summary.sum_squares / summary.n_points)
+    checks = summary_checks(summary, lack)
+    status = status | settings.design_status | trust_status(
+        checks, rms, spectra.shape[-1], settings.absorbance_range, settings.noise is not None)
+    canonical = coef[:, :n] / b[:, None]
+    conc = canonical * settings.unit_factor
+    u_conc = se[:, :n] / b[:, None] * settings.unit_factor
+    at_zero = (conc == 0) & (settings.method == "nnls")
+    bias = (canonical @ settings.shift_matrix.T) * settings.unit_factor
+    dilution = checks[0] / target_absorbance(*settings.absorbance_range)
+    flags = flag_texts(status, at_zero, conc, u_conc, bias, settings.components,
+                       ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
+                       known=texts)
+    return (coef, conc, u_conc, at_zero, bias, rms, dof, status, *checks, dilution, flags,
+            *extra)
