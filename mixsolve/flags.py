@@ -90,16 +90,16 @@ def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.
     if not status.size:
         return np.empty(lead, dtype=VLEN_STR)
     bits = np.concatenate(groups, axis=1)
-    packed = np.packbits(bits, axis=1, bitorder="little")
     status_bits = max(STATUS_CODES).bit_length()
     keys = None
-    if status_bits + 8 * packed.shape[1] <= 64:  # one integer key per spectrum
-        key = status.astype(np.uint64)
-        for i in range(packed.shape[1]):
-            key |= packed[:, i].astype(np.uint64) << np.uint64(status_bits + 8 * i)
+    if status_bits + bits.shape[1] <= 63:  # one integer key per spectrum
+        weights = np.left_shift(1, np.arange(status_bits, status_bits + bits.shape[1]),
+                                dtype=np.int64)
+        key = status.astype(np.int64) | (bits.view(np.uint8) @ weights)
         index, first = _factorize(key)
         keys = key[first].tolist()
     else:
+        packed = np.packbits(bits, axis=1, bitorder="little")
         rows = np.column_stack([status.astype(np.int64).view(np.uint8).reshape(
             status.size, -1), packed])
         _, first, index = np.unique(rows, axis=0, return_index=True, return_inverse=True)

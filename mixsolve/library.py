@@ -494,6 +494,28 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
     return table
 
 
+def absorptivity_at(library: xr.Dataset, wavelengths_nm: np.ndarray) -> np.ndarray:
+    """ε at wavelengths inside the library's range, as :func:`resample_library` gives it.
+
+    Parameters
+    ----------
+    library : Dataset
+        A checked library (:func:`check_library`: λ ascending).
+    wavelengths_nm : array, shape (n,)
+        Wavelengths (nm) within the library's range (the caller has checked).
+
+    Returns
+    -------
+    ndarray, shape (n, n_components)
+        Absorptivity in the library's unit, linearly interpolated (``numpy.interp``);
+        values on the library grid are kept exactly.
+    """
+    grid = library[WAVELENGTH].values
+    eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
+    at = np.clip(np.asarray(wavelengths_nm, dtype=float), grid[0], grid[-1])
+    return np.stack([np.interp(at, grid, row) for row in eps], axis=1)
+
+
 def resample_library(
     library: xr.Dataset, wavelengths_nm: np.ndarray
 ) -> tuple[xr.Dataset, np.ndarray]:

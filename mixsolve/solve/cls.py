@@ -143,7 +143,7 @@ def fit_spectra(
     spectra = np.asarray(spectra, dtype=float)
     lead = spectra.shape[:-1]
     flat = spectra.reshape(-1, spectra.shape[-1])
-    n_spec, n_wl = flat.shape
+    n_spec = flat.shape[0]
     n_terms = design.shape[1]
     out = _Outputs(n_spec, n_terms)
     if weights is not None:
@@ -156,8 +156,11 @@ def fit_spectra(
                     np.sqrt(np.where(present, w, 0.0)))
     else:
         rest = np.arange(n_spec)
-        if n_spec and n_wl >= n_terms and _full_rank(design):
-            rest = _fit_complete(flat, design, n_components, method, out, engine)
+        if n_spec:
+            plan = _plan(np.ascontiguousarray(design, dtype=float).tobytes(), design.shape,
+                         n_components, method)
+            if plan.full_rank:
+                rest = _fit_complete(flat, plan, out, engine)
         if rest.size:
             _refuse_infinity(flat, rest)
             _fit_groups(flat, _missing_groups(flat, rest), design, n_components, method, out)
@@ -216,11 +219,19 @@ def _refuse_infinity(flat: np.ndarray, rows: np.ndarray) -> None:
 # --- complete spectra: one pass, numpy or compiled --------------------------------------------
 
 class _Plan:
-    """What every batch against one design shares: the scaled design's QR and the rest."""
+    """What every batch against one design shares: the scaled design's QR and the rest.
+
+    ``full_rank`` False (fewer rows than columns, or dependent columns): nothing else is
+    set, and the spectra are fitted group by group, which flags them.
+    """
 
     def __init__(self, design: np.ndarray, n_components: int, method: Method) -> None:
         m, p = design.shape
         self.design = design
+        self.n_components = n_components
+        self.full_rank = m >= p and _full_rank(design)
+        if not self.full_rank:
+            return
         self.norms = np.linalg.norm(design, axis=0)
         q, self.r = np.linalg.qr(design / self.norms)
         self.qt = np.ascontiguousarray(q.T)
@@ -229,6 +240,7 @@ class _Plan:
         self.constrained = np.zeros(p, dtype=bool) if self.ols else np.arange(p) < n_components
         self.rtol = kkt_rtol(m, p)
         self.max_iter = 10 * p + 10
+        self.inverse_diag = _inverse_diag(design)
         self._kernel: Any = None
         self._lock = threading.Lock()
 
@@ -247,29 +259,28 @@ def _plan(design: bytes, shape: tuple[int, int], n_components: int, method: Meth
     return _Plan(np.frombuffer(design).reshape(shape), n_components, method)
 
 
-def _fit_complete(flat: np.ndarray, design: np.ndarray, n_components: int, method: Method,
-                  out: _Outputs, engine: Engine) -> np.ndarray:
+def _fit_complete(flat: np.ndarray, plan: _Plan, out: _Outputs, engine: Engine
+                  ) -> np.ndarray:
     """Fit every spectrum whose readings are all finite; return the rows left over."""
     n_spec, n_wl = flat.shape
-    plan = _plan(np.ascontiguousarray(design, dtype=float).tobytes(), design.shape,
-                 n_components, method)
+    design = plan.design
     state = np.zeros(n_spec, dtype=np.int64)
     kernel = plan.compiled() if choose_engine(engine, n_spec) == "compiled" else None
     if kernel is not None:
-        kernel(flat, out.coef, out.summary, state)
+        kernel(np.ascontiguousarray(flat), out.coef, out.summary, state)
         out.summary.n_points[_rows(state == ROW_DONE)] = n_wl
         # rows not fitted have NaN counts, which compare False
         _fix_zero_residuals(flat, out, np.flatnonzero(out.summary.n_nonzero < n_wl), design)
         again = np.flatnonzero(state == ROW_ITERATION_LIMIT)
         if again.size:
             values = flat[again]
-            out.coef[again] = nnls_batch(design, values, n_components).x
+            out.coef[again] = nnls_batch(design, values, plan.n_components).x
             put(out.summary, again, summarise_model(values, out.coef[again], design))
             state[again] = ROW_DONE
     else:
         _numpy_pass(flat, plan, out, state)
     done = _rows(state == ROW_DONE)
-    out.set_errors(done, n_wl - design.shape[1], _inverse_diag(design),
+    out.set_errors(done, n_wl - design.shape[1], plan.inverse_diag,
                    out.summary.sum_squares[done])
     return np.flatnonzero(state != ROW_DONE)
 

@@ -8,7 +8,7 @@ Per spectrum a (a row of the spectra), with D̂ = Q R the QR factorisation of th
 scaled to unit column norms (computed once, by the caller):
 
 1. y = Qᵀa (p dot products), and the largest and smallest reading, while a is read once
-   from memory;
+   from memory (then it stays in the first-level cache for the rest);
 2. the reduced problem min ‖y − R x̂‖, x̂_j ≥ 0 for the constrained columns, by
    Lawson & Hanson's active-set method (the same steps, start and stopping test as the
    batched numpy solver, :mod:`mixsolve.solve.nnls`), every subproblem solved by back
@@ -97,39 +97,42 @@ def subset_factors(r: np.ndarray, constrained: np.ndarray
 
 
 @numba.njit(nogil=True, cache=True, fastmath=REORDER)
-def _project(a_row: np.ndarray, qt: np.ndarray, row: np.ndarray, y: np.ndarray
+def _project(row: np.ndarray, qt: np.ndarray, y: np.ndarray, scratch: np.ndarray
              ) -> tuple[float, float]:
-    """Copy a_row into the contiguous ``row``; y = Qᵀ row; return (max, min) of the row.
+    """y = Qᵀ row; return (max, min) of the row (``scratch``: two int64).
 
     A NaN or infinite reading makes y non-finite (``REORDER`` keeps NaN and infinity).
     """
-    m = a_row.shape[0]
+    m = row.shape[0]
     p = qt.shape[0]
-    for j in range(m):
-        row[j] = a_row[j]
     for k in range(p):
         acc = 0.0
         for j in range(m):
             acc += qt[k, j] * row[j]
         y[k] = acc
-    # eight running extremes: independent chains the processor overlaps
-    m8 = m - m % 8
-    h0 = h1 = h2 = h3 = h4 = h5 = h6 = h7 = row[0]
-    l0 = l1 = l2 = l3 = l4 = l5 = l6 = l7 = row[0]
-    for j in range(0, m8, 8):
-        h0, l0 = max(h0, row[j]), min(l0, row[j])
-        h1, l1 = max(h1, row[j + 1]), min(l1, row[j + 1])
-        h2, l2 = max(h2, row[j + 2]), min(l2, row[j + 2])
-        h3, l3 = max(h3, row[j + 3]), min(l3, row[j + 3])
-        h4, l4 = max(h4, row[j + 4]), min(l4, row[j + 4])
-        h5, l5 = max(h5, row[j + 5]), min(l5, row[j + 5])
-        h6, l6 = max(h6, row[j + 6]), min(l6, row[j + 6])
-        h7, l7 = max(h7, row[j + 7]), min(l7, row[j + 7])
-    high = max(max(max(h0, h1), max(h2, h3)), max(max(h4, h5), max(h6, h7)))
-    low = min(min(min(l0, l1), min(l2, l3)), min(min(l4, l5), min(l6, l7)))
-    for j in range(m8, m):
-        high, low = max(high, row[j]), min(low, row[j])
-    return high, low
+    return _extent(row.view(np.int64), scratch)
+
+
+#: Sign mask of a float64 as int64: k ↦ k ^ ((k >> 63) & SIGNLESS) orders float64 bit
+#: patterns like the numbers (negatives reversed), so integer extremes, which vectorise,
+#: give the float extremes.
+SIGNLESS = np.int64(0x7FFFFFFFFFFFFFFF)
+
+
+@numba.njit(nogil=True, cache=True)
+def _extent(bits: np.ndarray, out: np.ndarray) -> tuple[float, float]:
+    """(max, min) of float64 values given as their int64 bit patterns (no NaN among them
+    matters: a row with NaN is not fitted here); ``out``: two int64 of scratch space."""
+    high = np.int64(-9223372036854775807) - 1
+    low = np.int64(9223372036854775807)
+    for j in range(bits.shape[0]):
+        key = bits[j] ^ ((bits[j] >> 63) & SIGNLESS)
+        high = max(high, key)
+        low = min(low, key)
+    out[0] = high ^ ((high >> 63) & SIGNLESS)
+    out[1] = low ^ ((low >> 63) & SIGNLESS)
+    values = out.view(np.float64)
+    return values[0], values[1]
 
 
 @numba.njit(nogil=True, cache=True)
@@ -256,8 +259,9 @@ def _residual_summary(row: np.ndarray, x: np.ndarray, design_t: np.ndarray,
         r[j] = row[j]
     for k in range(p):
         xk = x[k]
-        for j in range(m):
-            r[j] -= xk * design_t[k, j]
+        if xk != 0.0:  # components NNLS held at zero cost nothing
+            for j in range(m):
+                r[j] -= xk * design_t[k, j]
     ss = 0.0
     n_pos = 0.0
     n_neg = 0.0
@@ -291,7 +295,7 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
     Parameters
     ----------
     a : array, shape (n, m)
-        Spectra (AU), any strides.
+        Spectra (AU), C-contiguous.
     qt_design : array, shape (p, m)
         Qᵀ of the column-scaled design D̂ = Q R.
     r : array, shape (p, p)
@@ -321,7 +325,6 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
     """
     n, m = a.shape
     p = r.shape[0]
-    row = np.empty(m)
     y = np.empty(p)
     xs = np.empty(p)
     x = np.empty(p)
@@ -330,9 +333,11 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
     res = np.empty(p)
     resid = np.empty(m)
     out = np.empty(5)
+    scratch = np.empty(2, dtype=np.int64)
     full = (1 << p) - 1
     for i in range(n):
-        a_max, a_min = _project(a[i], qt_design, row, y)
+        row = a[i]
+        a_max, a_min = _project(row, qt_design, y, scratch)
         finite = True
         for k in range(p):
             if not np.isfinite(y[k]):

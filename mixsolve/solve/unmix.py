@@ -15,7 +15,7 @@ from mixsolve._version import __version__
 from mixsolve.diagnostics.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
 from mixsolve.errors import ExtrapolationWarning, IllConditionedWarning, InputError
 from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
-from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
 from mixsolve.solve.cls import METHODS, Method, default_threads
 from mixsolve.solve.design import (
@@ -209,9 +209,8 @@ def unmix(
             ExtrapolationWarning, stacklevel=2)
     used = spectra.isel({WAVELENGTH: _as_slice(index)})
     used_wl = measured[index]
-    lib_used, _ = resample_library(library, used_wl)
     components = [str(c) for c in library[COMPONENT].values]
-    absorptivity = lib_used["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
+    absorptivity = absorptivity_at(library, used_wl)
     design = design_matrix(absorptivity, used_wl, baseline)
     terms = components + list(BASELINE_TERMS[baseline])
     condition = check_solvable(design, terms)

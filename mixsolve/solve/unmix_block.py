@@ -11,12 +11,15 @@ function keeps the data to one pass and the result to one set of labelled variab
 
 from __future__ import annotations
 
+import contextlib
+import functools
+import itertools
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from mixsolve.diagnostics.sample_checks import lack_of_fit, target_absorbance
 from mixsolve.diagnostics.trust import (
@@ -91,8 +94,8 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
 
     Notes
     -----
-    A block of more than ``TASK_SPECTRA`` spectra is cut into tasks of that many, which
-    ``settings.threads`` threads share (the compiled and numpy passes release the GIL);
+    A block of more than ``TASK_SPECTRA`` spectra is cut into equal tasks of at most that
+    many, which ``settings.threads`` threads share (the compiled and numpy passes release the GIL);
     every task uses the engine chosen for the whole block, so results do not depend on
     how the block is cut.
     """
@@ -114,15 +117,33 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
                                 strict=True):
             store[rows] = value
 
-    tasks = [slice(s, min(s + TASK_SPECTRA, n_spec)) for s in range(0, n_spec, TASK_SPECTRA)]
+    tasks = _tasks(n_spec, settings.threads)
     if settings.threads > 1 and len(tasks) > 1:
-        with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, \
-                threadpool_limits(1, user_api="blas"):
+        # numpy's fit calls BLAS in every task: one BLAS thread each, not one pool per task
+        single = _blas_controller().limit(limits=1, user_api="blas") \
+            if engine == "numpy" else contextlib.nullcontext()
+        with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, single:
             list(pool.map(run, tasks))
     else:
         for rows in tasks:
             run(rows)
     return tuple(out.reshape((*lead, *out.shape[1:])) for out in outputs)
+
+
+@functools.cache
+def _blas_controller() -> ThreadpoolController:
+    """threadpoolctl's view of the loaded BLAS libraries, found once (finding costs ~1 ms)."""
+    return ThreadpoolController()
+
+
+def _tasks(n_spec: int, threads: int) -> list[slice]:
+    """Equal tasks of at most ``TASK_SPECTRA`` spectra, as many as a multiple of ``threads``
+    (so that no thread is left with one more task than the others at the end)."""
+    count = -(-n_spec // TASK_SPECTRA)
+    if threads > 1 and count > 1:
+        count = -(-count // threads) * threads
+    bounds = np.linspace(0, n_spec, max(count, 1) + 1).round().astype(int)
+    return [slice(int(lo), int(hi)) for lo, hi in itertools.pairwise(bounds)]
 
 
 def _task(spectra: np.ndarray, b: np.ndarray, settings: BlockSettings, engine: Engine,
