@@ -1,0 +1,88 @@
+"""One block of unmix (mixsolve.solve.unmix_block): tasks, threads, refusals.
+
+The result of a block must not depend on how it is cut into tasks or how many threads
+share them (each spectrum's fit is its own problem); checked against the same block fitted
+in one piece. Infinity is refused with check_spectra's message whether the spectra are
+numpy- or dask-backed. Data invented (Gaussian bands, seeded noise).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import itertools
+
+import numpy as np
+import pytest
+import xarray as xr
+
+import mixsolve as ms
+from mixsolve.errors import InputError
+from mixsolve.solve import unmix_block as block_module
+from mixsolve.solve.unmix_block import OUTPUTS, unmix_block
+
+
+@pytest.fixture
+def spectra(molar_library: xr.Dataset, rng: np.random.Generator) -> xr.DataArray:
+    """300 noisy invented mixtures, some components absent, one missing reading."""
+    eps = molar_library["absorptivity"].transpose("component", "wavelength").values
+    conc = rng.uniform(0, 5e-5, (300, 3))
+    conc[rng.random(conc.shape) < 0.3] = 0
+    values = conc @ eps + 0.004 * rng.standard_normal((300, eps.shape[1]))
+    values[17, 4] = np.nan
+    return ms.make_spectra(values, molar_library["wavelength"].values)
+
+
+def settings_of(spectra: xr.DataArray, library: xr.Dataset, monkeypatch: pytest.MonkeyPatch,
+                **options: object) -> tuple[np.ndarray, object]:
+    """The array and BlockSettings that unmix hands to unmix_block."""
+    seen = {}
+    original = block_module.unmix_block
+
+    def spy(values: np.ndarray, b: np.ndarray, settings: object) -> tuple:
+        seen["args"] = (values, settings)
+        return original(values, b, settings)
+
+    monkeypatch.setattr("mixsolve.solve.unmix.unmix_block", spy)
+    ms.unmix(spectra, library, **options)
+    return seen["args"]
+
+
+@pytest.mark.parametrize("threads", [1, 3])
+def test_tasks_and_threads_do_not_change_the_result(spectra, molar_library, monkeypatch,
+                                                    threads: int) -> None:
+    """Cut into tasks of 37 spectra, shared by 1 or 3 threads: the one-piece result."""
+    values, settings = settings_of(spectra, molar_library, monkeypatch, noise=0.004,
+                                   baseline="offset")
+    whole = unmix_block(values, np.ones(1), dataclasses.replace(settings, threads=1))
+    monkeypatch.setattr(block_module, "TASK_SPECTRA", 37)
+    cut = unmix_block(values, np.ones(1), dataclasses.replace(settings, threads=threads))
+    for name, a, b in zip(OUTPUTS, whole, cut, strict=True):
+        if a.dtype.kind == "f":
+            np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15, equal_nan=True,
+                                       err_msg=name)
+        else:
+            np.testing.assert_array_equal(a, b, err_msg=name)
+
+
+def test_tasks_are_equal_and_a_multiple_of_the_threads() -> None:
+    """No thread is left with an extra task at the end; every spectrum is in one task."""
+    tasks = block_module._tasks(100_000, 2)
+    sizes = [t.stop - t.start for t in tasks]
+    assert len(tasks) % 2 == 0 and max(sizes) - min(sizes) <= 1
+    assert max(sizes) <= block_module.TASK_SPECTRA
+    assert tasks[0].start == 0 and tasks[-1].stop == 100_000
+    assert all(a.stop == b.start for a, b in itertools.pairwise(tasks))
+    assert block_module._tasks(0, 2) == [slice(0, 0)]
+
+
+def test_infinity_is_refused(spectra, molar_library) -> None:
+    """An infinite reading: check_spectra's one-line message, eager and (on compute) lazy."""
+    bad = spectra.copy()
+    bad.values[5, 3] = np.inf
+    message = r"spectra: absorbance values include infinity; use NaN for a missing reading"
+    with pytest.raises(InputError, match=message):
+        ms.unmix(bad, molar_library)
+    pytest.importorskip("dask")
+    lazy = ms.unmix(bad.chunk({"sample": 100}), molar_library)
+    with pytest.raises(InputError, match=message):
+        lazy.compute()
