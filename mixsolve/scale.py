@@ -102,8 +102,10 @@ def compute(obj: Any, *, client: Any = None, progress: TextIO | None = None) -> 
 
             bar = ProgressBar(minimum=PROGRESS_AFTER_S, dt=0.5, out=progress)
         with bar:
-            # xarray objects compute through their own method (dask.compute() on a whole
-            # Dataset can lose keys of multi-output graphs in this dask version)
+            # xarray objects compute through their own method: dask.compute() on a whole
+            # Dataset can lose graph keys when one variable derives from another through
+            # xarray arithmetic (xarray issue 11329); unmix results avoid that, objects a
+            # caller derives from them may not
             return obj.compute() if labelled else dask.compute(obj)[0]
     running = obj.persist() if labelled else client.compute(obj)
     if progress is not None:

@@ -14,6 +14,7 @@ from __future__ import annotations
 import os
 import shutil
 import tempfile
+import warnings
 from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
@@ -88,7 +89,7 @@ def read_cube(path: str | os.PathLike[str], *, variable: str | None = None,
 def _open(p: Path) -> xr.Dataset:
     try:
         if p.suffix.lower() == ".zarr":
-            return xr.open_zarr(p, consolidated=False, chunks={})
+            return xr.open_zarr(p, consolidated=None, chunks={})
         return xr.open_dataset(p, engine=NETCDF_ENGINE, chunks={})
     except (OSError, ValueError, KeyError, TypeError) as exc:
         kind = "Zarr store" if p.suffix.lower() == ".zarr" else "netCDF file"
@@ -168,7 +169,8 @@ def write_cube(data: xr.Dataset | xr.DataArray, path: str | os.PathLike[str], *,
     Raises
     ------
     OutputError
-        An unknown suffix, a missing folder, or a failed write. A Zarr store is written to
+        An unknown suffix, a missing folder, or a failed write. A Zarr store (with
+        consolidated metadata, so that opening it reads one file) is written to
         a temporary folder beside the target and renamed into place (an existing store of
         that name is replaced only once the new one is complete); a netCDF file goes
         through :func:`mixsolve.io.atomic.atomic_path`.
@@ -228,7 +230,13 @@ def _write_zarr(ds: xr.Dataset, target: Path, compute: Callable[[Any], Any] | No
     store = tmp / "store.zarr"
     old = None
     try:
-        _run(ds.to_zarr(store, mode="w-", consolidated=False, compute=False), compute)
+        with warnings.catch_warnings():
+            # consolidated metadata is zarr-python's extension of the v3 format: one read
+            # instead of one per array when a store is opened (a shared file system, a
+            # cluster); readers without it open the store all the same
+            warnings.filterwarnings("ignore", message="Consolidated metadata is currently "
+                                    "not part in the Zarr format 3 specification")
+            _run(ds.to_zarr(store, mode="w-", consolidated=True, compute=False), compute)
         if target.exists():
             old = tmp / "replaced.zarr"
             os.replace(target, old)

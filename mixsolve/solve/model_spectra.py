@@ -68,8 +68,7 @@ def model_variable(dims: tuple[str, ...], coef: np.ndarray, design: np.ndarray,
     return xr.Variable(dims, indexing.MemoryCachedArray(indexing.LazilyIndexedArray(array)))
 
 
-def fitted_and_residual(spectra: xr.DataArray, coef: xr.DataArray, design: np.ndarray,
-                        fitted: xr.DataArray | None = None
+def fitted_and_residual(spectra: xr.DataArray, coef: xr.DataArray, design: np.ndarray
                         ) -> tuple[xr.DataArray, xr.DataArray]:
     """The fitted and residual spectra (AU) of a fit, labelled like ``spectra``.
 
@@ -80,27 +79,30 @@ def fitted_and_residual(spectra: xr.DataArray, coef: xr.DataArray, design: np.nd
     coef : DataArray with dims (..., "term")
         Coefficients in the units of the design's columns.
     design : array, shape (n_wavelengths, n_terms)
-    fitted : DataArray, optional
-        Fitted spectra already computed (a fit with one design per spectrum): used as
-        they are, and the residual is ``spectra − fitted``.
 
     Returns
     -------
     fitted, residual : DataArray with dims (..., "wavelength")
-        Numpy-backed: computed when read (:func:`model_variable`). Dask-backed: lazy,
-        chunk by chunk.
+        Numpy-backed: computed when read (:func:`model_variable`). Dask-backed: lazy, both
+        from one task per chunk (:func:`model_and_residual`).
+
+    Notes
+    -----
+    The dask form is one ``apply_ufunc`` with two outputs rather than ``spectra − fitted``
+    in xarray arithmetic: with dask 2026.8 and xarray 2026.9, ``dask.compute`` of a
+    Dataset holding a variable derived from another through xarray arithmetic can lose
+    a graph key ("Missing dependency"; xarray issue 11329).
     """
     wl = spectra["wavelength"].values
     term = coef.dims[-1]
-    if fitted is None and spectra.chunks is not None:
-        fitted = xr.apply_ufunc(
-            np.matmul, coef, np.ascontiguousarray(design.T),
-            input_core_dims=[[term], [term, "wavelength"]], output_core_dims=[["wavelength"]],
-            dask="parallelized", output_dtypes=[float],
-            dask_gufunc_kwargs={"output_sizes": {"wavelength": wl.size}})
-    if fitted is not None:
-        fitted = fitted.assign_coords({"wavelength": wl})
-        return fitted, (spectra - fitted).transpose(*fitted.dims)
+    if spectra.chunks is not None:
+        fitted, residual = xr.apply_ufunc(
+            model_and_residual, spectra, coef, np.ascontiguousarray(design.T),
+            input_core_dims=[["wavelength"], [term], [term, "wavelength"]],
+            output_core_dims=[["wavelength"], ["wavelength"]], dask="parallelized",
+            output_dtypes=[float, float])
+        return (fitted.assign_coords({"wavelength": wl}),
+                residual.assign_coords({"wavelength": wl}))
     lead = [d for d in coef.dims if d != term]
     ordered = spectra.transpose(*lead, "wavelength")
     coords = dict(ordered.coords.items())
@@ -109,3 +111,10 @@ def fitted_and_residual(spectra: xr.DataArray, coef: xr.DataArray, design: np.nd
     dims = (*lead, "wavelength")
     return (xr.DataArray(model_variable(dims, c, design), coords=coords),
             xr.DataArray(model_variable(dims, c, design, values), coords=coords))
+
+
+def model_and_residual(values: np.ndarray, coef: np.ndarray, design_t: np.ndarray
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """D·x and a − D·x for one block: ``values`` (..., m), ``coef`` (..., p), Dᵀ (p, m)."""
+    fitted = np.matmul(coef, design_t)
+    return fitted, values - fitted

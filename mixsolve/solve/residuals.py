@@ -133,8 +133,8 @@ def model_blocks(values: np.ndarray, coef: np.ndarray, design: np.ndarray
     for start in range(0, n, block):
         stop = min(start + block, n)
         f, r = fitted[:stop - start], residual[:stop - start]
-        for sub in range(0, stop - start, GEMM_ROWS):
-            np.matmul(coef[start + sub:start + sub + GEMM_ROWS], design_t,
-                      out=f[sub:sub + GEMM_ROWS])
+        for sub in range(start, stop, GEMM_ROWS):
+            end = min(sub + GEMM_ROWS, stop)
+            np.matmul(coef[sub:end], design_t, out=f[sub - start:end - start])
         np.subtract(values[start:stop], f, out=r)
         yield slice(start, stop), values[start:stop], f, r

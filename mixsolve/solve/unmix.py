@@ -247,7 +247,10 @@ def unmix(
     )
     named = dict(zip(names, outputs, strict=True))
     coef = named.pop("coef").assign_coords({TERM: terms})
-    fitted, residual = fitted_and_residual(used, coef, design, named.pop("fitted", None))
+    if fit_shift:  # one design per spectrum: the kernel returns both
+        fitted, residual = named.pop("fitted"), named.pop("residual")
+    else:
+        fitted, residual = fitted_and_residual(used, coef, design)
     n_comp = len(components)
     # plain variables and one set of coordinates: no alignment per variable
     variables = {name: da.variable for name, da in named.items()}

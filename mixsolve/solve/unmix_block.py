@@ -46,9 +46,11 @@ OUTPUTS: dict[str, tuple[str, ...]] = {
     "dof": (), "status": (), **{name: () for name in CHECK_NAMES},
     "suggested_dilution": (), "flags": (),
 }
-#: Extra outputs of the shift fit (one design per spectrum, so its fitted spectra too).
+#: Extra outputs of the shift fit (one design per spectrum, so its fitted and residual
+#: spectra too).
 SHIFT_OUTPUTS: dict[str, tuple[str, ...]] = {
-    "wavelength_shift_nm": (), "u_wavelength_shift_nm": (), "fitted": (WAVELENGTH,)}
+    "wavelength_shift_nm": (), "u_wavelength_shift_nm": (), "fitted": (WAVELENGTH,),
+    "residual": (WAVELENGTH,)}
 #: Spectra per task when several threads share a block.
 TASK_SPECTRA = 8192
 DTYPES: dict[str, Any] = {"dof": np.int64, "status": np.int64, "at_zero": bool,
@@ -153,10 +155,11 @@ def _task(spectra: np.ndarray, b: np.ndarray, settings: BlockSettings, engine: E
     if settings.shift_options is not None:
         coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
             spectra, **settings.shift_options)
-        summary = summarise(spectra, spectra - fitted)
+        residual = spectra - fitted
+        summary = summarise(spectra, residual)
         lack = None if settings.noise is None else lack_of_fit(
-            spectra - fitted, fitted, dof, settings.noise)
-        extra: tuple[np.ndarray, ...] = (shift, u_shift, fitted)
+            residual, fitted, dof, settings.noise)
+        extra: tuple[np.ndarray, ...] = (shift, u_shift, fitted, residual)
     else:
         fit = fit_spectra(spectra, settings.design, n, settings.method, engine=engine)
         if settings.weighted and settings.noise is not None:

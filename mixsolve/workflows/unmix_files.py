@@ -226,7 +226,7 @@ def open_result(path: PathLike) -> xr.Dataset:
     """Open a result written by :func:`unmix_cube_files` (lazily, dask-backed)."""
     p = Path(path)
     if p.suffix.lower() == ".zarr":
-        return xr.open_zarr(p, consolidated=False)
+        return xr.open_zarr(p, consolidated=None)
     return xr.open_dataset(p, engine=NETCDF_ENGINE, chunks={})
 
 
