@@ -187,9 +187,21 @@ def main(debug: bool) -> None:
 @main.command()
 @click.option("--out", "out_dir", default="mixsolve-demo", show_default=True,
               help="Folder for the demo's library, results and comparison.")
+@click.option("--cube", "cube_pixels", type=int, default=None, metavar="PIXELS",
+              help="Instead: write a synthetic PIXELS x PIXELS image cube (Zarr) into "
+                   "OUT/cube/ and unmix it chunk by chunk (needs the scale extra).")
+@click.option("--cube-wavelengths", type=int, default=191, show_default=True,
+              help="Wavelengths of that cube, from 380 to 760 nm.")
 @_guarded
-def demo(out_dir: str) -> None:
+def demo(out_dir: str, cube_pixels: int | None, cube_wavelengths: int) -> None:
     """Run the whole job on the bundled synthetic demo data."""
+    if cube_pixels is not None:
+        from mixsolve.workflows.demo_cube import run_cube_demo
+
+        run = run_cube_demo(out_dir, cube_pixels, cube_wavelengths,
+                            progress=sys.stderr)
+        click.echo(run.text, nl=False)
+        return
     from mixsolve.workflows.demo import run_demo
 
     click.echo(run_demo(out_dir).text, nl=False)
