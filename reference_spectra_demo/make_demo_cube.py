@@ -10,8 +10,9 @@ here was measured: every pixel's spectrum is Beer–Lambert of the pigment bands
 
 The concentration maps are smooth functions of the pixel position (:func:`concentrations`),
 so the truth at any pixel is known without storing it. Every image row is drawn from its
-own seed, so the cube is the same whatever the chunking and never has to fit in memory: a 1000 × 1000-pixel cube of 500 wavelengths (4 GB of float64) is written in
-bounded memory.
+own seed, so the cube is the same whatever the chunking and never has to fit in memory:
+a 1000 × 1000-pixel cube of 500 wavelengths (4 GB of float64) is written in bounded
+memory.
 
 Run: ``python reference_spectra_demo/make_demo_cube.py OUT [--pixels 1000]
 [--wavelengths 191]`` writes ``OUT/library.nc`` (the pigments' absorptivities) and

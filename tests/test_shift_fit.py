@@ -277,3 +277,209 @@ def test_fit_shift_with_noise_weights_is_refused(library):
                                          r"weights='noise'"):
         ms.unmix(spectra, library, fit_shift=True, weights="noise",
                  noise="benchtop_double_beam")
+
+
+# --- the batched shift fit against a per-spectrum reference ----------------------------------
+
+#: Known shifts (nm), kept ≥ 0.1 nm away from multiples of 0.5 nm: there the 1 nm readings
+#: and the 0.5 nm library grid put a kink of the linear interpolation in every row at once,
+#: which can split a minimum into two within 1e-3 nm (both searches then stop in either).
+KNOWN_SHIFTS = [0.83, -1.37, 2.21, -2.62, 0.23, 1.66]
+FIT_WL = np.arange(420.0, 680.01, 1.0)
+
+
+def reference_shift_fit(a: np.ndarray, method: str, baseline: str, max_shift: float = 3.0
+                        ) -> tuple[np.ndarray, ...]:
+    """One spectrum, from the model definition (module docstring of shift_fit): RSS(δ)
+    over the readings present, library interpolated by ``numpy.interp`` at λ + δ, the
+    linear part by ``scipy.optimize.nnls`` (free baseline projected out) or
+    ``numpy.linalg.lstsq``; δ by ``scipy.optimize.minimize_scalar`` (bounded, xatol 1e-4,
+    as the per-spectrum implementation did); u from s²([D | J]ᵀ[D | J])⁻¹,
+    s² = RSS/(n − p − 1), J = Σₖ xₖ εₖ′(λ + δ).
+    Returns δ, coefficients, their standard errors and u(δ)."""
+    from scipy.optimize import minimize_scalar
+    from test_per_spectrum import nnls_free_reference
+
+    from mixsolve.solve.design import design_matrix
+
+    eps = eps_at(LIB_WL)
+    keep = np.isfinite(a)
+    n = eps.shape[0]
+
+    def design(delta: float) -> np.ndarray:
+        k = np.stack([np.interp(FIT_WL + delta, LIB_WL, row) for row in eps], axis=1)
+        return design_matrix(k, FIT_WL, baseline)
+
+    def solve(d: np.ndarray) -> np.ndarray:
+        if method == "nnls":
+            return nnls_free_reference(d[keep], a[keep], n)
+        return np.linalg.lstsq(d[keep], a[keep], rcond=None)[0]
+
+    def rss(delta: float) -> float:
+        d = design(delta)
+        return float(np.sum((a[keep] - d[keep] @ solve(d)) ** 2))
+
+    delta = float(minimize_scalar(rss, bounds=(-max_shift, max_shift), method="bounded",
+                                  options={"xatol": 1e-4}).x)
+    d = design(delta)
+    x = solve(d)
+    slope = np.gradient(eps, LIB_WL, axis=1)
+    jac = np.stack([np.interp(FIT_WL + delta, LIB_WL, s) for s in slope], axis=1) @ x[:n]
+    full = np.hstack([d, jac[:, None]])[keep]
+    s2 = rss(delta) / (keep.sum() - d.shape[1] - 1)
+    sd = np.sqrt(s2 * np.diag(np.linalg.inv(full.T @ full)))
+    return delta, x, sd[:-1], sd[-1]
+
+
+def known_spectra(noise: float, seed: int = SEED + 11, offset: float = 0.01) -> np.ndarray:
+    """One spectrum per known shift, compositions varied (one component absent in two),
+    plus a constant ``offset`` (AU)."""
+    rng = np.random.default_rng(seed)
+    conc = CONC * rng.uniform(0.5, 1.5, (len(KNOWN_SHIFTS), 3))
+    conc[1, 0] = conc[4, 2] = 0.0
+    rows = np.vstack([c @ eps_at(FIT_WL + d) for c, d in zip(conc, KNOWN_SHIFTS, strict=True)])
+    return rows + offset + noise * rng.standard_normal(rows.shape)
+
+
+def batched(a: np.ndarray, method: str, baseline: str, max_shift: float = 3.0
+            ) -> tuple[np.ndarray, ...]:
+    from mixsolve.solve.shift_fit import fit_with_shift
+
+    return fit_with_shift(a, eps_at(LIB_WL), LIB_WL, FIT_WL, baseline, method, max_shift)
+
+
+@pytest.mark.parametrize("noise", [0.0, 1e-3])
+@pytest.mark.parametrize(("method", "baseline"), [("nnls", "none"), ("nnls", "offset"),
+                                                  ("ols", "offset"), ("ols", "linear")])
+def test_batched_shift_fit_equals_minimize_scalar_per_spectrum(noise, method, baseline):
+    """Several spectra with different known shifts (plus a 0.01 AU offset where the fit
+    has baseline columns to absorb it), noiseless and with noise: the batched search finds each
+    spectrum's δ within 2·xatol = 2e-4 nm of the per-spectrum minimize_scalar reference
+    (both stop within about xatol of the minimiser), its RSS is no larger than the
+    reference's beyond that tolerance, and the coefficients, standard errors and u(δ)
+    agree (to 1e-3 relative with noise; noiseless the uncertainties measure only the
+    interpolation misfit and are not compared)."""
+    a = known_spectra(noise, offset=0.0 if baseline == "none" else 0.01)
+    coef, se, fitted, dof, status, shift, u_shift = batched(a, method, baseline)
+    p = coef.shape[1]
+    for i in range(a.shape[0]):
+        delta, x, sd, u = reference_shift_fit(a[i], method, baseline)
+        assert abs(shift[i] - delta) <= 2e-4, (i, shift[i], delta)
+        scale = np.abs(x).max()
+        np.testing.assert_allclose(coef[i], x, rtol=1e-3, atol=1e-3 * scale)
+        np.testing.assert_allclose(fitted[i], coef[i] @ batched_design(shift[i], baseline).T,
+                                   rtol=1e-12, atol=1e-15)
+        assert dof[i] == FIT_WL.size - p - 1 and status[i] == 0
+        if noise:
+            np.testing.assert_allclose(se[i], sd, rtol=1e-3)
+            assert u_shift[i] == pytest.approx(u, rel=1e-3)
+            assert abs(shift[i] - KNOWN_SHIFTS[i]) < 4 * u_shift[i]
+        else:
+            assert abs(shift[i] - KNOWN_SHIFTS[i]) < 0.01
+
+
+def batched_design(delta: float, baseline: str) -> np.ndarray:
+    """The design at one shift, as the model defines it (numpy.interp of the library)."""
+    from mixsolve.solve.design import design_matrix
+
+    k = np.stack([np.interp(FIT_WL + delta, LIB_WL, row) for row in eps_at(LIB_WL)], axis=1)
+    return design_matrix(k, FIT_WL, baseline)
+
+
+def test_shift_fit_with_missing_readings_uses_the_readings_present():
+    """NaN readings are left out of the search and the fit (reference: the per-spectrum
+    minimize_scalar fit on the readings present); the fitted spectrum is given at every
+    wavelength and the status says ``missing``."""
+    from mixsolve.flags import MISSING
+
+    a = known_spectra(1e-3, seed=SEED + 12)
+    a[0, 30:90] = np.nan
+    a[3, ::3] = np.nan
+    coef, se, fitted, dof, status, shift, u_shift = batched(a, "nnls", "offset")
+    for i in (0, 3):
+        delta, x, sd, u = reference_shift_fit(a[i], "nnls", "offset")
+        assert abs(shift[i] - delta) <= 2e-4
+        np.testing.assert_allclose(coef[i], x, rtol=1e-3, atol=1e-3 * np.abs(x).max())
+        np.testing.assert_allclose(se[i], sd, rtol=1e-3)
+        assert u_shift[i] == pytest.approx(u, rel=1e-3)
+        assert status[i] & MISSING and np.isfinite(fitted[i]).all()
+        assert dof[i] == np.isfinite(a[i]).sum() - coef.shape[1] - 1
+    assert not status[1] & MISSING
+
+
+def test_shift_fit_degenerate_spectra():
+    """Zero spectra: empty outputs. Too few readings: NaN results and shift, status
+    too_few + missing + no_dof. Every component driven to zero (a negative spectrum,
+    nnls): coefficients 0, J = 0 so the joint covariance is singular: u(δ) and the
+    standard errors NaN. One component only: fitted as the others."""
+    from mixsolve.flags import MISSING, NO_DOF, TOO_FEW
+    from mixsolve.solve.shift_fit import fit_with_shift
+
+    out = batched(np.zeros((0, FIT_WL.size)), "nnls", "none")
+    assert [o.shape for o in out] == [(0, 3), (0, 3), (0, FIT_WL.size), (0,), (0,), (0,), (0,)]
+    a = known_spectra(1e-3)[:3]
+    a[0, 2:] = np.nan
+    a[1] = -a[1]
+    coef, se, _, dof, status, shift, u_shift = batched(a, "nnls", "none")
+    assert np.isnan(coef[0]).all() and np.isnan(shift[0]) and np.isnan(u_shift[0])
+    assert status[0] == TOO_FEW | MISSING | NO_DOF and dof[0] == 0
+    np.testing.assert_array_equal(coef[1], 0.0)
+    assert np.isnan(u_shift[1]) and np.isnan(se[1]).all() and abs(shift[1]) <= 3.0
+    assert np.isfinite(u_shift[2])
+    one = eps_at(LIB_WL, ["rose"])
+    spectrum = 4e-5 * eps_at(FIT_WL + 0.7, ["rose"])
+    coef, se, _, dof, status, shift, u_shift = fit_with_shift(
+        spectrum, one, LIB_WL, FIT_WL, "none", "nnls", 3.0)
+    assert shift[0] == pytest.approx(0.7, abs=0.01)
+    assert coef[0, 0] == pytest.approx(4e-5, rel=1e-3)
+    assert dof[0] == FIT_WL.size - 2 and status[0] == 0 and np.isfinite(se[0, 0])
+    assert 0 < u_shift[0] < 0.01
+
+
+@pytest.mark.parametrize("true_shift", [2.93, 3.6])
+def test_shift_fit_at_the_search_bound(true_shift):
+    """A shift near or beyond the bound (3 nm): the search ends within 2e-4 nm of the
+    per-spectrum reference, which stops at the bound when the minimum lies beyond it."""
+    a = (CONC @ eps_at(FIT_WL + true_shift))[None, :]
+    shift = batched(a, "ols", "none")[5]
+    delta = reference_shift_fit(a[0], "ols", "none")[0]
+    assert abs(shift[0] - delta) <= 2e-4
+    assert shift[0] <= 3.0
+
+
+def test_shift_fit_in_blocks_equals_one_block(monkeypatch):
+    """The refinement cuts the batch into blocks; blocks of 2 spectra give what one block
+    gives (the searches of different spectra are independent)."""
+    import mixsolve.solve.shift_fit as shift_fit
+
+    a = known_spectra(1e-3, seed=SEED + 13)
+    whole = batched(a, "nnls", "offset")
+    monkeypatch.setattr(shift_fit, "block_spectra", lambda m, p: 2)
+    cut = batched(a, "nnls", "offset")
+    for w, c in zip(whole, cut, strict=True):
+        np.testing.assert_array_equal(w, c)
+
+
+@pytest.mark.parametrize("even", [True, False])
+def test_per_spectrum_interpolation_equals_numpy_interp(even):
+    """The library at λ + δ, one δ per spectrum, on an even grid (arithmetic) and an uneven
+    one (search): ``numpy.interp`` of each component and of its slope (reference), also
+    clamped beyond the grid ends."""
+    from mixsolve.solve.shift_fit import _ShiftedLibrary
+
+    rng = np.random.default_rng(SEED + 14)
+    grid = LIB_WL if even else np.sort(LIB_WL + rng.uniform(-0.2, 0.2, LIB_WL.size))
+    eps = eps_at(grid)
+    wl = np.r_[378.0, FIT_WL, 725.0]  # two wavelengths outside the grid: clamped
+    lib = _ShiftedLibrary(eps, grid, wl, "offset")
+    deltas = np.r_[rng.uniform(-3.0, 3.0, 7), 0.0, -0.5]
+    designs, slopes = lib.designs(deltas), lib.slopes(deltas)
+    slope = np.gradient(eps, grid, axis=1)
+    for i, d in enumerate(deltas):
+        want = np.stack([np.interp(wl + d, grid, row) for row in eps], axis=1)
+        np.testing.assert_allclose(designs[i, :, :3], want, rtol=1e-12, atol=1e-9)
+        np.testing.assert_array_equal(designs[i, :, 3], 1.0)
+        want = np.stack([np.interp(wl + d, grid, row) for row in slope], axis=1)
+        np.testing.assert_allclose(slopes[i], want, rtol=1e-12, atol=1e-9)
+    np.testing.assert_allclose(lib.design(0.3), lib.designs(np.array([0.3]))[0], rtol=1e-12,
+                               atol=1e-9)

@@ -13,7 +13,9 @@ when numba is installed, for batches of at least ``COMPILED_MIN_SPECTRA`` spectr
 environment variable ``MIXSOLVE_ENGINE`` (``numpy`` or ``compiled``) forces one
 (:func:`choose_engine`). The caller splits a large batch among threads. Spectra with
 missing readings (NaN) are fitted on the wavelengths they have, grouped by their pattern
-of missing values so that each pattern is solved once.
+of missing values so that each pattern is solved once. Weighted fits give every spectrum
+its own design (rows scaled by √w), solved for all spectra at once by
+:mod:`mixsolve.solve.per_spectrum`.
 """
 
 from __future__ import annotations
@@ -29,6 +31,7 @@ from scipy.linalg import solve_triangular
 from mixsolve.errors import InputError
 from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, STATUS_CODES, TOO_FEW
 from mixsolve.solve.nnls import kkt_rtol, nnls_batch, solve_reduced
+from mixsolve.solve.per_spectrum import block_spectra, fit_each
 from mixsolve.solve.residuals import (
     ResidualSummary,
     empty_summary,
@@ -111,8 +114,10 @@ def fit_spectra(
         How many leading columns are absorptivities (constrained ≥ 0 by ``nnls``).
     method : {"ols", "nnls"}
     weights : array, same shape as ``spectra``, optional
-        Weights wᵢ = 1/σᵢ² per reading; each spectrum is then solved on its own with
-        rows scaled by √wᵢ, and s² = Σ wᵢrᵢ²/(n − p) (so u stays in concentration units).
+        Weights wᵢ = 1/σᵢ² per reading (0 or not finite: the reading is left out); each
+        spectrum is then solved with its own design, rows scaled by √wᵢ
+        (:func:`mixsolve.solve.per_spectrum.fit_each`, all spectra at once), and
+        s² = Σ wᵢrᵢ²/(n − p) (so u stays in concentration units).
     engine : {"auto", "numpy", "compiled"}
         Who fits the complete spectra (:func:`choose_engine`).
 
@@ -150,10 +155,7 @@ def fit_spectra(
         w = np.broadcast_to(np.asarray(weights, dtype=float), spectra.shape).reshape(flat.shape)
         _refuse_infinity(flat, np.arange(n_spec))
         values = np.where(np.isfinite(w) & (w > 0), flat, np.nan)
-        present = ~np.isnan(values)
-        groups = [(present[i], np.array([i])) for i in range(n_spec)]
-        _fit_groups(values, groups, design, n_components, method, out,
-                    np.sqrt(np.where(present, w, 0.0)))
+        _fit_weighted(values, w, design, n_components, method, out)
     else:
         rest = np.arange(n_spec)
         if n_spec:
@@ -368,7 +370,7 @@ def _fix_zero_residuals(flat: np.ndarray, out: _Outputs, rows: np.ndarray,
         put(out.summary, rows, summarise_model(values, out.coef[rows], design))
 
 
-# --- spectra with missing readings, and weighted fits: one group per pattern ------------------
+# --- spectra with missing readings: one group per pattern -----------------------------------
 
 def _missing_groups(flat: np.ndarray, rows: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     """(pattern of readings present, rows) for each pattern among ``rows``."""
@@ -378,9 +380,8 @@ def _missing_groups(flat: np.ndarray, rows: np.ndarray) -> list[tuple[np.ndarray
 
 
 def _fit_groups(flat: np.ndarray, groups: list[tuple[np.ndarray, np.ndarray]],
-                design: np.ndarray, n_components: int, method: Method, out: _Outputs,
-                root_w: np.ndarray | None = None) -> None:
-    """Fit each group of rows on the wavelengths of its mask (rows scaled by √w if given)."""
+                design: np.ndarray, n_components: int, method: Method, out: _Outputs) -> None:
+    """Fit each group of rows on the wavelengths of its mask."""
     n_terms = design.shape[1]
     for mask, rows in groups:
         if not mask.all():
@@ -393,17 +394,12 @@ def _fit_groups(flat: np.ndarray, groups: list[tuple[np.ndarray, np.ndarray]],
         if not _full_rank(sub):
             out.status[rows] |= DEPENDENT
             continue
-        values = flat[np.ix_(rows, np.flatnonzero(mask))]
-        if root_w is not None:
-            scale = root_w[rows[0], mask]
-            sub = sub * scale[:, None]
-            values = values * scale
-        out.coef[rows] = _fit(sub, values, n_components, method)
+        out.coef[rows] = _fit(sub, flat[np.ix_(rows, np.flatnonzero(mask))], n_components,
+                              method)
         residual = flat[rows] - out.coef[rows] @ design.T
         put(out.summary, rows, summarise(flat[rows], residual))
-        rss = out.summary.sum_squares[rows] if root_w is None else \
-            np.sum((values - out.coef[rows] @ sub.T) ** 2, axis=1)
-        out.set_errors(rows, n_used - n_terms, _inverse_diag(sub), rss)
+        out.set_errors(rows, n_used - n_terms, _inverse_diag(sub),
+                       out.summary.sum_squares[rows])
 
 
 def _fit(design: np.ndarray, values: np.ndarray, n_components: int, method: Method) -> np.ndarray:
@@ -413,3 +409,48 @@ def _fit(design: np.ndarray, values: np.ndarray, n_components: int, method: Meth
         sol = np.linalg.pinv(design / norms) @ values.T
         return (sol / norms[:, None]).T
     return nnls_batch(design, values, n_components).x
+
+
+# --- weighted fits: one design per spectrum (rows scaled by √w), all spectra at once ----------
+
+def _fit_weighted(values: np.ndarray, w: np.ndarray, design: np.ndarray, n_components: int,
+                  method: Method, out: _Outputs) -> None:
+    """Fit each spectrum with its rows scaled by √w, block by block, all spectra at once.
+
+    ``values`` (n, m) holds NaN where a reading is absent (missing, or weight 0 or not
+    finite). Each spectrum's design is √wᵢ·D with the absent rows zero
+    (:func:`mixsolve.solve.per_spectrum.fit_each`); s² = Σ wᵢrᵢ²/(n − p).
+    """
+    m, p = design.shape
+    present = ~np.isnan(values)
+    n_present = present.sum(axis=1)
+    out.status[n_present < m] |= MISSING
+    too_few = n_present < p
+    out.status[too_few] |= TOO_FEW
+    step = block_spectra(m, p)
+    for lo in range(0, values.shape[0], step):
+        rows = np.arange(lo, min(lo + step, values.shape[0]))
+        rows = rows[~too_few[rows]]
+        if rows.size:
+            _fit_weighted_rows(values, w, present, rows, design, n_components, method, out)
+
+
+def _fit_weighted_rows(values: np.ndarray, w: np.ndarray, present: np.ndarray,
+                       rows: np.ndarray, design: np.ndarray, n_components: int,
+                       method: Method, out: _Outputs) -> None:
+    """:func:`_fit_weighted` for the listed rows (each with at least p readings)."""
+    root_w = np.sqrt(np.where(present[rows], w[rows], 0.0))
+    columns = root_w[:, None, :] * design.T  # (n, p, m): fit_each reads it by columns
+    fit = fit_each(columns.transpose(0, 2, 1), np.nan_to_num(values[rows]) * root_w,
+                   n_components, method)
+    out.status[rows[~fit.full_rank]] |= DEPENDENT
+    ok = fit.full_rank
+    rows = rows[ok]
+    out.coef[rows] = fit.coef[ok]
+    put(out.summary, rows, summarise(values[rows], values[rows] - fit.coef[ok] @ design.T))
+    dof = present[rows].sum(axis=1) - design.shape[1]
+    out.dof[rows] = dof
+    out.status[rows[dof == 0]] |= NO_DOF
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s2 = np.where(dof > 0, fit.rss[ok] / dof, np.nan)
+    out.std_error[rows] = np.sqrt(s2[:, None] * fit.inverse_diag[ok])
