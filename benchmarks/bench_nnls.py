@@ -5,19 +5,26 @@ of the components absent in each spectrum, noise 0.003 AU), N = 10⁴, 10⁵, 10
 Timed, each the best of ``--repeat`` runs in this one process (batched and unconstrained
 interleaved, so that a change in the machine's load affects both):
 
-- ``batched``: :func:`mixsolve.solve.nnls.nnls_batch` on all N spectra at once;
+- ``numpy``: :func:`mixsolve.solve.nnls.nnls_batch` on all N spectra at once, numpy
+  engine (the projection is one BLAS product, which uses every core);
+- ``compiled``: the same with ``engine="compiled"`` (numba; projection and solve per
+  spectrum in compiled code, the spectra shared by one thread per core), when numba is
+  installed;
 - ``unconstrained``: the least-squares floor, one GEMM ``pinv(K) @ Aᵀ`` (the fastest
   unconstrained batch solve found here; ``numpy.linalg.lstsq(K, Aᵀ)`` is also printed);
 - ``scipy loop``: ``scipy.optimize.nnls`` spectrum by spectrum, timed on the first
   ``--scipy-sample`` spectra and extrapolated linearly to N (stated in the output).
 
-Prints the BLAS threadpoolctl reports, the load average, the times and the ratios.
+Each timing starts after a pause of ``BLAS_IDLE_S`` (OpenBLAS's threads spin for a while
+after a product and would compete with the compiled engine's threads). Prints the BLAS
+threadpoolctl reports, the load average, the times and the ratios.
 Run: ``python benchmarks/bench_nnls.py [--sizes 10000,100000,1000000]``. Never a test.
 """
 
 from __future__ import annotations
 
 import argparse
+import importlib.util
 import os
 import time
 
@@ -25,10 +32,15 @@ import numpy as np
 from scipy.optimize import nnls
 from threadpoolctl import threadpool_info
 
+from mixsolve.solve.cls import default_threads
 from mixsolve.solve.nnls import nnls_batch
 
 WAVELENGTHS_NM = np.linspace(400.0, 700.0, 300)
 CENTRES_NM = (440.0, 500.0, 560.0, 620.0, 670.0)
+#: Pause (s) before each timing: OpenBLAS's worker threads keep spinning for a while after
+#: a product (its thread timeout), which would take the cores from the compiled engine's
+#: threads right after the unconstrained product is timed.
+BLAS_IDLE_S = 0.3
 
 
 def design() -> np.ndarray:
@@ -77,14 +89,24 @@ def main() -> None:
     print(f"OPENBLAS_CORETYPE={os.environ.get('OPENBLAS_CORETYPE', '(unset)')} "
           f"OPENBLAS_L2_SIZE={os.environ.get('OPENBLAS_L2_SIZE', '(unset)')}")
     print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
-    print(f"{'N':>9} {'batched s':>10} {'unconstr s':>10} {'lstsq s':>9} {'scipy s':>9} "
-          f"{'scipy/batched':>14} {'batched/unconstr':>17} {'us/spectrum':>12}")
+    threads = default_threads()
+    engines = ["numpy"] + (["compiled"] if importlib.util.find_spec("numba") else [])
+    for engine in engines[1:]:  # compile (or load) it before timing
+        nnls_batch(k, spectra(3000, k), k.shape[1], engine=engine, threads=threads)
+    print(f"engines: {', '.join(engines)}; compiled with {threads} threads")
+    print(f"{'N':>9} {'engine':>9} {'batched s':>10} {'unconstr s':>10} {'lstsq s':>9} "
+          f"{'scipy s':>9} {'scipy/batched':>14} {'batched/unconstr':>17} {'us/spectrum':>12}")
     for n in (int(s) for s in args.sizes.split(",")):
         a = spectra(n, k)
         repeat = args.repeat if n <= 100000 else max(2, args.repeat // 2)
-        t_batch = t_unc = np.inf
-        for _ in range(repeat):  # interleaved, so that a change of machine load hits both
-            t_batch = min(t_batch, best_of(1, nnls_batch, k, a, k.shape[1]))
+        t_batch = dict.fromkeys(engines, np.inf)
+        t_unc = np.inf
+        for _ in range(repeat):  # interleaved, so that a change of machine load hits all
+            for engine in engines:
+                time.sleep(BLAS_IDLE_S)
+                t_batch[engine] = min(t_batch[engine], best_of(
+                    1, lambda a=a, e=engine: nnls_batch(k, a, k.shape[1], engine=e,
+                                                        threads=threads)))
             t_unc = min(t_unc, best_of(1, lambda a=a: pinv @ a.T))
         t_lstsq = best_of(1, lambda a=a: np.linalg.lstsq(k, a.T, rcond=None)) \
             if n <= 100000 else float("nan")
@@ -94,9 +116,11 @@ def main() -> None:
             nnls(k, row)
         t_scipy = (time.perf_counter() - start) * n / sample
         note = "" if sample == n else f"  (scipy timed on {sample}, x{n / sample:g})"
-        print(f"{n:>9} {t_batch:>10.4f} {t_unc:>10.4f} {t_lstsq:>9.4f} {t_scipy:>9.3f} "
-              f"{t_scipy / t_batch:>14.1f} {t_batch / t_unc:>17.2f} "
-              f"{1e6 * t_batch / n:>12.3f}{note}")
+        for engine in engines:
+            t = t_batch[engine]
+            print(f"{n:>9} {engine:>9} {t:>10.4f} {t_unc:>10.4f} {t_lstsq:>9.4f} "
+                  f"{t_scipy:>9.3f} {t_scipy / t:>14.1f} {t / t_unc:>17.2f} "
+                  f"{1e6 * t / n:>12.3f}{note}")
         del a
     print(f"load average after: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
 

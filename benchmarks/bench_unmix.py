@@ -4,13 +4,17 @@ Same invented problem as ``bench_nnls.py`` (300 wavelengths, 5 components, ~30 %
 as a labelled spectra array and a mixsolve library. Timed in this one process:
 
 1. ``unmix`` eager (numpy-backed), everything included: validation, design, the NNLS fit,
-   standard uncertainties, fitted and residual spectra, trust checks, flags — against
+   standard uncertainties, trust checks, shift bias, flags, and the fitted and residual
+   spectra (which an eager result computes when they are first read) — against
    ``scipy.optimize.nnls`` alone in a loop over the same spectra (timed on the first
-   ``--scipy-sample`` spectra, extrapolated linearly; stated in the output).
+   ``--scipy-sample`` spectra, extrapolated linearly; stated in the output). Printed for
+   the engine ``auto`` picks (compiled when numba is installed), for the same call followed
+   by ``result.load()`` (every spectra-sized output held in memory), and for the numpy
+   engine (``MIXSOLVE_ENGINE=numpy``).
 2. Time against N: ``unmix`` on dask-backed spectra in chunks of ``--chunk`` spectra,
-   computing every per-spectrum result (the fitted and residual spectra are computed in
-   each chunk, then dropped instead of being held: 10⁶ of them would need 4.8 GB), for
-   N = 10⁴, 10⁵, 10⁶; printed as µs per spectrum, which is constant when time is linear.
+   computing every per-spectrum result (the fitted and residual spectra are left out, as
+   10⁶ of them would need 4.8 GB), for N = 10⁴, 10⁵, 10⁶; printed as µs per spectrum,
+   which is constant when time is linear.
 
 Run: ``python benchmarks/bench_unmix.py [--sizes 10000,100000,1000000]``. Never a test.
 """
@@ -24,10 +28,11 @@ import warnings
 
 import numpy as np
 import xarray as xr
-from bench_nnls import WAVELENGTHS_NM, blas_report, design, spectra
+from bench_nnls import WAVELENGTHS_NM, best_of, blas_report, design, spectra
 from scipy.optimize import nnls
 
 import mixsolve as ms
+from mixsolve.solve.cls import ENGINE_VARIABLE, choose_engine
 
 
 def library(k: np.ndarray) -> xr.Dataset:
@@ -55,24 +60,30 @@ def main() -> None:
     lib = library(k)
     ms.unmix(labelled(spectra(500, k)), lib)  # warm up
     print(f"BLAS: {blas_report()}")
+    print(f"engine for 1e5 spectra: {choose_engine('auto', 100_000)}")
     print(f"load average before: {' '.join(f'{v:.2f}' for v in os.getloadavg())}")
-    print("1. whole unmix (eager) vs the scipy.optimize.nnls loop")
-    print(f"{'N':>9} {'unmix s':>9} {'scipy loop s':>13} {'scipy/unmix':>12}")
+    print("1. whole unmix (eager) vs the scipy.optimize.nnls loop (ratios: scipy loop / unmix)")
+    print(f"{'N':>9} {'unmix s':>9} {'+load s':>9} {'numpy s':>9} {'scipy loop s':>13} "
+          f"{'unmix':>7} {'+load':>7} {'numpy':>7}")
     for n in (int(s) for s in args.eager_sizes.split(",")):
         a = spectra(n, k)
         sp = labelled(a)
-        times = []
-        for _ in range(args.repeat):
-            start = time.perf_counter()
-            ms.unmix(sp, lib)
-            times.append(time.perf_counter() - start)
+        t_auto = best_of(args.repeat, lambda sp=sp: ms.unmix(sp, lib))
+        t_load = best_of(args.repeat, lambda sp=sp: ms.unmix(sp, lib).load())
+        os.environ[ENGINE_VARIABLE] = "numpy"
+        try:
+            t_numpy = best_of(args.repeat, lambda sp=sp: ms.unmix(sp, lib))
+        finally:
+            os.environ.pop(ENGINE_VARIABLE)
         sample = min(n, args.scipy_sample)
         start = time.perf_counter()
         for row in a[:sample]:
             nnls(k, row)
         t_scipy = (time.perf_counter() - start) * n / sample
         note = "" if sample == n else f"  (scipy timed on {sample}, x{n / sample:g})"
-        print(f"{n:>9} {min(times):>9.3f} {t_scipy:>13.3f} {t_scipy / min(times):>12.1f}{note}")
+        print(f"{n:>9} {t_auto:>9.3f} {t_load:>9.3f} {t_numpy:>9.3f} {t_scipy:>13.3f} "
+              f"{t_scipy / t_auto:>7.1f} {t_scipy / t_load:>7.1f} {t_scipy / t_numpy:>7.1f}"
+              f"{note}")
         del a, sp
     print(f"2. time against N: dask-backed unmix, chunks of {args.chunk} spectra, "
           "default threaded scheduler")

@@ -103,14 +103,19 @@ def _project(row: np.ndarray, qt: np.ndarray, y: np.ndarray, scratch: np.ndarray
 
     A NaN or infinite reading makes y non-finite (``REORDER`` keeps NaN and infinity).
     """
+    _dots(row, qt, y)
+    return _extent(row.view(np.int64), scratch)
+
+
+@numba.njit(nogil=True, cache=True, fastmath=REORDER)
+def _dots(row: np.ndarray, qt: np.ndarray, y: np.ndarray) -> None:
+    """y = Qᵀ row (NaN and infinity propagate)."""
     m = row.shape[0]
-    p = qt.shape[0]
-    for k in range(p):
+    for k in range(qt.shape[0]):
         acc = 0.0
         for j in range(m):
             acc += qt[k, j] * row[j]
         y[k] = acc
-    return _extent(row.view(np.int64), scratch)
 
 
 #: Sign mask of a float64 as int64: k ↦ k ^ ((k >> 63) & SIGNLESS) orders float64 bit
@@ -289,7 +294,7 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
              coef: np.ndarray, sum_squares: np.ndarray, lag_sum: np.ndarray,
              n_positive: np.ndarray, n_nonzero: np.ndarray, sign_changes: np.ndarray,
              absorbance_max: np.ndarray, absorbance_min: np.ndarray,
-             state: np.ndarray) -> None:
+             state: np.ndarray, summarise: bool = True) -> None:
     """Fit every row of ``a`` and summarise its residual (module docstring).
 
     Parameters
@@ -322,6 +327,8 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
         The residual summary (``SUMMARY_FIELDS``); left as they were where not fitted.
     state : array of int64, shape (n,), output
         ``ROW_DONE``, ``ROW_NOT_FINITE`` or ``ROW_ITERATION_LIMIT``.
+    summarise : bool
+        False: the coefficients only (steps 1-2; the summary arrays are not written).
     """
     n, m = a.shape
     p = r.shape[0]
@@ -337,7 +344,10 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
     full = (1 << p) - 1
     for i in range(n):
         row = a[i]
-        a_max, a_min = _project(row, qt_design, y, scratch)
+        if summarise:
+            a_max, a_min = _project(row, qt_design, y, scratch)
+        else:
+            _dots(row, qt_design, y)
         finite = True
         for k in range(p):
             if not np.isfinite(y[k]):
@@ -355,6 +365,8 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
         for k in range(p):
             x[k] = xs[k] / norms[k]
             coef[i, k] = x[k]
+        if not summarise:
+            continue
         _residual_summary(row, x, design_t, resid, out)
         sum_squares[i] = out[0]
         lag_sum[i] = out[1]

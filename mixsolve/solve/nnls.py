@@ -38,6 +38,7 @@ nearly collinear problems). A spectrum not done after ``max_iter`` outer steps
 from __future__ import annotations
 
 import itertools
+from concurrent.futures import ThreadPoolExecutor
 from typing import NamedTuple
 
 import numpy as np
@@ -53,7 +54,9 @@ class NNLSSolution(NamedTuple):
     """Coefficients of :func:`nnls_batch` and how they were reached."""
 
     x: np.ndarray  #: (n_spectra, p) coefficients in the units of ``design``'s columns
-    n_iter: int  #: outer Lawson–Hanson iterations used (0: the start was optimal)
+    #: outer Lawson–Hanson iterations of the numpy steps (0: the start was optimal; the
+    #: compiled engine does not count its own, only those of rows it hands on)
+    n_iter: int
     n_fallback: int  #: spectra handed to scipy.optimize.nnls after ``max_iter``
 
 
@@ -141,7 +144,8 @@ class _Subspace:
 
 
 def nnls_batch(design: np.ndarray, spectra: np.ndarray, n_constrained: int, *,
-               max_iter: int | None = None) -> NNLSSolution:
+               max_iter: int | None = None, engine: str = "auto", threads: int = 1
+               ) -> NNLSSolution:
     """Solve NNLS for many spectra against one design, the trailing columns left free.
 
     Parameters
@@ -154,6 +158,13 @@ def nnls_batch(design: np.ndarray, spectra: np.ndarray, n_constrained: int, *,
         Number of leading columns whose coefficients must be ≥ 0.
     max_iter : int, optional
         Outer iterations before the scipy fallback; default 10·p + 10.
+    engine : {"auto", "numpy", "compiled"}
+        Who solves the reduced problems (:func:`mixsolve.solve.cls.choose_engine`): the
+        numpy steps below, or their compiled twin (:func:`mixsolve.solve.fused.solve_rows`,
+        the same steps spectrum by spectrum, when numba is installed).
+    threads : int
+        Threads sharing the compiled solves (the projection is one BLAS product, which
+        threads itself).
 
     Returns
     -------
@@ -174,11 +185,60 @@ def nnls_batch(design: np.ndarray, spectra: np.ndarray, n_constrained: int, *,
     norms = np.linalg.norm(design, axis=0)
     norms[norms == 0] = 1.0
     q, r = np.linalg.qr(design / norms)
-    y = q.T @ spectra.T
     if max_iter is None:
         max_iter = 10 * p + 10
-    x, n_iter, fallback = solve_reduced(r, y, constrained, kkt_rtol(m, p), max_iter)
+    solved = _compiled_solve(design / norms, r, q, spectra, constrained, kkt_rtol(m, p),
+                             max_iter, engine, threads)
+    if solved is None:
+        solved = solve_reduced(r, q.T @ spectra.T, constrained, kkt_rtol(m, p), max_iter)
+    x, n_iter, fallback = solved
     return NNLSSolution((x / norms[:, None]).T, n_iter, fallback)
+
+
+def _compiled_solve(scaled: np.ndarray, r: np.ndarray, q: np.ndarray, spectra: np.ndarray,
+                    constrained: np.ndarray, rtol: float, max_iter: int, engine: str,
+                    threads: int) -> tuple[np.ndarray, int, int] | None:
+    """The compiled projection and solve (no residual summary) of every spectrum, split
+    among threads: x (p, n), the outer iterations of the numpy steps that finished the rows
+    it handed on (it does not count its own), and the scipy fallbacks. None where that
+    engine does not apply (then numpy solves everything)."""
+    from mixsolve.solve.cls import ROW_DONE, choose_engine  # cls builds on this module
+
+    if choose_engine(engine, spectra.shape[0]) != "compiled":  # type: ignore[arg-type]
+        return None
+    from mixsolve.solve import fused
+
+    try:
+        factors = fused.subset_factors(r, constrained)
+    except ValueError:  # too many constrained columns, or a degenerate passive set
+        return None
+    n, p = spectra.shape[0], r.shape[0]
+    values = np.ascontiguousarray(spectra)
+    x = np.empty((n, p))
+    state = np.empty(n, dtype=np.int64)
+    unused = np.empty(n)  # the residual summary is not asked for
+    qt, scaled_t = np.ascontiguousarray(q.T), np.ascontiguousarray(scaled.T)
+    con_mask = int(sum(1 << int(j) for j in np.flatnonzero(constrained)))
+
+    def run(part: slice) -> None:
+        fused.fit_rows(values[part], qt, r, np.ones(p), scaled_t, con_mask, *factors, rtol,
+                       max_iter, False, x[part],
+                       *[unused[part]] * len(fused.SUMMARY_FIELDS), state[part], False)
+
+    bounds = np.linspace(0, n, max(1, threads) + 1).astype(int)
+    parts = [slice(int(a), int(b)) for a, b in itertools.pairwise(bounds)]
+    if len(parts) > 1:
+        with ThreadPoolExecutor(len(parts)) as pool:
+            list(pool.map(run, parts))
+    else:
+        run(parts[0])
+    x = x.T.copy()
+    again = np.flatnonzero(state != ROW_DONE)  # the numpy steps (and scipy) finish these
+    if not again.size:
+        return x, 0, 0
+    x[:, again], n_iter, fallback = solve_reduced(r, q.T @ values[again].T, constrained,
+                                                  rtol, max_iter)
+    return x, n_iter, fallback
 
 
 def _mm(a: np.ndarray, b: np.ndarray) -> np.ndarray:
