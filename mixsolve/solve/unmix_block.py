@@ -11,7 +11,6 @@ function keeps the data to one pass and the result to one set of labelled variab
 
 from __future__ import annotations
 
-import contextlib
 import functools
 import itertools
 from concurrent.futures import ThreadPoolExecutor
@@ -121,10 +120,11 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
 
     tasks = _tasks(n_spec, settings.threads)
     if settings.threads > 1 and len(tasks) > 1:
-        # numpy's fit calls BLAS in every task: one BLAS thread each, not one pool per task
-        single = _blas_controller().limit(limits=1, user_api="blas") \
-            if engine == "numpy" else contextlib.nullcontext()
-        with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, single:
+        # every task calls BLAS (numpy's fit; small products in either engine): one BLAS
+        # thread each, or OpenBLAS's threads (which spin after each product) would take
+        # the cores from the tasks' own threads
+        with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, \
+                _blas_controller().limit(limits=1, user_api="blas"):
             list(pool.map(run, tasks))
     else:
         for rows in tasks:
