@@ -86,3 +86,24 @@ def test_infinity_is_refused(spectra, molar_library) -> None:
     lazy = ms.unmix(bad.chunk({"sample": 100}), molar_library)
     with pytest.raises(InputError, match=message):
         lazy.compute()
+
+
+def test_one_engine_for_the_whole_job(spectra, molar_library, monkeypatch) -> None:
+    """The engine is chosen from the job's size, not from each chunk's: 300 spectra in
+    chunks of 100, above a lowered threshold of 200, are all fitted by compiled code."""
+    pytest.importorskip("dask")
+    pytest.importorskip("numba")
+    from mixsolve.solve import cls
+
+    monkeypatch.delenv(cls.ENGINE_VARIABLE, raising=False)
+    monkeypatch.setattr(cls, "COMPILED_MIN_SPECTRA", 200)
+    seen = []
+    original = block_module.fit_spectra
+
+    def spy(*args: object, **kwargs: object) -> object:
+        seen.append(kwargs.get("engine"))
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr(block_module, "fit_spectra", spy)
+    ms.unmix(spectra.chunk({"sample": 100}), molar_library).compute()
+    assert seen == ["compiled"] * 3

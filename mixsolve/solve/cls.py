@@ -46,9 +46,10 @@ METHODS: tuple[str, ...] = ("nnls", "ols")
 ENGINES: tuple[str, ...] = ("auto", "numpy", "compiled")
 #: Environment variable that forces an engine (``numpy`` or ``compiled``).
 ENGINE_VARIABLE = "MIXSOLVE_ENGINE"
-#: Smallest batch for which ``auto`` uses compiled code (below, numpy is as quick and
-#: a small job does not load the compiled functions).
-COMPILED_MIN_SPECTRA = 2048
+#: Smallest job for which ``auto`` uses compiled code. Loading the compiled functions
+#: costs a process about 0.5 s (the first time ever, compiling them about 3 s); numpy
+#: fits ~10⁴ spectra in a few tens of ms, so small jobs (plates, tables) stay with numpy.
+COMPILED_MIN_SPECTRA = 10_000
 #: States of a row after the pass over complete spectra (also used by the compiled pass).
 ROW_DONE = 0
 ROW_NOT_FINITE = 1  #: a reading is missing or infinite: fitted, or refused, afterwards

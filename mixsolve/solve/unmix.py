@@ -17,7 +17,7 @@ from mixsolve.errors import ExtrapolationWarning, IllConditionedWarning, InputEr
 from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
-from mixsolve.solve.cls import METHODS, Method, default_threads
+from mixsolve.solve.cls import METHODS, Method, choose_engine, default_threads
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
@@ -234,6 +234,8 @@ def unmix(
         design_status=ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE else 0,
         unit_factor=factor, shift_matrix=shift_bias_matrix(library, design, used_wl),
         tolerance_nm=tolerance,
+        engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
+                                                   if d != WAVELENGTH]))),
         shift_options=_shift_options(library, used_wl, baseline, method, max_shift_nm)
         if fit_shift else None)
     names = {**OUTPUTS, **(SHIFT_OUTPUTS if fit_shift else {})}

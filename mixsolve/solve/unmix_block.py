@@ -29,7 +29,7 @@ from mixsolve.diagnostics.trust import (
 )
 from mixsolve.flags import VLEN_STR, flag_texts
 from mixsolve.noise import NoiseModel
-from mixsolve.solve.cls import Engine, Method, choose_engine, fit_spectra
+from mixsolve.solve.cls import Engine, Method, fit_spectra
 from mixsolve.solve.residuals import summarise
 from mixsolve.solve.shift_fit import fit_with_shift
 
@@ -71,6 +71,9 @@ class BlockSettings:
     unit_factor: np.ndarray  #: (n,) result unit per library concentration unit
     shift_matrix: np.ndarray  #: (n, n) library-unit bias per nm per unit of each component
     tolerance_nm: float  #: wavelength accuracy for the shift_sensitive flag
+    #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.cls.choose_engine`), chosen for the
+    #: whole job so that every block and dask chunk uses the same
+    engine: Engine = "numpy"
     shift_options: dict[str, Any] | None = None  #: :func:`fit_with_shift` options, or None
 
 
@@ -97,15 +100,15 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     -----
     A block of more than ``TASK_SPECTRA`` spectra is cut into equal tasks of at most that
     many, which ``settings.threads`` threads share (the compiled and numpy passes release the GIL);
-    every task uses the engine chosen for the whole block, so results do not depend on
-    how the block is cut.
+    every task uses the engine chosen for the whole job (``settings.engine``), so results
+    do not depend on how the block is cut or the spectra chunked.
     """
     lead = spectra.shape[:-1]
     m = spectra.shape[-1]
     flat = spectra.reshape(-1, m)
     b = np.broadcast_to(np.asarray(pathlength_cm, dtype=float), lead).reshape(-1)
     n_spec = flat.shape[0]
-    engine = choose_engine("auto", n_spec)
+    engine = settings.engine
     names = {**OUTPUTS, **(SHIFT_OUTPUTS if settings.shift_options is not None else {})}
     sizes = {TERM: settings.design.shape[1], COMPONENT: len(settings.components),
              WAVELENGTH: m}
