@@ -15,7 +15,7 @@ import functools
 import itertools
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 from threadpoolctl import ThreadpoolController
@@ -30,7 +30,7 @@ from mixsolve.diagnostics.trust import (
 from mixsolve.flags import VLEN_STR, flag_texts
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.cls import Engine, Method, fit_spectra
-from mixsolve.solve.residuals import summarise
+from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.shift_fit import fit_with_shift
 
 TERM = "term"
@@ -108,7 +108,6 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     flat = spectra.reshape(-1, m)
     b = np.broadcast_to(np.asarray(pathlength_cm, dtype=float), lead).reshape(-1)
     n_spec = flat.shape[0]
-    engine = settings.engine
     names = {**OUTPUTS, **(SHIFT_OUTPUTS if settings.shift_options is not None else {})}
     sizes = {TERM: settings.design.shape[1], COMPONENT: len(settings.components),
              WAVELENGTH: m}
@@ -116,22 +115,22 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
                for name, dims in names.items()]
     texts: dict[int, str] = {}
 
-    def run(rows: slice) -> None:
-        for store, value in zip(outputs, _task(flat[rows], b[rows], settings, engine, texts),
-                                strict=True):
-            store[rows] = value
+    def store(rows: slice, fitted: _Fitted) -> None:
+        for out, value in zip(outputs, _outputs_of(fitted, b[rows], settings, texts),
+                              strict=True):
+            out[rows] = value
 
     tasks = _tasks(n_spec, settings.threads)
     if settings.threads > 1 and len(tasks) > 1:
-        # every task calls BLAS (numpy's fit; small products in either engine): one BLAS
-        # thread each, or OpenBLAS's threads (which spin after each product) would take
-        # the cores from the tasks' own threads
+        # compiled code and numpy release the GIL while they work. Every task calls BLAS:
+        # one BLAS thread each, or OpenBLAS's threads (which spin after each product)
+        # would take the cores from the tasks' own threads.
         with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, \
                 _blas_controller().limit(limits=1, user_api="blas"):
-            list(pool.map(run, tasks))
+            list(pool.map(lambda rows: store(rows, _fit_task(flat[rows], settings)), tasks))
     else:
         for rows in tasks:
-            run(rows)
+            store(rows, _fit_task(flat[rows], settings))
     return tuple(out.reshape((*lead, *out.shape[1:])) for out in outputs)
 
 
@@ -151,43 +150,60 @@ def _tasks(n_spec: int, threads: int) -> list[slice]:
     return [slice(int(lo), int(hi)) for lo, hi in itertools.pairwise(bounds)]
 
 
-def _task(spectra: np.ndarray, b: np.ndarray, settings: BlockSettings, engine: Engine,
-          texts: dict[int, str]) -> tuple[np.ndarray, ...]:
-    """:func:`unmix_block` for spectra (n, m) and pathlengths (n,), in one thread."""
+class _Fitted(NamedTuple):
+    """The fit of one task, before units, checks and flags."""
+
+    coef: np.ndarray
+    std_error: np.ndarray
+    dof: np.ndarray
+    status: np.ndarray
+    summary: ResidualSummary
+    lack: tuple[np.ndarray, np.ndarray] | None  #: lack-of-fit ratio and p (noise model)
+    extra: tuple[np.ndarray, ...]  #: the shift fit's shift, u(shift), fitted, residual
+    n_wavelengths: int
+
+
+def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
+    """Fit spectra (n, m): the plain, weighted or shift fit, and the lack-of-fit figures."""
     n = len(settings.components)
     if settings.shift_options is not None:
         coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
             spectra, **settings.shift_options)
         residual = spectra - fitted
-        summary = summarise(spectra, residual)
         lack = None if settings.noise is None else lack_of_fit(
             residual, fitted, dof, settings.noise)
-        extra: tuple[np.ndarray, ...] = (shift, u_shift, fitted, residual)
-    else:
-        fit = fit_spectra(spectra, settings.design, n, settings.method, engine=engine)
-        if settings.weighted and settings.noise is not None:
-            first = fit.coef @ settings.design.T
-            at = np.where(np.isfinite(first), first, spectra)
-            weights = 1.0 / settings.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
-            fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights)
-        coef, se, dof, status, summary = fit.coef, fit.std_error, fit.dof, fit.status, \
-            fit.summary
-        lack = None if settings.noise is None else lack_of_fit_model(
-            spectra, coef, settings.design, dof, settings.noise)
-        extra = ()
+        return _Fitted(coef, se, dof, status, summarise(spectra, residual), lack,
+                       (shift, u_shift, fitted, residual), spectra.shape[-1])
+    fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine)
+    if settings.weighted and settings.noise is not None:
+        first = fit.coef @ settings.design.T
+        at = np.where(np.isfinite(first), first, spectra)
+        weights = 1.0 / settings.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
+        fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights)
+    lack = None if settings.noise is None else lack_of_fit_model(
+        spectra, fit.coef, settings.design, fit.dof, settings.noise)
+    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, (),
+                   spectra.shape[-1])
+
+
+def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
+                texts: dict[int, str]) -> tuple[np.ndarray, ...]:
+    """The outputs (``OUTPUTS`` order) of one task's fit; b (n,) pathlengths in cm."""
+    n = len(settings.components)
+    summary = fit.summary
     with np.errstate(invalid="ignore", divide="ignore"):
         rms = np.sqrt(summary.sum_squares / summary.n_points)
-    checks = summary_checks(summary, lack)
-    status = status | settings.design_status | trust_status(
-        checks, rms, spectra.shape[-1], settings.absorbance_range, settings.noise is not None)
-    canonical = coef[:, :n] / b[:, None]
+    checks = summary_checks(summary, fit.lack)
+    status = fit.status | settings.design_status | trust_status(
+        checks, rms, fit.n_wavelengths, settings.absorbance_range, settings.noise is not None)
+    canonical = fit.coef[:, :n] / b[:, None]
     conc = canonical * settings.unit_factor
-    u_conc = se[:, :n] / b[:, None] * settings.unit_factor
+    u_conc = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
     at_zero = (conc == 0) & (settings.method == "nnls")
     bias = (canonical @ settings.shift_matrix.T) * settings.unit_factor
     dilution = checks[0] / target_absorbance(*settings.absorbance_range)
     flags = flag_texts(status, at_zero, conc, u_conc, bias, settings.components,
                        ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
                        known=texts)
-    return (coef, conc, u_conc, at_zero, bias, rms, dof, status, *checks, dilution, flags,
-            *extra)
+    return (fit.coef, conc, u_conc, at_zero, bias, rms, fit.dof, status, *checks, dilution,
+            flags, *fit.extra)
