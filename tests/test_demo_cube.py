@@ -70,4 +70,8 @@ def test_cube_demo_refusals(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> 
     with pytest.raises(InputError, match=r"the cube demo needs zarr, which is not installed; "
                                          r"install the scale extra"):
         run_cube_demo(tmp_path, 4)
+    monkeypatch.setattr(importlib.util, "find_spec",
+                        lambda name, *a: None if name in ("dask", "zarr") else real(name, *a))
+    with pytest.raises(InputError, match=r"needs dask and zarr, which are not installed"):
+        run_cube_demo(tmp_path, 4)
     assert not (tmp_path / "cube").exists()

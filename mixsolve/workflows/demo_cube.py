@@ -80,8 +80,9 @@ def run_cube_demo(out_dir: str | os.PathLike[str], pixels: int = 1000,
         raise InputError(f"--cube-wavelengths: {n_wavelengths}; give at least 10, e.g. 191")
     missing = [m for m in ("dask", "zarr") if importlib.util.find_spec(m) is None]
     if missing:
-        raise InputError(f"the cube demo needs {' and '.join(missing)}, which is not "
-                         "installed; install the scale extra: pip install 'mixsolve[scale]'")
+        raise InputError(f"the cube demo needs {' and '.join(missing)}, which "
+                         f"{'are' if len(missing) > 1 else 'is'} not installed; install the "
+                         "scale extra: pip install 'mixsolve[scale]'")
     from mixsolve.reference_spectra_demo.make_demo_cube import concentrations, write_demo_cube
 
     folder = ensure_folder(Path(out_dir) / "cube")

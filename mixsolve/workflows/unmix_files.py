@@ -288,5 +288,6 @@ def _require_scale(spectra: PathLike, out: PathLike | None) -> None:
     missing = [name for name in needed if importlib.util.find_spec(name) is None]
     if missing:
         raise InputError(
-            f"cube files and dask runs need {' and '.join(missing)}, which is not installed; "
+            f"cube files and dask runs need {' and '.join(missing)}, which "
+            f"{'are' if len(missing) > 1 else 'is'} not installed; "
             "install the scale extra: pip install 'mixsolve[scale]'")
