@@ -32,6 +32,20 @@ class SolveError(InputError):
     """The system of equations cannot be solved as posed (underdetermined, rank deficient)."""
 
 
+class InfiniteReadingError(InputError):
+    """An absorbance value is infinite (a missing reading is NaN).
+
+    ``spectrum`` (position among the flattened spectra of the batch) and ``reading``
+    (position among its wavelengths) say where, when known.
+    """
+
+    def __init__(self, message: str, spectrum: int | None = None,
+                 reading: int | None = None) -> None:
+        super().__init__(message)
+        self.spectrum = spectrum
+        self.reading = reading
+
+
 class OutputError(MixsolveError, OSError):
     """An output file could not be written."""
 

@@ -11,6 +11,7 @@ progress bar.
 from __future__ import annotations
 
 import contextlib
+import logging
 from collections.abc import Iterator
 from typing import Any, TextIO
 
@@ -61,9 +62,13 @@ def dask_client(scheduler: str | None = None, workers: int | None = None) -> Ite
     if workers is not None:
         if int(workers) < 1:
             raise InputError(f"workers: {workers} must be at least 1")
+        # silence_logs: a failing task (e.g. an infinite reading) is raised here, where
+        # the command line turns it into one line; the workers would also log it, with
+        # a traceback, on the same terminal
         with distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1,
                                       processes=True, host="127.0.0.1",
-                                      dashboard_address=None) as cluster, \
+                                      dashboard_address=None,
+                                      silence_logs=logging.CRITICAL) as cluster, \
                 distributed.Client(cluster) as client:
             yield client
         return

@@ -79,8 +79,10 @@ def check_spectra(spectra: xr.DataArray, name: str = "spectra", *,
         How to refer to the array in error messages.
     scan_values : bool
         Look for infinite absorbances (numpy-backed arrays). ``unmix`` passes False: its
-        solver reads every value anyway and refuses an infinity with the same message
-        and its position, so the data are not read one more time.
+        solver reads every value anyway and refuses an infinity itself (naming the
+        spectrum and wavelength for numpy-backed spectra; for dask-backed ones, whose
+        values this check never scanned, with this message when the chunk is computed),
+        so the data are not read one more time.
 
     Raises
     ------

@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
-from helpers_nnls import kkt_ratio, problem, scipy_loop
+from helpers_nnls import bands, kkt_ratio, problem, scipy_loop
 from scipy.optimize import lsq_linear
 
 import mixsolve as ms
@@ -187,11 +187,20 @@ def test_subset_factors_limit() -> None:
 
 
 def test_many_components_fall_back_to_numpy(rng: np.random.Generator) -> None:
-    """A design beyond the compiled limit is still solved (by numpy): scipy's minimiser."""
+    """A design beyond the compiled limits is still solved (by numpy): scipy's minimiser
+    for NNLS, numpy.linalg.lstsq for OLS with many more terms (whose passive-set tables,
+    2^p entries, would not fit in memory)."""
     p = fused.MAX_CONSTRAINED + 2
     design, spectra = problem(rng, 80, p, 40)
     got = fit_spectra(spectra, design, p, "nnls", engine="compiled").coef
     np.testing.assert_allclose(got, scipy_loop(design, spectra), rtol=1e-8, atol=1e-10)
+    design = bands(200, list(np.linspace(0.05, 0.95, 30)), width=0.02)  # well separated
+    spectra = rng.normal(0.0, 1.0, (40, 30)) @ design.T + 0.01 * rng.standard_normal((40, 200))
+    got = fit_spectra(spectra, design, 30, "ols", engine="compiled").coef
+    want = np.linalg.lstsq(design, spectra.T, rcond=None)[0].T
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-9 * np.abs(want).max())
+    with pytest.raises(ValueError, match="constrained columns"):
+        fused.subset_factors(np.eye(fused.MAX_TERMS + 1), np.zeros(fused.MAX_TERMS + 1, bool))
 
 
 # --- engine choice -------------------------------------------------------------------------

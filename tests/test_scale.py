@@ -6,6 +6,8 @@ eager ones computed from the same numbers, so no reference value is involved.
 
 from __future__ import annotations
 
+import subprocess
+import sys
 import warnings
 from pathlib import Path
 
@@ -407,6 +409,26 @@ def test_cli_cube_to_csv_and_local_workers(cube_files: Path) -> None:
     assert run.exit_code == 0, run.output
     lines = out.read_text().splitlines()
     assert lines[0].endswith(",flags,y,x") and len(lines) == 1 + 6 * 8 * 3
+
+
+def test_cli_infinity_in_a_cube_on_local_workers(cube_files: Path) -> None:
+    """An infinite reading found while a local cluster computes: exit 2, one line on
+    stderr (the workers' own log of the failed task is silenced), no result store."""
+    pytest.importorskip("distributed")
+    cube = make_cube((4, 5))
+    cube.values[1, 2, 7] = np.inf
+    ms.write_cube(cube.chunk({"y": 2}), cube_files / "bad.zarr")
+    out = cube_files / "bad-result.zarr"
+    # a child process: the workers write to the terminal's stderr, which CliRunner does
+    # not capture
+    run = subprocess.run([sys.executable, "-c", "from mixsolve.cli import main; main()",
+                          "unmix", str(cube_files / "lib.nc"), str(cube_files / "bad.zarr"),
+                          "--out", str(out), "--workers", "1"],
+                         capture_output=True, text=True, check=False, timeout=300)
+    assert run.returncode == 2
+    assert run.stderr.strip() == ("error: spectra: absorbance values include infinity; use "
+                                  "NaN for a missing reading")
+    assert not out.exists()
 
 
 def test_cli_scale_errors_exit_2(cube_files: Path) -> None:

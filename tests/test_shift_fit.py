@@ -409,10 +409,11 @@ def test_shift_fit_with_missing_readings_uses_the_readings_present():
 
 def test_shift_fit_degenerate_spectra():
     """Zero spectra: empty outputs. Too few readings: NaN results and shift, status
-    too_few + missing + no_dof. Every component driven to zero (a negative spectrum,
-    nnls): coefficients 0, J = 0 so the joint covariance is singular: u(δ) and the
-    standard errors NaN. One component only: fitted as the others."""
-    from mixsolve.flags import MISSING, NO_DOF, TOO_FEW
+    too_few + missing (as a plain fit: no no_dof, since no fit was made). Every component
+    driven to zero (a negative spectrum, nnls): coefficients 0, J = 0 so the joint
+    covariance is singular: u(δ) and the standard errors NaN. One component only: fitted
+    as the others."""
+    from mixsolve.flags import MISSING, TOO_FEW
     from mixsolve.solve.shift_fit import fit_with_shift
 
     out = batched(np.zeros((0, FIT_WL.size)), "nnls", "none")
@@ -422,7 +423,7 @@ def test_shift_fit_degenerate_spectra():
     a[1] = -a[1]
     coef, se, _, dof, status, shift, u_shift = batched(a, "nnls", "none")
     assert np.isnan(coef[0]).all() and np.isnan(shift[0]) and np.isnan(u_shift[0])
-    assert status[0] == TOO_FEW | MISSING | NO_DOF and dof[0] == 0
+    assert status[0] == TOO_FEW | MISSING and dof[0] == 0
     np.testing.assert_array_equal(coef[1], 0.0)
     assert np.isnan(u_shift[1]) and np.isnan(se[1]).all() and abs(shift[1]) <= 3.0
     assert np.isfinite(u_shift[2])
@@ -483,3 +484,16 @@ def test_per_spectrum_interpolation_equals_numpy_interp(even):
         np.testing.assert_allclose(slopes[i], want, rtol=1e-12, atol=1e-9)
     np.testing.assert_allclose(lib.design(0.3), lib.designs(np.array([0.3]))[0], rtol=1e-12,
                                atol=1e-9)
+
+
+def test_unfittable_spectrum_gets_the_flags_of_a_plain_fit(library):
+    """A spectrum with no readings: the same flags with and without the shift fit (no
+    `no_dof`, which would say a fit was made), and NaN results."""
+    spectra = shifted_spectra(CONC, [0.0, 0.5], noise=0.001)
+    spectra.values[1] = np.nan
+    plain = ms.unmix(spectra, library, window=(420, 680))
+    shifted = ms.unmix(spectra, library, window=(420, 680), fit_shift=True)
+    assert shifted["flags"].values[1] == plain["flags"].values[1] == \
+        "missing_readings;too_few_readings"
+    assert np.isnan(shifted["concentration"].values[1]).all()
+    assert np.isnan(shifted["wavelength_shift_nm"].values[1])

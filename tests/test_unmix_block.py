@@ -75,17 +75,32 @@ def test_tasks_are_equal_and_a_multiple_of_the_threads() -> None:
     assert block_module._tasks(0, 2) == [slice(0, 0)]
 
 
-def test_infinity_is_refused(spectra, molar_library) -> None:
-    """An infinite reading: check_spectra's one-line message, eager and (on compute) lazy."""
+@pytest.mark.parametrize("options", [{}, {"weights": "noise", "noise": 0.004},
+                                     {"fit_shift": True, "window": (420, 680)}])
+def test_infinity_is_refused(spectra, molar_library, options) -> None:
+    """An infinite reading: one line naming the spectrum and wavelength (eager), or
+    check_spectra's message when a lazy result is computed."""
     bad = spectra.copy()
-    bad.values[5, 3] = np.inf
-    message = r"spectra: absorbance values include infinity; use NaN for a missing reading"
-    with pytest.raises(InputError, match=message):
-        ms.unmix(bad, molar_library)
+    bad.values[205, 5] = np.inf  # 425 nm: inside the shift fit's window too
+    with pytest.raises(InputError, match=r"spectra: absorbance is infinite at sample "
+                                         r"sample_206, 425 nm; use NaN for a missing "
+                                         r"reading"):
+        ms.unmix(bad, molar_library, **options)
     pytest.importorskip("dask")
-    lazy = ms.unmix(bad.chunk({"sample": 100}), molar_library)
-    with pytest.raises(InputError, match=message):
+    lazy = ms.unmix(bad.chunk({"sample": 100}), molar_library, **options)
+    with pytest.raises(InputError, match=r"spectra: absorbance values include infinity; "
+                                         r"use NaN for a missing reading"):
         lazy.compute()
+
+
+def test_infinity_in_an_image_cube_is_located(molar_library, rng) -> None:
+    """Over y and x the refusal names both positions (no coordinates: indices)."""
+    wl = molar_library["wavelength"].values
+    cube = xr.DataArray(rng.uniform(0, 1, (3, 4, wl.size)), dims=("y", "x", "wavelength"),
+                        coords={"wavelength": wl})
+    cube.values[2, 1, 0] = -np.inf
+    with pytest.raises(InputError, match=r"absorbance is infinite at y 2, x 1, 400 nm"):
+        ms.unmix(cube, molar_library)
 
 
 def test_one_engine_for_the_whole_job(spectra, molar_library, monkeypatch) -> None:
@@ -107,3 +122,27 @@ def test_one_engine_for_the_whole_job(spectra, molar_library, monkeypatch) -> No
     monkeypatch.setattr(block_module, "fit_spectra", spy)
     ms.unmix(spectra.chunk({"sample": 100}), molar_library).compute()
     assert seen == ["compiled"] * 3
+
+
+def test_concurrent_calls_restore_the_blas_threads(spectra, molar_library,
+                                                   monkeypatch) -> None:
+    """Blocks running in several threads at once limit BLAS to one thread while they run
+    and leave it as they found it (threadpoolctl's view), whatever order they end in."""
+    import threading
+
+    from threadpoolctl import threadpool_info
+
+    monkeypatch.setattr(block_module, "TASK_SPECTRA", 37)
+    monkeypatch.setattr("mixsolve.solve.unmix.default_threads", lambda: 2)
+
+    def blas_threads() -> list[int]:
+        return [i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"]
+
+    before = blas_threads()
+    runs = [threading.Thread(target=ms.unmix, args=(spectra, molar_library))
+            for _ in range(4)]
+    for run in runs:
+        run.start()
+    for run in runs:
+        run.join()
+    assert blas_threads() == before

@@ -28,7 +28,7 @@ from typing import Any, Literal, NamedTuple
 import numpy as np
 from scipy.linalg import solve_triangular
 
-from mixsolve.errors import InputError
+from mixsolve.errors import InfiniteReadingError, InputError
 from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, STATUS_CODES, TOO_FEW
 from mixsolve.solve.nnls import kkt_rtol, nnls_batch, solve_reduced
 from mixsolve.solve.per_spectrum import block_spectra, fit_each
@@ -154,7 +154,7 @@ def fit_spectra(
     out = _Outputs(n_spec, n_terms)
     if weights is not None:
         w = np.broadcast_to(np.asarray(weights, dtype=float), spectra.shape).reshape(flat.shape)
-        _refuse_infinity(flat, np.arange(n_spec))
+        refuse_infinity(flat, np.arange(n_spec))
         values = np.where(np.isfinite(w) & (w > 0), flat, np.nan)
         _fit_weighted(values, w, design, n_components, method, out)
     else:
@@ -165,7 +165,7 @@ def fit_spectra(
             if plan.full_rank:
                 rest = _fit_complete(flat, plan, out, engine)
         if rest.size:
-            _refuse_infinity(flat, rest)
+            refuse_infinity(flat, rest)
             _fit_groups(flat, _missing_groups(flat, rest), design, n_components, method, out)
     with np.errstate(invalid="ignore", divide="ignore"):
         rms = np.sqrt(out.summary.sum_squares / out.summary.n_points)
@@ -212,11 +212,18 @@ def _inverse_diag(design: np.ndarray) -> np.ndarray:
     return np.clip(np.diag(np.linalg.inv(scaled.T @ scaled)) / norms**2, 0, None)
 
 
-def _refuse_infinity(flat: np.ndarray, rows: np.ndarray) -> None:
-    """The message of :func:`mixsolve.spectra.check_spectra`, which ``unmix`` leaves to us."""
-    if np.isinf(flat[rows]).any():
-        raise InputError("spectra: absorbance values include infinity; use NaN for a missing "
-                         "reading")
+#: check_spectra's message, which unmix leaves to the solver (it reads every value anyway).
+INFINITY_MESSAGE = ("spectra: absorbance values include infinity; use NaN for a missing "
+                    "reading")
+
+
+def refuse_infinity(flat: np.ndarray, rows: np.ndarray) -> None:
+    """Raise InfiniteReadingError, with the first position, if a listed row of ``flat``
+    (n, m) holds ±inf."""
+    bad = np.isinf(flat[rows])
+    if bad.any():
+        i, j = np.argwhere(bad)[0]
+        raise InfiniteReadingError(INFINITY_MESSAGE, spectrum=int(rows[i]), reading=int(j))
 
 
 # --- complete spectra: one pass, numpy or compiled --------------------------------------------

@@ -36,6 +36,9 @@ from mixsolve.solve.cls import ROW_DONE, ROW_ITERATION_LIMIT, ROW_NOT_FINITE
 
 #: Largest number of constrained columns handled here (2^k passive sets are precomputed).
 MAX_CONSTRAINED = 10
+#: Largest number of columns in all: the passive-set tables are indexed by p-bit masks
+#: (2^p entries of p × p), so they stay within ~10 MB.
+MAX_TERMS = 12
 #: Floating-point liberties allowed in the sums: reassociation (so that they vectorise) and
 #: fused multiply-add, but not the assumption that no NaN or infinity occurs.
 REORDER = {"reassoc", "contract", "nsz", "arcp"}
@@ -66,13 +69,14 @@ def subset_factors(r: np.ndarray, constrained: np.ndarray
     Raises
     ------
     ValueError
-        More than ``MAX_CONSTRAINED`` constrained columns, or a rank-deficient R[:, S]
-        (the caller then uses the numpy solver, which handles it).
+        More than ``MAX_CONSTRAINED`` constrained columns or ``MAX_TERMS`` columns, or a
+        rank-deficient R[:, S] (the caller then uses the numpy solver, which handles it).
     """
     p = r.shape[1]
     con = np.flatnonzero(constrained)
-    if con.size > MAX_CONSTRAINED:
-        raise ValueError(f"{con.size} constrained columns; at most {MAX_CONSTRAINED}")
+    if con.size > MAX_CONSTRAINED or p > MAX_TERMS:
+        raise ValueError(f"{con.size} constrained columns of {p}; at most {MAX_CONSTRAINED} "
+                         f"of {MAX_TERMS}")
     free_bits = sum(1 << int(j) for j in np.flatnonzero(~constrained))
     qt = np.zeros((1 << p, p, p))
     rs = np.zeros((1 << p, p, p))

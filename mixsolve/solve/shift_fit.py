@@ -376,7 +376,7 @@ def _final_block(values: np.ndarray, lib: _ShiftedLibrary, shift: np.ndarray, me
     coef = np.where(ok[:, None], fit.coef, np.nan)
     fitted = np.einsum("nmp,np->nm", design, coef)
     dof = np.where(ok, n_present - p - 1, -1)  # the shift costs one degree of freedom
-    status |= np.where(dof <= 0, NO_DOF, 0)
+    status |= np.where(ok & (dof <= 0), NO_DOF, 0)  # (a spectrum not fitted has no fit)
     residual = np.where(present, values - fitted, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.einsum("nm,nm->n", residual, residual) / dof

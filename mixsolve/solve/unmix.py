@@ -13,7 +13,12 @@ import xarray as xr
 
 from mixsolve._version import __version__
 from mixsolve.diagnostics.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
-from mixsolve.errors import ExtrapolationWarning, IllConditionedWarning, InputError
+from mixsolve.errors import (
+    ExtrapolationWarning,
+    IllConditionedWarning,
+    InfiniteReadingError,
+    InputError,
+)
 from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
@@ -123,7 +128,11 @@ def unmix(
     Dataset
         ``concentration`` and ``std_uncertainty`` (..., component), in ``attrs["unit"]``;
         ``baseline`` (..., term) in AU and AU/nm; ``fitted`` and ``residual``
-        (..., wavelength) over the used wavelengths (AU); ``rms_residual`` (AU);
+        (..., wavelength) over the used wavelengths (AU): for numpy-backed spectra they
+        are computed when read (the part read), from the coefficients and the spectra,
+        which the result holds by reference: changing the spectra array in place before
+        they have been read changes them, so call ``result.load()`` first if you will;
+        ``rms_residual`` (AU);
         ``dof`` (residual degrees of freedom n − p); ``status`` (bit mask, see
         ``mixsolve.solve.cls``); ``at_zero`` (..., component), true where NNLS held a
         component at 0; trust checks per spectrum (docs/diagnostics.md):
@@ -140,7 +149,8 @@ def unmix(
     ------
     InputError
         Bad options, a selection outside the data or the library, a non-positive
-        pathlength, or an impossible unit conversion.
+        pathlength, an impossible unit conversion, or an infinite absorbance (named by
+        spectrum and wavelength; for dask-backed spectra raised when computed).
     SolveError
         Fewer wavelengths than unknowns, or linearly dependent components.
 
@@ -153,10 +163,12 @@ def unmix(
     -----
     Beer–Lambert for non-interacting absorbers (ASTM E169): A(λ) = b Σₖ εₖ(λ) cₖ
     + baseline(λ) + e(λ). With D the design matrix [ε at 1 cm | baseline columns],
-    the fit solves min ‖A − D x‖² (the SVD pseudo-inverse of column-scaled D, as
-    ``numpy.linalg.lstsq``, for ``ols``; for ``nnls`` fast combinatorial active-set NNLS
-    over all spectra at once with the baseline columns free, checked against
-    ``scipy.optimize.nnls``: :mod:`mixsolve.solve.nnls`) and c = x / b. The standard
+    the fit solves min ‖A − D x‖² (for ``ols`` through the QR factorisation of the
+    column-scaled D, or its pseudo-inverse over the readings a spectrum has; for ``nnls``
+    fast combinatorial active-set NNLS over all spectra at once with the baseline columns
+    free, checked against ``scipy.optimize.nnls``: :mod:`mixsolve.solve.nnls`, or its
+    compiled twin :mod:`mixsolve.solve.fused` for jobs of 10⁴ spectra or more when numba
+    is installed) and c = x / b. The standard
     uncertainty is Type A from the fit only: u(cₖ) = s √[(DᵀD)⁻¹]ₖₖ / b with
     s² = RSS/(n − p). For NNLS it is the linearised value of the unconstrained model at
     the solution, ignoring the constraint.
@@ -239,14 +251,18 @@ def unmix(
         shift_options=_shift_options(library, used_wl, baseline, method, max_shift_nm)
         if fit_shift else None)
     names = {**OUTPUTS, **(SHIFT_OUTPUTS if fit_shift else {})}
-    outputs = xr.apply_ufunc(
-        unmix_block, used, b, kwargs={"settings": settings},
-        input_core_dims=[[WAVELENGTH], []],
-        output_core_dims=[list(dims) for dims in names.values()],
-        dask="parallelized",
-        output_dtypes=[DTYPES.get(name, float) for name in names],
-        dask_gufunc_kwargs={"output_sizes": {TERM: len(terms), COMPONENT: len(components)}},
-    )
+    try:
+        outputs = xr.apply_ufunc(
+            unmix_block, used, b, kwargs={"settings": settings},
+            input_core_dims=[[WAVELENGTH], []],
+            output_core_dims=[list(dims) for dims in names.values()],
+            dask="parallelized",
+            output_dtypes=[DTYPES.get(name, float) for name in names],
+            dask_gufunc_kwargs={"output_sizes": {TERM: len(terms),
+                                                 COMPONENT: len(components)}},
+        )
+    except InfiniteReadingError as exc:  # eager: say which spectrum and wavelength
+        raise InputError(_where_infinite(used, exc)) from None
     named = dict(zip(names, outputs, strict=True))
     coef = named.pop("coef").assign_coords({TERM: terms})
     if fit_shift:  # one design per spectrum: the kernel returns both
@@ -324,6 +340,19 @@ def _shift_options(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline,
     eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
     return {"eps": eps, "grid_nm": grid, "wavelengths_nm": used_wl, "baseline": baseline,
             "method": method, "max_shift_nm": max_shift}
+
+
+def _where_infinite(used: xr.DataArray, exc: InfiniteReadingError) -> str:
+    """The refusal of an infinite reading, naming its spectrum (labels) and wavelength."""
+    if exc.spectrum is None or exc.reading is None:
+        return str(exc)
+    lead = [d for d in used.dims if d != WAVELENGTH]
+    position = np.unravel_index(exc.spectrum, tuple(used.sizes[d] for d in lead))
+    where = [f"{d} {used[d].values[i]!s}" if d in used.coords else f"{d} {i}"
+             for d, i in zip(lead, position, strict=True)]
+    wl = float(used[WAVELENGTH].values[exc.reading])
+    return (f"spectra: absorbance is infinite at {', '.join([*where, f'{wl:g} nm'])}; use "
+            "NaN for a missing reading")
 
 
 def _as_slice(index: np.ndarray) -> np.ndarray | slice:

@@ -11,8 +11,11 @@ function keeps the data to one pass and the result to one set of labelled variab
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import itertools
+import threading
+from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any, NamedTuple
@@ -27,9 +30,10 @@ from mixsolve.diagnostics.trust import (
     summary_checks,
     trust_status,
 )
+from mixsolve.errors import InfiniteReadingError
 from mixsolve.flags import VLEN_STR, flag_texts
 from mixsolve.noise import NoiseModel
-from mixsolve.solve.cls import Engine, Method, fit_spectra
+from mixsolve.solve.cls import Engine, Method, fit_spectra, refuse_infinity
 from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.shift_fit import fit_with_shift
 
@@ -120,17 +124,25 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
                               strict=True):
             out[rows] = value
 
+    def fit(rows: slice) -> _Fitted:
+        try:
+            return _fit_task(flat[rows], settings)
+        except InfiniteReadingError as exc:  # its position within the block, not the task
+            raise InfiniteReadingError(
+                str(exc), None if exc.spectrum is None else rows.start + exc.spectrum,
+                exc.reading) from None
+
     tasks = _tasks(n_spec, settings.threads)
     if settings.threads > 1 and len(tasks) > 1:
         # compiled code and numpy release the GIL while they work. Every task calls BLAS:
         # one BLAS thread each, or OpenBLAS's threads (which spin after each product)
         # would take the cores from the tasks' own threads.
         with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, \
-                _blas_controller().limit(limits=1, user_api="blas"):
-            list(pool.map(lambda rows: store(rows, _fit_task(flat[rows], settings)), tasks))
+                _one_blas_thread():
+            list(pool.map(lambda rows: store(rows, fit(rows)), tasks))
     else:
         for rows in tasks:
-            store(rows, _fit_task(flat[rows], settings))
+            store(rows, fit(rows))
     return tuple(out.reshape((*lead, *out.shape[1:])) for out in outputs)
 
 
@@ -138,6 +150,34 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
 def _blas_controller() -> ThreadpoolController:
     """threadpoolctl's view of the loaded BLAS libraries, found once (finding costs ~1 ms)."""
     return ThreadpoolController()
+
+
+_blas_lock = threading.Lock()
+_blas_users = 0
+_blas_limiter: Any = None
+
+
+@contextlib.contextmanager
+def _one_blas_thread() -> Iterator[None]:
+    """BLAS limited to one thread while any unmix block runs its tasks.
+
+    The limit is process-wide: the first block to start sets it and the last to finish
+    restores the original, so blocks running at the same time in several threads do not
+    restore each other's limits out of order (which could leave BLAS on one thread).
+    """
+    global _blas_users, _blas_limiter
+    with _blas_lock:
+        if _blas_users == 0:
+            _blas_limiter = _blas_controller().limit(limits=1, user_api="blas")
+        _blas_users += 1
+    try:
+        yield
+    finally:
+        with _blas_lock:
+            _blas_users -= 1
+            if _blas_users == 0:
+                _blas_limiter.restore_original_limits()
+                _blas_limiter = None
 
 
 def _tasks(n_spec: int, threads: int) -> list[slice]:
@@ -167,6 +207,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     """Fit spectra (n, m): the plain, weighted or shift fit, and the lack-of-fit figures."""
     n = len(settings.components)
     if settings.shift_options is not None:
+        refuse_infinity(spectra, np.arange(spectra.shape[0]))
         coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
             spectra, **settings.shift_options)
         residual = spectra - fitted

@@ -24,6 +24,7 @@ import xarray as xr
 
 from mixsolve.errors import InputError
 from mixsolve.io.atomic import ensure_folder
+from mixsolve.io.results_io import write_table
 from mixsolve.library import COMPONENT
 from mixsolve.workflows.unmix_files import format_cube_summary, unmix_cube_files
 
@@ -94,7 +95,7 @@ def run_cube_demo(out_dir: str | os.PathLike[str], pixels: int = 1000,
                               out=result_path, progress=progress)
     seconds = time.perf_counter() - written
     comparison = compare_grid(result, int(pixels), concentrations)
-    comparison.to_csv(folder / "comparison.csv", index=False)
+    write_table(comparison, folder / "comparison.csv")
     text = "\n".join([
         CUBE_NOTE, "",
         f"Wrote {cube_path} ({pixels} × {pixels} pixels × {n_wavelengths} wavelengths) in "
