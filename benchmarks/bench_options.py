@@ -40,9 +40,8 @@ from scipy.optimize import minimize_scalar
 import mixsolve as ms
 import mixsolve.solve.unmix_block as unmix_block
 from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, TOO_FEW
-from mixsolve.solve.cls import Fit, _full_rank, _inverse_diag, fit_spectra, solve_cls
+from mixsolve.solve.cls import Fit, _fit, _full_rank, _inverse_diag, fit_spectra, solve_cls
 from mixsolve.solve.design import design_matrix
-from mixsolve.solve.nnls import nnls_batch
 from mixsolve.solve.residuals import ResidualSummary, empty_summary, put, summarise
 
 NOISE = "diode_array"
@@ -60,16 +59,8 @@ def wide_library() -> xr.Dataset:
 
 # --- the old per-spectrum code (as it was before the batched versions) -------------------------
 
-# (the rank test and (DᵀD)⁻¹ diagonal are still those of mixsolve.solve.cls)
-
-def _old_fit(design: np.ndarray, values: np.ndarray, n_components: int, method: str
-             ) -> np.ndarray:
-    if method == "ols":
-        norms = np.linalg.norm(design, axis=0)
-        sol = np.linalg.pinv(design / norms) @ values.T
-        return (sol / norms[:, None]).T
-    return nnls_batch(design, values, n_components).x
-
+# (the rank test, the one-design solve and the (DᵀD)⁻¹ diagonal are still those of
+# mixsolve.solve.cls)
 
 def old_weighted_fit(spectra: np.ndarray, design: np.ndarray, n_components: int,
                      method: str, weights: np.ndarray) -> Fit:
@@ -100,7 +91,7 @@ def old_weighted_fit(spectra: np.ndarray, design: np.ndarray, n_components: int,
         scale = root_w[i, mask]
         sub = sub * scale[:, None]
         vals = values[np.ix_(rows, np.flatnonzero(mask))] * scale
-        coef[rows] = _old_fit(sub, vals, n_components, method)
+        coef[rows] = _fit(sub, vals, n_components, method)
         put(summary, rows, summarise(values[rows], values[rows] - coef[rows] @ design.T))
         rss = np.sum((vals - coef[rows] @ sub.T) ** 2, axis=1)
         dof[rows] = n_used - n_terms
@@ -109,9 +100,7 @@ def old_weighted_fit(spectra: np.ndarray, design: np.ndarray, n_components: int,
                 np.sqrt(_inverse_diag(sub))
         else:
             status[rows] |= NO_DOF
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rms = np.sqrt(summary.sum_squares / summary.n_points)
-    return Fit(coef, std_error, dof, status, rms, ResidualSummary(*summary))
+    return Fit(coef, std_error, dof, status, ResidualSummary(*summary))
 
 
 def old_fit_with_shift(spectra: np.ndarray, eps: np.ndarray, grid_nm: np.ndarray,

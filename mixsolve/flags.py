@@ -36,7 +36,7 @@ VLEN_STR = np.dtype(object, metadata={"element_type": str})
 
 def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.ndarray,
                bias: np.ndarray | None, components: list[str], *, ols: bool,
-               tolerance_nm: float, known: dict[int, str] | None = None) -> np.ndarray:
+               tolerance_nm: float, known: dict[object, str] | None = None) -> np.ndarray:
     """Each spectrum's flag codes joined with ``;`` (docs/flags.md).
 
     Parameters
@@ -57,7 +57,7 @@ def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.
         Wavelength accuracy for ``shift_sensitive``: flagged when a quantifiable
         concentration (c > 3u) would move by more than ``SHIFT_FLAG_FRACTION`` of itself.
     known : dict, optional
-        Texts already built, by bit pattern (shared by the blocks of one call, which must
+        Texts already built, by bit pattern (shared by the tasks of one call, which must
         have the same components and options); new ones are added.
 
     Returns
@@ -91,31 +91,26 @@ def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.
         return np.empty(lead, dtype=VLEN_STR)
     bits = np.concatenate(groups, axis=1)
     status_bits = max(STATUS_CODES).bit_length()
-    keys = None
     if status_bits + bits.shape[1] <= 63:  # one integer key per spectrum
         weights = np.left_shift(1, np.arange(status_bits, status_bits + bits.shape[1]),
                                 dtype=np.int64)
         key = status.astype(np.int64) | (bits.view(np.uint8) @ weights)
         index, first = _factorize(key)
-        keys = key[first].tolist()
-    else:
-        packed = np.packbits(bits, axis=1, bitorder="little")
+        keys: list[object] = key[first].tolist()
+    else:  # status and packed code bits as bytes
         rows = np.column_stack([status.astype(np.int64).view(np.uint8).reshape(
-            status.size, -1), packed])
+            status.size, -1), np.packbits(bits, axis=1, bitorder="little")])
         _, first, index = np.unique(rows, axis=0, return_index=True, return_inverse=True)
         index = index.ravel()
-    known = {} if known is None or keys is None else known
+        keys = [row.tobytes() for row in rows[first]]
+    known = {} if known is None else known
     texts = np.empty(first.size, dtype=VLEN_STR)
-    for k, i in enumerate(first):
-        key_k = keys[k] if keys is not None else None
-        if key_k in known:
-            texts[k] = known[key_k]
-            continue
-        codes = [code for bit, code in STATUS_CODES.items() if status[i] & bit]
-        codes += [name for name, on in zip(names, bits[i], strict=True) if on]
-        texts[k] = ";".join(codes)
-        if key_k is not None:
-            known[key_k] = texts[k]
+    for k, (i, key_k) in enumerate(zip(first, keys, strict=True)):
+        if key_k not in known:
+            codes = [code for bit, code in STATUS_CODES.items() if status[i] & bit]
+            codes += [name for name, on in zip(names, bits[i], strict=True) if on]
+            known[key_k] = ";".join(codes)
+        texts[k] = known[key_k]
     return texts[index].reshape(lead)
 
 

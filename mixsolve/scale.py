@@ -11,14 +11,33 @@ progress bar.
 from __future__ import annotations
 
 import contextlib
+import importlib.util
 import logging
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from typing import Any, TextIO
 
 from mixsolve.errors import InputError
 
 #: Seconds a computation must run before its progress bar appears ("long runs").
 PROGRESS_AFTER_S = 1.0
+
+
+def require_scale(modules: Sequence[str], needed_by: str) -> None:
+    """Refuse in one line when modules of the ``scale`` extra are not installed.
+
+    ``needed_by`` starts the message: "cube files and dask runs need", "the cube demo
+    needs"; checked without importing (dask and zarr load slowly).
+
+    Raises
+    ------
+    InputError
+        Naming the missing modules and the extra to install.
+    """
+    missing = [name for name in modules if importlib.util.find_spec(name) is None]
+    if missing:
+        raise InputError(f"{needed_by} {' and '.join(missing)}, which "
+                         f"{'are' if len(missing) > 1 else 'is'} not installed; install the "
+                         "scale extra: pip install 'mixsolve[scale]'")
 
 
 def _require(module: str) -> Any:

@@ -12,6 +12,9 @@ from scipy.optimize import nnls
 
 from mixsolve.solve.nnls import kkt_rtol
 
+#: (wavelengths, terms, spectra) of the random problems both solvers are checked on: a
+#: typical spectrum, short and few-wavelength designs, one component, ten components.
+PROBLEM_SHAPES = [(300, 5, 400), (40, 3, 200), (12, 6, 150), (200, 1, 50), (25, 10, 120)]
 
 def kkt_ratio(design: np.ndarray, spectra: np.ndarray, x: np.ndarray, n_con: int) -> float:
     """Largest KKT violation as a fraction of the stated tolerance τ (≤ 1 passes)."""

@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
-from helpers_nnls import bands, kkt_ratio, problem, scipy_loop
+from helpers_nnls import PROBLEM_SHAPES, bands, kkt_ratio, problem, scipy_loop
 from scipy.optimize import lsq_linear
 
 import mixsolve as ms
@@ -53,8 +53,7 @@ def summary_by_definition(values: np.ndarray, residual: np.ndarray) -> dict[str,
 
 
 @pytest.mark.parametrize("seed", range(4))
-@pytest.mark.parametrize(("m", "p", "n"), [(300, 5, 400), (40, 3, 200), (12, 6, 150),
-                                           (200, 1, 50), (25, 10, 120)])
+@pytest.mark.parametrize(("m", "p", "n"), PROBLEM_SHAPES)
 def test_compiled_nnls_matches_scipy_and_kkt_holds(seed: int, m: int, p: int, n: int) -> None:
     """Random problems: the minimiser of scipy.optimize.nnls, KKT within τ, = numpy engine."""
     rng = np.random.default_rng(2000 + seed)

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from helpers_nnls import bands, kkt_ratio, problem, scipy_loop
+from helpers_nnls import PROBLEM_SHAPES, bands, kkt_ratio, problem, scipy_loop
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import lsq_linear
@@ -22,8 +22,7 @@ from mixsolve.solve.nnls import nnls_batch, nnls_free
 
 
 @pytest.mark.parametrize("seed", range(6))
-@pytest.mark.parametrize(("m", "p", "n"), [(300, 5, 400), (40, 3, 200), (12, 6, 150),
-                                           (200, 1, 50), (25, 10, 120)])
+@pytest.mark.parametrize(("m", "p", "n"), PROBLEM_SHAPES)
 def test_matches_scipy_nnls_and_kkt_holds(seed: int, m: int, p: int, n: int) -> None:
     """Random well-posed problems: the same minimiser as scipy.optimize.nnls, KKT within τ."""
     rng = np.random.default_rng(1000 + seed)

@@ -36,6 +36,10 @@ def test_summary_gives_the_runs_test_of_sample_checks(rng: np.random.Generator) 
     got = runs_from_summary(summarise(r, r))
     for g, w in zip(got, runs_test(r), strict=True):
         np.testing.assert_allclose(g, w, rtol=1e-12, atol=1e-15, equal_nan=True)
+    short = rng.standard_normal((3, 6))  # fewer points than the runs test needs
+    for g, w in zip(runs_from_summary(summarise(short, short)), runs_test(short),
+                    strict=True):
+        np.testing.assert_allclose(g, w, equal_nan=True)
 
 
 def test_summary_extremes_and_counts(rng: np.random.Generator) -> None:

@@ -19,7 +19,6 @@ from click.testing import CliRunner
 import mixsolve as ms
 from mixsolve.cli import main
 from mixsolve.diagnostics.sample_checks import runs_test
-from mixsolve.diagnostics.trust import residual_runs
 from mixsolve.errors import FileFormatError, InputError, OutputError
 from mixsolve.flags import STATUS_CODES
 from mixsolve.io.cubes import chunk_plan
@@ -187,23 +186,6 @@ def test_block_checks_equal_whole_array_checks(library: xr.Dataset) -> None:
     np.testing.assert_allclose(result["lack_of_fit_ratio"].values, ratio, rtol=1e-12)
     rms = np.sqrt(np.nanmean(result["residual"].values ** 2, axis=-1))
     np.testing.assert_allclose(result["rms_residual"].values, rms, rtol=1e-12)
-
-
-def test_residual_runs_equals_runs_test(rng: np.random.Generator) -> None:
-    """Vectorised runs test = sample_checks.runs_test, with NaNs, exact zeros, short rows."""
-    residual = rng.standard_normal((40, 30))
-    residual[:10] = np.cumsum(residual[:10], axis=1)  # structured: few runs
-    residual[11, 4] = np.nan
-    residual[12, :7] = 0.0
-    residual[13] = 0.0
-    residual[14, :] = np.abs(residual[14])  # one sign only
-    got = residual_runs(residual)
-    want = runs_test(residual)
-    for g, w in zip(got, want, strict=True):
-        np.testing.assert_allclose(g, w, rtol=1e-12, equal_nan=True)
-    short = rng.standard_normal((3, 6))
-    for g, w in zip(residual_runs(short), runs_test(short), strict=True):
-        np.testing.assert_allclose(g, w, equal_nan=True)
 
 
 # --- dask: lazy == eager ---------------------------------------------------------------------

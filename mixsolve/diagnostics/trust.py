@@ -25,7 +25,7 @@ from mixsolve.diagnostics.shift import library_derivative, shift_matrix
 from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, STRUCTURED
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
-from mixsolve.solve.residuals import ResidualSummary, model_blocks, summarise
+from mixsolve.solve.residuals import ResidualSummary, model_blocks
 from mixsolve.spectra import WAVELENGTH
 
 #: p-value below which lack of fit or residual structure is flagged (judgement; 1 in 1000
@@ -37,7 +37,7 @@ FLAG_P_VALUE = 1e-3
 LAG1_Z_LIMIT = 3.09
 #: RMS residual (AU) below which a fit is exact to rounding and is not tested for shape.
 NUMERICAL_ZERO_AU = 1e-10
-#: Wavelength accuracy assumed for that flag (nm): a typical benchtop instrument, ±0.5 nm
+#: Wavelength accuracy assumed for the shift_sensitive flag (nm): a typical benchtop, ±0.5 nm
 #: (from memory; plate readers are often ±1-2 nm: set it for your instrument).
 DEFAULT_WAVELENGTH_TOLERANCE_NM = 0.5
 #: Names of the figures :func:`summary_checks` returns, in order.
@@ -91,18 +91,6 @@ def runs_from_summary(summary: ResidualSummary) -> tuple[np.ndarray, np.ndarray,
         fine = (np.asarray(summary.n_points) >= 2) & (ss > 0)
         lag1 = np.where(fine, np.asarray(summary.lag_sum) / np.where(fine, ss, 1.0), np.nan)
     return z, ndtr(z), lag1
-
-
-def residual_runs(residual: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The runs test of :func:`mixsolve.diagnostics.sample_checks.runs_test`, vectorised.
-
-    Same definitions and results (NaN = missing reading, exact zeros dropped), through
-    the residual summary.
-    """
-    lead = residual.shape[:-1]
-    flat = residual.reshape(-1, residual.shape[-1])
-    z, p, lag1 = runs_from_summary(summarise(flat, flat))
-    return z.reshape(lead), p.reshape(lead), lag1.reshape(lead)
 
 
 def lack_of_fit_model(values: np.ndarray, coef: np.ndarray, design: np.ndarray,

@@ -56,7 +56,8 @@ ROW_NOT_FINITE = 1  #: a reading is missing or infinite: fitted, or refused, aft
 ROW_ITERATION_LIMIT = 2  #: NNLS not done within its iterations: the numpy solver finishes
 
 __all__ = ["DEPENDENT", "ENGINES", "METHODS", "MISSING", "NO_DOF", "STATUS_CODES", "TOO_FEW",
-           "Fit", "choose_engine", "default_threads", "fit_spectra", "solve_cls"]
+           "Fit", "choose_engine", "default_threads", "fit_spectra", "refuse_infinity",
+           "solve_cls"]
 
 
 class Fit(NamedTuple):
@@ -66,7 +67,6 @@ class Fit(NamedTuple):
     std_error: np.ndarray
     dof: np.ndarray
     status: np.ndarray
-    rms: np.ndarray
     summary: ResidualSummary
 
 
@@ -129,10 +129,10 @@ def fit_spectra(
         components, AU for the offset, AU/nm for the slope). ``std_error`` (..., n_terms):
         √(s² · diag (DᵀD)⁻¹) with s² = RSS/(n − p); NaN when n − p = 0. ``dof`` (...):
         residual degrees of freedom n − p. ``status`` (...): bitwise OR of the status bits
-        of :mod:`mixsolve.flags`. ``rms`` (...): √(Σ r²/n) over the n readings present
-        (AU, unweighted); NaN when the spectrum could not be fitted. ``summary``: the
+        of :mod:`mixsolve.flags`. ``summary``: the
         :class:`~mixsolve.solve.residuals.ResidualSummary` of each residual
-        (unweighted), fields shaped (...).
+        (unweighted; its ``rms()`` is √(Σ r²/n) over the n readings present, AU), fields
+        shaped (...).
 
     Raises
     ------
@@ -167,14 +167,11 @@ def fit_spectra(
         if rest.size:
             refuse_infinity(flat, rest)
             _fit_groups(flat, _missing_groups(flat, rest), design, n_components, method, out)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rms = np.sqrt(out.summary.sum_squares / out.summary.n_points)
     return Fit(
         out.coef.reshape(*lead, n_terms),
         out.std_error.reshape(*lead, n_terms),
         out.dof.reshape(lead),
         out.status.reshape(lead),
-        rms.reshape(lead),
         ResidualSummary(*(f.reshape(lead) for f in out.summary)),
     )
 
@@ -189,14 +186,16 @@ class _Outputs:
         self.status = np.zeros(n_spec, dtype=np.int64)
         self.summary = empty_summary(n_spec)
 
-    def set_errors(self, rows: np.ndarray | slice, dof: int, diag: np.ndarray,
+    def set_errors(self, rows: np.ndarray | slice, dof: int | np.ndarray, diag: np.ndarray,
                    rss: np.ndarray) -> None:
-        """dof and std errors √(s² diag) with s² = rss/dof of the listed rows."""
+        """dof and std errors √(s² diag) with s² = rss/dof of the listed rows (one dof for
+        all, or one each; diag (p,) or one row each); NO_DOF where dof is 0."""
+        dof = np.broadcast_to(dof, rss.shape)
         self.dof[rows] = dof
-        if dof > 0:
-            self.std_error[rows] = np.sqrt(rss / dof)[:, None] * np.sqrt(diag)
-        else:
-            self.status[rows] |= NO_DOF
+        with np.errstate(invalid="ignore", divide="ignore"):
+            s = np.sqrt(np.where(dof > 0, rss / dof, np.nan))
+        self.std_error[rows] = s[:, None] * np.sqrt(diag)
+        self.status[rows] |= np.where(dof > 0, 0, NO_DOF)
 
 
 def _full_rank(design: np.ndarray) -> bool:
@@ -354,16 +353,14 @@ def _compiled_kernel(plan: _Plan) -> Any:
     """The compiled fit of a batch, or None where it does not apply (then numpy fits)."""
     from mixsolve.solve import fused
 
-    try:
-        factors = fused.subset_factors(plan.r, plan.constrained)
-    except ValueError:  # too many constrained columns, or a degenerate passive set
+    tables = fused.solver_tables(plan.r, plan.constrained)
+    if tables is None:
         return None
-    con_mask = int(sum(1 << int(j) for j in np.flatnonzero(plan.constrained)))
 
     def kernel(values: np.ndarray, coef: np.ndarray, summary: ResidualSummary,
                state: np.ndarray) -> None:
-        fused.fit_rows(values, plan.qt, plan.r, plan.norms, plan.design_t, con_mask,
-                       *factors, plan.rtol, plan.max_iter, plan.ols, coef,
+        fused.fit_rows(values, plan.qt, plan.r, plan.norms, plan.design_t, *tables,
+                       plan.rtol, plan.max_iter, plan.ols, coef,
                        *(getattr(summary, name) for name in fused.SUMMARY_FIELDS), state)
 
     return kernel
@@ -456,9 +453,5 @@ def _fit_weighted_rows(values: np.ndarray, w: np.ndarray, present: np.ndarray,
     rows = rows[ok]
     out.coef[rows] = fit.coef[ok]
     put(out.summary, rows, summarise(values[rows], values[rows] - fit.coef[ok] @ design.T))
-    dof = present[rows].sum(axis=1) - design.shape[1]
-    out.dof[rows] = dof
-    out.status[rows[dof == 0]] |= NO_DOF
-    with np.errstate(invalid="ignore", divide="ignore"):
-        s2 = np.where(dof > 0, fit.rss[ok] / dof, np.nan)
-    out.std_error[rows] = np.sqrt(s2[:, None] * fit.inverse_diag[ok])
+    out.set_errors(rows, present[rows].sum(axis=1) - design.shape[1], fit.inverse_diag[ok],
+                   fit.rss[ok])

@@ -48,6 +48,18 @@ SUMMARY_FIELDS = ("sum_squares", "lag_sum", "n_positive", "n_nonzero", "sign_cha
                   "absorbance_max", "absorbance_min")
 
 
+def solver_tables(r: np.ndarray, constrained: np.ndarray
+                  ) -> tuple[int, np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
+    """The bit mask of the constrained columns, then :func:`subset_factors`, in the order
+    :func:`fit_rows` takes them; None where the compiled solver does not apply (too many
+    columns, or a degenerate passive set: then numpy solves)."""
+    try:
+        factors = subset_factors(r, constrained)
+    except ValueError:
+        return None
+    return (int(sum(1 << int(j) for j in np.flatnonzero(constrained))), *factors)
+
+
 def subset_factors(r: np.ndarray, constrained: np.ndarray
                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """QR factors of R[:, S] for every passive set S (free columns always in S).

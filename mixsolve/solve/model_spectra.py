@@ -19,6 +19,8 @@ import xarray as xr
 from xarray.backends import BackendArray
 from xarray.core import indexing
 
+from mixsolve.spectra import WAVELENGTH
+
 
 class _ModelSpectra(BackendArray):
     """D·x (or a − D·x) for coefficients x (..., p), design D (m, p) and spectra a."""
@@ -93,22 +95,22 @@ def fitted_and_residual(spectra: xr.DataArray, coef: xr.DataArray, design: np.nd
     Dataset holding a variable derived from another through xarray arithmetic can lose
     a graph key ("Missing dependency"; xarray issue 11329).
     """
-    wl = spectra["wavelength"].values
+    wl = spectra[WAVELENGTH].values
     term = coef.dims[-1]
     if spectra.chunks is not None:
         fitted, residual = xr.apply_ufunc(
             model_and_residual, spectra, coef, np.ascontiguousarray(design.T),
-            input_core_dims=[["wavelength"], [term], [term, "wavelength"]],
-            output_core_dims=[["wavelength"], ["wavelength"]], dask="parallelized",
+            input_core_dims=[[WAVELENGTH], [term], [term, WAVELENGTH]],
+            output_core_dims=[[WAVELENGTH], [WAVELENGTH]], dask="parallelized",
             output_dtypes=[float, float])
-        return (fitted.assign_coords({"wavelength": wl}),
-                residual.assign_coords({"wavelength": wl}))
+        return (fitted.assign_coords({WAVELENGTH: wl}),
+                residual.assign_coords({WAVELENGTH: wl}))
     lead = [d for d in coef.dims if d != term]
-    ordered = spectra.transpose(*lead, "wavelength")
+    ordered = spectra.transpose(*lead, WAVELENGTH)
     coords = dict(ordered.coords.items())
     values = np.asarray(ordered.values)
     c = np.asarray(coef.transpose(*lead, term).values)
-    dims = (*lead, "wavelength")
+    dims = (*lead, WAVELENGTH)
     return (xr.DataArray(model_variable(dims, c, design), coords=coords),
             xr.DataArray(model_variable(dims, c, design, values), coords=coords))
 

@@ -208,9 +208,8 @@ def _compiled_solve(scaled: np.ndarray, r: np.ndarray, q: np.ndarray, spectra: n
         return None
     from mixsolve.solve import fused
 
-    try:
-        factors = fused.subset_factors(r, constrained)
-    except ValueError:  # too many constrained columns, or a degenerate passive set
+    tables = fused.solver_tables(r, constrained)
+    if tables is None:
         return None
     n, p = spectra.shape[0], r.shape[0]
     values = np.ascontiguousarray(spectra)
@@ -218,10 +217,9 @@ def _compiled_solve(scaled: np.ndarray, r: np.ndarray, q: np.ndarray, spectra: n
     state = np.empty(n, dtype=np.int64)
     unused = np.empty(n)  # the residual summary is not asked for
     qt, scaled_t = np.ascontiguousarray(q.T), np.ascontiguousarray(scaled.T)
-    con_mask = int(sum(1 << int(j) for j in np.flatnonzero(constrained)))
 
     def run(part: slice) -> None:
-        fused.fit_rows(values[part], qt, r, np.ones(p), scaled_t, con_mask, *factors, rtol,
+        fused.fit_rows(values[part], qt, r, np.ones(p), scaled_t, *tables, rtol,
                        max_iter, False, x[part],
                        *[unused[part]] * len(fused.SUMMARY_FIELDS), state[part], False)
 

@@ -35,6 +35,11 @@ class ResidualSummary(NamedTuple):
     absorbance_max: np.ndarray  #: largest reading present (AU)
     absorbance_min: np.ndarray  #: smallest reading present (AU)
 
+    def rms(self) -> np.ndarray:
+        """√(Σr²/n) over the readings present (AU); NaN where not fitted."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.sqrt(self.sum_squares / self.n_points)
+
 
 def empty_summary(n: int) -> ResidualSummary:
     """A summary of ``n`` spectra, all NaN."""

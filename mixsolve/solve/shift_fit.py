@@ -37,7 +37,15 @@ from collections.abc import Callable
 
 import numpy as np
 
-from mixsolve.solve.cls import DEPENDENT, MISSING, NO_DOF, TOO_FEW, Method, fit_spectra
+from mixsolve.solve.cls import (
+    DEPENDENT,
+    MISSING,
+    NO_DOF,
+    TOO_FEW,
+    Method,
+    fit_spectra,
+    refuse_infinity,
+)
 from mixsolve.solve.design import Baseline, design_matrix
 from mixsolve.solve.per_spectrum import block_spectra, fit_each, inverse_diagonal
 
@@ -136,6 +144,7 @@ def fit_with_shift(
     ----------
     spectra : array, shape (..., n_wavelengths)
         Absorbance (AU); NaN marks a missing reading (fitted on the readings present).
+        Infinity is refused (:class:`mixsolve.errors.InfiniteReadingError`).
     eps : array, shape (n_components, n_grid)
         Library absorptivity on its own grid ``grid_nm`` (nm).
     wavelengths_nm : array, shape (n_wavelengths,)
@@ -162,6 +171,7 @@ def fit_with_shift(
     spectra = np.asarray(spectra, dtype=float)
     lead = spectra.shape[:-1]
     flat = spectra.reshape(-1, spectra.shape[-1])
+    refuse_infinity(flat, np.arange(flat.shape[0]))
     lib = _ShiftedLibrary(eps, grid_nm, wavelengths_nm, baseline)
     shift = _search(flat, lib, method, float(max_shift_nm))
     coef, se, fitted, dof, status, u_shift = _final_fit(flat, lib, shift, method)

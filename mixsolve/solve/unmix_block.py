@@ -32,14 +32,14 @@ from mixsolve.diagnostics.trust import (
 )
 from mixsolve.errors import InfiniteReadingError
 from mixsolve.flags import VLEN_STR, flag_texts
+from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
-from mixsolve.solve.cls import Engine, Method, fit_spectra, refuse_infinity
+from mixsolve.solve.cls import Engine, Method, fit_spectra
 from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.shift_fit import fit_with_shift
+from mixsolve.spectra import WAVELENGTH
 
 TERM = "term"
-COMPONENT = "component"
-WAVELENGTH = "wavelength"
 #: Outputs of :func:`unmix_block`, in order, with their core dims (none: one value per
 #: spectrum). ``coef`` holds the fitted coefficients (concentration × pathlength in the
 #: library's unit, AU, AU/nm), from which the fitted spectra are computed.
@@ -117,7 +117,7 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
              WAVELENGTH: m}
     outputs = [np.empty((n_spec, *(sizes[d] for d in dims)), dtype=DTYPES.get(name, float))
                for name, dims in names.items()]
-    texts: dict[int, str] = {}
+    texts: dict[object, str] = {}
 
     def store(rows: slice, fitted: _Fitted) -> None:
         for out, value in zip(outputs, _outputs_of(fitted, b[rows], settings, texts),
@@ -200,21 +200,19 @@ class _Fitted(NamedTuple):
     summary: ResidualSummary
     lack: tuple[np.ndarray, np.ndarray] | None  #: lack-of-fit ratio and p (noise model)
     extra: tuple[np.ndarray, ...]  #: the shift fit's shift, u(shift), fitted, residual
-    n_wavelengths: int
 
 
 def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     """Fit spectra (n, m): the plain, weighted or shift fit, and the lack-of-fit figures."""
     n = len(settings.components)
     if settings.shift_options is not None:
-        refuse_infinity(spectra, np.arange(spectra.shape[0]))
         coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
             spectra, **settings.shift_options)
         residual = spectra - fitted
         lack = None if settings.noise is None else lack_of_fit(
             residual, fitted, dof, settings.noise)
         return _Fitted(coef, se, dof, status, summarise(spectra, residual), lack,
-                       (shift, u_shift, fitted, residual), spectra.shape[-1])
+                       (shift, u_shift, fitted, residual))
     fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine)
     if settings.weighted and settings.noise is not None:
         first = fit.coef @ settings.design.T
@@ -223,20 +221,18 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
         fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights)
     lack = None if settings.noise is None else lack_of_fit_model(
         spectra, fit.coef, settings.design, fit.dof, settings.noise)
-    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, (),
-                   spectra.shape[-1])
+    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, ())
 
 
 def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
-                texts: dict[int, str]) -> tuple[np.ndarray, ...]:
+                texts: dict[object, str]) -> tuple[np.ndarray, ...]:
     """The outputs (``OUTPUTS`` order) of one task's fit; b (n,) pathlengths in cm."""
     n = len(settings.components)
-    summary = fit.summary
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rms = np.sqrt(summary.sum_squares / summary.n_points)
-    checks = summary_checks(summary, fit.lack)
+    rms = fit.summary.rms()
+    checks = summary_checks(fit.summary, fit.lack)
     status = fit.status | settings.design_status | trust_status(
-        checks, rms, fit.n_wavelengths, settings.absorbance_range, settings.noise is not None)
+        checks, rms, settings.design.shape[0], settings.absorbance_range,
+        settings.noise is not None)
     canonical = fit.coef[:, :n] / b[:, None]
     conc = canonical * settings.unit_factor
     u_conc = fit.std_error[:, :n] / b[:, None] * settings.unit_factor

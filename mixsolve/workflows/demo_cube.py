@@ -10,7 +10,6 @@ concentrations at a grid of pixels with the truth the card was made from. Needs 
 
 from __future__ import annotations
 
-import importlib.util
 import os
 import time
 from collections.abc import Callable
@@ -26,6 +25,7 @@ from mixsolve.errors import InputError
 from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.results_io import write_table
 from mixsolve.library import COMPONENT
+from mixsolve.scale import require_scale
 from mixsolve.workflows.unmix_files import format_cube_summary, unmix_cube_files
 
 #: Pixels per side of the grid of pixels compared with the truth.
@@ -79,11 +79,7 @@ def run_cube_demo(out_dir: str | os.PathLike[str], pixels: int = 1000,
         raise InputError(f"--cube: {pixels} pixels per side; give at least 2, e.g. 1000")
     if int(n_wavelengths) < 10:
         raise InputError(f"--cube-wavelengths: {n_wavelengths}; give at least 10, e.g. 191")
-    missing = [m for m in ("dask", "zarr") if importlib.util.find_spec(m) is None]
-    if missing:
-        raise InputError(f"the cube demo needs {' and '.join(missing)}, which "
-                         f"{'are' if len(missing) > 1 else 'is'} not installed; install the "
-                         "scale extra: pip install 'mixsolve[scale]'")
+    require_scale(("dask", "zarr"), "the cube demo needs")
     from mixsolve.reference_spectra_demo.make_demo_cube import concentrations, write_demo_cube
 
     folder = ensure_folder(Path(out_dir) / "cube")

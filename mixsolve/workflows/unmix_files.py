@@ -27,7 +27,7 @@ from mixsolve.io.spectra_io import read_spectra
 from mixsolve.library import COMPONENT
 from mixsolve.report.tables import results_table
 from mixsolve.report.text import format_results
-from mixsolve.scale import compute, dask_client
+from mixsolve.scale import compute, dask_client, require_scale
 from mixsolve.solve.pls_model import MODEL_KIND
 from mixsolve.solve.pls_predict import predict
 from mixsolve.solve.unmix import unmix
@@ -280,14 +280,7 @@ def format_cube_summary(result: xr.Dataset) -> str:
 
 def _require_scale(spectra: PathLike, out: PathLike | None) -> None:
     """Refuse the chunked path cleanly when the ``scale`` extra is not installed."""
-    import importlib.util
-
     needed = ["dask"]
     if any(str(p).endswith(".zarr") for p in (spectra, out) if p is not None):
         needed.append("zarr")
-    missing = [name for name in needed if importlib.util.find_spec(name) is None]
-    if missing:
-        raise InputError(
-            f"cube files and dask runs need {' and '.join(missing)}, which "
-            f"{'are' if len(missing) > 1 else 'is'} not installed; "
-            "install the scale extra: pip install 'mixsolve[scale]'")
+    require_scale(needed, "cube files and dask runs need")
