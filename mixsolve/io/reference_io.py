@@ -1,7 +1,9 @@
 """Read a reference table of known concentrations: ``sample, component, concentration, unit``.
 
 The layout is that of the tidy results CSV, so the results of one run can serve as the
-reference of another; other columns (``std_uncertainty``, ``flags`` ...) are ignored.
+reference of another; other columns (``std_uncertainty``, ``flags`` ...) are ignored. The
+apostrophe mixsolve puts before a CSV name that would start a spreadsheet formula
+(:mod:`mixsolve.io.cell_text`) is removed, so ``=a`` written as ``'=a`` reads back as ``=a``.
 """
 
 from __future__ import annotations
@@ -11,7 +13,9 @@ import os
 import pandas as pd
 
 from mixsolve.errors import FileFormatError
+from mixsolve.io.cell_text import unquote_cell
 from mixsolve.io.tables import header_names, parse_number, read_table
+from mixsolve.names import check_spellings
 
 REQUIRED = ("sample", "component", "concentration", "unit")
 
@@ -46,8 +50,11 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
             text = str(cells[j]).strip()
             if not text:
                 raise FileFormatError(f"{table.where(i, j)}: empty {col}")
-            rec[col] = text
+            # CSV/TSV only: an XLSX cell is text as it stands (mixsolve writes no apostrophe)
+            rec[col] = unquote_cell(text) if table.separator is not None else text
         records.append(rec)
     frame = pd.DataFrame.from_records(records, columns=[*REQUIRED, "line"])
+    for col in ("sample", "component"):  # names as people read them (mixsolve.names)
+        frame[col] = check_spellings(frame[col], f"{table.name}, {col}s")
     frame.attrs["source"] = table.name
     return frame

@@ -1,4 +1,8 @@
-"""Write tables, text and workbooks atomically (the tables are made in report/)."""
+"""Write tables, text and workbooks atomically (the tables are made in report/).
+
+Text cells are spreadsheet-safe (:mod:`mixsolve.io.cell_text`): no cell of a CSV or XLSX
+output can be opened as a formula.
+"""
 
 from __future__ import annotations
 
@@ -8,12 +12,19 @@ from pathlib import Path
 import pandas as pd
 
 from mixsolve.io.atomic import atomic_path
+from mixsolve.io.cell_text import csv_line_end, safe_frame, text_not_formulas
 
 
 def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
-    """Write any DataFrame as UTF-8 CSV without its index; atomic."""
+    """Write any DataFrame as UTF-8 CSV without its index; atomic.
+
+    Text cells and column names that would start a formula get a leading apostrophe
+    (:func:`mixsolve.io.cell_text.safe_cell`); ``table`` itself is not changed. Lines end
+    in ``\n`` (``\r\n`` when a text cell holds a carriage return, which is then quoted).
+    """
+    safe = safe_frame(table)
     with atomic_path(path) as tmp:
-        table.to_csv(tmp, index=False, float_format="%.6g", lineterminator="\n")
+        safe.to_csv(tmp, index=False, float_format="%.6g", lineterminator=csv_line_end(safe))
     return Path(path)
 
 
@@ -25,8 +36,13 @@ def write_text(text: str, path: str | os.PathLike[str]) -> Path:
 
 
 def write_workbook(sheets: dict[str, pd.DataFrame], path: str | os.PathLike[str]) -> Path:
-    """Write DataFrames as the sheets of one XLSX workbook (openpyxl); atomic."""
+    """Write DataFrames as the sheets of one XLSX workbook (openpyxl); atomic.
+
+    Text is written exactly, as string cells: text beginning with ``=`` is never a
+    formula (:func:`mixsolve.io.cell_text.text_not_formulas`).
+    """
     with atomic_path(path) as tmp, pd.ExcelWriter(tmp, engine="openpyxl") as writer:
         for name, frame in sheets.items():
             frame.to_excel(writer, sheet_name=name, index=False)
+            text_not_formulas(writer.sheets[name])
     return Path(path)
