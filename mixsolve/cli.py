@@ -27,6 +27,19 @@ class UsageError(click.ClickException):
         click.echo(f"error: {self.format_message()}", err=True)
 
 
+class Interrupted(click.ClickException):
+    """Ctrl-C: one line and exit code 130 (128 + SIGINT, the shell's convention)."""
+
+    exit_code = 130
+
+    def show(self, file: Any = None) -> None:
+        click.echo(f"error: {self.format_message()}", err=True)
+
+
+#: What Ctrl-C prints: every output is staged until the run succeeds (mixsolve.io.outputs).
+INTERRUPTED = "interrupted (Ctrl-C); this run changed no file"
+
+
 def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
     """Map mixsolve errors to exit 2 and print warnings as single lines on stderr."""
 
@@ -41,6 +54,10 @@ def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
                 if debug:
                     raise
                 raise UsageError(" ".join(str(exc).split())) from None
+            except KeyboardInterrupt:
+                if debug:
+                    raise
+                raise Interrupted(INTERRUPTED) from None
             finally:
                 for w in caught:
                     click.echo(f"warning: {w.message}", err=True)
@@ -170,8 +187,8 @@ class OneLineErrors(click.Group):
             exc.show()
             sys.exit(exc.exit_code)
         except click.Abort:
-            click.echo("aborted", err=True)
-            sys.exit(1)
+            click.echo(f"error: {INTERRUPTED}", err=True)
+            sys.exit(Interrupted.exit_code)
         if isinstance(rv, int):
             sys.exit(rv)
         return rv

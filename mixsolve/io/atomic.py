@@ -1,4 +1,8 @@
-"""Write outputs atomically: to a temporary file beside the target, then rename."""
+"""Write outputs atomically: to a temporary file beside the target, then rename.
+
+Inside :func:`mixsolve.io.outputs.all_or_nothing` the rename waits until the whole run has
+succeeded (the file is staged); outside it, it happens when the file is complete.
+"""
 
 from __future__ import annotations
 
@@ -9,6 +13,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 from mixsolve.errors import OutputError
+from mixsolve.io.outputs import guard_outputs, make_folder, stage
 
 
 @contextmanager
@@ -34,7 +39,8 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
         # mkstemp makes the file private (0600); give the output the mode a plain open()
         # would have: that of the file it replaces, else 0666 less the umask.
         os.chmod(tmp, target.stat().st_mode & 0o7777 if target.exists() else _new_file_mode())
-        os.replace(tmp, target)
+        if not stage(tmp, target):
+            os.replace(tmp, target)
     except OSError as exc:  # disk full, quota, permissions: a user's problem, not a bug
         tmp.unlink(missing_ok=True)
         if isinstance(exc, OutputError):
@@ -64,54 +70,29 @@ def _new_file_mode() -> int:
 
 
 def ensure_folder(path: str | os.PathLike[str]) -> Path:
-    """Create an output folder (and parents) if needed; refuse a path that is a file."""
-    folder = Path(path)
-    if folder.exists() and not folder.is_dir():
-        raise OutputError(f"{folder}: exists and is not a folder")
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(f"{folder}: cannot create the folder ({exc.strerror})") from None
-    return folder
+    """Create an output folder (and parents) if needed; refuse a path that is a file.
+
+    Inside a run (:func:`mixsolve.io.outputs.all_or_nothing`) a folder it made is removed
+    again when the run fails.
+    """
+    return make_folder(path)
 
 
 def check_writable(*paths: str | os.PathLike[str] | None,
                    inputs: Sequence[str | os.PathLike[str] | None] = ()) -> None:
-    """Refuse, before anything is written, outputs that cannot or must not be written.
+    """Refuse, before anything is written, output files that cannot or must not be written.
 
-    Jobs that write several files call this first, so that a bad second path cannot leave
-    the first file behind. An output whose folder is missing or read-only is refused, and
-    so is an output that is one of the job's ``inputs`` or another output of the same job
-    (writing it would destroy data). ``None`` entries (outputs not asked for) are skipped.
+    The file-only form of :func:`mixsolve.io.outputs.guard_outputs`: an output whose
+    folder is missing or read-only, a special file, an input (or inside one), or another
+    output of the same job is refused. ``None`` entries (outputs not asked for) are skipped.
 
     Raises
     ------
     OutputError
     """
-    seen: dict[Path, str] = {}
-    for raw in inputs:
-        if raw is not None and Path(raw).exists():
-            seen[Path(raw).resolve()] = "an input"
-    for path in paths:
-        if path is None:
-            continue
-        target, folder = _target(path)
-        if not os.access(folder, os.W_OK):
-            raise OutputError(f"{target}: cannot write in {folder} (permission denied)")
-        key = target.resolve()
-        if key in seen:
-            raise OutputError(f"{target}: is also {seen[key]} of this run; writing it would "
-                              "destroy that file, so choose another output name")
-        seen[key] = "another output"
+    guard_outputs(paths, inputs=inputs)
 
 
 def check_folder_writable(path: str | os.PathLike[str]) -> None:
     """Refuse an output folder that cannot be created or written, before any work is done."""
-    folder = Path(path)
-    if folder.exists() and not folder.is_dir():
-        raise OutputError(f"{folder}: exists and is not a folder")
-    probe = folder
-    while not probe.exists():
-        probe = probe.parent
-    if not probe.is_dir() or not os.access(probe, os.W_OK):
-        raise OutputError(f"{folder}: cannot be created in {probe} (not a writable folder)")
+    guard_outputs(folders=[path])

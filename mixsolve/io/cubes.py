@@ -24,6 +24,7 @@ import xarray as xr
 from mixsolve.errors import FileFormatError, OutputError
 from mixsolve.flags import VLEN_STR
 from mixsolve.io.atomic import atomic_path
+from mixsolve.io.outputs import stage
 from mixsolve.spectra import WAVELENGTH
 
 #: File name endings read and written as cubes (lower case).
@@ -229,6 +230,7 @@ def _write_zarr(ds: xr.Dataset, target: Path, compute: Callable[[Any], Any] | No
         raise OutputError(f"{target}: cannot write in {folder} ({exc.strerror})") from None
     store = tmp / "store.zarr"
     old = None
+    staged = False
     try:
         with warnings.catch_warnings():
             # consolidated metadata is zarr-python's extension of the v3 format: one read
@@ -237,14 +239,17 @@ def _write_zarr(ds: xr.Dataset, target: Path, compute: Callable[[Any], Any] | No
             warnings.filterwarnings("ignore", message="Consolidated metadata is currently "
                                     "not part in the Zarr format 3 specification")
             _run(ds.to_zarr(store, mode="w-", consolidated=True, compute=False), compute)
-        if target.exists():
-            old = tmp / "replaced.zarr"
-            os.replace(target, old)
-        os.replace(store, target)
+        staged = stage(store, target, scratch=tmp)  # moved in when the whole run succeeds
+        if not staged:
+            if target.exists():
+                old = tmp / "replaced.zarr"
+                os.replace(target, old)
+            os.replace(store, target)
     except OSError as exc:
         if old is not None and not target.exists():
             os.replace(old, target)
         raise OutputError(f"{target}: cannot write the store ({exc.strerror or exc})") from exc
     finally:
-        shutil.rmtree(tmp, ignore_errors=True)
+        if not staged:
+            shutil.rmtree(tmp, ignore_errors=True)
 

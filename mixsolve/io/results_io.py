@@ -6,11 +6,15 @@ output can be opened as a formula.
 
 from __future__ import annotations
 
+import gc
+import io
 import os
+import sys
 from pathlib import Path
 
 import pandas as pd
 
+from mixsolve.errors import OutputError
 from mixsolve.io.atomic import atomic_path
 from mixsolve.io.cell_text import csv_line_end, safe_frame, text_not_formulas
 
@@ -39,10 +43,34 @@ def write_workbook(sheets: dict[str, pd.DataFrame], path: str | os.PathLike[str]
     """Write DataFrames as the sheets of one XLSX workbook (openpyxl); atomic.
 
     Text is written exactly, as string cells: text beginning with ``=`` is never a
-    formula (:func:`mixsolve.io.cell_text.text_not_formulas`).
+    formula (:func:`mixsolve.io.cell_text.text_not_formulas`). The workbook is built in
+    memory, then written in one call.
+
+    Raises
+    ------
+    OutputError
+        Also when openpyxl's own temporary files cannot be written (disk full, a file-size
+        limit).
     """
-    with atomic_path(path) as tmp, pd.ExcelWriter(tmp, engine="openpyxl") as writer:
-        for name, frame in sheets.items():
-            frame.to_excel(writer, sheet_name=name, index=False)
-            text_not_formulas(writer.sheets[name])
+    buffer = io.BytesIO()
+    failure = None
+    hook = sys.unraisablehook
+    # On a write failure openpyxl's half-closed sheet generators report the error again
+    # when collected ("Exception ignored in ..."); the error below already says it.
+    sys.unraisablehook = lambda _: None
+    try:
+        try:
+            with pd.ExcelWriter(buffer, engine="openpyxl") as writer:
+                for name, frame in sheets.items():
+                    frame.to_excel(writer, sheet_name=name, index=False)
+                    text_not_formulas(writer.sheets[name])
+        except OSError as exc:
+            failure = exc.strerror or str(exc)
+        gc.collect()
+    finally:
+        sys.unraisablehook = hook
+    if failure is not None:
+        raise OutputError(f"{path}: cannot write the file ({failure})")
+    with atomic_path(path) as tmp:
+        tmp.write_bytes(buffer.getvalue())
     return Path(path)

@@ -16,6 +16,7 @@ import xarray as xr
 from mixsolve.io.atomic import check_writable
 from mixsolve.io.figure_io import write_png
 from mixsolve.io.model_store import write_model
+from mixsolve.io.outputs import all_or_nothing
 from mixsolve.io.reference_io import read_reference
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.report.calibration_text import format_calibration
@@ -60,8 +61,9 @@ def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None
         from mixsolve.report.figures import calibration_figure  # deferred: matplotlib
 
         figure = calibration_figure(model)
-    if out is not None:
-        write_model(model, out)
-    if plot is not None and figure is not None:
-        write_png(figure, plot)
+    with all_or_nothing():  # the model and its plot land together or not at all
+        if out is not None:
+            write_model(model, out)
+        if plot is not None and figure is not None:
+            write_png(figure, plot)
     return CalibrationRun(model, format_calibration(model))

@@ -17,6 +17,7 @@ import xarray as xr
 
 from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.library_store import write_library
+from mixsolve.io.outputs import all_or_nothing, guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.io.standards_io import molar_masses_from_sheet, read_standards
@@ -79,6 +80,14 @@ def run_demo(out_dir: str | os.PathLike[str] = "mixsolve-demo") -> DemoRun:
         With ``text``: the library summary, the results beside the known values, and a
         line on how many results lie within 2 standard uncertainties of the truth.
     """
+    top, plate = Path(out_dir), Path(out_dir) / "plate"
+    guard_outputs([top / n for n in ("library.nc", "results.csv", "comparison.csv")]
+                  + [plate / "comparison.csv"], folders=[top, plate])
+    with all_or_nothing():
+        return _run_demo(top)
+
+
+def _run_demo(out_dir: Path) -> DemoRun:
     folder = ensure_folder(out_dir)
     standards = read_spectra(demo_file("standards_spectra.csv"))
     sheet = read_standards(demo_file("standards.csv"))

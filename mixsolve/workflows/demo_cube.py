@@ -23,6 +23,7 @@ import xarray as xr
 
 from mixsolve.errors import InputError
 from mixsolve.io.atomic import ensure_folder
+from mixsolve.io.outputs import guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.library import COMPONENT
 from mixsolve.scale import require_scale
@@ -82,7 +83,10 @@ def run_cube_demo(out_dir: str | os.PathLike[str], pixels: int = 1000,
     require_scale(("dask", "zarr"), "the cube demo needs")
     from mixsolve.reference_spectra_demo.make_demo_cube import concentrations, write_demo_cube
 
-    folder = ensure_folder(Path(out_dir) / "cube")
+    folder = Path(out_dir) / "cube"
+    guard_outputs([folder / "library.nc", folder / "comparison.csv"],
+                  stores=[folder / "cube.zarr", folder / "result.zarr"], folders=[folder])
+    folder = ensure_folder(folder)
     start = time.perf_counter()
     library_path, cube_path = write_demo_cube(folder, int(pixels), int(n_wavelengths))
     written = time.perf_counter()

@@ -21,6 +21,7 @@ from mixsolve.diagnostics.instrument_result import CheckResult
 from mixsolve.diagnostics.stray_light import check_stray_light
 from mixsolve.diagnostics.wavelength_scale import check_wavelength_scale
 from mixsolve.io.log_io import append_log
+from mixsolve.io.outputs import guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.repeat_scans import repeatability
@@ -55,6 +56,7 @@ def run_check(check: str, spectra: PathLike, *, log: PathLike | None = None,
     (CheckResult, str)
         The result and its text (with a last line naming the log when written).
     """
+    guard_outputs([log], inputs=[spectra])  # before any work
     data = read_spectra(spectra)
     result = CHECKS[check](data, **options)
     text = format_check(result, os.path.basename(str(spectra)))
@@ -73,6 +75,7 @@ def run_repeatability(scans: PathLike, *, out: PathLike | None = None
     ``out`` writes the per-wavelength table (wavelength_nm, mean, sd, drift_per_scan,
     u_drift_per_scan, drift_over_run, drift_significant) as CSV.
     """
+    guard_outputs([out], inputs=[scans])  # before any work
     stats = repeatability(read_spectra(scans))
     text = format_repeatability(stats, os.path.basename(str(scans)))
     if out is not None:

@@ -24,7 +24,7 @@ def import_library_file(table: PathLike, unit: str, out: PathLike, *,
     eps = read_absorptivity_table(table)
     lib = import_absorptivities(eps, unit, molar_mass_g_per_mol=molar_mass, solvent=solvent,
                                 bandwidth_nm=bandwidth_nm, source=os.path.basename(table))
-    write_library(lib, out)
+    write_library(lib, out)  # one file, atomic
     return lib
 
 
@@ -42,5 +42,5 @@ def build_library_files(spectra: PathLike, standards: PathLike, out: PathLike | 
                         bandwidth_nm=bandwidth_nm, source=os.path.basename(spectra),
                         sheet_name=os.path.basename(standards))
     if out is not None:
-        write_library(lib, out)
+        write_library(lib, out)  # one file, atomic
     return lib

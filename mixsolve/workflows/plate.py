@@ -9,7 +9,6 @@ export gets its own subfolder of the output folder with ``wells.csv``, ``samples
 from __future__ import annotations
 
 import os
-import re
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -19,9 +18,10 @@ import pandas as pd
 import xarray as xr
 
 from mixsolve.errors import InputError
-from mixsolve.io.atomic import check_folder_writable, ensure_folder
+from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.layout_io import read_layout
 from mixsolve.io.library_store import read_library, write_library
+from mixsolve.io.outputs import all_or_nothing, guard_outputs, unique_names
 from mixsolve.io.plates import read_plate
 from mixsolve.io.results_io import write_table, write_text, write_workbook
 from mixsolve.report.text import CAUTION
@@ -80,15 +80,19 @@ def find_exports(exports: Sequence[PathLike], *, exclude: Sequence[PathLike] = (
     return found
 
 
-def _folder_names(paths: list[Path]) -> list[str]:
-    names: list[str] = []
-    for path in paths:
-        base = re.sub(r"[^\w.-]+", "_", path.stem) or "plate"
-        name, k = base, 2
-        while name in names:
-            name, k = f"{base}-{k}", k + 1
-        names.append(name)
-    return names
+#: Files written for each plate, in its own subfolder (``library.nc`` only when built there).
+PLATE_FILES = ("wells.csv", "samples.csv", "results.xlsx", "report.html")
+#: The combined table at the top of the output folder.
+COMBINED = "samples.csv"
+
+
+def plate_folder_names(paths: Sequence[Path]) -> list[str]:
+    """One safe, unique subfolder name per export, from its file name.
+
+    Never ``.``, ``..``, hidden, or the name of the combined table
+    (:func:`mixsolve.io.outputs.unique_names`).
+    """
+    return unique_names([p.stem for p in paths], fallback="plate", taken=[COMBINED])
 
 
 def run_plates(
@@ -142,10 +146,28 @@ def run_plates(
         As :func:`read_plate`, :func:`read_layout` and :func:`analyse_plate`; nothing is
         written when any plate fails.
     """
-    check_folder_writable(out)  # before any work is done
     library_path = library if isinstance(library, str | os.PathLike) else None
+    guard_outputs(folders=[out])  # before the exports are listed: a clear word on --out
     paths = find_exports(exports, exclude=[layout, *([library_path] if library_path else []),
-                                           Path(out) / "samples.csv"])
+                                           Path(out) / COMBINED])
+    names = plate_folder_names(paths)
+    files = [*PLATE_FILES, *(["library.nc"] if library_from_plate else [])]
+    guard_outputs([Path(out) / COMBINED, *(Path(out) / n / f for n in names for f in files)],
+                  folders=[out, *(Path(out) / n for n in names)],
+                  inputs=[*paths, layout, library_path])  # before any work is done
+    with all_or_nothing():
+        return _run_plates(paths, names, layout, out=Path(out), library=library,
+                           library_path=library_path, library_from_plate=library_from_plate,
+                           sheet=sheet, layout_sheet=layout_sheet, plate_size=plate_size,
+                           progress=progress, **options)
+
+
+def _run_plates(paths: list[Path], names: list[str], layout: PathLike, *, out: Path,
+                library: xr.Dataset | PathLike | None, library_path: PathLike | None,
+                library_from_plate: bool, sheet: str | None, layout_sheet: str | None,
+                plate_size: int | None, progress: Progress | None, **options: Any
+                ) -> PlateBatch:
+    """:func:`run_plates` once its outputs are checked; the caller stages them."""
     plan = read_layout(layout, sheet=layout_sheet)
     lib = read_library(library_path) if library_path is not None else library
     from mixsolve.report.plate_page import plate_page  # deferred: matplotlib is heavy
@@ -161,7 +183,6 @@ def run_plates(
                                 notes=result.notes, title=f"mixsolve plate report: {path.name}"))
         if progress is not None:
             progress(k, len(paths), _summary(result))
-    names = _folder_names(paths)
     combined = pd.concat([p.samples.assign(plate=n) for p, n in zip(plates, names,
                                                                   strict=True)],
                          ignore_index=True)
@@ -170,12 +191,12 @@ def run_plates(
     folders = [ensure_folder(folder / name) for name in names]  # all places first, then files
     for result, page, sub in zip(plates, pages, folders, strict=True):
         _write_plate(sub, result, page, library_from_plate)
-    write_table(combined, folder / "samples.csv")
+    write_table(combined, folder / COMBINED)
     lines = []
     for result, sub in zip(plates, folders, strict=True):
         lines.append(f"{_summary(result)} -> {sub}")
         lines += [f"  note: {note}" for note in result.notes]
-    lines += [f"Wrote {folder / 'samples.csv'}: {combined['sample'].nunique()} samples from "
+    lines += [f"Wrote {folder / COMBINED}: {combined['sample'].nunique()} samples from "
               f"{len(plates)} plate(s).", CAUTION, ""]
     return PlateBatch(plates, folders, combined, folder, "\n".join(lines))
 

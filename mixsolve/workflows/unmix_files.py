@@ -17,11 +17,11 @@ from typing import Any, TextIO
 import numpy as np
 import xarray as xr
 
-from mixsolve.errors import InputError, OutputError
-from mixsolve.io.atomic import check_writable
+from mixsolve.errors import InputError
 from mixsolve.io.cubes import NETCDF_ENGINE, chunk_plan, is_cube_path, read_cube, write_cube
 from mixsolve.io.library_store import read_library
 from mixsolve.io.model_store import file_kind, read_model
+from mixsolve.io.outputs import all_or_nothing, guard_outputs, in_run
 from mixsolve.io.results_io import write_table, write_text
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.library import COMPONENT
@@ -81,6 +81,9 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
     Cubes: ``spectra`` or ``out`` ending in ``.zarr`` or ``.nc``, or a ``scheduler`` or
     ``workers`` given, run :func:`unmix_cube_files` instead (lazy, chunked, on dask).
     """
+    extra = measurement_options(measurement)
+    # Before any work: a bad path costs nothing, and no output may overwrite an input.
+    guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
     if is_cube_path(spectra) or (out is not None and is_cube_path(out)) \
             or scheduler is not None or workers is not None:
         return unmix_cube_files(
@@ -88,10 +91,30 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
             baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, out=out,
             report=report, measurement=measurement, scheduler=scheduler, workers=workers,
             progress=progress, **options)
-    extra = measurement_options(measurement)
-    # Before any work: a bad path costs nothing, and no output may overwrite an input.
-    check_writable(out, report, extra.budget,
-                   inputs=[library, spectra, getattr(extra, "cell_blank", None)])
+    with all_or_nothing():
+        return _unmix_table(library, spectra, extra, window=window, wavelengths=wavelengths,
+                            method=method, baseline=baseline, pathlength_cm=pathlength_cm,
+                            unit=unit, out=out, report=report, **options)
+
+
+def guard_unmix_outputs(library: PathLike, spectra: PathLike, *, out: PathLike | None,
+                        report: PathLike | None, measurement: MeasurementOptions) -> None:
+    """Refuse the outputs of an unmix run that cannot or must not be written (before work).
+
+    A ``.zarr`` output is a store replaced whole; ``out``, ``report`` and the budget CSV
+    are files. Inputs are the library, the spectra, the cell blank and the repeated scans
+    (:func:`mixsolve.io.outputs.guard_outputs`).
+    """
+    store = out if out is not None and Path(out).suffix.lower() == ".zarr" else None
+    guard_outputs([None if store else out, report, measurement.budget], stores=[store],
+                  inputs=[library, spectra, measurement.cell_blank, measurement.repeat_scans])
+
+
+def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions, *,
+                 window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
+                 method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
+                 out: PathLike | None, report: PathLike | None, **options: Any) -> xr.Dataset:
+    """:func:`unmix_files` for a table in memory; the caller guards and stages the outputs."""
     budget_rows = None
     if file_kind(library) == MODEL_KIND:
         if extra.budget is not None:
@@ -190,11 +213,8 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         computed result without the ``fitted`` and ``residual`` spectra.
     """
     _require_scale(spectra, out)
-    if out is not None and any(Path(out).resolve() == Path(p).resolve()
-                               for p in (library, spectra)):
-        raise OutputError(f"{out}: is also an input of this run; writing it would destroy "
-                          "that file, so choose another output name")
     extra = measurement_options(measurement)
+    guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
     for option, value in (("--budget", extra.budget), ("--report", report)):
         if value is not None:
             raise InputError(f"{option}: not available for a cube or a dask run; write the "
@@ -202,6 +222,22 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
     if file_kind(library) == MODEL_KIND:
         raise InputError(f"{os.path.basename(library)}: a PLS model cannot be applied to a "
                          "cube or a dask run yet; unmix the cube with a library")
+    with all_or_nothing():
+        result = _unmix_cube(library, spectra, extra, window=window, wavelengths=wavelengths,
+                             method=method, baseline=baseline, pathlength_cm=pathlength_cm,
+                             unit=unit, out=out, scheduler=scheduler, workers=workers,
+                             progress=progress, **options)
+    if out is not None and is_cube_path(out) and not in_run():
+        return open_result(out)  # the written store, now in place
+    return result
+
+
+def _unmix_cube(library: PathLike, spectra: PathLike, extra: MeasurementOptions, *,
+                window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
+                method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
+                out: PathLike | None, scheduler: str | None, workers: int | None,
+                progress: TextIO | None, **options: Any) -> xr.Dataset:
+    """:func:`unmix_cube_files` once checked; the caller guards and stages the outputs."""
     lib = read_library(library)
     measured = read_cube(spectra) if is_cube_path(spectra) else read_spectra(spectra)
     measured, _ = prepare_spectra(measured, extra)
@@ -215,7 +251,7 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         run = functools.partial(compute, client=client, progress=progress)
         if out is not None and is_cube_path(out):
             write_cube(result, out, compute=run)
-            return open_result(out)
+            return result.drop_vars(["fitted", "residual"])  # opened from the file below
         small = run(result.drop_vars(["fitted", "residual"]))
     if out is not None:
         write_table(results_table(small), out)

@@ -1,0 +1,366 @@
+"""No run may delete, replace or write beside the user's files (docs/errors.md, "Outputs").
+
+Each case drives the command line as a careless user would and asserts that every input
+file is byte-for-byte intact afterwards, and that a refused or failed run left no output
+(and no temporary file). The data are the invented demo files and small invented tables.
+"""
+
+from __future__ import annotations
+
+import errno
+import hashlib
+import os
+import resource
+import shutil
+import stat
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+from helpers_io import WL, band, write_wide
+
+import mixsolve.io.outputs as outputs
+from mixsolve.cli import main
+from mixsolve.errors import OutputError
+from mixsolve.io.outputs import all_or_nothing, guard_outputs, unique_names
+from mixsolve.io.results_io import write_text
+from mixsolve.workflows.demo import demo_file
+
+
+def run(*args: object):
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def snapshot(folder: Path) -> dict[str, str]:
+    """Every file below ``folder`` (relative name → SHA-256), special files by their kind."""
+    out = {}
+    for path in sorted(folder.rglob("*")):
+        rel = str(path.relative_to(folder))
+        mode = os.lstat(path).st_mode
+        if stat.S_ISREG(mode):
+            out[rel] = hashlib.sha256(path.read_bytes()).hexdigest()
+        elif not stat.S_ISDIR(mode):
+            out[rel] = f"special {stat.S_IFMT(mode):o}"
+    return out
+
+
+def assert_refused(result, *needles: str) -> None:
+    """Exit 2, exactly one ``error:`` line holding each needle, no traceback (progress
+    lines of a plate batch may come before it)."""
+    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
+    assert "Traceback" not in result.output
+    lines = [ln for ln in result.stderr.splitlines() if ln.startswith("error")]
+    assert len(lines) == 1 and lines[0].startswith("error: "), result.stderr
+    for needle in needles:
+        assert needle in lines[0], (needle, lines[0])
+
+
+@pytest.fixture(scope="module")
+def library(tmp_path_factory) -> Path:
+    """The demo library, built once from the (invented) demo standards."""
+    path = tmp_path_factory.mktemp("lib") / "library.nc"
+    result = run("library", "build", demo_file("standards_spectra.csv"), "--standards",
+                 demo_file("standards.csv"), "--out", path)
+    assert result.exit_code == 0, result.output
+    return path
+
+
+@pytest.fixture
+def cuvette(tmp_path: Path) -> dict[str, Path]:
+    """A two-band library file and spectra in tmp_path, plus an unrelated notes file."""
+    eps = write_wide(tmp_path / "eps.csv", {n: band(n) for n in ("red", "blue")})
+    lib = tmp_path / "lib.nc"
+    assert run("library", "import", eps, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    spectra = write_wide(tmp_path / "mix.csv",
+                         {"s1": 2e-5 * band("red") + 3e-5 * band("blue"),
+                          "s2": 1e-5 * band("red") + 2e-5 * band("blue")})
+    notes = tmp_path / "notes.txt"
+    notes.write_text("my lab notes\n")
+    return {"dir": tmp_path, "lib": lib, "spectra": spectra, "notes": notes, "eps": eps}
+
+
+@pytest.fixture
+def plate_dir(tmp_path: Path, library: Path) -> dict[str, Path]:
+    """A folder with the demo plate export, its layout and a copy of the library."""
+    folder = tmp_path / "plates"
+    folder.mkdir()
+    shutil.copy(demo_file("plate_export.csv"), folder / "run.csv")
+    shutil.copy(demo_file("plate_layout.csv"), folder / "samples.csv")
+    shutil.copy(library, folder / "lib.nc")
+    return {"dir": folder, "export": folder / "run.csv", "layout": folder / "samples.csv",
+            "lib": folder / "lib.nc"}
+
+
+# --- 1. one output guard -------------------------------------------------------------
+
+
+def test_zarr_out_over_a_folder_of_inputs_and_notes_is_refused(cuvette):
+    """`unmix LIB SPECTRA --out X.zarr`, X.zarr a folder holding the inputs and notes:
+    refused (it used to replace the whole folder); everything stays."""
+    store = cuvette["dir"] / "X.zarr"
+    store.mkdir()
+    for key in ("lib", "spectra", "notes"):
+        shutil.copy(cuvette[key], store / cuvette[key].name)
+    before = snapshot(cuvette["dir"])
+    result = run("unmix", store / "lib.nc", store / "mix.csv", "--out", store)
+    assert_refused(result, "X.zarr", "choose")
+    assert snapshot(cuvette["dir"]) == before
+
+
+def test_zarr_out_over_a_folder_of_other_files_is_refused(cuvette):
+    """A folder that is not a Zarr store is never replaced, even without inputs in it."""
+    pytest.importorskip("zarr")
+    store = cuvette["dir"] / "Y.zarr"
+    store.mkdir()
+    (store / "keep.txt").write_text("not mine\n")
+    before = snapshot(cuvette["dir"])
+    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", store)
+    assert_refused(result, "Y.zarr", "'keep.txt'", "not part of a Zarr store")
+    assert snapshot(cuvette["dir"]) == before
+
+
+def test_zarr_out_replaces_an_earlier_result_store(cuvette):
+    """An earlier result store is a store: a second run replaces it (rc 0), nothing else."""
+    pytest.importorskip("zarr")
+    store = cuvette["dir"] / "result.zarr"
+    for _ in range(2):
+        result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", store)
+        assert result.exit_code == 0, result.output
+    assert (store / "zarr.json").exists()
+    assert not [p for p in cuvette["dir"].iterdir() if p.name.startswith(".")]
+
+
+@pytest.mark.parametrize("stem", ["..", ".", "...", "samples.csv", "", "a/b"])
+def test_plate_subfolder_names_stay_inside_out(stem):
+    """Export stems such as '..' or 'samples.csv' give safe, unique names inside --out."""
+    names = unique_names([stem, stem], fallback="plate", taken=["samples.csv"])
+    for name in names:
+        assert name not in {"", ".", ".."} and "/" not in name and not name.startswith(".")
+        assert name.casefold() != "samples.csv"
+    assert names[0] != names[1]
+
+
+@pytest.mark.parametrize("name", ["...csv", "..csv", "samples.csv.csv"])
+def test_plate_export_with_a_dotted_name_writes_inside_its_subfolder(plate_dir, tmp_path,
+                                                                     name):
+    """An export named '..csv', '...csv' or 'samples.csv.csv': rc 0; the layout beside
+    --out is untouched and every output lies in a subfolder of --out."""
+    export = plate_dir["dir"] / name
+    plate_dir["export"].rename(export)
+    out = plate_dir["dir"] / "out"
+    before = snapshot(plate_dir["dir"])
+    result = run("plate", export, "--layout", plate_dir["layout"], "--library",
+                 plate_dir["lib"], "--out", out)
+    assert result.exit_code == 0, result.output
+    after = snapshot(plate_dir["dir"])
+    assert {k: v for k, v in after.items() if not k.startswith("out/")} == before
+    subfolders = [p for p in out.iterdir() if p.is_dir()]
+    assert len(subfolders) == 1 and not subfolders[0].name.startswith(".")
+    assert (subfolders[0] / "wells.csv").exists() and (out / "samples.csv").is_file()
+
+
+def test_plate_out_holding_the_layout_is_refused(plate_dir):
+    """`plate RUN.csv --layout DIR/samples.csv --out DIR`: the combined table would replace
+    the layout; refused before any work, nothing written."""
+    before = snapshot(plate_dir["dir"])
+    result = run("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
+                 plate_dir["lib"], "--out", plate_dir["dir"])
+    assert_refused(result, "samples.csv", "is also an input")
+    assert snapshot(plate_dir["dir"]) == before
+
+
+@pytest.mark.parametrize("case", ["repeatability", "budget", "out", "cell_blank_workers"])
+def test_an_input_named_as_an_output_is_refused(cuvette, case):
+    """The input is never replaced: repeatability --out, --repeat-scans with --budget or
+    --out the same file, --cell-blank as --out with --workers."""
+    d = cuvette
+    scans = write_wide(d["dir"] / "scans.csv",
+                       {f"scan{i}": 0.5 + 1e-3 * i + 0 * WL for i in range(4)})
+    blank = write_wide(d["dir"] / "blank.csv", {"blank": 1e-3 + 0 * WL})
+    args = {
+        "repeatability": ["instrument", "repeatability", scans, "--out", scans],
+        "budget": ["unmix", d["lib"], d["spectra"], "--repeat-scans", scans, "--budget", scans],
+        "out": ["unmix", d["lib"], d["spectra"], "--repeat-scans", scans, "--budget",
+                d["dir"] / "b.csv", "--out", scans],
+        "cell_blank_workers": ["unmix", d["lib"], d["spectra"], "--cell-blank", blank,
+                               "--out", blank, "--workers", "1"],
+    }[case]
+    before = snapshot(d["dir"])
+    result = run(*args)
+    assert_refused(result, "is also an input")
+    assert snapshot(d["dir"]) == before
+
+
+def test_out_inside_an_input_folder_of_exports_is_fine_but_not_over_an_export(plate_dir):
+    """A results file may not be one of the exports taken from a folder."""
+    before = snapshot(plate_dir["dir"])
+    result = run("unmix", plate_dir["lib"], demo_file("batches_spectra.csv"), "--out",
+                 plate_dir["lib"])
+    assert_refused(result, "lib.nc", "is also an input")
+    assert snapshot(plate_dir["dir"]) == before
+
+
+def test_out_through_a_link_to_an_input_is_refused(cuvette):
+    """Real paths are compared: a symbolic link to the spectra is the spectra."""
+    link = cuvette["dir"] / "link.csv"
+    link.symlink_to(cuvette["spectra"])
+    before = snapshot(cuvette["dir"])
+    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", link)
+    assert_refused(result, "is also an input")
+    assert snapshot(cuvette["dir"]) == before
+
+
+def test_out_naming_a_fifo_is_refused(cuvette):
+    """A FIFO (named pipe) given as --out stays a FIFO; nothing is written."""
+    fifo = cuvette["dir"] / "pipe.csv"
+    os.mkfifo(fifo)
+    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", fifo)
+    assert_refused(result, "a FIFO")
+    assert stat.S_ISFIFO(os.lstat(fifo).st_mode)
+
+
+def test_out_naming_a_device_is_refused(cuvette):
+    """A device node (made here, as /dev/null's twin) is never replaced by a file."""
+    device = cuvette["dir"] / "null"
+    try:
+        os.mknod(device, 0o600 | stat.S_IFCHR, os.makedev(1, 3))
+    except (PermissionError, OSError) as exc:
+        pytest.skip(f"cannot make a device node here ({exc})")
+    for args in (["unmix", cuvette["lib"], cuvette["spectra"], "--report", device],
+                 ["library", "import", cuvette["eps"], "--unit", "L/(mol*cm)", "--out",
+                  device]):
+        result = run(*args)
+        assert_refused(result, "character device")
+        assert stat.S_ISCHR(os.lstat(device).st_mode)
+
+
+def test_two_outputs_of_one_run_collide(cuvette):
+    """--out and --report naming one file is refused before any work."""
+    target = cuvette["dir"] / "both.html"
+    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", target,
+                 "--report", target)
+    assert_refused(result, "collides")
+    assert not target.exists()
+
+
+def test_guard_api_refuses_a_store_that_holds_an_input(tmp_path):
+    """Python API: a store output that contains an input would replace it."""
+    (tmp_path / "in").mkdir()
+    spectra = tmp_path / "in" / "s.csv"
+    spectra.write_text("x\n")
+    with pytest.raises(OutputError, match=r"in: would replace the folder holding .*s\.csv"):
+        guard_outputs(stores=[tmp_path / "in"], inputs=[spectra])
+
+
+# --- 2. all or nothing ------------------------------------------------------------------
+
+
+def test_failure_in_a_later_write_leaves_earlier_outputs_as_they_were(tmp_path):
+    """Staged files move into place only when the run succeeds; a failure removes them
+    and the folders the run made, and earlier files keep their content."""
+    old = tmp_path / "a.txt"
+    old.write_text("old\n")
+    with pytest.raises(RuntimeError), all_or_nothing():
+        write_text("new\n", old)
+        outputs.make_folder(tmp_path / "sub" / "deeper")
+        write_text("b\n", tmp_path / "sub" / "deeper" / "b.txt")
+        assert old.read_text() == "old\n"  # staged, not yet in place
+        raise RuntimeError("a later plate failed")
+    assert old.read_text() == "old\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.txt"]
+
+
+def test_a_failed_move_puts_the_previous_versions_back(tmp_path, monkeypatch):
+    """If moving the second staged file fails, the first is put back as it was."""
+    first, second = tmp_path / "1.txt", tmp_path / "2.txt"
+    first.write_text("old 1\n")
+    second.write_text("old 2\n")
+    real_replace = os.replace
+    calls = {"n": 0}
+
+    def flaky(src, dst):
+        if Path(dst) == second and str(src).endswith(".part"):
+            raise OSError(errno.ENOSPC, "No space left on device")
+        calls["n"] += 1
+        return real_replace(src, dst)
+
+    monkeypatch.setattr(outputs.os, "replace", flaky)
+    with pytest.raises(OutputError, match=r"nothing was changed"), all_or_nothing():
+        write_text("new 1\n", first)
+        write_text("new 2\n", second)
+    assert first.read_text() == "old 1\n" and second.read_text() == "old 2\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["1.txt", "2.txt"]
+
+
+def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch):
+    """A plate run whose workbook write fails (disk full) exits 2 and leaves no output;
+    an earlier result in --out stays as it was."""
+    out = plate_dir["dir"] / "out"
+    out.mkdir()
+    (out / "samples.csv").write_text("an earlier result\n")
+    before = snapshot(plate_dir["dir"])
+
+    real_write = Path.write_bytes
+
+    def full(self, data):
+        if self.name.endswith(".part"):  # the workbook, the only file written as bytes
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real_write(self, data)
+
+    monkeypatch.setattr(Path, "write_bytes", full)
+    result = run("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
+                 plate_dir["lib"], "--out", out)
+    assert_refused(result, "No space left")
+    assert snapshot(plate_dir["dir"]) == before
+    assert sorted(p.name for p in out.iterdir()) == ["samples.csv"]
+
+
+@pytest.mark.skipif(sys.platform == "win32", reason="POSIX file-size limit")
+def test_file_size_limit_in_a_real_process_leaves_nothing(plate_dir, library):
+    """`ulimit -f` in a real process: the HTML report does not fit; exit 2, one line, the
+    folder holds what it held before (a real write failure, not a mock)."""
+    out = plate_dir["dir"] / "out"
+    before = snapshot(plate_dir["dir"])
+
+    def limit() -> None:
+        resource.setrlimit(resource.RLIMIT_FSIZE, (64 * 1024, 64 * 1024))
+
+    proc = subprocess.run(
+        [sys.executable, "-c", "from mixsolve.cli import main; main()", "plate",
+         str(plate_dir["export"]), "--layout", str(plate_dir["layout"]), "--library",
+         str(plate_dir["lib"]), "--out", str(out)],
+        capture_output=True, text=True, preexec_fn=limit, timeout=300)
+    assert proc.returncode == 2, proc.stderr
+    lines = [ln for ln in proc.stderr.splitlines() if ln.startswith("error")]
+    assert len(lines) == 1 and lines[0].startswith("error: ") and "Traceback" not in proc.stderr
+    assert snapshot(plate_dir["dir"]) == before
+    assert not out.exists()
+
+
+def test_ctrl_c_exits_130_with_one_line_and_changes_nothing(cuvette, monkeypatch):
+    """Ctrl-C while the report is written: exit 130, one line, the earlier results file
+    keeps its content and no new file appears."""
+    import mixsolve.io.results_io as results_io
+
+    results = cuvette["dir"] / "results.csv"
+    results.write_text("an earlier result\n")
+    before = snapshot(cuvette["dir"])
+    real = results_io.write_text
+
+    def interrupted(text, path):
+        if str(path).endswith(".html"):
+            raise KeyboardInterrupt
+        return real(text, path)
+
+    monkeypatch.setattr(results_io, "write_text", interrupted)
+    import mixsolve.workflows.unmix_files as unmix_files
+
+    monkeypatch.setattr(unmix_files, "write_text", interrupted)
+    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", results,
+                 "--report", cuvette["dir"] / "page.html")
+    assert result.exit_code == 130, (result.output, result.exception)
+    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+    assert lines == ["error: interrupted (Ctrl-C); this run changed no file"]
+    assert snapshot(cuvette["dir"]) == before
