@@ -66,6 +66,14 @@ def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
     return wrapper
 
 
+def _finite(values: list[float], option: str, text: str) -> list[float]:
+    """``values`` parsed from ``text``, refused when one is NaN or infinite."""
+    for value in values:
+        if value != value or value in (float("inf"), float("-inf")):
+            raise InputError(f"{option}: {value:g} in {text!r} is not a finite number")
+    return values
+
+
 def parse_window(text: str | None, option: str = "--window") -> tuple[float, float] | None:
     """Parse ``"400-700"`` (nm) into a pair; both ends are included in the fit."""
     if text is None:
@@ -75,6 +83,7 @@ def parse_window(text: str | None, option: str = "--window") -> tuple[float, flo
         low, high = (float(p) for p in parts)
     except ValueError:
         raise InputError(f"{option}: {text!r} is not LOW-HIGH, e.g. 400-700") from None
+    low, high = _finite([low, high], option, text)
     return low, high
 
 
@@ -83,10 +92,11 @@ def parse_wavelengths(text: str | None, option: str = "--wavelengths") -> list[f
     if text is None:
         return None
     try:
-        return [float(p) for p in text.split(",") if p.strip()]
+        values = [float(p) for p in text.split(",") if p.strip()]
     except ValueError:
         raise InputError(f"{option}: {text!r} is not a comma-separated list of nm, "
                          "e.g. 663.6,646.6") from None
+    return _finite(values, option, text)
 
 
 def parse_noise(text: str | None) -> str | float | None:
@@ -94,9 +104,10 @@ def parse_noise(text: str | None) -> str | float | None:
     if text is None:
         return None
     try:
-        return float(text)
+        value = float(text)
     except ValueError:
         return text
+    return _finite([value], "--noise", text)[0]
 
 
 def parse_molar_masses(text: str | None) -> dict[str, float] | None:
@@ -112,6 +123,7 @@ def parse_molar_masses(text: str | None) -> dict[str, float] | None:
             out[name.strip()] = float(value)
         except ValueError:
             raise InputError(f"--molar-mass: {item!r} is not NAME=G_PER_MOL") from None
+        _finite([out[name.strip()]], "--molar-mass", item)
     return out
 
 
@@ -531,9 +543,10 @@ def parse_numbers(text: str | None, option: str) -> list[float] | None:
     if text is None:
         return None
     try:
-        return [float(p) for p in text.split(",") if p.strip()]
+        values = [float(p) for p in text.split(",") if p.strip()]
     except ValueError:
         raise InputError(f"{option}: {text!r} is not a comma-separated list of numbers") from None
+    return _finite(values, option, text)
 
 
 @main.group()

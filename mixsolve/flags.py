@@ -13,6 +13,7 @@ BELOW_RANGE = 32  # peak absorbance below the reliable range
 LACK_OF_FIT = 64  # residual larger than the noise model allows
 STRUCTURED = 128  # residual has shape (runs test), not noise
 ILL_CONDITIONED = 256  # the wavelength set amplifies noise > 1000-fold (condition number)
+NO_SIGNAL = 512  # every used reading is exactly zero: nothing was measured
 
 STATUS_CODES: dict[int, str] = {
     NO_DOF: "no_dof",
@@ -24,6 +25,7 @@ STATUS_CODES: dict[int, str] = {
     LACK_OF_FIT: "lack_of_fit",
     STRUCTURED: "structured_residual",
     ILL_CONDITIONED: "ill_conditioned",
+    NO_SIGNAL: "no_signal",
 }
 
 #: A component is flagged shift-sensitive when a wavelength error of the stated tolerance

@@ -28,6 +28,7 @@ import xarray as xr
 
 from mixsolve._version import __version__
 from mixsolve.errors import InputError, LinearityWarning
+from mixsolve.names import check_spellings, check_unique_names, normalise_name
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
 from mixsolve.units import (
     ABSORPTIVITY_UNITS,
@@ -48,7 +49,8 @@ DEFAULT_MIN_LEVELS = 3
 
 def _molar_masses(components: list[str], molar_mass: Mapping[str, float] | None) -> np.ndarray:
     masses = np.full(len(components), np.nan)
-    for name, value in (molar_mass or {}).items():
+    for given, value in (molar_mass or {}).items():
+        name = normalise_name(given)
         if name not in components:
             raise InputError(
                 f"molar mass given for {name!r}, which is not a component "
@@ -227,10 +229,36 @@ def check_library(library: Any, name: str = "library") -> xr.Dataset:
         )
     if library.sizes.get(COMPONENT, 0) == 0:
         raise InputError(f"{name}: the library has no components")
+    library = _check_component_names(library, name)
+    _check_molar_masses(library, name)
     check_spectra(library["absorptivity"], name)
     if np.any(np.diff(library[WAVELENGTH].values) < 0):
         library = library.sortby(WAVELENGTH)  # resampling and range checks need ascending λ
     return library
+
+
+def _check_component_names(library: xr.Dataset, name: str) -> xr.Dataset:
+    """The library with its component names in normal form; refuses two names a person
+    would read as one (:func:`mixsolve.names.check_unique_names`), exact repeats included."""
+    if COMPONENT not in library.coords:
+        return library
+    given = [str(c) for c in library[COMPONENT].values]
+    normal = check_unique_names(given, f"{name}, components")
+    return library if normal == given else library.assign_coords({COMPONENT: normal})
+
+
+def _check_molar_masses(library: xr.Dataset, name: str) -> None:
+    """Refuse a stated molar mass that is not a positive finite number (NaN: unknown)."""
+    if "molar_mass_g_per_mol" not in library:
+        return
+    masses = np.asarray(library["molar_mass_g_per_mol"].values, dtype=float).ravel()
+    bad = np.flatnonzero(~np.isnan(masses) & ~(np.isfinite(masses) & (masses > 0)))
+    if bad.size:
+        comps = [str(c) for c in library[COMPONENT].values] \
+            if masses.size == library.sizes[COMPONENT] else []
+        who = f"of {comps[bad[0]]!r} " if comps else ""
+        raise InputError(f"{name}: molar mass {who}is {masses[bad[0]]:g} g/mol; a molar mass "
+                         "must be a positive number (or NaN when unknown)")
 
 
 def build_library(
@@ -442,8 +470,9 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
         table["line"] = np.arange(len(table)) + 2
     if "pathlength_cm" not in table.columns:
         table["pathlength_cm"] = np.nan
-    table["sample"] = table["sample"].astype(str).str.strip()
-    table["component"] = table["component"].astype(str).str.strip()
+    table["sample"] = check_spellings(table["sample"].astype(str), f"{name}, samples")
+    table["component"] = check_spellings(table["component"].astype(str),
+                                         f"{name}, components")
     known = set(map(str, spectra[SAMPLE].values))
     canon, bases = [], []
     for row in table.itertuples(index=False):

@@ -14,6 +14,7 @@ import numpy as np
 import xarray as xr
 
 from mixsolve.errors import InputError
+from mixsolve.names import check_unique_names
 
 WAVELENGTH = "wavelength"
 SAMPLE = "sample"
@@ -84,11 +85,18 @@ def check_spectra(spectra: xr.DataArray, name: str = "spectra", *,
         values this check never scanned, with this message when the chunk is computed),
         so the data are not read one more time.
 
+    Returns
+    -------
+    DataArray
+        Wavelengths ascending; the text labels of every other dimension (sample or
+        component names) in their normal form (:func:`mixsolve.names.normalise_name`).
+
     Raises
     ------
     InputError
         Not a DataArray, no ``wavelength`` dimension, duplicate or non-finite wavelengths,
-        or infinite absorbance values.
+        infinite absorbance values, or labels that are empty or differ only in case,
+        spacing or Unicode form (:func:`mixsolve.names.check_unique_names`).
     """
     if not isinstance(spectra, xr.DataArray):
         raise InputError(
@@ -109,13 +117,27 @@ def check_spectra(spectra: xr.DataArray, name: str = "spectra", *,
     if np.unique(wl).size != wl.size:
         values, counts = np.unique(wl, return_counts=True)
         raise InputError(f"{name}: wavelength {values[counts > 1][0]:g} nm appears twice")
-    out = spectra.assign_coords({WAVELENGTH: wl})
+    out = _normal_labels(spectra.assign_coords({WAVELENGTH: wl}), name)
     if np.any(np.diff(wl) < 0):
         out = out.sortby(WAVELENGTH)
     if scan_values and not _is_dask(out) and np.isinf(out.values).any():
         raise InputError(
             f"{name}: absorbance values include infinity; use NaN for a missing reading")
     return out
+
+
+def _normal_labels(da: xr.DataArray, name: str) -> xr.DataArray:
+    """Text labels of every dimension but wavelength in normal form, checked unique."""
+    for dim in da.dims:
+        if dim == WAVELENGTH or dim not in da.coords or da[dim].dtype.kind not in "UO":
+            continue
+        labels = da[dim].values.tolist()
+        if da[dim].dtype.kind == "O" and not all(isinstance(v, str) for v in labels):
+            continue
+        normal = check_unique_names(labels, f"{name}, {dim}s")
+        if normal != labels:
+            da = da.assign_coords({dim: normal})
+    return da
 
 
 def _is_dask(da: xr.DataArray) -> bool:
@@ -133,6 +155,60 @@ def check_window(window: Any, name: str = "window") -> tuple[float, float] | Non
     if not (np.isfinite(low) and np.isfinite(high)) or low >= high:
         raise InputError(f"{name}: {low:g}-{high:g} nm is not an increasing pair of wavelengths")
     return low, high
+
+
+def check_number(value: Any, name: str, unit: str = "", *, positive: bool = False) -> float:
+    """A finite number given as an option, as float.
+
+    Parameters
+    ----------
+    value : Any
+        The option's value.
+    name : str
+        The option, for the message.
+    unit : str
+        Its unit, for the message (``"nm"``, ``"AU"``); empty for none.
+    positive : bool
+        Refuse zero and negative numbers too.
+
+    Raises
+    ------
+    InputError
+        Not a number, NaN or infinite ("bandwidth_nm: nan nm is not a finite number"), or
+        not above zero when ``positive``.
+    """
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: {value!r} is not a number") from None
+    shown = f"{number:g}{' ' + unit if unit else ''}"
+    if not np.isfinite(number):
+        raise InputError(f"{name}: {shown} is not a finite number")
+    if positive and number <= 0:
+        raise InputError(f"{name}: {shown} is not a positive number")
+    return number
+
+
+def check_wavelength_list(wavelengths: Any, name: str = "wavelengths") -> np.ndarray:
+    """A list of wavelengths (nm) given as an option, as a float array in the given order.
+
+    Raises
+    ------
+    InputError
+        An empty list, or a wavelength that is not a number, not finite or not positive
+        (``450, nan, 620`` is refused: NaN matches no measured wavelength).
+    """
+    try:
+        values = np.asarray(list(wavelengths), dtype=float).ravel()
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: {wavelengths!r} is not a list of wavelengths in nm") \
+            from None
+    if values.size == 0:
+        raise InputError(f"{name}: the list is empty")
+    bad = values[~np.isfinite(values) | (values <= 0)]
+    if bad.size:
+        raise InputError(f"{name}: {bad[0]:g} nm is not a positive finite wavelength")
+    return values
 
 
 def check_option(value: str, allowed: Sequence[str], name: str) -> str:

@@ -32,6 +32,7 @@ from mixsolve.diagnostics.instrument_result import (
     scans_of,
 )
 from mixsolve.errors import InputError
+from mixsolve.spectra import check_number
 
 #: Wavelength (nm) → (nominal A(1 %, 1 cm), low, high). **Seen** (CHECKS.md); a newer
 #: edition may give 106.6 at 350 nm (from memory).
@@ -88,6 +89,8 @@ def check_absorbance_scale(
         Concentrations not positive or not one per spectrum, a bad tolerance or
         pathlength, a check wavelength not measured.
     """
+    if bandwidth_nm is not None:  # recorded in the log: a number or nothing
+        bandwidth_nm = check_number(bandwidth_nm, "bandwidth", "nm", positive=True)
     labels, wl, values = scans_of(spectra, "dichromate spectra")
     conc = np.atleast_1d(np.asarray(concentration_mg_l, dtype=float))
     if conc.size == 1:

@@ -16,8 +16,9 @@ from mixsolve.diagnostics.merit import (
 from mixsolve.diagnostics.shift import library_derivative, shift_matrix
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.names import normalise_name
 from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
-from mixsolve.spectra import WAVELENGTH, check_option, check_window
+from mixsolve.spectra import WAVELENGTH, check_option, check_wavelength_list, check_window
 
 #: σ_A (AU) assumed when none is given: a typical benchtop reading noise (common practice).
 DEFAULT_SIGMA_A = 0.001
@@ -38,9 +39,7 @@ def candidate_wavelengths(library: xr.Dataset, *, window: tuple[float, float] | 
     if window is not None and wavelengths is not None:
         raise InputError("give either a window or a list of wavelengths, not both")
     if wavelengths is not None:
-        chosen = np.sort(np.asarray(list(wavelengths), dtype=float))
-        if chosen.size == 0:
-            raise InputError("wavelengths: the list is empty")
+        chosen = np.sort(check_wavelength_list(wavelengths))
         outside = chosen[(chosen < grid[0]) | (chosen > grid[-1])]
         if outside.size:
             raise InputError(f"wavelengths: {outside[0]:g} nm is outside the library "
@@ -111,6 +110,7 @@ def check_wavelengths(
     if not np.isfinite(sigma) or sigma <= 0:
         raise InputError(f"noise: σ_A = {sigma:g} AU must be a positive number")
     if components is not None:
+        components = [normalise_name(c) for c in components]  # as the library's names
         names = [str(c) for c in library[COMPONENT].values]
         unknown = [c for c in components if c not in names]
         if unknown:

@@ -31,7 +31,13 @@ from mixsolve.diagnostics.check import DEFAULT_SIGMA_A, _figures, candidate_wave
 from mixsolve.diagnostics.merit import scaled_condition_number
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
-from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
+from mixsolve.solve.design import (
+    BASELINE_TERMS,
+    BASELINES,
+    MAX_CONDITION_NUMBER,
+    Baseline,
+    design_matrix,
+)
 from mixsolve.spectra import WAVELENGTH, check_option
 
 #: Documented margin for the demo acceptance: at equal measuring time the chosen set's
@@ -73,16 +79,32 @@ class WavelengthChoice:
 
 
 def _variances(design: np.ndarray, n: int, ridge: float = 0.0) -> np.ndarray:
-    if not ridge and design.shape[0] < design.shape[1]:
-        # fewer wavelengths than unknowns: the variance is unbounded, whatever inv returns
-        return np.full(n, np.inf)
-    gram = design.T @ design
+    """Diagonal of (DᵀD)⁻¹ (or of (DᵀD + λI)⁻¹ with a ridge) for the first ``n`` terms.
+
+    Computed from the singular value decomposition of D, never by inverting DᵀD: a set
+    whose D has a zero column, fewer rows than columns or a scaled condition number above
+    ``MAX_CONDITION_NUMBER`` (what ``unmix`` refuses as numerically rank deficient) gets
+    infinite variances. With a ridge, λ = ridge·trace(DᵀD)/p keeps them finite.
+    """
+    p = design.shape[1]
+    norms = np.linalg.norm(design, axis=0)
     if ridge:
-        gram = gram + ridge * np.trace(gram) / gram.shape[0] * np.eye(gram.shape[0])
-    try:
-        return np.diag(np.linalg.inv(gram))[:n]
-    except np.linalg.LinAlgError:
+        # DᵀD = V diag(s²) V^T with s padded by zeros when D has fewer rows than columns
+        _, sv, vt = np.linalg.svd(design, full_matrices=True)
+        eig = np.zeros(p)
+        eig[:sv.size] = sv[:p] ** 2
+        lam = ridge * float(np.sum(norms**2)) / p
+        if not lam > 0:  # every reading zero: nothing to keep defined
+            return np.full(n, np.inf)
+        return (vt.T**2 @ (1.0 / (eig + lam)))[:n]
+    if design.shape[0] < p or np.any(norms == 0) or not np.all(np.isfinite(design)):
         return np.full(n, np.inf)
+    # Columns scaled to unit length: the condition number and the variances are then
+    # free of the components' units; D = S·diag(norms), so (DᵀD)⁻¹ₖₖ = (SᵀS)⁻¹ₖₖ / normₖ².
+    _, sv, vt = np.linalg.svd(design / norms, full_matrices=False)
+    if sv[-1] <= sv[0] / MAX_CONDITION_NUMBER:
+        return np.full(n, np.inf)
+    return ((vt.T**2 @ (1.0 / sv**2)) / norms**2)[:n]
 
 
 def choose_wavelengths(
@@ -153,6 +175,13 @@ def choose_wavelengths(
     else:
         chosen = _greedy_exchange(crit, candidates.size, count, p)
     value = crit(chosen)
+    if not np.isfinite(value):
+        how = "contiguous run of " if contiguous else "set of "
+        raise InputError(
+            f"--count {count}: no {how}{count} candidate wavelengths separates the components "
+            f"(every one tried is singular, scaled condition number above "
+            f"{MAX_CONDITION_NUMBER:.0e}); choose more wavelengths, widen the window"
+            + (" or drop --contiguous" if contiguous else ""))
     chosen_nm = candidates[np.sort(chosen)]
     sigma = float(noise)
     user = user_value = None

@@ -21,6 +21,7 @@ from mixsolve.diagnostics.instrument_result import (
     scans_of,
 )
 from mixsolve.errors import InputError
+from mixsolve.spectra import check_number
 
 #: **Seen** (CHECKS.md): 12 g/L KCl, A at 200 nm above 2.0.
 KCL_WAVELENGTH_NM = 200.0
@@ -60,6 +61,8 @@ def check_stray_light(spectra: xr.DataArray, *, wavelength_nm: float = KCL_WAVEL
     InputError
         A bad limit or wavelength, or no reading near ``wavelength_nm``.
     """
+    if bandwidth_nm is not None:  # recorded in the log: a number or nothing
+        bandwidth_nm = check_number(bandwidth_nm, "bandwidth", "nm", positive=True)
     if not (np.isfinite(limit_au) and limit_au > 0):
         raise InputError(f"limit: {limit_au!r} AU must be a positive number")
     if not (np.isfinite(wavelength_nm) and wavelength_nm > 0):

@@ -22,7 +22,7 @@ from mixsolve.diagnostics.sample_checks import (
     lack_of_fit,
 )
 from mixsolve.diagnostics.shift import library_derivative, shift_matrix
-from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, STRUCTURED
+from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, NO_SIGNAL, STRUCTURED
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.residuals import ResidualSummary, model_blocks
@@ -143,14 +143,18 @@ def trust_status(checks: tuple[np.ndarray, ...], rms: np.ndarray, n_used: int,
     Returns
     -------
     array of int64
-        ``ABOVE_RANGE``/``BELOW_RANGE`` (A_max outside the range), ``STRUCTURED`` (runs-test
-        p < ``FLAG_P_VALUE``, or lag-1 z = r₁√n > ``LAG1_Z_LIMIT`` with n ≥
-        ``MIN_POINTS_RUNS``), ``LACK_OF_FIT`` (p < ``FLAG_P_VALUE``). NaN figures set none.
+        ``ABOVE_RANGE``/``BELOW_RANGE`` (A_max outside the range), ``NO_SIGNAL`` (every
+        used reading exactly 0 AU, A_max = A_min = 0, instead of ``BELOW_RANGE``),
+        ``STRUCTURED`` (runs-test p < ``FLAG_P_VALUE``, or lag-1 z = r₁√n >
+        ``LAG1_Z_LIMIT`` with n ≥ ``MIN_POINTS_RUNS``), ``LACK_OF_FIT`` (p <
+        ``FLAG_P_VALUE``). NaN figures set none.
     """
-    a_max, _, _, runs_p, lag1, _, lack_p = checks
+    a_max, a_min, _, runs_p, lag1, _, lack_p = checks
     low, high = absorbance_range
     with np.errstate(invalid="ignore"):
-        status = np.where(a_max > high, ABOVE_RANGE, 0) | np.where(a_max < low, BELOW_RANGE, 0)
+        silent = (a_max == 0) & (a_min == 0)  # -0.0 included; NaN (no reading) is not
+        status = np.where(a_max > high, ABOVE_RANGE, 0) | np.where(
+            (a_max < low) & ~silent, BELOW_RANGE, 0) | np.where(silent, NO_SIGNAL, 0)
         shaped = (runs_p < FLAG_P_VALUE) | (
             (lag1 * np.sqrt(n_used) > LAG1_Z_LIMIT) & (n_used >= MIN_POINTS_RUNS))
         status |= np.where(shaped & (rms > NUMERICAL_ZERO_AU), STRUCTURED, 0)

@@ -33,7 +33,7 @@ from scipy.optimize import curve_fit
 
 from mixsolve.diagnostics.instrument_result import CheckResult, items_frame, scans_of
 from mixsolve.errors import InputError
-from mixsolve.spectra import check_option
+from mixsolve.spectra import check_number, check_option, check_wavelength_list
 
 #: Certified band positions (nm) checked by default. **Seen** (CHECKS.md, Ph. Eur. 2.2.25).
 HOLMIUM_BANDS_NM: tuple[float, ...] = (241.15, 287.15, 361.5, 536.3)
@@ -161,6 +161,9 @@ def check_wavelength_scale(
         raise InputError(f"search window: {search_nm!r} nm must be a positive number")
     if not (np.isfinite(reference_u_nm) and reference_u_nm >= 0):
         raise InputError(f"reference uncertainty: {reference_u_nm!r} nm must be a number ≥ 0")
+    if bandwidth_nm is not None:  # recorded in the log: a number or nothing
+        bandwidth_nm = check_number(bandwidth_nm, "bandwidth", "nm", positive=True)
+    bands_nm = check_wavelength_list(bands_nm, "bands")
     labels, wl, values = scans_of(spectra, "holmium spectrum")
     mean = np.nanmean(values, axis=0) if len(labels) > 1 else values[0]
     inside = [b for b in bands_nm if wl[0] < b < wl[-1]]

@@ -15,6 +15,7 @@ import pandas as pd
 
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.tables import parse_number, read_table
+from mixsolve.names import check_spellings, normalise_name
 from mixsolve.plate import parse_well, well_name
 from mixsolve.units import concentration_basis
 
@@ -48,7 +49,9 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
     FileFormatError, InputError
         Missing columns, unknown or duplicated wells, a row naming a sample but no well,
         unknown roles, sample wells without a sample name, non-positive dilutions and
-        incomplete standards; the message names the file, line and well.
+        incomplete standards; the message names the file, line and well. Well, sample
+        and component names are compared in normal form (:mod:`mixsolve.names`): samples
+        (or components) whose names differ only in case are refused.
     """
     table = read_table(path, sheet=sheet)
     names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
@@ -66,10 +69,10 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
         line = table.lines[i]
         where = f"{table.name}, line {line}"
         raw_well, sample = _cell(cells, col, "well"), _cell(cells, col, "sample")
-        if not raw_well:
+        if not normalise_name(raw_well):
             what = f"sample {sample!r} has no well" if sample else "the well is empty"
             raise InputError(f"{where}: {what}; give the well (A1 or A01) the row is about")
-        pos = parse_well(raw_well)
+        pos = parse_well(normalise_name(raw_well))
         if pos is None:
             raise InputError(f"{where}: {raw_well!r} is not a well name (A1-P24, or A01)")
         well = well_name(*pos)
@@ -77,11 +80,11 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
         if well in seen:
             raise InputError(f"{where}: appears twice (also on line {seen[well]})")
         seen[well] = line
-        role = _cell(cells, col, "role").lower()
+        role = normalise_name(_cell(cells, col, "role")).lower()
         if role not in ROLES:
             raise InputError(f"{where}: role {_cell(cells, col, 'role')!r} is not one of "
                              f"{', '.join(ROLES)}")
-        if role == "sample" and not sample:
+        if role == "sample" and not normalise_name(sample):
             raise InputError(f"{where}: a sample well needs a sample name")
         dilution = 1.0
         if _cell(cells, col, "dilution"):
@@ -89,12 +92,17 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
                                     allow_missing=False)
             if dilution <= 0:
                 raise InputError(f"{where}: dilution {dilution:g} is not a positive number")
-        record = {"line": line, "well": well, "role": role, "sample": sample,
+        # the sample as written: check_spellings below puts it in normal form and shows
+        # 'Ext_03 ' beside 'ext_03' when two spellings differ only in case
+        raw_sample = str(cells[col["sample"]]) if "sample" in col else ""
+        record = {"line": line, "well": well, "role": role, "sample": raw_sample,
                   "dilution": dilution, "component": "", "concentration": np.nan, "unit": ""}
         if role == "standard":
             record.update(_standard(table.name, where, col, cells, table.decimal))
         records.append(record)
     frame = pd.DataFrame.from_records(records, columns=list(LAYOUT_COLUMNS))
+    for name in ("sample", "component"):  # one spelling per name (mixsolve.names)
+        frame[name] = check_spellings(frame[name], f"{table.name}, {name}s")
     frame.attrs["source"] = table.name
     return frame
 
@@ -111,7 +119,7 @@ def _standard(name: str, where: str, col: dict[str, int], cells: list[object],
     if absent:
         raise FileFormatError(f"{name}: standard wells need the column(s) {', '.join(absent)}")
     component = _cell(cells, col, "component")
-    if not component:
+    if not normalise_name(component):
         raise InputError(f"{where}: a standard well needs a component")
     concentration = parse_number(cells[col["concentration"]], decimal, f"{where}, concentration",
                                  allow_missing=False)
@@ -119,4 +127,5 @@ def _standard(name: str, where: str, col: dict[str, int], cells: list[object],
         raise InputError(f"{where}: concentration {concentration:g} is negative")
     unit = _cell(cells, col, "unit")
     concentration_basis(unit, f"{where}: unit")
-    return {"component": component, "concentration": concentration, "unit": unit}
+    return {"component": str(cells[col["component"]]), "concentration": concentration,
+            "unit": unit}  # the component as written: check_spellings normalises it

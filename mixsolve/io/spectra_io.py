@@ -23,6 +23,7 @@ from mixsolve.io.tables import (
     parse_number,
     read_table,
 )
+from mixsolve.names import check_unique_names, normalise_name
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
 
 WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]")
@@ -89,9 +90,9 @@ def _read_large_text(p: Path) -> xr.DataArray | None:
              "decimal": decimal}
     text_columns: tuple[int, ...] = ()
     if names[0] in WAVELENGTH_HEADERS:
-        samples = header[1:]
-        if not all(samples) or len(set(samples)) != len(samples):
-            return None
+        samples = [normalise_name(h) for h in header[1:]]
+        if not all(samples) or len({n.casefold() for n in samples}) != len(samples):
+            return None  # the careful reader names the column
         frame = fast_read.read_numeric(p, sep, decimal, header)
         da = None if frame is None else _fast_wide(frame, samples, attrs)
     else:
@@ -133,14 +134,17 @@ def _fast_long(frame: object, cols: tuple[int, int, int], attrs: dict[str, objec
     if (names == "").any() or np.isnan(wl).any() or np.any(wl <= 0):
         return None
     codes, uniques = pd.factorize(names)
+    uniques = [normalise_name(u) for u in uniques]
+    if not all(uniques) or len({u.casefold() for u in uniques}) != len(uniques):
+        return None  # the careful reader names the line
     grid, w_idx = np.unique(wl, return_inverse=True)
     flat = codes.astype(np.int64) * grid.size + w_idx
     if np.unique(flat).size != flat.size:
         return None
-    values = np.full((uniques.size, grid.size), np.nan)
+    values = np.full((len(uniques), grid.size), np.nan)
     values[codes, w_idx] = absorb
     da = xr.DataArray(values, dims=(SAMPLE, WAVELENGTH),
-                      coords={SAMPLE: [str(u) for u in uniques], WAVELENGTH: grid},
+                      coords={SAMPLE: uniques, WAVELENGTH: grid},
                       attrs={**attrs, "layout": "long"}, name="absorbance")
     return check_spectra(da, str(attrs["source"]))
 
@@ -203,13 +207,16 @@ def _wide(table: RawTable, label: str) -> xr.DataArray:
         raise FileFormatError(f"{table.name}, line {table.header_line}: no {label} columns "
                               "after the wavelength column")
     for j, n in enumerate(names):
-        if not n:
+        if not normalise_name(n):
             raise FileFormatError(f"{table.name}, line {table.header_line}, column {j + 2}: "
                                   f"empty {label} name")
         if n in names[:j]:
             raise FileFormatError(
                 f"{table.name}, line {table.header_line}: {label} name {n!r} appears twice "
                 f"(columns {names.index(n) + 2} and {j + 2})")
+    # the cells as written, so that a message shows 'Ext_03 ' beside 'ext_03'
+    names = check_unique_names([str(h) for h in header[1:]],
+                               f"{table.name}, line {table.header_line}")
     width = len(header)
     wl = np.empty(len(table.rows))
     values = np.empty((len(table.rows), width - 1))
@@ -257,7 +264,7 @@ def _long(table: RawTable, s_col: int, w_col: int, a_col: int) -> xr.DataArray:
         if len(row) < need:
             raise FileFormatError(f"{table.where(i)}: {len(row)} cells, expected at least {need}")
         name = str(row[s_col]).strip()
-        if not name:
+        if not normalise_name(name):
             raise FileFormatError(f"{table.where(i, s_col)}: empty sample name")
         w = parse_number(row[w_col], table.decimal, table.where(i, w_col), allow_missing=False)
         if w <= 0:
@@ -270,13 +277,14 @@ def _long(table: RawTable, s_col: int, w_col: int, a_col: int) -> xr.DataArray:
                 f"{first_line[(name, w)]})")
         spectrum[w] = a
         first_line[(name, w)] = table.lines[i]
+    names = check_unique_names(samples, f"{table.name}, column {s_col + 1} (sample)")
     grid = np.unique(np.concatenate([np.fromiter(s, float) for s in samples.values()]))
     values = np.full((len(samples), grid.size), np.nan)
     for k, spectrum in enumerate(samples.values()):
         pos = np.searchsorted(grid, np.fromiter(spectrum, float))
         values[k, pos] = np.fromiter(spectrum.values(), float)
     da = xr.DataArray(values, dims=(SAMPLE, WAVELENGTH),
-                      coords={SAMPLE: list(samples), WAVELENGTH: grid},
+                      coords={SAMPLE: names, WAVELENGTH: grid},
                       attrs=_attrs(table, "long"), name="absorbance")
     return check_spectra(da, table.name)
 

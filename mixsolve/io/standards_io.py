@@ -9,6 +9,7 @@ import pandas as pd
 
 from mixsolve.errors import FileFormatError
 from mixsolve.io.tables import header_names, parse_number, read_table
+from mixsolve.names import check_spellings, normalise_name
 
 REQUIRED = ("sample", "component", "concentration", "unit")
 OPTIONAL = ("pathlength_cm", "molar_mass_g_per_mol")
@@ -27,6 +28,8 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
     ------
     FileFormatError, InputError
         Missing columns, text where a number belongs; the message names line and column.
+        Sample and component names are put in normal form (:mod:`mixsolve.names`); two
+        spellings of one name (``Red`` and ``red``) are refused.
     """
     table = read_table(path, sheet=sheet)
     names = header_names(table, REQUIRED, "a standards sheet",
@@ -46,11 +49,14 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
                 rec[col] = parse_number(cells[j], table.decimal, table.where(i, j))
             else:
                 text = str(cells[j]).strip()
-                if not text:
+                if not normalise_name(text):
                     raise FileFormatError(f"{table.where(i, j)}: empty {col}")
                 rec[col] = text
         records.append(rec)
     frame = pd.DataFrame.from_records(records)
+    for col in ("sample", "component"):  # names as people read them (mixsolve.names)
+        if col in frame:
+            frame[col] = check_spellings(frame[col], f"{table.name}, {col}s")
     if "pathlength_cm" not in frame:
         frame["pathlength_cm"] = np.nan
     return frame

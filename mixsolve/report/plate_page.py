@@ -34,7 +34,11 @@ FLAG_TEXT: dict[str, str] = {
     "negative": "ordinary least squares gave a negative concentration",
     "above_range": "peak absorbance above the reliable range: dilute",
     "below_range": "peak absorbance below the reliable range: less dilution or a longer path",
+    "no_signal": "every reading is exactly zero: nothing was measured; the zero result means "
+                 "nothing",
     "lack_of_fit": "residual larger than the noise model allows",
+    "ill_conditioned": "the wavelengths separate the components poorly (scaled condition "
+                       "number above 1000): noise is amplified that much",
     "structured_residual": "residual has shape, not noise: unmodelled absorber, scatter or "
                            "a wavelength shift",
     "shift_sensitive": "a small wavelength error would move this result by more than 2 %",
@@ -46,7 +50,7 @@ FLAG_TEXT: dict[str, str] = {
 #: Codes that do not make a well worth listing among the flagged ones (for blanks, a
 #: reading near zero is the point, so range and sign codes are routine there too).
 _ROUTINE = ("at_zero", "empty_well")
-_ROUTINE_BLANK = (*_ROUTINE, "below_range", "negative", "structured_residual")
+_ROUTINE_BLANK = (*_ROUTINE, "below_range", "negative", "structured_residual", "no_signal")
 WORST_WELLS = 6
 
 
@@ -75,6 +79,8 @@ def heat_map(wells: pd.DataFrame, component: str, plate_size: int, unit: str) ->
     import matplotlib as mpl
     from matplotlib.figure import Figure
 
+    from mixsolve.report.figures import drawable, hidden_note, literal
+
     n_rows, n_cols = PLATE_SHAPES[plate_size]
     grid = np.full((n_rows, n_cols), np.nan)
     rows = wells[wells["component"] == component]
@@ -91,6 +97,7 @@ def heat_map(wells: pd.DataFrame, component: str, plate_size: int, unit: str) ->
         if role in ("blank", "standard"):
             ax.text(c - 1, r, role[0], ha="center", va="center", fontsize=7, color="white")
     cmap = mpl.colormaps["cividis"].with_extremes(bad="#d9d9d9")
+    grid, hidden = drawable(grid)
     image = ax.imshow(np.ma.masked_invalid(grid), cmap=cmap, aspect="equal")
     if marks:
         ys, xs = zip(*marks, strict=True)
@@ -100,7 +107,7 @@ def heat_map(wells: pd.DataFrame, component: str, plate_size: int, unit: str) ->
     ax.set_xticks(range(0, n_cols, step), [str(c + 1) for c in range(0, n_cols, step)])
     ax.set_yticks(range(n_rows), list(ROW_LETTERS[:n_rows]))
     ax.tick_params(labelsize=7, length=0)
-    ax.set_title(f"{component} ({unit})", fontsize=10)
+    ax.set_title(literal(f"{component} ({unit})") + hidden_note(hidden), fontsize=10)
     bar = fig.colorbar(image, cax=fig.add_axes((0.89, 0.12, 0.025, 0.72)), format="%.3g")
     bar.ax.tick_params(labelsize=7)
     return fig
@@ -111,12 +118,14 @@ def residual_figure(result: xr.Dataset, wells: Sequence[str], labels: Mapping[st
     """A matplotlib Figure of the residual spectra (AU) of ``wells``."""
     from matplotlib.figure import Figure
 
+    from mixsolve.report.figures import drawable, hidden_note, literal
+
     fig = Figure(figsize=(8.0, 3.6))
     ax = fig.add_axes((0.09, 0.14, 0.58, 0.8))
     wl = result[WAVELENGTH].values
     for well in wells:
-        ax.plot(wl, result["residual"].sel({WELL: well}).values, lw=1.2,
-                label=labels.get(well, well))
+        residual, hidden = drawable(result["residual"].sel({WELL: well}).values)
+        ax.plot(wl, residual, lw=1.2, label=literal(labels.get(well, well)) + hidden_note(hidden))
     ax.axhline(0.0, color="#50575e", lw=0.8)
     ax.set_xlabel("wavelength (nm)")
     ax.set_ylabel("residual (AU)")

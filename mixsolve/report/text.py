@@ -143,6 +143,9 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
                            "> 1000): noise is amplified that much; choose better wavelengths",
         "structured_residual": "the residual has shape, not noise (runs test): look at the "
                                "residual spectrum for a missing absorber, scatter or a shift",
+        "no_signal": "every reading is exactly zero: nothing was measured (an empty column, "
+                     "a failed export or a blank subtracted from itself), so the zero result "
+                     "means nothing; measure the sample",
     }
     dilution = result["suggested_dilution"].values if "suggested_dilution" in result else None
     for code, who in by_code.items():
@@ -162,9 +165,19 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
             factors = [float(dilution[samples.index(s)]) for s in who[:6]]
             verb = "dilute" if base == "above_range" else "concentrate (or longer cell)"
             text += "; " + verb + " about " + ", ".join(
-                f"{f if f >= 1 else 1 / f:.1f}-fold" for f in factors)
+                _fold(f) for f in factors)
         notes.append(f"{names}: {text} [{code}].")
     return notes
+
+
+def _fold(factor: float) -> str:
+    """A suggested dilution d as "N-fold" (N = d, or 1/d when d < 1, the concentration
+    factor): one decimal, three figures when huge, n/a when there is none (NaN, or a peak
+    at or below 0 AU)."""
+    if not np.isfinite(factor) or factor <= 0:
+        return "n/a"
+    fold = factor if factor >= 1 else 1 / factor
+    return f"{fold:.1f}-fold" if fold < 1e4 else f"{fold:.3g}-fold"
 
 
 def format_library(library: xr.Dataset, name: str = "") -> str:

@@ -13,6 +13,7 @@ from typing import Literal
 import numpy as np
 
 from mixsolve.errors import InputError, SolveError
+from mixsolve.spectra import check_wavelength_list
 
 Baseline = Literal["none", "offset", "linear"]
 BASELINES: tuple[str, ...] = ("none", "offset", "linear")
@@ -70,9 +71,7 @@ def select_wavelengths(
     if window is not None and wavelengths is not None:
         raise InputError("give either a window or a list of wavelengths, not both")
     if wavelengths is not None:
-        requested = np.asarray(list(wavelengths), dtype=float)
-        if requested.size == 0:
-            raise InputError("wavelengths: the list is empty")
+        requested = check_wavelength_list(wavelengths)  # NaN would match the first one
         if np.unique(requested).size != requested.size:
             vals, counts = np.unique(requested, return_counts=True)
             raise InputError(f"wavelengths: {vals[counts > 1][0]:g} nm is listed twice")

@@ -196,6 +196,8 @@ def unmix(
     tolerance = float(wavelength_tolerance_nm)
     if not np.isfinite(tolerance) or tolerance < 0:
         raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm must be a number ≥ 0")
+    if not np.isfinite(float(max_shift_nm)):  # refused even when fit_shift is off
+        raise InputError(f"max_shift_nm: {float(max_shift_nm):g} nm must be a positive number")
     if fit_shift and weights != "none":
         raise InputError("fit_shift: a fitted wavelength shift cannot be combined with "
                          "weights='noise' (the shift search is unweighted); drop one of them")

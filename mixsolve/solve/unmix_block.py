@@ -238,7 +238,9 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     u_conc = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
     at_zero = (conc == 0) & (settings.method == "nnls")
     bias = (canonical @ settings.shift_matrix.T) * settings.unit_factor
-    dilution = checks[0] / target_absorbance(*settings.absorbance_range)
+    with np.errstate(invalid="ignore"):  # no dilution brings a peak ≤ 0 AU into range
+        dilution = np.where(checks[0] > 0, checks[0], np.nan) / target_absorbance(
+            *settings.absorbance_range)
     flags = flag_texts(status, at_zero, conc, u_conc, bias, settings.components,
                        ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
                        known=texts)
