@@ -209,19 +209,159 @@ def _as_component_array(table: xr.DataArray | pd.DataFrame, name: str) -> xr.Dat
     return da.astype(float)
 
 
-def check_library(library: Any, name: str = "library") -> xr.Dataset:
-    """Check that ``library`` is a mixsolve library Dataset and return it, λ ascending.
+def describe_dtype(kind: str) -> str:
+    """What values of a numpy dtype kind (``dtype.kind``) are, for a message."""
+    return {"b": "true/false values", "U": "text", "S": "text", "O": "text",
+            "c": "complex numbers", "M": "dates", "m": "time spans"}.get(kind, "numbers")
+
+
+def parse_json_object(text: Any, where: str) -> dict[str, Any]:
+    """The JSON object (``{...}``) held as text by an attribute.
 
     Raises
     ------
     InputError
-        If it is not a Dataset, lacks ``absorptivity`` or has an unknown unit.
+        Not text, not JSON, or JSON of something else than an object.
+    """
+    try:
+        value = json.loads(text) if isinstance(text, str) else None
+    except json.JSONDecodeError:
+        value = None
+    if not isinstance(value, dict):
+        shown = str(text) if len(str(text)) <= 40 else str(text)[:37] + "..."
+        raise InputError(f"{where} {shown!r} is not JSON text of an object ({{...}}); "
+                         "write it as such or remove it")
+    return value
+
+
+def _check_contents(library: xr.Dataset, name: str) -> xr.Dataset:
+    """Check what a library holds beyond its names (kind, dims, dtypes, units, values).
+
+    Returns the library with every array in (component, wavelength) order, text component
+    names, and the optional parts a library may lack filled in: ``u_absorptivity`` and
+    ``molar_mass_g_per_mol`` NaN (not stated), ``basis`` and ``concentration_unit`` from
+    the unit.
+    """
+    attrs = library.attrs
+    kind = attrs.get("mixsolve_kind")
+    if kind is not None and kind != LIBRARY_KIND:
+        raise InputError(f"{name}: marked as a {str(kind)!r} file, not a library "
+                         f"({LIBRARY_KIND!r}); give a library")
+    version = attrs.get("format_version", FORMAT_VERSION)
+    if isinstance(version, bool) or not isinstance(version, int | np.integer):
+        raise InputError(f"{name}: attribute format_version {version!r} is not a whole number; "
+                         f"a library written by this mixsolve has {FORMAT_VERSION}")
+    if version > FORMAT_VERSION:
+        raise InputError(f"{name}: library format {int(version)} is newer than this mixsolve "
+                         f"reads ({FORMAT_VERSION}); update mixsolve")
+    dims = library["absorptivity"].dims
+    if set(dims) != {COMPONENT, WAVELENGTH} or len(dims) != 2:
+        raise InputError(f"{name}: absorptivity has dims ({', '.join(map(str, dims))}); a "
+                         "library's are (component, wavelength), one value per pair")
+    for var, array in library.data_vars.items():
+        extra = [str(d) for d in array.dims if d not in (COMPONENT, WAVELENGTH)]
+        if extra:
+            raise InputError(f"{name}: variable {var!r} has dimension {extra[0]!r}; a library "
+                             "holds arrays over component and wavelength only")
+        if array.dtype.kind not in "iuf":
+            raise InputError(f"{name}: {var} holds {describe_dtype(array.dtype.kind)} "
+                             f"({array.dtype}), not numbers; store it as floating-point numbers")
+    for dim in (COMPONENT, WAVELENGTH):
+        if dim not in library.coords:
+            what = "component names" if dim == COMPONENT else "wavelengths in nm"
+            raise InputError(f"{name}: the {dim} dimension has no coordinate; give the {what}")
+    wl = library[WAVELENGTH]
+    if wl.dtype.kind not in "iuf":
+        first = f" ({str(wl.values.flat[0])!r} ...)" if wl.size else ""
+        raise InputError(f"{name}: the wavelengths hold {describe_dtype(wl.dtype.kind)}"
+                         f"{first}; give them as numbers in nm")
+    comps = [c.decode() if isinstance(c, bytes) else c for c in library[COMPONENT].values]
+    if not all(isinstance(c, str) for c in comps):
+        library = library.assign_coords({COMPONENT: [str(c) for c in comps]})
+    library = _check_units(library, name)
+    if any(v.dims == (WAVELENGTH, COMPONENT) for v in library.data_vars.values()):
+        library = library.transpose(COMPONENT, WAVELENGTH)
+    eps = library["absorptivity"].values
+    if not np.all(np.isfinite(eps)):
+        k, j = np.argwhere(~np.isfinite(eps))[0]
+        raise InputError(
+            f"{name}: absorptivity of {str(library[COMPONENT].values[k])!r} at "
+            f"{float(library[WAVELENGTH].values[j]):g} nm is {eps[k, j]}; a library needs a "
+            "finite value at every wavelength (leave the wavelength out or give the value)")
+    if "u_absorptivity" in library:
+        u = library["u_absorptivity"].values
+        if np.any(np.isinf(u)) or np.any(u < 0):
+            raise InputError(f"{name}: u_absorptivity holds "
+                             f"{u[np.isinf(u) | (u < 0)].flat[0]:g}; an uncertainty is a "
+                             "number ≥ 0 (NaN where not stated)")
+    else:
+        library = library.assign(u_absorptivity=xr.full_like(library["absorptivity"], np.nan,
+                                                             dtype=float))
+    if "molar_mass_g_per_mol" not in library:
+        library = library.assign(molar_mass_g_per_mol=(
+            (COMPONENT,), np.full(library.sizes[COMPONENT], np.nan), {"units": "g/mol"}))
+    if "provenance" in attrs:
+        parse_json_object(attrs["provenance"], f"{name}: attribute provenance")
+    bandwidth = attrs.get("bandwidth_nm", np.nan)
+    if isinstance(bandwidth, bool) or not isinstance(bandwidth, int | float | np.number) \
+            or not (np.isnan(bandwidth) or (np.isfinite(bandwidth) and bandwidth > 0)):
+        raise InputError(f"{name}: attribute bandwidth_nm {bandwidth!r} is not a positive "
+                         "number of nm (NaN when not stated)")
+    if not isinstance(attrs.get("solvent", ""), str):
+        raise InputError(f"{name}: attribute solvent {attrs['solvent']!r} is not text")
+    return library
+
+
+def _check_units(library: xr.Dataset, name: str) -> xr.Dataset:
+    """Refuse a missing, unknown or inconsistent unit; fill ``basis`` and
+    ``concentration_unit`` from it when absent."""
+    unit = library.attrs.get("unit")
+    allowed = ", ".join(ABSORPTIVITY_UNITS.values())
+    if unit is None:
+        raise InputError(f"{name}: no absorptivity unit (attribute 'unit'); a library states "
+                         f"one of {allowed}")
+    basis = next((b for b, u in ABSORPTIVITY_UNITS.items() if u == unit), None)
+    if basis is None:
+        raise InputError(f"{name}: absorptivity unit {unit!r} is not one of {allowed}")
+    derived = {"basis": basis, "concentration_unit": CONCENTRATION_UNITS[basis]}
+    for what, value, right in (
+            ("absorptivity's attribute units", library["absorptivity"].attrs.get("units", unit),
+             unit),
+            *((f"attribute {k}", library.attrs.get(k, v), v) for k, v in derived.items())):
+        if value != right:
+            raise InputError(f"{name}: {what} is {value!r}, which does not match the library "
+                             f"unit {unit!r} (expected {right!r})")
+    missing = {k: v for k, v in derived.items() if k not in library.attrs}
+    return library.assign_attrs(missing) if missing else library
+
+
+def check_library(library: Any, name: str = "library") -> xr.Dataset:
+    """Check that ``library`` is a mixsolve library Dataset and return it, λ ascending.
+
+    Returns
+    -------
+    Dataset
+        The library, arrays in (component, wavelength) order; ``u_absorptivity`` and
+        ``molar_mass_g_per_mol`` NaN (not stated) and ``basis`` and
+        ``concentration_unit`` derived from the unit when the library lacks them.
+
+    Raises
+    ------
+    InputError
+        If it is not a Dataset or lacks ``absorptivity``; is marked as another kind of
+        file or a newer format; has a missing, unknown or inconsistent unit; an array
+        over other dims than (component, wavelength) or holding text or true/false
+        values; wavelengths that are not numbers; a non-finite absorptivity, a negative
+        or infinite uncertainty; provenance that is not JSON of an object; a bandwidth
+        that is not a positive number; or component names that are empty or repeated
+        (:func:`mixsolve.names.check_unique_names`), or a molar mass that is not positive.
     """
     if not isinstance(library, xr.Dataset) or "absorptivity" not in library:
         raise InputError(
             f"{name}: not a mixsolve library (expected an xarray.Dataset with an "
             "'absorptivity' variable; make one with import_absorptivities or build_library)"
         )
+    library = _check_contents(library, name)
     if library.attrs.get("unit") not in ABSORPTIVITY_UNITS.values():
         raise InputError(
             f"{name}: absorptivity unit {library.attrs.get('unit')!r} is not one of "

@@ -88,6 +88,7 @@ def read_cube(path: str | os.PathLike[str], *, variable: str | None = None,
 
 
 def _open(p: Path) -> xr.Dataset:
+    _check_eager_size(p)
     try:
         if p.suffix.lower() == ".zarr":
             return xr.open_zarr(p, consolidated=None, chunks={})
@@ -96,6 +97,44 @@ def _open(p: Path) -> xr.Dataset:
         kind = "Zarr store" if p.suffix.lower() == ".zarr" else "netCDF file"
         raise FileFormatError(f"{p.name}: not a readable {kind} ({exc.__class__.__name__}: "
                               f"{' '.join(str(exc).split())[:120]})") from None
+
+
+def _check_eager_size(p: Path) -> None:
+    """Refuse a cube whose dimension coordinates, which opening it reads whole (xarray
+    indexes them), declare more than :data:`mixsolve.io.fast_read.CAREFUL_MAX_BYTES`.
+
+    The absorbance itself is read lazily, chunk by chunk, so a large cube is fine; its
+    coordinates are not. Only the header is read here; a file it cannot read is left to
+    the opening, which says why.
+    """
+    from mixsolve.io.netcdf_store import declared_variables, refuse_oversized
+
+    try:
+        declared = _zarr_declared(p) if p.suffix.lower() == ".zarr" else declared_variables(p)
+    except Exception:  # any failure here is reported by the opening, with its reason
+        return
+    refuse_oversized({n: d for n, d in declared.items() if d.dims == (n,)}, p.name,
+                     "coordinates", "read into memory when a cube is opened (its absorbance "
+                     "is read in chunks, its coordinates whole)", "keep only the wavelength "
+                     "coordinate (a dimension needs none) or split the cube")
+
+
+def _zarr_declared(p: Path) -> dict[str, Any]:
+    """The arrays of a Zarr store's root group as its metadata declare them."""
+    import math
+
+    import zarr
+
+    from mixsolve.io.netcdf_store import Declared
+
+    out = {}
+    for name, array in zarr.open_group(str(p), mode="r").arrays():
+        dims = getattr(array.metadata, "dimension_names", None) \
+            or array.attrs.get("_ARRAY_DIMENSIONS") or ()
+        shape = tuple(map(int, array.shape))
+        out[str(name)] = Declared(tuple(map(str, dims)), shape,
+                                  math.prod(shape) * int(array.dtype.itemsize))
+    return out
 
 
 def _absorbance_name(ds: xr.Dataset, p: Path, variable: str | None) -> str:

@@ -2,20 +2,49 @@
 
 Libraries and PLS models are both Datasets marked by a ``mixsolve_kind`` attribute; this
 module holds what they share, and ``library_store``/``model_store`` add their checks.
+Both are small and read whole into memory, so a file whose header declares more than
+:data:`mixsolve.io.fast_read.CAREFUL_MAX_BYTES` of arrays is refused before anything is
+read (:func:`declared_variables`).
 """
 
 from __future__ import annotations
 
+import math
 import os
 import warnings
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
+from typing import Any, NamedTuple
 
 import xarray as xr
 
 from mixsolve.errors import FileFormatError
+from mixsolve.io import fast_read
 from mixsolve.io.atomic import atomic_path
+from mixsolve.io.tables import size_text
 
 ENGINE = "h5netcdf"
+#: ``mixsolve_kind`` of the files mixsolve writes, and what each is called in messages.
+KINDS = {"mixsolve-library": ("a library", "`mixsolve library import` or `library build`"),
+         "mixsolve-pls-model": ("a PLS model", "`mixsolve calibrate`")}
+_UNREADABLE = (OSError, ValueError, KeyError, TypeError)
+
+
+class Declared(NamedTuple):
+    """One array of a file as its header declares it, before any value is read."""
+
+    dims: tuple[str, ...]
+    shape: tuple[int, ...]
+    nbytes: int
+
+    def describe(self, name: str) -> str:
+        """``"absorptivity: component 2 × wavelength 2000000000"``, or for a coordinate
+        ``"wavelength: 2000000000 values"``."""
+        if self.dims == (name,):
+            return f"{name}: {self.shape[0]} values"
+        return f"{name}: " + " × ".join(f"{d} {n}" for d, n in zip(self.dims, self.shape,
+                                                                     strict=False))
 
 
 def write_netcdf(ds: xr.Dataset, path: str | os.PathLike[str]) -> Path:
@@ -25,11 +54,54 @@ def write_netcdf(ds: xr.Dataset, path: str | os.PathLike[str]) -> Path:
     return Path(path)
 
 
-def _open(p: Path) -> xr.Dataset:
+@contextmanager
+def _quiet() -> Iterator[None]:
     with warnings.catch_warnings():  # h5netcdf warns about foreign HDF5 layouts
         warnings.simplefilter("ignore")
-        with xr.open_dataset(p, engine=ENGINE) as ds:
-            return ds.load()
+        yield
+
+
+def declared_variables(path: str | os.PathLike[str]) -> dict[str, Declared]:
+    """The arrays of a netCDF-4 file's root group as its header declares them.
+
+    Only metadata are read: a variable's declared shape is what reading it would allocate
+    (``nbytes`` = number of values × item size in bytes), however small the file is.
+
+    Raises
+    ------
+    OSError, ValueError
+        Not a netCDF-4 (HDF5) file.
+    """
+    import h5netcdf
+
+    with _quiet(), h5netcdf.File(path, "r") as f:
+        return {str(name): Declared(tuple(map(str, v.dimensions)), tuple(map(int, v.shape)),
+                                    math.prod(map(int, v.shape)) * int(v.dtype.itemsize))
+                for name, v in f.variables.items()}
+
+
+def refuse_oversized(declared: dict[str, Declared], file: str, what: str, limit_text: str,
+                     fix: str) -> None:
+    """Refuse arrays that together declare more than ``CAREFUL_MAX_BYTES``, biggest named.
+
+    Raises
+    ------
+    FileFormatError
+        ``"<file>: its <what> declare 32 GB (<biggest>), more than the 200 MB <limit_text>;
+        <fix>"``.
+    """
+    total = sum(d.nbytes for d in declared.values())
+    limit = fast_read.CAREFUL_MAX_BYTES
+    if total > limit:
+        name, biggest = max(declared.items(), key=lambda item: item[1].nbytes)
+        raise FileFormatError(
+            f"{file}: its {what} declare {size_text(total)} ({biggest.describe(name)}), more "
+            f"than the {size_text(limit)} {limit_text}; {fix}")
+
+
+def _open(p: Path) -> xr.Dataset:
+    with _quiet(), xr.open_dataset(p, engine=ENGINE) as ds:
+        return ds.load()
 
 
 def open_netcdf(path: str | os.PathLike[str], *,
@@ -39,38 +111,72 @@ def open_netcdf(path: str | os.PathLike[str], *,
 
     ``noun`` and ``made_by`` complete the message for a file that is not netCDF
     ("...; a library is written by `mixsolve library import` or `library build`").
+
+    Raises
+    ------
+    FileFormatError
+        Missing, a folder, not netCDF-4, or declaring more than
+        :data:`~mixsolve.io.fast_read.CAREFUL_MAX_BYTES` of arrays (checked on the header,
+        before anything is allocated).
     """
     p = Path(path)
     if not p.exists():
         raise FileFormatError(f"{path}: file not found")
     if p.is_dir():
         raise FileFormatError(f"{path}: is a folder, not a netCDF file")
+    unreadable = (f"{p.name}: not a readable netCDF file ({{}}); {noun} is written by "
+                  f"{made_by}")
+    try:
+        declared = declared_variables(p)
+    except _UNREADABLE as exc:
+        raise FileFormatError(unreadable.format(exc.__class__.__name__)) from None
+    refuse_oversized(declared, p.name, "arrays", f"{noun} file may hold",
+                     f"{noun} is written by {made_by}")
     try:
         return _open(p)
-    except (OSError, ValueError, KeyError, TypeError) as exc:
-        raise FileFormatError(
-            f"{p.name}: not a readable netCDF file ({exc.__class__.__name__}); {noun} is "
-            f"written by {made_by}") from None
+    except _UNREADABLE as exc:
+        raise FileFormatError(unreadable.format(exc.__class__.__name__)) from None
 
 
 def open_kind(path: str | os.PathLike[str], kind: str, *, noun: str, made_by: str,
               label: str) -> xr.Dataset:
     """Open a mixsolve netCDF file and check its ``mixsolve_kind`` is ``kind``.
 
-    ``label`` names the kind in the error ("not a mixsolve <label> (...)").
+    ``label`` names the kind in the error ("not a mixsolve <label> (...)"); a file of
+    another kind mixsolve writes gets the fix as well ("...; <noun> is written by ...").
     """
+    found = file_kind(path)  # attributes only: another kind is refused before loading
+    if found is not None and found != kind:
+        raise FileFormatError(_wrong_kind(Path(path).name, found, label, noun, made_by))
     ds = open_netcdf(path, made_by=made_by, noun=noun)
-    found = ds.attrs.get("mixsolve_kind")
+    found = _text(ds.attrs.get("mixsolve_kind"))
     if found != kind:
-        what = f"a {found!r} file" if found else "not written by mixsolve"
-        raise FileFormatError(f"{Path(path).name}: not a mixsolve {label} ({what})")
+        raise FileFormatError(_wrong_kind(Path(path).name, found, label, noun, made_by))
     return ds
 
 
+def _wrong_kind(name: str, found: str | None, label: str, noun: str, made_by: str) -> str:
+    if found is None:
+        return f"{name}: not a mixsolve {label} (not written by mixsolve)"
+    text = f"{name}: not a mixsolve {label} (a {found!r} file)"
+    if found in KINDS:
+        text += f"; {noun} is written by {made_by}"
+    return text
+
+
+def _text(value: Any) -> str | None:
+    return None if value is None else str(value)
+
+
 def file_kind(path: str | os.PathLike[str]) -> str | None:
-    """The ``mixsolve_kind`` attribute of a netCDF file, or None if it has none or is unreadable."""
+    """The ``mixsolve_kind`` attribute of a netCDF file, or None if it has none or is unreadable.
+
+    Reads the file's attributes only, not its arrays.
+    """
+    import h5netcdf
+
     try:
-        kind = _open(Path(path)).attrs.get("mixsolve_kind")
-    except (OSError, ValueError, KeyError, TypeError):
+        with _quiet(), h5netcdf.File(path, "r") as f:
+            return _text(f.attrs.get("mixsolve_kind"))
+    except _UNREADABLE:
         return None
-    return None if kind is None else str(kind)

@@ -13,6 +13,8 @@ import csv
 import io
 import os
 import re
+import zipfile
+import zlib
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -235,14 +237,56 @@ def _detect_decimal(rows: list[list[str]], lines: list[int], sep: str, name: str
     return "," if comma is not None else "."
 
 
+def xlsx_expanded_bytes(data: bytes) -> int:
+    """Declared uncompressed size (bytes) of the XML a workbook's reader would parse.
+
+    The sizes come from the zip directory (``zipfile.ZipInfo.file_size``), before anything
+    is decompressed. They cannot understate what is read: :mod:`zipfile`, which openpyxl
+    uses, stops a member's stream at its declared size and then fails its CRC check.
+
+    Raises
+    ------
+    zipfile.BadZipFile
+        Not a zip archive.
+    """
+    with zipfile.ZipFile(io.BytesIO(data)) as archive:
+        return sum(info.file_size for info in archive.infolist()
+                   if info.filename.lower().endswith((".xml", ".rels")))
+
+
+def _check_xlsx_size(data: bytes, name: str) -> None:
+    """Refuse a workbook whose XML expands beyond the in-memory limit, before parsing it."""
+    from mixsolve.io import fast_read  # deferred: fast_read imports this module
+
+    limit = fast_read.CAREFUL_MAX_BYTES
+    try:
+        size = xlsx_expanded_bytes(data)
+    except (zipfile.BadZipFile, OSError, ValueError) as exc:
+        raise FileFormatError(f"{name}: not a readable XLSX workbook ({exc})") from None
+    if size > limit:
+        raise FileFormatError(
+            f"{name}: the workbook expands to {size_text(size)} of XML (declared "
+            f"uncompressed size), more than the {size_text(limit)} an XLSX input may hold; "
+            "save the sheet as CSV or split the workbook")
+
+
+def size_text(size: float) -> str:
+    """A number of bytes as short text in decimal units: ``"1.4 GB"``, ``"200 MB"``."""
+    for unit, scale in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if size >= scale:
+            return f"{size / scale:.3g} {unit}"
+    return f"{size:.0f} bytes"
+
+
 def _read_xlsx(p: Path, name: str, sheet: str | None) -> RawTable:
     import openpyxl  # deferred: only XLSX input needs it
 
+    data = p.read_bytes()
+    _check_xlsx_size(data, name)
     try:
         # From bytes, not the path: openpyxl judges a path by its suffix, and a workbook
         # saved under another name (data.csv) is still a workbook.
-        book = openpyxl.load_workbook(io.BytesIO(p.read_bytes()), read_only=True,
-                                      data_only=True)
+        book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
     except Exception as exc:  # openpyxl raises zipfile/KeyError/etc. on damaged files
         raise FileFormatError(f"{name}: not a readable XLSX workbook ({exc})") from None
     try:
@@ -251,10 +295,15 @@ def _read_xlsx(p: Path, name: str, sheet: str | None) -> RawTable:
                 f"{name}: no sheet {sheet!r}; sheets are {', '.join(book.sheetnames)}")
         ws = book[sheet] if sheet is not None else book.worksheets[0]
         numbered = []
-        for number, values in enumerate(ws.iter_rows(values_only=True), start=1):
-            cells = ["" if v is None else v for v in values]
-            if any(str(c).strip() for c in cells):
-                numbered.append((number, cells))
+        try:  # read-only sheets are decompressed and parsed only now, row by row
+            for number, values in enumerate(ws.iter_rows(values_only=True), start=1):
+                cells = ["" if v is None else v for v in values]
+                if any(str(c).strip() for c in cells):
+                    numbered.append((number, cells))
+        except (zipfile.BadZipFile, zlib.error, EOFError, SyntaxError, ValueError,
+                KeyError, TypeError) as exc:  # XML parse errors subclass SyntaxError
+            raise FileFormatError(f"{name}: sheet {ws.title!r} is damaged "
+                                  f"({' '.join(str(exc).split())[:120]})") from None
     finally:
         book.close()
     if not numbered:
