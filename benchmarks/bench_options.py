@@ -38,7 +38,7 @@ from bench_unmix import labelled, library
 from scipy.optimize import minimize_scalar
 
 import mixsolve as ms
-import mixsolve.solve.unmix_block as unmix_block
+import mixsolve.solve.block as unmix_block
 from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, TOO_FEW
 from mixsolve.solve.cls import Fit, _fit, _full_rank, _inverse_diag, fit_spectra, solve_cls
 from mixsolve.solve.design import design_matrix

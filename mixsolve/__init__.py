@@ -18,34 +18,34 @@ from mixsolve.errors import InputError, MixsolveError, MixsolveWarning
 # explicit imports under TYPE_CHECKING keep the names visible to type checkers and IDEs.
 _LAZY: dict[str, str] = {
     "NoiseModel": "mixsolve.noise",
-    "analyse_plate": "mixsolve.workflows.plate_analysis",
-    "budget_table": "mixsolve.uncertainty",
+    "analyse_plate": "mixsolve.plate.analysis",
+    "budget_table": "mixsolve.uncertainty.budget",
     "build_library": "mixsolve.library",
-    "calibrate": "mixsolve.solve.pls_calibrate",
-    "cell_blank": "mixsolve.corrections",
-    "check_absorbance_scale": "mixsolve.diagnostics.absorbance_scale",
-    "check_stray_light": "mixsolve.diagnostics.stray_light",
-    "check_wavelength_scale": "mixsolve.diagnostics.wavelength_scale",
-    "check_wavelengths": "mixsolve.diagnostics.check",
-    "choose_wavelengths": "mixsolve.diagnostics.choose",
-    "correct_cells": "mixsolve.corrections",
+    "calibrate": "mixsolve.pls.calibrate",
+    "cell_blank": "mixsolve.uncertainty.corrections",
+    "check_absorbance_scale": "mixsolve.instrument.absorbance_scale",
+    "check_stray_light": "mixsolve.instrument.stray_light",
+    "check_wavelength_scale": "mixsolve.instrument.wavelength_scale",
+    "check_wavelengths": "mixsolve.wavelengths.check",
+    "choose_wavelengths": "mixsolve.wavelengths.choose",
+    "correct_cells": "mixsolve.uncertainty.corrections",
     "flags_of": "mixsolve.solve.unmix",
     "import_absorptivities": "mixsolve.library",
     "make_spectra": "mixsolve.spectra",
-    "parse_dilution": "mixsolve.volumetric",
-    "predict": "mixsolve.solve.pls_predict",
+    "parse_dilution": "mixsolve.uncertainty.volumetric",
+    "predict": "mixsolve.pls.predict",
     "read_cube": "mixsolve.io.cubes",
     "read_layout": "mixsolve.io.layout_io",
     "read_library": "mixsolve.io.library_store",
     "read_model": "mixsolve.io.model_store",
     "read_plate": "mixsolve.io.plates",
     "read_spectra": "mixsolve.io.spectra_io",
-    "repeatability": "mixsolve.repeat_scans",
+    "repeatability": "mixsolve.instrument.repeatability",
     "resample_library": "mixsolve.library",
     "results_table": "mixsolve.report.tables",
     "run_plates": "mixsolve.workflows.plate",
-    "shift_wavelengths": "mixsolve.corrections",
-    "uncertainty_budget": "mixsolve.uncertainty",
+    "shift_wavelengths": "mixsolve.uncertainty.corrections",
+    "uncertainty_budget": "mixsolve.uncertainty.budget",
     "unmix": "mixsolve.solve.unmix",
     "write_cube": "mixsolve.io.cubes",
     "write_library": "mixsolve.io.library_store",
@@ -53,12 +53,10 @@ _LAZY: dict[str, str] = {
 }
 
 if TYPE_CHECKING:
-    from mixsolve.corrections import cell_blank, correct_cells, shift_wavelengths
-    from mixsolve.diagnostics.absorbance_scale import check_absorbance_scale
-    from mixsolve.diagnostics.check import check_wavelengths
-    from mixsolve.diagnostics.choose import choose_wavelengths
-    from mixsolve.diagnostics.stray_light import check_stray_light
-    from mixsolve.diagnostics.wavelength_scale import check_wavelength_scale
+    from mixsolve.instrument.absorbance_scale import check_absorbance_scale
+    from mixsolve.instrument.repeatability import repeatability
+    from mixsolve.instrument.stray_light import check_stray_light
+    from mixsolve.instrument.wavelength_scale import check_wavelength_scale
     from mixsolve.io.cubes import read_cube, write_cube
     from mixsolve.io.layout_io import read_layout
     from mixsolve.io.library_store import read_library, write_library
@@ -67,16 +65,18 @@ if TYPE_CHECKING:
     from mixsolve.io.spectra_io import read_spectra
     from mixsolve.library import build_library, import_absorptivities, resample_library
     from mixsolve.noise import NoiseModel
-    from mixsolve.repeat_scans import repeatability
+    from mixsolve.plate.analysis import analyse_plate
+    from mixsolve.pls.calibrate import calibrate
+    from mixsolve.pls.predict import predict
     from mixsolve.report.tables import results_table
-    from mixsolve.solve.pls_calibrate import calibrate
-    from mixsolve.solve.pls_predict import predict
     from mixsolve.solve.unmix import flags_of, unmix
     from mixsolve.spectra import make_spectra
-    from mixsolve.uncertainty import budget_table, uncertainty_budget
-    from mixsolve.volumetric import parse_dilution
+    from mixsolve.uncertainty.budget import budget_table, uncertainty_budget
+    from mixsolve.uncertainty.corrections import cell_blank, correct_cells, shift_wavelengths
+    from mixsolve.uncertainty.volumetric import parse_dilution
+    from mixsolve.wavelengths.check import check_wavelengths
+    from mixsolve.wavelengths.choose import choose_wavelengths
     from mixsolve.workflows.plate import run_plates
-    from mixsolve.workflows.plate_analysis import analyse_plate
 
 
 def __getattr__(name: str) -> object:

@@ -371,9 +371,9 @@ def wavelengths_check(library_file: str, window: str | None, wavelengths: str | 
     """Conditioning and figures of merit of LIBRARY_FILE at the chosen wavelengths."""
     import json
 
-    from mixsolve.diagnostics.check import check_wavelengths, merit_to_dict
     from mixsolve.io.library_store import read_library
     from mixsolve.report.merit_text import format_check
+    from mixsolve.wavelengths.check import check_wavelengths, merit_to_dict
 
     check = check_wavelengths(
         read_library(library_file), window=parse_window(window),
@@ -398,9 +398,9 @@ def wavelengths_choose(library_file: str, count: int, window: str | None, contig
     """Choose COUNT wavelengths that minimise the predicted concentration variance."""
     import json
 
-    from mixsolve.diagnostics.choose import choose_wavelengths
     from mixsolve.io.library_store import read_library
     from mixsolve.report.merit_text import format_choice
+    from mixsolve.wavelengths.choose import choose_wavelengths
 
     choice = choose_wavelengths(read_library(library_file), count, window=parse_window(window),
                                 contiguous=contiguous, noise=noise,
@@ -605,7 +605,7 @@ def instrument_wavelength(spectra: str, bands: str | None, uv_tolerance: float,
                           search: float | None, reference_u: float, bandwidth: float | None,
                           log: str | None) -> None:
     """Wavelength scale from a holmium oxide SPECTRA: band positions, offset and its u."""
-    from mixsolve.diagnostics.wavelength_scale import HOLMIUM_BANDS_NM
+    from mixsolve.instrument.wavelength_scale import HOLMIUM_BANDS_NM
     from mixsolve.workflows.instrument import run_check
 
     _, text = run_check("wavelength", spectra, log=log,

@@ -88,12 +88,12 @@ def card_offset(y: np.ndarray, x: np.ndarray, pixels: int) -> np.ndarray:
 
 def library(wavelengths_nm: np.ndarray) -> xr.Dataset:
     """A mixsolve library of the invented pigments (L g⁻¹ cm⁻¹) on ``wavelengths_nm``."""
-    import mixsolve as ms
+    from mixsolve.library import import_absorptivities
 
     eps = np.vstack([absorptivity(name, wavelengths_nm) for name in PIGMENTS])
     da = xr.DataArray(eps, dims=("component", "wavelength"),
                       coords={"component": list(PIGMENTS), "wavelength": wavelengths_nm})
-    return ms.import_absorptivities(da, "L/(g*cm)", molar_mass_g_per_mol=MOLAR_MASS,
+    return import_absorptivities(da, "L/(g*cm)", molar_mass_g_per_mol=MOLAR_MASS,
                                     source="invented pigments of the synthetic demo "
                                            "(reference_spectra_demo/make_demo_cube.py)")
 
@@ -132,13 +132,14 @@ def synthetic_cube(pixels: int, wavelengths_nm: np.ndarray, chunk_rows: int = CH
 def write_demo_cube(folder: str | Path, pixels: int = 1000, n_wavelengths: int = 191,
                     chunk_rows: int = CHUNK_ROWS) -> tuple[Path, Path]:
     """Write ``folder/library.nc`` and ``folder/cube.zarr``; return their paths."""
-    import mixsolve as ms
+    from mixsolve.io.cubes import write_cube
+    from mixsolve.io.library_store import write_library
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     wl = wavelengths(n_wavelengths)
-    ms.write_library(library(wl), folder / "library.nc")
-    ms.write_cube(synthetic_cube(pixels, wl, chunk_rows), folder / "cube.zarr")
+    write_library(library(wl), folder / "library.nc")
+    write_cube(synthetic_cube(pixels, wl, chunk_rows), folder / "cube.zarr")
     return folder / "library.nc", folder / "cube.zarr"
 
 

@@ -35,7 +35,7 @@ from helpers_io import (
 import mixsolve as ms
 from mixsolve.cli import main
 from mixsolve.errors import FileFormatError
-from mixsolve.io import fast_read
+from mixsolve.io import limits
 from mixsolve.io.cubes import read_cube
 from mixsolve.io.library_store import read_library
 from mixsolve.io.model_store import read_model
@@ -159,11 +159,11 @@ def test_xlsx_limit_is_on_the_expanded_size_not_the_file_size(workbook, monkeypa
     assert workbook.stat().st_size < expanded
     assert read_table(workbook).rows  # read at the default limit
     limit = (workbook.stat().st_size + expanded) // 2
-    monkeypatch.setattr(fast_read, "CAREFUL_MAX_BYTES", limit)
+    monkeypatch.setattr(limits, "CAREFUL_MAX_BYTES", limit)
     with pytest.raises(FileFormatError, match=r"^spectra\.xlsx: the workbook expands to [\d.]+ "
                                               r"kB of XML .* more than the [\d.]+ kB an XLSX"):
         read_table(workbook)
-    monkeypatch.setattr(fast_read, "CAREFUL_MAX_BYTES", expanded)
+    monkeypatch.setattr(limits, "CAREFUL_MAX_BYTES", expanded)
     assert read_table(workbook).rows  # the limit itself is allowed
 
 
@@ -257,7 +257,7 @@ def test_netcdf_limit_is_applied_and_a_normal_library_is_well_below(tmp_path, li
                                                                     monkeypatch):
     """A real library reads at the default limit and is refused under a tiny one."""
     assert read_library(library_file).sizes["wavelength"] == 31
-    monkeypatch.setattr(fast_read, "CAREFUL_MAX_BYTES", 1000)
+    monkeypatch.setattr(limits, "CAREFUL_MAX_BYTES", 1000)
     with pytest.raises(FileFormatError, match=r"^lib\.nc: its arrays declare 1\.\d+ kB "
                                               r"\(absorptivity: component 2 × wavelength 31\), "
                                               r"more than the 1 kB a library file"):

@@ -1,5 +1,5 @@
-"""The uncertainty budget (mixsolve.uncertainty, mixsolve.measurement_model,
-mixsolve.montecarlo, mixsolve.solve.sensitivity) and ``unmix --budget``.
+"""The uncertainty budget (mixsolve.uncertainty.budget, mixsolve.uncertainty.measurement_model,
+mixsolve.uncertainty.montecarlo, mixsolve.uncertainty.sensitivity) and ``unmix --budget``.
 
 All data are invented: Gaussian bands (tests/conftest.py), seeded noise.
 """
@@ -18,8 +18,8 @@ from helpers_io import MIXTURES, WL, leftovers, mixture_absorbance, write_librar
 
 import mixsolve as ms
 from mixsolve.cli import main
-from mixsolve.uncertainty import SOURCES
-from mixsolve.volumetric import parse_dilution
+from mixsolve.uncertainty.budget import SOURCES
+from mixsolve.uncertainty.volumetric import parse_dilution
 
 CONC = np.array([[4.0e-5, 2.0e-5, 3.0e-5], [1.0e-5, 5.0e-5, 2.0e-5]])  # mol/L, invented
 

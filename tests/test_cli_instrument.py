@@ -15,8 +15,8 @@ from helpers_io import leftovers, write_text, write_wide
 from scipy.interpolate import CubicSpline
 
 from mixsolve.cli import main
-from mixsolve.diagnostics.absorbance_scale import DICHROMATE_SPECIFIC_ABSORBANCE
-from mixsolve.diagnostics.wavelength_scale import HOLMIUM_BANDS_NM
+from mixsolve.instrument.absorbance_scale import DICHROMATE_SPECIFIC_ABSORBANCE
+from mixsolve.instrument.wavelength_scale import HOLMIUM_BANDS_NM
 from mixsolve.io.log_io import LOG_COLUMNS
 
 UV = np.arange(220.0, 400.1, 1.0)

@@ -18,8 +18,8 @@ from click.testing import CliRunner
 
 import mixsolve as ms
 from mixsolve.cli import main
-from mixsolve.diagnostics.check import check_wavelengths
-from mixsolve.diagnostics.choose import EQUAL_TIME_MARGIN
+from mixsolve.wavelengths.check import check_wavelengths
+from mixsolve.wavelengths.choose import EQUAL_TIME_MARGIN
 from mixsolve.workflows.demo import demo_file, run_demo
 
 SEED = 612
@@ -222,7 +222,7 @@ def test_click_level_bad_choices_exit_2_without_traceback(demo_library):
 def test_acceptance_choose_four_is_within_the_documented_margin(demo_library):
     """Issue acceptance: ``wavelengths choose --count 4`` on the demo gives a set whose
     predicted variance at equal measuring time is no worse than the full window's by more
-    than EQUAL_TIME_MARGIN (mixsolve.diagnostics.choose, documented there).
+    than EQUAL_TIME_MARGIN (mixsolve.wavelengths.choose, documented there).
     """
     data = json.loads(ok("wavelengths", "choose", demo_library, "--count", "4",
                          "--json").stdout)

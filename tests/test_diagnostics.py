@@ -16,26 +16,26 @@ import xarray as xr
 from scipy import stats
 
 import mixsolve as ms
-from mixsolve.diagnostics.check import (
-    DEFAULT_SIGMA_A,
-    LOW_SELECTIVITY,
-    check_wavelengths,
-    merit_to_dict,
-)
-from mixsolve.diagnostics.choose import EQUAL_TIME_MARGIN, choose_wavelengths
-from mixsolve.diagnostics.merit import verdict
-from mixsolve.diagnostics.sample_checks import (
+from mixsolve.errors import InputError
+from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, STATUS_CODES, STRUCTURED
+from mixsolve.noise import NoiseModel
+from mixsolve.report.merit_text import format_check, format_choice
+from mixsolve.solve.sample_checks import (
     MIN_POINTS_RUNS,
     absorbance_extent,
     lack_of_fit,
     runs_test,
     target_absorbance,
 )
-from mixsolve.diagnostics.trust import FLAG_P_VALUE
-from mixsolve.errors import InputError
-from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, STATUS_CODES, STRUCTURED
-from mixsolve.noise import NoiseModel
-from mixsolve.report.merit_text import format_check, format_choice
+from mixsolve.solve.trust import FLAG_P_VALUE
+from mixsolve.wavelengths.check import (
+    DEFAULT_SIGMA_A,
+    LOW_SELECTIVITY,
+    check_wavelengths,
+    merit_to_dict,
+)
+from mixsolve.wavelengths.choose import EQUAL_TIME_MARGIN, choose_wavelengths
+from mixsolve.wavelengths.merit import verdict
 
 SEED = 4242
 WL = np.arange(400.0, 701.0, 5.0)

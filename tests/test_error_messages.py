@@ -436,7 +436,8 @@ def test_failed_write_keeps_previous_results(tmp_path, inputs, monkeypatch):
 def test_demo_out_is_a_file(tmp_path):
     pytest.importorskip("mixsolve.workflows.demo")
     target = write_text(tmp_path / "demo", "not a folder")
-    assert_error(invoke("demo", "--out", target), r"demo: exists and is not a folder; choose another output folder$")
+    assert_error(invoke("demo", "--out", target),
+                 r"demo: exists and is not a folder; choose another output folder$")
     assert target.read_text() == "not a folder"
 
 

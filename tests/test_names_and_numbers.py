@@ -39,13 +39,11 @@ from helpers_io import (
 
 import mixsolve as ms
 from mixsolve.cli import main
-from mixsolve.diagnostics.absorbance_scale import check_absorbance_scale
-from mixsolve.diagnostics.check import check_wavelengths
-from mixsolve.diagnostics.choose import _variances, choose_wavelengths
-from mixsolve.diagnostics.stray_light import check_stray_light
-from mixsolve.diagnostics.wavelength_scale import check_wavelength_scale
 from mixsolve.errors import InputError
 from mixsolve.flags import NO_SIGNAL, STATUS_CODES
+from mixsolve.instrument.absorbance_scale import check_absorbance_scale
+from mixsolve.instrument.stray_light import check_stray_light
+from mixsolve.instrument.wavelength_scale import check_wavelength_scale
 from mixsolve.io.layout_io import read_layout
 from mixsolve.io.reference_io import read_reference
 from mixsolve.io.standards_io import read_standards
@@ -54,6 +52,8 @@ from mixsolve.report.figures import PLOT_LIMIT, drawable, literal, sample_figure
 from mixsolve.report.plate_page import FLAG_TEXT, heat_map, residual_figure
 from mixsolve.solve.design import MAX_CONDITION_NUMBER
 from mixsolve.spectra import check_number, check_wavelength_list
+from mixsolve.wavelengths.check import check_wavelengths
+from mixsolve.wavelengths.choose import _variances, choose_wavelengths
 from mixsolve.workflows.demo import demo_file
 
 NEAR = r"names 'Ext_03 ' and 'ext_03' differ only in case or spacing; rename one"

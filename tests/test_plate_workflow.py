@@ -27,7 +27,7 @@ from test_plates import (
 import mixsolve as ms
 from mixsolve.cli import main
 from mixsolve.errors import FileFormatError, InputError, UnitError
-from mixsolve.plate import plate_wells
+from mixsolve.plate.wells import plate_wells
 from mixsolve.report.html import SAFETY_CAUTIONS
 from mixsolve.report.text import CAUTION
 from mixsolve.workflows.plate import find_exports
@@ -107,7 +107,7 @@ def files(tmp_path: Path) -> dict[str, Path]:
             "library": write_library_file(tmp_path / "lib.nc")}
 
 
-def _samples(result: ms.workflows.plate_analysis.PlateResult) -> pd.DataFrame:
+def _samples(result: ms.plate.analysis.PlateResult) -> pd.DataFrame:
     return result.samples.set_index(["sample", "component"])
 
 

@@ -1,4 +1,4 @@
-"""Plate exports (mixsolve.io.plates) and plate maths (mixsolve.plate).
+"""Plate exports (mixsolve.io.plates) and plate maths (mixsolve.plate.wells).
 
 Every export here is invented: two Gaussian bands ("red", "blue"; tests/helpers_io.py) mixed
 in known, seeded concentrations per well, written in each generic layout (grid blocks, well
@@ -20,7 +20,8 @@ from helpers_io import WL, band, fmt, make_library, write_text, write_xlsx
 
 import mixsolve as ms
 from mixsolve.errors import FileFormatError, InputError
-from mixsolve.plate import (
+from mixsolve.plate.analysis import analyse_plate
+from mixsolve.plate.wells import (
     parse_well,
     pathlength_from_volume,
     plate_wells,
@@ -28,7 +29,6 @@ from mixsolve.plate import (
     subtract_blank,
     water_band_pathlength,
 )
-from mixsolve.workflows.plate_analysis import analyse_plate
 
 SEED = 20240611
 BACKGROUND_AU = 0.035  # invented plate + solvent absorbance, the same in every well

@@ -18,11 +18,11 @@ import mixsolve as ms
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.model_store import file_kind
 from mixsolve.io.reference_io import read_reference
+from mixsolve.pls.compare import compare_verdict
+from mixsolve.pls.cross_validation import make_folds, one_standard_error_choice
+from mixsolve.pls.predict import resample_to_model
+from mixsolve.pls.reference import reference_matrix
 from mixsolve.report.calibration_text import format_calibration, format_prediction
-from mixsolve.solve.pls_compare import compare_verdict
-from mixsolve.solve.pls_cv import make_folds, one_standard_error_choice
-from mixsolve.solve.pls_predict import resample_to_model
-from mixsolve.solve.pls_reference import reference_matrix
 
 WL = np.arange(420.0, 681.0, 4.0)
 #: Invented bands: centre (nm), width (nm), absorbance per mg/L at 1 cm.

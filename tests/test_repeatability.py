@@ -1,4 +1,4 @@
-"""Repeatability of repeated scans (mixsolve.repeat_scans). Invented, seeded data."""
+"""Repeatability of repeated scans (mixsolve.instrument.repeatability). Invented, seeded data."""
 
 from __future__ import annotations
 

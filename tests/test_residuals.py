@@ -1,6 +1,6 @@
 """Residual summaries (mixsolve.solve.residuals) and the trust figures made from them.
 
-Reference: the per-spectrum definitions of mixsolve.diagnostics.sample_checks (the
+Reference: the per-spectrum definitions of mixsolve.solve.sample_checks (the
 Wald–Wolfowitz runs test on residual signs, lag-1 autocorrelation, extremes of the
 reading), evaluated here spectrum by spectrum on explicit arrays; numbers invented and
 seeded.
@@ -11,10 +11,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from mixsolve.diagnostics.sample_checks import absorbance_extent, runs_test
-from mixsolve.diagnostics.trust import runs_from_summary
 from mixsolve.solve import residuals
 from mixsolve.solve.residuals import summarise, summarise_model
+from mixsolve.solve.sample_checks import absorbance_extent, runs_test
+from mixsolve.solve.trust import runs_from_summary
 
 
 def awkward(rng: np.random.Generator, n: int = 60, m: int = 40) -> np.ndarray:

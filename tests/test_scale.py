@@ -18,10 +18,10 @@ from click.testing import CliRunner
 
 import mixsolve as ms
 from mixsolve.cli import main
-from mixsolve.diagnostics.sample_checks import runs_test
 from mixsolve.errors import FileFormatError, InputError, OutputError
 from mixsolve.flags import STATUS_CODES
 from mixsolve.io.cubes import chunk_plan
+from mixsolve.solve.sample_checks import runs_test
 
 WL = np.arange(400.0, 701.0, 5.0)
 #: Invented bands (height L/(mol*cm), centre nm, width nm).
@@ -167,8 +167,8 @@ def test_flags_of_equals_the_definition(library: xr.Dataset, method: str) -> Non
 def test_block_checks_equal_whole_array_checks(library: xr.Dataset) -> None:
     """The trust figures computed block by block inside the fit equal those computed from
     the result's own residual, fitted and measured arrays (sample_checks definitions)."""
-    from mixsolve.diagnostics.sample_checks import absorbance_extent, lack_of_fit
     from mixsolve.noise import noise_model
+    from mixsolve.solve.sample_checks import absorbance_extent, lack_of_fit
 
     cube = make_cube((6, 7), noise=0.01)
     result = ms.unmix(cube, library, noise=0.004)

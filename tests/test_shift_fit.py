@@ -1,4 +1,4 @@
-"""Wavelength-shift sensitivity (mixsolve.diagnostics.shift) and the shift fit
+"""Wavelength-shift sensitivity (mixsolve.solve.shift_sensitivity) and the shift fit
 (mixsolve.solve.shift_fit, ``unmix(fit_shift=True)``).
 
 The library is made of invented Gaussian bands on a fine 0.5 nm grid so that the "truth"
@@ -12,9 +12,9 @@ import pytest
 import xarray as xr
 
 import mixsolve as ms
-from mixsolve.diagnostics.check import check_wavelengths
-from mixsolve.diagnostics.shift import library_derivative, shift_matrix
 from mixsolve.errors import InputError
+from mixsolve.solve.shift_sensitivity import library_derivative, shift_matrix
+from mixsolve.wavelengths.check import check_wavelengths
 
 SEED = 808
 #: Invented bands: (height L/(mol*cm), centre nm, width nm) per component.

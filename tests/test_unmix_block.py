@@ -1,4 +1,4 @@
-"""One block of unmix (mixsolve.solve.unmix_block): tasks, threads, refusals.
+"""One block of unmix (mixsolve.solve.block): tasks, threads, refusals.
 
 The result of a block must not depend on how it is cut into tasks or how many threads
 share them (each spectrum's fit is its own problem); checked against the same block fitted
@@ -17,8 +17,8 @@ import xarray as xr
 
 import mixsolve as ms
 from mixsolve.errors import InputError
-from mixsolve.solve import unmix_block as block_module
-from mixsolve.solve.unmix_block import OUTPUTS, unmix_block
+from mixsolve.solve import block as block_module
+from mixsolve.solve.block import OUTPUTS, unmix_block
 
 
 @pytest.fixture

@@ -1,4 +1,4 @@
-"""Dilutions and volumetric tolerances (mixsolve.volumetric).
+"""Dilutions and volumetric tolerances (mixsolve.uncertainty.volumetric).
 
 The class tolerances are from memory of ISO 648/1042/8655 (see the module); these tests
 check the arithmetic and the parsing, not those values.
@@ -11,7 +11,7 @@ import math
 import pytest
 
 import mixsolve as ms
-from mixsolve.volumetric import VolumeStep, parse_dilution, volume_step
+from mixsolve.uncertainty.volumetric import VolumeStep, parse_dilution, volume_step
 
 
 def test_factor_and_relative_uncertainty_by_hand() -> None:

@@ -101,7 +101,7 @@ def _open(p: Path) -> xr.Dataset:
 
 def _check_eager_size(p: Path) -> None:
     """Refuse a cube whose dimension coordinates, which opening it reads whole (xarray
-    indexes them), declare more than :data:`mixsolve.io.fast_read.CAREFUL_MAX_BYTES`.
+    indexes them), declare more than :data:`mixsolve.io.limits.CAREFUL_MAX_BYTES`.
 
     The absorbance itself is read lazily, chunk by chunk, so a large cube is fine; its
     coordinates are not. Only the header is read here; a file it cannot read is left to
@@ -200,7 +200,7 @@ def write_cube(data: xr.Dataset | xr.DataArray, path: str | os.PathLike[str], *,
         Ends in ``.zarr`` (a Zarr store, a folder) or ``.nc`` (netCDF-4, h5netcdf).
     compute : callable, optional
         Runs the delayed write, e.g. with a progress bar or on a dask.distributed cluster
-        (:func:`mixsolve.scale.compute`); default ``dask.compute``.
+        (:func:`mixsolve.workflows.cluster.compute`); default ``dask.compute``.
 
     Returns
     -------

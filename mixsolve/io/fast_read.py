@@ -24,8 +24,6 @@ from mixsolve.io.tables import _detect_decimal, _detect_separator, _split, parse
 
 #: Files at least this large use the fast path first (smaller ones are quick either way).
 FAST_PATH_MIN_BYTES = 1_000_000
-#: Above this size the careful reader is not used (its memory grows with every cell).
-CAREFUL_MAX_BYTES = 200_000_000
 _NA = ["", "nan", "NaN", "NAN", "na", "NA", "n/a", "N/A"]
 _HEAD_LINES = 200
 

@@ -16,7 +16,7 @@ import pandas as pd
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.tables import parse_number, read_table
 from mixsolve.names import check_spellings, normalise_name
-from mixsolve.plate import parse_well, well_name
+from mixsolve.plate.wells import parse_well, well_name
 from mixsolve.units import concentration_basis
 
 ROLES = ("blank", "sample", "standard", "empty")

@@ -18,7 +18,7 @@ import xarray as xr
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.netcdf_store import ENGINE, file_kind, open_kind, write_netcdf
 from mixsolve.library import describe_dtype, parse_json_object
-from mixsolve.solve.pls_model import MODEL_KIND, check_model
+from mixsolve.pls.model import MODEL_KIND, check_model
 from mixsolve.units import concentration_basis
 
 __all__ = ["ENGINE", "file_kind", "read_model", "write_model"]

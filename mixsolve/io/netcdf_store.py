@@ -3,7 +3,7 @@
 Libraries and PLS models are both Datasets marked by a ``mixsolve_kind`` attribute; this
 module holds what they share, and ``library_store``/``model_store`` add their checks.
 Both are small and read whole into memory, so a file whose header declares more than
-:data:`mixsolve.io.fast_read.CAREFUL_MAX_BYTES` of arrays is refused before anything is
+:data:`mixsolve.io.limits.CAREFUL_MAX_BYTES` of arrays is refused before anything is
 read (:func:`declared_variables`).
 """
 
@@ -20,9 +20,9 @@ from typing import Any, NamedTuple
 import xarray as xr
 
 from mixsolve.errors import FileFormatError
-from mixsolve.io import fast_read
+from mixsolve.io import limits
 from mixsolve.io.atomic import atomic_path
-from mixsolve.io.tables import size_text
+from mixsolve.io.limits import size_text
 
 ENGINE = "h5netcdf"
 #: ``mixsolve_kind`` of the files mixsolve writes, and what each is called in messages.
@@ -91,7 +91,7 @@ def refuse_oversized(declared: dict[str, Declared], file: str, what: str, limit_
         <fix>"``.
     """
     total = sum(d.nbytes for d in declared.values())
-    limit = fast_read.CAREFUL_MAX_BYTES
+    limit = limits.CAREFUL_MAX_BYTES
     if total > limit:
         name, biggest = max(declared.items(), key=lambda item: item[1].nbytes)
         raise FileFormatError(
@@ -116,7 +116,7 @@ def open_netcdf(path: str | os.PathLike[str], *,
     ------
     FileFormatError
         Missing, a folder, not netCDF-4, or declaring more than
-        :data:`~mixsolve.io.fast_read.CAREFUL_MAX_BYTES` of arrays (checked on the header,
+        :data:`~mixsolve.io.limits.CAREFUL_MAX_BYTES` of arrays (checked on the header,
         before anything is allocated).
     """
     p = Path(path)

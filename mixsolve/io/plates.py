@@ -27,7 +27,7 @@ import xarray as xr
 
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.tables import SEPARATOR_NAMES, RawTable, parse_number, read_rows
-from mixsolve.plate import (
+from mixsolve.plate.wells import (
     PLATE_SHAPES,
     ROW_LETTERS,
     WELL,

@@ -15,7 +15,7 @@ import pandas as pd
 import xarray as xr
 
 from mixsolve.errors import FileFormatError, InputError
-from mixsolve.io import fast_read
+from mixsolve.io import fast_read, limits
 from mixsolve.io.tables import (
     MAX_TEXT_BYTES,
     SEPARATOR_NAMES,
@@ -103,11 +103,11 @@ def _read_large_text(p: Path) -> xr.DataArray | None:
         text_columns = tuple(i for i in range(len(header)) if i not in cols[1:])
         frame = fast_read.read_numeric(p, sep, decimal, header, text_columns)
         da = None if frame is None else _fast_long(frame, cols, attrs)
-    if da is None and size > fast_read.CAREFUL_MAX_BYTES:
+    if da is None and size > limits.CAREFUL_MAX_BYTES:
         fast_read.locate_problem(p, sep, decimal, len(header), text_columns)
         raise FileFormatError(
             f"{p.name}: {size / 1e6:.0f} MB is too large for the line-by-line check "
-            f"(limit {fast_read.CAREFUL_MAX_BYTES / 1e6:.0f} MB) and did not read cleanly: "
+            f"(limit {limits.CAREFUL_MAX_BYTES / 1e6:.0f} MB) and did not read cleanly: "
             "look for duplicate wavelengths or names, or store it as netCDF/Zarr")
     return da
 

@@ -23,6 +23,8 @@ from typing import Any
 import numpy as np
 
 from mixsolve.errors import FileFormatError, InputError
+from mixsolve.io import limits
+from mixsolve.io.limits import MAX_TEXT_BYTES, size_text
 
 SEPARATORS = ("\t", ";", ",")
 SEPARATOR_NAMES = {"\t": "tab", ";": "semicolon", ",": "comma", None: "xlsx"}
@@ -32,8 +34,6 @@ _MISSING = {"", "nan", "na", "n/a"}
 # Wide exports can hold 10^5 samples on one line: lift the csv module's 128 KiB cell cap.
 csv.field_size_limit(2**31 - 1)
 
-#: Largest text table read in memory (bytes); bigger inputs belong in netCDF/Zarr.
-MAX_TEXT_BYTES = 2_000_000_000
 
 
 @dataclass
@@ -256,9 +256,7 @@ def xlsx_expanded_bytes(data: bytes) -> int:
 
 def _check_xlsx_size(data: bytes, name: str) -> None:
     """Refuse a workbook whose XML expands beyond the in-memory limit, before parsing it."""
-    from mixsolve.io import fast_read  # deferred: fast_read imports this module
-
-    limit = fast_read.CAREFUL_MAX_BYTES
+    limit = limits.CAREFUL_MAX_BYTES
     try:
         size = xlsx_expanded_bytes(data)
     except (zipfile.BadZipFile, OSError, ValueError) as exc:
@@ -268,14 +266,6 @@ def _check_xlsx_size(data: bytes, name: str) -> None:
             f"{name}: the workbook expands to {size_text(size)} of XML (declared "
             f"uncompressed size), more than the {size_text(limit)} an XLSX input may hold; "
             "save the sheet as CSV or split the workbook")
-
-
-def size_text(size: float) -> str:
-    """A number of bytes as short text in decimal units: ``"1.4 GB"``, ``"200 MB"``."""
-    for unit, scale in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
-        if size >= scale:
-            return f"{size / scale:.3g} {unit}"
-    return f"{size:.0f} bytes"
 
 
 def _read_xlsx(p: Path, name: str, sheet: str | None) -> RawTable:

@@ -13,9 +13,9 @@ import numpy as np
 import xarray as xr
 
 from mixsolve.library import COMPONENT
+from mixsolve.pls.compare import AS_GOOD, CLEARLY_BETTER, compare_verdict
+from mixsolve.pls.model import FLAG_CODES
 from mixsolve.report.text import CAUTION, _notes, _num, value_with_uncertainty
-from mixsolve.solve.pls_compare import AS_GOOD, CLEARLY_BETTER, compare_verdict
-from mixsolve.solve.pls_model import FLAG_CODES
 from mixsolve.spectra import SAMPLE, WAVELENGTH
 
 

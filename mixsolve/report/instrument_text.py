@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.diagnostics.instrument_result import CheckResult
+from mixsolve.instrument.result import CheckResult
 
 TITLES = {
     "absorbance": "Absorbance scale (potassium dichromate)",

@@ -67,7 +67,7 @@ def format_check(check: xr.Dataset) -> str:
 
 def format_choice(choice: object) -> str:
     """Summary of :func:`mixsolve.choose_wavelengths`: the set and how it compares."""
-    from mixsolve.diagnostics.choose import EQUAL_TIME_MARGIN, WavelengthChoice
+    from mixsolve.wavelengths.choose import EQUAL_TIME_MARGIN, WavelengthChoice
 
     assert isinstance(choice, WavelengthChoice)
     full = choice.full

@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.plate import PLATE_SHAPES, ROW_LETTERS, WELL, parse_well
+from mixsolve.plate.wells import PLATE_SHAPES, ROW_LETTERS, WELL, parse_well
 from mixsolve.report import html
 from mixsolve.report.text import value_with_uncertainty
 from mixsolve.spectra import WAVELENGTH
@@ -169,7 +169,7 @@ def plate_page(
     Parameters
     ----------
     wells, samples : DataFrame
-        The tidy tables of :func:`mixsolve.workflows.plate_analysis.analyse_plate`.
+        The tidy tables of :func:`mixsolve.plate.analysis.analyse_plate`.
     result : Dataset or None
         The :func:`mixsolve.unmix` result over the fitted wells (for the residuals).
     plate_size : {96, 384}

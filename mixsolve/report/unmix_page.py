@@ -13,7 +13,7 @@ from mixsolve.report.budget_text import format_budget
 from mixsolve.report.figures import library_figure, precision_figure, sample_figure
 from mixsolve.report.tables import results_table
 from mixsolve.report.text import _result_notes
-from mixsolve.uncertainty import budget_table
+from mixsolve.uncertainty.budget import budget_table
 
 #: Most sample figures drawn; beyond this the worst fits (largest RMS residual) are shown.
 MAX_SAMPLE_FIGURES = 36

@@ -139,7 +139,7 @@ def design_matrix(
 #: table carries (typically 3-5), so the results would be noise.
 MAX_CONDITION_NUMBER = 1e6
 #: Scaled condition number above which every result is flagged ``ill_conditioned``
-#: (the "poor" threshold of mixsolve.diagnostics.merit.verdict).
+#: (the "poor" threshold of mixsolve.wavelengths.merit.verdict).
 ILL_CONDITIONED_ABOVE = 1e3
 
 

@@ -4,7 +4,7 @@ The trust checks of a fit need only a few numbers from each residual spectrum r 
 wavelength order, over the readings present): Σr², Σrᵢrᵢ₊₁ (neighbours among the
 readings present), how many rᵢ are > 0 and ≠ 0, and how many sign changes occur between
 consecutive non-zero rᵢ; and, from the measured spectrum, its largest and smallest
-reading. :mod:`mixsolve.diagnostics.trust` turns them into the runs test, the lag-1
+reading. :mod:`mixsolve.solve.trust` turns them into the runs test, the lag-1
 autocorrelation and the RMS residual. Computing them block by block, while each block is
 in cache, avoids holding full-size fitted and residual arrays (3× the data's memory);
 :mod:`mixsolve.solve.fused` computes the same numbers in compiled code.

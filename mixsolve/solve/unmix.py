@@ -12,7 +12,6 @@ import numpy as np
 import xarray as xr
 
 from mixsolve._version import __version__
-from mixsolve.diagnostics.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
 from mixsolve.errors import (
     ExtrapolationWarning,
     IllConditionedWarning,
@@ -22,6 +21,14 @@ from mixsolve.errors import (
 from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
+from mixsolve.solve.block import (
+    DTYPES,
+    OUTPUTS,
+    SHIFT_OUTPUTS,
+    TERM,
+    BlockSettings,
+    unmix_block,
+)
 from mixsolve.solve.cls import METHODS, Method, choose_engine, default_threads
 from mixsolve.solve.design import (
     BASELINE_TERMS,
@@ -33,14 +40,7 @@ from mixsolve.solve.design import (
     select_wavelengths,
 )
 from mixsolve.solve.model_spectra import fitted_and_residual
-from mixsolve.solve.unmix_block import (
-    DTYPES,
-    OUTPUTS,
-    SHIFT_OUTPUTS,
-    TERM,
-    BlockSettings,
-    unmix_block,
-)
+from mixsolve.solve.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
 from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_window
 from mixsolve.units import conversion_factor
 

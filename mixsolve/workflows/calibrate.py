@@ -19,8 +19,8 @@ from mixsolve.io.model_store import write_model
 from mixsolve.io.outputs import all_or_nothing
 from mixsolve.io.reference_io import read_reference
 from mixsolve.io.spectra_io import read_spectra
+from mixsolve.pls.calibrate import calibrate
 from mixsolve.report.calibration_text import format_calibration
-from mixsolve.solve.pls_calibrate import calibrate
 
 PathLike = str | os.PathLike[str]
 

@@ -1,6 +1,6 @@
 """Instrument checks on files: read the spectra, check, format, append to the log.
 
-Each run returns the :class:`~mixsolve.diagnostics.instrument_result.CheckResult` and the
+Each run returns the :class:`~mixsolve.instrument.result.CheckResult` and the
 text to print; with ``log`` it appends one dated record per item to that CSV file
 (atomically, :func:`mixsolve.io.log_io.append_log`). A failed check is a result, not an
 error: the exit code stays 0 and the text says FAIL.
@@ -16,15 +16,15 @@ from typing import Any
 
 import xarray as xr
 
-from mixsolve.diagnostics.absorbance_scale import check_absorbance_scale
-from mixsolve.diagnostics.instrument_result import CheckResult
-from mixsolve.diagnostics.stray_light import check_stray_light
-from mixsolve.diagnostics.wavelength_scale import check_wavelength_scale
+from mixsolve.instrument.absorbance_scale import check_absorbance_scale
+from mixsolve.instrument.repeatability import repeatability
+from mixsolve.instrument.result import CheckResult
+from mixsolve.instrument.stray_light import check_stray_light
+from mixsolve.instrument.wavelength_scale import check_wavelength_scale
 from mixsolve.io.log_io import append_log
 from mixsolve.io.outputs import guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.io.spectra_io import read_spectra
-from mixsolve.repeat_scans import repeatability
 from mixsolve.report.instrument_text import check_records, format_check, format_repeatability
 
 PathLike = str | os.PathLike[str]

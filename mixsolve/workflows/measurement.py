@@ -18,14 +18,19 @@ from typing import Any
 
 import xarray as xr
 
-from mixsolve.corrections import CellCorrection, cell_blank, correct_cells, shift_wavelengths
 from mixsolve.errors import InputError
+from mixsolve.instrument.repeatability import repeatability
 from mixsolve.io.spectra_io import read_spectra
-from mixsolve.measurement_model import DEFAULT_FILL_VOLUME_UL
-from mixsolve.repeat_scans import repeatability
 from mixsolve.report.budget_text import format_budget
-from mixsolve.uncertainty import uncertainty_budget
-from mixsolve.volumetric import parse_dilution
+from mixsolve.uncertainty.budget import uncertainty_budget
+from mixsolve.uncertainty.corrections import (
+    CellCorrection,
+    cell_blank,
+    correct_cells,
+    shift_wavelengths,
+)
+from mixsolve.uncertainty.measurement_model import DEFAULT_FILL_VOLUME_UL
+from mixsolve.uncertainty.volumetric import parse_dilution
 
 PathLike = str | os.PathLike[str]
 BUDGET_PREFIX = "budget_"

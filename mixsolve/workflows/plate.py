@@ -24,8 +24,8 @@ from mixsolve.io.library_store import read_library, write_library
 from mixsolve.io.outputs import all_or_nothing, guard_outputs, unique_names
 from mixsolve.io.plates import read_plate
 from mixsolve.io.results_io import write_table, write_text, write_workbook
+from mixsolve.plate.analysis import PlateResult, analyse_plate
 from mixsolve.report.text import CAUTION
-from mixsolve.workflows.plate_analysis import PlateResult, analyse_plate
 
 PathLike = str | os.PathLike[str]
 #: File suffixes taken from a folder of exports.
@@ -131,7 +131,7 @@ def run_plates(
     progress : callable, optional
         ``progress(done, total, message)`` after each plate (the CLI shows a bar).
     **options
-        Passed to :func:`mixsolve.workflows.plate_analysis.analyse_plate` (window,
+        Passed to :func:`mixsolve.plate.analysis.analyse_plate` (window,
         wavelengths, method, baseline, unit, pathlength_cm, volume_ul, well_diameter_mm,
         water_band, water_k_au_per_cm, max_cv) and on to :func:`mixsolve.unmix` (weights,
         noise, absorbance_range, fit_shift, ...).

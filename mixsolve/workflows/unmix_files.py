@@ -25,13 +25,13 @@ from mixsolve.io.outputs import all_or_nothing, guard_outputs, in_run
 from mixsolve.io.results_io import write_table, write_text
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.library import COMPONENT
+from mixsolve.pls.model import MODEL_KIND
+from mixsolve.pls.predict import predict
 from mixsolve.report.tables import results_table
 from mixsolve.report.text import format_results
-from mixsolve.scale import compute, dask_client, require_scale
-from mixsolve.solve.pls_model import MODEL_KIND
-from mixsolve.solve.pls_predict import predict
 from mixsolve.solve.unmix import unmix
-from mixsolve.uncertainty import budget_table
+from mixsolve.uncertainty.budget import budget_table
+from mixsolve.workflows.cluster import compute, dask_client, require_scale
 from mixsolve.workflows.measurement import (
     MeasurementOptions,
     attach_budget,
@@ -199,7 +199,7 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         holds a few chunks); anything else: the tidy results CSV.
     scheduler, workers
         An existing dask.distributed scheduler's address, or a local cluster of this many
-        worker processes (:func:`mixsolve.scale.dask_client`); default dask's threads.
+        worker processes (:func:`mixsolve.workflows.cluster.dask_client`); default dask's threads.
     progress : text stream, optional
         Where the progress bar of a long run goes (the CLI passes stderr).
     window, wavelengths, method, baseline, pathlength_cm, unit, measurement, options

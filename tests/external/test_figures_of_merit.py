@@ -19,8 +19,8 @@ import pytest
 import xarray as xr
 
 import mixsolve as ms
-from mixsolve.diagnostics.check import check_wavelengths
-from mixsolve.diagnostics.merit import (
+from mixsolve.wavelengths.check import check_wavelengths
+from mixsolve.wavelengths.merit import (
     net_analyte_sensitivity,
     overlap_matrix,
     scaled_condition_number,

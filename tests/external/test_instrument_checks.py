@@ -12,9 +12,9 @@ import pytest
 from scipy.interpolate import CubicSpline
 
 import mixsolve as ms
-from mixsolve.diagnostics.absorbance_scale import DICHROMATE_SPECIFIC_ABSORBANCE
-from mixsolve.diagnostics.stray_light import stray_fraction_bound
-from mixsolve.diagnostics.wavelength_scale import HOLMIUM_BANDS_NM, band_position
+from mixsolve.instrument.absorbance_scale import DICHROMATE_SPECIFIC_ABSORBANCE
+from mixsolve.instrument.stray_light import stray_fraction_bound
+from mixsolve.instrument.wavelength_scale import HOLMIUM_BANDS_NM, band_position
 
 UV_NM = np.arange(220.0, 400.1, 1.0)
 

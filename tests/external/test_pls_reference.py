@@ -27,7 +27,7 @@ from scipy.signal import savgol_filter
 from sklearn.cross_decomposition import PLSRegression
 
 import mixsolve as ms
-from mixsolve.solve.pls_limits import q_limit, t2_limit
+from mixsolve.pls.limits import q_limit, t2_limit
 
 WL = np.arange(420.0, 681.0, 4.0)
 BANDS = {"amber": (450.0, 22.0, 0.10), "rose": (525.0, 25.0, 0.08), "teal": (610.0, 28.0, 0.11)}

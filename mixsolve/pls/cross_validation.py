@@ -13,8 +13,8 @@ import numpy as np
 from sklearn.model_selection import KFold
 
 from mixsolve.errors import InputError
-from mixsolve.solve.pls_blocks import block_groups, fit_block
-from mixsolve.solve.pls_preprocessing import centre_scale
+from mixsolve.pls.blocks import block_groups, fit_block
+from mixsolve.pls.preprocessing import centre_scale
 
 Split = Literal["blocks", "random"]
 SPLITS: tuple[str, ...] = ("blocks", "random")
@@ -177,7 +177,7 @@ def cv_x_residuals(x: np.ndarray, y: np.ndarray, fold: np.ndarray, scale: str,
     array, shape (n_samples, n_wavelengths)
         e = x − t Pᵀ of each left-out spectrum, centred and scaled with its training set
         (preprocessed, scaled units): what the residual of a new sample looks like, and
-        so the basis of the Q limit (:func:`mixsolve.solve.pls_limits.q_limit`).
+        so the basis of the Q limit (:func:`mixsolve.pls.limits.q_limit`).
     """
     residual = np.empty_like(x)
     for split in _splits(x, y, fold, scale):

@@ -27,8 +27,6 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from mixsolve.diagnostics.check import DEFAULT_SIGMA_A, _figures, candidate_wavelengths
-from mixsolve.diagnostics.merit import scaled_condition_number
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.solve.design import (
@@ -39,6 +37,8 @@ from mixsolve.solve.design import (
     design_matrix,
 )
 from mixsolve.spectra import WAVELENGTH, check_option
+from mixsolve.wavelengths.check import DEFAULT_SIGMA_A, _figures, candidate_wavelengths
+from mixsolve.wavelengths.merit import scaled_condition_number
 
 #: Documented margin for the demo acceptance: at equal measuring time the chosen set's
 #: criterion should not exceed the full window's (1.0) by more than this factor.
@@ -61,7 +61,7 @@ class WavelengthChoice:
 
     def to_dict(self) -> dict[str, object]:
         """Plain JSON-safe summary."""
-        from mixsolve.diagnostics.check import merit_to_dict
+        from mixsolve.wavelengths.check import merit_to_dict
 
         def num(v: float | None) -> float | None:
             return None if v is None or not np.isfinite(v) else float(v)

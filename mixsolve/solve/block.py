@@ -3,7 +3,7 @@
 :func:`unmix_block` works on plain arrays (wavelength on the last axis) and returns every
 per-spectrum variable of the result in final units: the fit (:mod:`mixsolve.solve.cls`,
 or the shift fit of :mod:`mixsolve.solve.shift_fit`), concentrations and uncertainties,
-the trust figures and status bits (:mod:`mixsolve.diagnostics.trust`), the shift bias and
+the trust figures and status bits (:mod:`mixsolve.solve.trust`), the shift bias and
 the flag strings. ``unmix`` runs it once under ``xarray.apply_ufunc``: on the whole array
 for numpy-backed spectra, chunk by chunk for dask-backed ones. Keeping all of it in one
 function keeps the data to one pass and the result to one set of labelled variables.
@@ -23,20 +23,20 @@ from typing import Any, NamedTuple
 import numpy as np
 from threadpoolctl import ThreadpoolController
 
-from mixsolve.diagnostics.sample_checks import lack_of_fit, target_absorbance
-from mixsolve.diagnostics.trust import (
-    CHECK_NAMES,
-    lack_of_fit_model,
-    summary_checks,
-    trust_status,
-)
 from mixsolve.errors import InfiniteReadingError
 from mixsolve.flags import VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.cls import Engine, Method, fit_spectra
 from mixsolve.solve.residuals import ResidualSummary, summarise
+from mixsolve.solve.sample_checks import lack_of_fit, target_absorbance
 from mixsolve.solve.shift_fit import fit_with_shift
+from mixsolve.solve.trust import (
+    CHECK_NAMES,
+    lack_of_fit_model,
+    summary_checks,
+    trust_status,
+)
 from mixsolve.spectra import WAVELENGTH
 
 TERM = "term"

@@ -14,13 +14,13 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from mixsolve.diagnostics.instrument_result import (
+from mixsolve.errors import InputError
+from mixsolve.instrument.result import (
     CheckResult,
     items_frame,
     reading_at,
     scans_of,
 )
-from mixsolve.errors import InputError
 from mixsolve.spectra import check_number
 
 #: **Seen** (CHECKS.md): 12 g/L KCl, A at 200 nm above 2.0.

@@ -25,13 +25,13 @@ from collections.abc import Sequence
 import numpy as np
 import xarray as xr
 
-from mixsolve.diagnostics.instrument_result import (
+from mixsolve.errors import InputError
+from mixsolve.instrument.result import (
     CheckResult,
     items_frame,
     reading_at,
     scans_of,
 )
-from mixsolve.errors import InputError
 from mixsolve.spectra import check_number
 
 #: Wavelength (nm) → (nominal A(1 %, 1 cm), low, high). **Seen** (CHECKS.md); a newer

@@ -13,9 +13,9 @@ import xarray as xr
 from mixsolve._version import __version__
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT
-from mixsolve.solve.pls_blocks import project
-from mixsolve.solve.pls_model import UNCERTAINTY_BASIS, check_model
-from mixsolve.solve.pls_preprocessing import preprocess
+from mixsolve.pls.blocks import project
+from mixsolve.pls.model import UNCERTAINTY_BASIS, check_model
+from mixsolve.pls.preprocessing import preprocess
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
 from mixsolve.units import concentration_basis
 
@@ -92,7 +92,7 @@ def predict(
         residual in AU, AU/nm after a derivative); per component ``t2_limit_95``,
         ``t2_limit_99``, ``q_limit_95``, ``q_limit_99``, ``n_latent`` and ``dof``
         (n_calibration − a − 1); per sample ``flags`` (``;``-joined codes of
-        :data:`mixsolve.solve.pls_model.FLAG_CODES`, docs/flags.md);
+        :data:`mixsolve.pls.model.FLAG_CODES`, docs/flags.md);
         ``attrs["method"] = "pls"``.
 
     Raises

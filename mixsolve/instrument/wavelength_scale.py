@@ -31,8 +31,8 @@ import numpy as np
 import xarray as xr
 from scipy.optimize import curve_fit
 
-from mixsolve.diagnostics.instrument_result import CheckResult, items_frame, scans_of
 from mixsolve.errors import InputError
+from mixsolve.instrument.result import CheckResult, items_frame, scans_of
 from mixsolve.spectra import check_number, check_option, check_wavelength_list
 
 #: Certified band positions (nm) checked by default. **Seen** (CHECKS.md, Ph. Eur. 2.2.25).

@@ -2,7 +2,7 @@
 
 The PLS algorithm itself is scikit-learn's ``PLSRegression`` (NIPALS); the modules around
 it do the reference table, preprocessing, cross-validation, limits and labels. What a
-model holds: :mod:`mixsolve.solve.pls_model`.
+model holds: :mod:`mixsolve.pls.model`.
 """
 
 from __future__ import annotations
@@ -17,9 +17,9 @@ import xarray as xr
 from mixsolve._version import __version__
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT
-from mixsolve.solve.pls_blocks import block_groups, fit_block, project
-from mixsolve.solve.pls_compare import cls_cross_validate
-from mixsolve.solve.pls_cv import (
+from mixsolve.pls.blocks import block_groups, fit_block, project
+from mixsolve.pls.compare import cls_cross_validate
+from mixsolve.pls.cross_validation import (
     DEFAULT_MAX_LATENT,
     ONE_SE_RULE,
     SPLITS,
@@ -31,9 +31,9 @@ from mixsolve.solve.pls_cv import (
     make_folds,
     rms_error,
 )
-from mixsolve.solve.pls_limits import CONFIDENCE, q_limit, t2_limit
-from mixsolve.solve.pls_model import FORMAT_VERSION, MODEL_KIND, UNCERTAINTY_BASIS
-from mixsolve.solve.pls_preprocessing import (
+from mixsolve.pls.limits import CONFIDENCE, q_limit, t2_limit
+from mixsolve.pls.model import FORMAT_VERSION, MODEL_KIND, UNCERTAINTY_BASIS
+from mixsolve.pls.preprocessing import (
     SCALES,
     Scale,
     calibration_arrays,
@@ -41,7 +41,7 @@ from mixsolve.solve.pls_preprocessing import (
     check_derivative,
     preprocess,
 )
-from mixsolve.solve.pls_reference import match_samples, reference_matrix
+from mixsolve.pls.reference import match_samples, reference_matrix
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_option, check_spectra, check_window
 
 Mode = Literal["auto", "pls2", "pls1"]
@@ -73,7 +73,7 @@ def calibrate(
         Blank-corrected absorbance (AU) of the calibration mixtures; wavelength in nm.
         Complete (no NaN) over the wavelengths used.
     reference : DataFrame or DataArray
-        Known concentrations (see :func:`mixsolve.solve.pls_reference.reference_matrix`);
+        Known concentrations (see :func:`mixsolve.pls.reference.reference_matrix`);
         its samples must be exactly those of ``spectra``.
     window : (float, float), optional
         Use the measured wavelengths from ``low`` to ``high`` nm, both included; default all.
@@ -139,7 +139,7 @@ def calibrate(
     Elements of Statistical Learning, §7.10): the CV error of a candidate is the mean over
     samples of (ŷ − y)²/var(y) (averaged over the block's components); its standard error
     is the standard deviation of the per-fold means over √folds. Hotelling T² and Q limits:
-    :func:`mixsolve.solve.pls_limits.t2_limit`, :func:`mixsolve.solve.pls_limits.q_limit`;
+    :func:`mixsolve.pls.limits.t2_limit`, :func:`mixsolve.pls.limits.q_limit`;
     the Q limit's eigenvalues are those of E_cvᵀE_cv/n, E_cv the cross-validated spectral
     residuals of the mixtures at the chosen number of latent variables.
     """

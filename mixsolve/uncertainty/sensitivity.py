@@ -20,7 +20,7 @@ less of component j), the first a correction proportional to the residual. For
 independent absorptivity errors u(ε_j(λᵢ)) this gives u²(x_k) = Σᵢⱼ (∂x_k/∂D_ij)² u²_ij.
 
 These are first-order (linearised) results; the Monte Carlo propagation of
-:mod:`mixsolve.montecarlo` checks them.
+:mod:`mixsolve.uncertainty.montecarlo` checks them.
 """
 
 from __future__ import annotations

@@ -7,18 +7,18 @@ from collections.abc import Sequence
 import numpy as np
 import xarray as xr
 
-from mixsolve.diagnostics.merit import (
+from mixsolve.errors import InputError
+from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.names import normalise_name
+from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
+from mixsolve.solve.shift_sensitivity import library_derivative, shift_matrix
+from mixsolve.spectra import WAVELENGTH, check_option, check_wavelength_list, check_window
+from mixsolve.wavelengths.merit import (
     net_analyte_sensitivity,
     overlap_matrix,
     scaled_condition_number,
     verdict,
 )
-from mixsolve.diagnostics.shift import library_derivative, shift_matrix
-from mixsolve.errors import InputError
-from mixsolve.library import COMPONENT, check_library, resample_library
-from mixsolve.names import normalise_name
-from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
-from mixsolve.spectra import WAVELENGTH, check_option, check_wavelength_list, check_window
 
 #: σ_A (AU) assumed when none is given: a typical benchtop reading noise (common practice).
 DEFAULT_SIGMA_A = 0.001
@@ -99,7 +99,7 @@ def check_wavelengths(
 
     Notes
     -----
-    Definitions in :mod:`mixsolve.diagnostics.merit` and :mod:`mixsolve.diagnostics.shift`
+    Definitions in :mod:`mixsolve.wavelengths.merit` and :mod:`mixsolve.solve.shift_sensitivity`
     (Lorber 1986; Olivieri et al. 2006). LOD/LOQ use the 3.3 and 10 multipliers of σ/SEN
     for a blank-limited reading; they are predictions under the stated σ_A, not measured
     detection limits. The condition number counts the baseline columns when present.

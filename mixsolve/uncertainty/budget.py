@@ -6,7 +6,7 @@ the combined standard uncertainty u_c(y) = √Σ uᵢ²(y) (law of propagation o
 JCGM 100:2008, 5.1.2, inputs taken as uncorrelated), the expanded uncertainty U = k·u_c
 (k = 2) and each source's share uᵢ²/u_c² of the variance. Definitions of every source are
 in :func:`uncertainty_budget` and docs/uncertainty.md; a Monte Carlo propagation
-(JCGM 101:2008, :mod:`mixsolve.montecarlo`) can check the linear result.
+(JCGM 101:2008, :mod:`mixsolve.uncertainty.montecarlo`) can check the linear result.
 """
 
 from __future__ import annotations
@@ -17,20 +17,20 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.corrections import CellCorrection
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT
-from mixsolve.measurement_model import (
+from mixsolve.spectra import SAMPLE
+from mixsolve.uncertainty.corrections import CellCorrection
+from mixsolve.uncertainty.measurement_model import (
     DEFAULT_FILL_VOLUME_UL,
     CarryFrom,
     MeasurementModel,
     SampleModel,
     measurement_model,
 )
-from mixsolve.montecarlo import DEFAULT_TOLERANCE, compare, propagate
-from mixsolve.solve.sensitivity import design_sensitivity, propagate_independent
-from mixsolve.spectra import SAMPLE
-from mixsolve.volumetric import Dilution
+from mixsolve.uncertainty.montecarlo import DEFAULT_TOLERANCE, compare, propagate
+from mixsolve.uncertainty.sensitivity import design_sensitivity, propagate_independent
+from mixsolve.uncertainty.volumetric import Dilution
 
 SOURCE = "source"
 #: Source → (evaluation type, distribution, unit of the input quantity, what it is).
@@ -130,7 +130,8 @@ def uncertainty_budget(
         Standard uncertainty of the pathlength (cm); for a tolerance ±a give a/√3.
         Not stated (NaN) when omitted.
     dilution : Dilution, optional
-        The dilution of the sample before measuring (:func:`mixsolve.volumetric.parse_dilution`).
+        The dilution of the sample before measuring
+        (:func:`mixsolve.uncertainty.volumetric.parse_dilution`).
         With it the measurand is the undiluted concentration F·c.
     carryover_ul : float, optional
         Residual liquid (µL) left in the cell when it is refilled without drying; 0 when
@@ -178,7 +179,8 @@ def uncertainty_budget(
         ``input_unit``. With ``monte_carlo``: ``mc_mean``, ``mc_standard_uncertainty``,
         ``mc_low_95``, ``mc_high_95`` (2.5 % and 97.5 % quantiles), ``mc_d_low``, ``mc_d_high``,
         ``mc_agrees`` (u and mean of the draws within δ of u_c and y) and
-        ``mc_interval_agrees`` (JCGM 101:2008, 8.2), see :func:`mixsolve.montecarlo.compare`.
+        ``mc_interval_agrees`` (JCGM 101:2008, 8.2), see
+        :func:`mixsolve.uncertainty.montecarlo.compare`.
 
     Raises
     ------
@@ -193,7 +195,7 @@ def uncertainty_budget(
     - spectral_noise: the fit's ``std_uncertainty`` (× F); with ``noise_sd``,
       √(Σᵢ G_kᵢ² σᵢ²)·f_k·F/b, G the fit's least-squares operator.
     - absorptivity: √(Σᵢⱼ (∂x_k/∂ε_j(λᵢ))² u²(ε_j(λᵢ)))·f_k·F/b with the linearised
-      sensitivity of :func:`mixsolve.solve.sensitivity.design_sensitivity`; errors
+      sensitivity of :func:`mixsolve.uncertainty.sensitivity.design_sensitivity`; errors
       independent across wavelengths and components; NaN when any u(ε) is not stated.
     - pathlength: |y|·u(b)/b. cell_ratio: |y|·u(r)/r.
     - dilution: |y|·u(F)/F, u(F)/F = √Σ(u(Vᵢ)/Vᵢ)².

@@ -4,12 +4,12 @@ For one sample and component k, the reported quantity (the measurand) is
 
     y_k = F · f_k · x_k(A_corr, ε) / (b · r) + carry-over correction (0 ± …)
 
-with x = G A_corr the least-squares coefficients (:mod:`mixsolve.solve.sensitivity`),
+with x = G A_corr the least-squares coefficients (:mod:`mixsolve.uncertainty.sensitivity`),
 A_corr the corrected absorbance at the used wavelengths (AU), ε the library absorptivities
 (canonical unit), b the pathlength (cm), r the cell pathlength ratio, F the dilution factor
 and f_k the unit conversion factor. This module gathers, per sample, the arrays the linear
-budget (:mod:`mixsolve.uncertainty`) and the Monte Carlo propagation
-(:mod:`mixsolve.montecarlo`) both need, so the two always propagate the same inputs.
+budget (:mod:`mixsolve.uncertainty.budget`) and the Monte Carlo propagation
+(:mod:`mixsolve.uncertainty.montecarlo`) both need, so the two always propagate the same inputs.
 """
 
 from __future__ import annotations
@@ -21,15 +21,15 @@ from typing import Literal
 import numpy as np
 import xarray as xr
 
-from mixsolve.corrections import CellCorrection, on_wavelengths
-from mixsolve.diagnostics.shift import library_derivative
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.design import design_matrix
-from mixsolve.solve.sensitivity import ls_operators
+from mixsolve.solve.shift_sensitivity import library_derivative
 from mixsolve.spectra import SAMPLE, WAVELENGTH
-from mixsolve.volumetric import Dilution
+from mixsolve.uncertainty.corrections import CellCorrection, on_wavelengths
+from mixsolve.uncertainty.sensitivity import ls_operators
+from mixsolve.uncertainty.volumetric import Dilution
 
 CarryFrom = Literal["previous", "solvent"]
 #: Fill volume of a 10 mm macro cuvette (µL), common practice; used for the carry-over

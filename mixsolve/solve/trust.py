@@ -3,12 +3,12 @@
 :func:`summary_checks` turns the residual summary of each spectrum
 (:class:`~mixsolve.solve.residuals.ResidualSummary`, computed inside the fit while the
 spectrum is in cache) into range and residual-structure figures (definitions in
-:mod:`mixsolve.diagnostics.sample_checks`); :func:`lack_of_fit_model` adds the lack-of-fit
+:mod:`mixsolve.solve.sample_checks`); :func:`lack_of_fit_model` adds the lack-of-fit
 figures block by block when a noise model is given. ``unmix`` calls both inside the same
 ``xarray.apply_ufunc`` as the fit, so numpy- and dask-backed spectra alike are read once.
 :func:`trust_status` turns them into the status bits of :mod:`mixsolve.flags` in the same
 pass, and :func:`shift_bias_matrix` gives the wavelength-shift bias per unit of each
-component (all used by :mod:`mixsolve.solve.unmix_block`).
+component (all used by :mod:`mixsolve.solve.block`).
 """
 
 from __future__ import annotations
@@ -17,15 +17,15 @@ import numpy as np
 import xarray as xr
 from scipy.special import ndtr
 
-from mixsolve.diagnostics.sample_checks import (
-    MIN_POINTS_RUNS,
-    lack_of_fit,
-)
-from mixsolve.diagnostics.shift import library_derivative, shift_matrix
 from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, NO_SIGNAL, STRUCTURED
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.residuals import ResidualSummary, model_blocks
+from mixsolve.solve.sample_checks import (
+    MIN_POINTS_RUNS,
+    lack_of_fit,
+)
+from mixsolve.solve.shift_sensitivity import library_derivative, shift_matrix
 from mixsolve.spectra import WAVELENGTH
 
 #: p-value below which lack of fit or residual structure is flagged (judgement; 1 in 1000
@@ -72,7 +72,7 @@ def summary_checks(summary: ResidualSummary,
 def runs_from_summary(summary: ResidualSummary) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Runs-test z, one-sided p and lag-1 autocorrelation from the residual summary.
 
-    The definitions of :func:`mixsolve.diagnostics.sample_checks.runs_test`: n non-zero
+    The definitions of :func:`mixsolve.solve.sample_checks.runs_test`: n non-zero
     residuals, n₊ of them positive, R = 1 + sign changes, μ = 2n₊n₋/n + 1,
     v = (μ − 1)(μ − 2)/(n − 1), z = (R − μ)/√v, p = Φ(z); NaN when n < ``MIN_POINTS_RUNS``
     or one sign only. r₁ = Σrᵢrᵢ₊₁ / Σrᵢ² over the readings present (NaN below 2 of them
@@ -95,7 +95,7 @@ def runs_from_summary(summary: ResidualSummary) -> tuple[np.ndarray, np.ndarray,
 
 def lack_of_fit_model(values: np.ndarray, coef: np.ndarray, design: np.ndarray,
                       dof: np.ndarray, noise: NoiseModel) -> tuple[np.ndarray, np.ndarray]:
-    """:func:`~mixsolve.diagnostics.sample_checks.lack_of_fit` of r = values − coef·Dᵀ.
+    """:func:`~mixsolve.solve.sample_checks.lack_of_fit` of r = values − coef·Dᵀ.
 
     Parameters
     ----------
@@ -167,7 +167,7 @@ def shift_bias_matrix(library: xr.Dataset, design: np.ndarray, used_wl: np.ndarr
                       ) -> np.ndarray:
     """S (components × components): concentration bias per +1 nm per unit of each component.
 
-    The component rows of D⁺K′ (:func:`mixsolve.diagnostics.shift.shift_matrix`), K′ the
+    The component rows of D⁺K′ (:func:`mixsolve.solve.shift_sensitivity.shift_matrix`), K′ the
     library's dε/dλ at the used wavelengths; bias(c) = S c per nm, in the unit of c.
     NaN when the library carries no slope (fewer than 3 wavelengths).
     """

@@ -3,19 +3,19 @@
 A PLS model is an :class:`xarray.Dataset` holding everything prediction needs: the
 wavelength grid, the preprocessing (Savitzky–Golay first derivative, centring, scaling),
 weights and loadings per model block, the cross-validation figures and the Hotelling T² and
-Q-residual limits. Its contents are listed in :func:`mixsolve.solve.pls_calibrate.calibrate`,
+Q-residual limits. Its contents are listed in :func:`mixsolve.pls.calibrate.calibrate`,
 its file in :mod:`mixsolve.io.model_store`, its use in docs/calibration.md.
 
 Model blocks: ``pls2`` is one block predicting every component; ``pls1`` is one block per
 component. Block arrays are padded with NaN beyond the block's number of latent variables.
 
-The PLS code is split by job: :mod:`~mixsolve.solve.pls_reference` (known
-concentrations), :mod:`~mixsolve.solve.pls_preprocessing` (window, derivative, centring,
-scaling), :mod:`~mixsolve.solve.pls_blocks` (one block: fit and projection),
-:mod:`~mixsolve.solve.pls_limits` (T² and Q limits), :mod:`~mixsolve.solve.pls_cv`
-(folds, cross-validation, number of latent variables), :mod:`~mixsolve.solve.pls_compare`
-(CLS on the same folds), :mod:`~mixsolve.solve.pls_calibrate` (:func:`calibrate`) and
-:mod:`~mixsolve.solve.pls_predict` (:func:`predict`).
+The PLS code is split by job: :mod:`~mixsolve.pls.reference` (known
+concentrations), :mod:`~mixsolve.pls.preprocessing` (window, derivative, centring,
+scaling), :mod:`~mixsolve.pls.blocks` (one block: fit and projection),
+:mod:`~mixsolve.pls.limits` (T² and Q limits), :mod:`~mixsolve.pls.cross_validation`
+(folds, cross-validation, number of latent variables), :mod:`~mixsolve.pls.compare`
+(CLS on the same folds), :mod:`~mixsolve.pls.calibrate` (:func:`calibrate`) and
+:mod:`~mixsolve.pls.predict` (:func:`predict`).
 """
 
 from __future__ import annotations

@@ -19,7 +19,7 @@ import xarray as xr
 from mixsolve._version import __version__
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, build_library, check_library
-from mixsolve.plate import (
+from mixsolve.plate.wells import (
     DEFAULT_MAX_CV,
     SAMPLE_MEAN_RULE,
     WATER_BAND_AU_PER_CM,
@@ -162,7 +162,7 @@ def analyse_plate(
     -----
     Every well of the plate and of the layout gets rows in ``wells`` and every sample
     rows in ``samples``, with a result or a flag saying why there is none. The sample
-    mean and its uncertainty follow :func:`mixsolve.plate.replicate_statistics`.
+    mean and its uncertainty follow :func:`mixsolve.plate.wells.replicate_statistics`.
     """
     plate = check_spectra(plate, "plate")
     if not np.isfinite(float(max_cv)) or float(max_cv) <= 0:

@@ -1,7 +1,7 @@
 """Monte Carlo propagation of the measurement model (JCGM 101:2008), to check the linear budget.
 
 Each draw samples every stated input from its distribution and recomputes the measurand
-with the full (non-linear) model of :mod:`mixsolve.measurement_model`:
+with the full (non-linear) model of :mod:`mixsolve.uncertainty.measurement_model`:
 
 - readings: A + N(0, σ_noise) + N(0, σ_blank) + U(−1, 1)·δA_stray + a wavelength error
   δ ~ U(−a, a) (or N(0, u)) applied through the library itself,
@@ -36,7 +36,7 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 
 from mixsolve.errors import InputError
-from mixsolve.measurement_model import MeasurementModel, SampleModel
+from mixsolve.uncertainty.measurement_model import MeasurementModel, SampleModel
 
 #: Coverage factor of a 95 % interval under a normal distribution (JCGM 101, 8.2).
 K95 = 1.96

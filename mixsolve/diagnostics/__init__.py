@@ -1,1 +1,0 @@
-"""Trust checks on libraries and results (conditioning, range, residuals, shift)."""

@@ -1,0 +1,1 @@
+"""Instrument checks: absorbance scale, wavelength scale, stray light, repeatability."""

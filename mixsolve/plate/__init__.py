@@ -1,0 +1,1 @@
+"""Plates: well maths and one plate's analysis in memory."""

@@ -1,0 +1,2 @@
+"""Uncertainty: the GUM budget, its inputs, Monte Carlo, sensitivities, volumetric ware and
+cell corrections."""

@@ -1,0 +1,1 @@
+"""Wavelength sets: figures of merit, checking a set, choosing a better one."""
