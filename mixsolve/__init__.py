@@ -13,9 +13,11 @@ from typing import TYPE_CHECKING
 from mixsolve._version import __version__
 from mixsolve.errors import InputError, MixsolveError, MixsolveWarning
 
-# The public names are imported on first use, so that `import mixsolve` (and every CLI
-# call) does not pay for scikit-learn, scipy.stats, matplotlib and dask up front. The
-# explicit imports under TYPE_CHECKING keep the names visible to type checkers and IDEs.
+# The public API: each name and the module that defines it, imported on first use so that
+# `import mixsolve` (and every CLI call) does not pay for scikit-learn, scipy.stats,
+# matplotlib and dask up front. Type checkers, IDEs and linters cannot read this dict: for
+# them the same names are imported under TYPE_CHECKING and listed in __all__ (a computed
+# __all__ would hide them). tests/test_public_api.py checks that the three lists agree.
 _LAZY: dict[str, str] = {
     "NoiseModel": "mixsolve.noise",
     "analyse_plate": "mixsolve.plate.analysis",

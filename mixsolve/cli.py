@@ -1,21 +1,32 @@
 """Command line: a thin click layer. Each command parses, calls one API function, prints.
 
-Errors a user can cause (:class:`mixsolve.errors.MixsolveError`) become one line on stderr
-and exit code 2; ``--debug`` shows the traceback instead. Warnings go to stderr.
+The root group (:class:`OneLineErrors`) handles every command's failures once: an error a
+user can cause (:class:`mixsolve.errors.MixsolveError`) becomes one line on stderr and exit
+code 2, Ctrl-C one line and exit code 130, and ``--debug`` shows the traceback instead.
+mixsolve's own warnings (:class:`mixsolve.errors.MixsolveWarning`) become ``warning:``
+lines on stderr; a library's warnings are not the user's business (``--debug`` shows them).
+
+Option values are parsed by click callbacks (``parse_*``); choices and defaults are read
+from the core (:class:`CoreChoice`, :class:`CoreDefault`) when a command needs them, so that
+``mixsolve --help`` and ``mixsolve --version`` import none of the numerical libraries.
 """
 
 from __future__ import annotations
 
-import functools
+import contextlib
+import importlib
+import inspect
 import sys
 import warnings
-from collections.abc import Callable
-from typing import Any
+from collections.abc import Callable, Iterator
+from typing import Any, TypeVar
 
 import click
 
 from mixsolve._version import __version__
-from mixsolve.errors import InputError, MixsolveError
+from mixsolve.errors import InputError, MixsolveError, MixsolveWarning
+
+T = TypeVar("T")
 
 
 class UsageError(click.ClickException):
@@ -40,30 +51,116 @@ class Interrupted(click.ClickException):
 INTERRUPTED = "interrupted (Ctrl-C); this run changed no file"
 
 
-def _guarded(func: Callable[..., Any]) -> Callable[..., Any]:
-    """Map mixsolve errors to exit 2 and print warnings as single lines on stderr."""
+@contextlib.contextmanager
+def one_line_errors(debug: bool) -> Iterator[None]:
+    """Map a mixsolve error to exit 2 and Ctrl-C to exit 130, each as one line."""
+    try:
+        yield
+    except MixsolveError as exc:
+        if debug:
+            raise
+        raise UsageError(" ".join(str(exc).split())) from None
+    except KeyboardInterrupt:
+        if debug:
+            raise
+        raise Interrupted(INTERRUPTED) from None
 
-    @functools.wraps(func)
-    def wrapper(*args: Any, **kwargs: Any) -> Any:
-        debug = click.get_current_context().find_root().params.get("debug", False)
+
+@contextlib.contextmanager
+def warning_lines(debug: bool) -> Iterator[None]:
+    """Echo mixsolve's own warnings as ``warning: ...`` lines on stderr when the command ends.
+
+    Other warnings (a library's note about a busy port, a numpy RuntimeWarning) say nothing
+    the user can act on: they are dropped, or shown as Python shows them with ``--debug``.
+    """
+    caught: list[warnings.WarningMessage] = []
+    try:
         with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            try:
-                out = func(*args, **kwargs)
-            except MixsolveError as exc:
-                if debug:
-                    raise
-                raise UsageError(" ".join(str(exc).split())) from None
-            except KeyboardInterrupt:
-                if debug:
-                    raise
-                raise Interrupted(INTERRUPTED) from None
-            finally:
-                for w in caught:
-                    click.echo(f"warning: {w.message}", err=True)
-        return out
+            if not debug:
+                warnings.simplefilter("ignore")
+            warnings.simplefilter("always", MixsolveWarning)
+            yield
+    finally:
+        for w in caught:
+            if issubclass(w.category, MixsolveWarning):
+                click.echo(f"warning: {w.message}", err=True)
+            else:
+                warnings.showwarning(w.message, w.category, w.filename, w.lineno)
 
-    return wrapper
+
+# --- choices and defaults read from the core ----------------------------------------------
+
+
+def core(ref: str) -> Any:
+    """The core object ``ref`` names, as ``"package.module:name"`` (imported on first use)."""
+    module, _, name = ref.partition(":")
+    return getattr(importlib.import_module(module), name)
+
+
+def number_text(value: float) -> str:
+    """A number as the command line takes it: ``2.0`` as ``2``, ``241.15`` as it is."""
+    return f"{value:.15g}"
+
+
+class CoreDefault:
+    """An option's default, read from the core when a command needs it.
+
+    ``CoreDefault("mixsolve.noise:DEFAULT_ABSORBANCE_RANGE")`` is a constant;
+    ``CoreDefault("mixsolve.solve.unmix:unmix", "max_shift_nm")`` the default of a keyword
+    of a core function. ``text`` turns the value into what the option takes on the command
+    line (its callback parses that again). click calls the object for the value, and shows
+    ``str()`` of it in the help.
+    """
+
+    def __init__(self, ref: str, keyword: str | None = None,
+                 text: Callable[[Any], Any] = lambda value: value) -> None:
+        self.ref = ref
+        self.keyword = keyword
+        self.text = text
+
+    def __call__(self) -> Any:
+        value = core(self.ref)
+        if self.keyword is not None:
+            value = inspect.signature(value).parameters[self.keyword].default
+        return self.text(value)
+
+    def __str__(self) -> str:
+        return str(self())
+
+    def __repr__(self) -> str:
+        return f"CoreDefault({self.ref!r}, {self.keyword!r})"
+
+
+class CoreChoice(click.Choice):
+    """A ``click.Choice`` over a tuple (or the keys of a dict) of the core, e.g.
+    ``CoreChoice("mixsolve.solve.design:BASELINES")``, read when a command needs it."""
+
+    def __init__(self, ref: str) -> None:
+        # not click.Choice.__init__, which would read the choices now: they are a property
+        self.ref = ref
+        self.case_sensitive = True
+
+    @property
+    def choices(self) -> tuple[str, ...]:
+        return tuple(str(choice) for choice in core(self.ref))
+
+    def __repr__(self) -> str:
+        return f"CoreChoice({self.ref!r})"
+
+
+# --- option values: click callbacks -----------------------------------------------------
+
+
+def callback(parse: Callable[[str, str], T]) -> Callable[..., T | None]:
+    """A click callback running ``parse(text, flag)`` on an option given (or defaulted);
+    ``flag`` (e.g. ``--range``) names the option in messages."""
+
+    def parse_option(ctx: click.Context, param: click.Parameter, text: str | None) -> T | None:
+        if text is None or ctx.resilient_parsing:
+            return None
+        return parse(text, param.opts[0])
+
+    return parse_option
 
 
 def _finite(values: list[float], option: str, text: str) -> list[float]:
@@ -74,10 +171,8 @@ def _finite(values: list[float], option: str, text: str) -> list[float]:
     return values
 
 
-def parse_window(text: str | None, option: str = "--window") -> tuple[float, float] | None:
+def parse_window(text: str, option: str = "--window") -> tuple[float, float]:
     """Parse ``"400-700"`` (nm) into a pair; both ends are included in the fit."""
-    if text is None:
-        return None
     parts = text.replace(":", "-").split("-")
     try:
         low, high = (float(p) for p in parts)
@@ -87,10 +182,18 @@ def parse_window(text: str | None, option: str = "--window") -> tuple[float, flo
     return low, high
 
 
-def parse_wavelengths(text: str | None, option: str = "--wavelengths") -> list[float] | None:
+def window_text(window: tuple[float, float]) -> str:
+    """A (low, high) pair as :func:`parse_window` reads it: ``(0.3, 2.0)`` as ``0.3-2``."""
+    return "-".join(number_text(end) for end in window)
+
+
+def numbers_text(values: tuple[float, ...]) -> str:
+    """Numbers as :func:`parse_numbers` reads them: ``241.15,287.15``."""
+    return ",".join(number_text(value) for value in values)
+
+
+def parse_wavelengths(text: str, option: str = "--wavelengths") -> list[float]:
     """Parse ``"663.6,646.6"`` (nm)."""
-    if text is None:
-        return None
     try:
         values = [float(p) for p in text.split(",") if p.strip()]
     except ValueError:
@@ -99,18 +202,30 @@ def parse_wavelengths(text: str | None, option: str = "--wavelengths") -> list[f
     return _finite(values, option, text)
 
 
-def parse_noise(text: str | None) -> str | float | None:
+def parse_numbers(text: str, option: str) -> list[float]:
+    """Parse a comma-separated list of numbers given to ``option``."""
+    try:
+        values = [float(p) for p in text.split(",") if p.strip()]
+    except ValueError:
+        raise InputError(f"{option}: {text!r} is not a comma-separated list of numbers") from None
+    return _finite(values, option, text)
+
+
+def parse_names(text: str, option: str) -> list[str] | None:
+    """Parse ``"red,blue"`` into names; an empty text is no list."""
+    return [name.strip() for name in text.split(",")] if text else None
+
+
+def parse_noise(text: str, option: str = "--noise") -> str | float:
     """``--noise``: a preset name or σ_A in AU."""
-    if text is None:
-        return None
     try:
         value = float(text)
     except ValueError:
         return text
-    return _finite([value], "--noise", text)[0]
+    return _finite([value], option, text)[0]
 
 
-def parse_molar_masses(text: str | None) -> dict[str, float] | None:
+def parse_molar_masses(text: str, option: str = "--molar-mass") -> dict[str, float] | None:
     """Parse ``"chl_a=893.5,chl_b=907.5"`` (g/mol)."""
     if not text:
         return None
@@ -122,29 +237,69 @@ def parse_molar_masses(text: str | None) -> dict[str, float] | None:
                 raise ValueError
             out[name.strip()] = float(value)
         except ValueError:
-            raise InputError(f"--molar-mass: {item!r} is not NAME=G_PER_MOL") from None
-        _finite([out[name.strip()]], "--molar-mass", item)
+            raise InputError(f"{option}: {item!r} is not NAME=G_PER_MOL") from None
+        _finite([out[name.strip()]], option, item)
     return out
 
 
+def parse_latent(text: str, option: str = "--latent") -> int | str:
+    """Parse ``--latent``: ``auto`` or a whole number of latent variables."""
+    if text.strip().lower() == "auto":
+        return "auto"
+    try:
+        return int(text)
+    except ValueError:
+        raise InputError(f"{option}: {text!r} is not a whole number or 'auto'") from None
+
+
+def parse_whole(text: str, option: str) -> int:
+    """A choice made of digits (``--plate-size 384``) as the number it names."""
+    return int(text)
+
+
+def max_cv_percent(fraction: float) -> float:
+    """The core's replicate CV limit (a fraction) as ``--max-cv`` shows it (%)."""
+    return 100 * fraction
+
+
+def max_cv_fraction(ctx: click.Context, param: click.Parameter, percent: float) -> float:
+    """``--max-cv`` is given in % (20 means a CV of 0.2); the core takes a fraction."""
+    return percent / 100
+
+
+# where the defaults live: the API functions the commands call
+UNMIX = "mixsolve.solve.unmix:unmix"
+ANALYSE_PLATE = "mixsolve.plate.analysis:analyse_plate"
+CALIBRATE = "mixsolve.pls.calibrate:calibrate"
+ABSORBANCE_SCALE = "mixsolve.instrument.absorbance_scale:check_absorbance_scale"
+WAVELENGTH_SCALE = "mixsolve.instrument.wavelength_scale:check_wavelength_scale"
+STRAY_LIGHT = "mixsolve.instrument.stray_light:check_stray_light"
+BASELINE_CHOICE = CoreChoice("mixsolve.solve.design:BASELINES")
+
 fit_options = [
-    click.option("--method", type=click.Choice(["nnls", "ols"]), default="nnls",
+    click.option("--method", type=CoreChoice("mixsolve.solve.cls:METHODS"),
+                 default=CoreDefault(UNMIX, "method"), show_default=True),
+    click.option("--baseline", type=BASELINE_CHOICE, default=CoreDefault(UNMIX, "baseline"),
                  show_default=True),
-    click.option("--baseline", type=click.Choice(["none", "offset", "linear"]),
-                 default="none", show_default=True),
 ]
 noise_options = [
-    click.option("--weights", type=click.Choice(["none", "noise"]), default="none",
-                 show_default=True, help="Weight readings by 1/σ_A² of the noise model."),
-    click.option("--noise", help="Noise model: a preset (benchtop_double_beam, diode_array, "
+    click.option("--weights", type=CoreChoice("mixsolve.solve.unmix:WEIGHTS"),
+                 default=CoreDefault(UNMIX, "weights"), show_default=True,
+                 help="Weight readings by 1/σ_A² of the noise model."),
+    click.option("--noise", callback=callback(parse_noise),
+                 help="Noise model: a preset (benchtop_double_beam, diode_array, "
                  "microplate, field_photometer) or σ_A in AU; enables the lack-of-fit test."),
-    click.option("--range", "absorbance_range", default="0.3-2", show_default=True,
+    click.option("--range", "absorbance_range", type=str,
+                 default=CoreDefault(UNMIX, "absorbance_range", window_text), show_default=True,
+                 callback=callback(parse_window),
                  help="Reliable absorbance range LOW-HIGH (AU) for the range flags."),
 ]
 
 selection_options = [
-    click.option("--window", help="Wavelength window LOW-HIGH in nm, both ends included."),
-    click.option("--wavelengths", help="Discrete wavelengths in nm, comma-separated."),
+    click.option("--window", callback=callback(parse_window),
+                 help="Wavelength window LOW-HIGH in nm, both ends included."),
+    click.option("--wavelengths", callback=callback(parse_wavelengths),
+                 help="Discrete wavelengths in nm, comma-separated."),
 ]
 
 
@@ -184,7 +339,17 @@ def add_options(options: list[Callable[..., Any]]) -> Callable[..., Any]:
 
 
 class OneLineErrors(click.Group):
-    """Show click's own usage errors as one ``error:`` line too (exit code 2)."""
+    """The root group: every command's errors and warnings are handled here, once.
+
+    A mixsolve error is one ``error:`` line and exit code 2, Ctrl-C one line and exit code
+    130 (:func:`one_line_errors`); mixsolve's warnings are ``warning:`` lines
+    (:func:`warning_lines`); click's own usage errors are one ``error:`` line too (exit 2).
+    """
+
+    def invoke(self, ctx: click.Context) -> Any:
+        debug = bool(ctx.params.get("debug"))
+        with warning_lines(debug), one_line_errors(debug):
+            return super().invoke(ctx)
 
     def main(self, *args: Any, **kwargs: Any) -> Any:
         if not kwargs.pop("standalone_mode", True):
@@ -214,14 +379,15 @@ def main(debug: bool) -> None:
 
 
 @main.command()
-@click.option("--out", "out_dir", default="mixsolve-demo", show_default=True,
+@click.option("--out", "out_dir", default=CoreDefault("mixsolve.workflows.demo:run_demo",
+                                                      "out_dir"), show_default=True,
               help="Folder for the demo's library, results and comparison.")
 @click.option("--cube", "cube_pixels", type=int, default=None, metavar="PIXELS",
               help="Instead: write a synthetic PIXELS x PIXELS image cube (Zarr) into "
                    "OUT/cube/ and unmix it chunk by chunk (needs the scale extra).")
-@click.option("--cube-wavelengths", type=int, default=191, show_default=True,
+@click.option("--cube-wavelengths", type=int, show_default=True,
+              default=CoreDefault("mixsolve.workflows.demo_cube:run_cube_demo", "n_wavelengths"),
               help="Wavelengths of that cube, from 380 to 760 nm.")
-@_guarded
 def demo(out_dir: str, cube_pixels: int | None, cube_wavelengths: int) -> None:
     """Run the whole job on the bundled synthetic demo data."""
     if cube_pixels is not None:
@@ -245,16 +411,16 @@ def library() -> None:
 @click.argument("table")
 @click.option("--unit", required=True, help='Absorptivity unit, e.g. "L/(mol*cm)" or "L/(g*cm)".')
 @click.option("--out", required=True, help="Library file to write (.nc).")
-@click.option("--molar-mass", help="Molar masses, NAME=G_PER_MOL,...")
+@click.option("--molar-mass", callback=callback(parse_molar_masses),
+              help="Molar masses, NAME=G_PER_MOL,...")
 @click.option("--solvent", default="", help="Solvent or matrix the values hold for.")
 @click.option("--bandwidth-nm", type=float, help="Spectral bandwidth of the instrument (nm).")
-@_guarded
-def library_import(table: str, unit: str, out: str, molar_mass: str | None, solvent: str,
-                   bandwidth_nm: float | None) -> None:
+def library_import(table: str, unit: str, out: str, molar_mass: dict[str, float] | None,
+                   solvent: str, bandwidth_nm: float | None) -> None:
     """Make a library from a table of known absorptivities (wavelength_nm, one column each)."""
     from mixsolve.workflows.library_files import import_library_file
 
-    lib = import_library_file(table, unit, out, molar_mass=parse_molar_masses(molar_mass),
+    lib = import_library_file(table, unit, out, molar_mass=molar_mass,
                               solvent=solvent, bandwidth_nm=bandwidth_nm)
     click.echo(f"wrote {out}: {lib.sizes['component']} components, "
                f"{lib.sizes['wavelength']} wavelengths, {lib.attrs['unit']}", err=True)
@@ -266,12 +432,12 @@ def library_import(table: str, unit: str, out: str, molar_mass: str | None, solv
 @click.option("--out", required=True, help="Library file to write (.nc).")
 @click.option("--intercept", is_flag=True, help="Fit an intercept to expose blank offsets.")
 @click.option("--pathlength", type=float, help="Pathlength in cm of rows that give none [1].")
-@click.option("--molar-mass", help="Molar masses, NAME=G_PER_MOL,...")
+@click.option("--molar-mass", callback=callback(parse_molar_masses),
+              help="Molar masses, NAME=G_PER_MOL,...")
 @click.option("--solvent", default="", help="Solvent or matrix of the standards.")
 @click.option("--bandwidth-nm", type=float, help="Spectral bandwidth of the instrument (nm).")
-@_guarded
 def library_build(spectra: str, standards: str, out: str, intercept: bool,
-                  pathlength: float | None, molar_mass: str | None, solvent: str,
+                  pathlength: float | None, molar_mass: dict[str, float] | None, solvent: str,
                   bandwidth_nm: float | None) -> None:
     """Build a library from spectra of pure standards and their concentrations."""
     from mixsolve.report.text import format_library
@@ -279,14 +445,13 @@ def library_build(spectra: str, standards: str, out: str, intercept: bool,
 
     lib = build_library_files(spectra, standards, out, intercept=intercept,
                               pathlength_cm=pathlength,
-                              molar_mass=parse_molar_masses(molar_mass), solvent=solvent,
+                              molar_mass=molar_mass, solvent=solvent,
                               bandwidth_nm=bandwidth_nm)
     click.echo(format_library(lib, out), nl=False)
 
 
 @library.command("show")
 @click.argument("library_file")
-@_guarded
 def library_show(library_file: str) -> None:
     """Print a readable summary of a library file."""
     from mixsolve.io.library_store import read_library
@@ -304,19 +469,21 @@ def library_show(library_file: str) -> None:
 @click.option("--unit", help='Concentration unit of the results, e.g. "mg/L", "umol/L".')
 @add_options(noise_options)
 @click.option("--fit-shift", is_flag=True, help="Fit one wavelength offset per sample.")
-@click.option("--max-shift", type=float, default=3.0, show_default=True,
+@click.option("--max-shift", type=float, default=CoreDefault(UNMIX, "max_shift_nm"),
+              show_default=True,
               help="Largest wavelength offset searched with --fit-shift (nm).")
-@click.option("--wavelength-tolerance", type=float, default=0.5, show_default=True,
+@click.option("--wavelength-tolerance", type=float, show_default=True,
+              default=CoreDefault(UNMIX, "wavelength_tolerance_nm"),
               help="Instrument wavelength accuracy (nm) for the shift_sensitive flag.")
 @click.option("--out", help="Results to write: a tidy CSV, or a .zarr or .nc cube.")
 @click.option("--report", help="HTML page to write: settings, results, notes and figures.")
 @click.option("--scheduler", help="Run on this dask.distributed scheduler (tcp://HOST:PORT).")
 @click.option("--workers", type=int, help="Run on a local dask cluster of N worker processes.")
 @add_options(measurement_options)
-@_guarded
-def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str | None,
-          method: str, baseline: str, pathlength: float | None, unit: str | None,
-          weights: str, noise: str | None, absorbance_range: str, fit_shift: bool,
+def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
+          wavelengths: list[float] | None, method: str, baseline: str,
+          pathlength: float | None, unit: str | None, weights: str, noise: str | float | None,
+          absorbance_range: tuple[float, float], fit_shift: bool,
           max_shift: float, wavelength_tolerance: float, out: str | None,
           report: str | None, scheduler: str | None, workers: int | None,
           **measurement: Any) -> None:
@@ -328,12 +495,11 @@ def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str 
     from mixsolve.workflows.measurement import budget_text
     from mixsolve.workflows.unmix_files import format_unmix, unmix_files
 
-    result = unmix_files(library_file, spectra, window=parse_window(window),
-                         wavelengths=parse_wavelengths(wavelengths), method=method,
+    result = unmix_files(library_file, spectra, window=window,
+                         wavelengths=wavelengths, method=method,
                          baseline=baseline, pathlength_cm=pathlength, unit=unit, out=out,
                          report=report,
-                         weights=weights, noise=parse_noise(noise),
-                         absorbance_range=parse_window(absorbance_range, "--range"),
+                         weights=weights, noise=noise, absorbance_range=absorbance_range,
                          fit_shift=fit_shift, max_shift_nm=max_shift,
                          wavelength_tolerance_nm=wavelength_tolerance,
                          measurement=measurement, scheduler=scheduler, workers=workers,
@@ -346,10 +512,11 @@ def unmix(library_file: str, spectra: str, window: str | None, wavelengths: str 
 
 
 merit_options = [
-    click.option("--noise", type=float, default=0.001, show_default=True,
+    click.option("--noise", type=float, show_default=True,
+                 default=CoreDefault("mixsolve.wavelengths.check:DEFAULT_SIGMA_A"),
                  help="Reading noise σ_A in AU."),
-    click.option("--baseline", type=click.Choice(["none", "offset", "linear"]),
-                 default="none", show_default=True),
+    click.option("--baseline", type=BASELINE_CHOICE, show_default=True,
+                 default=CoreDefault("mixsolve.wavelengths.check:check_wavelengths", "baseline")),
     click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead."),
 ]
 
@@ -362,11 +529,12 @@ def wavelengths() -> None:
 @wavelengths.command("check")
 @click.argument("library_file")
 @add_options(selection_options)
-@click.option("--components", help="Check only these components (comma-separated).")
+@click.option("--components", callback=callback(parse_names),
+              help="Check only these components (comma-separated).")
 @add_options(merit_options)
-@_guarded
-def wavelengths_check(library_file: str, window: str | None, wavelengths: str | None,
-                      components: str | None, noise: float, baseline: str,
+def wavelengths_check(library_file: str, window: tuple[float, float] | None,
+                      wavelengths: list[float] | None, components: list[str] | None,
+                      noise: float, baseline: str,
                       as_json: bool) -> None:
     """Conditioning and figures of merit of LIBRARY_FILE at the chosen wavelengths."""
     import json
@@ -376,10 +544,8 @@ def wavelengths_check(library_file: str, window: str | None, wavelengths: str | 
     from mixsolve.wavelengths.check import check_wavelengths, merit_to_dict
 
     check = check_wavelengths(
-        read_library(library_file), window=parse_window(window),
-        wavelengths=parse_wavelengths(wavelengths), noise=noise,
-        components=[c.strip() for c in components.split(",")] if components else None,
-        baseline=baseline)  # type: ignore[arg-type]
+        read_library(library_file), window=window, wavelengths=wavelengths, noise=noise,
+        components=components, baseline=baseline)  # type: ignore[arg-type]
     click.echo(json.dumps(merit_to_dict(check)) if as_json else format_check(check),
                nl=as_json)
 
@@ -387,13 +553,15 @@ def wavelengths_check(library_file: str, window: str | None, wavelengths: str | 
 @wavelengths.command("choose")
 @click.argument("library_file")
 @click.option("--count", type=int, required=True, help="How many wavelengths to choose.")
-@click.option("--window", help="Candidate window LOW-HIGH in nm, both ends included.")
+@click.option("--window", callback=callback(parse_window),
+              help="Candidate window LOW-HIGH in nm, both ends included.")
 @click.option("--contiguous", is_flag=True, help="Choose a contiguous run of wavelengths.")
-@click.option("--compare", help="Your own wavelengths (nm, comma-separated) to compare.")
+@click.option("--compare", callback=callback(parse_wavelengths),
+              help="Your own wavelengths (nm, comma-separated) to compare.")
 @add_options(merit_options)
-@_guarded
-def wavelengths_choose(library_file: str, count: int, window: str | None, contiguous: bool,
-                       compare: str | None, noise: float, baseline: str,
+def wavelengths_choose(library_file: str, count: int, window: tuple[float, float] | None,
+                       contiguous: bool, compare: list[float] | None, noise: float,
+                       baseline: str,
                        as_json: bool) -> None:
     """Choose COUNT wavelengths that minimise the predicted concentration variance."""
     import json
@@ -402,22 +570,13 @@ def wavelengths_choose(library_file: str, count: int, window: str | None, contig
     from mixsolve.report.merit_text import format_choice
     from mixsolve.wavelengths.choose import choose_wavelengths
 
-    choice = choose_wavelengths(read_library(library_file), count, window=parse_window(window),
+    choice = choose_wavelengths(read_library(library_file), count, window=window,
                                 contiguous=contiguous, noise=noise,
                                 baseline=baseline,  # type: ignore[arg-type]
-                                compare=parse_wavelengths(compare, "--compare"))
+                                compare=compare)
     click.echo(json.dumps(choice.to_dict()) if as_json else format_choice(choice),
                nl=as_json)
 
-
-def parse_latent(text: str) -> int | str:
-    """Parse ``--latent``: ``auto`` or a whole number of latent variables."""
-    if text.strip().lower() == "auto":
-        return "auto"
-    try:
-        return int(text)
-    except ValueError:
-        raise InputError(f"--latent: {text!r} is not a whole number or 'auto'") from None
 
 
 @main.command()
@@ -425,37 +584,45 @@ def parse_latent(text: str) -> int | str:
 @click.option("--reference", required=True,
               help="Known concentrations: sample, component, concentration, unit.")
 @click.option("--out", required=True, help="Model file to write (.nc).")
-@click.option("--window", help="Wavelength window LOW-HIGH in nm, both ends included.")
-@click.option("--latent", default="auto", show_default=True,
+@click.option("--window", callback=callback(parse_window),
+              help="Wavelength window LOW-HIGH in nm, both ends included.")
+@click.option("--latent", type=str, default=CoreDefault(CALIBRATE, "latent"), show_default=True,
+              callback=callback(parse_latent),
               help="Latent variables: a number, or auto (cross-validation).")
-@click.option("--max-latent", type=int, default=15, show_default=True,
+@click.option("--max-latent", type=int, default=CoreDefault(CALIBRATE, "max_latent"),
+              show_default=True,
               help="Most latent variables tried by cross-validation.")
 @click.option("--folds", type=int, help="Cross-validation folds [min(10, samples)].")
-@click.option("--split", type=click.Choice(["blocks", "random"]), default="blocks",
-              show_default=True, help="Folds as contiguous blocks in file order, or shuffled.")
-@click.option("--seed", type=int, default=0, show_default=True, help="Seed of --split random.")
-@click.option("--mode", type=click.Choice(["auto", "pls2", "pls1"]), default="auto",
-              show_default=True, help="One PLS2 model, one PLS1 per component, or the better.")
-@click.option("--scale", type=click.Choice(["none", "autoscale"]), default="none",
-              show_default=True, help="Scale each wavelength to unit variance after centring.")
+@click.option("--split", type=CoreChoice("mixsolve.pls.cross_validation:SPLITS"),
+              default=CoreDefault(CALIBRATE, "split"), show_default=True,
+              help="Folds as contiguous blocks in file order, or shuffled.")
+@click.option("--seed", type=int, default=CoreDefault(CALIBRATE, "seed"), show_default=True,
+              help="Seed of --split random.")
+@click.option("--mode", type=CoreChoice("mixsolve.pls.calibrate:MODES"),
+              default=CoreDefault(CALIBRATE, "mode"), show_default=True,
+              help="One PLS2 model, one PLS1 per component, or the better.")
+@click.option("--scale", type=CoreChoice("mixsolve.pls.preprocessing:SCALES"),
+              default=CoreDefault(CALIBRATE, "scale"), show_default=True,
+              help="Scale each wavelength to unit variance after centring.")
 @click.option("--derivative", type=int,
               help="Savitzky-Golay first derivative over this many points (odd).")
-@click.option("--polyorder", type=int, default=2, show_default=True,
+@click.option("--polyorder", type=int, default=CoreDefault(CALIBRATE, "polyorder"),
+              show_default=True,
               help="Polynomial order of the derivative filter.")
 @click.option("--pathlength", type=float, help="Pathlength of the calibration spectra, cm [1].")
 @click.option("--compare", is_flag=True,
               help="Also cross-validate CLS on the same folds and print both.")
 @click.option("--plot", help="PNG file for the CV curve and predicted-vs-reference plots.")
-@_guarded
-def calibrate(spectra: str, reference: str, out: str, window: str | None, latent: str,
+def calibrate(spectra: str, reference: str, out: str, window: tuple[float, float] | None,
+              latent: int | str,
               max_latent: int, folds: int | None, split: str, seed: int, mode: str,
               scale: str, derivative: int | None, polyorder: int, pathlength: float | None,
               compare: bool, plot: str | None) -> None:
     """Build a PLS model from SPECTRA of mixtures of known composition (--reference)."""
     from mixsolve.workflows.calibrate import calibrate_files
 
-    run = calibrate_files(spectra, reference, out, plot=plot, window=parse_window(window),
-                          latent=parse_latent(latent), max_latent=max_latent, folds=folds,
+    run = calibrate_files(spectra, reference, out, plot=plot, window=window,
+                          latent=latent, max_latent=max_latent, folds=folds,
                           split=split, seed=seed, mode=mode, scale=scale,
                           derivative=derivative, polyorder=polyorder,
                           pathlength_cm=pathlength, compare=compare)
@@ -503,22 +670,25 @@ class PlateProgress:
 @click.option("--well-diameter-mm", type=float, help="Well diameter (mm), flat bottom.")
 @click.option("--water-band", is_flag=True,
               help="Pathlength per well from A(977) - A(900) of the raw readings.")
-@click.option("--water-k", type=float, default=0.18, show_default=True,
+@click.option("--water-k", type=float, show_default=True,
+              default=CoreDefault(ANALYSE_PLATE, "water_k_au_per_cm"),
               help="A(977) - A(900) of 1 cm of water (AU/cm); depends on temperature.")
-@click.option("--max-cv", type=float, default=20.0, show_default=True,
+@click.option("--max-cv", type=float, default=CoreDefault(ANALYSE_PLATE, "max_cv", max_cv_percent),
+              show_default=True, callback=max_cv_fraction,
               help="Replicate CV (%) above which a sample is flagged high_cv.")
 @click.option("--sheet", help="XLSX sheet of the exports [first].")
 @click.option("--layout-sheet", help="XLSX sheet of the layout [first].")
-@click.option("--plate-size", type=click.Choice(["96", "384"]), help="Plate format [detected].")
+@click.option("--plate-size", type=CoreChoice("mixsolve.plate.wells:PLATE_SHAPES"),
+              callback=callback(parse_whole), help="Plate format [detected].")
 @add_options(noise_options)
-@_guarded
 def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
-          library_from_plate: bool, out_dir: str, window: str | None, wavelengths: str | None,
+          library_from_plate: bool, out_dir: str, window: tuple[float, float] | None,
+          wavelengths: list[float] | None,
           method: str, baseline: str, unit: str | None, pathlength: float | None,
           volume_ul: float | None, well_diameter_mm: float | None, water_band: bool,
           water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
-          plate_size: str | None, weights: str, noise: str | None,
-          absorbance_range: str) -> None:
+          plate_size: int | None, weights: str, noise: str | float | None,
+          absorbance_range: tuple[float, float]) -> None:
     """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample."""
     from mixsolve.workflows.plate import run_plates
 
@@ -527,26 +697,15 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
         batch = run_plates(
             exports, layout_file, out=out_dir, library=library_file,
             library_from_plate=library_from_plate, sheet=sheet, layout_sheet=layout_sheet,
-            plate_size=int(plate_size) if plate_size else None, progress=progress,
-            window=parse_window(window), wavelengths=parse_wavelengths(wavelengths),
+            plate_size=plate_size, progress=progress, window=window, wavelengths=wavelengths,
             method=method, baseline=baseline, unit=unit, pathlength_cm=pathlength,
             volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
-            water_k_au_per_cm=water_k, max_cv=max_cv / 100, weights=weights,
-            noise=parse_noise(noise), absorbance_range=parse_window(absorbance_range, "--range"))
+            water_k_au_per_cm=water_k, max_cv=max_cv, weights=weights, noise=noise,
+            absorbance_range=absorbance_range)
     finally:
         progress.close()
     click.echo(batch.text, nl=False)
 
-
-def parse_numbers(text: str | None, option: str) -> list[float] | None:
-    """Parse a comma-separated list of numbers given to ``option``."""
-    if text is None:
-        return None
-    try:
-        values = [float(p) for p in text.split(",") if p.strip()]
-    except ValueError:
-        raise InputError(f"{option}: {text!r} is not a comma-separated list of numbers") from None
-    return _finite(values, option, text)
 
 
 @main.group()
@@ -561,23 +720,24 @@ bandwidth_option = click.option("--bandwidth", type=float,
 
 @instrument.command("absorbance")
 @click.argument("spectra")
-@click.option("--concentration", required=True,
+@click.option("--concentration", required=True, callback=callback(parse_numbers),
               help="Dichromate concentration (mg/L): one value, or one per spectrum in order.")
-@click.option("--pathlength", type=float, default=1.0, show_default=True, help="Cell (cm).")
+@click.option("--pathlength", type=float, default=CoreDefault(ABSORBANCE_SCALE, "pathlength_cm"),
+              show_default=True, help="Cell (cm).")
 @click.option("--tolerance", type=float, help="Accept nominal ± this % instead of the table.")
-@click.option("--linearity-tolerance", type=float, default=1.0, show_default=True,
+@click.option("--linearity-tolerance", type=float, show_default=True,
+              default=CoreDefault(ABSORBANCE_SCALE, "linearity_tolerance_pct"),
               help="Largest deviation of a level from the mean specific absorbance (%).")
 @bandwidth_option
 @log_option
-@_guarded
-def instrument_absorbance(spectra: str, concentration: str, pathlength: float,
+def instrument_absorbance(spectra: str, concentration: list[float], pathlength: float,
                           tolerance: float | None, linearity_tolerance: float,
                           bandwidth: float | None, log: str | None) -> None:
     """Absorbance scale from potassium dichromate SPECTRA (235, 257, 313, 350 nm)."""
     from mixsolve.workflows.instrument import run_check
 
     _, text = run_check("absorbance", spectra, log=log,
-                        concentration_mg_l=parse_numbers(concentration, "--concentration"),
+                        concentration_mg_l=concentration,
                         pathlength_cm=pathlength, tolerance_pct=tolerance,
                         linearity_tolerance_pct=linearity_tolerance, bandwidth_nm=bandwidth)
     click.echo(text, nl=False)
@@ -585,31 +745,36 @@ def instrument_absorbance(spectra: str, concentration: str, pathlength: float,
 
 @instrument.command("wavelength")
 @click.argument("spectra")
-@click.option("--bands", help="Certified band positions (nm) [241.15,287.15,361.5,536.3].")
-@click.option("--uv-tolerance", type=float, default=1.0, show_default=True,
+@click.option("--bands", type=str, callback=callback(parse_numbers), show_default=True,
+              default=CoreDefault(WAVELENGTH_SCALE, "bands_nm", numbers_text),
+              help="Certified band positions (nm).")
+@click.option("--uv-tolerance", type=float, show_default=True,
+              default=CoreDefault(WAVELENGTH_SCALE, "uv_tolerance_nm"),
               help="± nm accepted below 400 nm.")
-@click.option("--vis-tolerance", type=float, default=3.0, show_default=True,
+@click.option("--vis-tolerance", type=float, show_default=True,
+              default=CoreDefault(WAVELENGTH_SCALE, "vis_tolerance_nm"),
               help="± nm accepted from 400 nm.")
-@click.option("--fit", type=click.Choice(["gaussian", "quadratic"]), default="gaussian",
-              show_default=True, help="Peak model fitted around each maximum.")
-@click.option("--fit-half-width", type=float, default=3.0, show_default=True,
+@click.option("--fit", type=CoreChoice("mixsolve.instrument.wavelength_scale:BAND_FITS"),
+              default=CoreDefault(WAVELENGTH_SCALE, "method"), show_default=True,
+              help="Peak model fitted around each maximum.")
+@click.option("--fit-half-width", type=float, show_default=True,
+              default=CoreDefault(WAVELENGTH_SCALE, "fit_half_width_nm"),
               help="Half-width of the fitted region (nm).")
 @click.option("--search", type=float, help="Half-width of the band search (nm) [tolerance + 2].")
-@click.option("--reference-u", type=float, default=0.0, show_default=True,
+@click.option("--reference-u", type=float, show_default=True,
+              default=CoreDefault(WAVELENGTH_SCALE, "reference_u_nm"),
               help="Standard uncertainty of the certified positions (nm).")
 @bandwidth_option
 @log_option
-@_guarded
-def instrument_wavelength(spectra: str, bands: str | None, uv_tolerance: float,
+def instrument_wavelength(spectra: str, bands: list[float], uv_tolerance: float,
                           vis_tolerance: float, fit: str, fit_half_width: float,
                           search: float | None, reference_u: float, bandwidth: float | None,
                           log: str | None) -> None:
     """Wavelength scale from a holmium oxide SPECTRA: band positions, offset and its u."""
-    from mixsolve.instrument.wavelength_scale import HOLMIUM_BANDS_NM
     from mixsolve.workflows.instrument import run_check
 
     _, text = run_check("wavelength", spectra, log=log,
-                        bands_nm=parse_numbers(bands, "--bands") or HOLMIUM_BANDS_NM,
+                        bands_nm=bands,
                         uv_tolerance_nm=uv_tolerance, vis_tolerance_nm=vis_tolerance,
                         method=fit, fit_half_width_nm=fit_half_width, search_nm=search,
                         reference_u_nm=reference_u, bandwidth_nm=bandwidth)
@@ -618,13 +783,14 @@ def instrument_wavelength(spectra: str, bands: str | None, uv_tolerance: float,
 
 @instrument.command("stray-light")
 @click.argument("spectra")
-@click.option("--wavelength", type=float, default=200.0, show_default=True,
+@click.option("--wavelength", type=float, default=CoreDefault(STRAY_LIGHT, "wavelength_nm"),
+              show_default=True,
               help="Where the limit applies (nm).")
-@click.option("--limit", type=float, default=2.0, show_default=True,
+@click.option("--limit", type=float, default=CoreDefault(STRAY_LIGHT, "limit_au"),
+              show_default=True,
               help="Each reading must exceed this absorbance (AU).")
 @bandwidth_option
 @log_option
-@_guarded
 def instrument_stray_light(spectra: str, wavelength: float, limit: float,
                            bandwidth: float | None, log: str | None) -> None:
     """Stray light from cut-off filter SPECTRA (12 g/L KCl: A at 200 nm above 2)."""
@@ -638,7 +804,6 @@ def instrument_stray_light(spectra: str, wavelength: float, limit: float,
 @instrument.command("repeatability")
 @click.argument("scans")
 @click.option("--out", help="CSV of mean, SD and drift per wavelength to write.")
-@_guarded
 def instrument_repeatability(scans: str, out: str | None) -> None:
     """SD per wavelength and drift of repeated SCANS of one solution (columns in order)."""
     from mixsolve.workflows.instrument import run_repeatability

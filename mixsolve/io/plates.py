@@ -31,7 +31,7 @@ from mixsolve.plate.wells import (
     PLATE_SHAPES,
     ROW_LETTERS,
     WELL,
-    check_on_plate,
+    on_plate,
     parse_well,
     plate_range,
     plate_size_for,
@@ -93,7 +93,7 @@ def read_plate(
     positions = [parse_well(w) for w in wells]
     size = plate_size or plate_size_for(p for p in positions if p is not None)
     for w, pos in zip(wells, positions, strict=True):
-        if pos is None or size is None or not check_on_plate(pos, size):
+        if pos is None or size is None or not on_plate(pos, size):
             shown = f"a {size}-well plate ({plate_range(size)})" if size else "a 384-well plate"
             raise InputError(f"{table.name}: well {w} is not on {shown}")
     order = np.argsort([r * 100 + c for r, c in positions])  # type: ignore[misc]

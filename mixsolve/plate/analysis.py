@@ -24,7 +24,7 @@ from mixsolve.plate.wells import (
     SAMPLE_MEAN_RULE,
     WATER_BAND_AU_PER_CM,
     WELL,
-    check_on_plate,
+    on_plate,
     parse_well,
     pathlength_from_volume,
     plate_range,
@@ -221,7 +221,7 @@ def _check_layout(layout: pd.DataFrame, layout_name: str, size: int, source: str
                          "mixsolve.io.layout_io.read_layout")
     for row in layout.itertuples(index=False):
         pos = parse_well(row.well)
-        if pos is None or not check_on_plate(pos, size):
+        if pos is None or not on_plate(pos, size):
             raise InputError(f"{layout_name}, line {row.line}: well {row.well} is not on the "
                              f"{size}-well plate of {source} ({plate_range(size)})")
 

@@ -41,7 +41,7 @@ def parse_well(text: object) -> tuple[int, int] | None:
     """Row index (0 = A) and column number (1-based) of a well name, or None.
 
     ``A1``, ``a1`` and ``A01`` are the same well; rows A–P and columns 1–99 are read
-    (whether the well lies on a given plate is :func:`check_on_plate`'s business).
+    (whether the well lies on a given plate is :func:`on_plate`'s business).
     """
     match = _WELL_NAME.match(str(text).strip())
     if match is None:
@@ -75,10 +75,14 @@ def plate_range(size: int) -> str:
     return f"A1-{ROW_LETTERS[rows - 1]}{cols}"
 
 
-def check_on_plate(position: tuple[int, int], size: int) -> bool:
+def on_plate(position: tuple[int, int], size: int) -> bool:
     """Whether a (row, column) position lies on a plate of ``size`` wells."""
     rows, cols = PLATE_SHAPES[size]
     return position[0] < rows and 1 <= position[1] <= cols
+
+
+#: The old name (``check_`` is for validators): kept until issue 13's branches are merged.
+check_on_plate = on_plate
 
 
 def subtract_blank(

@@ -65,7 +65,7 @@ def format_check(result: CheckResult, source: str = "") -> str:
     return "\n".join(lines) + "\n"
 
 
-def check_records(result: CheckResult, *, when: datetime, source: str = "") -> pd.DataFrame:
+def log_records(result: CheckResult, *, when: datetime, source: str = "") -> pd.DataFrame:
     """One log record per item (columns of :data:`mixsolve.io.log_io.LOG_COLUMNS`).
 
     Parameters
@@ -94,6 +94,10 @@ def check_records(result: CheckResult, *, when: datetime, source: str = "") -> p
         "settings": json.dumps(result.settings, sort_keys=True),
         "note": [f"{n}; {summary}".strip("; ") for n in items["note"]],
     })
+
+
+#: The old name (``check_`` is for validators): kept until issue 13's branches are merged.
+check_records = log_records
 
 
 def format_repeatability(stats: xr.Dataset, source: str = "") -> str:

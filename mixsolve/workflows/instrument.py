@@ -25,7 +25,7 @@ from mixsolve.io.log_io import append_log
 from mixsolve.io.outputs import guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.io.spectra_io import read_spectra
-from mixsolve.report.instrument_text import check_records, format_check, format_repeatability
+from mixsolve.report.instrument_text import format_check, format_repeatability, log_records
 
 PathLike = str | os.PathLike[str]
 CHECKS: dict[str, Callable[..., CheckResult]] = {
@@ -62,7 +62,7 @@ def run_check(check: str, spectra: PathLike, *, log: PathLike | None = None,
     text = format_check(result, os.path.basename(str(spectra)))
     if log is not None:
         stamp = when or datetime.now().astimezone()
-        append_log(check_records(result, when=stamp, source=os.path.basename(str(spectra))),
+        append_log(log_records(result, when=stamp, source=os.path.basename(str(spectra))),
                    log)
         text += f"logged {len(result.items)} record(s) to {log}\n"
     return result, text

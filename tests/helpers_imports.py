@@ -1,0 +1,20 @@
+"""What a fresh Python process imports: for the tests that keep ``import mixsolve`` and
+``mixsolve --help`` quick."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+NUMERICAL = ("numpy", "scipy", "pandas", "xarray", "sklearn", "pint")
+
+
+def numerical_imports(code: str) -> list[str]:
+    """Run ``code`` in a fresh interpreter; return the numerical libraries it imported."""
+    report = ("\nimport json, sys\nprint(json.dumps(sorted({m.split('.')[0] for m in sys.modules}"
+              f" & set({NUMERICAL!r}))))\n")
+    run = subprocess.run([sys.executable, "-c", code + report], capture_output=True,
+                         text=True, check=False, timeout=120)
+    assert run.returncode == 0, run.stderr
+    return json.loads(run.stdout.strip().splitlines()[-1])

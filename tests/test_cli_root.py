@@ -1,0 +1,268 @@
+"""The root group of the command line (mixsolve.cli.OneLineErrors) and the options' values.
+
+Every command gets the same treatment from one place: a mixsolve error is one ``error:``
+line and exit code 2, Ctrl-C one line and exit code 130, mixsolve's own warnings are
+``warning:`` lines and other warnings are not shown (``--debug`` shows both as Python
+would). Choices and defaults are the core's own, read when a command needs them.
+
+Each command's body is replaced here by a stand-in, so these tests need no input files.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Iterator
+
+import click
+import pytest
+from click.testing import CliRunner
+from helpers_imports import numerical_imports
+
+from mixsolve.cli import CoreChoice, CoreDefault, core, main
+from mixsolve.errors import ExtrapolationWarning, InputError
+
+
+def invoke(*args: object):
+    """Run ``mixsolve ARGS`` in-process; return click's Result."""
+    return CliRunner().invoke(main, [str(a) for a in args])
+
+
+def leaf_commands(group: click.Group = main,
+                  path: tuple[str, ...] = ()) -> Iterator[tuple[tuple[str, ...], click.Command]]:
+    """Every command that does a job, with the words that call it."""
+    for name, command in sorted(group.commands.items()):
+        if isinstance(command, click.Group):
+            yield from leaf_commands(command, (*path, name))
+        else:
+            yield (*path, name), command
+
+
+COMMANDS = list(leaf_commands())
+IDS = [" ".join(path) for path, _ in COMMANDS]
+
+
+def required(command: click.Command) -> list[str]:
+    """The fewest words that satisfy click: "1" for each argument and required option."""
+    words: list[str] = []
+    for param in command.params:
+        if isinstance(param, click.Argument):
+            words.append("1")
+        elif param.required:
+            words += [param.opts[0], "1"]
+    return words
+
+
+def run_instead(command: click.Command, body, monkeypatch, *args: object):
+    """Run ``command`` with ``body`` in place of its own work."""
+    monkeypatch.setattr(command, "callback", body)
+    path = next(p for p, c in COMMANDS if c is command)
+    return invoke(*args, *path, *required(command))
+
+
+def test_the_commands_are_all_here():
+    assert len(COMMANDS) == 13
+    assert ("instrument", "stray-light") in [path for path, _ in COMMANDS]
+
+
+# --- errors and Ctrl-C: one line, from the root group ------------------------------------
+
+
+@pytest.mark.parametrize(("path", "command"), COMMANDS, ids=IDS)
+def test_every_command_turns_a_mixsolve_error_into_one_line(path, command, monkeypatch):
+    def fail(**options):
+        raise InputError("what went wrong\n  and where")
+
+    result = run_instead(command, fail, monkeypatch)
+    assert result.exit_code == 2, (result.output, result.exception)
+    assert result.stderr == "error: what went wrong and where\n"
+    assert result.stdout == ""
+
+
+@pytest.mark.parametrize(("path", "command"), COMMANDS, ids=IDS)
+def test_every_command_turns_ctrl_c_into_one_line(path, command, monkeypatch):
+    def interrupted(**options):
+        raise KeyboardInterrupt
+
+    result = run_instead(command, interrupted, monkeypatch)
+    assert result.exit_code == 130
+    assert result.stderr == "error: interrupted (Ctrl-C); this run changed no file\n"
+
+
+def test_debug_shows_the_error_itself(monkeypatch):
+    command = dict(COMMANDS)[("unmix",)]
+
+    def fail(**options):
+        raise InputError("what went wrong")
+
+    result = run_instead(command, fail, monkeypatch, "--debug")
+    assert result.exit_code == 1
+    assert isinstance(result.exception, InputError)
+
+
+def test_a_bug_is_not_disguised_as_bad_input(monkeypatch):
+    """Only mixsolve's errors are the user's: anything else keeps its traceback (exit 1)."""
+    command = dict(COMMANDS)[("unmix",)]
+
+    def bug(**options):
+        raise ZeroDivisionError("a bug")
+
+    result = run_instead(command, bug, monkeypatch)
+    assert result.exit_code == 1
+    assert isinstance(result.exception, ZeroDivisionError)
+
+
+def test_an_option_value_refused_by_its_callback_is_one_line():
+    """Option values are parsed by click callbacks; their errors get the same treatment."""
+    result = invoke("wavelengths", "choose", "lib.nc", "--count", "3", "--compare", "460,x")
+    assert result.exit_code == 2
+    assert result.stderr == ("error: --compare: '460,x' is not a comma-separated list of nm, "
+                             "e.g. 663.6,646.6\n")
+
+
+# --- warnings: mixsolve's own as one line each, others not shown --------------------------
+
+
+def warn_three(**options):
+    warnings.warn("4 wavelengths left out", ExtrapolationWarning, stacklevel=1)
+    warnings.warn("port 8787 is busy", UserWarning, stacklevel=1)
+    warnings.warn("invalid value encountered in divide", RuntimeWarning, stacklevel=1)
+    warnings.warn("4 wavelengths left out", ExtrapolationWarning, stacklevel=1)
+
+
+@pytest.mark.parametrize(("path", "command"), COMMANDS, ids=IDS)
+def test_every_command_shows_only_mixsolve_warnings(path, command, monkeypatch):
+    with warnings.catch_warnings(record=True) as shown:
+        warnings.simplefilter("always")
+        result = run_instead(command, warn_three, monkeypatch)
+    assert result.exit_code == 0, (result.output, result.exception)
+    assert result.stderr == "warning: 4 wavelengths left out\n" * 2
+    assert result.stdout == ""
+    assert shown == []  # nor shown by Python
+
+
+def test_debug_shows_other_warnings_as_python_does(monkeypatch):
+    """With --debug the other warnings go to Python's own display (recorded here)."""
+    command = dict(COMMANDS)[("unmix",)]
+    with warnings.catch_warnings(record=True) as shown:
+        result = run_instead(command, warn_three, monkeypatch, "--debug")
+    assert result.exit_code == 0
+    assert result.stderr == "warning: 4 wavelengths left out\n" * 2
+    assert [(w.category, str(w.message)) for w in shown] == [
+        (UserWarning, "port 8787 is busy"),
+        (RuntimeWarning, "invalid value encountered in divide")]
+
+
+def test_warnings_come_before_the_error(monkeypatch):
+    command = dict(COMMANDS)[("unmix",)]
+
+    def warn_then_fail(**options):
+        warnings.warn("a mixsolve warning", ExtrapolationWarning, stacklevel=1)
+        raise InputError("bad input")
+
+    result = run_instead(command, warn_then_fail, monkeypatch)
+    assert result.exit_code == 2
+    assert result.stderr == "warning: a mixsolve warning\nerror: bad input\n"
+
+
+# --- choices and defaults: the core's own ------------------------------------------------
+
+
+def core_defaults(command: click.Command) -> list[click.Parameter]:
+    return [p for p in command.params if isinstance(p.default, CoreDefault)]
+
+
+def test_most_defaults_and_choices_come_from_the_core():
+    params = [p for _, command in COMMANDS for p in command.params]
+    assert len([p for p in params if isinstance(p.default, CoreDefault)]) >= 25
+    assert len([p for p in params if isinstance(p.type, CoreChoice)]) >= 10
+    assert not [p.name for p in params if type(p.type) is click.Choice]
+
+
+@pytest.mark.parametrize(("path", "command"), COMMANDS, ids=IDS)
+def test_each_default_reaches_the_command_as_the_core_value(path, command, monkeypatch):
+    """What the command receives for an option left out is the core's default itself (after
+    the round trip through the option's text and callback, e.g. 0.2 → 20 % → 0.2)."""
+    seen: dict[str, object] = {}
+    result = run_instead(command, lambda **options: seen.update(options), monkeypatch)
+    assert result.exit_code == 0, (result.output, result.exception)
+    for param in core_defaults(command):
+        expected = CoreDefault(param.default.ref, param.default.keyword)()
+        value = seen[param.name]
+        if isinstance(expected, tuple) and isinstance(value, list):
+            value = tuple(value)
+        assert value == expected, param.name
+
+
+@pytest.mark.parametrize(("path", "command"), COMMANDS, ids=IDS)
+def test_each_command_help_shows_the_core_defaults_and_choices(path, command):
+    result = invoke(*path, "--help")
+    assert result.exit_code == 0, (result.output, result.exception)
+    text = " ".join(result.stdout.split())
+    for param in command.params:
+        if isinstance(param.type, CoreChoice):
+            choices = core(param.type.ref)
+            assert param.type.choices == tuple(str(c) for c in choices)
+            assert f"[{'|'.join(param.type.choices)}]" in text, param.name
+        if isinstance(param.default, CoreDefault):
+            assert f"[default: {param.default}]" in text, param.name
+
+
+def test_the_choices_are_the_cores_tuples():
+    from mixsolve.plate.wells import PLATE_SHAPES
+    from mixsolve.solve.cls import METHODS
+    from mixsolve.solve.design import BASELINES
+
+    params = {p.name: p for p in dict(COMMANDS)[("plate",)].params}
+    assert params["method"].type.choices == METHODS
+    assert params["baseline"].type.choices == BASELINES
+    assert params["plate_size"].type.choices == tuple(str(n) for n in PLATE_SHAPES)
+
+
+def test_max_cv_is_a_percent_on_the_command_line_and_a_fraction_in_the_core(monkeypatch):
+    from mixsolve.plate.analysis import analyse_plate
+
+    command = dict(COMMANDS)[("plate",)]
+    seen: dict[str, object] = {}
+    result = run_instead(command, lambda **options: seen.update(options), monkeypatch)
+    assert result.exit_code == 0
+    assert seen["max_cv"] == 0.2
+    assert analyse_plate.__kwdefaults__["max_cv"] == 0.2
+    assert "[default: 20.0]" in invoke("plate", "--help").stdout
+    assert invoke("plate", *required(command), "--max-cv", "5").exit_code == 0
+    assert seen["max_cv"] == 0.05
+
+
+def test_plate_size_reaches_the_core_as_a_number(monkeypatch):
+    command = dict(COMMANDS)[("plate",)]
+    seen: dict[str, object] = {}
+    monkeypatch.setattr(command, "callback", lambda **options: seen.update(options))
+    assert invoke("plate", *required(command), "--plate-size", "384").exit_code == 0
+    assert seen["plate_size"] == 384
+
+
+def test_help_texts_name_what_the_core_offers():
+    """Values named in help texts (not options' defaults) match the core."""
+    from mixsolve.noise import PRESETS
+    from mixsolve.pls.cross_validation import DEFAULT_FOLDS
+    from mixsolve.uncertainty.measurement_model import DEFAULT_FILL_VOLUME_UL
+
+    unmix = " ".join(invoke("unmix", "--help").stdout.split())
+    for preset in PRESETS:
+        assert preset in unmix
+    assert f"[{DEFAULT_FILL_VOLUME_UL:g}]" in unmix
+    calibrate = " ".join(invoke("calibrate", "--help").stdout.split())
+    assert f"[min({DEFAULT_FOLDS}, samples)]" in calibrate
+
+
+def test_root_help_and_version_import_no_numerical_library():
+    """`mixsolve --help` and `--version` stay quick: the core's choices and defaults are
+    read only when a command needs them."""
+    assert numerical_imports(
+        "from click.testing import CliRunner\n"
+        "from mixsolve.cli import main\n"
+        "for args in (['--help'], ['--version'], ['instrument', '--help']):\n"
+        "    assert CliRunner().invoke(main, args).exit_code == 0, args\n") == []
+    assert "numpy" in numerical_imports(
+        "from click.testing import CliRunner\n"
+        "from mixsolve.cli import main\n"
+        "CliRunner().invoke(main, ['unmix', '--help'])\n")
