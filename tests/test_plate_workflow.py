@@ -15,7 +15,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from click.testing import CliRunner
 from helpers_io import WL, band, make_library, write_library_file, write_text
 from test_plates import (
     BACKGROUND_AU,
@@ -25,7 +24,6 @@ from test_plates import (
 )
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.errors import FileFormatError, InputError, UnitError
 from mixsolve.plate.wells import plate_wells
 from mixsolve.report.html import SAFETY_CAUTIONS
@@ -485,12 +483,11 @@ def test_same_export_names_and_library_from_plate(tmp_path, files):
 # --- command line -----------------------------------------------------------------------
 
 
-def test_cli_plate(tmp_path, files):
+def test_cli_plate(tmp_path, files, cli):
     out = tmp_path / "cli"
-    run = CliRunner().invoke(main, [
-        "plate", str(files["export"]), "--layout", str(files["layout"]), "--library",
-        str(files["library"]), "--out", str(out), "--volume-ul", "160.8495",
-        "--well-diameter-mm", "6.4", "--unit", "umol/L", "--max-cv", "25"])
+    run = cli("plate", files["export"], "--layout", files["layout"], "--library",
+              files["library"], "--out", out, "--volume-ul", "160.8495",
+              "--well-diameter-mm", "6.4", "--unit", "umol/L", "--max-cv", "25")
     assert run.exit_code == 0, run.output
     assert run.stdout.startswith("plate1.csv: grid blocks, 96-well; 46 wells fitted")
     assert run.stderr.startswith("plate 1/1: plate1.csv: grid blocks")
@@ -505,11 +502,10 @@ def test_cli_plate(tmp_path, files):
                                               "band); give one of --pathlength"),
     (["--range", "high"], "error: --range: 'high' is not LOW-HIGH"),
 ])
-def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message):
+def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message, cli):
     out = tmp_path / "cli"
-    run = CliRunner().invoke(main, [
-        "plate", str(files["export"]), "--layout", str(files["layout"]), "--library",
-        str(files["library"]), "--out", str(out), *extra])
+    run = cli("plate", files["export"], "--layout", files["layout"], "--library",
+              files["library"], "--out", out, *extra)
     assert run.exit_code == 2
     assert run.stderr.startswith(message) and len(run.stderr.strip().splitlines()) == 1
     assert not out.exists()
