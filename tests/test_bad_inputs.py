@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers_cli import assert_cli_error
 
 from mixsolve.workflows.demo import demo_file
 
@@ -65,18 +66,6 @@ def files(tmp_path: Path, cli) -> dict[str, Path]:
     return f
 
 
-def assert_clean_error(result, *, must_not_exist: list[Path] = ()) -> None:
-    """Exit 2, one error line, no traceback, no output or temporary file left."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert "Traceback" not in result.output
-    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
-    errors = [ln for ln in lines if ln.startswith("error:")]
-    assert len(errors) == 1, lines
-    for path in must_not_exist:
-        assert not Path(path).exists(), path
-        assert not list(Path(path).parent.glob(f".{Path(path).name}.*.part"))
-
-
 BAD_SPECTRA = ["missing", "empty", "header_only", "binary", "latin1", "utf16", "text_cell",
                "inf_cell",
                "dup_wavelength", "unknown_layout", "short_row"]
@@ -86,16 +75,16 @@ BAD_SPECTRA = ["missing", "empty", "header_only", "binary", "latin1", "utf16", "
 def test_unmix_with_broken_spectra(files, bad, cli):
     """unmix LIB BROKEN --out r.csv: an error and no r.csv."""
     out = files["dir"] / "r.csv"
-    assert_clean_error(cli("unmix", files["lib"], files[bad], "--out", out),
-                       must_not_exist=[out])
+    assert_cli_error(cli("unmix", files["lib"], files[bad], "--out", out),
+                     must_not_exist=[out])
 
 
 @pytest.mark.parametrize("bad", BAD_SPECTRA)
 def test_library_import_with_broken_table(files, bad, cli):
     """library import BROKEN: an error and no library file."""
     out = files["dir"] / "new.nc"
-    assert_clean_error(cli("library", "import", files[bad], "--unit", "L/(mol*cm)",
-                           "--out", out), must_not_exist=[out])
+    assert_cli_error(cli("library", "import", files[bad], "--unit", "L/(mol*cm)",
+                         "--out", out), must_not_exist=[out])
 
 
 @pytest.mark.parametrize("bad", BAD_SPECTRA)
@@ -104,8 +93,8 @@ def test_library_build_with_broken_standards(files, bad, cli):
     sheet = files["dir"] / "sheet.csv"
     sheet.write_text("sample,component,concentration,unit\na,red,1,mg/L\n")
     out = files["dir"] / "built.nc"
-    assert_clean_error(cli("library", "build", files[bad], "--standards", sheet,
-                           "--out", out), must_not_exist=[out])
+    assert_cli_error(cli("library", "build", files[bad], "--standards", sheet,
+                         "--out", out), must_not_exist=[out])
 
 
 @pytest.mark.parametrize("bad", BAD_SPECTRA)
@@ -114,8 +103,8 @@ def test_calibrate_with_broken_spectra(files, bad, cli):
     ref = files["dir"] / "ref.csv"
     ref.write_text("sample,component,concentration,unit\nmix_0,red,1,mg/L\n")
     out = files["dir"] / "model.nc"
-    assert_clean_error(cli("calibrate", files[bad], "--reference", ref, "--out", out),
-                       must_not_exist=[out])
+    assert_cli_error(cli("calibrate", files[bad], "--reference", ref, "--out", out),
+                     must_not_exist=[out])
 
 
 @pytest.mark.parametrize("command", [
@@ -131,7 +120,7 @@ def test_instrument_checks_with_broken_spectra(files, command, bad, cli):
     args = [files[bad] if a == "{bad}" else a for a in command]
     if command[1] != "repeatability":
         args += ["--log", log]
-    assert_clean_error(cli(*args), must_not_exist=[log])
+    assert_cli_error(cli(*args), must_not_exist=[log])
 
 
 @pytest.mark.parametrize("bad", ["missing", "empty", "binary", "not_library", "table"])
@@ -145,7 +134,7 @@ def test_commands_with_a_file_that_is_not_a_library(files, command, bad, cli):
     """A file that is missing, empty, binary, not netCDF or a CSV where a library belongs."""
     args = [files[bad] if a == "{lib}" else files["spectra"] if a == "{spectra}" else a
             for a in command]
-    assert_clean_error(cli(*args))
+    assert_cli_error(cli(*args))
 
 
 @pytest.mark.parametrize(("options", "what"), [
@@ -167,13 +156,13 @@ def test_commands_with_a_file_that_is_not_a_library(files, command, bad, cli):
 ])
 def test_unmix_with_bad_options(files, options, what, cli):
     """Each bad option of unmix is one clear error line ({what})."""
-    assert_clean_error(cli("unmix", files["lib"], files["spectra"], *options))
+    assert_cli_error(cli("unmix", files["lib"], files["spectra"], *options))
 
 
 def test_spectra_range_not_matching_the_library(files, cli):
     """Spectra measured at 800-900 nm against a 400-700 nm library: nothing to fit."""
     far = _wide(files["dir"] / "far.csv", {"s": np.ones(11)}, np.arange(800.0, 901.0, 10.0))
-    assert_clean_error(cli("unmix", files["lib"], far))
+    assert_cli_error(cli("unmix", files["lib"], far))
 
 
 @pytest.mark.parametrize("kind", ["identical", "collinear"])
@@ -185,7 +174,7 @@ def test_library_with_inseparable_components(files, kind, cli):
     lib = files["dir"] / "bad.nc"
     assert cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
     result = cli("unmix", lib, files["spectra"])
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "rank deficient" in result.stderr
 
 
@@ -199,7 +188,7 @@ def test_more_components_than_wavelengths(files, cli):
     assert cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
     spectra = _wide(files["dir"] / "two.csv", {"s": np.array([0.5, 0.6])}, wl)
     result = cli("unmix", lib, spectra)
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "underdetermined" in result.stderr
 
 
@@ -248,7 +237,7 @@ def test_plate_with_a_malformed_layout(tmp_path, layout, message, cli):
         demo_file("standards.csv"), "--out", lib)
     out = tmp_path / "out"
     result = cli("plate", export, "--layout", lay, "--library", lib, "--out", out)
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert message in result.stderr
     assert not out.exists() or not any(out.iterdir())
 
@@ -265,21 +254,21 @@ def test_calibrate_with_a_malformed_reference(files, reference, message, cli):
     ref.write_text(reference)
     out = files["dir"] / "model.nc"
     result = cli("calibrate", files["spectra"], "--reference", ref, "--out", out)
-    assert_clean_error(result, must_not_exist=[out])
+    assert_cli_error(result, must_not_exist=[out])
     assert message in result.stderr
 
 
 def test_unmix_with_a_model_file_that_is_not_a_model(files, cli):
     """A netCDF library is not a PLS model, and text is neither: both handled cleanly."""
     assert cli("unmix", files["lib"], files["spectra"]).exit_code == 0
-    assert_clean_error(cli("unmix", files["not_library"], files["spectra"]))
+    assert_cli_error(cli("unmix", files["not_library"], files["spectra"]))
 
 
 def test_demo_with_an_output_path_that_is_a_file(tmp_path, cli):
     """demo --out FILE (not a folder) is refused."""
     target = tmp_path / "occupied"
     target.write_text("x")
-    assert_clean_error(cli("demo", "--out", target))
+    assert_cli_error(cli("demo", "--out", target))
 
 
 @pytest.mark.parametrize("which", ["spectra", "library", "same_twice"])
@@ -294,7 +283,7 @@ def test_outputs_never_overwrite_inputs(files, which, cli):
         target = files["spectra"] if which == "spectra" else files["lib"]
         args = ["unmix", files["lib"], files["spectra"], "--out", target]
     result = cli(*args)
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "would destroy" in result.stderr
     assert all(p.read_bytes() == data for p, data in before.items())
 
@@ -302,23 +291,23 @@ def test_outputs_never_overwrite_inputs(files, which, cli):
 def test_library_import_onto_its_own_table_is_refused(files, cli):
     """library import TABLE --out TABLE would replace the table with netCDF."""
     before = files["table"].read_bytes()
-    assert_clean_error(cli("library", "import", files["table"], "--unit", "L/(mol*cm)",
-                           "--out", files["table"]))
+    assert_cli_error(cli("library", "import", files["table"], "--unit", "L/(mol*cm)",
+                         "--out", files["table"]))
     assert files["table"].read_bytes() == before
 
 
 @pytest.mark.parametrize("noise", ["0", "-1"])
 def test_wavelengths_choose_refuses_non_positive_noise(files, noise, cli):
     """σ_A must be positive in choose as in check."""
-    assert_clean_error(cli("wavelengths", "choose", files["lib"], "--count", "3",
-                           "--noise", noise))
+    assert_cli_error(cli("wavelengths", "choose", files["lib"], "--count", "3",
+                         "--noise", noise))
 
 
 def test_negative_bandwidth_is_refused(files, cli):
     """A spectral bandwidth must be a positive number of nm."""
     out = files["dir"] / "bw.nc"
-    assert_clean_error(cli("library", "import", files["table"], "--unit", "L/(mol*cm)",
-                           "--bandwidth-nm", "-1", "--out", out), must_not_exist=[out])
+    assert_cli_error(cli("library", "import", files["table"], "--unit", "L/(mol*cm)",
+                         "--bandwidth-nm", "-1", "--out", out), must_not_exist=[out])
 
 
 def test_plate_with_unwritable_out_fails_before_any_work(tmp_path, cli):
@@ -328,7 +317,7 @@ def test_plate_with_unwritable_out_fails_before_any_work(tmp_path, cli):
     result = cli("plate", demo_file("plate_export.csv"), "--layout",
                  demo_file("plate_layout.csv"), "--library-from-plate", "--out",
                  blocker / "po")
-    assert_clean_error(result)
+    assert_cli_error(result)
 
 
 def test_cube_paths_without_the_scale_extra_are_refused(files, monkeypatch, cli):
@@ -339,7 +328,7 @@ def test_cube_paths_without_the_scale_extra_are_refused(files, monkeypatch, cli)
     monkeypatch.setattr(importlib.util, "find_spec",
                         lambda name, *a: None if name in ("dask", "zarr") else real(name, *a))
     result = cli("unmix", files["lib"], files["spectra"], "--out", files["dir"] / "r.zarr")
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "mixsolve[scale]" in result.stderr
 
 
@@ -352,7 +341,7 @@ def test_least_squares_options_are_refused_with_a_pls_model(tmp_path, option, cl
                demo_file("calibration_reference.csv"), "--out", model)
     assert made.exit_code == 0, made.output
     result = cli("unmix", model, demo_file("calibration_test_spectra.csv"), *option)
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "does not apply to the PLS model" in result.stderr
 
 
@@ -370,7 +359,7 @@ def test_report_shows_the_budget_when_one_is_asked_for(files, cli):
 def test_utf16_gets_a_hint_to_save_as_utf8(files, cli):
     """UTF-16 text (some spreadsheet exports) is named as such, with the fix."""
     result = cli("unmix", files["lib"], files["utf16"])
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "UTF-16 text; save the file as UTF-8" in result.stderr
 
 
@@ -379,12 +368,12 @@ def test_plate_refuses_a_non_positive_max_cv(tmp_path, cli):
     result = cli("plate", demo_file("plate_export.csv"), "--layout",
                  demo_file("plate_layout.csv"), "--library-from-plate", "--out",
                  tmp_path / "po", "--max-cv", "-5")
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "--max-cv: -5 % must be a positive number" in result.stderr
 
 
 def test_unmix_refuses_an_implausible_wavelength_offset(files, cli):
     """A 100 nm 'correction' is a mistake (sign or unit), not a scale offset."""
     result = cli("unmix", files["lib"], files["spectra"], "--wavelength-offset", "100")
-    assert_clean_error(result)
+    assert_cli_error(result)
     assert "beyond ±10 nm" in result.stderr

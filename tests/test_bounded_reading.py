@@ -21,8 +21,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import xarray as xr
+from helpers_cli import assert_cli_error
 from helpers_io import (
-    leftovers,
     make_library,
     mixture_columns,
     wide_rows,
@@ -55,19 +55,8 @@ def snapshot(*paths: Path) -> dict[Path, bytes]:
 
 def assert_refused(result, pattern: str, *, out: Path | None = None,
                    before: dict[Path, bytes] | None = None) -> None:
-    """Exit 2, one ``error:`` line matching ``pattern``, no traceback, nothing written,
-    inputs unchanged."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert "Traceback" not in result.output
-    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1 and lines[0].startswith("error: "), lines
-    assert len(lines[0].splitlines()) == 1
-    import re
-
-    assert re.search(pattern, lines[0]), (pattern, lines[0])
-    if out is not None:
-        assert not out.exists()
-        assert leftovers(out.parent) == []
+    """The one-line error matching ``pattern``, nothing written, inputs unchanged."""
+    assert_cli_error(result, pattern, must_not_exist=[] if out is None else [out])
     for path, data in (before or {}).items():
         assert path.read_bytes() == data, path
 

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers_cli import assert_cli_error, assert_nothing_written
 from helpers_io import (
     WL,
     absorptivity_frame,
@@ -27,29 +28,6 @@ from helpers_io import (
 
 import mixsolve as ms
 from mixsolve.errors import InputError
-
-
-def assert_error(result, *parts: str) -> str:
-    """Check the one-line error contract; each regex in ``parts`` must occur in the line."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert isinstance(result.exception, SystemExit)
-    assert "Traceback" not in result.output
-    assert "Traceback" not in result.stderr
-    assert result.stdout == ""
-    lines = result.stderr.splitlines()
-    assert len(lines) == 1, result.stderr
-    line = lines[0]
-    assert line.startswith("error: "), line
-    for part in parts:
-        assert re.search(part, line), (part, line)
-    return line
-
-
-def assert_nothing_written(out: Path) -> None:
-    """No output file and no temporary beside it."""
-    assert not out.exists()
-    if out.parent.is_dir():
-        assert leftovers(out.parent) == []
 
 
 @pytest.fixture(scope="module")
@@ -133,7 +111,7 @@ def test_unmix_bad_spectra(tmp_path, inputs, case, cli):
     writer, parts = BAD_SPECTRA[case]
     spectra = writer(tmp_path)
     out = tmp_path / "results.csv"
-    assert_error(cli("unmix", inputs["lib"], spectra, "--out", out), *parts)
+    assert_cli_error(cli("unmix", inputs["lib"], spectra, "--out", out), *parts)
     assert_nothing_written(out)
 
 
@@ -144,7 +122,7 @@ def test_library_build_bad_spectra(tmp_path, inputs, case, cli):
     out = tmp_path / "lib.nc"
     result = cli("library", "build", writer(tmp_path), "--standards", inputs["sheet"],
                  "--out", out)
-    assert_error(result, *parts)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
@@ -164,8 +142,8 @@ def test_library_build_bad_spectra(tmp_path, inputs, case, cli):
 def test_library_import_bad_table(tmp_path, text, parts, cli):
     out = tmp_path / "lib.nc"
     table = write_text(tmp_path / "eps.csv", text)
-    assert_error(cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", out),
-                 *parts)
+    assert_cli_error(cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", out),
+                     *parts)
     assert_nothing_written(out)
 
 
@@ -176,7 +154,8 @@ def test_library_build_sheet_missing_columns(tmp_path, inputs, cli):
     sheet = write_text(tmp_path / "sheet.csv", "sample,component,amount\nr1,red,1\n")
     out = tmp_path / "lib.nc"
     result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out", out)
-    assert_error(result, r"^error: sheet\.csv, line 1: missing column\(s\) concentration, unit;")
+    assert_cli_error(result,
+                     r"^error: sheet\.csv, line 1: missing column\(s\) concentration, unit;")
     assert_nothing_written(out)
 
 
@@ -185,8 +164,8 @@ def test_library_build_sheet_non_numeric(tmp_path, inputs, cli):
     sheet = write_text(tmp_path / "sheet.csv", text)
     result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out",
                  tmp_path / "lib.nc")
-    assert_error(result, r"^error: sheet\.csv, line 6, column 3 \('concentration'\): "
-                         r"'0\.03 mM' is not a number$")
+    assert_cli_error(result, r"^error: sheet\.csv, line 6, column 3 \('concentration'\): "
+                             r"'0\.03 mM' is not a number$")
     assert_nothing_written(tmp_path / "lib.nc")
 
 
@@ -195,7 +174,7 @@ def test_library_build_sheet_unknown_sample(tmp_path, inputs, cli):
     sheet = write_text(tmp_path / "sheet.csv", text)
     result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out",
                  tmp_path / "lib.nc")
-    assert_error(result, r"line 8", r"sample 'zz' has no spectrum")
+    assert_cli_error(result, r"line 8", r"sample 'zz' has no spectrum")
     assert_nothing_written(tmp_path / "lib.nc")
 
 
@@ -204,13 +183,13 @@ def test_library_build_sheet_bad_unit(tmp_path, inputs, cli):
     sheet = write_text(tmp_path / "sheet.csv", text)
     result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out",
                  tmp_path / "lib.nc")
-    assert_error(result, r"line 2", r"'parsecs'")
+    assert_cli_error(result, r"line 2", r"'parsecs'")
 
 
 def test_library_build_missing_sheet(tmp_path, inputs, cli):
     result = cli("library", "build", inputs["standards"], "--standards",
                  tmp_path / "none.csv", "--out", tmp_path / "lib.nc")
-    assert_error(result, r"none\.csv: file not found$")
+    assert_cli_error(result, r"none\.csv: file not found$")
 
 
 # --- library files that are not libraries ------------------------------------------------
@@ -238,14 +217,14 @@ NOT_LIBRARIES = {
 def test_unmix_not_a_library(tmp_path, inputs, case, cli):
     writer, parts = NOT_LIBRARIES[case]
     out = tmp_path / "r.csv"
-    assert_error(cli("unmix", writer(tmp_path), inputs["mix"], "--out", out), *parts)
+    assert_cli_error(cli("unmix", writer(tmp_path), inputs["mix"], "--out", out), *parts)
     assert_nothing_written(out)
 
 
 @pytest.mark.parametrize("case", list(NOT_LIBRARIES), ids=list(NOT_LIBRARIES))
 def test_library_show_not_a_library(tmp_path, case, cli):
     writer, parts = NOT_LIBRARIES[case]
-    assert_error(cli("library", "show", writer(tmp_path)), *parts)
+    assert_cli_error(cli("library", "show", writer(tmp_path)), *parts)
 
 
 # --- bad options -------------------------------------------------------------------------
@@ -255,22 +234,22 @@ def test_library_show_not_a_library(tmp_path, case, cli):
 def test_bad_window_text(tmp_path, inputs, window, cli):
     out = tmp_path / "r.csv"
     result = cli("unmix", inputs["lib"], inputs["mix"], "--window", window, "--out", out)
-    assert_error(result, rf"^error: --window: '{re.escape(window)}' is not LOW-HIGH",
-                 r"e\.g\. 400-700$")
+    assert_cli_error(result, rf"^error: --window: '{re.escape(window)}' is not LOW-HIGH",
+                     r"e\.g\. 400-700$")
     assert_nothing_written(out)
 
 
 def test_window_reversed(inputs, cli):
     result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "700-400")
-    assert_error(result, r"^error: window: 700-400 nm is not an increasing pair of "
-                         r"wavelengths$")
+    assert_cli_error(result, r"^error: window: 700-400 nm is not an increasing pair of "
+                             r"wavelengths$")
 
 
 def test_window_outside_data(tmp_path, inputs, cli):
     out = tmp_path / "r.csv"
     result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "800-900", "--out", out)
-    assert_error(result, r"^error: window 800-900 nm holds no measured wavelength \(measured "
-                         r"400-700 nm\)$")
+    assert_cli_error(result, r"^error: window 800-900 nm holds no measured wavelength \(measured "
+                             r"400-700 nm\)$")
     assert_nothing_written(out)
 
 
@@ -279,38 +258,38 @@ def test_window_beyond_library(tmp_path, inputs, cli):
     spectra = write_wide(tmp_path / "wide.csv",
                          {"m": mixture_absorbance({"red": 1e-5}, wide)}, wl=wide)
     result = cli("unmix", inputs["lib"], spectra, "--window", "380-700")
-    assert_error(result, r"380, 390 nm lie outside the library \(400-700 nm\), which is never "
-                         r"extrapolated")
+    assert_cli_error(result, r"380, 390 nm lie outside the library \(400-700 nm\), which is never "
+                             r"extrapolated")
 
 
 def test_window_holding_too_few_wavelengths(inputs, cli):
     result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "441-449")
-    assert_error(result, r"^error: window 441-449 nm holds no measured wavelength")
+    assert_cli_error(result, r"^error: window 441-449 nm holds no measured wavelength")
 
 
 def test_underdetermined_selection(inputs, cli):
     result = cli("unmix", inputs["lib"], inputs["mix"], "--wavelengths", "450")
-    assert_error(result, r"^error: underdetermined: 1 wavelength\(s\) for 2 unknowns "
-                         r"\(red, blue\)")
+    assert_cli_error(result, r"^error: underdetermined: 1 wavelength\(s\) for 2 unknowns "
+                             r"\(red, blue\)")
 
 
 @pytest.mark.parametrize("text", ["450;620", "450,six hundred", "abc"])
 def test_bad_wavelengths_text(inputs, text, cli):
     result = cli("unmix", inputs["lib"], inputs["mix"], "--wavelengths", text)
-    assert_error(result, rf"^error: --wavelengths: '{re.escape(text)}' is not a "
-                         r"comma-separated list of nm")
+    assert_cli_error(result, rf"^error: --wavelengths: '{re.escape(text)}' is not a "
+                             r"comma-separated list of nm")
 
 
 def test_wavelength_not_measured(inputs, cli):
     result = cli("unmix", inputs["lib"], inputs["mix"], "--wavelengths", "450,625")
-    assert_error(result, r"^error: wavelengths: 625 nm was not measured \(nearest measured: "
-                         r"610, 620, 630 nm\)")
+    assert_cli_error(result, r"^error: wavelengths: 625 nm was not measured \(nearest measured: "
+                             r"610, 620, 630 nm\)")
 
 
 def test_window_and_wavelengths_together(inputs, cli):
     result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "400-700",
                  "--wavelengths", "450,620")
-    assert_error(result, r"^error: give either a window or a list of wavelengths, not both$")
+    assert_cli_error(result, r"^error: give either a window or a list of wavelengths, not both$")
 
 
 @pytest.mark.parametrize(
@@ -323,29 +302,29 @@ def test_window_and_wavelengths_together(inputs, cli):
 def test_unknown_unit(tmp_path, inputs, unit, parts, cli):
     out = tmp_path / "r.csv"
     result = cli("unmix", inputs["lib"], inputs["mix"], "--unit", unit, "--out", out)
-    assert_error(result, *parts)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
 def test_mass_unit_without_molar_masses(inputs, cli):
     result = cli("unmix", inputs["bare"], inputs["mix"], "--unit", "mg/L")
-    assert_error(result, r"^error: --unit 'mg/L': converting mol/L to mg/L needs the molar "
-                         r"mass of every component")
+    assert_cli_error(result, r"^error: --unit 'mg/L': converting mol/L to mg/L needs the molar "
+                             r"mass of every component")
 
 
 @pytest.mark.parametrize("value", ["0", "-1", "-0.5", "inf", "nan"])
 def test_non_positive_pathlength(tmp_path, inputs, value, cli):
     out = tmp_path / "r.csv"
     result = cli("unmix", inputs["lib"], inputs["mix"], "--pathlength", value, "--out", out)
-    assert_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a positive "
-                         r"number$")
+    assert_cli_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a positive "
+                             r"number$")
     assert_nothing_written(out)
 
 
 def test_library_build_non_positive_pathlength(tmp_path, inputs, cli):
     result = cli("library", "build", inputs["standards"], "--standards", inputs["sheet"],
                  "--out", tmp_path / "lib.nc", "--pathlength", "0")
-    assert_error(result, r"^error: pathlength: 0 cm is not a positive number$")
+    assert_cli_error(result, r"^error: pathlength: 0 cm is not a positive number$")
     assert_nothing_written(tmp_path / "lib.nc")
 
 
@@ -357,7 +336,7 @@ def test_library_build_non_positive_pathlength(tmp_path, inputs, cli):
 def test_library_import_bad_unit(tmp_path, inputs, unit, parts, cli):
     out = tmp_path / "lib.nc"
     result = cli("library", "import", inputs["eps"], "--unit", unit, "--out", out)
-    assert_error(result, *parts)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
@@ -371,7 +350,7 @@ def test_library_import_bad_molar_mass(tmp_path, inputs, text, parts, cli):
     out = tmp_path / "lib.nc"
     result = cli("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out,
                  "--molar-mass", text)
-    assert_error(result, *parts)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
@@ -381,7 +360,7 @@ def test_library_import_bad_molar_mass(tmp_path, inputs, text, parts, cli):
 def test_unmix_out_folder_missing(tmp_path, inputs, cli):
     out = tmp_path / "no_such_folder" / "r.csv"
     result = cli("unmix", inputs["lib"], inputs["mix"], "--out", out)
-    assert_error(result, r"^error: .*r\.csv: folder .*no_such_folder does not exist$")
+    assert_cli_error(result, r"^error: .*r\.csv: folder .*no_such_folder does not exist$")
     assert not out.parent.exists()
     assert list(tmp_path.iterdir()) == []
 
@@ -390,14 +369,14 @@ def test_unmix_out_is_a_folder(tmp_path, inputs, cli):
     out = tmp_path / "results.csv"
     out.mkdir()
     result = cli("unmix", inputs["lib"], inputs["mix"], "--out", out)
-    assert_error(result, r"results\.csv: is a folder; give a file name to write$")
+    assert_cli_error(result, r"results\.csv: is a folder; give a file name to write$")
     assert leftovers(tmp_path) == []
 
 
 def test_library_import_out_folder_missing(tmp_path, inputs, cli):
     out = tmp_path / "missing" / "lib.nc"
     result = cli("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out)
-    assert_error(result, r"lib\.nc: folder .*missing does not exist$")
+    assert_cli_error(result, r"lib\.nc: folder .*missing does not exist$")
     assert list(tmp_path.iterdir()) == []
 
 
@@ -405,7 +384,7 @@ def test_library_build_out_folder_missing(tmp_path, inputs, cli):
     out = tmp_path / "missing" / "lib.nc"
     result = cli("library", "build", inputs["standards"], "--standards", inputs["sheet"],
                  "--out", out)
-    assert_error(result, r"lib\.nc: folder .*missing does not exist$")
+    assert_cli_error(result, r"lib\.nc: folder .*missing does not exist$")
     assert list(tmp_path.iterdir()) == []
 
 
@@ -421,7 +400,7 @@ def test_failed_write_keeps_previous_results(tmp_path, inputs, monkeypatch, cli)
 
     monkeypatch.setattr(pd.DataFrame, "to_csv", full_disk)
     result = cli("unmix", inputs["lib"], inputs["mix"], "--out", out)
-    assert_error(result, r"r\.csv: cannot write the file \(No space left on device\)$")
+    assert_cli_error(result, r"r\.csv: cannot write the file \(No space left on device\)$")
     assert out.read_text() == "previous results\n"
     assert leftovers(tmp_path) == []
 
@@ -429,8 +408,8 @@ def test_failed_write_keeps_previous_results(tmp_path, inputs, monkeypatch, cli)
 def test_demo_out_is_a_file(tmp_path, cli):
     pytest.importorskip("mixsolve.workflows.demo")
     target = write_text(tmp_path / "demo", "not a folder")
-    assert_error(cli("demo", "--out", target),
-                 r"demo: exists and is not a folder; choose another output folder$")
+    assert_cli_error(cli("demo", "--out", target),
+                     r"demo: exists and is not a folder; choose another output folder$")
     assert target.read_text() == "not a folder"
 
 
@@ -478,7 +457,7 @@ def test_errors_are_single_line_even_for_multiline_messages(tmp_path, inputs, mo
 
     monkeypatch.setattr(unmix_files, "unmix", fail)
     result = cli("unmix", inputs["lib"], inputs["mix"])
-    assert_error(result, r"^error: first part second part$")
+    assert_cli_error(result, r"^error: first part second part$")
 
 
 def test_good_inputs_are_good(tmp_path, inputs, cli):

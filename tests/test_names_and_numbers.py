@@ -22,6 +22,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from helpers_cli import assert_cli_error
 from helpers_io import (
     WL,
     absorptivity_frame,
@@ -66,14 +67,9 @@ def digest(folder: Path) -> dict[str, str]:
 
 
 def assert_refused(result, folder: Path, before: dict[str, str], *needles: str) -> None:
-    """Exit 2, one ``error:`` line holding each needle, no traceback, and ``folder`` exactly
-    as before: inputs byte-for-byte unchanged, no output and no temporary file added."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert "Traceback" not in result.output
-    errors = [ln for ln in result.stderr.splitlines() if ln.startswith("error")]
-    assert len(errors) == 1 and errors[0].startswith("error: "), result.stderr
-    for needle in needles:
-        assert needle in errors[0], (needle, errors[0])
+    """The one-line error holding each needle, and ``folder`` exactly as before: inputs
+    byte-for-byte unchanged, no output and no temporary file added."""
+    assert_cli_error(result, *needles, literal=True)
     assert digest(folder) == before
 
 
