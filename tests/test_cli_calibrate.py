@@ -1,6 +1,6 @@
 """`mixsolve calibrate` and `mixsolve unmix MODEL.nc` through click's CliRunner.
 
-Files are written from the invented mixtures of test_pls (Gaussian bands, seeded noise).
+Files are written from the invented mixtures of helpers_pls (Gaussian bands, seeded noise).
 """
 
 from __future__ import annotations
@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from test_pls import COMPONENTS, WL, as_inputs, simulate
+from helpers_pls import COMPONENTS, WL, as_inputs, simulate
 
 import mixsolve as ms
 

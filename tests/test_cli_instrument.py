@@ -10,23 +10,14 @@ import csv
 
 import numpy as np
 import pytest
+from helpers_instrument import UV, dichromate
 from helpers_io import leftovers, write_text, write_wide
-from scipy.interpolate import CubicSpline
 
-from mixsolve.instrument.absorbance_scale import DICHROMATE_SPECIFIC_ABSORBANCE
 from mixsolve.instrument.wavelength_scale import HOLMIUM_BANDS_NM
 from mixsolve.io.log_io import LOG_COLUMNS
 
-UV = np.arange(220.0, 400.1, 1.0)
 HO = np.arange(230.0, 560.01, 0.5)
 KCL = np.arange(190.0, 231.0, 1.0)
-
-
-def dichromate(conc_mg_l: float, scale: float = 1.0) -> np.ndarray:
-    """Synthetic dichromate absorbance at the table's nominal A(1 %, 1 cm)."""
-    lam = np.array(list(DICHROMATE_SPECIFIC_ABSORBANCE))
-    nominal = np.array([v[0] for v in DICHROMATE_SPECIFIC_ABSORBANCE.values()])
-    return scale * CubicSpline(lam, nominal)(UV) * conc_mg_l / 1.0e4
 
 
 def holmium(shift: float, rng: np.random.Generator) -> np.ndarray:

@@ -3,7 +3,7 @@
 The rule is common practice, the OWASP "CSV Injection" guidance: a text cell beginning with
 ``=``, ``+``, ``-``, ``@``, a tab or a carriage return is written as text (a leading
 apostrophe in CSV, a string cell in XLSX); numbers stay numbers. All data here are invented
-(tests/helpers_io.py, tests/test_plate_workflow.py).
+(tests/helpers_io.py, tests/helpers_plate.py).
 """
 
 from __future__ import annotations
@@ -16,14 +16,14 @@ import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
+from helpers_instrument import UV, dichromate
 from helpers_io import (
     MIXTURES,
     mixture_absorbance,
     write_library_file,
     write_wide,
 )
-from test_cli_instrument import UV, dichromate
-from test_plate_workflow import scenario_layout, write_layout, write_scenario
+from helpers_plate import scenario_layout, write_layout, write_scenario
 
 from mixsolve.io.cell_text import FORMULA_START, safe_cell, safe_frame, unquote_cell
 from mixsolve.io.log_io import LOG_COLUMNS, append_log, read_log
