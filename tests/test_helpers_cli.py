@@ -51,22 +51,25 @@ def test_progress_lines_pass_only_when_allowed() -> None:
 
 
 @pytest.mark.parametrize(("args", "options"), [
-    (["--err", LINE, "--code", "0"], {}),  # success
-    (["--err", LINE, "--code", "1"], {}),  # the wrong exit code
-    (["--err", LINE, "--code", "-1"], {}),  # a crash
-    (["--err", "Traceback (most recent call last):", "--err", LINE], {"progress": True}),
-    (["--err", LINE, "--err", LINE], {"progress": True}),  # two error lines
-    (["--err", "Error: no such option"], {}),  # not the project's error line
-    (["--err", LINE, "--err", "plate 2/2: done"], {"progress": True}),  # not the last line
-    (["--err", LINE, "--err", "warning: late"], {}),  # a second line
-    (["--out", "a summary", "--err", LINE], {}),  # output on stdout
-    (["--err", LINE], {"patterns": ["line 4"]}),  # a pattern not found
-    (["--err", LINE], {"patterns": ["'abc' is not a (number)"], "literal": True}),
+    pytest.param(["--err", LINE, "--code", "0"], {}, id="success"),
+    pytest.param(["--err", LINE, "--code", "1"], {}, id="exit-1"),
+    pytest.param(["--err", LINE, "--code", "-1"], {}, id="crash"),
+    pytest.param(["--err", "Traceback (most recent call last):", "--err", LINE],
+                 {"progress": True}, id="traceback"),
+    pytest.param(["--err", LINE, "--err", LINE], {"progress": True}, id="two-errors"),
+    pytest.param(["--err", "Error: no such option"], {}, id="not-our-error-line"),
+    pytest.param(["--err", LINE, "--err", "plate 2/2: done"], {"progress": True},
+                 id="error-not-last"),
+    pytest.param(["--err", LINE, "--err", "warning: late"], {}, id="second-line"),
+    pytest.param(["--out", "a summary", "--err", LINE], {}, id="stdout"),
+    pytest.param(["--err", LINE], {"patterns": ["line 4"]}, id="regex-not-found"),
+    pytest.param(["--err", LINE], {"patterns": ["'abc' is not a (number)"], "literal": True},
+                 id="text-not-found"),
 ])
 def test_a_broken_contract_fails(args: list[str], options: dict) -> None:
-    patterns = options.pop("patterns", [])
+    kwargs = {k: v for k, v in options.items() if k != "patterns"}
     with pytest.raises(AssertionError):
-        assert_cli_error(stand_in_result(*args), *patterns, **options)
+        assert_cli_error(stand_in_result(*args), *options.get("patterns", []), **kwargs)
 
 
 @pytest.mark.parametrize("left", ["r.csv", ".r.csv.1234.part"])
