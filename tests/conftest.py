@@ -10,9 +10,17 @@ from collections.abc import Callable
 import numpy as np
 import pytest
 import xarray as xr
+from helpers_cli import Cli
 from helpers_core import COMPONENT_BANDS, COMPONENT_MOLAR_MASS, SEED, gaussian_bands
 
 import mixsolve as ms
+
+
+@pytest.fixture(scope="session")
+def cli() -> Cli:
+    """The command line in-process: ``cli(*args)`` runs ``mixsolve ARGS`` (``str()`` of each
+    argument) and returns click's Result; ``cli.ok(*args)`` also checks it succeeded."""
+    return Cli()
 
 
 @pytest.fixture

@@ -1,4 +1,4 @@
-"""Invented NNLS problems and the KKT check shared by the solver tests.
+"""Invented NNLS problems, the KKT check and a reference fit shared by the solver tests.
 
 The KKT conditions of min ½‖a − Dx‖², x_j ≥ 0 (Lawson & Hanson 1974, from memory; they
 hold for any true minimiser, so they check by internal consistency) with the tolerance
@@ -53,3 +53,14 @@ def problem(rng: np.random.Generator, m: int, p: int, n: int, zero_fraction: flo
 
 def scipy_loop(design: np.ndarray, spectra: np.ndarray) -> np.ndarray:
     return np.vstack([nnls(design, a, maxiter=50 * design.shape[1])[0] for a in spectra])
+
+
+def nnls_free_reference(design: np.ndarray, a: np.ndarray, n_con: int) -> np.ndarray:
+    """scipy.optimize.nnls on the free columns projected out, then lstsq for them."""
+    k, b = design[:, :n_con], design[:, n_con:]
+    if not b.shape[1]:
+        return nnls(k, a, maxiter=50 * max(n_con, 1))[0]
+    proj = np.eye(design.shape[0]) - b @ np.linalg.pinv(b)
+    c = nnls(proj @ k, proj @ a, maxiter=50 * max(n_con, 1))[0]
+    beta = np.linalg.lstsq(b, a - k @ c, rcond=None)[0]
+    return np.r_[c, beta]

@@ -21,9 +21,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import xarray as xr
-from click.testing import CliRunner
+from helpers_cli import assert_cli_error
 from helpers_io import (
-    leftovers,
     make_library,
     mixture_columns,
     wide_rows,
@@ -33,7 +32,6 @@ from helpers_io import (
 )
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.errors import FileFormatError
 from mixsolve.io import limits
 from mixsolve.io.cubes import read_cube
@@ -48,11 +46,6 @@ HUGE = 2_000_000_000
 LIBRARY_FIX = r"a library is written by `mixsolve library import` or `library build`"
 
 
-def run(args: list[object]):
-    """Invoke the CLI with string arguments."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
 def snapshot(*paths: Path) -> dict[Path, bytes]:
     """The bytes of every file (every file inside a folder) among ``paths``."""
     files = [f for p in paths for f in ([p] if p.is_file() else sorted(p.rglob("*")))
@@ -62,19 +55,8 @@ def snapshot(*paths: Path) -> dict[Path, bytes]:
 
 def assert_refused(result, pattern: str, *, out: Path | None = None,
                    before: dict[Path, bytes] | None = None) -> None:
-    """Exit 2, one ``error:`` line matching ``pattern``, no traceback, nothing written,
-    inputs unchanged."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert "Traceback" not in result.output
-    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
-    assert len(lines) == 1 and lines[0].startswith("error: "), lines
-    assert len(lines[0].splitlines()) == 1
-    import re
-
-    assert re.search(pattern, lines[0]), (pattern, lines[0])
-    if out is not None:
-        assert not out.exists()
-        assert leftovers(out.parent) == []
+    """The one-line error matching ``pattern``, nothing written, inputs unchanged."""
+    assert_cli_error(result, pattern, must_not_exist=[] if out is None else [out])
     for path, data in (before or {}).items():
         assert path.read_bytes() == data, path
 
@@ -136,7 +118,7 @@ def library_file(tmp_path: Path) -> Path:
 
 
 def test_xlsx_declaring_a_huge_sheet_is_refused_before_parsing(tmp_path, workbook,
-                                                               library_file, never_opened):
+                                                               library_file, never_opened, cli):
     """A 6 kB workbook whose sheet declares 1.4 GB: refused from the zip directory alone."""
     big = tmp_path / "huge.xlsx"
     big.write_bytes(set_declared_size(workbook.read_bytes(), "xl/worksheets/sheet1.xml",
@@ -149,7 +131,7 @@ def test_xlsx_declaring_a_huge_sheet_is_refused_before_parsing(tmp_path, workboo
         ms.read_spectra(big)
     out = tmp_path / "r.csv"
     before = snapshot(big, library_file)
-    assert_refused(run(["unmix", library_file, big, "--out", out]), message[1:].join(
+    assert_refused(cli("unmix", library_file, big, "--out", out), message[1:].join(
         [r"^error: ", ""]), out=out, before=before)
 
 
@@ -168,7 +150,7 @@ def test_xlsx_limit_is_on_the_expanded_size_not_the_file_size(workbook, monkeypa
 
 
 def test_xlsx_whose_declared_size_understates_its_sheet_is_refused(tmp_path, workbook,
-                                                                  library_file):
+                                                                  library_file, cli):
     """A zip bomb that declares less than it holds: the zip reader stops at the declared
     size and the CRC check fails, so no more than the declared size is ever expanded."""
     liar = tmp_path / "liar.xlsx"
@@ -177,7 +159,7 @@ def test_xlsx_whose_declared_size_understates_its_sheet_is_refused(tmp_path, wor
     with pytest.raises(FileFormatError, match="^" + message):
         ms.read_spectra(liar)
     out = tmp_path / "r.csv"
-    assert_refused(run(["unmix", library_file, liar, "--out", out]), "^error: " + message,
+    assert_refused(cli("unmix", library_file, liar, "--out", out), "^error: " + message,
                    out=out, before=snapshot(liar, library_file))
 
 
@@ -217,7 +199,7 @@ def huge_netcdf(path: Path, *, unlimited: bool = False, kind: str = "mixsolve-li
 
 
 @pytest.mark.parametrize("unlimited", [False, True], ids=["fixed", "unlimited"])
-def test_library_declaring_a_huge_dimension_is_refused(tmp_path, unlimited, never_opened):
+def test_library_declaring_a_huge_dimension_is_refused(tmp_path, unlimited, never_opened, cli):
     """A 9 kB 'library' declaring 2·10⁹ wavelengths: refused from its header, exit 2."""
     lib = huge_netcdf(tmp_path / "huge.nc", unlimited=unlimited)
     assert declared_variables(lib)["absorptivity"].nbytes == 2 * HUGE * 8
@@ -229,9 +211,9 @@ def test_library_declaring_a_huge_dimension_is_refused(tmp_path, unlimited, neve
     spectra = write_wide(tmp_path / "mix.csv")
     out = tmp_path / "r.csv"
     before = snapshot(lib, spectra)
-    assert_refused(run(["unmix", lib, spectra, "--out", out]), "^error: " + message, out=out,
+    assert_refused(cli("unmix", lib, spectra, "--out", out), "^error: " + message, out=out,
                    before=before)
-    assert_refused(run(["library", "show", lib]), "^error: " + message, before=before)
+    assert_refused(cli("library", "show", lib), "^error: " + message, before=before)
 
 
 def test_huge_coordinate_is_refused_before_xarray_indexes_it(tmp_path, never_opened):
@@ -278,7 +260,7 @@ def huge_zarr(path: Path) -> Path:
 
 @pytest.mark.parametrize("suffix", [".nc", ".zarr"])
 def test_cube_with_a_huge_coordinate_is_refused(tmp_path, library_file, suffix,
-                                                never_opened):
+                                                never_opened, cli):
     """Opening a cube reads its coordinates whole: a 2·10⁹-long one is refused first."""
     pytest.importorskip("dask")
     cube = tmp_path / f"huge_cube{suffix}"
@@ -295,7 +277,7 @@ def test_cube_with_a_huge_coordinate_is_refused(tmp_path, library_file, suffix,
     with pytest.raises(FileFormatError, match="^" + message):
         read_cube(cube)
     out = tmp_path / "r.csv"
-    assert_refused(run(["unmix", library_file, cube, "--out", out]), "^error: " + message,
+    assert_refused(cli("unmix", library_file, cube, "--out", out), "^error: " + message,
                    out=out, before=snapshot(cube, library_file))
 
 
@@ -442,7 +424,7 @@ def test_damaged_library_is_refused_in_python(tmp_path, case):
 
 
 @pytest.mark.parametrize("case", list(LIBRARY_CASES))
-def test_damaged_library_is_refused_by_the_cli(tmp_path, case):
+def test_damaged_library_is_refused_by_the_cli(tmp_path, case, cli):
     """unmix and library show: exit 2, one error line, no r.csv, the inputs unchanged."""
     change, message = LIBRARY_CASES[case]
     lib = write_corrupt(tmp_path / "lib.nc", change)
@@ -456,17 +438,17 @@ def test_damaged_library_is_refused_by_the_cli(tmp_path, case):
                          r"`mixsolve calibrate`$")
     else:
         unmix_message = message
-    assert_refused(run(["unmix", lib, spectra, "--out", out]), pattern + unmix_message,
+    assert_refused(cli("unmix", lib, spectra, "--out", out), pattern + unmix_message,
                    out=out, before=before)
-    assert_refused(run(["library", "show", lib]), pattern + message, before=before)
+    assert_refused(cli("library", "show", lib), pattern + message, before=before)
 
 
-def test_the_good_library_passes_the_same_checks(tmp_path):
+def test_the_good_library_passes_the_same_checks(tmp_path, cli):
     """The corruptions above start from a library that reads and unmixes cleanly."""
     lib = write_corrupt(tmp_path / "lib.nc", lambda ds: ds)
     spectra = write_wide(tmp_path / "mix.csv")
-    assert run(["library", "show", lib]).exit_code == 0
-    assert run(["unmix", lib, spectra, "--out", tmp_path / "r.csv"]).exit_code == 0
+    assert cli("library", "show", lib).exit_code == 0
+    assert cli("unmix", lib, spectra, "--out", tmp_path / "r.csv").exit_code == 0
 
 
 def test_stored_arrays_in_another_order_are_put_in_order(tmp_path):
@@ -477,7 +459,7 @@ def test_stored_arrays_in_another_order_are_put_in_order(tmp_path):
     xr.testing.assert_allclose(back["absorptivity"], make_library()["absorptivity"])
 
 
-def test_missing_optional_parts_are_not_stated(tmp_path):
+def test_missing_optional_parts_are_not_stated(tmp_path, cli):
     """No u_absorptivity, molar masses or concentration unit: read as not stated (NaN) and
     derived from the unit, and the library shows."""
     lib = write_corrupt(tmp_path / "lib.nc", lambda ds: _attrs(concentration_unit=None, basis=None)(
@@ -486,7 +468,7 @@ def test_missing_optional_parts_are_not_stated(tmp_path):
     assert np.isnan(back["u_absorptivity"].values).all()
     assert np.isnan(back["molar_mass_g_per_mol"].values).all()
     assert back.attrs["concentration_unit"] == "mol/L" and back.attrs["basis"] == "molar"
-    assert run(["library", "show", lib]).exit_code == 0
+    assert cli("library", "show", lib).exit_code == 0
 
 
 def test_check_library_refuses_the_same_in_memory():
@@ -543,7 +525,7 @@ MODEL_CASES: dict[str, tuple[Callable[[xr.Dataset], xr.Dataset], str]] = {
 
 
 @pytest.mark.parametrize("case", list(MODEL_CASES))
-def test_damaged_model_is_refused(tmp_path, model_path, case):
+def test_damaged_model_is_refused(tmp_path, model_path, case, cli):
     """read_model and unmix MODEL SPECTRA: one line naming the file, the problem and the fix."""
     change, message = MODEL_CASES[case]
     path = tmp_path / "model.nc"
@@ -555,14 +537,14 @@ def test_damaged_model_is_refused(tmp_path, model_path, case):
     spectra = tmp_path / "test.csv"
     shutil.copy(demo_file("calibration_test_spectra.csv"), spectra)
     out = tmp_path / "r.csv"
-    assert_refused(run(["unmix", path, spectra, "--out", out]), "^error: " + full, out=out,
+    assert_refused(cli("unmix", path, spectra, "--out", out), "^error: " + full, out=out,
                    before=snapshot(path, spectra))
 
 
-def test_good_model_still_predicts(tmp_path, model_path):
+def test_good_model_still_predicts(tmp_path, model_path, cli):
     """The model the corruptions start from reads and predicts."""
     out = tmp_path / "r.csv"
-    result = run(["unmix", model_path, demo_file("calibration_test_spectra.csv"), "--out", out])
+    result = cli("unmix", model_path, demo_file("calibration_test_spectra.csv"), "--out", out)
     assert result.exit_code == 0, result.output
     assert out.exists()
 

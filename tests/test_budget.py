@@ -13,11 +13,9 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from click.testing import CliRunner
 from helpers_io import MIXTURES, WL, leftovers, mixture_absorbance, write_library_file, write_wide
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.uncertainty.budget import SOURCES
 from mixsolve.uncertainty.volumetric import parse_dilution
 
@@ -286,11 +284,6 @@ def test_budget_refuses_another_library_or_a_non_ls_result(noisy_result) -> None
 # --- command line -------------------------------------------------------------------------
 
 
-def invoke(*args: object):
-    """Run ``mixsolve ARGS`` in-process."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
 @pytest.fixture
 def files(tmp_path, rng):
     """A library file and a noisy two-mixture spectra file (helpers_io data)."""
@@ -300,13 +293,13 @@ def files(tmp_path, rng):
     return lib, write_wide(tmp_path / "mix.csv", columns)
 
 
-def test_cli_budget_writes_the_table_and_reports_top_contributors(files, tmp_path) -> None:
+def test_cli_budget_writes_the_table_and_reports_top_contributors(files, tmp_path, cli) -> None:
     """``unmix --budget`` writes the tidy budget and prints the largest shares."""
     lib, spectra = files
     out = tmp_path / "budget.csv"
-    run = invoke("unmix", lib, spectra, "--budget", out, "--pathlength-u", "0.001",
-                 "--dilution", "1/10", "--carryover", "15", "--stray", "1e-4",
-                 "--wavelength-tolerance", "1", "--monte-carlo", "1000")
+    run = cli("unmix", lib, spectra, "--budget", out, "--pathlength-u", "0.001",
+              "--dilution", "1/10", "--carryover", "15", "--stray", "1e-4",
+              "--wavelength-tolerance", "1", "--monte-carlo", "1000")
     assert run.exit_code == 0, run.output
     table = pd.read_csv(out)
     assert len(table) == 2 * 2 * len(SOURCES)
@@ -317,11 +310,11 @@ def test_cli_budget_writes_the_table_and_reports_top_contributors(files, tmp_pat
     assert f"wrote {out}" in run.stderr
 
 
-def test_cli_budget_failure_leaves_no_file(files, tmp_path) -> None:
+def test_cli_budget_failure_leaves_no_file(files, tmp_path, cli) -> None:
     """A bad dilution (no 7 mL class A flask) fails before anything is written."""
     lib, spectra = files
-    run = invoke("unmix", lib, spectra, "--out", tmp_path / "r.csv", "--budget",
-                 tmp_path / "b.csv", "--dilution", "1/7")
+    run = cli("unmix", lib, spectra, "--out", tmp_path / "r.csv", "--budget",
+              tmp_path / "b.csv", "--dilution", "1/7")
     assert run.exit_code == 2
     assert run.stderr.count("error:") == 1
     assert "no 7 mL flask-A in the table" in run.stderr
@@ -329,23 +322,23 @@ def test_cli_budget_failure_leaves_no_file(files, tmp_path) -> None:
     assert leftovers(tmp_path) == []
 
 
-def test_cli_budget_setting_without_budget_is_refused(files) -> None:
+def test_cli_budget_setting_without_budget_is_refused(files, cli) -> None:
     """--dilution alone would be silently ignored, so it is an error."""
     lib, spectra = files
-    run = invoke("unmix", lib, spectra, "--dilution", "1/10")
+    run = cli("unmix", lib, spectra, "--dilution", "1/10")
     assert run.exit_code == 2
     assert "error: --dilution: a budget setting; give --budget FILE.csv too" in run.stderr
 
 
-def test_cli_repeat_scans_are_the_type_a_noise(files, tmp_path, rng) -> None:
+def test_cli_repeat_scans_are_the_type_a_noise(files, tmp_path, rng, cli) -> None:
     """--repeat-scans FILE: the noise term comes from the scans' SD (0.004 AU here, twice
     the spectra's own 0.002 AU), so it is larger than the fit's."""
     lib, spectra = files
     scans = write_wide(tmp_path / "scans.csv",
                        {f"s{j}": 0.4 + rng.normal(0, 0.004, WL.size) for j in range(8)})
     common = ["unmix", lib, spectra, "--method", "ols"]
-    assert invoke(*common, "--budget", tmp_path / "fit.csv").exit_code == 0
-    run = invoke(*common, "--budget", tmp_path / "rep.csv", "--repeat-scans", scans)
+    assert cli(*common, "--budget", tmp_path / "fit.csv").exit_code == 0
+    run = cli(*common, "--budget", tmp_path / "rep.csv", "--repeat-scans", scans)
     assert run.exit_code == 0, run.output
     assert "noise         repeat scans" in run.stdout
 

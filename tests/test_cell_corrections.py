@@ -10,11 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from click.testing import CliRunner
 from helpers_io import BANDS, MIXTURES, WL, mixture_absorbance, write_library_file, write_wide
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.uncertainty.corrections import pathlength_ratio
 
 CONC = np.array([[4.0e-5, 2.0e-5, 3.0e-5], [1.0e-5, 5.0e-5, 2.0e-5]])  # mol/L, invented
@@ -135,18 +133,13 @@ def test_blank_with_a_missing_reading_is_refused(wl_grid) -> None:
 # --- command line -------------------------------------------------------------------------
 
 
-def invoke(*args: object):
-    """Run ``mixsolve ARGS`` in-process."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
 def read_conc(path) -> pd.DataFrame:
     """Results CSV → concentration table (sample × component)."""
     table = pd.read_csv(path, keep_default_na=False, dtype={"flags": str})
     return table.pivot(index="sample", columns="component", values="concentration")
 
 
-def test_cli_cell_blank_and_ratio(tmp_path) -> None:
+def test_cli_cell_blank_and_ratio(tmp_path, cli) -> None:
     """--cell-blank FILE and --cell-ratio R±U recover the mixtures read in a mismatched cell,
     and the budget lists the cell terms."""
     lib = write_library_file(tmp_path / "lib.nc")
@@ -154,9 +147,9 @@ def test_cli_cell_blank_and_ratio(tmp_path) -> None:
     spectra = write_wide(tmp_path / "mix.csv", read)
     blank = write_wide(tmp_path / "blank.csv",
                        {f"scan{i}": window_absorbance(WL) + 1e-4 * (i - 1) for i in range(3)})
-    run = invoke("unmix", lib, spectra, "--method", "ols", "--cell-blank", blank,
-                 "--cell-ratio", "1.03±0.002", "--out", tmp_path / "r.csv",
-                 "--budget", tmp_path / "b.csv")
+    run = cli("unmix", lib, spectra, "--method", "ols", "--cell-blank", blank,
+              "--cell-ratio", "1.03±0.002", "--out", tmp_path / "r.csv",
+              "--budget", tmp_path / "b.csv")
     assert run.exit_code == 0, run.output
     conc = read_conc(tmp_path / "r.csv")
     for name, mix in MIXTURES.items():
@@ -168,7 +161,7 @@ def test_cli_cell_blank_and_ratio(tmp_path) -> None:
     assert np.all(budget[budget["source"] == "cell_blank"]["contribution"] > 0)
 
 
-def test_cli_wavelength_offset_corrects_a_shifted_instrument(tmp_path) -> None:
+def test_cli_wavelength_offset_corrects_a_shifted_instrument(tmp_path, cli) -> None:
     """Spectra recorded by an instrument reading 0.8 nm high (A_read(λ) = A(λ − 0.8)) are
     fitted better after --wavelength-offset 0.8."""
     wl = np.arange(400.0, 701.0, 2.0)
@@ -176,8 +169,8 @@ def test_cli_wavelength_offset_corrects_a_shifted_instrument(tmp_path) -> None:
     spectra = write_wide(tmp_path / "mix.csv",
                          {n: mixture_absorbance(m, wl - 0.8) for n, m in MIXTURES.items()}, wl)
     base = ["unmix", fine_lib, spectra, "--method", "ols", "--window", "420-680"]
-    raw = invoke(*base, "--out", tmp_path / "raw.csv")
-    fixed = invoke(*base, "--wavelength-offset", "0.8", "--out", tmp_path / "fixed.csv")
+    raw = cli(*base, "--out", tmp_path / "raw.csv")
+    fixed = cli(*base, "--wavelength-offset", "0.8", "--out", tmp_path / "fixed.csv")
     assert raw.exit_code == 0 and fixed.exit_code == 0, (raw.output, fixed.output)
     truth = pd.DataFrame(MIXTURES).T
     err_raw = np.abs(read_conc(tmp_path / "raw.csv") / truth - 1).to_numpy().max()
@@ -190,17 +183,17 @@ def test_cli_wavelength_offset_corrects_a_shifted_instrument(tmp_path) -> None:
     (["--wavelength-offset", "0.4±x"], "error: --wavelength-offset: '0.4±x' is not a number"),
     (["--cell-blank", "missing.csv"], "missing.csv"),
 ])
-def test_cli_bad_corrections(tmp_path, args, message) -> None:
+def test_cli_bad_corrections(tmp_path, args, message, cli) -> None:
     """Bad correction options: exit 2, one error line, nothing written."""
     lib = write_library_file(tmp_path / "lib.nc")
     spectra = write_wide(tmp_path / "mix.csv")
-    run = invoke("unmix", lib, spectra, "--out", tmp_path / "r.csv", *args)
+    run = cli("unmix", lib, spectra, "--out", tmp_path / "r.csv", *args)
     assert run.exit_code == 2, run.output
     assert run.stderr.count("error:") == 1 and message in run.stderr
     assert not (tmp_path / "r.csv").exists()
 
 
-def test_cli_offset_uncertainty_replaces_the_tolerance_in_the_budget(tmp_path) -> None:
+def test_cli_offset_uncertainty_replaces_the_tolerance_in_the_budget(tmp_path, cli) -> None:
     """--wavelength-offset 0.8±0.05 with a cell blank: the budget's wavelength input is
     u = 0.05 nm (normal), and the shifted blank still covers the shifted spectra."""
     wl = np.arange(400.0, 701.0, 2.0)
@@ -209,9 +202,9 @@ def test_cli_offset_uncertainty_replaces_the_tolerance_in_the_budget(tmp_path) -
             for n, m in MIXTURES.items()}
     spectra = write_wide(tmp_path / "mix.csv", read, wl)
     blank = write_wide(tmp_path / "blank.csv", {"b": window_absorbance(wl)}, wl)
-    run = invoke("unmix", lib, spectra, "--method", "ols", "--window", "420-680",
-                 "--cell-blank", blank, "--wavelength-offset", "0.8±0.05",
-                 "--budget", tmp_path / "b.csv")
+    run = cli("unmix", lib, spectra, "--method", "ols", "--window", "420-680",
+              "--cell-blank", blank, "--wavelength-offset", "0.8±0.05",
+              "--budget", tmp_path / "b.csv")
     assert run.exit_code == 0, run.output
     budget = pd.read_csv(tmp_path / "b.csv")
     rows = budget[budget["source"] == "wavelength"]

@@ -14,7 +14,6 @@ import stat
 import numpy as np
 import pandas as pd
 import pytest
-from click.testing import CliRunner
 from helpers_io import (
     MIXTURES,
     MOLAR_MASS,
@@ -33,22 +32,8 @@ from helpers_io import (
 )
 
 import mixsolve as ms
-from mixsolve.cli import main
 
 RESULT_COLUMNS = ["sample", "component", "concentration", "std_uncertainty", "unit", "flags"]
-
-
-def invoke(*args: object):
-    """Run ``mixsolve ARGS`` in-process; return click's Result."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def ok(*args: object):
-    """Run a command that must succeed, and return its Result."""
-    result = invoke(*args)
-    assert result.exit_code == 0, (result.output, result.exception)
-    assert "Traceback" not in result.output
-    return result
 
 
 def read_results(path) -> pd.DataFrame:
@@ -93,22 +78,22 @@ def files(tmp_path_factory):
 # --- top level ---------------------------------------------------------------------------
 
 
-def test_version():
-    result = ok("--version")
+def test_version(cli):
+    result = cli.ok("--version")
     assert result.stdout == f"mixsolve, version {ms.__version__}\n"
 
 
 @pytest.mark.parametrize("flag", ["--help", "-h"])
-def test_help_lists_commands(flag):
-    result = ok(flag)
+def test_help_lists_commands(flag, cli):
+    result = cli.ok(flag)
     assert result.stdout.startswith("Usage:")
     for command in ("demo", "library", "unmix"):
         assert f"  {command} " in result.stdout
     assert "--debug" in result.stdout
 
 
-def test_library_help_lists_subcommands():
-    result = ok("library", "--help")
+def test_library_help_lists_subcommands(cli):
+    result = cli.ok("library", "--help")
     for command in ("import", "build", "show"):
         assert f"  {command} " in result.stdout
 
@@ -123,15 +108,15 @@ def test_library_help_lists_subcommands():
      (["library", "show"], []),
      (["demo"], ["--out"])],
 )
-def test_command_help(command, options):
-    result = ok(*command, "--help")
+def test_command_help(command, options, cli):
+    result = cli.ok(*command, "--help")
     assert result.stdout.startswith("Usage:")
     for option in options:
         assert option in result.stdout
 
 
-def test_no_command_shows_usage():
-    result = invoke()
+def test_no_command_shows_usage(cli):
+    result = cli()
     assert result.exit_code in (0, 2)  # click 8.2 exits 2 when a group gets no command
     assert "Usage:" in result.output
     assert "Traceback" not in result.output
@@ -140,9 +125,9 @@ def test_no_command_shows_usage():
 # --- library import ----------------------------------------------------------------------
 
 
-def test_library_import(tmp_path, files):
+def test_library_import(tmp_path, files, cli):
     out = tmp_path / "lib.nc"
-    result = ok("library", "import", files["eps"], "--unit", "L/(mol*cm)", "--out", out)
+    result = cli.ok("library", "import", files["eps"], "--unit", "L/(mol*cm)", "--out", out)
     assert result.stdout == ""
     assert result.stderr == f"wrote {out}: 2 components, 31 wavelengths, L/(mol*cm)\n"
     lib = ms.read_library(out)
@@ -154,11 +139,11 @@ def test_library_import(tmp_path, files):
     assert leftovers(tmp_path) == []
 
 
-def test_library_import_options(tmp_path, files):
+def test_library_import_options(tmp_path, files, cli):
     out = tmp_path / "lib.nc"
-    ok("library", "import", files["eps"], "--unit", "L mol^-1 cm^-1", "--out", out,
-       "--molar-mass", "red=500, blue=800", "--solvent", "90 % acetone",
-       "--bandwidth-nm", "1.5")
+    cli.ok("library", "import", files["eps"], "--unit", "L mol^-1 cm^-1", "--out", out,
+           "--molar-mass", "red=500, blue=800", "--solvent", "90 % acetone",
+           "--bandwidth-nm", "1.5")
     lib = ms.read_library(out)
     assert lib.attrs["solvent"] == "90 % acetone"
     assert lib.attrs["bandwidth_nm"] == 1.5
@@ -166,9 +151,9 @@ def test_library_import_options(tmp_path, files):
                     strict=True)) == MOLAR_MASS
 
 
-def test_library_import_converts_units(tmp_path, files):
+def test_library_import_converts_units(tmp_path, files, cli):
     out = tmp_path / "mass.nc"
-    result = ok("library", "import", files["eps"], "--unit", "mL/(mg*cm)", "--out", out)
+    result = cli.ok("library", "import", files["eps"], "--unit", "mL/(mg*cm)", "--out", out)
     assert result.stderr.endswith("L/(g*cm)\n")
     lib = ms.read_library(out)
     assert lib.attrs["unit"] == "L/(g*cm)"
@@ -179,10 +164,10 @@ def test_library_import_converts_units(tmp_path, files):
 # --- library build -----------------------------------------------------------------------
 
 
-def test_library_build(tmp_path, files):
+def test_library_build(tmp_path, files, cli):
     out = tmp_path / "built.nc"
-    result = ok("library", "build", files["standards"], "--standards", files["sheet"],
-                "--out", out)
+    result = cli.ok("library", "build", files["standards"], "--standards", files["sheet"],
+                    "--out", out)
     assert result.stdout.startswith(f"Library {out}\n")
     assert "  components    2: red, blue" in result.stdout
     assert "built from standards (through the origin) from standards.csv" in result.stdout
@@ -194,11 +179,11 @@ def test_library_build(tmp_path, files):
     assert leftovers(tmp_path) == []
 
 
-def test_library_build_intercept_pathlength_solvent(tmp_path, files):
+def test_library_build_intercept_pathlength_solvent(tmp_path, files, cli):
     out = tmp_path / "built.nc"
-    result = ok("library", "build", files["standards"], "--standards", files["sheet"],
-                "--out", out, "--intercept", "--pathlength", "2", "--solvent", "water",
-                "--bandwidth-nm", "2", "--molar-mass", "red=500")
+    result = cli.ok("library", "build", files["standards"], "--standards", files["sheet"],
+                    "--out", out, "--intercept", "--pathlength", "2", "--solvent", "water",
+                    "--bandwidth-nm", "2", "--molar-mass", "red=500")
     assert "(slope and intercept)" in result.stdout
     assert "  solvent       water" in result.stdout
     lib = ms.read_library(out)
@@ -209,12 +194,12 @@ def test_library_build_intercept_pathlength_solvent(tmp_path, files):
     assert lib["molar_mass_g_per_mol"].sel(component="red").item() == 500.0
 
 
-def test_library_build_warns_on_few_levels(tmp_path, files):
+def test_library_build_warns_on_few_levels(tmp_path, files, cli):
     sheet = tmp_path / "sheet.csv"
     text = files["sheet"].read_text().replace("0.04", "0.02")  # red: 2 levels only
     sheet.write_text(text)
-    result = ok("library", "build", files["standards"], "--standards", sheet, "--out",
-                tmp_path / "lib.nc")
+    result = cli.ok("library", "build", files["standards"], "--standards", sheet, "--out",
+                    tmp_path / "lib.nc")
     assert "warning: component 'red'" in result.stderr
     assert "warning" not in result.stdout
 
@@ -222,8 +207,8 @@ def test_library_build_warns_on_few_levels(tmp_path, files):
 # --- library show ------------------------------------------------------------------------
 
 
-def test_library_show(files):
-    result = ok("library", "show", files["lib"])
+def test_library_show(files, cli):
+    result = cli.ok("library", "show", files["lib"])
     assert result.stdout.startswith(f"Library {files['lib']}\n")
     assert "  components    2: red, blue" in result.stdout
     assert "  absorptivity  L/(mol*cm) (concentrations in mol/L at 1 cm)" in result.stdout
@@ -240,9 +225,9 @@ def test_library_show(files):
 # --- unmix -------------------------------------------------------------------------------
 
 
-def test_unmix_prints_results_without_writing(tmp_path, files, monkeypatch):
+def test_unmix_prints_results_without_writing(tmp_path, files, monkeypatch, cli):
     monkeypatch.chdir(tmp_path)
-    result = ok("unmix", files["lib"], files["mix"])
+    result = cli.ok("unmix", files["lib"], files["mix"])
     lines = result.stdout.splitlines()
     assert lines[0] == "Concentrations by classical least squares (nnls, baseline none)"
     assert "  wavelengths   31 used, 400-700 nm" in lines
@@ -253,9 +238,9 @@ def test_unmix_prints_results_without_writing(tmp_path, files, monkeypatch):
     assert list(tmp_path.iterdir()) == []
 
 
-def test_unmix_out_csv(tmp_path, files):
+def test_unmix_out_csv(tmp_path, files, cli):
     out = tmp_path / "results.csv"
-    result = ok("unmix", files["lib"], files["mix"], "--out", out)
+    result = cli.ok("unmix", files["lib"], files["mix"], "--out", out)
     assert result.stderr == f"wrote {out}\n"
     table = read_results(out)
     assert list(table.columns[: len(RESULT_COLUMNS) - 1]) == RESULT_COLUMNS[:-1]
@@ -272,11 +257,11 @@ def test_unmix_out_csv(tmp_path, files):
     assert leftovers(tmp_path) == []
 
 
-def test_unmix_out_relative_path_and_mode(tmp_path, files, monkeypatch):
+def test_unmix_out_relative_path_and_mode(tmp_path, files, monkeypatch, cli):
     monkeypatch.chdir(tmp_path)
     old = os.umask(0o022)
     try:
-        ok("unmix", files["lib"], files["mix"], "--out", "results.csv")
+        cli.ok("unmix", files["lib"], files["mix"], "--out", "results.csv")
     finally:
         os.umask(old)
     out = tmp_path / "results.csv"
@@ -286,9 +271,9 @@ def test_unmix_out_relative_path_and_mode(tmp_path, files, monkeypatch):
     assert leftovers(tmp_path) == []
 
 
-def test_unmix_exact_data_recovers_truth(tmp_path, files):
+def test_unmix_exact_data_recovers_truth(tmp_path, files, cli):
     out = tmp_path / "r.csv"
-    ok("unmix", files["lib"], files["exact"], "--method", "ols", "--out", out)
+    cli.ok("unmix", files["lib"], files["exact"], "--method", "ols", "--out", out)
     table = read_results(out)
     for sample, truth in MIXTURES.items():
         for component, value in truth.items():
@@ -296,38 +281,38 @@ def test_unmix_exact_data_recovers_truth(tmp_path, files):
 
 
 @pytest.mark.parametrize("key", ["long", "xlsx"])
-def test_unmix_other_formats(tmp_path, files, key):
+def test_unmix_other_formats(tmp_path, files, key, cli):
     out = tmp_path / "r.csv"
-    ok("unmix", files["lib"], files[key], "--out", out)
+    cli.ok("unmix", files["lib"], files[key], "--out", out)
     table = read_results(out)
     assert conc(table, "mix_1", "red") == pytest.approx(2.0e-5, rel=0.05)
 
 
-def test_unmix_window(tmp_path, files):
+def test_unmix_window(tmp_path, files, cli):
     out = tmp_path / "r.csv"
-    result = ok("unmix", files["lib"], files["mix"], "--window", "420-680", "--out", out)
+    result = cli.ok("unmix", files["lib"], files["mix"], "--window", "420-680", "--out", out)
     # both ends included: 420, 430, ..., 680 nm
     assert "  wavelengths   27 used, 420-680 nm" in result.stdout.splitlines()
     assert conc(read_results(out), "mix_2", "blue") == pytest.approx(
         MIXTURES["mix_2"]["blue"], rel=0.05)
 
 
-def test_unmix_window_with_colon(files):
-    result = ok("unmix", files["lib"], files["mix"], "--window", "500:600")
+def test_unmix_window_with_colon(files, cli):
+    result = cli.ok("unmix", files["lib"], files["mix"], "--window", "500:600")
     assert "  wavelengths   11 used, 500-600 nm" in result.stdout.splitlines()
 
 
-def test_unmix_wavelengths(tmp_path, files):
+def test_unmix_wavelengths(tmp_path, files, cli):
     out = tmp_path / "r.csv"
-    result = ok("unmix", files["lib"], files["exact"], "--wavelengths", "620,450,530",
-                "--out", out)
+    result = cli.ok("unmix", files["lib"], files["exact"], "--wavelengths", "620,450,530",
+                    "--out", out)
     assert "  wavelengths   3 used, 450-620 nm" in result.stdout.splitlines()
     assert conc(read_results(out), "mix_1", "red") == pytest.approx(2.0e-5, rel=1e-6)
 
 
-def test_unmix_methods_and_flags(tmp_path, files):
+def test_unmix_methods_and_flags(tmp_path, files, cli):
     nnls, ols = tmp_path / "nnls.csv", tmp_path / "ols.csv"
-    result = ok("unmix", files["lib"], files["flagged"], "--out", nnls)
+    result = cli.ok("unmix", files["lib"], files["flagged"], "--out", nnls)
     assert "at_zero:blue" in result.stdout
     table = read_results(nnls)
     flags = dict(zip(table["sample"], table["flags"], strict=False))
@@ -335,7 +320,7 @@ def test_unmix_methods_and_flags(tmp_path, files):
     assert "at_zero:blue" in flags["odd"].split(";")
     assert conc(table, "odd", "blue") == 0.0
 
-    result = ok("unmix", files["lib"], files["flagged"], "--method", "ols", "--out", ols)
+    result = cli.ok("unmix", files["lib"], files["flagged"], "--method", "ols", "--out", ols)
     assert result.stdout.startswith("Concentrations by classical least squares (ols,")
     table = read_results(ols)
     flags = dict(zip(table["sample"], table["flags"], strict=False))
@@ -345,11 +330,11 @@ def test_unmix_methods_and_flags(tmp_path, files):
     assert conc(table, "odd", "blue") == pytest.approx(-0.5e-5, rel=0.1)
 
 
-def test_unmix_baseline_offset(tmp_path, files):
+def test_unmix_baseline_offset(tmp_path, files, cli):
     plain, fitted = tmp_path / "plain.csv", tmp_path / "offset.csv"
-    ok("unmix", files["lib"], files["offset"], "--method", "ols", "--out", plain)
-    result = ok("unmix", files["lib"], files["offset"], "--method", "ols", "--baseline",
-                "offset", "--out", fitted)
+    cli.ok("unmix", files["lib"], files["offset"], "--method", "ols", "--out", plain)
+    result = cli.ok("unmix", files["lib"], files["offset"], "--method", "ols", "--baseline",
+                    "offset", "--out", fitted)
     assert "baseline offset)" in result.stdout.splitlines()[0]
     # without the offset term the 0.05 AU offset biases the result; with it, it does not
     red = MIXTURES["mix_2"]["red"]
@@ -357,9 +342,9 @@ def test_unmix_baseline_offset(tmp_path, files):
     assert conc(read_results(fitted), "mix_2", "red") == pytest.approx(red, rel=1e-6)
 
 
-def test_unmix_baseline_linear(tmp_path, files):
+def test_unmix_baseline_linear(tmp_path, files, cli):
     out = tmp_path / "linear.csv"
-    result = ok("unmix", files["lib"], files["sloped"], "--baseline", "linear", "--out", out)
+    result = cli.ok("unmix", files["lib"], files["sloped"], "--baseline", "linear", "--out", out)
     assert "baseline linear)" in result.stdout.splitlines()[0]
     table = read_results(out)
     for sample, truth in MIXTURES.items():
@@ -367,70 +352,70 @@ def test_unmix_baseline_linear(tmp_path, files):
             assert conc(table, sample, component) == pytest.approx(value, rel=1e-6)
 
 
-def test_unmix_pathlength(tmp_path, files):
+def test_unmix_pathlength(tmp_path, files, cli):
     out = tmp_path / "r.csv"
-    result = ok("unmix", files["lib"], files["exact"], "--pathlength", "0.5", "--out", out)
+    result = cli.ok("unmix", files["lib"], files["exact"], "--pathlength", "0.5", "--out", out)
     assert "  pathlength    0.5 cm" in result.stdout.splitlines()
     assert conc(read_results(out), "mix_1", "blue") == pytest.approx(6.0e-5, rel=1e-6)
 
 
 @pytest.mark.parametrize(("unit", "factor"), [("umol/L", 1e6), ("µmol/L", 1e6),
                                               ("mmol/L", 1e3), ("M", 1.0)])
-def test_unmix_unit_same_basis(tmp_path, files, unit, factor):
+def test_unmix_unit_same_basis(tmp_path, files, unit, factor, cli):
     out = tmp_path / "r.csv"
-    result = ok("unmix", files["lib"], files["exact"], "--unit", unit, "--out", out)
+    result = cli.ok("unmix", files["lib"], files["exact"], "--unit", unit, "--out", out)
     assert f"  unit          {unit}, value ± standard uncertainty" in result.stdout
     table = read_results(out)
     assert set(table["unit"]) == {unit}
     assert conc(table, "mix_1", "red") == pytest.approx(2.0e-5 * factor, rel=1e-6)
 
 
-def test_unmix_unit_mass_needs_molar_mass(tmp_path, files):
+def test_unmix_unit_mass_needs_molar_mass(tmp_path, files, cli):
     out = tmp_path / "r.csv"
-    ok("unmix", files["lib"], files["exact"], "--unit", "mg/L", "--out", out)
+    cli.ok("unmix", files["lib"], files["exact"], "--unit", "mg/L", "--out", out)
     table = read_results(out)
     # mol/L × g/mol × 1000 mg/g
     assert conc(table, "mix_1", "red") == pytest.approx(2.0e-5 * 500 * 1e3, rel=1e-6)
     assert conc(table, "mix_1", "blue") == pytest.approx(3.0e-5 * 800 * 1e3, rel=1e-6)
 
 
-def test_unmix_all_options_together(tmp_path, files):
+def test_unmix_all_options_together(tmp_path, files, cli):
     out = tmp_path / "r.csv"
-    result = ok("unmix", files["lib"], files["offset"], "--window", "400-700", "--method",
-                "nnls", "--baseline", "offset", "--pathlength", "1", "--unit", "umol/L",
-                "--out", out)
+    result = cli.ok("unmix", files["lib"], files["offset"], "--window", "400-700", "--method",
+                    "nnls", "--baseline", "offset", "--pathlength", "1", "--unit", "umol/L",
+                    "--out", out)
     assert result.stderr == f"wrote {out}\n"
     table = read_results(out)
     assert conc(table, "mix_2", "blue") == pytest.approx(MIXTURES["mix_2"]["blue"] * 1e6,
                                                           rel=1e-6)
 
 
-def test_unmix_overwrites_existing_out(tmp_path, files):
+def test_unmix_overwrites_existing_out(tmp_path, files, cli):
     out = tmp_path / "r.csv"
     out.write_text("old contents\n")
-    ok("unmix", files["lib"], files["mix"], "--out", out)
+    cli.ok("unmix", files["lib"], files["mix"], "--out", out)
     assert list(read_results(out).columns[:2]) == ["sample", "component"]
     assert leftovers(tmp_path) == []
 
 
-def test_unmix_missing_readings_are_flagged(tmp_path, files):
+def test_unmix_missing_readings_are_flagged(tmp_path, files, cli):
     spectra = tmp_path / "gaps.csv"
     cols = mixture_columns(noise_au=1e-3)
     cols["mix_1"][3] = np.nan
     write_wide(spectra, cols)
     out = tmp_path / "r.csv"
-    ok("unmix", files["lib"], spectra, "--out", out)
+    cli.ok("unmix", files["lib"], spectra, "--out", out)
     table = read_results(out)
     flags = dict(zip(table["sample"], table["flags"], strict=False))
     assert flags["mix_1"] == "missing_readings"
     assert flags["mix_2"] == ""
 
 
-def test_unmix_spectra_beyond_library_warn(tmp_path, files):
+def test_unmix_spectra_beyond_library_warn(tmp_path, files, cli):
     wide = np.arange(380.0, 721.0, 10.0)
     spectra = write_wide(tmp_path / "wide.csv",
                          {"m": mixture_absorbance(MIXTURES["mix_1"], wide)}, wl=wide)
-    result = ok("unmix", files["lib"], spectra)
+    result = cli.ok("unmix", files["lib"], spectra)
     assert result.stderr.startswith("warning: 4 measured wavelength(s) outside the library")
     assert result.stderr.count("\n") == 1
     assert "lie outside the library and were left out (380-720 nm)" in result.stdout
@@ -439,10 +424,10 @@ def test_unmix_spectra_beyond_library_warn(tmp_path, files):
 # --- demo --------------------------------------------------------------------------------
 
 
-def test_demo(tmp_path):
+def test_demo(tmp_path, cli):
     pytest.importorskip("mixsolve.workflows.demo")
     out = tmp_path / "demo_out"
-    result = ok("demo", "--out", out)
+    result = cli.ok("demo", "--out", out)
     assert "synthetic" in result.stdout.lower()
     assert "Concentrations by classical least squares" in result.stdout
     written = sorted(p.name for p in out.iterdir())
@@ -456,9 +441,9 @@ def test_demo(tmp_path):
     assert len(table) > 0
 
 
-def test_demo_default_folder(tmp_path, monkeypatch):
+def test_demo_default_folder(tmp_path, monkeypatch, cli):
     pytest.importorskip("mixsolve.workflows.demo")
     monkeypatch.chdir(tmp_path)
-    ok("demo")
+    cli.ok("demo")
     assert (tmp_path / "mixsolve-demo" / "results.csv").is_file()
     shutil.rmtree(tmp_path / "mixsolve-demo")

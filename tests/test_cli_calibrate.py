@@ -1,6 +1,6 @@
 """`mixsolve calibrate` and `mixsolve unmix MODEL.nc` through click's CliRunner.
 
-Files are written from the invented mixtures of test_pls (Gaussian bands, seeded noise).
+Files are written from the invented mixtures of helpers_pls (Gaussian bands, seeded noise).
 """
 
 from __future__ import annotations
@@ -8,11 +8,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from click.testing import CliRunner
-from test_pls import COMPONENTS, WL, as_inputs, simulate
+from helpers_pls import COMPONENTS, WL, as_inputs, simulate
 
 import mixsolve as ms
-from mixsolve.cli import main
 
 
 def write_inputs(folder, rng, n=20, prefix="cal", shift_per_rose=0.0):
@@ -36,14 +34,10 @@ def files(tmp_path):
     return tmp_path, spectra, ref, new
 
 
-def run(*args):
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def test_calibrate_then_unmix_with_the_model(files) -> None:
+def test_calibrate_then_unmix_with_the_model(files, cli) -> None:
     folder, spectra, ref, new = files
     model_path = folder / "model.nc"
-    res = run("calibrate", spectra, "--reference", ref, "--out", model_path, "--folds", 5,
+    res = cli("calibrate", spectra, "--reference", ref, "--out", model_path, "--folds", 5,
               "--max-latent", 6)
     assert res.exit_code == 0, res.output
     assert "RMSECV" in res.stdout and f"wrote {model_path}" in res.stderr
@@ -51,7 +45,7 @@ def test_calibrate_then_unmix_with_the_model(files) -> None:
     for k, comp in enumerate(COMPONENTS):
         assert f"{float(model['rmsecv'].values[k]):.4g}" in res.stdout, comp
     out = folder / "results.csv"
-    res = run("unmix", model_path, new, "--out", out)
+    res = cli("unmix", model_path, new, "--out", out)
     assert res.exit_code == 0, res.output
     assert res.stdout.startswith("Concentrations by PLS prediction")
     table = pd.read_csv(out, keep_default_na=False)
@@ -62,22 +56,22 @@ def test_calibrate_then_unmix_with_the_model(files) -> None:
     assert {"t2", "t2_limit_95", "q_residual", "q_limit_99"} <= set(table.columns)
 
 
-def test_results_of_one_run_serve_as_reference(files) -> None:
+def test_results_of_one_run_serve_as_reference(files, cli) -> None:
     folder, spectra, ref, _ = files
     model_path = folder / "model.nc"
-    assert run("calibrate", spectra, "--reference", ref, "--out", model_path,
+    assert cli("calibrate", spectra, "--reference", ref, "--out", model_path,
                "--max-latent", 5).exit_code == 0
     results = folder / "self.csv"
-    assert run("unmix", model_path, spectra, "--out", results).exit_code == 0
-    res = run("calibrate", spectra, "--reference", results, "--out", folder / "again.nc",
+    assert cli("unmix", model_path, spectra, "--out", results).exit_code == 0
+    res = cli("calibrate", spectra, "--reference", results, "--out", folder / "again.nc",
               "--max-latent", 5)
     assert res.exit_code == 0, res.output
 
 
-def test_compare_prints_cls_and_pls_and_plot_is_written(files) -> None:
+def test_compare_prints_cls_and_pls_and_plot_is_written(files, cli) -> None:
     folder, spectra, ref, _ = files
     plot = folder / "cal.png"
-    res = run("calibrate", spectra, "--reference", ref, "--out", folder / "m.nc", "--compare",
+    res = cli("calibrate", spectra, "--reference", ref, "--out", folder / "m.nc", "--compare",
               "--latent", "3", "--mode", "pls2", "--plot", plot, "--window", "440-660",
               "--derivative", "5", "--scale", "autoscale", "--split", "random", "--seed", "4")
     assert res.exit_code == 0, res.output
@@ -95,11 +89,11 @@ def test_compare_prints_cls_and_pls_and_plot_is_written(files) -> None:
                                 r"'lots' is not a number"),
     (lambda r: r.drop(columns="unit"), r"missing column\(s\) unit"),
 ])
-def test_bad_reference_is_exit_2_with_a_plain_message(files, edit, match) -> None:
+def test_bad_reference_is_exit_2_with_a_plain_message(files, edit, match, cli) -> None:
     folder, spectra, ref, _ = files
     edit(pd.read_csv(ref)).to_csv(ref, index=False)
     out = folder / "model.nc"
-    res = run("calibrate", spectra, "--reference", ref, "--out", out)
+    res = cli("calibrate", spectra, "--reference", ref, "--out", out)
     assert res.exit_code == 2
     assert res.stderr.startswith("error: ")
     assert pd.Series([res.stderr]).str.contains(match).all(), res.stderr
@@ -112,23 +106,23 @@ def test_bad_reference_is_exit_2_with_a_plain_message(files, edit, match) -> Non
     (["--folds", "50"], r"folds: 50 is not between 2 and the number of calibration samples"),
     (["--window", "700-800"], r"window 700-800 nm holds 0 measured wavelength"),
 ])
-def test_bad_calibrate_options(files, args, match) -> None:
+def test_bad_calibrate_options(files, args, match, cli) -> None:
     folder, spectra, ref, _ = files
-    res = run("calibrate", spectra, "--reference", ref, "--out", folder / "m.nc", *args)
+    res = cli("calibrate", spectra, "--reference", ref, "--out", folder / "m.nc", *args)
     assert res.exit_code == 2
     assert pd.Series([res.stderr]).str.contains(match).all(), res.stderr
 
 
-def test_unmix_with_a_model_refuses_library_options_and_short_spectra(files) -> None:
+def test_unmix_with_a_model_refuses_library_options_and_short_spectra(files, cli) -> None:
     folder, spectra, ref, new = files
     model_path = folder / "model.nc"
-    assert run("calibrate", spectra, "--reference", ref, "--out", model_path,
+    assert cli("calibrate", spectra, "--reference", ref, "--out", model_path,
                "--max-latent", 5).exit_code == 0
-    res = run("unmix", model_path, new, "--window", "450-600")
+    res = cli("unmix", model_path, new, "--window", "450-600")
     assert res.exit_code == 2
     assert "--window: does not apply to the PLS model model.nc" in res.stderr
     short = pd.read_csv(new)
     short[short["wavelength_nm"] >= 500].to_csv(folder / "short.csv", index=False)
-    res = run("unmix", model_path, folder / "short.csv")
+    res = cli("unmix", model_path, folder / "short.csv")
     assert res.exit_code == 2
     assert "does not cover the model's 420-680 nm" in res.stderr

@@ -10,30 +10,14 @@ import csv
 
 import numpy as np
 import pytest
-from click.testing import CliRunner
+from helpers_instrument import UV, dichromate
 from helpers_io import leftovers, write_text, write_wide
-from scipy.interpolate import CubicSpline
 
-from mixsolve.cli import main
-from mixsolve.instrument.absorbance_scale import DICHROMATE_SPECIFIC_ABSORBANCE
 from mixsolve.instrument.wavelength_scale import HOLMIUM_BANDS_NM
 from mixsolve.io.log_io import LOG_COLUMNS
 
-UV = np.arange(220.0, 400.1, 1.0)
 HO = np.arange(230.0, 560.01, 0.5)
 KCL = np.arange(190.0, 231.0, 1.0)
-
-
-def invoke(*args: object):
-    """Run ``mixsolve ARGS`` in-process; return click's Result."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def dichromate(conc_mg_l: float, scale: float = 1.0) -> np.ndarray:
-    """Synthetic dichromate absorbance at the table's nominal A(1 %, 1 cm)."""
-    lam = np.array(list(DICHROMATE_SPECIFIC_ABSORBANCE))
-    nominal = np.array([v[0] for v in DICHROMATE_SPECIFIC_ABSORBANCE.values()])
-    return scale * CubicSpline(lam, nominal)(UV) * conc_mg_l / 1.0e4
 
 
 def holmium(shift: float, rng: np.random.Generator) -> np.ndarray:
@@ -48,19 +32,19 @@ def read_log(path) -> list[dict[str, str]]:
         return list(csv.DictReader(handle))
 
 
-def test_absorbance_pass_fail_and_log_grows(tmp_path) -> None:
+def test_absorbance_pass_fail_and_log_grows(tmp_path, cli) -> None:
     """A good and a 3 % low solution: PASS then FAIL printed; the log gains 4 dated records
     per run, earlier rows kept unchanged."""
     good = write_wide(tmp_path / "good.csv", {"k": dichromate(60.0)}, UV)
     low = write_wide(tmp_path / "low.csv", {"k": dichromate(60.0, 0.97)}, UV)
     log = tmp_path / "checks.csv"
-    first = invoke("instrument", "absorbance", good, "--concentration", "60", "--bandwidth", "1",
-                   "--log", log)
+    first = cli("instrument", "absorbance", good, "--concentration", "60", "--bandwidth", "1",
+                "--log", log)
     assert first.exit_code == 0, first.output
     assert first.stdout.rstrip().endswith("logged 4 record(s) to " + str(log))
     assert "result: PASS" in first.stdout
     before = log.read_text(encoding="utf-8")
-    second = invoke("instrument", "absorbance", low, "--concentration", "60", "--log", log)
+    second = cli("instrument", "absorbance", low, "--concentration", "60", "--log", log)
     assert second.exit_code == 0 and "result: FAIL" in second.stdout
     rows = read_log(log)
     assert list(rows[0]) == list(LOG_COLUMNS)
@@ -72,22 +56,22 @@ def test_absorbance_pass_fail_and_log_grows(tmp_path) -> None:
     assert leftovers(tmp_path) == []
 
 
-def test_absorbance_linearity_series(tmp_path) -> None:
+def test_absorbance_linearity_series(tmp_path, cli) -> None:
     """Several concentrations, one per column: per-level items plus linearity items."""
     levels = [20.0, 40.0, 60.0, 80.0]
     spectra = write_wide(tmp_path / "series.csv",
                          {f"L{int(c)}": dichromate(c) for c in levels}, UV)
-    run = invoke("instrument", "absorbance", spectra, "--concentration", "20,40,60,80")
+    run = cli("instrument", "absorbance", spectra, "--concentration", "20,40,60,80")
     assert run.exit_code == 0, run.output
     assert run.stdout.count("linearity at") == 4
     assert "result: PASS" in run.stdout
 
 
-def test_wavelength_offset_printed_and_logged(tmp_path, rng) -> None:
+def test_wavelength_offset_printed_and_logged(tmp_path, rng, cli) -> None:
     """Holmium bands shifted by +0.4 nm: the offset line reads about +0.4 nm."""
     spectra = write_wide(tmp_path / "ho.csv", {"ho": holmium(0.4, rng)}, HO)
     log = tmp_path / "log.csv"
-    run = invoke("instrument", "wavelength", spectra, "--bandwidth", "1", "--log", log)
+    run = cli("instrument", "wavelength", spectra, "--bandwidth", "1", "--log", log)
     assert run.exit_code == 0, run.output
     line = next(t for t in run.stdout.splitlines() if t.strip().startswith("offset nm"))
     assert float(line.split()[-1]) == pytest.approx(0.4, abs=0.02)
@@ -97,17 +81,17 @@ def test_wavelength_offset_printed_and_logged(tmp_path, rng) -> None:
     assert logged == pytest.approx(0.4, abs=0.02)
 
 
-def test_stray_light_pass_and_fail(tmp_path) -> None:
+def test_stray_light_pass_and_fail(tmp_path, cli) -> None:
     """12 g/L KCl above 2 AU at 200 nm passes; 1.8 AU fails; the stray bound is shown."""
     good = write_wide(tmp_path / "kcl.csv", {"kcl": np.full(KCL.size, 2.4)}, KCL)
     bad = write_wide(tmp_path / "weak.csv", {"kcl": np.full(KCL.size, 1.8)}, KCL)
-    assert "result: PASS" in invoke("instrument", "stray-light", good).stdout
-    run = invoke("instrument", "stray-light", bad, "--limit", "2")
+    assert "result: PASS" in cli("instrument", "stray-light", good).stdout
+    run = cli("instrument", "stray-light", bad, "--limit", "2")
     assert run.exit_code == 0 and "result: FAIL" in run.stdout
     assert "stray fraction bound" in run.stdout
 
 
-def test_repeatability_command(tmp_path, rng) -> None:
+def test_repeatability_command(tmp_path, rng, cli) -> None:
     """Six scans with 0.001 AU noise and a drift of 0.002 AU per scan: the SD holds the
     drift too (√(0.001² + SD(0, 0.002, …, 0.010)²) = √(1e-6 + 0.00374²) ≈ 0.0039 AU), and
     the drift is reported as significant."""
@@ -115,7 +99,7 @@ def test_repeatability_command(tmp_path, rng) -> None:
     scans = {f"scan{j}": 0.5 + 0.002 * j + rng.normal(0, 0.001, wl.size) for j in range(6)}
     path = write_wide(tmp_path / "scans.csv", scans, wl)
     out = tmp_path / "rep.csv"
-    run = invoke("instrument", "repeatability", path, "--out", out)
+    run = cli("instrument", "repeatability", path, "--out", out)
     assert run.exit_code == 0, run.output
     pooled = next(t for t in run.stdout.splitlines() if "pooled SD" in t)
     assert float(pooled.split()[2]) == pytest.approx(0.0039, abs=0.0004)
@@ -140,7 +124,7 @@ def test_repeatability_command(tmp_path, rng) -> None:
      "is not that of a mixsolve instrument log"),
     (["absorbance", "nothere.csv", "--concentration", "60"], "nothere.csv"),
 ])
-def test_bad_input_is_one_error_line_and_exit_2(tmp_path, args, message) -> None:
+def test_bad_input_is_one_error_line_and_exit_2(tmp_path, args, message, cli) -> None:
     """Bad input: exit code 2, exactly one ``error:`` line naming what and where; an
     existing file that is not a log is left untouched."""
     files = {
@@ -148,7 +132,7 @@ def test_bad_input_is_one_error_line_and_exit_2(tmp_path, args, message) -> None
         "kcl": write_wide(tmp_path / "kcl.csv", {"kcl": np.full(KCL.size, 2.4)}, KCL),
         "notlog": write_text(tmp_path / "notes.csv", "a,b\n1,2\n"),
     }
-    run = invoke("instrument", *[a.format(**files) for a in args])
+    run = cli("instrument", *[a.format(**files) for a in args])
     assert run.exit_code == 2, run.output
     lines = [t for t in run.stderr.splitlines() if t.strip()]
     assert len(lines) == 1 and lines[0].startswith("error: ")

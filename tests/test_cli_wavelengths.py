@@ -14,10 +14,9 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from click.testing import CliRunner
+from helpers_cli import assert_cli_error
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.wavelengths.check import check_wavelengths
 from mixsolve.wavelengths.choose import EQUAL_TIME_MARGIN
 from mixsolve.workflows.demo import demo_file, run_demo
@@ -29,34 +28,6 @@ BANDS = {"red": (2.0e4, 470.0, 25.0), "blue": (1.5e4, 590.0, 30.0)}
 CONC = {"red": 3.0e-5, "blue": 4.0e-5}  # mol/L: peaks ≈ 0.6 AU at 1 cm
 LIB_WL = np.arange(380.0, 720.01, 0.5)
 MEAS_WL = np.arange(400.0, 700.01, 1.0)
-
-
-def invoke(*args: object):
-    """Run ``mixsolve ARGS`` in-process and return click's Result."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def ok(*args: object):
-    """Run a command that must succeed; return its Result."""
-    result = invoke(*args)
-    assert result.exit_code == 0, (result.output, result.exception)
-    assert "Traceback" not in result.output
-    return result
-
-
-def fails_cleanly(*args: object, match: str) -> str:
-    """Run a command that must fail as a user error: exit 2, one ``error:`` line on
-    stderr containing ``match``, nothing on stdout, no traceback. Returns the line.
-    """
-    result = invoke(*args)
-    assert result.exit_code == 2, (result.output, result.exception)
-    assert "Traceback" not in result.output
-    assert result.stdout == ""
-    lines = [line for line in result.stderr.splitlines() if line.strip()]
-    errors = [line for line in lines if line.startswith("error: ")]
-    assert len(errors) == 1, lines
-    assert match in errors[0], errors[0]
-    return errors[0]
 
 
 def eps_at(wl: np.ndarray) -> np.ndarray:
@@ -112,9 +83,9 @@ def read_csv(path) -> pd.DataFrame:
 
 # --- wavelengths check ---------------------------------------------------------------------
 
-def test_check_text_table(demo_library):
+def test_check_text_table(demo_library, cli):
     """The readable table: header facts, one row per component, overlap, notes."""
-    out = ok("wavelengths", "check", demo_library, "--wavelengths", "460,528,608")
+    out = cli.ok("wavelengths", "check", demo_library, "--wavelengths", "460,528,608")
     text = out.stdout
     assert text.startswith("Wavelength check\n")
     assert "wavelengths       460, 528, 608 nm" in text
@@ -126,10 +97,10 @@ def test_check_text_table(demo_library):
     assert out.stderr == ""
 
 
-def test_check_json_is_exactly_one_object_matching_the_api(demo_library):
+def test_check_json_is_exactly_one_object_matching_the_api(demo_library, cli):
     """--json prints one JSON object with the documented keys, equal to the API's figures."""
-    out = ok("wavelengths", "check", demo_library, "--window", "420-680", "--noise", "0.002",
-             "--json")
+    out = cli.ok("wavelengths", "check", demo_library, "--window", "420-680", "--noise", "0.002",
+                 "--json")
     assert out.stdout.strip().count("\n") == 0
     data = json.loads(out.stdout)
     assert isinstance(data, dict)
@@ -147,19 +118,19 @@ def test_check_json_is_exactly_one_object_matching_the_api(demo_library):
     assert data["noise_au"] == 0.002
 
 
-def test_check_components_and_baseline_options(demo_library):
+def test_check_components_and_baseline_options(demo_library, cli):
     """--components restricts the system; --baseline offset adds a column (κ grows)."""
-    pair = json.loads(ok("wavelengths", "check", demo_library, "--components", "amber, teal",
-                         "--json").stdout)
+    pair = json.loads(cli.ok("wavelengths", "check", demo_library, "--components", "amber, teal",
+                             "--json").stdout)
     assert list(pair["components"]) == ["amber", "teal"]
-    plain = json.loads(ok("wavelengths", "check", demo_library, "--json").stdout)
-    offset = json.loads(ok("wavelengths", "check", demo_library, "--baseline", "offset",
-                           "--json").stdout)
+    plain = json.loads(cli.ok("wavelengths", "check", demo_library, "--json").stdout)
+    offset = json.loads(cli.ok("wavelengths", "check", demo_library, "--baseline", "offset",
+                               "--json").stdout)
     assert offset["baseline"] == "offset"
     assert offset["condition_number"] > plain["condition_number"]
 
 
-def test_acceptance_shoulders_are_more_shift_sensitive_than_band_maxima(demo_library):
+def test_acceptance_shoulders_are_more_shift_sensitive_than_band_maxima(demo_library, cli):
     """Issue acceptance: on the demo, shoulder wavelengths report a larger |shift
     sensitivity| than the band maxima (amber 460 nm, teal 608 nm), for a pair checked
     alone and for all three components at three wavelengths.
@@ -168,7 +139,7 @@ def test_acceptance_shoulders_are_more_shift_sensitive_than_band_maxima(demo_lib
         args = ["wavelengths", "check", demo_library, "--wavelengths", wavelengths, "--json"]
         if components:
             args += ["--components", components]
-        data = json.loads(ok(*args).stdout)
+        data = json.loads(cli.ok(*args).stdout)
         return {c: abs(f["shift_sensitivity"]) for c, f in data["components"].items()}
 
     maxima = shift("460,608", "amber,teal")
@@ -192,25 +163,25 @@ def test_acceptance_shoulders_are_more_shift_sensitive_than_band_maxima(demo_lib
     (("--components", "amber,navy"), "components: 'navy' is not in the library"),
     (("--noise", "-1"), "noise: σ_A = -1 AU must be a positive number"),
 ])
-def test_check_bad_options_exit_2_with_one_error_line(demo_library, args, match):
+def test_check_bad_options_exit_2_with_one_error_line(demo_library, args, match, cli):
     """User mistakes: exit code 2, one ``error:`` line, no traceback."""
-    fails_cleanly("wavelengths", "check", demo_library, *args, match=match)
+    assert_cli_error(cli("wavelengths", "check", demo_library, *args), match, literal=True)
 
 
-def test_check_missing_library_file_is_a_clean_error(tmp_path):
+def test_check_missing_library_file_is_a_clean_error(tmp_path, cli):
     """A library path that does not exist is a user error too."""
-    result = invoke("wavelengths", "check", tmp_path / "nope.nc")
+    result = cli("wavelengths", "check", tmp_path / "nope.nc")
     assert result.exit_code == 2
     assert "Traceback" not in result.output
     assert "nope.nc" in result.stderr
 
 
-def test_click_level_bad_choices_exit_2_without_traceback(demo_library):
+def test_click_level_bad_choices_exit_2_without_traceback(demo_library, cli):
     """Values click itself refuses (a --baseline outside its choices, --noise not a
     number) also exit 2 without a traceback; click's own message names the option.
     """
     for args in (("--baseline", "quadratic"), ("--noise", "abc")):
-        result = invoke("wavelengths", "check", demo_library, *args)
+        result = cli("wavelengths", "check", demo_library, *args)
         assert result.exit_code == 2
         assert "Traceback" not in result.output
         assert "Invalid value" in result.stderr
@@ -219,13 +190,13 @@ def test_click_level_bad_choices_exit_2_without_traceback(demo_library):
 
 # --- wavelengths choose --------------------------------------------------------------------
 
-def test_acceptance_choose_four_is_within_the_documented_margin(demo_library):
+def test_acceptance_choose_four_is_within_the_documented_margin(demo_library, cli):
     """Issue acceptance: ``wavelengths choose --count 4`` on the demo gives a set whose
     predicted variance at equal measuring time is no worse than the full window's by more
     than EQUAL_TIME_MARGIN (mixsolve.wavelengths.choose, documented there).
     """
-    data = json.loads(ok("wavelengths", "choose", demo_library, "--count", "4",
-                         "--json").stdout)
+    data = json.loads(cli.ok("wavelengths", "choose", demo_library, "--count", "4",
+                             "--json").stdout)
     assert len(data["wavelengths_nm"]) == 4
     assert data["criterion_equal_time"] <= EQUAL_TIME_MARGIN
     assert data["criterion_equal_time"] == pytest.approx(
@@ -233,11 +204,11 @@ def test_acceptance_choose_four_is_within_the_documented_margin(demo_library):
     assert set(data["chosen"]["components"]) == {"amber", "rose", "teal"}
 
 
-def test_choose_text_and_json_agree(demo_library):
+def test_choose_text_and_json_agree(demo_library, cli):
     """The text names the same wavelengths as --json and states the margin."""
-    data = json.loads(ok("wavelengths", "choose", demo_library, "--count", "4",
-                         "--json").stdout)
-    text = ok("wavelengths", "choose", demo_library, "--count", "4").stdout
+    data = json.loads(cli.ok("wavelengths", "choose", demo_library, "--count", "4",
+                             "--json").stdout)
+    text = cli.ok("wavelengths", "choose", demo_library, "--count", "4").stdout
     first = text.splitlines()[0]
     assert first == "Chosen wavelength set: " + ", ".join(
         f"{w:g}" for w in data["wavelengths_nm"]) + " nm"
@@ -245,10 +216,10 @@ def test_choose_text_and_json_agree(demo_library):
     assert "full window" in text
 
 
-def test_choose_contiguous_window_and_compare(demo_library):
+def test_choose_contiguous_window_and_compare(demo_library, cli):
     """--contiguous gives neighbouring grid points inside --window; --compare is reported."""
-    out = ok("wavelengths", "choose", demo_library, "--count", "10", "--contiguous",
-             "--window", "420-680", "--compare", "460,528,608", "--json")
+    out = cli.ok("wavelengths", "choose", demo_library, "--count", "10", "--contiguous",
+                 "--window", "420-680", "--compare", "460,528,608", "--json")
     data = json.loads(out.stdout)
     wl = np.array(data["wavelengths_nm"])
     assert data["contiguous"] is True
@@ -256,8 +227,8 @@ def test_choose_contiguous_window_and_compare(demo_library):
     assert wl.min() >= 420 and wl.max() <= 680
     assert data["user_set"]["wavelengths_nm"] == [460.0, 528.0, 608.0]
     assert isinstance(data["user_criterion"], float)
-    text = ok("wavelengths", "choose", demo_library, "--count", "10", "--contiguous",
-              "--compare", "460,528,608").stdout
+    text = cli.ok("wavelengths", "choose", demo_library, "--count", "10", "--contiguous",
+                  "--compare", "460,528,608").stdout
     assert text.startswith("Chosen contiguous window: ")
     assert "your set: J = " in text
 
@@ -269,14 +240,14 @@ def test_choose_contiguous_window_and_compare(demo_library):
     (("--count", "4", "--window", "400-300"), "window: 400-300 nm is not an increasing"),
     (("--count", "4", "--compare", "460,x"), "is not a comma-separated list"),
 ])
-def test_choose_bad_options_exit_2_with_one_error_line(demo_library, args, match):
+def test_choose_bad_options_exit_2_with_one_error_line(demo_library, args, match, cli):
     """User mistakes: exit code 2, one ``error:`` line, no traceback."""
-    fails_cleanly("wavelengths", "choose", demo_library, *args, match=match)
+    assert_cli_error(cli("wavelengths", "choose", demo_library, *args), match, literal=True)
 
 
 # --- unmix trust options -------------------------------------------------------------------
 
-def test_unmix_fit_shift_through_the_cli_improves_shifted_samples(files, tmp_path):
+def test_unmix_fit_shift_through_the_cli_improves_shifted_samples(files, tmp_path, cli):
     """--fit-shift on spectra shifted by +1 and −1.5 nm: concentrations nearer the truth
     than without it (invented bands, noise 0.001 AU).
     """
@@ -284,8 +255,8 @@ def test_unmix_fit_shift_through_the_cli_improves_shifted_samples(files, tmp_pat
     errors = {}
     for label, extra in (("plain", ()), ("shift", ("--fit-shift",))):
         out = tmp_path / f"{label}.csv"
-        ok("unmix", files["lib"], files["shifted"], "--window", "420-560", "--out", out,
-           *extra)
+        cli.ok("unmix", files["lib"], files["shifted"], "--window", "420-560", "--out", out,
+               *extra)
         table = read_csv(out).pivot(index="sample", columns="component",
                                     values="concentration")[list(CONC)]
         errors[label] = np.abs(table.values - truth) / truth
@@ -293,19 +264,21 @@ def test_unmix_fit_shift_through_the_cli_improves_shifted_samples(files, tmp_pat
     assert errors["shift"].max() < 0.01
 
 
-def test_unmix_fit_shift_window_outside_the_library_is_a_clean_error(files):
+def test_unmix_fit_shift_window_outside_the_library_is_a_clean_error(files, cli):
     """λ ± --max-shift must stay inside the library (380-720 nm)."""
-    fails_cleanly("unmix", files["lib"], files["shifted"], "--window", "400-700",
-                  "--fit-shift", "--max-shift", "25",
-                  match="fit_shift: the used wavelengths 400-700 nm ± 25 nm reach outside")
-    fails_cleanly("unmix", files["lib"], files["shifted"], "--fit-shift", "--max-shift", "0",
-                  match="max_shift_nm: 0 nm must be a positive number")
+    assert_cli_error(cli("unmix", files["lib"], files["shifted"], "--window", "400-700",
+                         "--fit-shift", "--max-shift", "25"),
+                     "fit_shift: the used wavelengths 400-700 nm ± 25 nm reach outside",
+                     literal=True)
+    assert_cli_error(cli("unmix", files["lib"], files["shifted"], "--fit-shift",
+                         "--max-shift", "0"),
+                     "max_shift_nm: 0 nm must be a positive number", literal=True)
 
 
-def test_unmix_range_flags_through_the_cli(files, tmp_path):
+def test_unmix_range_flags_through_the_cli(files, tmp_path, cli):
     """--range sets the reliable range: the 4× sample is above it, the 0.2× below it."""
     out = tmp_path / "range.csv"
-    result = ok("unmix", files["lib"], files["plain"], "--range", "0.3-1.5", "--out", out)
+    result = cli.ok("unmix", files["lib"], files["plain"], "--range", "0.3-1.5", "--out", out)
     flags = read_csv(out).groupby("sample")["flags"].first()
     assert "above_range" in flags["strong"]
     assert "below_range" in flags["weak"]
@@ -314,25 +287,25 @@ def test_unmix_range_flags_through_the_cli(files, tmp_path):
     assert "(0.3-1.5 AU)" in result.stdout
 
 
-def test_unmix_noise_model_flags_lack_of_fit_through_the_cli(files, tmp_path):
+def test_unmix_noise_model_flags_lack_of_fit_through_the_cli(files, tmp_path, cli):
     """--noise with a preset: spectra 20× noisier than a benchtop instrument are flagged
     ``lack_of_fit``; with σ_A = 0.02 AU (constant σ_T, so at least the real noise
     everywhere) they are not.
     """
     out = tmp_path / "lof.csv"
-    ok("unmix", files["lib"], files["noisy"], "--noise", "benchtop_double_beam", "--out", out)
+    cli.ok("unmix", files["lib"], files["noisy"], "--noise", "benchtop_double_beam", "--out", out)
     assert all("lack_of_fit" in f for f in read_csv(out)["flags"])
-    ok("unmix", files["lib"], files["noisy"], "--noise", "0.02", "--out", out)
+    cli.ok("unmix", files["lib"], files["noisy"], "--noise", "0.02", "--out", out)
     assert not any("lack_of_fit" in f for f in read_csv(out)["flags"])
 
 
-def test_unmix_noise_weights_through_the_cli(files, tmp_path):
+def test_unmix_noise_weights_through_the_cli(files, tmp_path, cli):
     """--weights noise --noise σ runs and stays close to the unweighted answer on clean
     data (both within 2 % of the truth for the mid sample).
     """
     out_w = tmp_path / "w.csv"
-    ok("unmix", files["lib"], files["plain"], "--weights", "noise", "--noise",
-       "diode_array", "--out", out_w)
+    cli.ok("unmix", files["lib"], files["plain"], "--weights", "noise", "--noise",
+           "diode_array", "--out", out_w)
     table = read_csv(out_w).set_index(["sample", "component"])["concentration"]
     for name, value in CONC.items():
         assert table[("mid", name)] == pytest.approx(value, rel=0.02)
@@ -346,26 +319,26 @@ def test_unmix_noise_weights_through_the_cli(files, tmp_path):
     (("--range", "abc"), "--range: 'abc' is not LOW-HIGH"),
     (("--wavelength-tolerance", "-1"), "wavelength_tolerance_nm: -1 nm must be a number ≥ 0"),
 ])
-def test_unmix_bad_trust_options_exit_2_with_one_error_line(files, args, match):
+def test_unmix_bad_trust_options_exit_2_with_one_error_line(files, args, match, cli):
     """User mistakes in the trust options: exit 2, one ``error:`` line, no traceback."""
-    fails_cleanly("unmix", files["lib"], files["plain"], *args, match=match)
+    assert_cli_error(cli("unmix", files["lib"], files["plain"], *args), match, literal=True)
 
 
-def test_unmix_bad_weights_choice_is_refused_by_click(files):
+def test_unmix_bad_weights_choice_is_refused_by_click(files, cli):
     """--weights outside {none, noise}: click's usage error, exit 2, no traceback."""
-    result = invoke("unmix", files["lib"], files["plain"], "--weights", "sigma")
+    result = cli("unmix", files["lib"], files["plain"], "--weights", "sigma")
     assert result.exit_code == 2
     assert "Traceback" not in result.output
     assert "Invalid value for '--weights'" in result.stderr
 
 
-def test_unmix_on_the_demo_with_every_trust_option(demo_library):
+def test_unmix_on_the_demo_with_every_trust_option(demo_library, cli):
     """The demo batches with a noise model, a shift fit and a stated range: exit 0, a
     result row per batch (and one fitted shift per batch) and the flag notes printed.
     """
     batches = demo_file("batches_spectra.csv")
-    out = ok("unmix", demo_library, batches, "--window", "420-700", "--noise", "diode_array",
-             "--fit-shift", "--range", "0.2-1.5")
+    out = cli.ok("unmix", demo_library, batches, "--window", "420-700", "--noise", "diode_array",
+                 "--fit-shift", "--range", "0.2-1.5")
     rows = [line for line in out.stdout.splitlines() if line.startswith("batch_")]
     assert len(rows) == 8
     assert "Fitted wavelength shift" in out.stdout

@@ -18,19 +18,14 @@ import sys
 from pathlib import Path
 
 import pytest
-from click.testing import CliRunner
+from helpers_cli import assert_cli_error
 from helpers_io import WL, band, write_wide
 
 import mixsolve.io.outputs as outputs
-from mixsolve.cli import main
 from mixsolve.errors import OutputError
 from mixsolve.io.outputs import all_or_nothing, guard_outputs, unique_names
 from mixsolve.io.results_io import write_text
 from mixsolve.workflows.demo import demo_file
-
-
-def run(*args: object):
-    return CliRunner().invoke(main, [str(a) for a in args])
 
 
 def snapshot(folder: Path) -> dict[str, str]:
@@ -46,33 +41,22 @@ def snapshot(folder: Path) -> dict[str, str]:
     return out
 
 
-def assert_refused(result, *needles: str) -> None:
-    """Exit 2, exactly one ``error:`` line holding each needle, no traceback (progress
-    lines of a plate batch may come before it)."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert "Traceback" not in result.output
-    lines = [ln for ln in result.stderr.splitlines() if ln.startswith("error")]
-    assert len(lines) == 1 and lines[0].startswith("error: "), result.stderr
-    for needle in needles:
-        assert needle in lines[0], (needle, lines[0])
-
-
 @pytest.fixture(scope="module")
-def library(tmp_path_factory) -> Path:
+def library(tmp_path_factory, cli) -> Path:
     """The demo library, built once from the (invented) demo standards."""
     path = tmp_path_factory.mktemp("lib") / "library.nc"
-    result = run("library", "build", demo_file("standards_spectra.csv"), "--standards",
+    result = cli("library", "build", demo_file("standards_spectra.csv"), "--standards",
                  demo_file("standards.csv"), "--out", path)
     assert result.exit_code == 0, result.output
     return path
 
 
 @pytest.fixture
-def cuvette(tmp_path: Path) -> dict[str, Path]:
+def cuvette(tmp_path: Path, cli) -> dict[str, Path]:
     """A two-band library file and spectra in tmp_path, plus an unrelated notes file."""
     eps = write_wide(tmp_path / "eps.csv", {n: band(n) for n in ("red", "blue")})
     lib = tmp_path / "lib.nc"
-    assert run("library", "import", eps, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    assert cli("library", "import", eps, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
     spectra = write_wide(tmp_path / "mix.csv",
                          {"s1": 2e-5 * band("red") + 3e-5 * band("blue"),
                           "s2": 1e-5 * band("red") + 2e-5 * band("blue")})
@@ -96,7 +80,7 @@ def plate_dir(tmp_path: Path, library: Path) -> dict[str, Path]:
 # --- 1. one output guard -------------------------------------------------------------
 
 
-def test_zarr_out_over_a_folder_of_inputs_and_notes_is_refused(cuvette):
+def test_zarr_out_over_a_folder_of_inputs_and_notes_is_refused(cuvette, cli):
     """`unmix LIB SPECTRA --out X.zarr`, X.zarr a folder holding the inputs and notes:
     refused (it used to replace the whole folder); everything stays."""
     store = cuvette["dir"] / "X.zarr"
@@ -104,29 +88,29 @@ def test_zarr_out_over_a_folder_of_inputs_and_notes_is_refused(cuvette):
     for key in ("lib", "spectra", "notes"):
         shutil.copy(cuvette[key], store / cuvette[key].name)
     before = snapshot(cuvette["dir"])
-    result = run("unmix", store / "lib.nc", store / "mix.csv", "--out", store)
-    assert_refused(result, "X.zarr", "choose")
+    result = cli("unmix", store / "lib.nc", store / "mix.csv", "--out", store)
+    assert_cli_error(result, "X.zarr", "choose", literal=True)
     assert snapshot(cuvette["dir"]) == before
 
 
-def test_zarr_out_over_a_folder_of_other_files_is_refused(cuvette):
+def test_zarr_out_over_a_folder_of_other_files_is_refused(cuvette, cli):
     """A folder that is not a Zarr store is never replaced, even without inputs in it."""
     pytest.importorskip("zarr")
     store = cuvette["dir"] / "Y.zarr"
     store.mkdir()
     (store / "keep.txt").write_text("not mine\n")
     before = snapshot(cuvette["dir"])
-    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", store)
-    assert_refused(result, "Y.zarr", "'keep.txt'", "not part of a Zarr store")
+    result = cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", store)
+    assert_cli_error(result, "Y.zarr", "'keep.txt'", "not part of a Zarr store", literal=True)
     assert snapshot(cuvette["dir"]) == before
 
 
-def test_zarr_out_replaces_an_earlier_result_store(cuvette):
+def test_zarr_out_replaces_an_earlier_result_store(cuvette, cli):
     """An earlier result store is a store: a second run replaces it (rc 0), nothing else."""
     pytest.importorskip("zarr")
     store = cuvette["dir"] / "result.zarr"
     for _ in range(2):
-        result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", store)
+        result = cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", store)
         assert result.exit_code == 0, result.output
     assert (store / "zarr.json").exists()
     assert not [p for p in cuvette["dir"].iterdir() if p.name.startswith(".")]
@@ -144,14 +128,14 @@ def test_plate_subfolder_names_stay_inside_out(stem):
 
 @pytest.mark.parametrize("name", ["...csv", "..csv", "samples.csv.csv"])
 def test_plate_export_with_a_dotted_name_writes_inside_its_subfolder(plate_dir, tmp_path,
-                                                                     name):
+                                                                     name, cli):
     """An export named '..csv', '...csv' or 'samples.csv.csv': rc 0; the layout beside
     --out is untouched and every output lies in a subfolder of --out."""
     export = plate_dir["dir"] / name
     plate_dir["export"].rename(export)
     out = plate_dir["dir"] / "out"
     before = snapshot(plate_dir["dir"])
-    result = run("plate", export, "--layout", plate_dir["layout"], "--library",
+    result = cli("plate", export, "--layout", plate_dir["layout"], "--library",
                  plate_dir["lib"], "--out", out)
     assert result.exit_code == 0, result.output
     after = snapshot(plate_dir["dir"])
@@ -161,18 +145,18 @@ def test_plate_export_with_a_dotted_name_writes_inside_its_subfolder(plate_dir, 
     assert (subfolders[0] / "wells.csv").exists() and (out / "samples.csv").is_file()
 
 
-def test_plate_out_holding_the_layout_is_refused(plate_dir):
+def test_plate_out_holding_the_layout_is_refused(plate_dir, cli):
     """`plate RUN.csv --layout DIR/samples.csv --out DIR`: the combined table would replace
     the layout; refused before any work, nothing written."""
     before = snapshot(plate_dir["dir"])
-    result = run("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
+    result = cli("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
                  plate_dir["lib"], "--out", plate_dir["dir"])
-    assert_refused(result, "samples.csv", "is also an input")
+    assert_cli_error(result, "samples.csv", "is also an input", literal=True)
     assert snapshot(plate_dir["dir"]) == before
 
 
 @pytest.mark.parametrize("case", ["repeatability", "budget", "out", "cell_blank_workers"])
-def test_an_input_named_as_an_output_is_refused(cuvette, case):
+def test_an_input_named_as_an_output_is_refused(cuvette, case, cli):
     """The input is never replaced: repeatability --out, --repeat-scans with --budget or
     --out the same file, --cell-blank as --out with --workers."""
     d = cuvette
@@ -188,40 +172,40 @@ def test_an_input_named_as_an_output_is_refused(cuvette, case):
                                "--out", blank, "--workers", "1"],
     }[case]
     before = snapshot(d["dir"])
-    result = run(*args)
-    assert_refused(result, "is also an input")
+    result = cli(*args)
+    assert_cli_error(result, "is also an input", literal=True)
     assert snapshot(d["dir"]) == before
 
 
-def test_out_inside_an_input_folder_of_exports_is_fine_but_not_over_an_export(plate_dir):
+def test_out_inside_an_input_folder_of_exports_is_fine_but_not_over_an_export(plate_dir, cli):
     """A results file may not be one of the exports taken from a folder."""
     before = snapshot(plate_dir["dir"])
-    result = run("unmix", plate_dir["lib"], demo_file("batches_spectra.csv"), "--out",
+    result = cli("unmix", plate_dir["lib"], demo_file("batches_spectra.csv"), "--out",
                  plate_dir["lib"])
-    assert_refused(result, "lib.nc", "is also an input")
+    assert_cli_error(result, "lib.nc", "is also an input", literal=True)
     assert snapshot(plate_dir["dir"]) == before
 
 
-def test_out_through_a_link_to_an_input_is_refused(cuvette):
+def test_out_through_a_link_to_an_input_is_refused(cuvette, cli):
     """Real paths are compared: a symbolic link to the spectra is the spectra."""
     link = cuvette["dir"] / "link.csv"
     link.symlink_to(cuvette["spectra"])
     before = snapshot(cuvette["dir"])
-    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", link)
-    assert_refused(result, "is also an input")
+    result = cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", link)
+    assert_cli_error(result, "is also an input", literal=True)
     assert snapshot(cuvette["dir"]) == before
 
 
-def test_out_naming_a_fifo_is_refused(cuvette):
+def test_out_naming_a_fifo_is_refused(cuvette, cli):
     """A FIFO (named pipe) given as --out stays a FIFO; nothing is written."""
     fifo = cuvette["dir"] / "pipe.csv"
     os.mkfifo(fifo)
-    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", fifo)
-    assert_refused(result, "a FIFO")
+    result = cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", fifo)
+    assert_cli_error(result, "a FIFO", literal=True)
     assert stat.S_ISFIFO(os.lstat(fifo).st_mode)
 
 
-def test_out_naming_a_device_is_refused(cuvette):
+def test_out_naming_a_device_is_refused(cuvette, cli):
     """A device node (made here, as /dev/null's twin) is never replaced by a file."""
     device = cuvette["dir"] / "null"
     try:
@@ -231,17 +215,17 @@ def test_out_naming_a_device_is_refused(cuvette):
     for args in (["unmix", cuvette["lib"], cuvette["spectra"], "--report", device],
                  ["library", "import", cuvette["eps"], "--unit", "L/(mol*cm)", "--out",
                   device]):
-        result = run(*args)
-        assert_refused(result, "character device")
+        result = cli(*args)
+        assert_cli_error(result, "character device", literal=True)
         assert stat.S_ISCHR(os.lstat(device).st_mode)
 
 
-def test_two_outputs_of_one_run_collide(cuvette):
+def test_two_outputs_of_one_run_collide(cuvette, cli):
     """--out and --report naming one file is refused before any work."""
     target = cuvette["dir"] / "both.html"
-    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", target,
+    result = cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", target,
                  "--report", target)
-    assert_refused(result, "collides")
+    assert_cli_error(result, "collides", literal=True)
     assert not target.exists()
 
 
@@ -294,7 +278,7 @@ def test_a_failed_move_puts_the_previous_versions_back(tmp_path, monkeypatch):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["1.txt", "2.txt"]
 
 
-def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch):
+def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch, cli):
     """A plate run whose workbook write fails (disk full) exits 2 and leaves no output;
     an earlier result in --out stays as it was."""
     out = plate_dir["dir"] / "out"
@@ -310,9 +294,9 @@ def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch):
         return real_write(self, data)
 
     monkeypatch.setattr(Path, "write_bytes", full)
-    result = run("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
+    result = cli("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
                  plate_dir["lib"], "--out", out)
-    assert_refused(result, "No space left")
+    assert_cli_error(result, "No space left", literal=True, progress=True)
     assert snapshot(plate_dir["dir"]) == before
     assert sorted(p.name for p in out.iterdir()) == ["samples.csv"]
 
@@ -339,7 +323,7 @@ def test_file_size_limit_in_a_real_process_leaves_nothing(plate_dir, library):
     assert not out.exists()
 
 
-def test_ctrl_c_exits_130_with_one_line_and_changes_nothing(cuvette, monkeypatch):
+def test_ctrl_c_exits_130_with_one_line_and_changes_nothing(cuvette, monkeypatch, cli):
     """Ctrl-C while the report is written: exit 130, one line, the earlier results file
     keeps its content and no new file appears."""
     import mixsolve.io.results_io as results_io
@@ -358,7 +342,7 @@ def test_ctrl_c_exits_130_with_one_line_and_changes_nothing(cuvette, monkeypatch
     import mixsolve.workflows.unmix_files as unmix_files
 
     monkeypatch.setattr(unmix_files, "write_text", interrupted)
-    result = run("unmix", cuvette["lib"], cuvette["spectra"], "--out", results,
+    result = cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", results,
                  "--report", cuvette["dir"] / "page.html")
     assert result.exit_code == 130, (result.output, result.exception)
     lines = [ln for ln in result.stderr.splitlines() if ln.strip()]

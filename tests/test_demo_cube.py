@@ -12,10 +12,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from click.testing import CliRunner
 from mixsolve.reference_spectra_demo import make_demo_cube
 
-from mixsolve.cli import main
 from mixsolve.errors import InputError
 from mixsolve.workflows.demo_cube import run_cube_demo
 
@@ -43,11 +41,10 @@ def test_concentration_maps() -> None:
     assert c[0, 0, 2] == 0 and c[40, 60, 2] > 7.9
 
 
-def test_cli_cube_demo_recovers_the_maps(tmp_path: Path) -> None:
+def test_cli_cube_demo_recovers_the_maps(tmp_path: Path, cli) -> None:
     """mixsolve demo --cube 12: exit 0, files written, concentrations within 0.1 mg/L of
     the maps at every checked pixel; the text says the data are synthetic."""
-    run = CliRunner().invoke(main, ["demo", "--out", str(tmp_path), "--cube", "12",
-                                    "--cube-wavelengths", "60"])
+    run = cli("demo", "--out", tmp_path, "--cube", "12", "--cube-wavelengths", "60")
     assert run.exit_code == 0, run.output
     assert "synthetic" in run.stdout and "Unmixed 12 × 12 spectra (y × x)" in run.stdout
     for name in ("library.nc", "cube.zarr", "result.zarr", "comparison.csv"):
@@ -57,9 +54,9 @@ def test_cli_cube_demo_recovers_the_maps(tmp_path: Path) -> None:
     assert np.all(table["max_abs_error"] < 0.1)
 
 
-def test_cube_demo_refusals(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+def test_cube_demo_refusals(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, cli) -> None:
     """Too small a cube, and a missing scale extra, are one-line errors (exit 2)."""
-    run = CliRunner().invoke(main, ["demo", "--out", str(tmp_path), "--cube", "1"])
+    run = cli("demo", "--out", tmp_path, "--cube", "1")
     assert run.exit_code == 2
     assert run.stderr.strip() == "error: --cube: 1 pixels per side; give at least 2, e.g. 1000"
     import importlib.util

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from click.testing import CliRunner
+from helpers_cli import assert_cli_error, assert_nothing_written
 from helpers_io import (
     WL,
     absorptivity_frame,
@@ -27,36 +27,7 @@ from helpers_io import (
 )
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.errors import InputError
-
-
-def invoke(*args: object):
-    """Run ``mixsolve ARGS`` in-process; return click's Result."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
-def assert_error(result, *parts: str) -> str:
-    """Check the one-line error contract; each regex in ``parts`` must occur in the line."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert isinstance(result.exception, SystemExit)
-    assert "Traceback" not in result.output
-    assert "Traceback" not in result.stderr
-    assert result.stdout == ""
-    lines = result.stderr.splitlines()
-    assert len(lines) == 1, result.stderr
-    line = lines[0]
-    assert line.startswith("error: "), line
-    for part in parts:
-        assert re.search(part, line), (part, line)
-    return line
-
-
-def assert_nothing_written(out: Path) -> None:
-    """No output file and no temporary beside it."""
-    assert not out.exists()
-    if out.parent.is_dir():
-        assert leftovers(out.parent) == []
 
 
 @pytest.fixture(scope="module")
@@ -136,22 +107,22 @@ BAD_SPECTRA = {
 
 
 @pytest.mark.parametrize("case", list(BAD_SPECTRA), ids=list(BAD_SPECTRA))
-def test_unmix_bad_spectra(tmp_path, inputs, case):
+def test_unmix_bad_spectra(tmp_path, inputs, case, cli):
     writer, parts = BAD_SPECTRA[case]
     spectra = writer(tmp_path)
     out = tmp_path / "results.csv"
-    assert_error(invoke("unmix", inputs["lib"], spectra, "--out", out), *parts)
+    assert_cli_error(cli("unmix", inputs["lib"], spectra, "--out", out), *parts)
     assert_nothing_written(out)
 
 
 @pytest.mark.parametrize("case", ["duplicate wavelength", "non-numeric cell", "binary data",
                                   "latin-1 micro sign", "too few cells", "infinite value"])
-def test_library_build_bad_spectra(tmp_path, inputs, case):
+def test_library_build_bad_spectra(tmp_path, inputs, case, cli):
     writer, parts = BAD_SPECTRA[case]
     out = tmp_path / "lib.nc"
-    result = invoke("library", "build", writer(tmp_path), "--standards", inputs["sheet"],
-                    "--out", out)
-    assert_error(result, *parts)
+    result = cli("library", "build", writer(tmp_path), "--standards", inputs["sheet"],
+                 "--out", out)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
@@ -168,56 +139,57 @@ def test_library_build_bad_spectra(tmp_path, inputs, case):
       [r"^error: eps\.csv, line 3, column 2 \('red'\): 'x' is not a number$"])],
     ids=["duplicate component", "not wide", "incomplete", "non-numeric"],
 )
-def test_library_import_bad_table(tmp_path, text, parts):
+def test_library_import_bad_table(tmp_path, text, parts, cli):
     out = tmp_path / "lib.nc"
     table = write_text(tmp_path / "eps.csv", text)
-    assert_error(invoke("library", "import", table, "--unit", "L/(mol*cm)", "--out", out),
-                 *parts)
+    assert_cli_error(cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", out),
+                     *parts)
     assert_nothing_written(out)
 
 
 # --- bad standards sheets ----------------------------------------------------------------
 
 
-def test_library_build_sheet_missing_columns(tmp_path, inputs):
+def test_library_build_sheet_missing_columns(tmp_path, inputs, cli):
     sheet = write_text(tmp_path / "sheet.csv", "sample,component,amount\nr1,red,1\n")
     out = tmp_path / "lib.nc"
-    result = invoke("library", "build", inputs["standards"], "--standards", sheet, "--out", out)
-    assert_error(result, r"^error: sheet\.csv, line 1: missing column\(s\) concentration, unit;")
+    result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out", out)
+    assert_cli_error(result,
+                     r"^error: sheet\.csv, line 1: missing column\(s\) concentration, unit;")
     assert_nothing_written(out)
 
 
-def test_library_build_sheet_non_numeric(tmp_path, inputs):
+def test_library_build_sheet_non_numeric(tmp_path, inputs, cli):
     text = inputs["sheet"].read_text().replace("0.03", "0.03 mM")
     sheet = write_text(tmp_path / "sheet.csv", text)
-    result = invoke("library", "build", inputs["standards"], "--standards", sheet, "--out",
-                    tmp_path / "lib.nc")
-    assert_error(result, r"^error: sheet\.csv, line 6, column 3 \('concentration'\): "
-                         r"'0\.03 mM' is not a number$")
+    result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out",
+                 tmp_path / "lib.nc")
+    assert_cli_error(result, r"^error: sheet\.csv, line 6, column 3 \('concentration'\): "
+                             r"'0\.03 mM' is not a number$")
     assert_nothing_written(tmp_path / "lib.nc")
 
 
-def test_library_build_sheet_unknown_sample(tmp_path, inputs):
+def test_library_build_sheet_unknown_sample(tmp_path, inputs, cli):
     text = inputs["sheet"].read_text() + "zz,red,0.05,mmol/L\n"
     sheet = write_text(tmp_path / "sheet.csv", text)
-    result = invoke("library", "build", inputs["standards"], "--standards", sheet, "--out",
-                    tmp_path / "lib.nc")
-    assert_error(result, r"line 8", r"sample 'zz' has no spectrum")
+    result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out",
+                 tmp_path / "lib.nc")
+    assert_cli_error(result, r"line 8", r"sample 'zz' has no spectrum")
     assert_nothing_written(tmp_path / "lib.nc")
 
 
-def test_library_build_sheet_bad_unit(tmp_path, inputs):
+def test_library_build_sheet_bad_unit(tmp_path, inputs, cli):
     text = inputs["sheet"].read_text().replace("mmol/L", "parsecs")
     sheet = write_text(tmp_path / "sheet.csv", text)
-    result = invoke("library", "build", inputs["standards"], "--standards", sheet, "--out",
-                    tmp_path / "lib.nc")
-    assert_error(result, r"line 2", r"'parsecs'")
+    result = cli("library", "build", inputs["standards"], "--standards", sheet, "--out",
+                 tmp_path / "lib.nc")
+    assert_cli_error(result, r"line 2", r"'parsecs'")
 
 
-def test_library_build_missing_sheet(tmp_path, inputs):
-    result = invoke("library", "build", inputs["standards"], "--standards",
-                    tmp_path / "none.csv", "--out", tmp_path / "lib.nc")
-    assert_error(result, r"none\.csv: file not found$")
+def test_library_build_missing_sheet(tmp_path, inputs, cli):
+    result = cli("library", "build", inputs["standards"], "--standards",
+                 tmp_path / "none.csv", "--out", tmp_path / "lib.nc")
+    assert_cli_error(result, r"none\.csv: file not found$")
 
 
 # --- library files that are not libraries ------------------------------------------------
@@ -242,82 +214,82 @@ NOT_LIBRARIES = {
 
 
 @pytest.mark.parametrize("case", list(NOT_LIBRARIES), ids=list(NOT_LIBRARIES))
-def test_unmix_not_a_library(tmp_path, inputs, case):
+def test_unmix_not_a_library(tmp_path, inputs, case, cli):
     writer, parts = NOT_LIBRARIES[case]
     out = tmp_path / "r.csv"
-    assert_error(invoke("unmix", writer(tmp_path), inputs["mix"], "--out", out), *parts)
+    assert_cli_error(cli("unmix", writer(tmp_path), inputs["mix"], "--out", out), *parts)
     assert_nothing_written(out)
 
 
 @pytest.mark.parametrize("case", list(NOT_LIBRARIES), ids=list(NOT_LIBRARIES))
-def test_library_show_not_a_library(tmp_path, case):
+def test_library_show_not_a_library(tmp_path, case, cli):
     writer, parts = NOT_LIBRARIES[case]
-    assert_error(invoke("library", "show", writer(tmp_path)), *parts)
+    assert_cli_error(cli("library", "show", writer(tmp_path)), *parts)
 
 
 # --- bad options -------------------------------------------------------------------------
 
 
 @pytest.mark.parametrize("window", ["abc", "400", "400-500-600", "400-", "four-700"])
-def test_bad_window_text(tmp_path, inputs, window):
+def test_bad_window_text(tmp_path, inputs, window, cli):
     out = tmp_path / "r.csv"
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--window", window, "--out", out)
-    assert_error(result, rf"^error: --window: '{re.escape(window)}' is not LOW-HIGH",
-                 r"e\.g\. 400-700$")
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--window", window, "--out", out)
+    assert_cli_error(result, rf"^error: --window: '{re.escape(window)}' is not LOW-HIGH",
+                     r"e\.g\. 400-700$")
     assert_nothing_written(out)
 
 
-def test_window_reversed(inputs):
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--window", "700-400")
-    assert_error(result, r"^error: window: 700-400 nm is not an increasing pair of "
-                         r"wavelengths$")
+def test_window_reversed(inputs, cli):
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "700-400")
+    assert_cli_error(result, r"^error: window: 700-400 nm is not an increasing pair of "
+                             r"wavelengths$")
 
 
-def test_window_outside_data(tmp_path, inputs):
+def test_window_outside_data(tmp_path, inputs, cli):
     out = tmp_path / "r.csv"
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--window", "800-900", "--out", out)
-    assert_error(result, r"^error: window 800-900 nm holds no measured wavelength \(measured "
-                         r"400-700 nm\)$")
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "800-900", "--out", out)
+    assert_cli_error(result, r"^error: window 800-900 nm holds no measured wavelength \(measured "
+                             r"400-700 nm\)$")
     assert_nothing_written(out)
 
 
-def test_window_beyond_library(tmp_path, inputs):
+def test_window_beyond_library(tmp_path, inputs, cli):
     wide = np.arange(380.0, 721.0, 10.0)
     spectra = write_wide(tmp_path / "wide.csv",
                          {"m": mixture_absorbance({"red": 1e-5}, wide)}, wl=wide)
-    result = invoke("unmix", inputs["lib"], spectra, "--window", "380-700")
-    assert_error(result, r"380, 390 nm lie outside the library \(400-700 nm\), which is never "
-                         r"extrapolated")
+    result = cli("unmix", inputs["lib"], spectra, "--window", "380-700")
+    assert_cli_error(result, r"380, 390 nm lie outside the library \(400-700 nm\), which is never "
+                             r"extrapolated")
 
 
-def test_window_holding_too_few_wavelengths(inputs):
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--window", "441-449")
-    assert_error(result, r"^error: window 441-449 nm holds no measured wavelength")
+def test_window_holding_too_few_wavelengths(inputs, cli):
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "441-449")
+    assert_cli_error(result, r"^error: window 441-449 nm holds no measured wavelength")
 
 
-def test_underdetermined_selection(inputs):
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--wavelengths", "450")
-    assert_error(result, r"^error: underdetermined: 1 wavelength\(s\) for 2 unknowns "
-                         r"\(red, blue\)")
+def test_underdetermined_selection(inputs, cli):
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--wavelengths", "450")
+    assert_cli_error(result, r"^error: underdetermined: 1 wavelength\(s\) for 2 unknowns "
+                             r"\(red, blue\)")
 
 
 @pytest.mark.parametrize("text", ["450;620", "450,six hundred", "abc"])
-def test_bad_wavelengths_text(inputs, text):
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--wavelengths", text)
-    assert_error(result, rf"^error: --wavelengths: '{re.escape(text)}' is not a "
-                         r"comma-separated list of nm")
+def test_bad_wavelengths_text(inputs, text, cli):
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--wavelengths", text)
+    assert_cli_error(result, rf"^error: --wavelengths: '{re.escape(text)}' is not a "
+                             r"comma-separated list of nm")
 
 
-def test_wavelength_not_measured(inputs):
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--wavelengths", "450,625")
-    assert_error(result, r"^error: wavelengths: 625 nm was not measured \(nearest measured: "
-                         r"610, 620, 630 nm\)")
+def test_wavelength_not_measured(inputs, cli):
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--wavelengths", "450,625")
+    assert_cli_error(result, r"^error: wavelengths: 625 nm was not measured \(nearest measured: "
+                             r"610, 620, 630 nm\)")
 
 
-def test_window_and_wavelengths_together(inputs):
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--window", "400-700",
-                    "--wavelengths", "450,620")
-    assert_error(result, r"^error: give either a window or a list of wavelengths, not both$")
+def test_window_and_wavelengths_together(inputs, cli):
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--window", "400-700",
+                 "--wavelengths", "450,620")
+    assert_cli_error(result, r"^error: give either a window or a list of wavelengths, not both$")
 
 
 @pytest.mark.parametrize(
@@ -327,32 +299,32 @@ def test_window_and_wavelengths_together(inputs):
      ("mg/", [r"--unit", r"'mg/'"]),
      ("2 mg/L", [r"'2 mg/L' carries a factor"])],
 )
-def test_unknown_unit(tmp_path, inputs, unit, parts):
+def test_unknown_unit(tmp_path, inputs, unit, parts, cli):
     out = tmp_path / "r.csv"
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--unit", unit, "--out", out)
-    assert_error(result, *parts)
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--unit", unit, "--out", out)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
-def test_mass_unit_without_molar_masses(inputs):
-    result = invoke("unmix", inputs["bare"], inputs["mix"], "--unit", "mg/L")
-    assert_error(result, r"^error: --unit 'mg/L': converting mol/L to mg/L needs the molar "
-                         r"mass of every component")
+def test_mass_unit_without_molar_masses(inputs, cli):
+    result = cli("unmix", inputs["bare"], inputs["mix"], "--unit", "mg/L")
+    assert_cli_error(result, r"^error: --unit 'mg/L': converting mol/L to mg/L needs the molar "
+                             r"mass of every component")
 
 
 @pytest.mark.parametrize("value", ["0", "-1", "-0.5", "inf", "nan"])
-def test_non_positive_pathlength(tmp_path, inputs, value):
+def test_non_positive_pathlength(tmp_path, inputs, value, cli):
     out = tmp_path / "r.csv"
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--pathlength", value, "--out", out)
-    assert_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a positive "
-                         r"number$")
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--pathlength", value, "--out", out)
+    assert_cli_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a positive "
+                             r"number$")
     assert_nothing_written(out)
 
 
-def test_library_build_non_positive_pathlength(tmp_path, inputs):
-    result = invoke("library", "build", inputs["standards"], "--standards", inputs["sheet"],
-                    "--out", tmp_path / "lib.nc", "--pathlength", "0")
-    assert_error(result, r"^error: pathlength: 0 cm is not a positive number$")
+def test_library_build_non_positive_pathlength(tmp_path, inputs, cli):
+    result = cli("library", "build", inputs["standards"], "--standards", inputs["sheet"],
+                 "--out", tmp_path / "lib.nc", "--pathlength", "0")
+    assert_cli_error(result, r"^error: pathlength: 0 cm is not a positive number$")
     assert_nothing_written(tmp_path / "lib.nc")
 
 
@@ -361,10 +333,10 @@ def test_library_build_non_positive_pathlength(tmp_path, inputs):
     [("mol/L", [r"absorptivity unit 'mol/L' has dimensions"]),
      ("bananas", [r"^error: absorptivity unit: unknown unit 'bananas'"])],
 )
-def test_library_import_bad_unit(tmp_path, inputs, unit, parts):
+def test_library_import_bad_unit(tmp_path, inputs, unit, parts, cli):
     out = tmp_path / "lib.nc"
-    result = invoke("library", "import", inputs["eps"], "--unit", unit, "--out", out)
-    assert_error(result, *parts)
+    result = cli("library", "import", inputs["eps"], "--unit", unit, "--out", out)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
@@ -374,49 +346,49 @@ def test_library_import_bad_unit(tmp_path, inputs, unit, parts):
      ("green=500", [r"molar mass given for 'green', which is not a component"]),
      ("red=-5", [r"molar mass of 'red': -5 g/mol is not a positive number"])],
 )
-def test_library_import_bad_molar_mass(tmp_path, inputs, text, parts):
+def test_library_import_bad_molar_mass(tmp_path, inputs, text, parts, cli):
     out = tmp_path / "lib.nc"
-    result = invoke("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out,
-                    "--molar-mass", text)
-    assert_error(result, *parts)
+    result = cli("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out,
+                 "--molar-mass", text)
+    assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
 
 # --- outputs that cannot be written ------------------------------------------------------
 
 
-def test_unmix_out_folder_missing(tmp_path, inputs):
+def test_unmix_out_folder_missing(tmp_path, inputs, cli):
     out = tmp_path / "no_such_folder" / "r.csv"
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--out", out)
-    assert_error(result, r"^error: .*r\.csv: folder .*no_such_folder does not exist$")
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--out", out)
+    assert_cli_error(result, r"^error: .*r\.csv: folder .*no_such_folder does not exist$")
     assert not out.parent.exists()
     assert list(tmp_path.iterdir()) == []
 
 
-def test_unmix_out_is_a_folder(tmp_path, inputs):
+def test_unmix_out_is_a_folder(tmp_path, inputs, cli):
     out = tmp_path / "results.csv"
     out.mkdir()
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--out", out)
-    assert_error(result, r"results\.csv: is a folder; give a file name to write$")
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--out", out)
+    assert_cli_error(result, r"results\.csv: is a folder; give a file name to write$")
     assert leftovers(tmp_path) == []
 
 
-def test_library_import_out_folder_missing(tmp_path, inputs):
+def test_library_import_out_folder_missing(tmp_path, inputs, cli):
     out = tmp_path / "missing" / "lib.nc"
-    result = invoke("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out)
-    assert_error(result, r"lib\.nc: folder .*missing does not exist$")
+    result = cli("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out)
+    assert_cli_error(result, r"lib\.nc: folder .*missing does not exist$")
     assert list(tmp_path.iterdir()) == []
 
 
-def test_library_build_out_folder_missing(tmp_path, inputs):
+def test_library_build_out_folder_missing(tmp_path, inputs, cli):
     out = tmp_path / "missing" / "lib.nc"
-    result = invoke("library", "build", inputs["standards"], "--standards", inputs["sheet"],
-                    "--out", out)
-    assert_error(result, r"lib\.nc: folder .*missing does not exist$")
+    result = cli("library", "build", inputs["standards"], "--standards", inputs["sheet"],
+                 "--out", out)
+    assert_cli_error(result, r"lib\.nc: folder .*missing does not exist$")
     assert list(tmp_path.iterdir()) == []
 
 
-def test_failed_write_keeps_previous_results(tmp_path, inputs, monkeypatch):
+def test_failed_write_keeps_previous_results(tmp_path, inputs, monkeypatch, cli):
     import pandas as pd
 
     out = tmp_path / "r.csv"
@@ -427,17 +399,17 @@ def test_failed_write_keeps_previous_results(tmp_path, inputs, monkeypatch):
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(pd.DataFrame, "to_csv", full_disk)
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--out", out)
-    assert_error(result, r"r\.csv: cannot write the file \(No space left on device\)$")
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--out", out)
+    assert_cli_error(result, r"r\.csv: cannot write the file \(No space left on device\)$")
     assert out.read_text() == "previous results\n"
     assert leftovers(tmp_path) == []
 
 
-def test_demo_out_is_a_file(tmp_path):
+def test_demo_out_is_a_file(tmp_path, cli):
     pytest.importorskip("mixsolve.workflows.demo")
     target = write_text(tmp_path / "demo", "not a folder")
-    assert_error(invoke("demo", "--out", target),
-                 r"demo: exists and is not a folder; choose another output folder$")
+    assert_cli_error(cli("demo", "--out", target),
+                     r"demo: exists and is not a folder; choose another output folder$")
     assert target.read_text() == "not a folder"
 
 
@@ -449,54 +421,53 @@ def test_demo_out_is_a_file(tmp_path):
     [(["--method", "lsq"], "'--method'"), (["--baseline", "quadratic"], "'--baseline'"),
      (["--pathlength", "one"], "'--pathlength'")],
 )
-def test_click_usage_errors_exit_2_without_traceback(inputs, args, what):
-    result = invoke("unmix", inputs["lib"], inputs["mix"], *args)
+def test_click_usage_errors_exit_2_without_traceback(inputs, args, what, cli):
+    result = cli("unmix", inputs["lib"], inputs["mix"], *args)
     assert result.exit_code == 2
     assert "Traceback" not in result.output
     assert result.stdout == ""
     assert what in result.stderr.splitlines()[-1]
 
 
-def test_missing_argument_exits_2(inputs):
-    result = invoke("unmix", inputs["lib"])
+def test_missing_argument_exits_2(inputs, cli):
+    result = cli("unmix", inputs["lib"])
     assert result.exit_code == 2
     assert "Missing argument 'SPECTRA'" in result.stderr
     assert "Traceback" not in result.output
 
 
-def test_unknown_command_exits_2():
-    result = invoke("unmixx")
+def test_unknown_command_exits_2(cli):
+    result = cli("unmixx")
     assert result.exit_code == 2
     assert "No such command 'unmixx'" in result.stderr
 
 
-def test_debug_raises_the_error(inputs):
-    result = CliRunner().invoke(main, ["--debug", "unmix", str(inputs["lib"]),
-                                       str(inputs["mix"]), "--window", "800-900"])
+def test_debug_raises_the_error(inputs, cli):
+    result = cli("--debug", "unmix", inputs["lib"], inputs["mix"], "--window", "800-900")
     assert result.exit_code == 1
     assert isinstance(result.exception, InputError)
     assert "holds no measured wavelength" in str(result.exception)
 
 
-def test_errors_are_single_line_even_for_multiline_messages(tmp_path, inputs, monkeypatch):
+def test_errors_are_single_line_even_for_multiline_messages(tmp_path, inputs, monkeypatch, cli):
     import mixsolve.workflows.unmix_files as unmix_files
 
     def fail(*args, **kwargs):
         raise InputError("first part\n  second part")
 
     monkeypatch.setattr(unmix_files, "unmix", fail)
-    result = invoke("unmix", inputs["lib"], inputs["mix"])
-    assert_error(result, r"^error: first part second part$")
+    result = cli("unmix", inputs["lib"], inputs["mix"])
+    assert_cli_error(result, r"^error: first part second part$")
 
 
-def test_good_inputs_are_good(tmp_path, inputs):
+def test_good_inputs_are_good(tmp_path, inputs, cli):
     """The fixtures themselves run cleanly (so each error above comes from its one defect)."""
     out = tmp_path / "r.csv"
-    result = invoke("unmix", inputs["lib"], inputs["mix"], "--out", out, "--unit", "mg/L")
+    result = cli("unmix", inputs["lib"], inputs["mix"], "--out", out, "--unit", "mg/L")
     assert result.exit_code == 0, result.output
     assert out.is_file()
-    build = invoke("library", "build", inputs["standards"], "--standards", inputs["sheet"],
-                   "--out", tmp_path / "lib.nc")
+    build = cli("library", "build", inputs["standards"], "--standards", inputs["sheet"],
+                "--out", tmp_path / "lib.nc")
     assert build.exit_code == 0, build.output
     assert len(mixture_columns()) == 2 and WL.size == 31
 

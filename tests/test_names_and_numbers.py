@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from click.testing import CliRunner
+from helpers_cli import assert_cli_error
 from helpers_io import (
     WL,
     absorptivity_frame,
@@ -38,7 +38,6 @@ from helpers_io import (
 )
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.errors import InputError
 from mixsolve.flags import NO_SIGNAL, STATUS_CODES
 from mixsolve.instrument.absorbance_scale import check_absorbance_scale
@@ -61,11 +60,6 @@ NEAR = r"names 'Ext_03 ' and 'ext_03' differ only in case or spacing; rename one
 NEAR_FILE = "names 'Ext_03' and 'ext_03' differ only in case or spacing; rename one"
 
 
-def run(*args: object):
-    """Invoke the CLI in-process with string arguments."""
-    return CliRunner().invoke(main, [str(a) for a in args])
-
-
 def digest(folder: Path) -> dict[str, str]:
     """SHA-256 of every file below ``folder``, by relative name."""
     return {str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest()
@@ -73,14 +67,9 @@ def digest(folder: Path) -> dict[str, str]:
 
 
 def assert_refused(result, folder: Path, before: dict[str, str], *needles: str) -> None:
-    """Exit 2, one ``error:`` line holding each needle, no traceback, and ``folder`` exactly
-    as before: inputs byte-for-byte unchanged, no output and no temporary file added."""
-    assert result.exit_code == 2, (result.exit_code, result.output, result.exception)
-    assert "Traceback" not in result.output
-    errors = [ln for ln in result.stderr.splitlines() if ln.startswith("error")]
-    assert len(errors) == 1 and errors[0].startswith("error: "), result.stderr
-    for needle in needles:
-        assert needle in errors[0], (needle, errors[0])
+    """The one-line error holding each needle, and ``folder`` exactly as before: inputs
+    byte-for-byte unchanged, no output and no temporary file added."""
+    assert_cli_error(result, *needles, literal=True)
     assert digest(folder) == before
 
 
@@ -216,13 +205,13 @@ def test_library_with_duplicate_names_or_bad_molar_mass_refused(changes, message
                  _edited_library(**changes))
 
 
-def test_library_file_with_negative_molar_mass_refused_by_cli(cuvette):
+def test_library_file_with_negative_molar_mass_refused_by_cli(cuvette, cli):
     """unmix with a library file holding a negative molar mass: exit 2, nothing written."""
     folder = cuvette["dir"]
     lib = _edited_library(masses=[-500.0, 800.0])
     lib.to_netcdf(folder / "neg.nc")
     before = digest(folder)
-    result = run("unmix", folder / "neg.nc", cuvette["spectra"], "--out", folder / "r.csv")
+    result = cli("unmix", folder / "neg.nc", cuvette["spectra"], "--out", folder / "r.csv")
     assert_refused(result, folder, before, "molar mass of 'red' is -500 g/mol")
 
 
@@ -279,7 +268,7 @@ def test_check_wavelengths_components_as_people_read_them():
 
 
 @pytest.mark.parametrize("command", ["unmix", "import", "plate"])
-def test_near_duplicate_names_refused_by_cli(tmp_path, command):
+def test_near_duplicate_names_refused_by_cli(tmp_path, command, cli):
     """Through the command line: exit 2, one line naming both spellings, nothing written,
     inputs unchanged."""
     cols = list(mixtures().values())
@@ -294,7 +283,7 @@ def test_near_duplicate_names_refused_by_cli(tmp_path, command):
                 tmp_path / "new.nc"]
     else:
         lib = tmp_path / "lib.nc"
-        assert run("library", "build", demo_file("standards_spectra.csv"), "--standards",
+        assert cli("library", "build", demo_file("standards_spectra.csv"), "--standards",
                    demo_file("standards.csv"), "--out", lib).exit_code == 0
         text = Path(demo_file("plate_layout.csv")).read_text()
         text = text.replace("A2,sample,extract_01,", "A2,sample,Ext_03 ,").replace(
@@ -303,7 +292,7 @@ def test_near_duplicate_names_refused_by_cli(tmp_path, command):
         args = ["plate", demo_file("plate_export.csv"), "--layout", layout, "--library", lib,
                 "--out", tmp_path / "out"]
     before = digest(tmp_path)
-    assert_refused(run(*args), tmp_path, before, NEAR_FILE)
+    assert_refused(cli(*args), tmp_path, before, NEAR_FILE)
 
 
 # --- numbers: options -----------------------------------------------------------------------
@@ -375,12 +364,12 @@ def test_instrument_options_refused_by_the_api():
     (["instrument", "stray-light", "{spectra}", "--bandwidth", "nan"],
      "bandwidth: nan nm is not a finite number"),
 ])
-def test_nan_and_infinite_options_refused_by_cli(cuvette, args, needle):
+def test_nan_and_infinite_options_refused_by_cli(cuvette, args, needle, cli):
     """One line naming the option and value, exit 2, nothing written, inputs unchanged."""
     names = {k: str(v) for k, v in cuvette.items()}
     names["out"] = str(cuvette["dir"] / "out.csv")
     before = digest(cuvette["dir"])
-    assert_refused(run(*[a.format(**names) for a in args]), cuvette["dir"], before, needle)
+    assert_refused(cli(*[a.format(**names) for a in args]), cuvette["dir"], before, needle)
 
 
 # --- numbers: singular wavelength choices ---------------------------------------------------
@@ -422,13 +411,13 @@ def test_choice_on_a_library_with_zero_tails_is_well_conditioned(cut_nm):
             choose_wavelengths(lib, 3, contiguous=True)
 
 
-def test_cli_choose_on_zero_tails(tmp_path):
+def test_cli_choose_on_zero_tails(tmp_path, cli):
     """wavelengths choose --json on the zero-tailed library: a finite condition number."""
     import json
 
     path = tmp_path / "tails.nc"
     ms.write_library(_zero_tail_library(80.0), path)
-    result = run("wavelengths", "choose", path, "--count", "3", "--json")
+    result = cli("wavelengths", "choose", path, "--count", "3", "--json")
     assert result.exit_code == 0, result.output
     assert json.loads(result.stdout)["chosen"]["condition_number"] is not None
 
@@ -461,7 +450,7 @@ def test_every_status_code_is_explained():
 
 
 @pytest.mark.parametrize("zero", ["0", "-0.0"])
-def test_all_zero_spectrum_through_cli(cuvette, zero):
+def test_all_zero_spectrum_through_cli(cuvette, zero, cli):
     """unmix --out --report with an all-zero column: exit 0 (it crashed after writing the
     CSV), the CSV and page written, the sample flagged no_signal."""
     folder = cuvette["dir"]
@@ -469,7 +458,7 @@ def test_all_zero_spectrum_through_cli(cuvette, zero):
     spectra = write_text(folder / "zero.csv", "\n".join(
         [text[0] + ",empty"] + [line + "," + zero for line in text[1:]]) + "\n")
     out, page = folder / "r.csv", folder / "r.html"
-    result = run("unmix", cuvette["lib"], spectra, "--out", out, "--report", page)
+    result = cli("unmix", cuvette["lib"], spectra, "--out", out, "--report", page)
     assert result.exit_code == 0, (result.output, result.exception)
     table = pd.read_csv(out)
     assert {f.split(";")[0] for f in table.loc[table["sample"] == "empty", "flags"]} == \
@@ -497,21 +486,21 @@ def test_drawable_hides_what_axes_cannot_hold():
     assert PLOT_LIMIT < 1e300
 
 
-def test_unmix_report_with_dollar_names_and_huge_reading(tmp_path):
+def test_unmix_report_with_dollar_names_and_huge_reading(tmp_path, cli):
     """Component and sample names with $ (matplotlib mathtext) and one reading of 1e308:
     unmix --report writes the page (both crashed with a traceback)."""
     frame = absorptivity_frame()
     table = write_wide(tmp_path / "eps.csv", {"$\\frac$": frame["red"].to_numpy(),
                                               "a$_$": frame["blue"].to_numpy()})
     lib = tmp_path / "lib.nc"
-    assert run("library", "import", table, "--unit", "L/(mol*cm)", "--out",
+    assert cli("library", "import", table, "--unit", "L/(mol*cm)", "--out",
                lib).exit_code == 0
     cols = list(mixtures().values())
     huge = cols[1].copy()
     huge[3] = 1e308
     spectra = write_wide(tmp_path / "mix.csv", {"$x^$": cols[0], "cost $5": huge})
     page = tmp_path / "page.html"
-    result = run("unmix", lib, spectra, "--out", tmp_path / "r.csv", "--report", page)
+    result = cli("unmix", lib, spectra, "--out", tmp_path / "r.csv", "--report", page)
     assert result.exit_code == 0, (result.output, result.exception)
     html = page.read_text(encoding="utf-8")
     assert "$x^$" in html and "$\\frac$" in html
@@ -549,15 +538,15 @@ def test_plate_figures_with_dollar_names_draw():
     fig.savefig(io.BytesIO(), format="png")
 
 
-def test_plate_with_dollar_component_names(tmp_path):
+def test_plate_with_dollar_component_names(tmp_path, cli):
     """plate with a library whose component is named '$\\frac$': the report is written."""
     sheet = Path(demo_file("standards.csv")).read_text().replace(",amber,", ",$\\frac$,")
     std = write_text(tmp_path / "std.csv", sheet)
     lib = tmp_path / "lib.nc"
-    assert run("library", "build", demo_file("standards_spectra.csv"), "--standards", std,
+    assert cli("library", "build", demo_file("standards_spectra.csv"), "--standards", std,
                "--out", lib).exit_code == 0
     out = tmp_path / "out"
-    result = run("plate", demo_file("plate_export.csv"), "--layout",
+    result = cli("plate", demo_file("plate_export.csv"), "--layout",
                  demo_file("plate_layout.csv"), "--library", lib, "--out", out)
     assert result.exit_code == 0, (result.output, result.exception)
     assert (out / "plate_export" / "report.html").stat().st_size > 0

@@ -16,7 +16,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
-from helpers_nnls import kkt_ratio
+from helpers_nnls import kkt_ratio, nnls_free_reference
 from scipy.optimize import nnls
 
 import mixsolve as ms
@@ -48,17 +48,6 @@ def spectra_for(rng: np.random.Generator, d: np.ndarray, zero_fraction: float = 
     conc = rng.uniform(0.0, 1.0, (n, p))
     conc[rng.random(conc.shape) < zero_fraction] = 0.0
     return np.einsum("nmp,np->nm", d, conc) + noise * rng.standard_normal((n, m))
-
-
-def nnls_free_reference(design: np.ndarray, a: np.ndarray, n_con: int) -> np.ndarray:
-    """scipy.optimize.nnls on the free columns projected out, then lstsq for them."""
-    k, b = design[:, :n_con], design[:, n_con:]
-    if not b.shape[1]:
-        return nnls(k, a, maxiter=50 * max(n_con, 1))[0]
-    proj = np.eye(design.shape[0]) - b @ np.linalg.pinv(b)
-    c = nnls(proj @ k, proj @ a, maxiter=50 * max(n_con, 1))[0]
-    beta = np.linalg.lstsq(b, a - k @ c, rcond=None)[0]
-    return np.r_[c, beta]
 
 
 def assert_kkt(d: np.ndarray, a: np.ndarray, coef: np.ndarray, n_con: int) -> None:

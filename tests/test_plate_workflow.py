@@ -1,6 +1,6 @@
 """Plate batches: layout files, processing, outputs, the report page and `mixsolve plate`.
 
-All plates here are invented (tests/test_plates.py builds the exports): blanks, samples in
+All plates here are invented (tests/helpers_plate.py builds them): blanks, samples in
 triplicate at two dilutions and standards of the two invented components, from known
 concentrations with seeded noise.
 """
@@ -15,89 +15,25 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from click.testing import CliRunner
 from helpers_io import WL, band, make_library, write_library_file, write_text
-from test_plates import (
+from helpers_plate import (
     BACKGROUND_AU,
+    SAMPLES,
+    SCENARIO_SEED,
     export_rows,
-    synthetic_water,
+    scenario_layout,
+    scenario_values,
     write_export,
+    write_layout,
+    write_scenario,
 )
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.errors import FileFormatError, InputError, UnitError
 from mixsolve.plate.wells import plate_wells
 from mixsolve.report.html import SAFETY_CAUTIONS
 from mixsolve.report.text import CAUTION
 from mixsolve.workflows.plate import find_exports
-
-SEED = 20240612
-#: Invented samples (red, blue in mol/L).
-SAMPLES = {"S1": (2.0e-5, 1.0e-5), "S2": (1.2e-5, 2.4e-5), "S3": (3.0e-5, 0.0),
-           "S4": (0.8e-5, 0.8e-5), "S5": (2.5e-5, 3.0e-5), "S6": (1.5e-5, 1.8e-5)}
-#: Standards in row H: well -> (component, mol/L).
-STANDARDS = {"H1": ("red", 1e-5), "H2": ("red", 2e-5), "H3": ("red", 4e-5),
-             "H4": ("blue", 1e-5), "H5": ("blue", 2e-5), "H6": ("blue", 4e-5)}
-
-
-def scenario_layout() -> list[dict[str, object]]:
-    """Blanks A1-A4; S1-S6 in rows B-G, columns 1-3 neat and 4-6 diluted 2-fold; standards
-    H1-H6; H7 listed as empty. Other wells are not listed."""
-    rows: list[dict[str, object]] = [{"well": f"A{c}", "role": "blank"} for c in range(1, 5)]
-    for r, sample in zip("BCDEFG", SAMPLES, strict=True):
-        rows += [{"well": f"{r}{c}", "role": "sample", "sample": sample,
-                  "dilution": 1 if c <= 3 else 2} for c in range(1, 7)]
-    rows += [{"well": w, "role": "standard", "sample": f"std_{comp}", "component": comp,
-              "concentration": c * 1e3, "unit": "mmol/L"} for w, (comp, c) in STANDARDS.items()]
-    rows.append({"well": "H7", "role": "empty"})
-    return rows
-
-
-def write_layout(path: Path, rows: list[dict[str, object]] | None = None) -> Path:
-    """Write a layout CSV (columns well, role, sample, dilution, component, concentration,
-    unit)."""
-    frame = pd.DataFrame(rows if rows is not None else scenario_layout(),
-                         columns=["well", "role", "sample", "dilution", "component",
-                                  "concentration", "unit"])
-    frame.to_csv(path, index=False, lineterminator="\n")
-    return path
-
-
-def in_well(well: str, layout: list[dict[str, object]]) -> tuple[float, float]:
-    """Concentrations (mol/L) actually in a well of the scenario."""
-    entry = next((e for e in layout if e["well"] == well), None)
-    if entry is None or entry["role"] in ("blank", "empty"):
-        return 0.0, 0.0
-    if entry["role"] == "standard":
-        comp, c = STANDARDS[well]
-        return (c, 0.0) if comp == "red" else (0.0, c)
-    red, blue = SAMPLES[str(entry["sample"])]
-    d = float(entry["dilution"])  # type: ignore[arg-type]
-    return red / d, blue / d
-
-
-def scenario_values(pathlength: np.ndarray | float = 0.5, wl: np.ndarray = WL, *,
-                    water: bool = False, noise_au: float = 0.0008, seed: int = SEED
-                    ) -> tuple[list[str], np.ndarray]:
-    """Raw absorbance of all 96 wells of the scenario (wells × wavelengths)."""
-    rng = np.random.default_rng(seed)
-    layout = scenario_layout()
-    wells = plate_wells(96)
-    conc = np.array([in_well(w, layout) for w in wells])
-    b = np.broadcast_to(np.asarray(pathlength, dtype=float), (len(wells),))[:, None]
-    eps = np.vstack([band("red", wl), band("blue", wl)])
-    values = BACKGROUND_AU + b * (conc @ eps)
-    if water:
-        values = values + b * synthetic_water(wl)[None, :]
-    return wells, values + noise_au * rng.standard_normal(values.shape)
-
-
-def write_scenario(folder: Path, name: str = "plate1.csv", **kwargs: object) -> Path:
-    """Write the scenario as a grid-block export (comma, point) with free-text lines."""
-    wl = kwargs.pop("wl", WL)
-    wells, values = scenario_values(wl=wl, **kwargs)  # type: ignore[arg-type]
-    return write_export(folder / name, export_rows("grid blocks", wells, wl, values, size=96))
 
 
 @pytest.fixture
@@ -235,7 +171,7 @@ def test_wells_missing_from_the_export_are_flagged_not_dropped(tmp_path):
 
 def test_water_band_pathlength_per_well(tmp_path):
     wl = np.concatenate([WL, [900.0, 977.0]])
-    b = np.random.default_rng(SEED).uniform(0.40, 0.60, 96)  # pipetting scatter
+    b = np.random.default_rng(SCENARIO_SEED).uniform(0.40, 0.60, 96)  # pipetting scatter
     path = write_scenario(tmp_path, wl=wl, pathlength=b, water=True, noise_au=0.0004)
     layout = ms.read_layout(write_layout(tmp_path / "layout.csv"))
     done = ms.analyse_plate(ms.read_plate(path), layout, make_library(), water_band=True)
@@ -397,7 +333,7 @@ def check_report(path: Path, components: list[str]) -> WellFormed:
 
 def test_batch_of_a_folder_writes_every_output(tmp_path, files):
     folder = files["export"].parent
-    write_scenario(folder, "plate2.csv", seed=SEED + 1)
+    write_scenario(folder, "plate2.csv", seed=SCENARIO_SEED + 1)
     calls = []
     out = tmp_path / "results"
     batch = ms.run_plates([folder], files["layout"], out=out, library=files["library"],
@@ -470,7 +406,7 @@ def test_find_exports(tmp_path):
 
 def test_same_export_names_and_library_from_plate(tmp_path, files):
     (tmp_path / "day2").mkdir()
-    again = write_scenario(tmp_path / "day2", "plate1.csv", seed=SEED + 2)
+    again = write_scenario(tmp_path / "day2", "plate1.csv", seed=SCENARIO_SEED + 2)
     batch = ms.run_plates([files["export"], again], files["layout"], out=tmp_path / "o",
                           library_from_plate=True, pathlength_cm=0.5)
     assert [f.name for f in batch.folders] == ["plate1", "plate1-2"]
@@ -485,12 +421,11 @@ def test_same_export_names_and_library_from_plate(tmp_path, files):
 # --- command line -----------------------------------------------------------------------
 
 
-def test_cli_plate(tmp_path, files):
+def test_cli_plate(tmp_path, files, cli):
     out = tmp_path / "cli"
-    run = CliRunner().invoke(main, [
-        "plate", str(files["export"]), "--layout", str(files["layout"]), "--library",
-        str(files["library"]), "--out", str(out), "--volume-ul", "160.8495",
-        "--well-diameter-mm", "6.4", "--unit", "umol/L", "--max-cv", "25"])
+    run = cli("plate", files["export"], "--layout", files["layout"], "--library",
+              files["library"], "--out", out, "--volume-ul", "160.8495",
+              "--well-diameter-mm", "6.4", "--unit", "umol/L", "--max-cv", "25")
     assert run.exit_code == 0, run.output
     assert run.stdout.startswith("plate1.csv: grid blocks, 96-well; 46 wells fitted")
     assert run.stderr.startswith("plate 1/1: plate1.csv: grid blocks")
@@ -505,11 +440,10 @@ def test_cli_plate(tmp_path, files):
                                               "band); give one of --pathlength"),
     (["--range", "high"], "error: --range: 'high' is not LOW-HIGH"),
 ])
-def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message):
+def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message, cli):
     out = tmp_path / "cli"
-    run = CliRunner().invoke(main, [
-        "plate", str(files["export"]), "--layout", str(files["layout"]), "--library",
-        str(files["library"]), "--out", str(out), *extra])
+    run = cli("plate", files["export"], "--layout", files["layout"], "--library",
+              files["library"], "--out", out, *extra)
     assert run.exit_code == 2
     assert run.stderr.startswith(message) and len(run.stderr.strip().splitlines()) == 1
     assert not out.exists()

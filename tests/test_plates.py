@@ -10,13 +10,13 @@ from __future__ import annotations
 
 import json
 from collections.abc import Mapping
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from helpers_io import WL, band, fmt, make_library, write_text, write_xlsx
+from helpers_io import WL, band, make_library, write_text
+from helpers_plate import BACKGROUND_AU, export_rows, synthetic_water, write_export
 
 import mixsolve as ms
 from mixsolve.errors import FileFormatError, InputError
@@ -31,12 +31,7 @@ from mixsolve.plate.wells import (
 )
 
 SEED = 20240611
-BACKGROUND_AU = 0.035  # invented plate + solvent absorbance, the same in every well
 PATHLENGTH_CM = 0.5
-#: Free-text lines an export may carry (none is a wavelength line or a plate header).
-JUNK = ["Invented plate reader export", "Operator: nobody in particular", "Run notes only"]
-
-Markers = Mapping[tuple[str, float], str]
 
 
 def plate_concentrations(size: int, rng: np.random.Generator) -> dict[str, tuple[float, float]]:
@@ -57,51 +52,6 @@ def plate_absorbance(conc: Mapping[str, tuple[float, float]], wl: np.ndarray = W
         values = values + noise_au * (rng or np.random.default_rng(SEED)).standard_normal(
             values.shape)
     return values
-
-
-def export_rows(layout: str, wells: list[str], wl: np.ndarray, values: np.ndarray, *,
-                size: int, markers: Markers | None = None, junk: bool = True,
-                zero_pad: bool = False) -> list[list[object]]:
-    """Cells of an export in one of the three layouts (floats stay floats)."""
-    markers = markers or {}
-    index = {w: i for i, w in enumerate(wells)}
-
-    def cell(well: str, j: int) -> object:
-        return markers.get((well, float(wl[j])), float(values[index[well], j]))
-
-    def label(well: str) -> str:
-        return f"{well[0]}{int(well[1:]):02d}" if zero_pad else well
-
-    rows: list[list[object]] = [[JUNK[0]], [JUNK[1]]] if junk else []
-    n_rows, n_cols = {96: (8, 12), 384: (16, 24)}[size]
-    if layout == "grid blocks":
-        for j, w in enumerate(wl):
-            rows.append([f"Wavelength: {w:g} nm"])
-            rows.append(["", *range(1, n_cols + 1)])
-            for r in range(n_rows):
-                letter = "ABCDEFGHIJKLMNOP"[r]
-                rows.append([letter, *(cell(f"{letter}{c}", j) for c in range(1, n_cols + 1))])
-            if junk:
-                rows.append([JUNK[2]])
-    elif layout == "well columns":
-        rows.append(["wavelength_nm", *map(label, wells)])
-        rows += [[float(w), *(cell(well, j) for well in wells)] for j, w in enumerate(wl)]
-    else:
-        rows.append(["well", "wavelength_nm", "absorbance"])
-        rows += [[label(well), float(w), cell(well, j)] for well in wells
-                 for j, w in enumerate(wl)]
-    if junk:
-        rows.append(["End of export"])
-    return rows
-
-
-def write_export(path: Path, rows: list[list[object]], *, sep: str = ",",
-                 decimal: str = ".") -> Path:
-    """Write export cells as delimited text, or as XLSX when ``path`` ends in .xlsx."""
-    if path.suffix == ".xlsx":
-        return write_xlsx(path, rows[0], rows[1:], sheet="Readings")
-    text = "\n".join(sep.join(fmt(c, decimal) for c in row) for row in rows) + "\n"
-    return write_text(path, text)
 
 
 def layout_frame(wells: list[str], *, source: str = "layout.csv") -> pd.DataFrame:
@@ -322,14 +272,6 @@ def test_pathlength_from_volume():
     assert pathlength_from_volume(200.0, 6.96) == pytest.approx(0.5257, abs=1e-4)
     with pytest.raises(InputError, match=r"^--well-diameter-mm: 0.0 mm is not a positive"):
         pathlength_from_volume(200.0, 0.0)
-
-
-def synthetic_water(wl: np.ndarray) -> np.ndarray:
-    """Invented absorbance of 1 cm of water: a flat 0.004 AU plus a band at 975 nm, scaled so
-    that A(977) − A(900) is exactly 0.18 AU (the CHECKS.md value, from memory)."""
-    shape = np.exp(-0.5 * ((wl - 975.0) / 28.0) ** 2)
-    at = np.exp(-0.5 * ((np.array([900.0, 977.0]) - 975.0) / 28.0) ** 2)
-    return 0.004 + 0.18 * shape / (at[1] - at[0])
 
 
 def test_water_band_pathlength_from_a_synthetic_water_spectrum():

@@ -14,10 +14,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import xarray as xr
-from click.testing import CliRunner
 
 import mixsolve as ms
-from mixsolve.cli import main
 from mixsolve.errors import FileFormatError, InputError, OutputError
 from mixsolve.flags import STATUS_CODES
 from mixsolve.io.cubes import chunk_plan
@@ -247,7 +245,7 @@ def test_wavelength_split_across_chunks_is_refused(library: xr.Dataset,
         ms.unmix(cube, library)
 
 
-def test_local_cluster_on_loopback_equals_eager(library: xr.Dataset, tmp_path: Path) -> None:
+def test_local_cluster_on_loopback_equals_eager(library: xr.Dataset, tmp_path: Path, cli) -> None:
     """A dask.distributed LocalCluster (tcp on 127.0.0.1): unmix runs on it, same result."""
     distributed = pytest.importorskip("distributed")
     cube = make_cube((6, 8))
@@ -264,15 +262,12 @@ def test_local_cluster_on_loopback_equals_eager(library: xr.Dataset, tmp_path: P
         assert_same(eager, computed)
         ms.write_library(library, tmp_path / "lib.nc")
         ms.write_cube(cube.chunk({"y": 3}), tmp_path / "cube.zarr")
-        run = CliRunner().invoke(main, ["unmix", str(tmp_path / "lib.nc"),
-                                        str(tmp_path / "cube.zarr"), "--baseline", "offset",
-                                        "--out", str(tmp_path / "res.nc"), "--scheduler",
-                                        cluster.scheduler_address])
+        run = cli("unmix", tmp_path / "lib.nc", tmp_path / "cube.zarr", "--baseline", "offset",
+                  "--out", tmp_path / "res.nc", "--scheduler", cluster.scheduler_address)
         assert run.exit_code == 0, run.output
-        table = CliRunner().invoke(main, ["unmix", str(tmp_path / "lib.nc"),
-                                          str(tmp_path / "cube.zarr"), "--baseline", "offset",
-                                          "--out", str(tmp_path / "res.csv"), "--scheduler",
-                                          cluster.scheduler_address])
+        table = cli("unmix", tmp_path / "lib.nc", tmp_path / "cube.zarr", "--baseline",
+                    "offset", "--out", tmp_path / "res.csv", "--scheduler",
+                    cluster.scheduler_address)
         assert table.exit_code == 0, table.output
     written = xr.open_dataset(tmp_path / "res.nc", engine="h5netcdf").load()
     assert_same(eager, written)
@@ -367,12 +362,11 @@ def cube_files(library: xr.Dataset, tmp_path: Path) -> Path:
     return tmp_path
 
 
-def test_cli_zarr_in_zarr_out(cube_files: Path, library: xr.Dataset) -> None:
+def test_cli_zarr_in_zarr_out(cube_files: Path, library: xr.Dataset, cli) -> None:
     """mixsolve unmix LIB CUBE.zarr --out RESULT.zarr: exit 0, a summary on stdout, the
     result store equal to the eager fit."""
     out = cube_files / "result.zarr"
-    run = CliRunner().invoke(main, ["unmix", str(cube_files / "lib.nc"),
-                                    str(cube_files / "cube.zarr"), "--out", str(out)])
+    run = cli("unmix", cube_files / "lib.nc", cube_files / "cube.zarr", "--out", out)
     assert run.exit_code == 0, run.output
     assert "Unmixed 6 × 8 spectra (y × x)" in run.stdout
     assert f"wrote {out}" in run.stderr
@@ -380,14 +374,13 @@ def test_cli_zarr_in_zarr_out(cube_files: Path, library: xr.Dataset) -> None:
     assert_same(ms.unmix(make_cube((6, 8)), library), written)
 
 
-def test_cli_cube_to_csv_and_local_workers(cube_files: Path) -> None:
+def test_cli_cube_to_csv_and_local_workers(cube_files: Path, cli) -> None:
     """A cube into the tidy CSV (one row per pixel × component, y and x columns), run on
     a local cluster of one worker process (--workers 1)."""
     pytest.importorskip("distributed")
     out = cube_files / "result.csv"
-    run = CliRunner().invoke(main, ["unmix", str(cube_files / "lib.nc"),
-                                    str(cube_files / "cube.zarr"), "--out", str(out),
-                                    "--workers", "1"])
+    run = cli("unmix", cube_files / "lib.nc", cube_files / "cube.zarr", "--out", out,
+              "--workers", "1")
     assert run.exit_code == 0, run.output
     lines = out.read_text().splitlines()
     assert lines[0].endswith(",flags,y,x") and len(lines) == 1 + 6 * 8 * 3
@@ -413,16 +406,14 @@ def test_cli_infinity_in_a_cube_on_local_workers(cube_files: Path) -> None:
     assert not out.exists()
 
 
-def test_cli_scale_errors_exit_2(cube_files: Path) -> None:
+def test_cli_scale_errors_exit_2(cube_files: Path, cli) -> None:
     """Bad combinations are one line on stderr with exit code 2."""
     lib, cube = str(cube_files / "lib.nc"), str(cube_files / "cube.zarr")
-    runner = CliRunner()
-    both = runner.invoke(main, ["unmix", lib, cube, "--workers", "2", "--scheduler",
-                                "tcp://127.0.0.1:1"])
+    both = cli("unmix", lib, cube, "--workers", "2", "--scheduler", "tcp://127.0.0.1:1")
     assert both.exit_code == 2
     assert both.stderr.strip() == ("error: give either a scheduler address or a number of "
                                    "workers, not both")
-    report = runner.invoke(main, ["unmix", lib, cube, "--report", "r.html"])
+    report = cli("unmix", lib, cube, "--report", "r.html")
     assert report.exit_code == 2 and "--report: not available for a cube" in report.stderr
-    missing = runner.invoke(main, ["unmix", lib, str(cube_files / "none.zarr")])
+    missing = cli("unmix", lib, cube_files / "none.zarr")
     assert missing.exit_code == 2 and "none.zarr: file not found" in missing.stderr

@@ -10,6 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
+from helpers_nnls import nnls_free_reference
 
 import mixsolve as ms
 from mixsolve.errors import InputError
@@ -298,7 +299,6 @@ def reference_shift_fit(a: np.ndarray, method: str, baseline: str, max_shift: fl
     s² = RSS/(n − p − 1), J = Σₖ xₖ εₖ′(λ + δ).
     Returns δ, coefficients, their standard errors and u(δ)."""
     from scipy.optimize import minimize_scalar
-    from test_per_spectrum import nnls_free_reference
 
     from mixsolve.solve.design import design_matrix
 

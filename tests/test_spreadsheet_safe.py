@@ -3,7 +3,7 @@
 The rule is common practice, the OWASP "CSV Injection" guidance: a text cell beginning with
 ``=``, ``+``, ``-``, ``@``, a tab or a carriage return is written as text (a leading
 apostrophe in CSV, a string cell in XLSX); numbers stay numbers. All data here are invented
-(tests/helpers_io.py, tests/test_plate_workflow.py).
+(tests/helpers_io.py, tests/helpers_plate.py).
 """
 
 from __future__ import annotations
@@ -16,17 +16,15 @@ import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
-from click.testing import CliRunner
+from helpers_instrument import UV, dichromate
 from helpers_io import (
     MIXTURES,
     mixture_absorbance,
     write_library_file,
     write_wide,
 )
-from test_cli_instrument import UV, dichromate
-from test_plate_workflow import scenario_layout, write_layout, write_scenario
+from helpers_plate import scenario_layout, write_layout, write_scenario
 
-from mixsolve.cli import main
 from mixsolve.io.cell_text import FORMULA_START, safe_cell, safe_frame, unquote_cell
 from mixsolve.io.log_io import LOG_COLUMNS, append_log, read_log
 from mixsolve.io.reference_io import read_reference
@@ -191,7 +189,7 @@ def test_a_log_written_before_the_rule_is_made_safe_on_the_next_append(tmp_path)
 # --- end to end -------------------------------------------------------------------------
 
 
-def test_cli_plate_with_formula_sample_names(tmp_path):
+def test_cli_plate_with_formula_sample_names(tmp_path, cli):
     """A layout whose sample names begin with '=': CSVs quoted, no formula in results.xlsx."""
     layout = scenario_layout()
     for row in layout:
@@ -201,9 +199,8 @@ def test_cli_plate_with_formula_sample_names(tmp_path):
     layout_file = write_layout(tmp_path / "layout.csv", layout)
     library = write_library_file(tmp_path / "lib.nc")
     out = tmp_path / "out"
-    run = CliRunner().invoke(main, ["plate", str(export), "--layout", str(layout_file),
-                                    "--library", str(library), "--out", str(out),
-                                    "--pathlength", "0.5"])
+    run = cli("plate", export, "--layout", layout_file, "--library", library, "--out", out,
+              "--pathlength", "0.5")
     assert run.exit_code == 0, run.output
     plate = out / "plate1"
     assert formula_cells(plate / "results.xlsx") == []
@@ -222,15 +219,14 @@ def test_cli_plate_with_formula_sample_names(tmp_path):
     assert {r[1] for r in combined[1:]} == {f"'=S{k}" for k in range(1, 7)}
 
 
-def test_cli_unmix_formula_sample_keeps_negative_numbers_and_round_trips(tmp_path):
+def test_cli_unmix_formula_sample_keeps_negative_numbers_and_round_trips(tmp_path, cli):
     """A sample column named '=cmd' beside one whose OLS blue share is negative."""
     spectra = write_wide(tmp_path / "s.csv", {
         "=cmd": mixture_absorbance(MIXTURES["mix_1"]),
         "-odd": mixture_absorbance({"red": 2.0e-5, "blue": -0.5e-5})})
     library = write_library_file(tmp_path / "lib.nc")
     out = tmp_path / "results.csv"
-    run = CliRunner().invoke(main, ["unmix", str(library), str(spectra), "--method", "ols",
-                                    "--out", str(out)])
+    run = cli("unmix", library, spectra, "--method", "ols", "--out", out)
     assert run.exit_code == 0, run.output
     rows = csv_cells(out)
     assert_no_formula_text(rows)
@@ -244,12 +240,11 @@ def test_cli_unmix_formula_sample_keeps_negative_numbers_and_round_trips(tmp_pat
     assert list(reference["sample"]) == ["=cmd", "=cmd", "-odd", "-odd"]
 
 
-def test_cli_instrument_log_with_formula_names(tmp_path):
+def test_cli_instrument_log_with_formula_names(tmp_path, cli):
     """A spectra file and column whose names begin with '=' and '@' reach the log quoted."""
     spectra = write_wide(tmp_path / "=cmd.csv", {"@k": dichromate(60.0)}, UV)
     log = tmp_path / "log.csv"
-    run = CliRunner().invoke(main, ["instrument", "absorbance", str(spectra),
-                                    "--concentration", "60", "--log", str(log)])
+    run = cli("instrument", "absorbance", spectra, "--concentration", "60", "--log", log)
     assert run.exit_code == 0, run.output
     rows = csv_cells(log)
     assert_no_formula_text(rows)

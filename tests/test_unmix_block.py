@@ -128,7 +128,7 @@ def test_concurrent_calls_restore_the_blas_threads(spectra, molar_library,
                                                    monkeypatch) -> None:
     """Blocks running in several threads at once limit BLAS to one thread while they run
     and leave it as they found it (threadpoolctl's view), whatever order they end in."""
-    import threading
+    from concurrent.futures import ThreadPoolExecutor
 
     from threadpoolctl import threadpool_info
 
@@ -139,10 +139,8 @@ def test_concurrent_calls_restore_the_blas_threads(spectra, molar_library,
         return [i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"]
 
     before = blas_threads()
-    runs = [threading.Thread(target=ms.unmix, args=(spectra, molar_library))
-            for _ in range(4)]
+    with ThreadPoolExecutor(max_workers=4) as pool:
+        runs = [pool.submit(ms.unmix, spectra, molar_library) for _ in range(4)]
     for run in runs:
-        run.start()
-    for run in runs:
-        run.join()
+        run.result()  # re-raises an error raised in the thread
     assert blas_threads() == before

@@ -15,10 +15,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from click.testing import CliRunner
 
 import mixsolve as ms
-from mixsolve.cli import main
 
 # name: (components, {component: (eps at wl1, eps at wl2)}, (wl1, wl2), (A1, A2),
 #        Cramer's values to 4 s.f. (mol/L), the book's printed values (mol/L))
@@ -81,7 +79,7 @@ def test_cramer_values_match_stated_example(name: str) -> None:
 
 
 @pytest.mark.parametrize("name", list(EXAMPLES))
-def test_textbook_example_cli(tmp_path: Path, name: str) -> None:
+def test_textbook_example_cli(tmp_path: Path, name: str, cli) -> None:
     """Harris, Quantitative Chemical Analysis (transferrin/desferrioxamine) and Skoog, West,
     Holler & Crouch, Fundamentals of Analytical Chemistry (Co/Ni): from memory.
 
@@ -91,12 +89,9 @@ def test_textbook_example_cli(tmp_path: Path, name: str) -> None:
     comps, eps, _, absorbance, _, printed = EXAMPLES[name]
     table, spectra = _write_inputs(tmp_path, name)
     lib_path, out = tmp_path / "lib.nc", tmp_path / "r.csv"
-    runner = CliRunner()
-    res = runner.invoke(main, ["library", "import", str(table), "--unit", "L/(mol*cm)",
-                               "--out", str(lib_path)])
+    res = cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", lib_path)
     assert res.exit_code == 0, res.output
-    res = runner.invoke(main, ["unmix", str(lib_path), str(spectra), "--method", "ols",
-                               "--out", str(out)])
+    res = cli("unmix", lib_path, spectra, "--method", "ols", "--out", out)
     assert res.exit_code == 0, res.output
     frame = pd.read_csv(out, keep_default_na=False)
     assert {"sample", "component", "concentration", "std_uncertainty", "unit",
