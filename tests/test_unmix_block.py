@@ -108,10 +108,10 @@ def test_one_engine_for_the_whole_job(spectra, molar_library, monkeypatch) -> No
     chunks of 100, above a lowered threshold of 200, are all fitted by compiled code."""
     pytest.importorskip("dask")
     pytest.importorskip("numba")
-    from mixsolve.solve import cls
+    from mixsolve.solve import engine
 
-    monkeypatch.delenv(cls.ENGINE_VARIABLE, raising=False)
-    monkeypatch.setattr(cls, "COMPILED_MIN_SPECTRA", 200)
+    monkeypatch.delenv(engine.ENGINE_VARIABLE, raising=False)
+    monkeypatch.setattr(engine, "COMPILED_MIN_SPECTRA", 200)
     seen = []
     original = block_module.fit_spectra
 

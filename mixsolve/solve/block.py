@@ -27,7 +27,8 @@ from mixsolve.errors import InfiniteReadingError
 from mixsolve.flags import VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
-from mixsolve.solve.cls import Engine, Method, fit_spectra
+from mixsolve.solve.cls import fit_spectra
+from mixsolve.solve.engine import Engine, Method
 from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.sample_checks import lack_of_fit, target_absorbance
 from mixsolve.solve.shift_fit import fit_with_shift
@@ -75,8 +76,8 @@ class BlockSettings:
     unit_factor: np.ndarray  #: (n,) result unit per library concentration unit
     shift_matrix: np.ndarray  #: (n, n) library-unit bias per nm per unit of each component
     tolerance_nm: float  #: wavelength accuracy for the shift_sensitive flag
-    #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.cls.choose_engine`), chosen for the
-    #: whole job so that every block and dask chunk uses the same
+    #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.engine.choose_engine`), chosen for
+    #: the whole job so that every block and dask chunk uses the same
     engine: Engine = "numpy"
     shift_options: dict[str, Any] | None = None  #: :func:`fit_with_shift` options, or None
 

@@ -29,7 +29,7 @@ from mixsolve.solve.block import (
     BlockSettings,
     unmix_block,
 )
-from mixsolve.solve.cls import METHODS, Method, choose_engine, default_threads
+from mixsolve.solve.cls import default_threads
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
@@ -39,6 +39,7 @@ from mixsolve.solve.design import (
     design_matrix,
     select_wavelengths,
 )
+from mixsolve.solve.engine import METHODS, Method, choose_engine
 from mixsolve.solve.model_spectra import fitted_and_residual
 from mixsolve.solve.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
 from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_window
