@@ -344,7 +344,8 @@ def test_mass_unit_without_molar_masses(inputs):
 def test_non_positive_pathlength(tmp_path, inputs, value):
     out = tmp_path / "r.csv"
     result = invoke("unmix", inputs["lib"], inputs["mix"], "--pathlength", value, "--out", out)
-    assert_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a positive "
+    kind = "finite" if value in ("inf", "nan") else "positive"
+    assert_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a {kind} "
                          r"number$")
     assert_nothing_written(out)
 

@@ -51,7 +51,13 @@ from mixsolve.solve.outputs import (
     result_outputs,
 )
 from mixsolve.solve.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
-from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_window
+from mixsolve.spectra import (
+    WAVELENGTH,
+    check_number,
+    check_option,
+    check_spectra,
+    check_window,
+)
 from mixsolve.units import conversion_factor
 
 #: Attributes of the input spectra that must not label the result's variables.
@@ -230,12 +236,11 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
         raise InputError(f"absorbance_range: {low:g}-{high:g} AU must be two increasing "
                          "absorbances above 0, e.g. 0.3-2")
     model = noise_model(noise)
-    tolerance = float(wavelength_tolerance_nm)
-    if not np.isfinite(tolerance) or tolerance < 0:
-        raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm must be a number ≥ 0")
-    max_shift = float(max_shift_nm)
-    if not np.isfinite(max_shift):  # refused even when fit_shift is off
-        raise InputError(f"max_shift_nm: {max_shift:g} nm must be a positive number")
+    tolerance = check_number(wavelength_tolerance_nm, "wavelength_tolerance_nm", "nm")
+    if tolerance < 0:
+        raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm is not a number ≥ 0")
+    # finite even when fit_shift is off; above zero when it is on
+    max_shift = check_number(max_shift_nm, "max_shift_nm", "nm", positive=fit_shift)
     if fit_shift and weights != "none":
         raise InputError("fit_shift: a fitted wavelength shift cannot be combined with "
                          "weights='noise' (the shift search is unweighted); drop one of them")
@@ -320,8 +325,6 @@ def _fit_kind(options: _Options, used_wl: np.ndarray) -> FitKind:
         return PlainFit()
     library, max_shift = options.library, options.max_shift_nm
     grid = library[WAVELENGTH].values
-    if max_shift <= 0:
-        raise InputError(f"max_shift_nm: {max_shift:g} nm must be a positive number")
     if grid.size < 3:
         raise InputError("fit_shift: the library has fewer than 3 wavelengths, so it "
                          "carries no slope to fit a shift with")
@@ -432,7 +435,7 @@ def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
     if pathlength_cm is None:
         pathlength_cm = spectra.attrs.get("pathlength_cm", 1.0)
     b = pathlength_cm if isinstance(pathlength_cm, xr.DataArray) else xr.DataArray(
-        float(pathlength_cm))
+        check_number(pathlength_cm, "pathlength", "cm", positive=True))
     for dim in b.dims:
         # One value per spectrum: every dim must be a spectra dim and cover all its labels,
         # else xarray alignment would silently drop spectra or leave NaN results.
@@ -450,9 +453,9 @@ def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
             raise InputError(f"pathlength: {b.sizes[dim]} value(s) along {dim!r} for "
                              f"{spectra.sizes[dim]} spectra")
     values = np.asarray(b.values, dtype=float)
-    if not np.all(np.isfinite(values)) or np.any(values <= 0):
-        bad = values[~(np.isfinite(values) & (values > 0))].ravel()[0]
-        raise InputError(f"pathlength: {bad:g} cm is not a positive number")
+    bad = values[~(np.isfinite(values) & (values > 0))].ravel()
+    if bad.size:
+        check_number(bad[0], "pathlength", "cm", positive=True)  # raises, naming it
     return b.astype(float).assign_attrs(units="cm")
 
 
