@@ -5,7 +5,7 @@ of the components absent in each spectrum, noise 0.003 AU), N = 10⁴, 10⁵, 10
 Timed, each the best of ``--repeat`` runs in this one process (batched and unconstrained
 interleaved, so that a change in the machine's load affects both):
 
-- ``numpy``: :func:`mixsolve.solve.nnls.nnls_batch` on all N spectra at once, numpy
+- ``numpy``: :func:`mixsolve.solve.batch.nnls_batch` on all N spectra at once, numpy
   engine (the projection is one BLAS product, which uses every core);
 - ``compiled``: the same with ``engine="compiled"`` (numba; projection and solve per
   spectrum in compiled code, the spectra shared by one thread per core), when numba is
@@ -32,8 +32,8 @@ import numpy as np
 from scipy.optimize import nnls
 from threadpoolctl import threadpool_info
 
+from mixsolve.solve.batch import nnls_batch
 from mixsolve.solve.cls import default_threads
-from mixsolve.solve.nnls import nnls_batch
 
 WAVELENGTHS_NM = np.linspace(400.0, 700.0, 300)
 CENTRES_NM = (440.0, 500.0, 560.0, 620.0, 670.0)

@@ -40,7 +40,7 @@ from scipy.optimize import minimize_scalar
 import mixsolve as ms
 import mixsolve.solve.block as unmix_block
 from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, TOO_FEW
-from mixsolve.solve.cls import Fit, _fit, _full_rank, _inverse_diag, fit_spectra, solve_cls
+from mixsolve.solve.cls import Fit, _fit, _full_rank, _inverse_diag, fit_spectra
 from mixsolve.solve.design import design_matrix
 from mixsolve.solve.residuals import ResidualSummary, empty_summary, put, summarise
 
@@ -103,6 +103,12 @@ def old_weighted_fit(spectra: np.ndarray, design: np.ndarray, n_components: int,
     return Fit(coef, std_error, dof, status, ResidualSummary(*summary))
 
 
+def fit_one(row: np.ndarray, d: np.ndarray, n: int, method: Any) -> tuple[np.ndarray, ...]:
+    """coef, std_error, fitted, dof, status of ``row`` (1, m) against one design."""
+    fit = fit_spectra(row, d, n, method)
+    return fit.coef, fit.std_error, fit.coef @ d.T, fit.dof, fit.status
+
+
 def old_fit_with_shift(spectra: np.ndarray, eps: np.ndarray, grid_nm: np.ndarray,
                        wavelengths_nm: np.ndarray, baseline: Any, method: Any,
                        max_shift_nm: float) -> tuple[np.ndarray, ...]:
@@ -118,14 +124,14 @@ def old_fit_with_shift(spectra: np.ndarray, eps: np.ndarray, grid_nm: np.ndarray
         row = a[None, :]
 
         def rss(delta: float, row: np.ndarray = row) -> float:
-            fitted = solve_cls(row, shifted(delta), n, method)[2]
+            fitted = fit_one(row, shifted(delta), n, method)[2]
             value = float(np.nansum((row - fitted) ** 2))
             return value if np.isfinite(value) else np.inf
 
         delta = float(minimize_scalar(rss, bounds=(-max_shift_nm, max_shift_nm),
                                       method="bounded", options={"xatol": 1e-4}).x)
         d = shifted(delta)
-        coef, se, fitted, dof, status = solve_cls(row, d, n, method)
+        coef, se, fitted, dof, status = fit_one(row, d, n, method)
         mask = np.isfinite(a)
         dof_s = int(dof[0]) - 1
         jac = np.stack([np.interp(wavelengths_nm + delta, grid_nm, s) for s in slope],

@@ -32,7 +32,7 @@ from bench_nnls import WAVELENGTHS_NM, best_of, blas_report, design, spectra
 from scipy.optimize import nnls
 
 import mixsolve as ms
-from mixsolve.solve.cls import ENGINE_VARIABLE, choose_engine
+from mixsolve.solve.engine import ENGINE_VARIABLE, choose_engine
 
 
 def library(k: np.ndarray) -> xr.Dataset:

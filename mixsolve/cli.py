@@ -277,7 +277,7 @@ STRAY_LIGHT = "mixsolve.instrument.stray_light:check_stray_light"
 BASELINE_CHOICE = CoreChoice("mixsolve.solve.design:BASELINES")
 
 fit_options = [
-    click.option("--method", type=CoreChoice("mixsolve.solve.cls:METHODS"),
+    click.option("--method", type=CoreChoice("mixsolve.solve.engine:METHODS"),
                  default=CoreDefault(UNMIX, "method"), show_default=True),
     click.option("--baseline", type=BASELINE_CHOICE, default=CoreDefault(UNMIX, "baseline"),
                  show_default=True),

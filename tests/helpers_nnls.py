@@ -2,7 +2,7 @@
 
 The KKT conditions of min ½‖a − Dx‖², x_j ≥ 0 (Lawson & Hanson 1974, from memory; they
 hold for any true minimiser, so they check by internal consistency) with the tolerance
-:mod:`mixsolve.solve.nnls` states: τ = 10·max(m, p)·ε·max(‖a‖, ‖x̂‖) on unit-norm columns.
+:mod:`mixsolve.solve.engine` states: τ = 10·max(m, p)·ε·max(‖a‖, ‖x̂‖) on unit-norm columns.
 """
 
 from __future__ import annotations
@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.optimize import nnls
 
-from mixsolve.solve.nnls import kkt_rtol
+from mixsolve.solve.engine import kkt_rtol
 
 #: (wavelengths, terms, spectra) of the random problems both solvers are checked on: a
 #: typical spectrum, short and few-wavelength designs, one component, ten components.

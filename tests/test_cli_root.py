@@ -209,7 +209,7 @@ def test_each_command_help_shows_the_core_defaults_and_choices(path, command):
 
 def test_the_choices_are_the_cores_tuples():
     from mixsolve.plate.wells import PLATE_SHAPES
-    from mixsolve.solve.cls import METHODS
+    from mixsolve.solve.engine import METHODS
     from mixsolve.solve.design import BASELINES
 
     params = {p.name: p for p in dict(COMMANDS)[("plate",)].params}

@@ -272,7 +272,7 @@ def test_unmix_fit_shift_window_outside_the_library_is_a_clean_error(files, cli)
                      literal=True)
     assert_cli_error(cli("unmix", files["lib"], files["shifted"], "--fit-shift",
                          "--max-shift", "0"),
-                     "max_shift_nm: 0 nm must be a positive number", literal=True)
+                     "max_shift_nm: 0 nm is not a positive number", literal=True)
 
 
 def test_unmix_range_flags_through_the_cli(files, tmp_path, cli):
@@ -317,7 +317,7 @@ def test_unmix_noise_weights_through_the_cli(files, tmp_path, cli):
     (("--noise", "-0.001"), "noise: σ_A = -0.001 AU must be a positive number"),
     (("--range", "0-2"), "absorbance_range: 0-2 AU must be two increasing absorbances above 0"),
     (("--range", "abc"), "--range: 'abc' is not LOW-HIGH"),
-    (("--wavelength-tolerance", "-1"), "wavelength_tolerance_nm: -1 nm must be a number ≥ 0"),
+    (("--wavelength-tolerance", "-1"), "wavelength_tolerance_nm: -1 nm is not a number ≥ 0"),
 ])
 def test_unmix_bad_trust_options_exit_2_with_one_error_line(files, args, match, cli):
     """User mistakes in the trust options: exit 2, one ``error:`` line, no traceback."""

@@ -316,7 +316,8 @@ def test_mass_unit_without_molar_masses(inputs, cli):
 def test_non_positive_pathlength(tmp_path, inputs, value, cli):
     out = tmp_path / "r.csv"
     result = cli("unmix", inputs["lib"], inputs["mix"], "--pathlength", value, "--out", out)
-    assert_cli_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a positive "
+    kind = "finite" if value in ("inf", "nan") else "positive"
+    assert_cli_error(result, rf"^error: pathlength: -?{value.lstrip('-')} cm is not a {kind} "
                              r"number$")
     assert_nothing_written(out)
 

@@ -3,7 +3,7 @@
 References (CHECKS.md, "Non-negative least squares"): ``scipy.optimize.nnls`` (Lawson &
 Hanson 1974, ch. 23) and ``scipy.optimize.lsq_linear`` (bounded least squares, for free
 baseline terms) per spectrum, ``numpy.linalg.lstsq`` for OLS; the KKT conditions with the
-tolerance mixsolve.solve.nnls states (tests/helpers_nnls.py). The residual summaries are
+tolerance mixsolve.solve.engine states (tests/helpers_nnls.py). The residual summaries are
 checked against their definitions evaluated here on explicit residuals, and the compiled
 engine against the numpy engine (both must give the same minimiser). Problems are
 invented and seeded. Skipped where numba is not installed.
@@ -19,8 +19,10 @@ from scipy.optimize import lsq_linear
 
 import mixsolve as ms
 from mixsolve.errors import InputError
-from mixsolve.solve import cls
-from mixsolve.solve.cls import ENGINE_VARIABLE, choose_engine, fit_spectra
+from mixsolve.solve import cls, engine
+from mixsolve.solve.batch import nnls_batch
+from mixsolve.solve.cls import fit_spectra
+from mixsolve.solve.engine import ENGINE_VARIABLE, choose_engine
 
 pytest.importorskip("numba")
 
@@ -157,7 +159,7 @@ def test_rows_at_the_iteration_limit_are_finished_by_numpy(
         args = list(args)
         args[11] = 0  # max_iter
         original(*args)
-        limited.append(int(np.sum(args[-1] == cls.ROW_ITERATION_LIMIT)))
+        limited.append(int(np.sum(args[-1] == engine.ROW_ITERATION_LIMIT)))
 
     monkeypatch.setattr(fused, "fit_rows", no_iterations)
     got = fit_spectra(spectra, design, 5, "nnls", engine="compiled").coef
@@ -208,8 +210,8 @@ def test_engine_choice(monkeypatch: pytest.MonkeyPatch) -> None:
     """auto: compiled from COMPILED_MIN_SPECTRA spectra; MIXSOLVE_ENGINE forces either;
     anything else there is refused in one line."""
     monkeypatch.delenv(ENGINE_VARIABLE, raising=False)
-    assert choose_engine("auto", cls.COMPILED_MIN_SPECTRA) == "compiled"
-    assert choose_engine("auto", cls.COMPILED_MIN_SPECTRA - 1) == "numpy"
+    assert choose_engine("auto", engine.COMPILED_MIN_SPECTRA) == "compiled"
+    assert choose_engine("auto", engine.COMPILED_MIN_SPECTRA - 1) == "numpy"
     assert choose_engine("numpy", 10**6) == "numpy"
     monkeypatch.setenv(ENGINE_VARIABLE, "numpy")
     assert choose_engine("auto", 10**6) == "numpy"
@@ -223,7 +225,7 @@ def test_engine_choice(monkeypatch: pytest.MonkeyPatch) -> None:
 
 def test_compiled_engine_without_numba(monkeypatch: pytest.MonkeyPatch) -> None:
     """Without numba, auto falls back to numpy and an explicit request says what to install."""
-    monkeypatch.setitem(__import__("sys").modules, "mixsolve.solve.fused", None)
+    monkeypatch.setitem(__import__("sys").modules, "numba", None)
     monkeypatch.delenv(ENGINE_VARIABLE, raising=False)
     assert choose_engine("auto", 10**6) == "numpy"
     with pytest.raises(InputError, match=r"the compiled engine needs numba, which is not "
@@ -248,9 +250,9 @@ def test_unmix_gives_the_same_result_with_either_engine(
     values[7, 11] = np.nan
     spectra = ms.make_spectra(values, wl)
     results = {}
-    for engine in ("numpy", "compiled"):
-        monkeypatch.setenv(ENGINE_VARIABLE, engine)
-        results[engine] = ms.unmix(spectra, lib, baseline="offset", noise=0.003)
+    for which in ("numpy", "compiled"):
+        monkeypatch.setenv(ENGINE_VARIABLE, which)
+        results[which] = ms.unmix(spectra, lib, baseline="offset", noise=0.003)
     a, b = results["numpy"], results["compiled"]
     for name in ("concentration", "std_uncertainty", "rms_residual", "runs_z",
                  "lack_of_fit_ratio", "shift_bias_per_nm"):
@@ -265,8 +267,6 @@ def test_unmix_gives_the_same_result_with_either_engine(
 def test_nnls_batch_compiled_matches_scipy(rng: np.random.Generator) -> None:
     """nnls_batch with the compiled engine, split among threads: scipy's minimiser, KKT
     within τ; rows at the iteration limit are finished by the numpy steps."""
-    from mixsolve.solve.nnls import nnls_batch
-
     design, spectra = problem(rng, 70, 5, 600)
     sol = nnls_batch(design, spectra, 5, engine="compiled", threads=3)
     want = scipy_loop(design, spectra)

@@ -1,10 +1,11 @@
-"""The batched NNLS solver (mixsolve.solve.nnls): KKT conditions and scipy.optimize.nnls.
+"""The batched NNLS solver (mixsolve.solve.nnls, through mixsolve.solve.batch.nnls_batch):
+KKT conditions and scipy.optimize.nnls.
 
 References (CHECKS.md, "Non-negative least squares"): ``scipy.optimize.nnls`` (Lawson &
 Hanson 1974, ch. 23) and ``scipy.optimize.lsq_linear`` (BVLS, for free terms) are run
 here as reference implementations. The KKT conditions of min ½‖a − Dx‖², x_j ≥ 0
 (Lawson & Hanson, from memory; they hold for any true minimiser, so they check by
-internal consistency) are tested with the tolerance the module states:
+internal consistency) are tested with the tolerance mixsolve.solve.engine states:
 τ = 10·max(m, p)·ε·max(‖a‖, ‖x̂‖) on unit-norm columns. All problems are invented and
 seeded.
 """
@@ -18,7 +19,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import lsq_linear
 
-from mixsolve.solve.nnls import nnls_batch, nnls_free
+from mixsolve.solve.batch import nnls_batch
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -53,8 +54,6 @@ def test_free_columns_match_bounded_least_squares(rng: np.random.Generator,
                                  tol=1e-14).x for a in spectra])
     np.testing.assert_allclose(sol.x, want, rtol=1e-6, atol=1e-8)
     assert kkt_ratio(full, spectra, sol.x, p) <= 1.0
-    c, beta = nnls_free(design, free, spectra)  # the old signature, same answer
-    np.testing.assert_allclose(np.hstack([c, beta]), sol.x, rtol=0, atol=0)
 
 
 def test_zero_spectra_give_zero(rng: np.random.Generator) -> None:

@@ -370,6 +370,21 @@ def test_pathlength_per_sample_by_label(molar_library: xr.Dataset,
     np.testing.assert_allclose(_conc(result), CONC / np.array([[0.5], [2.0]]), rtol=1e-9)
 
 
+@pytest.mark.parametrize(("value", "message"), [
+    ("long", r"pathlength: 'long' is not a number"),
+    (0.0, r"pathlength: 0 cm is not a positive number"),
+    (float("inf"), r"pathlength: inf cm is not a finite number"),
+    (xr.DataArray([1.0, -2.0], dims="sample"), r"pathlength: -2 cm is not a positive number"),
+    (xr.DataArray([np.nan, 1.0], dims="sample"), r"pathlength: nan cm is not a finite number"),
+])
+def test_pathlength_that_is_not_a_positive_number(molar_library: xr.Dataset,
+                                                  mix_spectra: MixFactory, value: object,
+                                                  message: str) -> None:
+    """One value or one per spectrum, the same one-line refusal naming the value."""
+    with pytest.raises(InputError, match=rf"^{message}$"):
+        ms.unmix(mix_spectra(CONC), molar_library, pathlength_cm=value)
+
+
 def test_pathlength_per_sample_must_cover_spectra(molar_library: xr.Dataset,
                                                   mix_spectra: MixFactory) -> None:
     """A pathlength array lacking a sample, or on a foreign dimension, is refused (not

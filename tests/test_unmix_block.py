@@ -18,7 +18,8 @@ import xarray as xr
 import mixsolve as ms
 from mixsolve.errors import InputError
 from mixsolve.solve import block as block_module
-from mixsolve.solve.block import OUTPUTS, unmix_block
+from mixsolve.solve.block import PlainFit, ShiftFit, WeightedFit, unmix_block
+from mixsolve.solve.outputs import kernel_outputs, result_outputs
 
 
 @pytest.fixture
@@ -56,12 +57,37 @@ def test_tasks_and_threads_do_not_change_the_result(spectra, molar_library, monk
     whole = unmix_block(values, np.ones(1), dataclasses.replace(settings, threads=1))
     monkeypatch.setattr(block_module, "TASK_SPECTRA", 37)
     cut = unmix_block(values, np.ones(1), dataclasses.replace(settings, threads=threads))
-    for name, a, b in zip(OUTPUTS, whole, cut, strict=True):
+    names = [o.name for o in kernel_outputs(shift=False)]
+    for name, a, b in zip(names, whole, cut, strict=True):
         if a.dtype.kind == "f":
             np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-15, equal_nan=True,
                                        err_msg=name)
         else:
             np.testing.assert_array_equal(a, b, err_msg=name)
+
+
+@pytest.mark.parametrize(("options", "kind"), [
+    ({}, PlainFit), ({"weights": "noise", "noise": 0.004}, WeightedFit),
+    ({"fit_shift": True, "window": (420, 680)}, ShiftFit)])
+def test_the_result_is_built_from_the_output_descriptions(spectra, molar_library,
+                                                          monkeypatch, options, kind) -> None:
+    """The fit asked for reaches the kernel as its typed kind; the result holds exactly
+    the described variables, in their order, with their dims, dtypes and units; unmix's
+    docstring lists each one."""
+    _, settings = settings_of(spectra, molar_library, monkeypatch, **options)
+    assert type(settings.fit) is kind
+    result = ms.unmix(spectra, molar_library, unit="µmol/L", baseline="offset", **options)
+    described = result_outputs(shift=kind is ShiftFit)
+    assert list(result.data_vars) == [o.name for o in described]
+    for o in described:
+        var = result[o.name]
+        assert var.dims[len(var.dims) - len(o.dims):] == o.dims, o.name
+        assert var.dtype == np.dtype(o.dtype), o.name
+        want = None if o.unit is None else o.unit.format(unit="µmol/L")
+        assert var.attrs.get("units") == want, o.name
+        assert f"``{o.name}``" in ms.unmix.__doc__
+    assert result["concentration"].attrs == {"units": "µmol/L"}
+    assert result["suggested_dilution"].attrs["meaning"].startswith("dilution factor")
 
 
 def test_tasks_are_equal_and_a_multiple_of_the_threads() -> None:
@@ -108,10 +134,10 @@ def test_one_engine_for_the_whole_job(spectra, molar_library, monkeypatch) -> No
     chunks of 100, above a lowered threshold of 200, are all fitted by compiled code."""
     pytest.importorskip("dask")
     pytest.importorskip("numba")
-    from mixsolve.solve import cls
+    from mixsolve.solve import engine
 
-    monkeypatch.delenv(cls.ENGINE_VARIABLE, raising=False)
-    monkeypatch.setattr(cls, "COMPILED_MIN_SPECTRA", 200)
+    monkeypatch.delenv(engine.ENGINE_VARIABLE, raising=False)
+    monkeypatch.setattr(engine, "COMPILED_MIN_SPECTRA", 200)
     seen = []
     original = block_module.fit_spectra
 

@@ -34,8 +34,8 @@ from mixsolve.plate.wells import (
     subtract_blank,
     water_band_pathlength,
 )
-from mixsolve.solve.cls import Method
 from mixsolve.solve.design import Baseline
+from mixsolve.solve.engine import Method
 from mixsolve.solve.unmix import unmix
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
 

@@ -12,7 +12,7 @@ from typing import Literal
 
 import numpy as np
 
-from mixsolve.solve.cls import solve_cls
+from mixsolve.solve.cls import fit_spectra
 
 #: CLS/PLS RMSECV ratio above which PLS is clearly better (our rule of thumb).
 CLEARLY_BETTER = 1.5
@@ -47,14 +47,14 @@ def cls_cross_validate(x: np.ndarray, y: np.ndarray, fold: np.ndarray
     Notes
     -----
     K = argmin ‖A − C K‖ by ``numpy.linalg.lstsq`` (through the origin, AU per unit of
-    concentration), then ordinary least squares with :func:`mixsolve.solve.cls.solve_cls`.
+    concentration), then ordinary least squares with :func:`mixsolve.solve.cls.fit_spectra`.
     """
     def fit_predict(train: np.ndarray, spectra: np.ndarray) -> np.ndarray:
         c = y[train]
         if np.linalg.matrix_rank(c) < c.shape[1]:
             return np.full((spectra.shape[0], y.shape[1]), np.nan)
         k_matrix = np.linalg.lstsq(c, x[train], rcond=None)[0]  # (n_y, n_wl), AU per unit
-        return solve_cls(spectra, k_matrix.T, y.shape[1], "ols")[0]
+        return fit_spectra(spectra, k_matrix.T, y.shape[1], "ols").coef
 
     cv = np.empty(y.shape)
     for f in np.unique(fold):

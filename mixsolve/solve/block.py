@@ -1,12 +1,14 @@
 """Everything :func:`mixsolve.unmix` computes per spectrum, for one block of spectra.
 
 :func:`unmix_block` works on plain arrays (wavelength on the last axis) and returns every
-per-spectrum variable of the result in final units: the fit (:mod:`mixsolve.solve.cls`,
-or the shift fit of :mod:`mixsolve.solve.shift_fit`), concentrations and uncertainties,
-the trust figures and status bits (:mod:`mixsolve.solve.trust`), the shift bias and
-the flag strings. ``unmix`` runs it once under ``xarray.apply_ufunc``: on the whole array
-for numpy-backed spectra, chunk by chunk for dask-backed ones. Keeping all of it in one
-function keeps the data to one pass and the result to one set of labelled variables.
+per-spectrum variable of the result in final units (described in
+:mod:`mixsolve.solve.outputs`): the fit chosen by :data:`FitKind` (the plain or weighted
+fit of :mod:`mixsolve.solve.cls`, or the shift fit of :mod:`mixsolve.solve.shift_fit`),
+concentrations and uncertainties, the trust figures and status bits
+(:mod:`mixsolve.solve.trust`), the shift bias and the flag strings. ``unmix`` runs it
+once under ``xarray.apply_ufunc``: on the whole array for numpy-backed spectra, chunk by
+chunk for dask-backed ones. Keeping all of it in one function keeps the data to one pass
+and the result to one set of labelled variables.
 """
 
 from __future__ import annotations
@@ -18,16 +20,19 @@ import threading
 from collections.abc import Iterator
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
-from typing import Any, NamedTuple
+from typing import Any, Literal, NamedTuple
 
 import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from mixsolve.errors import InfiniteReadingError
-from mixsolve.flags import VLEN_STR, flag_texts
+from mixsolve.flags import flag_texts
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
-from mixsolve.solve.cls import Engine, Method, fit_spectra
+from mixsolve.solve.cls import fit_spectra
+from mixsolve.solve.design import Baseline
+from mixsolve.solve.engine import Method
+from mixsolve.solve.outputs import TERM, kernel_outputs
 from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.sample_checks import lack_of_fit, target_absorbance
 from mixsolve.solve.shift_fit import fit_with_shift
@@ -39,25 +44,37 @@ from mixsolve.solve.trust import (
 )
 from mixsolve.spectra import WAVELENGTH
 
-TERM = "term"
-#: Outputs of :func:`unmix_block`, in order, with their core dims (none: one value per
-#: spectrum). ``coef`` holds the fitted coefficients (concentration × pathlength in the
-#: library's unit, AU, AU/nm), from which the fitted spectra are computed.
-OUTPUTS: dict[str, tuple[str, ...]] = {
-    "coef": (TERM,), "concentration": (COMPONENT,), "std_uncertainty": (COMPONENT,),
-    "at_zero": (COMPONENT,), "shift_bias_per_nm": (COMPONENT,), "rms_residual": (),
-    "dof": (), "status": (), **{name: () for name in CHECK_NAMES},
-    "suggested_dilution": (), "flags": (),
-}
-#: Extra outputs of the shift fit (one design per spectrum, so its fitted and residual
-#: spectra too).
-SHIFT_OUTPUTS: dict[str, tuple[str, ...]] = {
-    "wavelength_shift_nm": (), "u_wavelength_shift_nm": (), "fitted": (WAVELENGTH,),
-    "residual": (WAVELENGTH,)}
 #: Spectra per task when several threads share a block.
 TASK_SPECTRA = 8192
-DTYPES: dict[str, Any] = {"dof": np.int64, "status": np.int64, "at_zero": bool,
-                          "flags": VLEN_STR}
+
+
+@dataclass(frozen=True)
+class PlainFit:
+    """The fit of every spectrum against the library's design, all readings alike."""
+
+
+@dataclass(frozen=True)
+class WeightedFit:
+    """Two passes: the second weights each reading by 1/σ_A² of ``noise``, evaluated at
+    the fitted absorbance of the first (unweighted) pass."""
+
+    noise: NoiseModel
+
+
+@dataclass(frozen=True, eq=False)
+class ShiftFit:
+    """One wavelength offset per spectrum fitted with the concentrations
+    (:func:`mixsolve.solve.shift_fit.fit_with_shift`)."""
+
+    eps: np.ndarray  #: (n_components, n_grid) library absorptivity on its own grid
+    grid_nm: np.ndarray  #: (n_grid,) the library's wavelengths
+    wavelengths_nm: np.ndarray  #: (m,) the used wavelengths
+    baseline: Baseline
+    max_shift_nm: float  #: bound of the search (nm)
+
+
+#: The choice of fit of one unmix call.
+FitKind = PlainFit | WeightedFit | ShiftFit
 
 
 @dataclass(frozen=True)
@@ -67,23 +84,23 @@ class BlockSettings:
     design: np.ndarray  #: (m, p) absorptivity columns at 1 cm, then baseline columns
     components: list[str]
     method: Method
-    noise: NoiseModel | None
-    weighted: bool  #: two-pass fit weighted by 1/σ_A² of ``noise``
+    noise: NoiseModel | None  #: for the lack-of-fit figures (None: not computed)
+    fit: FitKind
     threads: int  #: threads sharing a block (1 when dask's threads run the blocks)
     absorbance_range: tuple[float, float]  #: AU
     design_status: int  #: status bits that hold for every spectrum (ill conditioning)
     unit_factor: np.ndarray  #: (n,) result unit per library concentration unit
     shift_matrix: np.ndarray  #: (n, n) library-unit bias per nm per unit of each component
     tolerance_nm: float  #: wavelength accuracy for the shift_sensitive flag
-    #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.cls.choose_engine`), chosen for the
-    #: whole job so that every block and dask chunk uses the same
-    engine: Engine = "numpy"
-    shift_options: dict[str, Any] | None = None  #: :func:`fit_with_shift` options, or None
+    #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.engine.choose_engine`), chosen for
+    #: the whole job so that every block and dask chunk uses the same
+    engine: Literal["numpy", "compiled"] = "numpy"
 
 
 def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
                 ) -> tuple[np.ndarray, ...]:
-    """All per-spectrum outputs of one block, in ``OUTPUTS`` (then ``SHIFT_OUTPUTS``) order.
+    """All per-spectrum outputs of one block, in the order of
+    :func:`mixsolve.solve.outputs.kernel_outputs`.
 
     Parameters
     ----------
@@ -112,17 +129,17 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     flat = spectra.reshape(-1, m)
     b = np.broadcast_to(np.asarray(pathlength_cm, dtype=float), lead).reshape(-1)
     n_spec = flat.shape[0]
-    names = {**OUTPUTS, **(SHIFT_OUTPUTS if settings.shift_options is not None else {})}
+    described = kernel_outputs(isinstance(settings.fit, ShiftFit))
     sizes = {TERM: settings.design.shape[1], COMPONENT: len(settings.components),
              WAVELENGTH: m}
-    outputs = [np.empty((n_spec, *(sizes[d] for d in dims)), dtype=DTYPES.get(name, float))
-               for name, dims in names.items()]
+    outputs = {o.name: np.empty((n_spec, *(sizes[d] for d in o.dims)), dtype=o.dtype)
+               for o in described}
     texts: dict[object, str] = {}
 
     def store(rows: slice, fitted: _Fitted) -> None:
-        for out, value in zip(outputs, _outputs_of(fitted, b[rows], settings, texts),
-                              strict=True):
-            out[rows] = value
+        values = _outputs_of(fitted, b[rows], settings, texts)
+        for name, out in outputs.items():
+            out[rows] = values[name]
 
     def fit(rows: slice) -> _Fitted:
         try:
@@ -143,7 +160,7 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     else:
         for rows in tasks:
             store(rows, fit(rows))
-    return tuple(out.reshape((*lead, *out.shape[1:])) for out in outputs)
+    return tuple(out.reshape((*lead, *out.shape[1:])) for out in outputs.values())
 
 
 @functools.cache
@@ -199,34 +216,38 @@ class _Fitted(NamedTuple):
     status: np.ndarray
     summary: ResidualSummary
     lack: tuple[np.ndarray, np.ndarray] | None  #: lack-of-fit ratio and p (noise model)
-    extra: tuple[np.ndarray, ...]  #: the shift fit's shift, u(shift), fitted, residual
+    #: the shift fit's outputs: shift, u(shift), fitted and residual spectra, by name
+    extra: dict[str, np.ndarray]
 
 
 def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     """Fit spectra (n, m): the plain, weighted or shift fit, and the lack-of-fit figures."""
     n = len(settings.components)
-    if settings.shift_options is not None:
+    kind = settings.fit
+    if isinstance(kind, ShiftFit):
         coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
-            spectra, **settings.shift_options)
+            spectra, kind.eps, kind.grid_nm, kind.wavelengths_nm, kind.baseline,
+            settings.method, kind.max_shift_nm)
         residual = spectra - fitted
         lack = None if settings.noise is None else lack_of_fit(
             residual, fitted, dof, settings.noise)
         return _Fitted(coef, se, dof, status, summarise(spectra, residual), lack,
-                       (shift, u_shift, fitted, residual))
+                       {"wavelength_shift_nm": shift, "u_wavelength_shift_nm": u_shift,
+                        "fitted": fitted, "residual": residual})
     fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine)
-    if settings.weighted and settings.noise is not None:
+    if isinstance(kind, WeightedFit):
         first = fit.coef @ settings.design.T
         at = np.where(np.isfinite(first), first, spectra)
-        weights = 1.0 / settings.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
+        weights = 1.0 / kind.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
         fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights)
     lack = None if settings.noise is None else lack_of_fit_model(
         spectra, fit.coef, settings.design, fit.dof, settings.noise)
-    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, ())
+    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
 
 
 def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
-                texts: dict[object, str]) -> tuple[np.ndarray, ...]:
-    """The outputs (``OUTPUTS`` order) of one task's fit; b (n,) pathlengths in cm."""
+                texts: dict[object, str]) -> dict[str, np.ndarray]:
+    """The kernel's outputs of one task's fit, by name; b (n,) pathlengths in cm."""
     n = len(settings.components)
     rms = fit.summary.rms()
     checks = summary_checks(fit.summary, fit.lack)
@@ -244,5 +265,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     flags = flag_texts(status, at_zero, conc, u_conc, bias, settings.components,
                        ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
                        known=texts)
-    return (fit.coef, conc, u_conc, at_zero, bias, rms, fit.dof, status, *checks, dilution,
-            flags, *fit.extra)
+    return {"coef": fit.coef, "concentration": conc, "std_uncertainty": u_conc,
+            "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,
+            "dof": fit.dof, "status": status, **dict(zip(CHECK_NAMES, checks, strict=True)),
+            "suggested_dilution": dilution, "flags": flags, **fit.extra}

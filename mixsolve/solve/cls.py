@@ -11,7 +11,9 @@ and the residual summary. Two engines do this and agree to rounding: numpy (alwa
 available; :mod:`mixsolve.solve.nnls`) and compiled code (:mod:`mixsolve.solve.fused`,
 when numba is installed, for batches of at least ``COMPILED_MIN_SPECTRA`` spectra); the
 environment variable ``MIXSOLVE_ENGINE`` (``numpy`` or ``compiled``) forces one
-(:func:`choose_engine`). The caller splits a large batch among threads. Spectra with
+(:func:`mixsolve.solve.engine.choose_engine`, which also holds the row states, the KKT
+tolerance and the iteration limit both engines share). The caller splits a large batch
+among threads. Spectra with
 missing readings (NaN) are fitted on the wavelengths they have, grouped by their pattern
 of missing values so that each pattern is solved once. Weighted fits give every spectrum
 its own design (rows scaled by √w), solved for all spectra at once by
@@ -23,14 +25,25 @@ from __future__ import annotations
 import functools
 import os
 import threading
-from typing import Any, Literal, NamedTuple
+from typing import Any, NamedTuple
 
 import numpy as np
 from scipy.linalg import solve_triangular
 
-from mixsolve.errors import InfiniteReadingError, InputError
+from mixsolve.errors import InfiniteReadingError
 from mixsolve.flags import DEPENDENT, MISSING, NO_DOF, STATUS_CODES, TOO_FEW
-from mixsolve.solve.nnls import kkt_rtol, nnls_batch, solve_reduced
+from mixsolve.solve.batch import compiled_engine, nnls_batch
+from mixsolve.solve.engine import (
+    ROW_DONE,
+    ROW_ITERATION_LIMIT,
+    ROW_NOT_FINITE,
+    Engine,
+    Method,
+    choose_engine,
+    iteration_limit,
+    kkt_rtol,
+)
+from mixsolve.solve.nnls import solve_reduced
 from mixsolve.solve.per_spectrum import block_spectra, fit_each
 from mixsolve.solve.residuals import (
     ResidualSummary,
@@ -40,24 +53,8 @@ from mixsolve.solve.residuals import (
     summarise_model,
 )
 
-Method = Literal["ols", "nnls"]
-Engine = Literal["auto", "numpy", "compiled"]
-METHODS: tuple[str, ...] = ("nnls", "ols")
-ENGINES: tuple[str, ...] = ("auto", "numpy", "compiled")
-#: Environment variable that forces an engine (``numpy`` or ``compiled``).
-ENGINE_VARIABLE = "MIXSOLVE_ENGINE"
-#: Smallest job for which ``auto`` uses compiled code. Loading the compiled functions
-#: costs a process about 0.5 s (the first time ever, compiling them about 3 s); numpy
-#: fits ~10⁴ spectra in a few tens of ms, so small jobs (plates, tables) stay with numpy.
-COMPILED_MIN_SPECTRA = 10_000
-#: States of a row after the pass over complete spectra (also used by the compiled pass).
-ROW_DONE = 0
-ROW_NOT_FINITE = 1  #: a reading is missing or infinite: fitted, or refused, afterwards
-ROW_ITERATION_LIMIT = 2  #: NNLS not done within its iterations: the numpy solver finishes
-
-__all__ = ["DEPENDENT", "ENGINES", "METHODS", "MISSING", "NO_DOF", "STATUS_CODES", "TOO_FEW",
-           "Fit", "choose_engine", "default_threads", "fit_spectra", "refuse_infinity",
-           "solve_cls"]
+__all__ = ["DEPENDENT", "MISSING", "NO_DOF", "STATUS_CODES", "TOO_FEW", "Fit",
+           "default_threads", "fit_spectra", "refuse_infinity"]
 
 
 class Fit(NamedTuple):
@@ -76,22 +73,6 @@ def default_threads() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:  # not on Linux
         return max(1, os.cpu_count() or 1)
-
-
-def solve_cls(
-    spectra: np.ndarray,
-    design: np.ndarray,
-    n_components: int,
-    method: Method,
-    weights: np.ndarray | None = None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Fit every spectrum and return ``coef, std_error, fitted, dof, status``.
-
-    As :func:`fit_spectra`, plus the fitted spectra D·coef (..., n_wavelengths), for
-    callers that need them whole (small batches).
-    """
-    fit = fit_spectra(spectra, design, n_components, method, weights)
-    return fit.coef, fit.std_error, fit.coef @ design.T, fit.dof, fit.status
 
 
 def fit_spectra(
@@ -120,7 +101,7 @@ def fit_spectra(
         (:func:`mixsolve.solve.per_spectrum.fit_each`, all spectra at once), and
         s² = Σ wᵢrᵢ²/(n − p) (so u stays in concentration units).
     engine : {"auto", "numpy", "compiled"}
-        Who fits the complete spectra (:func:`choose_engine`).
+        Who fits the complete spectra (:func:`mixsolve.solve.engine.choose_engine`).
 
     Returns
     -------
@@ -142,9 +123,9 @@ def fit_spectra(
     Notes
     -----
     ``ols``: least squares through the QR factorisation of the column-scaled design.
-    ``nnls``: fast combinatorial active-set NNLS (:func:`mixsolve.solve.nnls.nnls_batch`,
-    or its compiled twin :mod:`mixsolve.solve.fused`) with the baseline columns free,
-    checked against ``scipy.optimize.nnls``.
+    ``nnls``: fast combinatorial active-set NNLS (:mod:`mixsolve.solve.nnls`, or its
+    compiled twin :mod:`mixsolve.solve.fused`) with the baseline columns free, checked
+    against ``scipy.optimize.nnls``.
     """
     spectra = np.asarray(spectra, dtype=float)
     lead = spectra.shape[:-1]
@@ -248,7 +229,7 @@ class _Plan:
         self.ols = method == "ols"
         self.constrained = np.zeros(p, dtype=bool) if self.ols else np.arange(p) < n_components
         self.rtol = kkt_rtol(m, p)
-        self.max_iter = 10 * p + 10
+        self.max_iter = iteration_limit(p)
         self.inverse_diag = _inverse_diag(design)
         self._kernel: Any = None
         self._lock = threading.Lock()
@@ -320,39 +301,9 @@ def _numpy_pass(values: np.ndarray, plan: _Plan, out: _Outputs, state: np.ndarra
     put(out.summary, target, summarise_model(values, coef, plan.design))
 
 
-def choose_engine(engine: Engine, n_spectra: int) -> str:
-    """``numpy`` or ``compiled``: who fits a batch of ``n_spectra`` complete spectra.
-
-    ``auto`` reads ``MIXSOLVE_ENGINE`` first; without it, compiled code when numba is
-    installed and the batch holds at least ``COMPILED_MIN_SPECTRA`` spectra.
-
-    Raises
-    ------
-    InputError
-        ``compiled`` asked for without numba, or ``MIXSOLVE_ENGINE`` set to something else.
-    """
-    choice = engine
-    if choice == "auto":
-        forced = os.environ.get(ENGINE_VARIABLE, "").strip().lower()
-        if forced and forced not in ("numpy", "compiled"):
-            raise InputError(f"{ENGINE_VARIABLE}: {forced!r} is not 'numpy' or 'compiled'")
-        choice = forced or "auto"  # type: ignore[assignment]
-    if choice == "numpy" or (choice == "auto" and n_spectra < COMPILED_MIN_SPECTRA):
-        return "numpy"
-    try:
-        import mixsolve.solve.fused  # noqa: F401
-    except ImportError:
-        if choice == "compiled":
-            raise InputError("the compiled engine needs numba, which is not installed: "
-                             "pip install 'mixsolve[fast]'") from None
-        return "numpy"
-    return "compiled"
-
-
 def _compiled_kernel(plan: _Plan) -> Any:
     """The compiled fit of a batch, or None where it does not apply (then numpy fits)."""
-    from mixsolve.solve import fused
-
+    fused = compiled_engine()
     tables = fused.solver_tables(plan.r, plan.constrained)
     if tables is None:
         return None

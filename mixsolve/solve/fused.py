@@ -1,8 +1,9 @@
 """Compiled one-pass fit of many spectra: projection, NNLS or OLS, residual summary.
 
-Optional: this module needs numba (``pip install 'mixsolve[fast]'``); without it
-:mod:`mixsolve.solve.cls` runs the same method in numpy (:mod:`mixsolve.solve.nnls`).
-Both solve the same problems to the same KKT tolerance and agree to rounding.
+The compiled engine. Optional: this module needs numba (``pip install 'mixsolve[fast]'``);
+without it the same method runs in numpy (:mod:`mixsolve.solve.nnls`). Both solve the same
+problems to the KKT tolerance of :mod:`mixsolve.solve.engine` and agree to rounding;
+:mod:`mixsolve.solve.cls` and :mod:`mixsolve.solve.batch` choose between them.
 
 Per spectrum a (a row of the spectra), with D̂ = Q R the QR factorisation of the design
 scaled to unit column norms (computed once, by the caller):
@@ -24,7 +25,8 @@ reassociated (``REORDER``), which changes their last bits but keeps NaN and infi
 
 A row whose projection y is not finite (a missing reading, an infinity, or an overflow)
 is not fitted here: its state is ``ROW_NOT_FINITE`` and the caller fits it another way.
-A row not solved within ``max_iter`` outer iterations gets ``ROW_ITERATION_LIMIT``.
+A row not solved within ``max_iter`` outer iterations gets ``ROW_ITERATION_LIMIT`` (the
+row states and the iteration rule are those of :mod:`mixsolve.solve.engine`).
 """
 
 from __future__ import annotations
@@ -32,7 +34,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-from mixsolve.solve.cls import ROW_DONE, ROW_ITERATION_LIMIT, ROW_NOT_FINITE
+from mixsolve.solve.engine import ROW_DONE, ROW_ITERATION_LIMIT, ROW_NOT_FINITE
 
 #: Largest number of constrained columns handled here (2^k passive sets are precomputed).
 MAX_CONSTRAINED = 10
@@ -330,7 +332,7 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
     qt, rs, cols, size
         :func:`subset_factors`.
     rtol : float
-        Relative KKT tolerance (:func:`mixsolve.solve.nnls.kkt_rtol`).
+        Relative KKT tolerance (:func:`mixsolve.solve.engine.kkt_rtol`).
     max_iter : int
         Outer iterations before giving up on a row.
     ols : bool

@@ -1,10 +1,12 @@
-"""Batched non-negative least squares, some coefficients left free (baseline terms).
+"""The numpy engine: batched non-negative least squares, some coefficients left free.
 
-For every spectrum a (a row of ``spectra``) solve
+For every spectrum a solve
 
     min ‖a − D x‖²   subject to  x_j ≥ 0 for the constrained columns j,
 
-D = [K | B]: absorptivity columns K (constrained) then baseline columns B (free).
+D = [K | B]: absorptivity columns K (constrained) then baseline columns B (free), given
+in reduced form (:func:`solve_reduced`; :func:`mixsolve.solve.batch.nnls_batch` reduces
+a batch and picks the engine).
 
 Method: the fast combinatorial active-set algorithm (Bro & De Jong 1997; Van Benthem &
 Keenan 2004), i.e. Lawson & Hanson's active-set NNLS run on all spectra at once:
@@ -24,40 +26,19 @@ from one QR factorisation of the p × |S| block R[:, S] per distinct S and back
 substitution (backward stable). Free columns stay in P throughout, which treats them
 exactly (it is equivalent to projecting them out).
 
-KKT tolerance: on return, with τ = KKT_RTOL · max(‖a‖₂, ‖x̂‖₂) (x̂ the coefficients of
-the unit-norm columns, w = D̂ᵀ(a − D̂x̂)) and KKT_RTOL = 10 · max(m, p) · ε (m
-wavelengths, ε the float64 machine epsilon): x̂_j ≥ 0 for constrained j; w_j ≤ τ where
-x̂_j = 0; |w_j| ≤ τ where x̂_j > 0 and for free j. The first is enforced, the second is
-the stopping test (on the stricter ‖y‖₂ ≤ ‖a‖₂), the third follows from the stable
-subproblem solves; all three are tested (tests/test_nnls.py: random, degenerate and
-nearly collinear problems). A spectrum not done after ``max_iter`` outer steps
-(rounding-induced cycling; the tests reach it only when forced) is solved by
-``scipy.optimize.nnls`` on its reduced problem.
+The KKT tolerance τ, the iteration limit and the scipy fallback are those of
+:mod:`mixsolve.solve.engine`, shared with the compiled engine (:mod:`mixsolve.solve.fused`)
+and the per-spectrum solver; the conditions are tested in tests/test_nnls.py (random,
+degenerate and nearly collinear problems).
 """
 
 from __future__ import annotations
 
 import itertools
-from concurrent.futures import ThreadPoolExecutor
-from typing import NamedTuple
 
 import numpy as np
-from scipy.optimize import nnls as _scipy_nnls
 
-
-def kkt_rtol(n_wavelengths: int, n_terms: int) -> float:
-    """Relative KKT tolerance 10 · max(m, p) · ε of the batched solver."""
-    return 10.0 * max(n_wavelengths, n_terms, 1) * float(np.finfo(float).eps)
-
-
-class NNLSSolution(NamedTuple):
-    """Coefficients of :func:`nnls_batch` and how they were reached."""
-
-    x: np.ndarray  #: (n_spectra, p) coefficients in the units of ``design``'s columns
-    #: outer Lawson–Hanson iterations of the numpy steps (0: the start was optimal; the
-    #: compiled engine does not count its own, only those of rows it hands on)
-    n_iter: int
-    n_fallback: int  #: spectra handed to scipy.optimize.nnls after ``max_iter``
+from mixsolve.solve.engine import scipy_fallback
 
 
 class _Subspace:
@@ -143,102 +124,6 @@ class _Subspace:
         return z
 
 
-def nnls_batch(design: np.ndarray, spectra: np.ndarray, n_constrained: int, *,
-               max_iter: int | None = None, engine: str = "auto", threads: int = 1
-               ) -> NNLSSolution:
-    """Solve NNLS for many spectra against one design, the trailing columns left free.
-
-    Parameters
-    ----------
-    design : array, shape (n_wavelengths, p)
-        Constrained columns first (``n_constrained`` of them), then free columns.
-    spectra : array, shape (n_spectra, n_wavelengths)
-        Finite values (the caller removes missing readings).
-    n_constrained : int
-        Number of leading columns whose coefficients must be ≥ 0.
-    max_iter : int, optional
-        Outer iterations before the scipy fallback; default 10·p + 10.
-    engine : {"auto", "numpy", "compiled"}
-        Who solves the reduced problems (:func:`mixsolve.solve.cls.choose_engine`): the
-        numpy steps below, or their compiled twin (:func:`mixsolve.solve.fused.solve_rows`,
-        the same steps spectrum by spectrum, when numba is installed).
-    threads : int
-        Threads sharing the compiled solves (the projection is one BLAS product, which
-        threads itself).
-
-    Returns
-    -------
-    NNLSSolution
-        ``x`` (n_spectra, p) in the units of the design's columns, plus iteration counts.
-
-    Notes
-    -----
-    Fast combinatorial active-set NNLS (module docstring), checked against
-    ``scipy.optimize.nnls`` in the tests; its KKT conditions hold to the tolerance stated
-    there (:func:`kkt_rtol`). Internally the spectra are columns (p × n arrays), so that
-    the per-spectrum tests run along contiguous rows.
-    """
-    design = np.asarray(design, dtype=float)
-    spectra = np.asarray(spectra, dtype=float)
-    m, p = design.shape
-    constrained = np.arange(p) < n_constrained
-    norms = np.linalg.norm(design, axis=0)
-    norms[norms == 0] = 1.0
-    q, r = np.linalg.qr(design / norms)
-    if max_iter is None:
-        max_iter = 10 * p + 10
-    solved = _compiled_solve(design / norms, r, q, spectra, constrained, kkt_rtol(m, p),
-                             max_iter, engine, threads)
-    if solved is None:
-        solved = solve_reduced(r, q.T @ spectra.T, constrained, kkt_rtol(m, p), max_iter)
-    x, n_iter, fallback = solved
-    return NNLSSolution((x / norms[:, None]).T, n_iter, fallback)
-
-
-def _compiled_solve(scaled: np.ndarray, r: np.ndarray, q: np.ndarray, spectra: np.ndarray,
-                    constrained: np.ndarray, rtol: float, max_iter: int, engine: str,
-                    threads: int) -> tuple[np.ndarray, int, int] | None:
-    """The compiled projection and solve (no residual summary) of every spectrum, split
-    among threads: x (p, n), the outer iterations of the numpy steps that finished the rows
-    it handed on (it does not count its own), and the scipy fallbacks. None where that
-    engine does not apply (then numpy solves everything)."""
-    from mixsolve.solve.cls import ROW_DONE, choose_engine  # cls builds on this module
-
-    if choose_engine(engine, spectra.shape[0]) != "compiled":  # type: ignore[arg-type]
-        return None
-    from mixsolve.solve import fused
-
-    tables = fused.solver_tables(r, constrained)
-    if tables is None:
-        return None
-    n, p = spectra.shape[0], r.shape[0]
-    values = np.ascontiguousarray(spectra)
-    x = np.empty((n, p))
-    state = np.empty(n, dtype=np.int64)
-    unused = np.empty(n)  # the residual summary is not asked for
-    qt, scaled_t = np.ascontiguousarray(q.T), np.ascontiguousarray(scaled.T)
-
-    def run(part: slice) -> None:
-        fused.fit_rows(values[part], qt, r, np.ones(p), scaled_t, *tables, rtol,
-                       max_iter, False, x[part],
-                       *[unused[part]] * len(fused.SUMMARY_FIELDS), state[part], False)
-
-    bounds = np.linspace(0, n, max(1, threads) + 1).astype(int)
-    parts = [slice(int(a), int(b)) for a, b in itertools.pairwise(bounds)]
-    if len(parts) > 1:
-        with ThreadPoolExecutor(len(parts)) as pool:
-            list(pool.map(run, parts))
-    else:
-        run(parts[0])
-    x = x.T.copy()
-    again = np.flatnonzero(state != ROW_DONE)  # the numpy steps (and scipy) finish these
-    if not again.size:
-        return x, 0, 0
-    x[:, again], n_iter, fallback = solve_reduced(r, q.T @ values[again].T, constrained,
-                                                  rtol, max_iter)
-    return x, n_iter, fallback
-
-
 def _mm(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Small-by-wide product (p × p times p × n): einsum's loop, no BLAS threading overhead."""
     return np.einsum("ij,jk->ik", a, b)
@@ -288,7 +173,7 @@ def solve_reduced(r: np.ndarray, y: np.ndarray, constrained: np.ndarray, rtol: f
         Qᵀa of each spectrum a (one column per spectrum).
     constrained : array of bool, shape (p,)
     rtol : float
-        Relative KKT tolerance (:func:`kkt_rtol`).
+        Relative KKT tolerance (:func:`mixsolve.solve.engine.kkt_rtol`).
     max_iter : int
         Outer iterations before the scipy fallback.
 
@@ -351,7 +236,7 @@ def _active_set(sub: _Subspace, y: np.ndarray, passive: np.ndarray, constrained:
         if not cols.size:
             break
         if n_iter == max_iter:
-            _fallback(sub.r, y, constrained, cols, x)
+            x[:, cols] = scipy_fallback(sub.r, y[:, cols], constrained)
             return x, n_iter, cols.size
         n_iter += 1
         t = _argmax(np.where(cand[:, keep], w[:, keep], -np.inf))
@@ -394,48 +279,3 @@ def _step_back(sub: _Subspace, y: np.ndarray, x: np.ndarray, z: np.ndarray,
         passive[:, idx], x[:, idx] = pi, xi
         z[:, idx] = sub.solve(pi, y[:, idx])
     return z, passive
-
-
-def _fallback(r: np.ndarray, y: np.ndarray, constrained: np.ndarray, cols: np.ndarray,
-              x: np.ndarray) -> None:
-    """scipy.optimize.nnls on each listed column's reduced problem, free terms projected out."""
-    free = ~constrained
-    r_con, r_free = r[:, constrained], r[:, free]
-    q = np.linalg.qr(r_free)[0] if free.any() else np.zeros((r.shape[0], 0))
-    r_proj = r_con - q @ (q.T @ r_con)
-    for i in cols:
-        yi = y[:, i] - q @ (q.T @ y[:, i])
-        c = _scipy_nnls(r_proj, yi, maxiter=50 * max(r_con.shape[1], 1))[0]
-        x[constrained, i] = c
-        if free.any():
-            x[free, i] = np.linalg.lstsq(r_free, y[:, i] - r_con @ c, rcond=None)[0]
-
-
-def nnls_free(
-    constrained: np.ndarray, free: np.ndarray, spectra: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """Solve NNLS for many spectra sharing one design.
-
-    Parameters
-    ----------
-    constrained : array, shape (n_wavelengths, n_constrained)
-        Columns whose coefficients must be ≥ 0 (absorptivities).
-    free : array, shape (n_wavelengths, n_free)
-        Columns whose coefficients are unconstrained (baseline); may have 0 columns.
-    spectra : array, shape (n_spectra, n_wavelengths)
-
-    Returns
-    -------
-    c : ndarray, shape (n_spectra, n_constrained)
-    beta : ndarray, shape (n_spectra, n_free)
-
-    Notes
-    -----
-    Fast combinatorial active-set NNLS (:func:`nnls_batch`), checked against
-    ``scipy.optimize.nnls``.
-    """
-    n = constrained.shape[1]
-    x = nnls_batch(np.hstack([constrained, free]), spectra, n).x
-    return x[:, :n], x[:, n:]
-
-

@@ -33,12 +33,8 @@ Method, vectorised over spectra (numpy only, no loop over spectra):
    QR; back substitution then gives z with zⱼ = 0 outside P and the condition number of
    R[:, P] not squared.
 
-KKT tolerance: as :mod:`mixsolve.solve.nnls`. On return, with τ = 10 · max(m, p) · ε ·
-max(‖aᵢ‖₂, ‖x̂ᵢ‖₂) (x̂ the coefficients of the unit-norm columns, w = D̂ᵀ(a − D̂x̂)):
-x̂ⱼ ≥ 0 for constrained j; wⱼ ≤ τ where x̂ⱼ = 0 (the stopping test, on the stricter
-‖yᵢ‖₂ ≤ ‖aᵢ‖₂); |wⱼ| ≤ τ where x̂ⱼ > 0 and for free j (from the stable subproblem
-solves). Tested in tests/test_per_spectrum.py. A spectrum not done after ``max_iter``
-outer steps is solved by ``scipy.optimize.nnls`` on its reduced problem.
+KKT tolerance, iteration limit and scipy fallback: those of :mod:`mixsolve.solve.engine`
+(τ = 10 · max(m, p) · ε · max(‖aᵢ‖₂, ‖x̂ᵢ‖₂)), tested in tests/test_per_spectrum.py.
 
 Memory: the reduction works on chunks of ``CHUNK_SPECTRA`` spectra; callers that build the
 designs cut their batch with :func:`block_spectra` so that one block of designs stays
@@ -47,14 +43,11 @@ within ``BLOCK_BYTES``.
 
 from __future__ import annotations
 
-from typing import Literal, NamedTuple
+from typing import NamedTuple
 
 import numpy as np
-from scipy.optimize import nnls as _scipy_nnls
 
-from mixsolve.solve.nnls import kkt_rtol
-
-Method = Literal["ols", "nnls"]
+from mixsolve.solve.engine import Method, iteration_limit, kkt_rtol, scipy_fallback
 
 #: Bytes of one block of designs (n × m × p float64) that callers build at a time.
 BLOCK_BYTES = 16 * 2**20
@@ -105,7 +98,8 @@ def fit_each(designs: np.ndarray, values: np.ndarray, n_constrained: int, method
         Leading columns constrained ≥ 0 by ``nnls`` (the rest are free).
     method : {"ols", "nnls"}
     max_iter : int, optional
-        Outer Lawson–Hanson iterations before the scipy fallback; default 10·p + 10.
+        Outer Lawson–Hanson iterations before the scipy fallback; default
+        :func:`mixsolve.solve.engine.iteration_limit`.
 
     Returns
     -------
@@ -136,7 +130,7 @@ def fit_each(designs: np.ndarray, values: np.ndarray, n_constrained: int, method
         else:
             constrained = np.arange(p) < n_constrained
             x = _nnls(r, y, constrained, kkt_rtol(m, p),
-                      10 * p + 10 if max_iter is None else max_iter)
+                      iteration_limit(p) if max_iter is None else max_iter)
         gap = y - np.einsum("nij,nj->ni", r, x)
         rss[ok] = red.rho[ok] ** 2 + np.einsum("ni,ni->n", gap, gap)
         coef[ok] = x / red.norms[ok]
@@ -307,7 +301,7 @@ def _active_set(r: np.ndarray, y: np.ndarray, passive: np.ndarray, constrained: 
             break
         if n_iter == max_iter:
             for i in rows:
-                x[i] = _scipy_reduced(r[i], y[i], constrained)
+                x[i] = scipy_fallback(r[i], y[i][:, None], constrained)[:, 0]
             break
         n_iter += 1
         at = np.arange(rows.size)
@@ -358,17 +352,3 @@ def _step_back(r: np.ndarray, y: np.ndarray, x: np.ndarray, z: np.ndarray,
         passive[idx], x[idx] = pi, xi
         z[idx] = _solve_passive(r[idx], y[idx], pi)
     return z, passive
-
-
-def _scipy_reduced(r: np.ndarray, y: np.ndarray, constrained: np.ndarray) -> np.ndarray:
-    """``scipy.optimize.nnls`` on one reduced problem, the free columns projected out."""
-    free = ~constrained
-    r_con, r_free = r[:, constrained], r[:, free]
-    q = np.linalg.qr(r_free)[0] if free.any() else np.zeros((r.shape[0], 0))
-    x = np.zeros(r.shape[1])
-    c = _scipy_nnls(r_con - q @ (q.T @ r_con), y - q @ (q.T @ y),
-                    maxiter=50 * max(r_con.shape[1], 1))[0]
-    x[constrained] = c
-    if free.any():
-        x[free] = np.linalg.lstsq(r_free, y - r_con @ c, rcond=None)[0]
-    return x

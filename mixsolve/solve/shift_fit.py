@@ -42,11 +42,11 @@ from mixsolve.solve.cls import (
     MISSING,
     NO_DOF,
     TOO_FEW,
-    Method,
     fit_spectra,
     refuse_infinity,
 )
 from mixsolve.solve.design import Baseline, design_matrix
+from mixsolve.solve.engine import Method
 from mixsolve.solve.per_spectrum import block_spectra, fit_each, inverse_diagonal
 
 #: Largest spacing of the coarse grid of shifts (nm).
@@ -157,10 +157,11 @@ def fit_with_shift(
     Returns
     -------
     coef, std_error, fitted, dof, status, shift, u_shift
-        As :func:`mixsolve.solve.cls.solve_cls`, plus the offset δ (nm) and u(δ) (nm);
-        leading axes as the spectra's. ``dof`` is n − p − 1; ``std_error`` and u(δ) are
-        NaN without degrees of freedom or when [D | J] is rank deficient (e.g. every
-        component at zero, so J = 0).
+        As the fields of :func:`mixsolve.solve.cls.fit_spectra`, with the fitted spectra
+        D·coef (..., n_wavelengths) in place of the residual summary, plus the offset δ
+        (nm) and u(δ) (nm); leading axes as the spectra's. ``dof`` is n − p − 1;
+        ``std_error`` and u(δ) are NaN without degrees of freedom or when [D | J] is rank
+        deficient (e.g. every component at zero, so J = 0).
 
     Notes
     -----

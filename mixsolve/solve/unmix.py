@@ -6,6 +6,7 @@ import functools
 import json
 import warnings
 from collections.abc import Sequence
+from dataclasses import dataclass
 from typing import Any, Literal
 
 import numpy as np
@@ -22,14 +23,14 @@ from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
 from mixsolve.solve.block import (
-    DTYPES,
-    OUTPUTS,
-    SHIFT_OUTPUTS,
-    TERM,
     BlockSettings,
+    FitKind,
+    PlainFit,
+    ShiftFit,
+    WeightedFit,
     unmix_block,
 )
-from mixsolve.solve.cls import METHODS, Method, choose_engine, default_threads
+from mixsolve.solve.cls import default_threads
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
@@ -39,21 +40,30 @@ from mixsolve.solve.design import (
     design_matrix,
     select_wavelengths,
 )
+from mixsolve.solve.engine import METHODS, Method, choose_engine
 from mixsolve.solve.model_spectra import fitted_and_residual
+from mixsolve.solve.outputs import (
+    BASELINE_TERM,
+    TERM,
+    UNCERTAINTY_BASIS,
+    describe,
+    kernel_outputs,
+    result_outputs,
+)
 from mixsolve.solve.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
-from mixsolve.spectra import WAVELENGTH, check_option, check_spectra, check_window
+from mixsolve.spectra import (
+    WAVELENGTH,
+    check_number,
+    check_option,
+    check_spectra,
+    check_window,
+)
 from mixsolve.units import conversion_factor
 
 #: Attributes of the input spectra that must not label the result's variables.
 INPUT_ATTRS = ("quantity", "source", "layout", "separator", "decimal", "pathlength_cm")
 Weights = Literal["none", "noise"]
 WEIGHTS: tuple[str, ...] = ("none", "noise")
-
-UNCERTAINTY_BASIS = (
-    "Type A from the fit only: s * sqrt(diag((D^T D)^-1)) / pathlength, s^2 = RSS/(n - p) of "
-    "each spectrum; library absorptivity, pathlength and volumetric uncertainties are not "
-    "included; NaN when n - p = 0"
-)
 
 
 def unmix(
@@ -126,24 +136,18 @@ def unmix(
     Returns
     -------
     Dataset
-        ``concentration`` and ``std_uncertainty`` (..., component), in ``attrs["unit"]``;
-        ``baseline`` (..., term) in AU and AU/nm; ``fitted`` and ``residual``
-        (..., wavelength) over the used wavelengths (AU): for numpy-backed spectra they
-        are computed when read (the part read), from the coefficients and the spectra,
-        which the result holds by reference: changing the spectra array in place before
-        they have been read changes them, so call ``result.load()`` first if you will;
-        ``rms_residual`` (AU);
-        ``dof`` (residual degrees of freedom n − p); ``status`` (bit mask, see
-        ``mixsolve.solve.cls``); ``at_zero`` (..., component), true where NNLS held a
-        component at 0; trust checks per spectrum (docs/diagnostics.md):
-        ``absorbance_max``/``absorbance_min`` (AU, used wavelengths), ``suggested_dilution``
-        (A_max over the middle of the reliable range), ``lack_of_fit_ratio`` and
-        ``lack_of_fit_p`` (with a noise model), ``runs_z``/``runs_p``/``residual_lag1``
-        (residual structure), ``shift_bias_per_nm`` (..., component; result unit per +1 nm
-        of wavelength error), and with ``fit_shift`` ``wavelength_shift_nm`` and
-        ``u_wavelength_shift_nm``; and ``flags``: each spectrum's ``;``-joined flag codes
-        (docs/flags.md; :func:`flags_of`). ``attrs`` record method, baseline, wavelengths,
-        pathlength, unit, the uncertainty basis and the library provenance.
+        The variables below (``...``: the spectra's dimensions other than wavelength;
+        ``unit``: the concentration unit of the result, ``attrs["unit"]``; trust checks
+        in docs/diagnostics.md, flag codes in docs/flags.md and :func:`flags_of`):
+
+{outputs}
+
+        For numpy-backed spectra ``fitted`` and ``residual`` are computed when read (the
+        part read), from the coefficients and the spectra, which the result holds by
+        reference: changing the spectra array in place before they have been read changes
+        them, so call ``result.load()`` first if you will. ``attrs`` record method,
+        baseline, wavelengths, pathlength, unit, the uncertainty basis and the library
+        provenance.
 
     Raises
     ------
@@ -178,6 +182,45 @@ def unmix(
     >>> result = unmix(spectra, lib, window=(400, 700), method="nnls")  # doctest: +SKIP
     >>> result["concentration"].sel(component="chl_a")  # doctest: +SKIP
     """
+    options = _check_options(
+        spectra, library, window=window, wavelengths=wavelengths, method=method,
+        baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, weights=weights,
+        noise=noise, absorbance_range=absorbance_range, fit_shift=fit_shift,
+        max_shift_nm=max_shift_nm, wavelength_tolerance_nm=wavelength_tolerance_nm)
+    plan = _plan(options)
+    return _result(options, plan, _run_kernel(options, plan))
+
+
+if unmix.__doc__:  # the outputs, described once (mixsolve.solve.outputs)
+    unmix.__doc__ = unmix.__doc__.replace("{outputs}", describe(" " * 8))
+
+
+@dataclass(frozen=True, eq=False)
+class _Options:
+    """The options of one unmix call, checked."""
+
+    spectra: xr.DataArray
+    library: xr.Dataset
+    window: tuple[float, float] | None
+    wavelengths: Sequence[float] | None
+    method: Method
+    baseline: Baseline
+    pathlength: xr.DataArray  #: cm
+    unit: str | None
+    weights: Weights
+    noise: NoiseModel | None
+    absorbance_range: tuple[float, float]  #: AU
+    fit_shift: bool
+    max_shift_nm: float
+    tolerance_nm: float
+
+
+def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
+                   method: Any, baseline: Any, pathlength_cm: Any, unit: str | None,
+                   weights: Any, noise: Any, absorbance_range: Any, fit_shift: bool,
+                   max_shift_nm: Any, wavelength_tolerance_nm: Any) -> _Options:
+    """Check every option of :func:`unmix` (the public boundary: the spectra are checked
+    here once, their values by the solver as it reads them)."""
     spectra = check_spectra(spectra, scan_values=False)
     library = check_library(library)
     check_option(method, METHODS, "method")
@@ -193,11 +236,11 @@ def unmix(
         raise InputError(f"absorbance_range: {low:g}-{high:g} AU must be two increasing "
                          "absorbances above 0, e.g. 0.3-2")
     model = noise_model(noise)
-    tolerance = float(wavelength_tolerance_nm)
-    if not np.isfinite(tolerance) or tolerance < 0:
-        raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm must be a number ≥ 0")
-    if not np.isfinite(float(max_shift_nm)):  # refused even when fit_shift is off
-        raise InputError(f"max_shift_nm: {float(max_shift_nm):g} nm must be a positive number")
+    tolerance = check_number(wavelength_tolerance_nm, "wavelength_tolerance_nm", "nm")
+    if tolerance < 0:
+        raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm is not a number ≥ 0")
+    # finite even when fit_shift is off; above zero when it is on
+    max_shift = check_number(max_shift_nm, "max_shift_nm", "nm", positive=fit_shift)
     if fit_shift and weights != "none":
         raise InputError("fit_shift: a fitted wavelength shift cannot be combined with "
                          "weights='noise' (the shift search is unweighted); drop one of them")
@@ -210,127 +253,78 @@ def unmix(
             raise InputError(
                 "spectra: the wavelength dimension spans several dask chunks; rechunk with "
                 "spectra.chunk({'wavelength': -1})")
-    b = _pathlength(spectra, pathlength_cm)
+    return _Options(spectra, library, window, wavelengths, method, baseline,
+                    _pathlength(spectra, pathlength_cm), unit, weights, model, (low, high),
+                    bool(fit_shift), max_shift, tolerance)
 
+
+@dataclass(frozen=True, eq=False)
+class _Plan:
+    """What the kernel needs and the result records: used wavelengths, design, settings."""
+
+    used: xr.DataArray  #: the spectra at the used wavelengths
+    used_wl: np.ndarray  #: nm
+    left_out: np.ndarray  #: measured wavelengths outside the library (nm)
+    components: list[str]
+    terms: list[str]  #: components, then baseline terms
+    condition: float  #: scaled condition number of the design
+    unit: str  #: concentration unit of the result
+    settings: BlockSettings
+
+
+def _plan(options: _Options) -> _Plan:
+    """Choose the wavelengths, build the design and the settings every block shares."""
+    spectra, library = options.spectra, options.library
     measured = spectra[WAVELENGTH].values
     lib_wl = library[WAVELENGTH].values
     index, left_out = select_wavelengths(
-        measured, (float(lib_wl[0]), float(lib_wl[-1])), window=window, wavelengths=wavelengths)
+        measured, (float(lib_wl[0]), float(lib_wl[-1])), window=options.window,
+        wavelengths=options.wavelengths)
     if left_out.size:
         warnings.warn(
             f"{left_out.size} measured wavelength(s) outside the library "
             f"({lib_wl[0]:g}-{lib_wl[-1]:g} nm) were left out of the fit",
-            ExtrapolationWarning, stacklevel=2)
+            ExtrapolationWarning, stacklevel=3)
     used = spectra.isel({WAVELENGTH: _as_slice(index)})
     used_wl = measured[index]
     components = [str(c) for c in library[COMPONENT].values]
     absorptivity = absorptivity_at(library, used_wl)
-    design = design_matrix(absorptivity, used_wl, baseline)
-    terms = components + list(BASELINE_TERMS[baseline])
+    design = design_matrix(absorptivity, used_wl, options.baseline)
+    terms = components + list(BASELINE_TERMS[options.baseline])
     condition = check_solvable(design, terms)
     if condition > ILL_CONDITIONED_ABOVE:
         warnings.warn(
             f"the design is ill conditioned (scaled condition number {condition:.3g}): noise "
             "is amplified that much; choose better wavelengths (mixsolve wavelengths choose)",
-            IllConditionedWarning, stacklevel=2)
+            IllConditionedWarning, stacklevel=3)
 
     conc_unit = library.attrs["concentration_unit"]
     factor = np.ones(len(components))
-    if unit is not None:
-        factor = factor * conversion_factor(conc_unit, unit,
+    if options.unit is not None:
+        factor = factor * conversion_factor(conc_unit, options.unit,
                                             library["molar_mass_g_per_mol"].values)
-        conc_unit = unit
+        conc_unit = options.unit
     settings = BlockSettings(
-        design=design, components=components, method=method, noise=model,
-        weighted=weights == "noise",
+        design=design, components=components, method=options.method, noise=options.noise,
+        fit=_fit_kind(options, used_wl),
         threads=1 if used.chunks is not None else default_threads(),
-        absorbance_range=(low, high),
+        absorbance_range=options.absorbance_range,
         design_status=ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE else 0,
         unit_factor=factor, shift_matrix=shift_bias_matrix(library, design, used_wl),
-        tolerance_nm=tolerance,
+        tolerance_nm=options.tolerance_nm,
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
-                                                   if d != WAVELENGTH]))),
-        shift_options=_shift_options(library, used_wl, baseline, method, max_shift_nm)
-        if fit_shift else None)
-    names = {**OUTPUTS, **(SHIFT_OUTPUTS if fit_shift else {})}
-    try:
-        outputs = xr.apply_ufunc(
-            unmix_block, used, b, kwargs={"settings": settings},
-            input_core_dims=[[WAVELENGTH], []],
-            output_core_dims=[list(dims) for dims in names.values()],
-            dask="parallelized",
-            output_dtypes=[DTYPES.get(name, float) for name in names],
-            dask_gufunc_kwargs={"output_sizes": {TERM: len(terms),
-                                                 COMPONENT: len(components)}},
-        )
-    except InfiniteReadingError as exc:  # eager: say which spectrum and wavelength
-        raise InputError(_where_infinite(used, exc)) from None
-    named = dict(zip(names, outputs, strict=True))
-    coef = named.pop("coef").assign_coords({TERM: terms})
-    if fit_shift:  # one design per spectrum: the kernel returns both
-        fitted, residual = named.pop("fitted"), named.pop("residual")
-    else:
-        fitted, residual = fitted_and_residual(used, coef, design)
-    n_comp = len(components)
-    # plain variables and one set of coordinates: no alignment per variable
-    variables = {name: da.variable for name, da in named.items()}
-    baseline_part = coef.variable[..., n_comp:]
-    variables.update(
-        baseline=xr.Variable(tuple("baseline_term" if d == TERM else d
-                                   for d in baseline_part.dims), baseline_part.data,
-                             {"units": "AU (offset), AU/nm (slope)"}),
-        fitted=fitted.variable, residual=residual.variable, pathlength_cm=b.variable,
-        unit_factor=xr.Variable((COMPONENT,), factor, {
-            "meaning": "result unit per library concentration unit"}))
-    units = {"concentration": conc_unit, "std_uncertainty": conc_unit,
-             "shift_bias_per_nm": f"{conc_unit} per nm", "rms_residual": "AU",
-             "absorbance_max": "AU", "absorbance_min": "AU", "suggested_dilution": "1",
-             "wavelength_shift_nm": "nm", "u_wavelength_shift_nm": "nm", "fitted": "AU",
-             "residual": "AU"}
-    for name, value in units.items():
-        if name in variables:
-            variables[name].attrs["units"] = value
-    variables["std_uncertainty"].attrs["basis"] = UNCERTAINTY_BASIS
-    variables["suggested_dilution"].attrs["meaning"] = (
-        "dilution factor bringing the peak to sqrt(low*high) AU")
-    coords = {**dict(used.coords.items()), COMPONENT: components,
-              "baseline_term": terms[n_comp:]}
-    result = xr.Dataset(
-        variables, coords=coords,
-        attrs={
-            "method": method,
-            "baseline": baseline,
-            "window_nm": "" if window is None else f"{window[0]:g}-{window[1]:g}",
-            "wavelengths_nm": json.dumps([float(w) for w in used_wl]),
-            "left_out_wavelengths_nm": json.dumps([float(w) for w in left_out]),
-            "unit": conc_unit,
-            "condition_number": condition,
-            "library_unit": library.attrs["unit"],
-            "library_provenance": library.attrs.get("provenance", ""),
-            "source": spectra.attrs.get("source", ""),
-            "uncertainty_basis": UNCERTAINTY_BASIS,
-            "mixsolve_version": __version__,
-            "weights": weights,
-            "noise_model": json.dumps(model.to_dict()) if model is not None else "",
-            "absorbance_range": f"{low:g}-{high:g}",
-            "fit_shift": int(fit_shift),
-            "wavelength_tolerance_nm": tolerance,
-        },
-    )
-    # Variables derived from the spectra inherit their attributes; a concentration is not an
-    # "absorbance" from "samples.csv": keep only what describes the variable itself.
-    for var in result.variables.values():
-        for key in INPUT_ATTRS:
-            var.attrs.pop(key, None)
-    return result
+                                                   if d != WAVELENGTH]))))
+    return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings)
 
 
-def _shift_options(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline,
-                   method: Method, max_shift_nm: float) -> dict[str, Any]:
+def _fit_kind(options: _Options, used_wl: np.ndarray) -> FitKind:
+    """The fit the options ask for; the shift fit needs the library around the used λ."""
+    if options.weights == "noise" and options.noise is not None:
+        return WeightedFit(options.noise)
+    if not options.fit_shift:
+        return PlainFit()
+    library, max_shift = options.library, options.max_shift_nm
     grid = library[WAVELENGTH].values
-    max_shift = float(max_shift_nm)
-    if not np.isfinite(max_shift) or max_shift <= 0:
-        raise InputError(f"max_shift_nm: {max_shift:g} nm must be a positive number")
     if grid.size < 3:
         raise InputError("fit_shift: the library has fewer than 3 wavelengths, so it "
                          "carries no slope to fit a shift with")
@@ -340,8 +334,80 @@ def _shift_options(library: xr.Dataset, used_wl: np.ndarray, baseline: Baseline,
             f"{max_shift:g} nm reach outside the library ({grid[0]:g}-{grid[-1]:g} nm); "
             f"narrow the window to {grid[0] + max_shift:g}-{grid[-1] - max_shift:g} nm")
     eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
-    return {"eps": eps, "grid_nm": grid, "wavelengths_nm": used_wl, "baseline": baseline,
-            "method": method, "max_shift_nm": max_shift}
+    return ShiftFit(eps=eps, grid_nm=grid, wavelengths_nm=used_wl, baseline=options.baseline,
+                    max_shift_nm=max_shift)
+
+
+def _run_kernel(options: _Options, plan: _Plan) -> dict[str, xr.DataArray]:
+    """The kernel's outputs (:func:`mixsolve.solve.block.unmix_block`), labelled, by name."""
+    described = kernel_outputs(isinstance(plan.settings.fit, ShiftFit))
+    try:
+        outputs = xr.apply_ufunc(
+            unmix_block, plan.used, options.pathlength, kwargs={"settings": plan.settings},
+            input_core_dims=[[WAVELENGTH], []],
+            output_core_dims=[list(o.dims) for o in described],
+            dask="parallelized",
+            output_dtypes=[o.dtype for o in described],
+            dask_gufunc_kwargs={"output_sizes": {TERM: len(plan.terms),
+                                                 COMPONENT: len(plan.components)}},
+        )
+    except InfiniteReadingError as exc:  # eager: say which spectrum and wavelength
+        raise InputError(_where_infinite(plan.used, exc)) from None
+    return {o.name: da for o, da in zip(described, outputs, strict=True)}
+
+
+def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> xr.Dataset:
+    """The result Dataset: the kernel's outputs and those built here, with their
+    attributes (:mod:`mixsolve.solve.outputs`), coordinates and the call's record."""
+    shift = isinstance(plan.settings.fit, ShiftFit)
+    n_comp = len(plan.components)
+    coef = kernel["coef"].assign_coords({TERM: plan.terms})
+    # plain variables and one set of coordinates: no alignment per variable
+    made = {name: da.variable for name, da in kernel.items()}
+    baseline_part = coef.variable[..., n_comp:]
+    made["baseline"] = xr.Variable(tuple(BASELINE_TERM if d == TERM else d
+                                         for d in baseline_part.dims), baseline_part.data)
+    if "fitted" not in made:  # one design for all: computed from the coefficients
+        fitted, residual = fitted_and_residual(plan.used, coef, plan.settings.design)
+        made.update(fitted=fitted.variable, residual=residual.variable)
+    made["pathlength_cm"] = options.pathlength.variable
+    made["unit_factor"] = xr.Variable((COMPONENT,), plan.settings.unit_factor)
+    variables = {}
+    for o in result_outputs(shift):
+        variables[o.name] = made[o.name]
+        variables[o.name].attrs.update(o.attrs(plan.unit))
+    coords = {**dict(plan.used.coords.items()), COMPONENT: plan.components,
+              BASELINE_TERM: plan.terms[n_comp:]}
+    window, (low, high) = options.window, options.absorbance_range
+    result = xr.Dataset(
+        variables, coords=coords,
+        attrs={
+            "method": options.method,
+            "baseline": options.baseline,
+            "window_nm": "" if window is None else f"{window[0]:g}-{window[1]:g}",
+            "wavelengths_nm": json.dumps([float(w) for w in plan.used_wl]),
+            "left_out_wavelengths_nm": json.dumps([float(w) for w in plan.left_out]),
+            "unit": plan.unit,
+            "condition_number": plan.condition,
+            "library_unit": options.library.attrs["unit"],
+            "library_provenance": options.library.attrs.get("provenance", ""),
+            "source": options.spectra.attrs.get("source", ""),
+            "uncertainty_basis": UNCERTAINTY_BASIS,
+            "mixsolve_version": __version__,
+            "weights": options.weights,
+            "noise_model": json.dumps(options.noise.to_dict())
+            if options.noise is not None else "",
+            "absorbance_range": f"{low:g}-{high:g}",
+            "fit_shift": int(options.fit_shift),
+            "wavelength_tolerance_nm": options.tolerance_nm,
+        },
+    )
+    # Variables derived from the spectra inherit their attributes; a concentration is not an
+    # "absorbance" from "samples.csv": keep only what describes the variable itself.
+    for var in result.variables.values():
+        for key in INPUT_ATTRS:
+            var.attrs.pop(key, None)
+    return result
 
 
 def _where_infinite(used: xr.DataArray, exc: InfiniteReadingError) -> str:
@@ -365,10 +431,11 @@ def _as_slice(index: np.ndarray) -> np.ndarray | slice:
 
 
 def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
+    """The pathlength (cm) as a DataArray over none or some of the spectra's dims."""
     if pathlength_cm is None:
         pathlength_cm = spectra.attrs.get("pathlength_cm", 1.0)
     b = pathlength_cm if isinstance(pathlength_cm, xr.DataArray) else xr.DataArray(
-        float(pathlength_cm))
+        check_number(pathlength_cm, "pathlength", "cm", positive=True))
     for dim in b.dims:
         # One value per spectrum: every dim must be a spectra dim and cover all its labels,
         # else xarray alignment would silently drop spectra or leave NaN results.
@@ -386,9 +453,9 @@ def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
             raise InputError(f"pathlength: {b.sizes[dim]} value(s) along {dim!r} for "
                              f"{spectra.sizes[dim]} spectra")
     values = np.asarray(b.values, dtype=float)
-    if not np.all(np.isfinite(values)) or np.any(values <= 0):
-        bad = values[~(np.isfinite(values) & (values > 0))].ravel()[0]
-        raise InputError(f"pathlength: {bad:g} cm is not a positive number")
+    bad = values[~(np.isfinite(values) & (values > 0))].ravel()
+    if bad.size:
+        check_number(bad[0], "pathlength", "cm", positive=True)  # raises, naming it
     return b.astype(float).assign_attrs(units="cm")
 
 

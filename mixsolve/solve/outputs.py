@@ -1,0 +1,141 @@
+"""Every variable of an :func:`mixsolve.unmix` result, described once.
+
+Each :class:`Output` gives a variable's name, its dimensions, dtype, unit and meaning, and
+who makes it. :data:`OUTPUTS` lists them in the order of the result. The kernel
+(:func:`mixsolve.solve.block.unmix_block`) returns the arrays of :func:`kernel_outputs` in
+that order; ``unmix`` labels them, builds the rest, sets each variable's attributes
+(:meth:`Output.attrs`) and documents them all in its docstring (:func:`describe`).
+"""
+
+from __future__ import annotations
+
+import textwrap
+from dataclasses import dataclass
+from typing import Any, Literal
+
+import numpy as np
+
+from mixsolve.flags import VLEN_STR
+from mixsolve.library import COMPONENT
+from mixsolve.spectra import WAVELENGTH
+
+#: Dimension of the fitted coefficients inside the kernel: components, then baseline terms.
+TERM = "term"
+#: Dimension of the result's baseline coefficients.
+BASELINE_TERM = "baseline_term"
+#: Who makes a variable: the kernel for every fit; the kernel for the shift fit only (and
+#: the result holds it only then); the model spectra, which the kernel returns for the
+#: shift fit (one design per spectrum) and the result otherwise computes when read, from
+#: the coefficients (:mod:`mixsolve.solve.model_spectra`); or ``unmix`` itself.
+MadeBy = Literal["kernel", "shift kernel", "model", "unmix"]
+
+UNCERTAINTY_BASIS = (
+    "Type A from the fit only: s * sqrt(diag((D^T D)^-1)) / pathlength, s^2 = RSS/(n - p) of "
+    "each spectrum; library absorptivity, pathlength and volumetric uncertainties are not "
+    "included; NaN when n - p = 0"
+)
+
+
+@dataclass(frozen=True)
+class Output:
+    """One variable of an unmix result."""
+
+    name: str
+    #: Dimensions after the spectra's own (none: one value per spectrum).
+    dims: tuple[str, ...]
+    meaning: str
+    #: ``attrs["units"]``; ``{unit}`` stands for the result's concentration unit. None: the
+    #: variable has no unit attribute (counts, bits, flags, p-values, ratios).
+    unit: str | None = None
+    dtype: Any = float
+    made_by: MadeBy = "kernel"
+    #: False: only the kernel returns it (``unmix`` builds result variables from it).
+    in_result: bool = True
+    #: False: one value for the whole result, not one per spectrum.
+    per_spectrum: bool = True
+    #: Also record the meaning as ``attrs["meaning"]``.
+    meaning_attr: bool = False
+    #: Further attributes of the variable, (name, value) pairs.
+    extra_attrs: tuple[tuple[str, str], ...] = ()
+
+    def attrs(self, unit: str) -> dict[str, str]:
+        """The variable's attributes in a result whose concentration unit is ``unit``."""
+        out = {} if self.unit is None else {"units": self.unit.format(unit=unit)}
+        if self.meaning_attr:
+            out["meaning"] = self.meaning
+        return {**out, **dict(self.extra_attrs)}
+
+
+#: The outputs, in the order of the result (the kernel's in the same order).
+OUTPUTS: tuple[Output, ...] = (
+    Output("coef", (TERM,), "fitted coefficients: concentration × pathlength of each "
+           "component in the library's unit, then the baseline terms (AU, AU/nm)",
+           in_result=False),
+    Output("concentration", (COMPONENT,), "concentration of each component, c = x/b "
+           "(x its fitted coefficient, b the pathlength)", "{unit}"),
+    Output("std_uncertainty", (COMPONENT,), "standard uncertainty u(c), Type A from the "
+           "fit only (attribute basis)", "{unit}",
+           extra_attrs=(("basis", UNCERTAINTY_BASIS),)),
+    Output("at_zero", (COMPONENT,), "true where NNLS held the component at 0", dtype=bool),
+    Output("shift_bias_per_nm", (COMPONENT,), "change of each concentration per +1 nm of "
+           "wavelength error, at the fitted composition", "{unit} per nm"),
+    Output("rms_residual", (), "root-mean-square residual over the readings used", "AU"),
+    Output("dof", (), "residual degrees of freedom n − p", dtype=np.int64),
+    Output("status", (), "bit mask of the status bits of mixsolve.flags", dtype=np.int64),
+    Output("absorbance_max", (), "largest measured absorbance over the used wavelengths",
+           "AU"),
+    Output("absorbance_min", (), "smallest measured absorbance over the used wavelengths",
+           "AU"),
+    Output("runs_z", (), "runs test z of the residual signs in wavelength order"),
+    Output("runs_p", (), "one-sided p of the runs test (too few runs)"),
+    Output("residual_lag1", (), "lag-1 autocorrelation of the residual"),
+    Output("lack_of_fit_ratio", (), "√(χ²/dof) against the noise model (NaN without one)"),
+    Output("lack_of_fit_p", (), "p = P(χ²_dof ≥ χ²) (NaN without a noise model)"),
+    Output("suggested_dilution", (), "dilution factor bringing the peak to sqrt(low*high) AU",
+           "1", meaning_attr=True),
+    Output("flags", (), "the spectrum's ';'-joined flag codes (docs/flags.md)",
+           dtype=VLEN_STR),
+    Output("wavelength_shift_nm", (), "fitted wavelength offset δ", "nm",
+           made_by="shift kernel"),
+    Output("u_wavelength_shift_nm", (), "standard uncertainty u(δ)", "nm",
+           made_by="shift kernel"),
+    Output("baseline", (BASELINE_TERM,), "baseline coefficients: offset and slope (about "
+           "the mean used wavelength)", "AU (offset), AU/nm (slope)", made_by="unmix"),
+    Output("fitted", (WAVELENGTH,), "fitted spectrum over the used wavelengths", "AU",
+           made_by="model"),
+    Output("residual", (WAVELENGTH,), "measured minus fitted spectrum", "AU",
+           made_by="model"),
+    Output("pathlength_cm", (), "pathlength b: one value, or one per spectrum", "cm",
+           made_by="unmix", per_spectrum=False),
+    Output("unit_factor", (COMPONENT,), "result unit per library concentration unit",
+           made_by="unmix", per_spectrum=False, meaning_attr=True),
+)
+BY_NAME: dict[str, Output] = {o.name: o for o in OUTPUTS}
+
+
+def kernel_outputs(shift: bool) -> tuple[Output, ...]:
+    """What the kernel returns, in order: for the shift fit (``shift``) or another."""
+    made = ("kernel", "shift kernel", "model") if shift else ("kernel",)
+    return tuple(o for o in OUTPUTS if o.made_by in made)
+
+
+def result_outputs(shift: bool) -> tuple[Output, ...]:
+    """The variables of a result, in order: of a shift fit (``shift``) or another."""
+    return tuple(o for o in OUTPUTS
+                 if o.in_result and (shift or o.made_by != "shift kernel"))
+
+
+def describe(indent: str = "", width: int = 92) -> str:
+    """A list of the result's variables, one item each: name, dims, unit and meaning
+    (``unit``: the result's concentration unit), wrapped to ``width`` columns."""
+    items = []
+    for o in OUTPUTS:
+        if not o.in_result:
+            continue
+        dims = ", ".join(("...", *o.dims) if o.per_spectrum else o.dims)
+        text = f"- ``{o.name}``" + (f" ({dims})" if dims else "")
+        text += "" if o.unit is None else f" [{o.unit.format(unit='unit')}]"
+        text += " (with fit_shift)" if o.made_by == "shift kernel" else ""
+        items.append(textwrap.fill(f"{text}: {o.meaning}", width, initial_indent=indent,
+                                   subsequent_indent=indent + "  "))
+    return "\n".join(items)
