@@ -160,7 +160,7 @@ def test_read_layout_csv_and_xlsx(tmp_path):
         ("well,role,sample\nB1,sample,\n", InputError,
          r"^l\.csv, line 2, well B1: a sample well needs a sample name$"),
         ("well,role,sample,dilution\nB1,sample,S1,0\n", InputError,
-         r"^l\.csv, line 2, well B1: dilution 0 is not a positive number$"),
+         r"^l\.csv, line 2, well B1, dilution: 0 is not a positive number$"),
         ("well,role,sample,dilution\nB1,sample,S1,two\n", InputError,
          r"^l\.csv, line 2, well B1, dilution: 'two' is not a number$"),
         ("well,role,sample\nH1,standard,s\n", FileFormatError,
@@ -168,7 +168,7 @@ def test_read_layout_csv_and_xlsx(tmp_path):
         ("well,role,component,concentration,unit\nH1,standard,,1,mg/L\n", InputError,
          r"^l\.csv, line 2, well H1: a standard well needs a component$"),
         ("well,role,component,concentration,unit\nH1,standard,red,-1,mg/L\n", InputError,
-         r"^l\.csv, line 2, well H1: concentration -1 is negative$"),
+         r"^l\.csv, line 2, well H1, concentration: -1 is not a number ≥ 0$"),
         ("well,role,component,concentration,unit\nH1,standard,red,1,furlongs\n", UnitError,
          r"^l\.csv, line 2, well H1: unit: 'furlongs' is not a concentration; expected "
          r"amount/volume such as mmol/L"),

@@ -296,7 +296,7 @@ def test_well_off_the_requested_plate(tmp_path):
     with pytest.raises(InputError, match=r"^p\.csv: well M5 is not on a 96-well plate "
                                          r"\(A1-H12\)$"):
         ms.read_plate(path, plate_size=96)
-    with pytest.raises(InputError, match=r"^--plate-size: 48 is not one of 96, 384$"):
+    with pytest.raises(InputError, match=r"^plate_size: 48 is not one of 96, 384$"):
         ms.read_plate(path, plate_size=48)
 
 

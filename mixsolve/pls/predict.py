@@ -16,7 +16,7 @@ from mixsolve.library import COMPONENT
 from mixsolve.pls.blocks import project
 from mixsolve.pls.model import UNCERTAINTY_BASIS, check_model
 from mixsolve.pls.preprocessing import preprocess
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 from mixsolve.units import concentration_basis
 
 
@@ -112,10 +112,8 @@ def predict(
     if set(spectra.dims) != {SAMPLE, WAVELENGTH}:
         raise InputError(f"spectra: expected dims ('sample', 'wavelength'), got {spectra.dims}")
     b_cal = float(model.attrs["pathlength_cm"])
-    b = float(spectra.attrs.get("pathlength_cm", b_cal) if pathlength_cm is None
-              else pathlength_cm)
-    if not np.isfinite(b) or b <= 0:
-        raise InputError(f"pathlength: {b:g} cm is not a positive number")
+    b = check_number(spectra.attrs.get("pathlength_cm", b_cal) if pathlength_cm is None
+                     else pathlength_cm, "pathlength_cm", "cm", positive=True)
     factor = _unit_factor(model.attrs["unit"], unit)
     model_nm = model[WAVELENGTH].values
     raw = resample_to_model(spectra, model_nm) * (b_cal / b)
