@@ -390,7 +390,7 @@ def test_plate_refuses_a_non_positive_max_cv(tmp_path):
                   demo_file("plate_layout.csv"), "--library-from-plate", "--out",
                   tmp_path / "po", "--max-cv", "-5"])
     assert_clean_error(result)
-    assert "--max-cv: -5 % must be a positive number" in result.stderr
+    assert "max_cv: -0.05 is not a positive number" in result.stderr
 
 
 def test_unmix_refuses_an_implausible_wavelength_offset(files):
