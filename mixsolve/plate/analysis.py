@@ -54,6 +54,8 @@ WELL_COLUMNS = ("well", "sample", "role", "component", "concentration", "std_unc
                 "unit", "dilution", "pathlength_cm", "rms_residual_au", "flags")
 SAMPLE_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
                   "n_wells", "sd", "cv", "wells", "flags")
+
+
 @dataclass(frozen=True)
 class PlateOptions:
     """The settings one plate was analysed with (the report words them).
