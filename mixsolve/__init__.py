@@ -21,6 +21,7 @@ from mixsolve.errors import InputError, MixsolveError, MixsolveWarning
 _LAZY: dict[str, str] = {
     "NoiseModel": "mixsolve.noise",
     "analyse_plate": "mixsolve.plate.analysis",
+    "BudgetInputs": "mixsolve.uncertainty.inputs",
     "budget_table": "mixsolve.uncertainty.budget",
     "build_library": "mixsolve.library",
     "calibrate": "mixsolve.pls.calibrate",
@@ -75,6 +76,7 @@ if TYPE_CHECKING:
     from mixsolve.spectra import make_spectra
     from mixsolve.uncertainty.budget import budget_table, uncertainty_budget
     from mixsolve.uncertainty.corrections import cell_blank, correct_cells, shift_wavelengths
+    from mixsolve.uncertainty.inputs import BudgetInputs
     from mixsolve.uncertainty.volumetric import parse_dilution
     from mixsolve.wavelengths.check import check_wavelengths
     from mixsolve.wavelengths.choose import choose_wavelengths
@@ -97,6 +99,7 @@ def __dir__() -> list[str]:
 
 
 __all__ = [
+    "BudgetInputs",
     "InputError",
     "MixsolveError",
     "MixsolveWarning",

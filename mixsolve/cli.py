@@ -16,6 +16,7 @@ from __future__ import annotations
 import contextlib
 import importlib
 import inspect
+import re
 import sys
 import warnings
 from collections.abc import Callable, Iterator
@@ -263,8 +264,13 @@ def max_cv_percent(fraction: float) -> float:
 
 
 def max_cv_fraction(ctx: click.Context, param: click.Parameter, percent: float) -> float:
-    """``--max-cv`` is given in % (20 means a CV of 0.2); the core takes a fraction."""
-    return percent / 100
+    """``--max-cv`` is given in % (20 means a CV of 0.2); the core takes a fraction.
+
+    The percent is checked here, so that a refusal speaks the unit the user typed.
+    """
+    from mixsolve.spectra import check_number
+
+    return check_number(percent, "--max-cv", "%", positive=True) / 100
 
 
 # where the defaults live: the API functions the commands call
@@ -338,6 +344,47 @@ def add_options(options: list[Callable[..., Any]]) -> Callable[..., Any]:
     return decorate
 
 
+#: API parameter names (as core errors name them) → the click parameter of the same value,
+#: where the two differ. The flag shown is that parameter's, in the command that ran.
+API_PARAMETERS = {
+    "pathlength_cm": "pathlength", "molar_mass_g_per_mol": "molar_mass",
+    "water_k_au_per_cm": "water_k", "library": "library_file", "pathlength_u_cm": "pathlength_u",
+    "carryover_ul": "carryover", "fill_volume_ul": "fill_volume", "stray_fraction": "stray",
+    "concentration_mg_l": "concentration", "tolerance_pct": "tolerance",
+    "linearity_tolerance_pct": "linearity_tolerance", "uv_tolerance_nm": "uv_tolerance",
+    "vis_tolerance_nm": "vis_tolerance", "fit_half_width_nm": "fit_half_width",
+    "search_nm": "search", "reference_u_nm": "reference_u", "bands_nm": "bands",
+    "wavelength_nm": "wavelength", "limit_au": "limit", "max_shift_nm": "max_shift",
+    "wavelength_tolerance_nm": "wavelength_tolerance", "bandwidth_nm": "bandwidth",
+}
+_LEADING_NAME = re.compile(r"^([a-z][a-z0-9_]*)(?=:)")
+
+
+def in_flag_words(message: str, command: click.Command) -> str:
+    """A core error names an API parameter (``pathlength_cm: 0 cm is ...``); on the command
+    line it names the flag the user typed (``--pathlength: 0 cm is ...``)."""
+    match = _LEADING_NAME.match(message)
+    if match is None:
+        return message
+    flags = {p.name: p.opts[0] for p in command.params
+             if isinstance(p, click.Option) and p.name}
+    name = match.group(1)
+    flag = flags.get(name) or flags.get(API_PARAMETERS.get(name, ""))
+    return message if flag is None else flag + message[match.end():]
+
+
+class FlagWordsCommand(click.Command):
+    """A command whose errors name its flags, not the API parameters behind them."""
+
+    def invoke(self, ctx: click.Context) -> Any:
+        try:
+            return super().invoke(ctx)
+        except MixsolveError as exc:
+            text = in_flag_words(" ".join(str(exc).split()), self)
+            exc.args = (text, *exc.args[1:])
+            raise
+
+
 class OneLineErrors(click.Group):
     """The root group: every command's errors and warnings are handled here, once.
 
@@ -345,6 +392,9 @@ class OneLineErrors(click.Group):
     130 (:func:`one_line_errors`); mixsolve's warnings are ``warning:`` lines
     (:func:`warning_lines`); click's own usage errors are one ``error:`` line too (exit 2).
     """
+
+    command_class = FlagWordsCommand
+    group_class = type  # subgroups are OneLineErrors too, so their commands name flags
 
     def invoke(self, ctx: click.Context) -> Any:
         debug = bool(ctx.params.get("debug"))

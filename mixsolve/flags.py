@@ -1,4 +1,7 @@
-"""Status bits of a fitted spectrum and the short flag codes they become (docs/flags.md)."""
+"""Every flag code and its meaning: status bits of a fitted spectrum and the short codes
+they become, the component codes, the codes of plate wells and samples and those of PLS
+predictions (docs/flags.md, docs/plates.md).
+"""
 
 from __future__ import annotations
 
@@ -26,6 +29,71 @@ STATUS_CODES: dict[int, str] = {
     STRUCTURED: "structured_residual",
     ILL_CONDITIONED: "ill_conditioned",
     NO_SIGNAL: "no_signal",
+}
+
+#: Codes about one component, written ``code:<component>``.
+AT_ZERO = "at_zero"  # NNLS held the component at zero
+NEGATIVE = "negative"  # OLS gave a negative concentration
+SHIFT_SENSITIVE = "shift_sensitive"  # a small wavelength error moves the result > 2 %
+COMPONENT_CODES: tuple[str, ...] = (AT_ZERO, NEGATIVE, SHIFT_SENSITIVE)
+
+#: Codes of a plate well (docs/plates.md), besides those of its fit.
+MARKER = "marker"  # ``marker:<TEXT>``: a non-numeric reading TEXT in the export
+NOT_READ = "not_read"
+NOT_IN_LAYOUT = "not_in_layout"
+EMPTY_WELL = "empty_well"
+NO_PATHLENGTH = "no_pathlength"
+#: Codes of a plate sample (per component), besides those of its wells.
+NO_RESULT = "no_result"
+WELLS_WITHOUT_RESULT = "wells_without_result"  # ``wells_without_result:<k>``
+SINGLE_WELL = "single_well"
+HIGH_CV = "high_cv"
+
+#: Codes of a PLS prediction (docs/flags.md, docs/calibration.md).
+T2_ABOVE_95 = "t2_above_95"
+T2_ABOVE_99 = "t2_above_99"
+Q_ABOVE_95 = "q_above_95"
+Q_ABOVE_99 = "q_above_99"
+OUTSIDE_RANGE = "outside_range"  # ``outside_range:<component>``
+INCOMPLETE_SPECTRUM = "incomplete_spectrum"
+
+#: What each flag code means, in one line (the part of a code before ``:``).
+FLAG_MEANINGS: dict[str, str] = {
+    STATUS_CODES[MISSING]: "some fitted wavelengths had no reading; fitted on the rest",
+    STATUS_CODES[TOO_FEW]: "too few readings left to fit: no result",
+    STATUS_CODES[DEPENDENT]: "the readings left cannot separate the components: no result",
+    STATUS_CODES[NO_DOF]: "as many unknowns as wavelengths: no fit uncertainty",
+    STATUS_CODES[ABOVE_RANGE]: "peak absorbance above the reliable range: dilute",
+    STATUS_CODES[BELOW_RANGE]: "peak absorbance below the reliable range: less dilution or "
+                               "a longer path",
+    STATUS_CODES[NO_SIGNAL]: "every reading is exactly zero: nothing was measured; the zero "
+                             "result means nothing",
+    STATUS_CODES[LACK_OF_FIT]: "residual larger than the noise model allows",
+    STATUS_CODES[ILL_CONDITIONED]: "the wavelengths separate the components poorly (scaled "
+                                   "condition number above 1000): noise is amplified that "
+                                   "much",
+    STATUS_CODES[STRUCTURED]: "residual has shape, not noise: unmodelled absorber, scatter or "
+                              "a wavelength shift",
+    AT_ZERO: "held at zero by the non-negativity constraint",
+    NEGATIVE: "ordinary least squares gave a negative concentration",
+    SHIFT_SENSITIVE: "a small wavelength error would move this result by more than 2 %",
+    MARKER: "non-numeric reading(s) in the export (saturation or error marker): missing at "
+            "those wavelengths, fitted on the rest",
+    NO_PATHLENGTH: "the water band gave no positive pathlength: no result",
+    NOT_READ: "listed in the layout but absent from the export: no result",
+    NOT_IN_LAYOUT: "read but not listed in the layout: not fitted",
+    EMPTY_WELL: "empty in the layout: not fitted",
+    NO_RESULT: "no well of the sample gave a result",
+    WELLS_WITHOUT_RESULT: "some wells of the sample gave no result and were left out",
+    SINGLE_WELL: "one well only: no SD or CV; the uncertainty is that well's fit uncertainty",
+    HIGH_CV: "replicate wells disagree more than the CV limit",
+    T2_ABOVE_95: "Hotelling T² above its 95 % limit",
+    T2_ABOVE_99: "Hotelling T² above its 99 % limit: outside the calibration space",
+    Q_ABOVE_95: "Q residual above its 95 % limit",
+    Q_ABOVE_99: "Q residual above its 99 % limit: a spectral feature the calibration does "
+                "not explain",
+    OUTSIDE_RANGE: "prediction outside the calibrated concentration range",
+    INCOMPLETE_SPECTRUM: "missing readings at model wavelengths: no prediction",
 }
 
 #: A component is flagged shift-sensitive when a wavelength error of the stated tolerance
@@ -77,18 +145,18 @@ def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.
     n = len(components)
     status = status.reshape(-1)
     groups = [at_zero.reshape(-1, n)]
-    names = [f"at_zero:{c}" for c in components]
+    names = [f"{AT_ZERO}:{c}" for c in components]
     conc, u = conc.reshape(-1, n), u.reshape(-1, n)
     if ols:
         groups.append(conc < 0)
-        names += [f"negative:{c}" for c in components]
+        names += [f"{NEGATIVE}:{c}" for c in components]
     if bias is not None:
         with np.errstate(invalid="ignore"):
             quantified = conc > 3 * np.where(np.isfinite(u), u, 0.0)
             risky = np.abs(bias.reshape(-1, n)) * tolerance_nm > \
                 SHIFT_FLAG_FRACTION * np.abs(conc)
         groups.append(quantified & risky)
-        names += [f"shift_sensitive:{c}" for c in components]
+        names += [f"{SHIFT_SENSITIVE}:{c}" for c in components]
     if not status.size:
         return np.empty(lead, dtype=VLEN_STR)
     bits = np.concatenate(groups, axis=1)

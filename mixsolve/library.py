@@ -29,7 +29,7 @@ import xarray as xr
 from mixsolve._version import __version__
 from mixsolve.errors import InputError, LinearityWarning
 from mixsolve.names import check_spellings, check_unique_names, normalise_name
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 from mixsolve.units import (
     ABSORPTIVITY_UNITS,
     CONCENTRATION_UNITS,
@@ -56,10 +56,8 @@ def _molar_masses(components: list[str], molar_mass: Mapping[str, float] | None)
                 f"molar mass given for {name!r}, which is not a component "
                 f"(components: {', '.join(components)})"
             )
-        value = float(value)
-        if not np.isfinite(value) or value <= 0:
-            raise InputError(f"molar mass of {name!r}: {value:g} g/mol is not a positive number")
-        masses[components.index(name)] = value
+        masses[components.index(name)] = check_number(
+            value, f"molar_mass_g_per_mol of {name!r}", "g/mol", positive=True)
     return masses
 
 
@@ -67,10 +65,7 @@ def _bandwidth(bandwidth_nm: float | None) -> float:
     """Spectral bandwidth (nm) as stored: NaN when not stated; refused unless positive."""
     if bandwidth_nm is None:
         return float("nan")
-    value = float(bandwidth_nm)
-    if not np.isfinite(value) or value <= 0:
-        raise InputError(f"bandwidth: {value:g} nm is not a positive number")
-    return value
+    return check_number(bandwidth_nm, "bandwidth_nm", "nm", positive=True)
 
 
 def _new_library(
@@ -469,10 +464,9 @@ def build_library(
     """
     spectra = check_spectra(standards, "standards")
     table = _check_sheet(sheet, spectra, sheet_name)
-    default_b = pathlength_cm if pathlength_cm is not None else spectra.attrs.get(
-        "pathlength_cm", 1.0)
-    if not np.isfinite(default_b) or default_b <= 0:
-        raise InputError(f"pathlength: {default_b:g} cm is not a positive number")
+    default_b = check_number(pathlength_cm if pathlength_cm is not None else
+                             spectra.attrs.get("pathlength_cm", 1.0), "pathlength_cm", "cm",
+                             positive=True)
     basis = table["basis"].iloc[0]
     components = list(dict.fromkeys(table["component"]))
     wl = spectra[WAVELENGTH].values
@@ -622,16 +616,9 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
                              "spectra file")
         if not row.component or row.component.lower() == "nan":
             raise InputError(f"{where}: empty component")
-        try:
-            value = float(row.concentration)
-        except (TypeError, ValueError):
-            raise InputError(f"{where}: concentration {row.concentration!r} is not a number") \
-                from None
-        if not np.isfinite(value) or value < 0:
-            raise InputError(f"{where}: concentration {value:g} is not a number ≥ 0")
-        b = float(row.pathlength_cm)
-        if not np.isnan(b) and (not np.isfinite(b) or b <= 0):
-            raise InputError(f"{where}: pathlength_cm {b:g} is not a positive number")
+        value = check_number(row.concentration, f"{where}, concentration", low=0)
+        if not pd.isna(row.pathlength_cm):
+            check_number(row.pathlength_cm, f"{where}, pathlength_cm", "cm", positive=True)
         basis, factor = concentration_basis(str(row.unit), f"{where}: unit")
         canon.append(value * factor)
         bases.append(basis)

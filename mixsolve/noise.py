@@ -22,6 +22,7 @@ import numpy as np
 from scipy.optimize import minimize_scalar
 
 from mixsolve.errors import InputError
+from mixsolve.spectra import check_number
 
 LN10 = np.log(10.0)
 
@@ -56,14 +57,11 @@ class NoiseModel:
     name: str = "user"
 
     def __post_init__(self) -> None:
-        for field in ("k0", "k1", "k2", "stray"):
-            value = getattr(self, field)
-            if not np.isfinite(value) or value < 0:
-                raise InputError(f"noise model: {field} = {value!r} must be a number ≥ 0")
+        for field in ("k0", "k1", "k2"):
+            check_number(getattr(self, field), f"noise model, {field}", low=0)
+        check_number(self.stray, "noise model, stray", low=0, high=1, high_open=True)
         if self.k0 == self.k1 == self.k2 == 0:
             raise InputError("noise model: k0, k1 and k2 are all 0; give at least one term")
-        if self.stray >= 1:
-            raise InputError(f"noise model: stray = {self.stray:g} must be below 1")
 
     def to_dict(self) -> dict[str, float | str]:
         """Plain JSON-safe parameters."""
@@ -144,6 +142,17 @@ PRESETS: dict[str, NoiseModel] = {
 }
 
 
+def check_noise_sd(sigma_au: object, name: str = "noise") -> float:
+    """A constant absorbance noise σ_A (AU), as float.
+
+    Raises
+    ------
+    InputError
+        Not a positive finite number ("noise: 0 AU is not a positive number").
+    """
+    return check_number(sigma_au, name, "AU", positive=True)
+
+
 def noise_model(spec: NoiseModel | str | float | None) -> NoiseModel | None:
     """Resolve a noise specification.
 
@@ -164,7 +173,5 @@ def noise_model(spec: NoiseModel | str | float | None) -> NoiseModel | None:
             raise InputError(f"noise: unknown preset {spec!r}; presets are "
                              f"{', '.join(PRESETS)}")
         return PRESETS[spec]
-    sigma = float(spec)
-    if not np.isfinite(sigma) or sigma <= 0:
-        raise InputError(f"noise: σ_A = {sigma:g} AU must be a positive number")
+    sigma = check_noise_sd(spec)
     return NoiseModel(k0=sigma * LN10, name=f"constant sigma_T ({sigma:g} AU at A=0)")

@@ -157,26 +157,50 @@ def check_window(window: Any, name: str = "window") -> tuple[float, float] | Non
     return low, high
 
 
-def check_number(value: Any, name: str, unit: str = "", *, positive: bool = False) -> float:
-    """A finite number given as an option, as float.
+def check_number(value: Any, name: str, unit: str = "", *, low: float | None = None,
+                 high: float | None = None, low_open: bool = False, high_open: bool = False,
+                 positive: bool = False, integer: bool = False, hint: str = "") -> float:
+    """A finite number given as an option, as float, checked against its allowed range.
+
+    The one check of a scalar option or setting: every refusal has the shape
+    ``"{name}: {value} {unit} is not {what is allowed}"``, e.g.
+    ``"pathlength_cm: 0 cm is not a positive number"`` or
+    ``"stray_fraction: 1.5 is not a number ≥ 0 and below 1"``.
 
     Parameters
     ----------
     value : Any
-        The option's value.
+        The option's value (a number, or text that reads as one).
     name : str
-        The option, for the message.
+        The option as the caller named it (the API parameter, e.g. ``pathlength_cm``).
     unit : str
         Its unit, for the message (``"nm"``, ``"AU"``); empty for none.
+    low, high : float, optional
+        Smallest and largest allowed value, included unless ``low_open``/``high_open``.
+    low_open, high_open : bool
+        Exclude ``low`` (``high``) itself.
     positive : bool
-        Refuse zero and negative numbers too.
+        Refuse zero and negative numbers (``low=0, low_open=True``).
+    integer : bool
+        Refuse a number that is not whole (``2.5 draws``); the result is still a float.
+    hint : str
+        A fix appended to the message after ``;`` (e.g. why a bound is there).
+
+    Returns
+    -------
+    float
 
     Raises
     ------
     InputError
-        Not a number, NaN or infinite ("bandwidth_nm: nan nm is not a finite number"), or
-        not above zero when ``positive``.
+        Not a number (a bool counts as none), NaN or infinite
+        ("bandwidth_nm: nan nm is not a finite number"), not whole when ``integer``, or
+        outside the allowed range.
     """
+    if positive:
+        low, low_open = 0.0, True
+    if isinstance(value, bool | np.bool_):
+        raise InputError(f"{name}: {value!r} is not a number")
     try:
         number = float(value)
     except (TypeError, ValueError):
@@ -184,9 +208,33 @@ def check_number(value: Any, name: str, unit: str = "", *, positive: bool = Fals
     shown = f"{number:g}{' ' + unit if unit else ''}"
     if not np.isfinite(number):
         raise InputError(f"{name}: {shown} is not a finite number")
-    if positive and number <= 0:
-        raise InputError(f"{name}: {shown} is not a positive number")
+    below = low is not None and (number <= low if low_open else number < low)
+    above = high is not None and (number >= high if high_open else number > high)
+    if below or above or (integer and not number.is_integer()):
+        allowed = _allowed(unit, low, high, low_open, high_open, integer)
+        raise InputError(f"{name}: {shown} is not {allowed}" + (f"; {hint}" if hint else ""))
     return number
+
+
+def _allowed(unit: str, low: float | None, high: float | None, low_open: bool,
+             high_open: bool, integer: bool) -> str:
+    """What :func:`check_number` accepts, in words: "a positive number", "a number ≥ 0"."""
+    kind = "whole number" if integer else "number"
+    if low == 0 and low_open and high is None:
+        return f"a positive {kind}"
+    if low is not None and high is not None and not (low_open or high_open):
+        bounds = f"from {low:g} to {high:g}"
+    else:
+        parts = []
+        if low is not None:
+            parts.append(f"{'>' if low_open else '≥'} {low:g}")
+        if high is not None:
+            parts.append(f"below {high:g}" if high_open else f"≤ {high:g}")
+        bounds = " and ".join(parts)
+    if not bounds:
+        return f"a {kind}"
+    nonzero = any(v not in (None, 0) for v in (low, high))
+    return f"a {kind} {bounds}" + (f" {unit}" if unit and nonzero else "")
 
 
 def check_wavelength_list(wavelengths: Any, name: str = "wavelengths") -> np.ndarray:

@@ -132,14 +132,14 @@ def conversion_factor(
         If either unit is not a concentration, or a molar mass is needed but missing.
     """
     basis_from, f_from = concentration_basis(from_unit, "unit of the results")
-    basis_to, f_to = concentration_basis(to_unit, "--unit")
+    basis_to, f_to = concentration_basis(to_unit, "unit")
     factor = f_from / f_to
     if basis_from == basis_to:
         return factor
     if molar_mass_g_per_mol is None or np.any(~np.isfinite(np.asarray(molar_mass_g_per_mol))):
         raise UnitError(
-            f"--unit {to_unit!r}: converting {from_unit} to {to_unit} needs the molar mass of "
-            "every component; add molar masses to the library (library import --molar-mass)"
+            f"unit: converting {from_unit} to {to_unit} needs the molar mass of every "
+            "component; add molar masses to the library (molar_mass_g_per_mol)"
         )
     mm = np.asarray(molar_mass_g_per_mol, dtype=float)
     # mol/L -> g/L multiplies by M; g/L -> mol/L divides by M.

@@ -369,11 +369,12 @@ def test_plate_refuses_a_non_positive_max_cv(tmp_path, cli):
                  demo_file("plate_layout.csv"), "--library-from-plate", "--out",
                  tmp_path / "po", "--max-cv", "-5")
     assert_cli_error(result)
-    assert "--max-cv: -5 % must be a positive number" in result.stderr
+    assert "--max-cv: -5 % is not a positive number" in result.stderr
 
 
 def test_unmix_refuses_an_implausible_wavelength_offset(files, cli):
     """A 100 nm 'correction' is a mistake (sign or unit), not a scale offset."""
     result = cli("unmix", files["lib"], files["spectra"], "--wavelength-offset", "100")
     assert_cli_error(result)
-    assert "beyond ±10 nm" in result.stderr
+    assert ("--wavelength-offset: 100 nm is not a number from -10 to 10 nm; an error that "
+            "large is a fault to repair") in result.stderr

@@ -17,7 +17,8 @@ from helpers_io import MIXTURES, WL, leftovers, mixture_absorbance, write_librar
 
 import mixsolve as ms
 from mixsolve.uncertainty.budget import SOURCES
-from mixsolve.uncertainty.volumetric import parse_dilution
+from mixsolve.uncertainty.inputs import BudgetInputs
+from mixsolve.uncertainty.volumetric import Dilution, parse_dilution
 
 CONC = np.array([[4.0e-5, 2.0e-5, 3.0e-5], [1.0e-5, 5.0e-5, 2.0e-5]])  # mol/L, invented
 
@@ -258,18 +259,42 @@ def test_budget_table_is_tidy(noisy_result, uncertain_library) -> None:
 
 
 @pytest.mark.parametrize(("kwargs", "message"), [
-    ({"pathlength_u_cm": -0.1}, r"pathlength_u_cm: -0\.1 cm must be a number ≥ 0"),
+    ({"pathlength_u_cm": -0.1}, r"^pathlength_u_cm: -0\.1 cm is not a number ≥ 0$"),
     ({"wavelength_u_nm": 0.1, "wavelength_tolerance_nm": 1.0}, r"not both"),
-    ({"monte_carlo": 10}, r"monte_carlo: 10 draws; at least 1000"),
+    ({"monte_carlo": 10}, r"^monte_carlo: 10 draws is not a whole number ≥ 1000 draws$"),
+    ({"monte_carlo": 1500.5}, r"^monte_carlo: 1500\.5 draws is not a whole number ≥ 1000"),
     ({"carryover_from": "air"}, r"carryover_from: 'air' is not"),
-    ({"coverage_factor": 0}, r"coverage_factor: 0 must be a positive number"),
-    ({"stray_fraction": 1.5}, r"stray_fraction: 1\.5 must be below 1"),
-    ({"fill_volume_ul": 0}, r"fill_volume_ul: 0 µL must be positive"),
+    ({"coverage_factor": 0}, r"^coverage_factor: 0 is not a positive number$"),
+    ({"stray_fraction": 1.5}, r"^stray_fraction: 1\.5 is not a number ≥ 0 and below 1$"),
+    ({"fill_volume_ul": 0}, r"^fill_volume_ul: 0 µL is not a positive number$"),
+    ({"carryover_ul": np.nan}, r"^carryover_ul: nan µL is not a finite number$"),
+    ({"dilution": "1/x"}, r"^dilution: 'x' in step '1/x' is not a volume in mL"),
+    ({"noise_sd": [0.001]}, r"^noise_sd: list is not a DataArray"),
 ])
 def test_bad_budget_options(noisy_result, uncertain_library, kwargs, message) -> None:
-    """Each bad option is refused with a message naming it and the value."""
+    """Each bad option is refused with a message naming it and the value, and already
+    when the inputs are made (before any work)."""
     with pytest.raises(ms.InputError, match=message):
         ms.uncertainty_budget(noisy_result, uncertain_library, **kwargs)
+    with pytest.raises(ms.InputError, match=message):
+        BudgetInputs(**kwargs)
+
+
+def test_budget_inputs_as_one_record(noisy_result, uncertain_library) -> None:
+    """The budget takes its inputs as one BudgetInputs or by name, with the same result;
+    names given beside a record replace its fields, and dilution text is read once."""
+    inputs = BudgetInputs(pathlength_u_cm=0.002, dilution="1/10", carryover_ul=15.0)
+    assert isinstance(inputs.dilution, Dilution) and inputs.dilution.factor == 10.0
+    assert inputs.changed() == ["pathlength_u_cm", "dilution", "carryover_ul"]
+    by_record = ms.uncertainty_budget(noisy_result, uncertain_library, inputs)
+    by_name = ms.uncertainty_budget(noisy_result, uncertain_library, pathlength_u_cm=0.002,
+                                    dilution="1/10", carryover_ul=15.0)
+    xr.testing.assert_identical(by_record, by_name)
+    mixed = ms.uncertainty_budget(noisy_result, uncertain_library, inputs, carryover_ul=None)
+    assert (mixed["contribution"].sel(source="carryover") == 0).all()
+    assert not (by_record["contribution"].sel(source="carryover") == 0).all()
+    with pytest.raises(TypeError, match="pathlength_u"):
+        ms.uncertainty_budget(noisy_result, uncertain_library, pathlength_u=0.002)
 
 
 def test_budget_refuses_another_library_or_a_non_ls_result(noisy_result) -> None:

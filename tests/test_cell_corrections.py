@@ -107,14 +107,17 @@ def test_shift_wavelengths_moves_the_axis(wl_grid) -> None:
     out = ms.shift_wavelengths(spectra, 0.4)
     assert np.allclose(out["wavelength"].values, wl_grid - 0.4)
     assert out.attrs["wavelength_offset_nm"] == 0.4
-    with pytest.raises(ms.InputError, match=r"wavelength offset: 500 nm is beyond ±10 nm"):
+    with pytest.raises(ms.InputError, match=r"^offset_nm: 500 nm is not a number from -10 to "
+                                            r"10 nm; an error that large is a fault to repair"):
         ms.shift_wavelengths(spectra, 500.0)
+    with pytest.raises(ms.InputError, match=r"^offset_nm: 10 nm would make -9\.5 nm ≤ 0$"):
+        ms.shift_wavelengths(ms.make_spectra(np.ones((1, 3)), [0.5, 1.0, 2.0]), 10.0)
 
 
 @pytest.mark.parametrize(("kwargs", "message"), [
-    ({"ratio": 0.0}, r"cell ratio: 0 is not a positive number"),
-    ({"u_ratio": -1.0}, r"cell ratio: uncertainty -1 must be a number ≥ 0"),
-    ({"u_au": -0.1}, r"cell blank: u_au = -0.1 AU must be a number ≥ 0"),
+    ({"ratio": 0.0}, r"^ratio: 0 is not a positive number$"),
+    ({"u_ratio": -1.0}, r"^u_ratio: -1 is not a number ≥ 0$"),
+    ({"u_au": -0.1}, r"^u_au: -0\.1 AU is not a number ≥ 0$"),
 ])
 def test_bad_cell_options(wl_grid, kwargs, message) -> None:
     """Bad ratio or uncertainties are refused, naming the value."""
@@ -211,3 +214,63 @@ def test_cli_offset_uncertainty_replaces_the_tolerance_in_the_budget(tmp_path, c
     assert np.allclose(rows["input_uncertainty"], 0.05)
     assert set(rows["distribution"]) == {"normal"}
     assert "cell_blank" in run.stdout  # a single blank scan: not stated, and said so
+
+
+# --- one path for the data ------------------------------------------------------------------
+
+
+def test_unmix_files_reads_each_file_once_then_corrects_fits_and_reports(tmp_path,
+                                                                        monkeypatch) -> None:
+    """Every input file is read once, by the file workflow; the corrections are made in
+    core (correct_spectra) on the spectra as read, and the budget module reads nothing."""
+    import ast
+    import inspect
+
+    from mixsolve.workflows import measurement, unmix_files
+
+    lib = write_library_file(tmp_path / "lib.nc")
+    spectra = write_wide(tmp_path / "mix.csv")
+    blank = write_wide(tmp_path / "blank.csv", {"b": window_absorbance(WL)})
+    scans = write_wide(tmp_path / "scans.csv", {f"s{i}": window_absorbance(WL) + 1e-4 * i
+                                                for i in range(3)})
+    reads: list[str] = []
+    real = unmix_files.read_spectra
+
+    def counted(path, *args, **kwargs):
+        reads.append(str(path))
+        return real(path, *args, **kwargs)
+
+    monkeypatch.setattr(unmix_files, "read_spectra", counted)
+    result = unmix_files.unmix_files(
+        lib, spectra, method="ols", window=(420.0, 680.0), measurement={
+            "cell_blank": blank, "cell_ratio": "1.01±0.001", "wavelength_offset": "0.2±0.05",
+            "repeat_scans": scans, "budget": tmp_path / "b.csv", "pathlength_u": 0.001})
+    assert sorted(reads) == sorted(map(str, (spectra, blank, scans)))
+    assert result.attrs["budget_noise_from"] == "repeat scans"
+    assert float(result["budget_input_uncertainty"].sel(source="pathlength").max()) == 0.001
+    imported = {node.module for node in ast.walk(ast.parse(inspect.getsource(measurement)))
+                if isinstance(node, ast.ImportFrom)}
+    assert not any(str(m).startswith("mixsolve.io") for m in imported), imported
+
+
+def test_measurement_options_carry_one_budget_inputs_record() -> None:
+    """The budget's settings travel as one BudgetInputs, given by field name or by the
+    name of their command-line option; without a budget file they are refused."""
+    from mixsolve.uncertainty.inputs import BudgetInputs
+    from mixsolve.workflows.measurement import MeasurementOptions, measurement_options
+
+    by_option = measurement_options({"budget": "b.csv", "pathlength_u": 0.01, "carryover": 5,
+                                     "fill_volume": None, "stray": 1e-4, "dilution": "1/10"})
+    by_field = measurement_options({"budget": "b.csv", "pathlength_u_cm": 0.01,
+                                    "carryover_ul": 5, "stray_fraction": 1e-4,
+                                    "dilution": "1/10"})
+    assert isinstance(by_option.inputs, BudgetInputs)
+    assert by_option.inputs.changed() == by_field.inputs.changed() == [
+        "pathlength_u_cm", "dilution", "carryover_ul", "stray_fraction"]
+    assert by_option.inputs.fill_volume_ul == 3000.0
+    with pytest.raises(ms.InputError, match=r"^--carryover: a budget setting; give --budget "):
+        measurement_options({"carryover": 5})
+    with pytest.raises(ms.InputError, match=r"^--repeat-scans: a budget setting"):
+        MeasurementOptions(repeat_scans="scans.csv")
+    with pytest.raises(ms.InputError, match=r"^measurement options: unknown colour$"):
+        measurement_options({"colour": "red"})

@@ -209,8 +209,8 @@ def test_each_command_help_shows_the_core_defaults_and_choices(path, command):
 
 def test_the_choices_are_the_cores_tuples():
     from mixsolve.plate.wells import PLATE_SHAPES
-    from mixsolve.solve.engine import METHODS
     from mixsolve.solve.design import BASELINES
+    from mixsolve.solve.engine import METHODS
 
     params = {p.name: p for p in dict(COMMANDS)[("plate",)].params}
     assert params["method"].type.choices == METHODS
@@ -244,7 +244,7 @@ def test_help_texts_name_what_the_core_offers():
     """Values named in help texts (not options' defaults) match the core."""
     from mixsolve.noise import PRESETS
     from mixsolve.pls.cross_validation import DEFAULT_FOLDS
-    from mixsolve.uncertainty.measurement_model import DEFAULT_FILL_VOLUME_UL
+    from mixsolve.uncertainty.inputs import DEFAULT_FILL_VOLUME_UL
 
     unmix = " ".join(invoke("unmix", "--help").stdout.split())
     for preset in PRESETS:

@@ -8,6 +8,8 @@ texts come from a shared cache or are built afresh. Numbers invented and seeded.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -65,3 +67,19 @@ def test_flag_texts_keep_the_shape() -> None:
     one = flag_texts(np.array(0), np.zeros(1, bool), np.ones(1), np.ones(1), np.zeros(1),
                      ["a"], ols=False, tolerance_nm=0.5)
     assert one.shape == () and one[()] == ""
+
+
+def test_every_flag_code_lives_in_flags_with_its_meaning():
+    """Every code (status, component, plate well and sample, PLS) is a constant of
+    mixsolve.flags with a one-line meaning there, and is documented."""
+    import mixsolve.flags as flags
+
+    codes = set(STATUS_CODES.values()) | {
+        value for name, value in vars(flags).items() if name.isupper() and isinstance(value, str)}
+    assert codes == set(flags.FLAG_MEANINGS)
+    assert set(flags.COMPONENT_CODES) <= codes
+    docs = Path(__file__).parents[1] / "docs"
+    text = "".join((docs / name).read_text(encoding="utf-8") for name in ("flags.md",
+                                                                           "plates.md"))
+    for code in codes:
+        assert f"`{code}" in text, code

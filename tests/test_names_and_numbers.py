@@ -39,7 +39,7 @@ from helpers_io import (
 
 import mixsolve as ms
 from mixsolve.errors import InputError
-from mixsolve.flags import NO_SIGNAL, STATUS_CODES
+from mixsolve.flags import FLAG_MEANINGS, NO_SIGNAL, STATUS_CODES
 from mixsolve.instrument.absorbance_scale import check_absorbance_scale
 from mixsolve.instrument.stray_light import check_stray_light
 from mixsolve.instrument.wavelength_scale import check_wavelength_scale
@@ -48,7 +48,7 @@ from mixsolve.io.reference_io import read_reference
 from mixsolve.io.standards_io import read_standards
 from mixsolve.names import check_spellings, check_unique_names, normalise_name
 from mixsolve.report.figures import PLOT_LIMIT, drawable, literal, sample_figure
-from mixsolve.report.plate_page import FLAG_TEXT, heat_map, residual_figure
+from mixsolve.report.plate_page import heat_map, residual_figure
 from mixsolve.solve.design import MAX_CONDITION_NUMBER
 from mixsolve.spectra import check_number, check_wavelength_list
 from mixsolve.wavelengths.check import check_wavelengths
@@ -307,6 +307,42 @@ def test_number_and_wavelength_list_checks():
             check_number(bad, "x", "nm")
     with pytest.raises(InputError, match="x: 0 nm is not a positive number"):
         check_number(0, "x", "nm", positive=True)
+
+
+@pytest.mark.parametrize(("value", "bounds", "message"), [
+    (-1, {"low": 0}, "x: -1 nm is not a number ≥ 0"),
+    (0, {"low": 0, "low_open": True}, "x: 0 nm is not a positive number"),
+    (0, {"low": 0, "low_open": True, "integer": True}, "x: 0 nm is not a positive whole number"),
+    (1, {"low": 0, "high": 1, "high_open": True}, "x: 1 nm is not a number ≥ 0 and below 1 nm"),
+    (2, {"high": 1}, "x: 2 nm is not a number ≤ 1 nm"),
+    (12, {"low": -10, "high": 10}, "x: 12 nm is not a number from -10 to 10 nm"),
+    (-3, {"low": -2, "low_open": True}, "x: -3 nm is not a number > -2 nm"),
+    (2.5, {"integer": True}, "x: 2.5 nm is not a whole number"),
+    (999, {"low": 1000, "integer": True, "hint": "fewer say little"},
+     "x: 999 nm is not a whole number ≥ 1000 nm; fewer say little"),
+    (True, {}, "x: True is not a number"),
+    (np.bool_(False), {}, "x: np.False_ is not a number"),
+    (None, {"positive": True}, "x: None is not a number"),
+])
+def test_check_number_bounds_in_one_message_shape(value, bounds, message):
+    """check_number: what, which value, what is allowed; bounds in or out, whole numbers."""
+    with pytest.raises(InputError, match="^" + re.escape(message[:-1]) + ""):
+        check_number(value, "x", "nm", **bounds)
+
+
+def test_check_number_accepts_the_ends_it_includes():
+    assert check_number(0, "x", low=0) == 0.0
+    assert check_number("10", "x", low=-10, high=10) == 10.0
+    assert check_number(1000.0, "x", low=1000, integer=True) == 1000.0
+    assert check_number(0.999, "x", low=0, high=1, high_open=True) == 0.999
+
+
+def test_reader_options_refused_before_the_file_is_read(tmp_path):
+    """A bad option of a reader is named before the (here missing) file is opened."""
+    with pytest.raises(InputError, match=r"^pathlength_cm: 0 cm is not a positive number$"):
+        ms.read_spectra(tmp_path / "missing.csv", pathlength_cm=0)
+    with pytest.raises(InputError, match=r"^chunk_spectra: 0 is not a whole number ≥ 1$"):
+        ms.read_cube(tmp_path / "missing.zarr", chunk_spectra=0)
     assert list(check_wavelength_list([450, 620])) == [450.0, 620.0]
     for bad in ([450, np.nan, 620], [np.inf], [-3.0]):
         with pytest.raises(InputError, match=r"wavelengths: \S+ nm is not a positive finite"):
@@ -332,11 +368,15 @@ def test_nan_wavelength_refused_by_the_api():
 def test_instrument_options_refused_by_the_api():
     """bandwidth (recorded in the log) and holmium band positions must be finite."""
     flat = ms.make_spectra(np.full((1, WL.size), 0.5), WL)
-    with pytest.raises(InputError, match=r"bandwidth: nan nm is not a finite number"):
+    with pytest.raises(InputError, match=r"^bandwidth_nm: nan nm is not a finite number$"):
         check_absorbance_scale(flat, concentration_mg_l=60.0, bandwidth_nm=np.nan)
-    with pytest.raises(InputError, match=r"bandwidth: -1 nm is not a positive number"):
+    with pytest.raises(InputError, match=r"^bandwidth_nm: -1 nm is not a positive number$"):
         check_stray_light(flat, bandwidth_nm=-1.0)
-    with pytest.raises(InputError, match=r"bands: inf nm is not a positive finite"):
+    with pytest.raises(InputError, match=r"^bandwidth_nm: 0 nm is not a positive number$"):
+        check_wavelength_scale(flat, bandwidth_nm=0.0)
+    with pytest.raises(InputError, match=r"^reference_u_nm: -0\.1 nm is not a number ≥ 0$"):
+        check_wavelength_scale(flat, reference_u_nm=-0.1)
+    with pytest.raises(InputError, match=r"^bands_nm: inf nm is not a positive finite"):
         check_wavelength_scale(flat, bands_nm=[450.0, np.inf])
 
 
@@ -352,7 +392,7 @@ def test_instrument_options_refused_by_the_api():
     (["unmix", "{lib}", "{spectra}", "--pathlength", "inf", "--out", "{out}"],
      "pathlength: inf cm is not a finite number"),
     (["unmix", "{lib}", "{spectra}", "--max-shift", "nan", "--out", "{out}"],
-     "max_shift_nm: nan nm is not a finite number"),
+     "--max-shift: nan nm is not a finite number"),
     (["library", "import", "{table}", "--unit", "L/(mol*cm)", "--molar-mass", "red=nan",
       "--out", "{out}"], "--molar-mass: nan in 'red=nan' is not a finite number"),
     (["wavelengths", "check", "{lib}", "--wavelengths", "450,nan,620"],
@@ -362,7 +402,7 @@ def test_instrument_options_refused_by_the_api():
     (["instrument", "wavelength", "{spectra}", "--bands", "241.15,nan"],
      "--bands: nan in '241.15,nan' is not a finite number"),
     (["instrument", "stray-light", "{spectra}", "--bandwidth", "nan"],
-     "bandwidth: nan nm is not a finite number"),
+     "--bandwidth: nan nm is not a finite number"),
 ])
 def test_nan_and_infinite_options_refused_by_cli(cuvette, args, needle, cli):
     """One line naming the option and value, exit 2, nothing written, inputs unchanged."""
@@ -406,7 +446,7 @@ def test_choice_on_a_library_with_zero_tails_is_well_conditioned(cut_nm):
     assert choice.chosen.attrs["condition_number"] < MAX_CONDITION_NUMBER
     assert sorted(choice.wavelengths_nm) == [450.0, 530.0, 620.0]
     if cut_nm <= 50:
-        with pytest.raises(InputError, match=r"--count 3: no contiguous run of 3 candidate "
+        with pytest.raises(InputError, match=r"count: no contiguous run of 3 candidate "
                                              "wavelengths separates the components"):
             choose_wavelengths(lib, 3, contiguous=True)
 
@@ -445,7 +485,7 @@ def test_every_status_code_is_explained():
     docs/flags.md."""
     doc = (Path(__file__).parents[1] / "docs" / "flags.md").read_text(encoding="utf-8")
     for code in STATUS_CODES.values():
-        assert code in FLAG_TEXT, code
+        assert code in FLAG_MEANINGS, code
         assert f"| `{code}` |" in doc, code
 
 

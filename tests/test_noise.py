@@ -127,11 +127,11 @@ def test_default_absorbance_range_is_the_common_practice_0_3_to_2():
 # --- validation ----------------------------------------------------------------------------
 
 @pytest.mark.parametrize(("kwargs", "message"), [
-    ({"k0": -1e-3}, r"k0 = -0\.001 must be a number ≥ 0"),
-    ({"k1": float("nan")}, r"k1 = nan must be a number ≥ 0"),
-    ({"k0": 1e-3, "stray": -0.1}, r"stray = -0\.1 must be a number ≥ 0"),
+    ({"k0": -1e-3}, r"^noise model, k0: -0\.001 is not a number ≥ 0$"),
+    ({"k1": float("nan")}, r"^noise model, k1: nan is not a finite number$"),
+    ({"k0": 1e-3, "stray": -0.1}, r"^noise model, stray: -0\.1 is not a number ≥ 0 and below 1$"),
     ({}, r"k0, k1 and k2 are all 0"),
-    ({"k0": 1e-3, "stray": 1.0}, r"stray = 1 must be below 1"),
+    ({"k0": 1e-3, "stray": 1.0}, r"^noise model, stray: 1 is not a number ≥ 0 and below 1$"),
 ])
 def test_noise_model_rejects_bad_parameters(kwargs, message):
     """Negative, NaN, all-zero terms and stray ≥ 1 are InputErrors naming the parameter."""
@@ -167,8 +167,10 @@ def test_noise_model_rejects_unknown_presets_and_non_positive_sigma():
     with pytest.raises(InputError, match=r"unknown preset 'benchtop'; presets are "
                                          r"benchtop_double_beam, diode_array"):
         noise_model("benchtop")
-    for bad in (0.0, -0.001, float("nan")):
-        with pytest.raises(InputError, match=r"must be a positive number"):
+    for bad, message in ((0.0, "0 AU is not a positive number"),
+                         (-0.001, "-0.001 AU is not a positive number"),
+                         (float("nan"), "nan AU is not a finite number")):
+        with pytest.raises(InputError, match=rf"^noise: {message}$"):
             noise_model(bad)
 
 

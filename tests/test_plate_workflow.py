@@ -32,6 +32,7 @@ import mixsolve as ms
 from mixsolve.errors import FileFormatError, InputError, UnitError
 from mixsolve.plate.wells import plate_wells
 from mixsolve.report.html import SAFETY_CAUTIONS
+from mixsolve.report.plate_text import plate_notes, plate_settings
 from mixsolve.report.text import CAUTION
 from mixsolve.workflows.plate import find_exports
 
@@ -96,7 +97,7 @@ def test_read_layout_csv_and_xlsx(tmp_path):
         ("well,role,sample\nB1,sample,\n", InputError,
          r"^l\.csv, line 2, well B1: a sample well needs a sample name$"),
         ("well,role,sample,dilution\nB1,sample,S1,0\n", InputError,
-         r"^l\.csv, line 2, well B1: dilution 0 is not a positive number$"),
+         r"^l\.csv, line 2, well B1, dilution: 0 is not a positive number$"),
         ("well,role,sample,dilution\nB1,sample,S1,two\n", InputError,
          r"^l\.csv, line 2, well B1, dilution: 'two' is not a number$"),
         ("well,role,sample\nH1,standard,s\n", FileFormatError,
@@ -104,7 +105,7 @@ def test_read_layout_csv_and_xlsx(tmp_path):
         ("well,role,component,concentration,unit\nH1,standard,,1,mg/L\n", InputError,
          r"^l\.csv, line 2, well H1: a standard well needs a component$"),
         ("well,role,component,concentration,unit\nH1,standard,red,-1,mg/L\n", InputError,
-         r"^l\.csv, line 2, well H1: concentration -1 is negative$"),
+         r"^l\.csv, line 2, well H1, concentration: -1 is not a number ≥ 0$"),
         ("well,role,component,concentration,unit\nH1,standard,red,1,furlongs\n", UnitError,
          r"^l\.csv, line 2, well H1: unit: 'furlongs' is not a concentration; expected "
          r"amount/volume such as mmol/L"),
@@ -137,9 +138,13 @@ def test_plate_with_library_recovers_samples_and_lists_every_well(files):
     # The blank (background 0.035 AU) was subtracted and its scatter reported.
     np.testing.assert_allclose(done.blank_mean.values, BACKGROUND_AU, atol=0.002)
     assert 0.0002 < float(np.nanmedian(done.blank_sd.values)) < 0.002
-    assert done.settings["blank"].startswith("4 well(s), mean spectrum subtracted; SD")
-    assert done.settings["export"].startswith("plate1.csv (grid blocks, 96-well, separator "
-                                              "comma")
+    settings = plate_settings(done)
+    assert settings["blank"].startswith("4 well(s), mean spectrum subtracted; SD")
+    assert settings["export"].startswith("plate1.csv (grid blocks, 96-well, separator comma")
+    assert settings["pathlength"] == "0.5 cm (given)"
+    assert settings["high_cv flag"].startswith("CV > 20 % for a component")
+    assert done.options.pathlength_mode == "fixed" and done.options.max_cv == 0.2
+    assert len(done.options.blank_wells) == 4
     # Sample statistics follow the documented rule, from the wells' own numbers.
     s1 = wells.loc[[(f"B{c}", "red") for c in range(1, 7)]]
     row = _samples(done).loc[("S1", "red")]
@@ -181,9 +186,9 @@ def test_water_band_pathlength_per_well(tmp_path):
     np.testing.assert_allclose(found, truth, atol=5 * sigma_b)
     assert np.abs(found - truth).mean() < sigma_b
     assert_recovers_samples(_samples(done), z=6.0)
-    assert "water band" in done.settings["pathlength"]
+    assert "water band" in plate_settings(done)["pathlength"]
     assert any("900, 977 nm) were not fitted (used for the pathlength)" in n
-               for n in done.notes)
+               for n in plate_notes(done))
     # The water constant is settable (it depends on temperature).
     warm = ms.analyse_plate(ms.read_plate(path), layout, make_library(), water_band=True,
                             water_k_au_per_cm=0.2)
@@ -199,16 +204,28 @@ def test_volume_pathlength_and_option_conflicts(files):
     np.testing.assert_allclose(done.pathlength_cm, b)
     assert_recovers_samples(_samples(done))
     with pytest.raises(InputError, match=r"^pathlength given 2 ways \(fixed, volume\); give "
-                                         r"one of --pathlength, --volume-ul with "
-                                         r"--well-diameter-mm, or --water-band$"):
+                                         r"one of pathlength_cm, volume_ul with "
+                                         r"well_diameter_mm, or water_band$"):
         ms.analyse_plate(plate, layout, lib, pathlength_cm=0.5, volume_ul=100,
                          well_diameter_mm=6.4)
-    with pytest.raises(InputError, match=r"^--volume-ul and --well-diameter-mm go together"):
+    with pytest.raises(InputError, match=r"^volume_ul and well_diameter_mm go together"):
         ms.analyse_plate(plate, layout, lib, volume_ul=100)
-    with pytest.raises(InputError, match=r"^give either a library or --library-from-plate"):
+    with pytest.raises(InputError, match=r"^volume_ul: 0 µL is not a positive number$"):
+        ms.analyse_plate(plate, layout, lib, volume_ul=0, well_diameter_mm=6.4)
+    with pytest.raises(InputError, match=r"^give either library or library_from_plate, not "
+                                         r"both$"):
         ms.analyse_plate(plate, layout, lib, library_from_plate=True)
-    with pytest.raises(InputError, match=r"^no library: give one \(--library LIB\.nc\) or"):
+    with pytest.raises(InputError, match=r"^no library: give library, or build it from the "
+                                         r"plate's standard wells \(library_from_plate\)$"):
         ms.analyse_plate(plate, layout)
+    for options, message in (
+            ({"pathlength_cm": 0.0}, r"^pathlength_cm: 0 cm is not a positive number$"),
+            ({"max_cv": -0.05}, r"^max_cv: -0\.05 is not a positive number; a fraction of the "
+                                r"mean: 0\.2 flags a CV above 20 %$"),
+            ({"water_band": True, "water_k_au_per_cm": 0.0},
+             r"^water_k_au_per_cm: 0 AU/cm is not a positive number$")):
+        with pytest.raises(InputError, match=message):
+            ms.analyse_plate(plate, layout, lib, **options)
     with pytest.raises(InputError, match=r"^plate1\.csv: the water-band pathlength needs "
                                          r"readings at 900 and 977 nm"):
         ms.analyse_plate(plate, layout, lib, water_band=True)
@@ -218,7 +235,7 @@ def test_default_pathlength_is_one_cm_with_a_note(files):
     done = ms.analyse_plate(ms.read_plate(files["export"]), ms.read_layout(files["layout"]),
                             make_library())
     assert (done.pathlength_cm == 1.0).all()
-    assert done.notes[0].startswith("No pathlength was given, so 1 cm was assumed")
+    assert plate_notes(done)[0].startswith("No pathlength was given, so 1 cm was assumed")
     s1 = _samples(done).loc[("S1", "red"), "concentration"]
     assert s1 == pytest.approx(2.0e-5 * 0.5, rel=0.05)  # b 0.5 cm read as 1 cm: half
 
@@ -237,13 +254,14 @@ def test_library_from_plate_standards(files, tmp_path):
     done = ms.analyse_plate(plate, layout, library_from_plate=True, pathlength_cm=0.5,
                             unit="umol/L")
     assert "built from standards" in done.library.attrs["provenance"]
-    assert done.settings["library"].startswith("built from 6 standard wells of this plate")
+    assert plate_settings(done)["library"].startswith("built from 6 standard wells of this "
+                                                      "plate")
     samples = _samples(done)
     for sample, (red, _) in SAMPLES.items():
         assert samples.loc[(sample, "red"), "concentration"] == pytest.approx(red * 1e6,
                                                                                rel=0.08, abs=0.3)
     no_std = ms.read_layout(write_text(tmp_path / "nostd.csv", "well,role\nA1,blank\n"))
-    with pytest.raises(InputError, match=r"^nostd\.csv: --library-from-plate needs standard "
+    with pytest.raises(InputError, match=r"^nostd\.csv: library_from_plate needs standard "
                                          r"wells read in plate1\.csv; the layout has none$"):
         ms.analyse_plate(plate, no_std, library_from_plate=True)
 
@@ -435,9 +453,9 @@ def test_cli_plate(tmp_path, files, cli):
 
 
 @pytest.mark.parametrize(("extra", "message"), [
-    (["--library-from-plate"], "error: give either a library or --library-from-plate, not both"),
+    (["--library-from-plate"], "error: give either library or library_from_plate, not both"),
     (["--pathlength", "0.5", "--water-band"], "error: pathlength given 2 ways (fixed, water "
-                                              "band); give one of --pathlength"),
+                                              "band); give one of pathlength_cm"),
     (["--range", "high"], "error: --range: 'high' is not LOW-HIGH"),
 ])
 def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message, cli):

@@ -246,7 +246,7 @@ def test_well_off_the_requested_plate(tmp_path):
     with pytest.raises(InputError, match=r"^p\.csv: well M5 is not on a 96-well plate "
                                          r"\(A1-H12\)$"):
         ms.read_plate(path, plate_size=96)
-    with pytest.raises(InputError, match=r"^--plate-size: 48 is not one of 96, 384$"):
+    with pytest.raises(InputError, match=r"^plate_size: 48 is not one of 96, 384$"):
         ms.read_plate(path, plate_size=48)
 
 
@@ -270,7 +270,7 @@ def test_pathlength_from_volume():
     # b = V / (π r²): 200 µL = 0.2 cm³ in a 6.96 mm well → 0.2 / (π · 0.348²) cm.
     assert pathlength_from_volume(200.0, 6.96) == pytest.approx(0.2 / (np.pi * 0.348**2))
     assert pathlength_from_volume(200.0, 6.96) == pytest.approx(0.5257, abs=1e-4)
-    with pytest.raises(InputError, match=r"^--well-diameter-mm: 0.0 mm is not a positive"):
+    with pytest.raises(InputError, match=r"^well_diameter_mm: 0 mm is not a positive number$"):
         pathlength_from_volume(200.0, 0.0)
 
 
@@ -288,9 +288,10 @@ def test_water_band_pathlength_from_a_synthetic_water_spectrum():
     np.testing.assert_allclose(warm.values[:3], b_true[:3] * 0.18 / 0.17, rtol=1e-9)
     with pytest.raises(InputError, match=r"^exp\.csv: the water-band pathlength needs readings "
                                          r"at 900 and 977 nm, but 900 nm was not read \(read "
-                                         r"400-700 nm\); give --pathlength or --volume-ul"):
+                                         r"400-700 nm\); give pathlength_cm, or volume_ul with "
+                                         r"well_diameter_mm, instead$"):
         water_band_pathlength(spectra.sel(wavelength=WL), name="exp.csv")
-    with pytest.raises(InputError, match=r"^--water-k: -1 AU/cm is not a positive number$"):
+    with pytest.raises(InputError, match=r"^au_per_cm: -1 AU/cm is not a positive number$"):
         water_band_pathlength(spectra, au_per_cm=-1.0)
 
 

@@ -66,7 +66,7 @@ def test_reference_matrix_converts_to_the_first_unit() -> None:
      r"sample 's2' has no concentration for 'b'"),
     ([("s1", "a", 1.0, "mg/L"), ("s1", "b", 1.0, "mmol/L")],
      r"line 2: unit 'mmol/L' is molar-based but line 1 uses 'mg/L'"),
-    ([("s1", "a", -1.0, "mg/L")], r"line 1: concentration -1 is negative"),
+    ([("s1", "a", -1.0, "mg/L")], r"line 1, concentration: -1 is not a number ≥ 0$"),
     ([("s1", "a", np.nan, "mg/L")], r"line 1: concentration of 'a' in 's1' is missing"),
     ([("s1", "a", 1.0, "zorg")], r"line 1: unit: unknown unit 'zorg'"),
 ])
@@ -214,15 +214,19 @@ def test_auto_mode_picks_the_lower_cv_error(calibration) -> None:
 @pytest.mark.parametrize(("options", "match"), [
     ({"latent": 0}, r"latent: 0 is not 'auto' or a whole number"),
     ({"latent": 30}, r"latent: 30 latent variables is more than the \d+ this calibration"),
-    ({"folds": 1}, r"folds: 1 is not between 2 and the number of calibration samples \(24\)"),
-    ({"folds": 25}, r"folds: 25 is not between 2"),
+    ({"folds": 1}, r"^folds: 1 is not a whole number from 2 to 24; at most one fold per "
+                   r"calibration sample \(24\)$"),
+    ({"folds": 25}, r"^folds: 25 is not a whole number from 2 to 24"),
+    ({"max_latent": 0}, r"^max_latent: 0 is not a whole number ≥ 1$"),
     ({"mode": "pls3"}, r"mode: 'pls3' is not one of"),
     ({"scale": "pareto"}, r"scale: 'pareto' is not one of"),
     ({"split": "venetian"}, r"split: 'venetian' is not one of"),
-    ({"derivative": 4}, r"derivative: window of 4 points must be an odd whole number"),
-    ({"derivative": 5, "polyorder": 5}, r"polynomial order 5 must be ≥ 1 and below"),
+    ({"derivative": 4}, r"^derivative: 4 points is not an odd whole number ≥ 3, e\.g\. 11$"),
+    ({"derivative": 1}, r"^derivative: 1 points is not a whole number ≥ 3 points; an odd"),
+    ({"derivative": 5, "polyorder": 5}, r"^polyorder: 5 is not a whole number ≥ 1 and below 5; "
+                                        r"the derivative window is 5 points$"),
     ({"window": (700, 800)}, r"window 700-800 nm holds 0 measured wavelength"),
-    ({"pathlength_cm": 0.0}, r"pathlength: 0 cm is not a positive number"),
+    ({"pathlength_cm": 0.0}, r"^pathlength_cm: 0 cm is not a positive number$"),
 ])
 def test_calibrate_option_errors(calibration, options, match) -> None:
     spectra, ref = calibration

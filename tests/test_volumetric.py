@@ -50,7 +50,7 @@ def test_triangular_divides_by_root_six() -> None:
     ("1/x", r"'x' in step '1/x' is not a volume in mL"),
     ("1/7", r"no 7 mL flask-A in the table \(sizes 5, 10"),
     ("1:burette/10", r"unknown device 'burette'"),
-    ("0/10", r"volume 0 mL is not a positive number"),
+    ("0/10", r"^dilution, volume: 0 mL is not a positive number$"),
     ("20:piston/100", r"above the largest piston pipette"),
 ])
 def test_bad_dilutions(text, message) -> None:

@@ -90,24 +90,21 @@ def check_absorbance_scale(
         pathlength, a check wavelength not measured.
     """
     if bandwidth_nm is not None:  # recorded in the log: a number or nothing
-        bandwidth_nm = check_number(bandwidth_nm, "bandwidth", "nm", positive=True)
+        bandwidth_nm = check_number(bandwidth_nm, "bandwidth_nm", "nm", positive=True)
     labels, wl, values = scans_of(spectra, "dichromate spectra")
     conc = np.atleast_1d(np.asarray(concentration_mg_l, dtype=float))
     if conc.size == 1:
         conc = np.repeat(conc, len(labels))
     if conc.size != len(labels):
-        raise InputError(f"concentration: {conc.size} values for {len(labels)} spectra; give "
-                         "one, or one per spectrum in file order")
-    if not np.all(np.isfinite(conc) & (conc > 0)):
-        bad = conc[~(np.isfinite(conc) & (conc > 0))][0]
-        raise InputError(f"concentration: {bad:g} mg/L is not a positive number")
-    b = float(pathlength_cm)
-    if not (np.isfinite(b) and b > 0):
-        raise InputError(f"pathlength: {pathlength_cm!r} cm is not a positive number")
-    for name, value in (("tolerance", tolerance_pct),
-                        ("linearity tolerance", linearity_tolerance_pct)):
-        if value is not None and not (np.isfinite(value) and value > 0):
-            raise InputError(f"{name}: {value!r} % must be a positive number")
+        raise InputError(f"concentration_mg_l: {conc.size} values for {len(labels)} spectra; "
+                         "give one, or one per spectrum in file order")
+    for value in conc:
+        check_number(value, "concentration_mg_l", "mg/L", positive=True)
+    b = check_number(pathlength_cm, "pathlength_cm", "cm", positive=True)
+    for name, value in (("tolerance_pct", tolerance_pct),
+                        ("linearity_tolerance_pct", linearity_tolerance_pct)):
+        if value is not None:
+            check_number(value, name, "%", positive=True)
     rows, specific = [], np.full((len(labels), len(DICHROMATE_SPECIFIC_ABSORBANCE)), np.nan)
     for i, label in enumerate(labels):
         for j, (lam, (nominal, low, high)) in enumerate(DICHROMATE_SPECIFIC_ABSORBANCE.items()):

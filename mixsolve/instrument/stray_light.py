@@ -14,7 +14,6 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from mixsolve.errors import InputError
 from mixsolve.instrument.result import (
     CheckResult,
     items_frame,
@@ -62,11 +61,9 @@ def check_stray_light(spectra: xr.DataArray, *, wavelength_nm: float = KCL_WAVEL
         A bad limit or wavelength, or no reading near ``wavelength_nm``.
     """
     if bandwidth_nm is not None:  # recorded in the log: a number or nothing
-        bandwidth_nm = check_number(bandwidth_nm, "bandwidth", "nm", positive=True)
-    if not (np.isfinite(limit_au) and limit_au > 0):
-        raise InputError(f"limit: {limit_au!r} AU must be a positive number")
-    if not (np.isfinite(wavelength_nm) and wavelength_nm > 0):
-        raise InputError(f"wavelength: {wavelength_nm!r} nm must be a positive number")
+        bandwidth_nm = check_number(bandwidth_nm, "bandwidth_nm", "nm", positive=True)
+    check_number(limit_au, "limit_au", "AU", positive=True)
+    check_number(wavelength_nm, "wavelength_nm", "nm", positive=True)
     labels, wl, values = scans_of(spectra, "cut-off filter spectrum")
     rows, readings = [], []
     for i, label in enumerate(labels):

@@ -153,17 +153,15 @@ def check_wavelength_scale(
         Bad tolerances or method, or no certified band inside the measured range.
     """
     check_option(method, BAND_FITS, "method")
-    for name, value in (("uv tolerance", uv_tolerance_nm), ("vis tolerance", vis_tolerance_nm),
-                        ("fit half-width", fit_half_width_nm)):
-        if not (np.isfinite(value) and value > 0):
-            raise InputError(f"{name}: {value!r} nm must be a positive number")
-    if search_nm is not None and not (np.isfinite(search_nm) and search_nm > 0):
-        raise InputError(f"search window: {search_nm!r} nm must be a positive number")
-    if not (np.isfinite(reference_u_nm) and reference_u_nm >= 0):
-        raise InputError(f"reference uncertainty: {reference_u_nm!r} nm must be a number ≥ 0")
-    if bandwidth_nm is not None:  # recorded in the log: a number or nothing
-        bandwidth_nm = check_number(bandwidth_nm, "bandwidth", "nm", positive=True)
-    bands_nm = check_wavelength_list(bands_nm, "bands")
+    for name, value in (("uv_tolerance_nm", uv_tolerance_nm),
+                        ("vis_tolerance_nm", vis_tolerance_nm),
+                        ("fit_half_width_nm", fit_half_width_nm),
+                        ("search_nm", search_nm), ("bandwidth_nm", bandwidth_nm)):
+        if value is not None:  # bandwidth_nm is recorded in the log: a number or nothing
+            check_number(value, name, "nm", positive=True)
+    check_number(reference_u_nm, "reference_u_nm", "nm", low=0)
+    bandwidth_nm = None if bandwidth_nm is None else float(bandwidth_nm)
+    bands_nm = check_wavelength_list(bands_nm, "bands_nm")
     labels, wl, values = scans_of(spectra, "holmium spectrum")
     mean = np.nanmean(values, axis=0) if len(labels) > 1 else values[0]
     inside = [b for b in bands_nm if wl[0] < b < wl[-1]]

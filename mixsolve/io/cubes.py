@@ -25,7 +25,7 @@ from mixsolve.errors import FileFormatError, OutputError
 from mixsolve.flags import VLEN_STR
 from mixsolve.io.atomic import atomic_path
 from mixsolve.io.outputs import stage
-from mixsolve.spectra import WAVELENGTH
+from mixsolve.spectra import WAVELENGTH, check_number
 
 #: File name endings read and written as cubes (lower case).
 CUBE_SUFFIXES = (".zarr", ".nc")
@@ -67,7 +67,11 @@ def read_cube(path: str | os.PathLike[str], *, variable: str | None = None,
     ------
     FileFormatError
         Missing or unreadable file, no absorbance variable, or no wavelength coordinate.
+    InputError
+        ``chunk_spectra`` not a whole number ≥ 1.
     """
+    if chunk_spectra is not None:
+        chunk_spectra = int(check_number(chunk_spectra, "chunk_spectra", low=1, integer=True))
     p = Path(path)
     if not p.exists():
         raise FileFormatError(f"{path}: file not found")

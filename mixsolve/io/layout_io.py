@@ -17,6 +17,7 @@ from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.tables import parse_number, read_table
 from mixsolve.names import check_spellings, normalise_name
 from mixsolve.plate.wells import parse_well, well_name
+from mixsolve.spectra import check_number
 from mixsolve.units import concentration_basis
 
 ROLES = ("blank", "sample", "standard", "empty")
@@ -90,8 +91,7 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
         if _cell(cells, col, "dilution"):
             dilution = parse_number(cells[col["dilution"]], table.decimal, f"{where}, dilution",
                                     allow_missing=False)
-            if dilution <= 0:
-                raise InputError(f"{where}: dilution {dilution:g} is not a positive number")
+            check_number(dilution, f"{where}, dilution", positive=True)
         # the sample as written: check_spellings below puts it in normal form and shows
         # 'Ext_03 ' beside 'ext_03' when two spellings differ only in case
         raw_sample = str(cells[col["sample"]]) if "sample" in col else ""
@@ -123,8 +123,7 @@ def _standard(name: str, where: str, col: dict[str, int], cells: list[object],
         raise InputError(f"{where}: a standard well needs a component")
     concentration = parse_number(cells[col["concentration"]], decimal, f"{where}, concentration",
                                  allow_missing=False)
-    if concentration < 0:
-        raise InputError(f"{where}: concentration {concentration:g} is negative")
+    check_number(concentration, f"{where}, concentration", low=0)
     unit = _cell(cells, col, "unit")
     concentration_basis(unit, f"{where}: unit")
     return {"component": str(cells[col["component"]]), "concentration": concentration,

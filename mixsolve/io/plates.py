@@ -86,7 +86,7 @@ def read_plate(
         wavelengths, wells off the plate; the message names file, line, well and value.
     """
     if plate_size is not None and plate_size not in PLATE_SHAPES:
-        raise InputError(f"--plate-size: {plate_size} is not one of 96, 384")
+        raise InputError(f"plate_size: {plate_size!r} is not one of 96, 384")
     table = read_rows(path, sheet=sheet)
     layout, reader = _detect(table)
     wells, wavelengths, values, markers = reader(table)

@@ -24,7 +24,7 @@ from mixsolve.io.tables import (
     read_table,
 )
 from mixsolve.names import check_unique_names, normalise_name
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 
 WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]")
 
@@ -61,12 +61,14 @@ def read_spectra(
         Unreadable files, unknown layout, duplicate wavelengths or samples, text in
         numeric cells; the message names the file, line, column and value.
     """
+    if pathlength_cm is not None:
+        pathlength_cm = check_number(pathlength_cm, "pathlength_cm", "cm", positive=True)
     da = _read_large_text(Path(path)) if sheet is None else None
     if da is None:
         table = read_table(path, sheet=sheet)
         da = _to_array(table, SAMPLE)
     if pathlength_cm is not None:
-        da.attrs["pathlength_cm"] = float(pathlength_cm)
+        da.attrs["pathlength_cm"] = pathlength_cm
     return da
 
 

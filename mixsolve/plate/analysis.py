@@ -9,19 +9,29 @@ from __future__ import annotations
 import json
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve._version import __version__
 from mixsolve.errors import InputError
+from mixsolve.flags import (
+    COMPONENT_CODES,
+    EMPTY_WELL,
+    HIGH_CV,
+    MARKER,
+    NO_PATHLENGTH,
+    NO_RESULT,
+    NOT_IN_LAYOUT,
+    NOT_READ,
+    SINGLE_WELL,
+    WELLS_WITHOUT_RESULT,
+)
 from mixsolve.library import COMPONENT, build_library, check_library
 from mixsolve.plate.wells import (
     DEFAULT_MAX_CV,
-    SAMPLE_MEAN_RULE,
     WATER_BAND_AU_PER_CM,
     WELL,
     on_plate,
@@ -37,15 +47,46 @@ from mixsolve.plate.wells import (
 from mixsolve.solve.design import Baseline
 from mixsolve.solve.engine import Method
 from mixsolve.solve.unmix import unmix
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 
 FITTED_ROLES = ("blank", "sample", "standard")
 WELL_COLUMNS = ("well", "sample", "role", "component", "concentration", "std_uncertainty",
                 "unit", "dilution", "pathlength_cm", "rms_residual_au", "flags")
 SAMPLE_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
                   "n_wells", "sd", "cv", "wells", "flags")
-#: Codes tied to one component (``code:component``); they go on that component's rows only.
-_COMPONENT_CODES = ("at_zero", "negative", "shift_sensitive")
+
+
+@dataclass(frozen=True)
+class PlateOptions:
+    """The settings one plate was analysed with (the report words them).
+
+    Attributes
+    ----------
+    pathlength_mode : {"fixed", "volume", "water band", "default"}
+        ``pathlength_cm`` given, from ``volume_ul`` and ``well_diameter_mm``, from the
+        water band, or 1 cm because none was given.
+    water_k_au_per_cm : float
+        A(977) − A(900) of 1 cm of water (AU/cm), for the water band.
+    max_cv : float
+        Replicate CV (fraction) above which a component is flagged ``high_cv``.
+    library_from_plate : bool
+        Whether the library was built from the plate's standard wells.
+    method, baseline : str
+        Those of the fit.
+    unit : str
+        Unit of the concentrations.
+    blank_wells : tuple of str
+        The blank wells whose mean was subtracted.
+    """
+
+    pathlength_mode: str
+    water_k_au_per_cm: float
+    max_cv: float
+    library_from_plate: bool
+    method: str
+    baseline: str
+    unit: str
+    blank_wells: tuple[str, ...] = ()
 
 
 @dataclass
@@ -72,10 +113,10 @@ class PlateResult:
         Pathlength (cm) per fitted well; NaN where it could not be found.
     plate_size : int
         96 or 384.
-    settings : dict of str
-        The run's settings as display text, in order.
-    notes : list of str
-        Plain sentences on anything the reader of the results should know.
+    options : PlateOptions
+        The settings of the analysis (worded by
+        :func:`mixsolve.report.plate_text.plate_settings`; cautions for the reader by
+        :func:`mixsolve.report.plate_text.plate_notes`).
     """
 
     name: str
@@ -90,8 +131,7 @@ class PlateResult:
     blank_sd: xr.DataArray
     pathlength_cm: pd.Series
     plate_size: int
-    settings: dict[str, str] = field(default_factory=dict)
-    notes: list[str] = field(default_factory=list)
+    options: PlateOptions
 
 
 def analyse_plate(
@@ -165,8 +205,12 @@ def analyse_plate(
     mean and its uncertainty follow :func:`mixsolve.plate.wells.replicate_statistics`.
     """
     plate = check_spectra(plate, "plate")
-    if not np.isfinite(float(max_cv)) or float(max_cv) <= 0:
-        raise InputError(f"--max-cv: {100 * float(max_cv):g} % must be a positive number")
+    max_cv = check_number(max_cv, "max_cv", positive=True,
+                          hint="a fraction of the mean: 0.2 flags a CV above 20 %")
+    water_k_au_per_cm = check_number(water_k_au_per_cm, "water_k_au_per_cm", "AU/cm",
+                                     positive=True)
+    if pathlength_cm is not None:
+        pathlength_cm = check_number(pathlength_cm, "pathlength_cm", "cm", positive=True)
     if WELL not in plate.dims:
         raise InputError(f"plate: dims {plate.dims} have no 'well' dimension; read the export "
                          "with mixsolve.read_plate")
@@ -177,10 +221,10 @@ def analyse_plate(
         p for p in map(parse_well, read) if p is not None) or 384)
     _check_layout(layout, layout_name, size, source)
     if library is not None and library_from_plate:
-        raise InputError("give either a library or --library-from-plate, not both")
+        raise InputError("give either library or library_from_plate, not both")
     if library is None and not library_from_plate:
-        raise InputError("no library: give one (--library LIB.nc) or build it from the plate's "
-                         "standard wells (--library-from-plate)")
+        raise InputError("no library: give library, or build it from the plate's standard "
+                         "wells (library_from_plate)")
     roles = dict(zip(layout["well"], layout["role"], strict=True))
     fitted = [w for w in read if roles.get(w) in FITTED_ROLES]
     mode = _pathlength_mode(pathlength_cm, volume_ul, well_diameter_mm, water_band)
@@ -206,12 +250,10 @@ def analyse_plate(
     all_wells = [w for w in plate_wells(size) if w in set(read) | set(roles)]
     wells = _wells_table(plate, layout, all_wells, read, b, result, components, out_unit)
     samples = _samples_table(layout, wells, components, out_unit, max_cv)
-    settings = _settings(plate, layout, library, result, mode, b, blanks, blank_sd,
-                         water_k_au_per_cm, max_cv, library_from_plate, size, method, baseline,
-                         out_unit)
-    notes = _notes(plate, result, mode, blanks, blank_mean, wells)
+    options = PlateOptions(mode, water_k_au_per_cm, max_cv, library_from_plate, method,
+                           baseline, out_unit, tuple(blanks))
     return PlateResult(source, plate, corrected, layout, library, result, wells, samples,
-                       blank_mean, blank_sd, b, size, settings, notes)
+                       blank_mean, blank_sd, b, size, options)
 
 
 def _check_layout(layout: pd.DataFrame, layout_name: str, size: int, source: str) -> None:
@@ -229,13 +271,13 @@ def _check_layout(layout: pd.DataFrame, layout_name: str, size: int, source: str
 def _pathlength_mode(pathlength_cm: float | None, volume_ul: float | None,
                      well_diameter_mm: float | None, water_band: bool) -> str:
     if (volume_ul is None) != (well_diameter_mm is None):
-        raise InputError("--volume-ul and --well-diameter-mm go together: the pathlength from "
+        raise InputError("volume_ul and well_diameter_mm go together: the pathlength from "
                          "the fill volume needs both")
     given = [m for m, on in (("fixed", pathlength_cm is not None),
                              ("volume", volume_ul is not None), ("water band", water_band)) if on]
     if len(given) > 1:
         raise InputError(f"pathlength given {len(given)} ways ({', '.join(given)}); give one of "
-                         "--pathlength, --volume-ul with --well-diameter-mm, or --water-band")
+                         "pathlength_cm, volume_ul with well_diameter_mm, or water_band")
     return given[0] if given else "default"
 
 
@@ -249,10 +291,7 @@ def _pathlengths(plate: xr.DataArray, fitted: list[str], mode: str, pathlength_c
     elif mode == "volume":
         values = np.full(len(fitted), pathlength_from_volume(volume_ul, well_diameter_mm))
     else:
-        b = 1.0 if pathlength_cm is None else float(pathlength_cm)
-        if not np.isfinite(b) or b <= 0:
-            raise InputError(f"--pathlength: {b:g} cm is not a positive number")
-        values = np.full(len(fitted), b)
+        values = np.full(len(fitted), 1.0 if pathlength_cm is None else pathlength_cm)
     return pd.Series(values, index=pd.Index(fitted, name=WELL), dtype=float, name="pathlength_cm")
 
 
@@ -260,7 +299,7 @@ def _plate_library(corrected: xr.DataArray, layout: pd.DataFrame, fitted: list[s
                    b: pd.Series, layout_name: str, source: str) -> xr.Dataset:
     standards = layout[(layout["role"] == "standard") & layout["well"].isin(fitted)]
     if standards.empty:
-        raise InputError(f"{layout_name}: --library-from-plate needs standard wells read in "
+        raise InputError(f"{layout_name}: library_from_plate needs standard wells read in "
                          f"{source}; the layout has none")
     for row in standards.itertuples(index=False):
         if not np.isfinite(b[row.well]):
@@ -286,7 +325,7 @@ def _overlap(measured: np.ndarray, library_wl: np.ndarray) -> tuple[float, float
 
 def _marker_codes(plate: xr.DataArray) -> dict[str, list[str]]:
     markers = json.loads(plate.attrs.get("markers", "{}") or "{}")
-    return {well: list(dict.fromkeys("marker:" + re.sub(r"[^A-Za-z0-9_.+-]", "_", text)
+    return {well: list(dict.fromkeys(f"{MARKER}:" + re.sub(r"[^A-Za-z0-9_.+-]", "_", text)
                                      for _, text in items))
             for well, items in markers.items()}
 
@@ -295,14 +334,14 @@ def _well_flags(well: str, role: str | None, is_read: bool, b: pd.Series,
                 fit_flags: dict[str, str], markers: dict[str, list[str]]) -> list[str]:
     codes = []
     if role is None:
-        codes.append("not_in_layout")
+        codes.append(NOT_IN_LAYOUT)
     elif role == "empty":
-        codes.append("empty_well")
+        codes.append(EMPTY_WELL)
     if not is_read:
-        codes.append("not_read")
+        codes.append(NOT_READ)
     codes += markers.get(well, [])
     if role in FITTED_ROLES and is_read and not np.isfinite(b[well]):
-        codes.append("no_pathlength")
+        codes.append(NO_PATHLENGTH)
     codes += [c for c in fit_flags.get(well, "").split(";") if c]
     return codes
 
@@ -381,125 +420,17 @@ def _sample_flags(well_flags: Sequence[str], component: str, stats: dict[str, An
     for text in well_flags:
         for code in filter(None, str(text).split(";")):
             base, _, comp = code.partition(":")
-            if base in _COMPONENT_CODES and comp != component:
+            if base in COMPONENT_CODES and comp != component:
                 continue
             codes[code] = None
     n = stats["n"]
     if n == 0:
-        codes["no_result"] = None
+        codes[NO_RESULT] = None
     elif n < n_listed:
-        codes[f"wells_without_result:{n_listed - n}"] = None
+        codes[f"{WELLS_WITHOUT_RESULT}:{n_listed - n}"] = None
     if n == 1:
-        codes["single_well"] = None
+        codes[SINGLE_WELL] = None
     detected = np.isfinite(stats["u_fit_rms"]) and stats["mean"] > 3 * stats["u_fit_rms"]
     if np.isfinite(stats["cv"]) and stats["cv"] > max_cv and detected:
-        codes["high_cv"] = None
+        codes[HIGH_CV] = None
     return list(codes)
-
-
-def _range(values: np.ndarray, unit: str, digits: int = 4) -> str:
-    finite = values[np.isfinite(values)]
-    if finite.size == 0:
-        return "n/a"
-    lo, hi = finite.min(), finite.max()
-    return f"{lo:.{digits}g} {unit}" if np.isclose(lo, hi) else \
-        f"{lo:.{digits}g}-{hi:.{digits}g} {unit}"
-
-
-def _settings(plate: xr.DataArray, layout: pd.DataFrame, library: xr.Dataset,
-              result: xr.Dataset | None, mode: str, b: pd.Series, blanks: list[str],
-              blank_sd: xr.DataArray, water_k: float, max_cv: float, from_plate: bool,
-              size: int, method: str, baseline: str, unit: str) -> dict[str, str]:
-    attrs = plate.attrs
-    wl = plate[WAVELENGTH].values
-    counts = layout["role"].value_counts()
-    prov = json.loads(library.attrs.get("provenance", "{}") or "{}")
-    pathlength = {
-        "fixed": f"{_range(b.to_numpy(), 'cm')} (given)",
-        "volume": f"{_range(b.to_numpy(), 'cm')} from the fill volume and well diameter, "
-                  "b = V / (π (d/2)²)",
-        "water band": f"{_range(b.to_numpy(), 'cm')} per well from the water band, "
-                      f"(A(977) − A(900)) / {water_k:g} AU/cm",
-        "default": "1 cm (none given)",
-    }[mode]
-    sd = blank_sd.values
-    blank = "none: nothing subtracted" if not blanks else (
-        f"{len(blanks)} well(s), mean spectrum subtracted; SD "
-        f"{np.nanmedian(sd) if np.isfinite(sd).any() else float('nan'):.2g} AU (median over "
-        f"wavelengths), {np.nanmax(sd) if np.isfinite(sd).any() else float('nan'):.2g} AU "
-        "at most")
-    used = json.loads(result.attrs["wavelengths_nm"]) if result is not None else []
-    settings = {
-        "export": f"{attrs.get('source', '')} ({attrs.get('layout', 'layout unknown')}, "
-                  f"{size}-well, separator {attrs.get('separator', '?')}, decimal "
-                  f"'{attrs.get('decimal', '.')}'"
-                  + (f", {attrs['sheet']}" if attrs.get("sheet") else "") + ")",
-        "readings": f"{plate.sizes[WELL]} wells × {wl.size} wavelengths, "
-                    f"{wl[0]:g}-{wl[-1]:g} nm",
-        "layout": f"{layout.attrs.get('source', '')}: "
-                  + ", ".join(f"{counts.get(r, 0)} {r}" for r in
-                              ("sample", "standard", "blank", "empty")),
-        "library": (f"built from {int((layout['role'] == 'standard').sum())} standard wells "
-                    "of this plate" if from_plate else
-                    f"{prov.get('method', 'given')}"
-                    + (f" from {prov['source']}" if prov.get("source") else ""))
-                   + f"; components {', '.join(map(str, library[COMPONENT].values))}",
-        "fit": f"{method}, baseline {baseline}, "
-               + (f"{len(used)} wavelengths {min(used):g}-{max(used):g} nm" if used else
-                  "no well fitted"),
-        "trust checks": _trust_settings(result),
-        "pathlength": pathlength,
-        "blank": blank,
-        "unit": unit,
-        "well uncertainty": "fit only (Type A): s·√[(DᵀD)⁻¹]ₖₖ / b, times the dilution",
-        "sample uncertainty": SAMPLE_MEAN_RULE,
-        "high_cv flag": f"CV > {100 * max_cv:g} % for a component whose mean exceeds 3 × its "
-                        "fit uncertainty",
-        "mixsolve": __version__,
-    }
-    return settings
-
-
-def _trust_settings(result: xr.Dataset | None) -> str:
-    if result is None:
-        return "n/a"
-    attrs = result.attrs
-    noise = json.loads(attrs.get("noise_model") or "{}")
-    parts = [f"reliable range {attrs.get('absorbance_range', '?')} AU",
-             f"weights {attrs.get('weights', 'none')}",
-             f"noise model {noise.get('name', 'given') if noise else 'none'}"]
-    if attrs.get("fit_shift"):
-        parts.append("wavelength shift fitted")
-    if "wavelength_tolerance_nm" in attrs:
-        parts.append(f"wavelength tolerance {attrs['wavelength_tolerance_nm']:g} nm")
-    return ", ".join(parts)
-
-
-def _notes(plate: xr.DataArray, result: xr.Dataset | None, mode: str, blanks: list[str],
-           blank_mean: xr.DataArray, wells: pd.DataFrame) -> list[str]:
-    notes = []
-    if mode == "default":
-        notes.append("No pathlength was given, so 1 cm was assumed: microplate wells are "
-                     "usually shorter. Give --pathlength, --volume-ul with "
-                     "--well-diameter-mm, or --water-band.")
-    if not blanks:
-        notes.append("The layout has no blank wells: nothing was subtracted, so the readings "
-                     "are taken as blank-corrected already.")
-    elif np.isnan(blank_mean.values).any():
-        missing = plate[WAVELENGTH].values[np.isnan(blank_mean.values)]
-        notes.append(f"No blank well has a reading at {', '.join(f'{w:g}' for w in missing[:6])}"
-                     " nm; those wavelengths are missing readings in every well.")
-    if result is not None:
-        used = json.loads(result.attrs["wavelengths_nm"])
-        wl = plate[WAVELENGTH].values
-        other = wl[(wl < min(used)) | (wl > max(used))]
-        if other.size:
-            notes.append(f"{other.size} wavelength(s) read outside the fitted range "
-                         f"({', '.join(f'{w:g}' for w in other[:6])}"
-                         f"{' ...' if other.size > 6 else ''} nm) were not fitted"
-                         + (" (used for the pathlength)" if mode == "water band" else "") + ".")
-    marked = wells.loc[wells["flags"].str.contains("marker:"), "well"].unique()
-    if marked.size:
-        notes.append(f"{marked.size} well(s) had non-numeric readings (saturation or error "
-                     "markers); each was fitted on the wavelengths it has and is flagged.")
-    return notes

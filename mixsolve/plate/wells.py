@@ -14,7 +14,7 @@ import numpy as np
 import xarray as xr
 
 from mixsolve.errors import InputError
-from mixsolve.spectra import WAVELENGTH
+from mixsolve.spectra import WAVELENGTH, check_number
 
 WELL = "well"
 #: Plate formats: wells → (rows, columns).
@@ -30,11 +30,6 @@ WATER_BAND_NM = (900.0, 977.0)
 WATER_BAND_TOLERANCE_NM = 0.5
 #: Replicate CV above which a sample is flagged ``high_cv`` (common practice, settable).
 DEFAULT_MAX_CV = 0.20
-
-SAMPLE_MEAN_RULE = (
-    "u(mean) = sqrt(max(SD^2, mean(u_fit^2)) / n): replicate scatter, with the wells' mean "
-    "fit variance as a floor; n wells with a result, results multiplied by their dilution"
-)
 
 
 def parse_well(text: object) -> tuple[int, int] | None:
@@ -130,12 +125,9 @@ def pathlength_from_volume(volume_ul: float, well_diameter_mm: float) -> float:
     InputError
         A volume or diameter that is not a positive number.
     """
-    for name, value, unit in (("--volume-ul", volume_ul, "µL"),
-                              ("--well-diameter-mm", well_diameter_mm, "mm")):
-        if value is None or not np.isfinite(value) or value <= 0:
-            raise InputError(f"{name}: {value} {unit} is not a positive number")
-    radius_cm = well_diameter_mm / 20.0
-    return float(volume_ul * 1e-3 / (np.pi * radius_cm**2))
+    volume = check_number(volume_ul, "volume_ul", "µL", positive=True)
+    radius_cm = check_number(well_diameter_mm, "well_diameter_mm", "mm", positive=True) / 20.0
+    return float(volume * 1e-3 / (np.pi * radius_cm**2))
 
 
 def water_band_pathlength(
@@ -169,8 +161,7 @@ def water_band_pathlength(
     InputError
         A wavelength was not read, or ``au_per_cm`` is not positive.
     """
-    if not np.isfinite(au_per_cm) or au_per_cm <= 0:
-        raise InputError(f"--water-k: {au_per_cm:g} AU/cm is not a positive number")
+    au_per_cm = check_number(au_per_cm, "au_per_cm", "AU/cm", positive=True)
     wl = spectra[WAVELENGTH].values
     picked = []
     for target in wavelengths_nm:
@@ -179,7 +170,8 @@ def water_band_pathlength(
             raise InputError(
                 f"{name}: the water-band pathlength needs readings at {wavelengths_nm[0]:g} and "
                 f"{wavelengths_nm[1]:g} nm, but {target:g} nm was not read (read "
-                f"{wl[0]:g}-{wl[-1]:g} nm); give --pathlength or --volume-ul instead")
+                f"{wl[0]:g}-{wl[-1]:g} nm); give pathlength_cm, or volume_ul with "
+                "well_diameter_mm, instead")
         picked.append(spectra.isel({WAVELENGTH: pos}, drop=True))
     diff = picked[1] - picked[0]
     b = (diff / au_per_cm).where(diff > 0)

@@ -42,7 +42,14 @@ from mixsolve.pls.preprocessing import (
     preprocess,
 )
 from mixsolve.pls.reference import match_samples, reference_matrix
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_option, check_spectra, check_window
+from mixsolve.spectra import (
+    SAMPLE,
+    WAVELENGTH,
+    check_number,
+    check_option,
+    check_spectra,
+    check_window,
+)
 
 Mode = Literal["auto", "pls2", "pls1"]
 MODES: tuple[str, ...] = ("auto", "pls2", "pls1")
@@ -153,10 +160,8 @@ def calibrate(
     if latent != "auto" and (isinstance(latent, bool) or not isinstance(latent, int | np.integer)
                              or latent < 1):
         raise InputError(f"latent: {latent!r} is not 'auto' or a whole number ≥ 1")
-    b = float(spectra.attrs.get("pathlength_cm", 1.0) if pathlength_cm is None
-              else pathlength_cm)
-    if not np.isfinite(b) or b <= 0:
-        raise InputError(f"pathlength: {b:g} cm is not a positive number")
+    b = check_number(spectra.attrs.get("pathlength_cm", 1.0) if pathlength_cm is None
+                     else pathlength_cm, "pathlength_cm", "cm", positive=True)
     ref = match_samples(spectra, reference_matrix(reference))
     raw, wl = calibration_arrays(spectra, window)
     y = ref.values

@@ -15,6 +15,7 @@ from sklearn.model_selection import KFold
 from mixsolve.errors import InputError
 from mixsolve.pls.blocks import block_groups, fit_block
 from mixsolve.pls.preprocessing import centre_scale
+from mixsolve.spectra import check_number
 
 Split = Literal["blocks", "random"]
 SPLITS: tuple[str, ...] = ("blocks", "random")
@@ -78,12 +79,10 @@ def check_counts(n: int, folds: int | None, max_latent: int) -> int:
     if n < 3:
         raise InputError(f"calibration: {n} sample(s); cross-validation needs at least 3 "
                          "calibration mixtures (use many more in practice)")
-    k = min(DEFAULT_FOLDS, n) if folds is None else int(folds)
-    if not 2 <= k <= n:
-        raise InputError(f"folds: {folds} is not between 2 and the number of calibration "
-                         f"samples ({n})")
-    if int(max_latent) < 1:
-        raise InputError(f"max_latent: {max_latent} must be at least 1")
+    k = min(DEFAULT_FOLDS, n) if folds is None else int(check_number(
+        folds, "folds", low=2, high=n, integer=True,
+        hint=f"at most one fold per calibration sample ({n})"))
+    check_number(max_latent, "max_latent", low=1, integer=True)
     return k
 
 

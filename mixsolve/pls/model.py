@@ -37,18 +37,6 @@ UNCERTAINTY_BASIS = (
     "leverage; includes the reference-value error as it shows in RMSECV, assumes the sample "
     "resembles the calibration mixtures"
 )
-#: Flag codes of PLS predictions (docs/flags.md, docs/calibration.md).
-FLAG_CODES = {
-    "t2_above_95": "Hotelling T² above its 95 % limit",
-    "t2_above_99": "Hotelling T² above its 99 % limit: outside the calibration space",
-    "q_above_95": "Q residual above its 95 % limit",
-    "q_above_99": "Q residual above its 99 % limit: a spectral feature the calibration "
-                  "does not explain",
-    "outside_range": "prediction outside the calibrated concentration range",
-    "incomplete_spectrum": "missing readings at model wavelengths: no prediction",
-}
-
-
 def check_model(model: Any, name: str = "model") -> xr.Dataset:
     """Check that ``model`` is a mixsolve PLS model Dataset and return it.
 

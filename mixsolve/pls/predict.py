@@ -12,11 +12,19 @@ import xarray as xr
 
 from mixsolve._version import __version__
 from mixsolve.errors import InputError
+from mixsolve.flags import (
+    INCOMPLETE_SPECTRUM,
+    OUTSIDE_RANGE,
+    Q_ABOVE_95,
+    Q_ABOVE_99,
+    T2_ABOVE_95,
+    T2_ABOVE_99,
+)
 from mixsolve.library import COMPONENT
 from mixsolve.pls.blocks import project
 from mixsolve.pls.model import UNCERTAINTY_BASIS, check_model
 from mixsolve.pls.preprocessing import preprocess
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_spectra
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 from mixsolve.units import concentration_basis
 
 
@@ -92,7 +100,7 @@ def predict(
         residual in AU, AU/nm after a derivative); per component ``t2_limit_95``,
         ``t2_limit_99``, ``q_limit_95``, ``q_limit_99``, ``n_latent`` and ``dof``
         (n_calibration − a − 1); per sample ``flags`` (``;``-joined codes of
-        :data:`mixsolve.pls.model.FLAG_CODES`, docs/flags.md);
+        :data:`mixsolve.flags.FLAG_MEANINGS`, docs/flags.md);
         ``attrs["method"] = "pls"``.
 
     Raises
@@ -112,10 +120,8 @@ def predict(
     if set(spectra.dims) != {SAMPLE, WAVELENGTH}:
         raise InputError(f"spectra: expected dims ('sample', 'wavelength'), got {spectra.dims}")
     b_cal = float(model.attrs["pathlength_cm"])
-    b = float(spectra.attrs.get("pathlength_cm", b_cal) if pathlength_cm is None
-              else pathlength_cm)
-    if not np.isfinite(b) or b <= 0:
-        raise InputError(f"pathlength: {b:g} cm is not a positive number")
+    b = check_number(spectra.attrs.get("pathlength_cm", b_cal) if pathlength_cm is None
+                     else pathlength_cm, "pathlength_cm", "cm", positive=True)
     factor = _unit_factor(model.attrs["unit"], unit)
     model_nm = model[WAVELENGTH].values
     raw = resample_to_model(spectra, model_nm) * (b_cal / b)
@@ -215,21 +221,21 @@ def _flags(result: xr.Dataset, model: xr.Dataset, incomplete: np.ndarray,
     lo = model["reference_min"].values * factor
     hi = model["reference_max"].values * factor
     levels = {}
-    for stat, name in (("t2", "t2"), ("q_residual", "q")):
+    for stat, name, code_95, code_99 in (("t2", "t2", T2_ABOVE_95, T2_ABOVE_99),
+                                         ("q_residual", "q", Q_ABOVE_95, Q_ABOVE_99)):
         value = result[stat].values
         above_99 = np.any(value > result[f"{name}_limit_99"].values, axis=1)
         above_95 = np.any(value > result[f"{name}_limit_95"].values, axis=1)
-        levels[name] = np.where(above_99, f"{name}_above_99",
-                                np.where(above_95, f"{name}_above_95", ""))
+        levels[name] = np.where(above_99, code_99, np.where(above_95, code_95, ""))
     margin = np.maximum(u, 1e-6 * (hi - lo))  # exact data: u ≈ 0, allow rounding
     outside = (conc < lo - margin) | (conc > hi + margin)
     out = []
     for i in range(conc.shape[0]):
         if incomplete[i]:
-            out.append("incomplete_spectrum")
+            out.append(INCOMPLETE_SPECTRUM)
             continue
         codes = [str(levels["t2"][i]), str(levels["q"][i])]
-        codes += [f"outside_range:{c}" for k, c in enumerate(comps) if outside[i, k]]
+        codes += [f"{OUTSIDE_RANGE}:{c}" for k, c in enumerate(comps) if outside[i, k]]
         out.append(";".join(filter(None, codes)))
     return xr.DataArray(np.asarray(out, dtype=str), dims=(SAMPLE,),
                         coords={SAMPLE: result[SAMPLE].values})

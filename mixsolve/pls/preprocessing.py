@@ -13,7 +13,7 @@ import xarray as xr
 from scipy.signal import savgol_filter
 
 from mixsolve.errors import InputError
-from mixsolve.spectra import SAMPLE, WAVELENGTH
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number
 
 Scale = Literal["none", "autoscale"]
 SCALES: tuple[str, ...] = ("none", "autoscale")
@@ -77,13 +77,12 @@ def check_derivative(window_points: int | None, polyorder: int, wavelengths_nm: 
     """
     if window_points is None:
         return None
-    w, p = int(window_points), int(polyorder)
-    if w != window_points or w < 3 or w % 2 == 0:
-        raise InputError(f"derivative: window of {window_points} points must be an odd whole "
-                         "number ≥ 3, e.g. 11")
-    if not 1 <= p < w:
-        raise InputError(f"derivative: polynomial order {polyorder} must be ≥ 1 and below the "
-                         f"window ({w} points)")
+    w = int(check_number(window_points, "derivative", "points", low=3, integer=True,
+                         hint="an odd number of points, e.g. 11"))
+    if w % 2 == 0:
+        raise InputError(f"derivative: {w} points is not an odd whole number ≥ 3, e.g. 11")
+    p = int(check_number(polyorder, "polyorder", low=1, high=w, high_open=True, integer=True,
+                         hint=f"the derivative window is {w} points"))
     if w > wavelengths_nm.size:
         raise InputError(f"derivative: window of {w} points is longer than the "
                          f"{wavelengths_nm.size} wavelengths used")

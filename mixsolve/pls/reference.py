@@ -11,7 +11,7 @@ import xarray as xr
 
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT
-from mixsolve.spectra import SAMPLE
+from mixsolve.spectra import SAMPLE, check_number
 from mixsolve.units import concentration_basis
 
 
@@ -71,8 +71,7 @@ def reference_matrix(reference: pd.DataFrame | xr.DataArray, *,
         if not np.isfinite(value):
             raise InputError(f"{where}: concentration of {key[1]!r} in {key[0]!r} is missing; "
                              "a calibration needs every known value")
-        if value < 0:
-            raise InputError(f"{where}: concentration {value:g} is negative")
+        check_number(value, f"{where}, concentration", low=0)
         basis, factor = concentration_basis(str(row.unit), f"{where}: unit")
         if basis != basis0:
             raise InputError(

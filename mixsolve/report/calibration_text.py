@@ -12,9 +12,9 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from mixsolve.flags import FLAG_MEANINGS
 from mixsolve.library import COMPONENT
 from mixsolve.pls.compare import AS_GOOD, CLEARLY_BETTER, compare_verdict
-from mixsolve.pls.model import FLAG_CODES
 from mixsolve.report.text import CAUTION, _notes, _num, value_with_uncertainty
 from mixsolve.spectra import SAMPLE, WAVELENGTH
 
@@ -223,7 +223,7 @@ def format_prediction(result: xr.Dataset) -> str:
     notes = []
     for code, who in by_code.items():
         base, _, comp = code.partition(":")
-        meaning = FLAG_CODES.get(base, base) + (f" ({comp})" if comp else "")
+        meaning = FLAG_MEANINGS.get(base, base) + (f" ({comp})" if comp else "")
         notes.append(f"{_who(who)}: {meaning} [{code}].")
     lines += ["", *_notes(notes), CAUTION]
     return "\n".join(lines) + "\n"

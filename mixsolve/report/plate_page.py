@@ -2,7 +2,8 @@
 
 Heat maps of every component over the plate, the samples, the flagged wells with their
 reasons, the residual spectra of the worst-fitting wells, the run's settings and the
-cautions. Flag codes are explained in docs/plates.md and in :data:`FLAG_TEXT`.
+cautions. Flag codes are explained in docs/plates.md and in
+:data:`mixsolve.flags.FLAG_MEANINGS`.
 """
 
 from __future__ import annotations
@@ -13,44 +14,26 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from mixsolve.flags import (
+    AT_ZERO,
+    BELOW_RANGE,
+    EMPTY_WELL,
+    FLAG_MEANINGS,
+    NEGATIVE,
+    NO_SIGNAL,
+    STATUS_CODES,
+    STRUCTURED,
+)
 from mixsolve.plate.wells import PLATE_SHAPES, ROW_LETTERS, WELL, parse_well
 from mixsolve.report import html
 from mixsolve.report.text import value_with_uncertainty
 from mixsolve.spectra import WAVELENGTH
 
-#: What each flag code means (the part before ``:``).
-FLAG_TEXT: dict[str, str] = {
-    "marker": "non-numeric reading(s) in the export (saturation or error marker): missing "
-              "at those wavelengths, fitted on the rest",
-    "missing_readings": "some fitted wavelengths had no reading; fitted on the rest",
-    "too_few_readings": "too few readings left to fit: no result",
-    "rank_deficient": "the readings left cannot separate the components: no result",
-    "no_dof": "as many unknowns as wavelengths: no fit uncertainty",
-    "no_pathlength": "the water band gave no positive pathlength: no result",
-    "not_read": "listed in the layout but absent from the export: no result",
-    "not_in_layout": "read but not listed in the layout: not fitted",
-    "empty_well": "empty in the layout: not fitted",
-    "at_zero": "held at zero by the non-negativity constraint",
-    "negative": "ordinary least squares gave a negative concentration",
-    "above_range": "peak absorbance above the reliable range: dilute",
-    "below_range": "peak absorbance below the reliable range: less dilution or a longer path",
-    "no_signal": "every reading is exactly zero: nothing was measured; the zero result means "
-                 "nothing",
-    "lack_of_fit": "residual larger than the noise model allows",
-    "ill_conditioned": "the wavelengths separate the components poorly (scaled condition "
-                       "number above 1000): noise is amplified that much",
-    "structured_residual": "residual has shape, not noise: unmodelled absorber, scatter or "
-                           "a wavelength shift",
-    "shift_sensitive": "a small wavelength error would move this result by more than 2 %",
-    "no_result": "no well of the sample gave a result",
-    "wells_without_result": "some wells of the sample gave no result and were left out",
-    "single_well": "one well only: no SD or CV; the uncertainty is that well's fit uncertainty",
-    "high_cv": "replicate wells disagree more than the CV limit",
-}
 #: Codes that do not make a well worth listing among the flagged ones (for blanks, a
 #: reading near zero is the point, so range and sign codes are routine there too).
-_ROUTINE = ("at_zero", "empty_well")
-_ROUTINE_BLANK = (*_ROUTINE, "below_range", "negative", "structured_residual", "no_signal")
+_ROUTINE = (AT_ZERO, EMPTY_WELL)
+_ROUTINE_BLANK = (*_ROUTINE, STATUS_CODES[BELOW_RANGE], NEGATIVE, STATUS_CODES[STRUCTURED],
+                  STATUS_CODES[NO_SIGNAL])
 WORST_WELLS = 6
 
 
@@ -59,7 +42,7 @@ def explain(flags: str) -> str:
     reasons = []
     for code in filter(None, flags.split(";")):
         base, _, detail = code.partition(":")
-        text = FLAG_TEXT.get(base, base)
+        text = FLAG_MEANINGS.get(base, base)
         reasons.append(f"{text} ({detail})" if detail else text)
     return "; ".join(dict.fromkeys(reasons))
 
@@ -190,7 +173,7 @@ def plate_page(
     fitted = per_well["rms_residual_au"].notna().sum()
     flagged = per_well[[noteworthy(f, r) for f, r in zip(per_well["flags"], per_well["role"],
                                                          strict=True)]]
-    at_zero = per_well["flags"].str.contains("at_zero:").sum()
+    at_zero = per_well["flags"].str.contains(f"{AT_ZERO}:").sum()
     parts = [html.paragraph(
         f"{len(per_well)} wells, {fitted} fitted, {len(flagged)} flagged; "
         f"{samples['sample'].nunique()} samples; concentrations in {unit}.")]

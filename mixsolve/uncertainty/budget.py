@@ -12,25 +12,18 @@ in :func:`uncertainty_budget` and docs/uncertainty.md; a Monte Carlo propagation
 from __future__ import annotations
 
 import json
+from typing import Any
 
 import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT
 from mixsolve.spectra import SAMPLE
-from mixsolve.uncertainty.corrections import CellCorrection
-from mixsolve.uncertainty.measurement_model import (
-    DEFAULT_FILL_VOLUME_UL,
-    CarryFrom,
-    MeasurementModel,
-    SampleModel,
-    measurement_model,
-)
-from mixsolve.uncertainty.montecarlo import DEFAULT_TOLERANCE, compare, propagate
+from mixsolve.uncertainty.inputs import BudgetInputs, budget_inputs
+from mixsolve.uncertainty.measurement_model import MeasurementModel, SampleModel, measurement_model
+from mixsolve.uncertainty.montecarlo import compare, propagate
 from mixsolve.uncertainty.sensitivity import design_sensitivity, propagate_independent
-from mixsolve.uncertainty.volumetric import Dilution
 
 SOURCE = "source"
 #: Source → (evaluation type, distribution, unit of the input quantity, what it is).
@@ -47,8 +40,6 @@ SOURCES: dict[str, tuple[str, str, str, str]] = {
     "cell_blank": ("A", "normal", "AU", "mean of the cell-blank scans"),
     "cell_ratio": ("B", "normal", "1", "cell pathlength ratio"),
 }
-#: Default coverage factor (about 95 % for a near-normal output).
-DEFAULT_COVERAGE_FACTOR = 2.0
 
 
 def _linear(model: MeasurementModel, s: SampleModel, conc: np.ndarray, u_fit: np.ndarray,
@@ -102,21 +93,8 @@ def _linear(model: MeasurementModel, s: SampleModel, conc: np.ndarray, u_fit: np
 def uncertainty_budget(
     result: xr.Dataset,
     library: xr.Dataset,
-    *,
-    pathlength_u_cm: float | None = None,
-    dilution: Dilution | None = None,
-    carryover_ul: float | None = None,
-    fill_volume_ul: float = DEFAULT_FILL_VOLUME_UL,
-    carryover_from: CarryFrom = "previous",
-    wavelength_tolerance_nm: float | None = None,
-    wavelength_u_nm: float | None = None,
-    stray_fraction: float | None = None,
-    noise_sd: xr.DataArray | xr.Dataset | None = None,
-    cell: CellCorrection | None = None,
-    coverage_factor: float = DEFAULT_COVERAGE_FACTOR,
-    monte_carlo: int | None = None,
-    seed: int = 0,
-    mc_tolerance: float = DEFAULT_TOLERANCE,
+    inputs: BudgetInputs | None = None,
+    **settings: Any,
 ) -> xr.Dataset:
     """Uncertainty budget of every concentration of an unmixing result.
 
@@ -126,44 +104,14 @@ def uncertainty_budget(
         Output of :func:`mixsolve.unmix` (ols or nnls) with dims (sample, component).
     library : Dataset
         The library the result was fitted with.
-    pathlength_u_cm : float, optional
-        Standard uncertainty of the pathlength (cm); for a tolerance ±a give a/√3.
-        Not stated (NaN) when omitted.
-    dilution : Dilution, optional
-        The dilution of the sample before measuring
-        (:func:`mixsolve.uncertainty.volumetric.parse_dilution`).
-        With it the measurand is the undiluted concentration F·c.
-    carryover_ul : float, optional
-        Residual liquid (µL) left in the cell when it is refilled without drying; 0 when
-        omitted (a dried or rinsed-with-sample cell).
-    fill_volume_ul : float
-        Volume filled into the cell (µL); default 3000 (10 mm macro cell).
-    carryover_from : {"previous", "solvent"}
-        What the residue is: the previous sample in file order (the first sample follows
-        the solvent), or solvent after every sample.
-    wavelength_tolerance_nm : float, optional
-        ± wavelength accuracy (nm), rectangular; default the result's
-        ``wavelength_tolerance_nm`` (``unmix``'s, 0.5 nm).
-    wavelength_u_nm : float, optional
-        Instead, a standard uncertainty of the wavelength scale (nm), normal: e.g. the
-        uncertainty of an offset found with a holmium check and corrected for.
-    stray_fraction : float, optional
-        Stray-light fraction s (0.001 = 0.1 %T); default the result's noise model's, else
-        not stated.
-    noise_sd : DataArray (wavelength) or Dataset, optional
-        SD of one reading per wavelength (AU) from repeat scans
-        (:func:`mixsolve.repeatability`; its ``sd`` is taken from a Dataset), used as the
-        Type A noise instead of the fit's scatter.
-    cell : CellCorrection, optional
-        The cell correction applied to the spectra (:func:`mixsolve.cell_blank`).
-    coverage_factor : float
-        k of the expanded uncertainty U = k·u_c (default 2).
-    monte_carlo : int, optional
-        Also propagate by Monte Carlo with this many draws per sample (JCGM 101:2008).
-    seed : int
-        Seed of the Monte Carlo draws.
-    mc_tolerance : float
-        Numerical tolerance δ of the Monte Carlo comparison, as a fraction of u_c.
+    inputs : BudgetInputs, optional
+        The inputs' uncertainties and the budget's settings
+        (:class:`mixsolve.uncertainty.inputs.BudgetInputs`, which documents each);
+        default all defaults.
+    **settings
+        Fields of :class:`~mixsolve.uncertainty.inputs.BudgetInputs` given by name
+        (``pathlength_u_cm=0.002``, ``dilution="1/10"``, ``monte_carlo=4000`` ...),
+        replacing those of ``inputs``.
 
     Returns
     -------
@@ -185,8 +133,11 @@ def uncertainty_budget(
     Raises
     ------
     InputError
-        Not a least-squares result, components differing from the library's, negative
-        uncertainties or volumes, both wavelength options given, too few draws.
+        Not a least-squares result, components differing from the library's, and every
+        refusal of :class:`~mixsolve.uncertainty.inputs.BudgetInputs` (negative
+        uncertainties or volumes, both wavelength settings given, too few draws).
+    TypeError
+        A setting that is not a field of BudgetInputs.
 
     Notes
     -----
@@ -212,19 +163,9 @@ def uncertainty_budget(
     without a result (too few readings) has NaN throughout. The linearised sensitivities
     of an NNLS fit are those of the unconstrained model at the solution.
     """
-    if isinstance(noise_sd, xr.Dataset):
-        noise_sd = noise_sd["sd"]
-    k_factor = float(coverage_factor)
-    if not (np.isfinite(k_factor) and k_factor > 0):
-        raise InputError(f"coverage_factor: {coverage_factor!r} must be a positive number")
-    if not (np.isfinite(mc_tolerance) and mc_tolerance > 0):
-        raise InputError(f"mc_tolerance: {mc_tolerance!r} must be a positive number")
-    model = measurement_model(
-        result, library, pathlength_u_cm=pathlength_u_cm, dilution=dilution,
-        carryover_ul=carryover_ul, fill_volume_ul=fill_volume_ul,
-        carryover_from=carryover_from, wavelength_tolerance_nm=wavelength_tolerance_nm,
-        wavelength_u_nm=wavelength_u_nm, stray_fraction=stray_fraction, noise_sd=noise_sd,
-        cell=cell)
+    inputs = budget_inputs(inputs, **settings)
+    k_factor = inputs.coverage_factor
+    model = measurement_model(result, library, inputs)
     conc = result["concentration"].transpose(SAMPLE, COMPONENT).values
     u_fit = result["std_uncertainty"].transpose(SAMPLE, COMPONENT).values
     n_s, n_c, n_src = conc.shape[0], conc.shape[1], len(SOURCES)
@@ -234,7 +175,7 @@ def uncertainty_budget(
     for i, s in enumerate(model.samples):
         if s.ok:
             contrib[i], sens[i], u_in[i] = _linear(model, s, conc[i], u_fit[i],
-                                                   use_fit_u=noise_sd is None)
+                                                   use_fit_u=inputs.noise_sd is None)
     combined = np.sqrt(np.nansum(contrib**2, axis=-1))
     combined[~np.all(np.isfinite(conc), axis=1)] = np.nan
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -277,16 +218,16 @@ def uncertainty_budget(
                                 f"{model.wavelength_u_nm:.3g} nm"),
             "stray_fraction": model.stray_fraction,
             "carryover_fraction": model.carryover_fraction,
-            "carryover_from": carryover_from,
+            "carryover_from": inputs.carryover_from,
             "not_stated": json.dumps(not_stated),
             "notes": json.dumps(model.notes),
             "reference": "JCGM 100:2008 (GUM), law of propagation of uncertainty, "
                          "uncorrelated inputs",
         },
     )
-    if monte_carlo is not None:
-        budget = _add_monte_carlo(budget, model, int(monte_carlo), int(seed),
-                                  float(mc_tolerance))
+    if inputs.monte_carlo is not None:
+        budget = _add_monte_carlo(budget, model, inputs.monte_carlo, inputs.seed,
+                                  inputs.mc_tolerance)
     return budget
 
 

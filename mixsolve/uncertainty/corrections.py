@@ -22,13 +22,14 @@ uncertainty budget (:func:`mixsolve.uncertainty_budget`).
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 import xarray as xr
 
 from mixsolve.errors import InputError
-from mixsolve.spectra import WAVELENGTH, check_spectra
+from mixsolve.spectra import WAVELENGTH, check_number, check_spectra
 
 
 @dataclass(frozen=True)
@@ -57,10 +58,8 @@ class CellCorrection:
     u_ratio: float = 0.0
 
     def __post_init__(self) -> None:
-        if not (np.isfinite(self.ratio) and self.ratio > 0):
-            raise InputError(f"cell ratio: {self.ratio:g} is not a positive number")
-        if not (np.isfinite(self.u_ratio) and self.u_ratio >= 0):
-            raise InputError(f"cell ratio: uncertainty {self.u_ratio:g} must be a number ≥ 0")
+        check_number(self.ratio, "ratio", positive=True)
+        check_number(self.u_ratio, "u_ratio", low=0)
 
 
 def cell_blank(scans: xr.DataArray, *, u_au: float | None = None, ratio: float = 1.0,
@@ -96,9 +95,7 @@ def cell_blank(scans: xr.DataArray, *, u_au: float | None = None, ratio: float =
     m = flat.shape[0]
     mean = flat.mean(axis=0)
     if u_au is not None:
-        if not (np.isfinite(u_au) and u_au >= 0):
-            raise InputError(f"cell blank: u_au = {u_au:g} AU must be a number ≥ 0")
-        u = np.full(mean.shape, float(u_au))
+        u = np.full(mean.shape, check_number(u_au, "u_au", "AU", low=0))
     elif m >= 2:
         u = flat.std(axis=0, ddof=1) / np.sqrt(m)
     else:
@@ -149,7 +146,11 @@ def correct_cells(spectra: xr.DataArray, correction: CellCorrection) -> xr.DataA
     InputError
         The blank does not cover the spectra's wavelengths.
     """
-    spectra = check_spectra(spectra)
+    return _correct_cells(check_spectra(spectra), correction)
+
+
+def _correct_cells(spectra: xr.DataArray, correction: CellCorrection) -> xr.DataArray:
+    """:func:`correct_cells` of spectra already checked."""
     out = spectra
     what = []
     if correction.blank is not None:
@@ -225,20 +226,71 @@ def shift_wavelengths(spectra: xr.DataArray, offset_nm: float) -> xr.DataArray:
     Raises
     ------
     InputError
-        A non-finite offset, or one that makes a wavelength ≤ 0.
+        An offset beyond ±``MAX_WAVELENGTH_OFFSET_NM`` (:func:`check_offset`), or one that
+        makes a wavelength ≤ 0.
     """
-    spectra = check_spectra(spectra)
-    delta = float(offset_nm)
-    if not np.isfinite(delta):
-        raise InputError(f"wavelength offset: {offset_nm!r} nm is not a number")
-    if abs(delta) > MAX_WAVELENGTH_OFFSET_NM:
-        raise InputError(
-            f"wavelength offset: {delta:g} nm is beyond ±{MAX_WAVELENGTH_OFFSET_NM:g} nm; an "
-            "error that large is a fault to repair, not to correct for (check the sign and "
-            "the unit)")
+    return _shift(check_spectra(spectra), check_offset(offset_nm))
+
+
+def check_offset(offset_nm: object, name: str = "offset_nm") -> float:
+    """A wavelength-scale offset δ (nm) within ±``MAX_WAVELENGTH_OFFSET_NM``, as float.
+
+    Raises
+    ------
+    InputError
+        Not a finite number, or beyond the limit: an error that large is a fault to
+        repair, not to correct for.
+    """
+    return check_number(offset_nm, name, "nm", low=-MAX_WAVELENGTH_OFFSET_NM,
+                        high=MAX_WAVELENGTH_OFFSET_NM,
+                        hint="an error that large is a fault to repair, not to correct for "
+                             "(check the sign and the unit)")
+
+
+def _shift(spectra: xr.DataArray, delta: float) -> xr.DataArray:
+    """:func:`shift_wavelengths` of spectra and an offset already checked."""
     wl = spectra[WAVELENGTH].values - delta
     if wl[0] <= 0:
-        raise InputError(f"wavelength offset: {delta:g} nm would make {wl[0]:g} nm ≤ 0")
+        raise InputError(f"offset_nm: {delta:g} nm would make {wl[0]:g} nm ≤ 0")
     out = spectra.assign_coords({WAVELENGTH: wl})
     out.attrs = {**spectra.attrs, "wavelength_offset_nm": delta}
     return out
+
+
+def correct_spectra(spectra: xr.DataArray, cell: CellCorrection | None = None,
+                    offset_nm: float | None = None
+                    ) -> tuple[xr.DataArray, CellCorrection | None]:
+    """Apply a measurement's corrections in order: cell blank and ratio, then the axis.
+
+    The one place the corrections of measured spectra are made before fitting
+    (``mixsolve unmix --cell-blank/--cell-ratio/--wavelength-offset``). The spectra are
+    taken as checked (read by :func:`mixsolve.read_spectra`, made by
+    :func:`mixsolve.make_spectra`) and are not scanned again: the fit checks them at its
+    own boundary; :func:`correct_cells` and :func:`shift_wavelengths` are the checked
+    forms of each step.
+
+    Parameters
+    ----------
+    spectra : DataArray with dims (..., "wavelength")
+        Measured absorbance (AU), numpy- or dask-backed, or a (wavelength) profile such
+        as the SD of repeat scans.
+    cell : CellCorrection, optional
+        Subtracted and divided first (:func:`correct_cells`).
+    offset_nm : float, optional
+        δ = λ_read − λ_true (nm), then taken off the axis (:func:`shift_wavelengths`).
+
+    Returns
+    -------
+    (DataArray, CellCorrection or None)
+        The corrected spectra, and ``cell`` with its blank moved onto the corrected axis
+        (so that the budget interpolates it where the fit's wavelengths are).
+    """
+    if cell is not None:
+        spectra = _correct_cells(spectra, cell)
+    if offset_nm is not None:
+        delta = check_offset(offset_nm)
+        spectra = _shift(spectra, delta)
+        if cell is not None and cell.blank is not None and cell.u_blank is not None:
+            cell = dataclasses.replace(cell, blank=_shift(cell.blank, delta),
+                                       u_blank=_shift(cell.u_blank, delta))
+    return spectra, cell

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import json
 from dataclasses import dataclass, field
-from typing import Literal
 
 import numpy as np
 import xarray as xr
@@ -28,13 +27,9 @@ from mixsolve.solve.design import design_matrix
 from mixsolve.solve.shift_sensitivity import library_derivative
 from mixsolve.spectra import SAMPLE, WAVELENGTH
 from mixsolve.uncertainty.corrections import CellCorrection, on_wavelengths
+from mixsolve.uncertainty.inputs import BudgetInputs
 from mixsolve.uncertainty.sensitivity import ls_operators
 from mixsolve.uncertainty.volumetric import Dilution
-
-CarryFrom = Literal["previous", "solvent"]
-#: Fill volume of a 10 mm macro cuvette (µL), common practice; used for the carry-over
-#: fraction when none is given.
-DEFAULT_FILL_VOLUME_UL = 3000.0
 
 
 @dataclass
@@ -90,13 +85,9 @@ class MeasurementModel:
         return 1.0 if self.dilution is None else self.dilution.factor
 
 
-def _nonneg(value: float | None, name: str, unit: str) -> float:
-    if value is None:
-        return float("nan")
-    out = float(value)
-    if not (np.isfinite(out) and out >= 0):
-        raise InputError(f"{name}: {value!r} {unit} must be a number ≥ 0")
-    return out
+def _stated(value: float | None) -> float:
+    """A checked input of :class:`BudgetInputs`; NaN (not stated) for None."""
+    return float("nan") if value is None else float(value)
 
 
 def _result_noise_model(result: xr.Dataset) -> NoiseModel | None:
@@ -123,47 +114,35 @@ def check_result(result: xr.Dataset, library: xr.Dataset) -> xr.Dataset:
     return result
 
 
-def measurement_model(result: xr.Dataset, library: xr.Dataset, *,
-                      pathlength_u_cm: float | None = None,
-                      dilution: Dilution | None = None,
-                      carryover_ul: float | None = None,
-                      fill_volume_ul: float = DEFAULT_FILL_VOLUME_UL,
-                      carryover_from: CarryFrom = "previous",
-                      wavelength_tolerance_nm: float | None = None,
-                      wavelength_u_nm: float | None = None,
-                      stray_fraction: float | None = None,
-                      noise_sd: xr.DataArray | None = None,
-                      cell: CellCorrection | None = None) -> MeasurementModel:
-    """Assemble the inputs of :func:`mixsolve.uncertainty_budget` (same parameters)."""
+def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInputs
+                      ) -> MeasurementModel:
+    """Assemble the inputs of :func:`mixsolve.uncertainty_budget` for every sample.
+
+    ``inputs`` were checked when made; the result's own ``wavelength_tolerance_nm`` and
+    noise model's stray fraction stand in for those not given.
+    """
     library = check_library(library)
     result = check_result(result, library)
     notes: list[str] = []
-    if carryover_from not in ("previous", "solvent"):
-        raise InputError(f"carryover_from: {carryover_from!r} is not 'previous' or 'solvent'")
-    if wavelength_u_nm is not None and wavelength_tolerance_nm is not None:
-        raise InputError("wavelength: give wavelength_tolerance_nm (± limits) or "
-                         "wavelength_u_nm (a standard uncertainty), not both")
-    if wavelength_u_nm is not None:
-        u_wl, wl_dist = _nonneg(wavelength_u_nm, "wavelength_u_nm", "nm"), "normal"
+    if inputs.wavelength_u_nm is not None:
+        u_wl, wl_dist = inputs.wavelength_u_nm, "normal"
     else:
-        tol = wavelength_tolerance_nm
+        tol = inputs.wavelength_tolerance_nm
         if tol is None:
             tol = result.attrs.get("wavelength_tolerance_nm")
-        u_wl = _nonneg(tol, "wavelength_tolerance_nm", "nm") / np.sqrt(3.0)
+        u_wl = _stated(tol) / np.sqrt(3.0)
         wl_dist = "rectangular"
-    fill = _nonneg(fill_volume_ul, "fill_volume_ul", "µL")
-    if not fill > 0:
-        raise InputError(f"fill_volume_ul: {fill_volume_ul!r} µL must be positive")
-    carry_ul = _nonneg(carryover_ul, "carryover_ul", "µL")
+    fill = float(inputs.fill_volume_ul)  # type: ignore[arg-type]  # None became the default
+    carry_ul = _stated(inputs.carryover_ul)
     carry_frac = 0.0 if np.isnan(carry_ul) else carry_ul / (fill + carry_ul)
-    if stray_fraction is None:
+    if inputs.stray_fraction is None:
         model = _result_noise_model(result)
         stray = model.stray if model is not None else float("nan")
     else:
-        stray = _nonneg(stray_fraction, "stray_fraction", "")
-        if stray >= 1:
-            raise InputError(f"stray_fraction: {stray:g} must be below 1")
-    cell = cell if cell is not None else CellCorrection()
+        stray = inputs.stray_fraction
+    cell = inputs.cell if inputs.cell is not None else CellCorrection()
+    noise_sd = inputs.noise_sd
+    carryover_from = inputs.carryover_from
 
     used_wl = np.asarray(json.loads(result.attrs["wavelengths_nm"]), dtype=float)
     lib_used, outside = resample_library(library, used_wl)
@@ -234,10 +213,11 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, *,
             sigma_noise=sigma, u_absorptivity=u_eps[present], derivative=deriv[present],
             stray_bias=bias, sigma_blank=blank_u[present] / cell.ratio,
             carry_delta=carry_frac * (previous - conc[i]) / factor))
-    u_b = _nonneg(pathlength_u_cm, "pathlength_u_cm", "cm")
     return MeasurementModel(
         components=comps, samples=samples, unit=result.attrs["unit"], unit_factor=factor,
-        grid_nm=grid, absorptivity_grid=eps_grid, u_pathlength_cm=u_b, dilution=dilution,
+        grid_nm=grid, absorptivity_grid=eps_grid,
+        u_pathlength_cm=_stated(inputs.pathlength_u_cm),
+        dilution=inputs.dilution,  # type: ignore[arg-type]  # text became a Dilution
         wavelength_u_nm=u_wl, wavelength_distribution=wl_dist, stray_fraction=stray,
         carryover_fraction=carry_frac, cell=cell,
         noise_from="repeat scans" if sd is not None else "fit residual", notes=notes)

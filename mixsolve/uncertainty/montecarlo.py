@@ -35,16 +35,12 @@ from __future__ import annotations
 import numpy as np
 from scipy.interpolate import CubicSpline
 
-from mixsolve.errors import InputError
+from mixsolve.spectra import check_number
+from mixsolve.uncertainty.inputs import DEFAULT_MC_TOLERANCE, MIN_DRAWS
 from mixsolve.uncertainty.measurement_model import MeasurementModel, SampleModel
 
 #: Coverage factor of a 95 % interval under a normal distribution (JCGM 101, 8.2).
 K95 = 1.96
-#: Numerical tolerance of the comparison, as a fraction of the combined uncertainty.
-DEFAULT_TOLERANCE = 0.05
-#: Fewest draws accepted (JCGM 101 suggests 10⁶ for a 95 % interval; 2·10⁴ already gives
-#: interval ends within ~2 % of u for a near-normal output).
-MIN_DRAWS = 1000
 BATCH = 4000
 
 
@@ -145,9 +141,7 @@ def propagate(model: MeasurementModel, *, draws: int = 20000, seed: int = 0
     InputError
         Fewer than 1000 draws.
     """
-    draws = int(draws)
-    if draws < MIN_DRAWS:
-        raise InputError(f"monte_carlo: {draws} draws; at least {MIN_DRAWS} are needed")
+    draws = int(check_number(draws, "draws", low=MIN_DRAWS, integer=True))
     rng = np.random.default_rng(seed)
     shape = (len(model.samples), len(model.components))
     out = {key: np.full(shape, np.nan) for key in ("mean", "sd", "low", "high")}
@@ -162,7 +156,7 @@ def propagate(model: MeasurementModel, *, draws: int = 20000, seed: int = 0
 
 
 def compare(y: np.ndarray, u_c: np.ndarray, mc: dict[str, np.ndarray],
-            tolerance: float = DEFAULT_TOLERANCE) -> dict[str, np.ndarray]:
+            tolerance: float = DEFAULT_MC_TOLERANCE) -> dict[str, np.ndarray]:
     """Compare the linear budget with the draws, δ = ``tolerance``·u_c.
 
     Returns

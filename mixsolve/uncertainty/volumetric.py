@@ -21,6 +21,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 from mixsolve.errors import InputError
+from mixsolve.spectra import check_number
 
 Role = Literal["aliquot", "final"]
 Distribution = Literal["rectangular", "triangular"]
@@ -82,13 +83,10 @@ class VolumeStep:
     device: str = "user"
 
     def __post_init__(self) -> None:
-        if not (math.isfinite(self.volume_ml) and self.volume_ml > 0):
-            raise InputError(f"dilution: volume {self.volume_ml:g} mL is not a positive number")
+        check_number(self.volume_ml, "dilution, volume", "mL", positive=True)
         for name in ("tolerance_ml", "random_sd_ml"):
-            value = getattr(self, name)
-            if not (math.isfinite(value) and value >= 0):
-                raise InputError(f"dilution: {name} {value:g} mL of the {self.volume_ml:g} mL "
-                                 "volume must be a number ≥ 0")
+            check_number(getattr(self, name), f"dilution, {name} of the {self.volume_ml:g} mL "
+                         "volume", "mL", low=0)
         if self.role not in ("aliquot", "final"):
             raise InputError(f"dilution: role {self.role!r} is not 'aliquot' or 'final'")
         if self.distribution not in DIVISORS:
@@ -160,17 +158,15 @@ def volume_step(volume_ml: float, role: Role, *, device: str | None = None,
     InputError
         Unknown device, or a glass volume that is not a nominal size in the table.
     """
-    if not (math.isfinite(float(volume_ml)) and float(volume_ml) > 0):
-        raise InputError(f"dilution: volume {float(volume_ml):g} mL is not a positive number")
+    volume = check_number(volume_ml, "dilution, volume", "mL", positive=True)
     if tolerance_ml is not None:
-        return VolumeStep(float(volume_ml), role, float(tolerance_ml),
-                          distribution=distribution, device="user")
+        return VolumeStep(volume, role, float(tolerance_ml), distribution=distribution,
+                          device="user")
     name = device or DEFAULT_DEVICE.get(role, "")
     if name not in VOLUMETRIC_CLASSES:
         raise InputError(f"dilution: unknown device {name!r}; devices are "
                          f"{', '.join(VOLUMETRIC_CLASSES)}")
     table = VOLUMETRIC_CLASSES[name][1]
-    volume = float(volume_ml)
     if name == "piston":
         sizes = [v for v in sorted(table) if v >= volume * (1 - 1e-9)]
         if not sizes:

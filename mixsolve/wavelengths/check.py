@@ -10,6 +10,7 @@ import xarray as xr
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.names import normalise_name
+from mixsolve.noise import check_noise_sd
 from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
 from mixsolve.solve.shift_sensitivity import library_derivative, shift_matrix
 from mixsolve.spectra import WAVELENGTH, check_option, check_wavelength_list, check_window
@@ -106,9 +107,7 @@ def check_wavelengths(
     """
     library = check_library(library)
     check_option(baseline, BASELINES, "baseline")
-    sigma = float(noise)
-    if not np.isfinite(sigma) or sigma <= 0:
-        raise InputError(f"noise: σ_A = {sigma:g} AU must be a positive number")
+    sigma = check_noise_sd(noise)
     if components is not None:
         components = [normalise_name(c) for c in components]  # as the library's names
         names = [str(c) for c in library[COMPONENT].values]

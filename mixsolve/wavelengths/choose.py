@@ -29,6 +29,7 @@ import xarray as xr
 
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.noise import check_noise_sd
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
@@ -36,7 +37,7 @@ from mixsolve.solve.design import (
     Baseline,
     design_matrix,
 )
-from mixsolve.spectra import WAVELENGTH, check_option
+from mixsolve.spectra import WAVELENGTH, check_number, check_option
 from mixsolve.wavelengths.check import DEFAULT_SIGMA_A, _figures, candidate_wavelengths
 from mixsolve.wavelengths.merit import scaled_condition_number
 
@@ -141,18 +142,15 @@ def choose_wavelengths(
     """
     library = check_library(library)
     check_option(baseline, BASELINES, "baseline")
-    if not np.isfinite(float(noise)) or float(noise) <= 0:
-        raise InputError(f"noise: σ_A = {float(noise):g} AU must be a positive number")
+    sigma = check_noise_sd(noise)
     candidates = candidate_wavelengths(library, window=window)
     n = library.sizes[COMPONENT]
     p = n + len(BASELINE_TERMS[baseline])
-    count = int(count)
-    if count < p:
-        raise InputError(f"--count {count}: at least {p} wavelengths are needed for {p} "
-                         "unknowns (components and baseline terms)")
-    if count > candidates.size:
-        raise InputError(f"--count {count}: only {candidates.size} candidate wavelengths in "
-                         "the window")
+    count = int(check_number(count, "count", low=p, integer=True,
+                             hint=f"one wavelength per unknown ({p}: components and baseline "
+                                  "terms) at least"))
+    check_number(count, "count", high=candidates.size,
+                 hint=f"the window holds {candidates.size} candidate wavelengths")
     lib_c, _ = resample_library(library, candidates)
     k = lib_c["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
     full_design = design_matrix(k, candidates, baseline)
@@ -178,12 +176,11 @@ def choose_wavelengths(
     if not np.isfinite(value):
         how = "contiguous run of " if contiguous else "set of "
         raise InputError(
-            f"--count {count}: no {how}{count} candidate wavelengths separates the components "
+            f"count: no {how}{count} candidate wavelengths separates the components "
             f"(every one tried is singular, scaled condition number above "
             f"{MAX_CONDITION_NUMBER:.0e}); choose more wavelengths, widen the window"
-            + (" or drop --contiguous" if contiguous else ""))
+            + (" or set contiguous=False" if contiguous else ""))
     chosen_nm = candidates[np.sort(chosen)]
-    sigma = float(noise)
     user = user_value = None
     if compare:
         user = _figures(library, candidate_wavelengths(library, wavelengths=compare), sigma,

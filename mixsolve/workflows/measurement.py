@@ -1,9 +1,12 @@
 """Corrections and the uncertainty budget of ``unmix`` runs on files.
 
 :class:`MeasurementOptions` gathers what ``mixsolve unmix`` takes beyond the fit itself:
-a cell-blank file and pathlength ratio, a known wavelength offset, and the budget's
-settings. :func:`prepare_spectra` applies the corrections before fitting,
-:func:`file_budget` builds the budget after it, and the budget travels with the result
+a cell-blank file and pathlength ratio, a known wavelength offset, repeat scans, the budget
+CSV to write and the budget's inputs (one
+:class:`~mixsolve.uncertainty.inputs.BudgetInputs`). The files are read by
+:mod:`mixsolve.workflows.unmix_files`; here the options become the corrections that core
+applies before fitting (:func:`correct_measurement`) and the budget's inputs after it
+(:func:`file_budget_inputs`), and the budget travels with the result
 (:func:`attach_budget`) so the text report can show its largest contributors.
 """
 
@@ -13,78 +16,93 @@ import dataclasses
 import os
 import re
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import xarray as xr
 
 from mixsolve.errors import InputError
 from mixsolve.instrument.repeatability import repeatability
-from mixsolve.io.spectra_io import read_spectra
 from mixsolve.report.budget_text import format_budget
-from mixsolve.uncertainty.budget import uncertainty_budget
+from mixsolve.spectra import check_number
 from mixsolve.uncertainty.corrections import (
     CellCorrection,
     cell_blank,
-    correct_cells,
-    shift_wavelengths,
+    check_offset,
+    correct_spectra,
 )
-from mixsolve.uncertainty.measurement_model import DEFAULT_FILL_VOLUME_UL
-from mixsolve.uncertainty.volumetric import parse_dilution
+from mixsolve.uncertainty.inputs import BudgetInputs, budget_inputs
 
 PathLike = str | os.PathLike[str]
 BUDGET_PREFIX = "budget_"
+#: Command-line option of each budget input it sets (fields of BudgetInputs).
+BUDGET_FLAGS: dict[str, str] = {
+    "pathlength_u_cm": "--pathlength-u", "dilution": "--dilution",
+    "carryover_ul": "--carryover", "fill_volume_ul": "--fill-volume",
+    "stray_fraction": "--stray", "monte_carlo": "--monte-carlo"}
 _VALUE_U = re.compile(r"^\s*([-+]?[0-9.eE+-]+?)\s*(?:(?:±|\+-|\+/-)\s*([0-9.eE+-]+))?\s*$")
 
 
 @dataclass(frozen=True)
 class MeasurementOptions:
-    """Options of ``unmix`` beyond the fit (CLI names in brackets).
+    """Options of ``unmix`` on files beyond the fit (CLI names in brackets).
 
     ``cell_blank`` [--cell-blank] spectra file of the sample cell with solvent;
     ``cell_ratio`` [--cell-ratio] ``R`` or ``R±U``; ``wavelength_offset``
     [--wavelength-offset] ``NM`` or ``NM±U`` (read − true); ``budget`` [--budget] CSV to
-    write; ``pathlength_u`` [--pathlength-u] cm; ``dilution`` [--dilution] e.g. ``1/10``;
-    ``carryover`` [--carryover] µL; ``fill_volume`` [--fill-volume] µL; ``repeat_scans``
-    [--repeat-scans] file; ``stray`` [--stray] fraction; ``monte_carlo`` [--monte-carlo]
-    draws.
+    write; ``repeat_scans`` [--repeat-scans] file; ``inputs`` the budget's inputs
+    (:class:`~mixsolve.uncertainty.inputs.BudgetInputs`; options in :data:`BUDGET_FLAGS`).
+    The corrections and the files come from the options; ``inputs`` need ``budget``.
     """
 
     cell_blank: PathLike | None = None
     cell_ratio: str | None = None
     wavelength_offset: str | None = None
     budget: PathLike | None = None
-    pathlength_u: float | None = None
-    dilution: str | None = None
-    carryover: float | None = None
-    fill_volume: float | None = None
     repeat_scans: PathLike | None = None
-    stray: float | None = None
-    monte_carlo: int | None = None
+    inputs: BudgetInputs = field(default_factory=BudgetInputs)
 
     def __post_init__(self) -> None:
         if self.budget is None:
-            for field in ("pathlength_u", "dilution", "carryover", "fill_volume",
-                          "repeat_scans", "stray", "monte_carlo"):
-                if getattr(self, field) is not None:
-                    raise InputError(f"--{field.replace('_', '-')}: a budget setting; give "
-                                     "--budget FILE.csv too")
+            given = [*self.inputs.changed(), *(["repeat_scans"] if self.repeat_scans else [])]
+            if given:
+                flag = BUDGET_FLAGS.get(given[0], "--" + given[0].replace("_", "-"))
+                raise InputError(f"{flag}: a budget setting; give --budget FILE.csv too")
 
 
 def measurement_options(options: MeasurementOptions | Mapping[str, Any] | None
                         ) -> MeasurementOptions:
-    """Accept a :class:`MeasurementOptions`, a mapping of its fields, or None."""
+    """Accept a :class:`MeasurementOptions`, a mapping of its fields, or None.
+
+    A mapping may also hold the fields of :class:`BudgetInputs` by name, or by the name
+    of their command-line option (``pathlength_u`` for ``pathlength_u_cm``, as click
+    passes ``--pathlength-u``); None values are left at their defaults.
+    """
     if options is None or isinstance(options, MeasurementOptions):
         return options or MeasurementOptions()
-    known = {f.name for f in dataclasses.fields(MeasurementOptions)}
-    unknown = sorted(set(options) - known)
+    own = {f.name for f in dataclasses.fields(MeasurementOptions)}
+    by_option = {flag[2:].replace("-", "_"): name for name, flag in BUDGET_FLAGS.items()}
+    settings = {f.name for f in dataclasses.fields(BudgetInputs)}
+    files: dict[str, Any] = {}
+    given: dict[str, Any] = {}
+    unknown = []
+    for key, value in options.items():
+        if key in own:
+            files[key] = value
+        elif key in settings or key in by_option:
+            if value is not None:
+                given[by_option.get(key, key)] = value
+        else:
+            unknown.append(key)
     if unknown:
-        raise InputError(f"measurement options: unknown {', '.join(unknown)}")
-    return MeasurementOptions(**dict(options))
+        raise InputError(f"measurement options: unknown {', '.join(sorted(unknown))}")
+    files["inputs"] = budget_inputs(files.get("inputs"), **given)
+    return MeasurementOptions(**files)
 
 
-def parse_value_u(text: str | None, option: str) -> tuple[float, float | None] | None:
-    """Parse ``"V"`` or ``"V±U"`` (also ``V+-U``) into (value, u or None)."""
+def parse_value_u(text: str | None, option: str, unit: str = ""
+                  ) -> tuple[float, float | None] | None:
+    """Parse ``"V"`` or ``"V±U"`` (also ``V+-U``) into (value, u or None); u ≥ 0."""
     if text is None:
         return None
     m = _VALUE_U.match(str(text))
@@ -96,56 +114,69 @@ def parse_value_u(text: str | None, option: str) -> tuple[float, float | None] |
     except ValueError:
         raise InputError(f"{option}: {text!r} is not a number or NUMBER±U, e.g. 0.4±0.05"
                          ) from None
+    if u is not None:
+        check_number(u, f"{option} uncertainty", unit, low=0)
     return value, u
 
 
 @dataclass(frozen=True)
-class Prepared:
-    """What :func:`prepare_spectra` did: the cell correction and the wavelength offset."""
+class Corrections:
+    """The corrections of a measurement: the cell (blank and ratio) and the λ offset."""
 
-    cell: CellCorrection | None
-    offset_nm: float | None
-    u_offset_nm: float | None
+    cell: CellCorrection | None = None
+    offset_nm: float | None = None
+    u_offset_nm: float | None = None
 
 
-def prepare_spectra(spectra: xr.DataArray, options: MeasurementOptions
-                    ) -> tuple[xr.DataArray, Prepared]:
-    """Subtract the cell blank, divide by the cell ratio, then correct the wavelength axis."""
+def measurement_corrections(options: MeasurementOptions,
+                            blank_scans: xr.DataArray | None = None) -> Corrections:
+    """The corrections ``options`` ask for, with the cell-blank scans read from their file.
+
+    Raises
+    ------
+    InputError
+        Text that is not ``V`` or ``V±U``, a ratio that is not positive, an offset beyond
+        ±10 nm (named by their options), or a blank with a missing reading.
+    """
     ratio = parse_value_u(options.cell_ratio, "--cell-ratio")
-    offset = parse_value_u(options.wavelength_offset, "--wavelength-offset")
-    cell = None
-    if options.cell_blank is not None or ratio is not None:
-        r, u_r = ratio if ratio is not None else (1.0, None)
-        if options.cell_blank is not None:
-            cell = cell_blank(read_spectra(options.cell_blank), ratio=r, u_ratio=u_r or 0.0)
-        else:
-            cell = CellCorrection(ratio=r, u_ratio=u_r or 0.0)
-        spectra = correct_cells(spectra, cell)
+    offset = parse_value_u(options.wavelength_offset, "--wavelength-offset", "nm")
     if offset is not None:
-        spectra = shift_wavelengths(spectra, offset[0])
-        if cell is not None and cell.blank is not None:
-            cell = dataclasses.replace(
-                cell, blank=shift_wavelengths(cell.blank, offset[0]),
-                u_blank=shift_wavelengths(cell.u_blank, offset[0]))  # type: ignore[arg-type]
-    return spectra, Prepared(cell, offset[0] if offset else None, offset[1] if offset else None)
+        check_offset(offset[0], "--wavelength-offset")
+    cell = None
+    if blank_scans is not None or ratio is not None:
+        r, u_r = ratio if ratio is not None else (1.0, None)
+        r = check_number(r, "--cell-ratio", positive=True)
+        cell = (cell_blank(blank_scans, ratio=r, u_ratio=u_r or 0.0) if blank_scans is not None
+                else CellCorrection(ratio=r, u_ratio=u_r or 0.0))
+    return Corrections(cell, *(offset if offset is not None else (None, None)))
 
 
-def file_budget(result: xr.Dataset, library: xr.Dataset, options: MeasurementOptions,
-                prepared: Prepared) -> xr.Dataset:
-    """The budget of ``result`` with the file-level options (repeat scans read here)."""
-    noise_sd = None
-    if options.repeat_scans is not None:
-        noise_sd = repeatability(read_spectra(options.repeat_scans))["sd"]
-        if prepared.offset_nm is not None:
-            noise_sd = shift_wavelengths(noise_sd, prepared.offset_nm)
-    return uncertainty_budget(
-        result, library, pathlength_u_cm=options.pathlength_u,
-        dilution=parse_dilution(options.dilution) if options.dilution else None,
-        carryover_ul=options.carryover,
-        fill_volume_ul=DEFAULT_FILL_VOLUME_UL if options.fill_volume is None
-        else options.fill_volume,
-        wavelength_u_nm=prepared.u_offset_nm, stray_fraction=options.stray,
-        noise_sd=noise_sd, cell=prepared.cell, monte_carlo=options.monte_carlo)
+def correct_measurement(spectra: xr.DataArray, corrections: Corrections
+                        ) -> tuple[xr.DataArray, Corrections]:
+    """The spectra corrected (:func:`mixsolve.uncertainty.corrections.correct_spectra`),
+    and the corrections with the cell blank moved onto the corrected axis."""
+    spectra, cell = correct_spectra(spectra, corrections.cell, corrections.offset_nm)
+    return spectra, dataclasses.replace(corrections, cell=cell)
+
+
+def file_budget_inputs(options: MeasurementOptions, corrections: Corrections,
+                       repeat_scans: xr.DataArray | None = None) -> BudgetInputs:
+    """The budget's inputs of a file run: the options', plus what the corrections and the
+    repeat scans (read from their file) state.
+
+    The cell correction enters as ``cell``, the offset's uncertainty as
+    ``wavelength_u_nm`` (normal), and the SD of the repeat scans (on the corrected axis)
+    as ``noise_sd``.
+    """
+    found: dict[str, Any] = {}
+    if corrections.cell is not None:
+        found["cell"] = corrections.cell
+    if corrections.u_offset_nm is not None:
+        found["wavelength_u_nm"] = corrections.u_offset_nm
+    if repeat_scans is not None:
+        sd = repeatability(repeat_scans)["sd"]
+        found["noise_sd"] = correct_spectra(sd, offset_nm=corrections.offset_nm)[0]
+    return budget_inputs(options.inputs, **found)
 
 
 def attach_budget(result: xr.Dataset, budget: xr.Dataset) -> xr.Dataset:

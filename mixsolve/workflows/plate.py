@@ -25,6 +25,7 @@ from mixsolve.io.outputs import all_or_nothing, guard_outputs, unique_names
 from mixsolve.io.plates import read_plate
 from mixsolve.io.results_io import write_table, write_text, write_workbook
 from mixsolve.plate.analysis import PlateResult, analyse_plate
+from mixsolve.report.plate_text import plate_notes, plate_settings
 from mixsolve.report.text import CAUTION
 
 PathLike = str | os.PathLike[str]
@@ -179,8 +180,9 @@ def _run_plates(paths: list[Path], names: list[str], layout: PathLike, *, out: P
                                library_from_plate=library_from_plate, **options)
         plates.append(result)
         pages.append(plate_page(result.wells, result.samples, result=result.result,
-                                plate_size=result.plate_size, settings=result.settings,
-                                notes=result.notes, title=f"mixsolve plate report: {path.name}"))
+                                plate_size=result.plate_size, settings=plate_settings(result),
+                                notes=plate_notes(result),
+                                title=f"mixsolve plate report: {path.name}"))
         if progress is not None:
             progress(k, len(paths), _summary(result))
     combined = pd.concat([p.samples.assign(plate=n) for p, n in zip(plates, names,
@@ -195,7 +197,7 @@ def _run_plates(paths: list[Path], names: list[str], layout: PathLike, *, out: P
     lines = []
     for result, sub in zip(plates, folders, strict=True):
         lines.append(f"{_summary(result)} -> {sub}")
-        lines += [f"  note: {note}" for note in result.notes]
+        lines += [f"  note: {note}" for note in plate_notes(result)]
     lines += [f"Wrote {folder / COMBINED}: {combined['sample'].nunique()} samples from "
               f"{len(plates)} plate(s).", CAUTION, ""]
     return PlateBatch(plates, folders, combined, folder, "\n".join(lines))
@@ -215,9 +217,9 @@ def _summary(result: PlateResult) -> str:
 def _write_plate(sub: Path, result: PlateResult, page: str, with_library: bool) -> None:
     write_table(result.wells, sub / "wells.csv")
     write_table(result.samples, sub / "samples.csv")
-    settings = pd.DataFrame({"setting": list(result.settings),
-                             "value": list(result.settings.values())})
-    write_workbook({"wells": result.wells, "samples": result.samples, "settings": settings},
+    settings = plate_settings(result)
+    sheet = pd.DataFrame({"setting": list(settings), "value": list(settings.values())})
+    write_workbook({"wells": result.wells, "samples": result.samples, "settings": sheet},
                    sub / "results.xlsx")
     write_text(page, sub / "report.html")
     if with_library:

@@ -30,15 +30,17 @@ from mixsolve.pls.predict import predict
 from mixsolve.report.tables import results_table
 from mixsolve.report.text import format_results
 from mixsolve.solve.unmix import unmix
-from mixsolve.uncertainty.budget import budget_table
+from mixsolve.uncertainty.budget import budget_table, uncertainty_budget
 from mixsolve.workflows.cluster import compute, dask_client, require_scale
 from mixsolve.workflows.measurement import (
+    Corrections,
     MeasurementOptions,
     attach_budget,
     attached_budget,
-    file_budget,
+    correct_measurement,
+    file_budget_inputs,
+    measurement_corrections,
     measurement_options,
-    prepare_spectra,
 )
 
 PathLike = str | os.PathLike[str]
@@ -72,6 +74,10 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
     of its fields): cell blank, cell ratio and wavelength offset, applied to the spectra
     before fitting; with ``budget`` the uncertainty budget is built (before any file is
     written), written as CSV and attached to the result (``budget_*`` variables).
+
+    The data take one path: every file is read first (spectra, cell blank, repeat scans),
+    the spectra are corrected in core (:mod:`mixsolve.uncertainty.corrections`), fitted
+    (the fit checks them at its boundary), the budget built, and then reported.
 
     If ``library`` is a PLS model file, :func:`mixsolve.predict` runs instead; a window,
     a wavelength list or a baseline do not apply to a model (its wavelengths and
@@ -134,17 +140,19 @@ def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions
         if report is not None:
             raise InputError("--report: the HTML page covers least-squares results; for a PLS "
                              "model use the results CSV and the calibration figures")
-        prepared, _ = prepare_spectra(read_spectra(spectra), extra)
-        result = predict(prepared, model, pathlength_cm=pathlength_cm, unit=unit)
+        measured, done = _corrected(read_spectra(spectra), extra)
+        result = predict(measured, model, pathlength_cm=pathlength_cm, unit=unit)
     else:
         lib = read_library(library)
-        measured, done = prepare_spectra(read_spectra(spectra), extra)
+        measured, done = _corrected(read_spectra(spectra), extra)
+        scans = read_spectra(extra.repeat_scans) if extra.repeat_scans is not None else None
         result = unmix(measured, lib, window=window, wavelengths=wavelengths,
                        method=method,  # type: ignore[arg-type]
                        baseline=baseline,  # type: ignore[arg-type]
                        pathlength_cm=pathlength_cm, unit=unit, **options)
         if extra.budget is not None:  # built before anything is written
-            result = attach_budget(result, file_budget(result, lib, extra, done))
+            inputs = file_budget_inputs(extra, done, scans)
+            result = attach_budget(result, uncertainty_budget(result, lib, inputs))
             budget_rows = budget_table(attached_budget(result))  # type: ignore[arg-type]
     page = None
     if report is not None:  # built before anything is written: a failure leaves no file
@@ -239,8 +247,8 @@ def _unmix_cube(library: PathLike, spectra: PathLike, extra: MeasurementOptions,
                 progress: TextIO | None, **options: Any) -> xr.Dataset:
     """:func:`unmix_cube_files` once checked; the caller guards and stages the outputs."""
     lib = read_library(library)
-    measured = read_cube(spectra) if is_cube_path(spectra) else read_spectra(spectra)
-    measured, _ = prepare_spectra(measured, extra)
+    measured, _ = _corrected(
+        read_cube(spectra) if is_cube_path(spectra) else read_spectra(spectra), extra)
     with dask_client(scheduler, workers) as client:
         if measured.chunks is None:
             measured = measured.chunk(chunk_plan(dict(measured.sizes)))
@@ -256,6 +264,13 @@ def _unmix_cube(library: PathLike, spectra: PathLike, extra: MeasurementOptions,
     if out is not None:
         write_table(results_table(small), out)
     return small
+
+
+def _corrected(measured: xr.DataArray, extra: MeasurementOptions
+                      ) -> tuple[xr.DataArray, Corrections]:
+    """The spectra as read, corrected as ``extra`` asks (the cell blank read from its file)."""
+    blank = read_spectra(extra.cell_blank) if extra.cell_blank is not None else None
+    return correct_measurement(measured, measurement_corrections(extra, blank))
 
 
 def open_result(path: PathLike) -> xr.Dataset:
