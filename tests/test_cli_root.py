@@ -15,16 +15,14 @@ from collections.abc import Iterator
 
 import click
 import pytest
-from click.testing import CliRunner
+from helpers_cli import Cli
 from helpers_imports import numerical_imports
 
-from mixsolve.cli import CoreChoice, CoreDefault, core, main
+from mixsolve.cli import CoreChoice, CoreDefault, core, in_flag_words, main
 from mixsolve.errors import ExtrapolationWarning, InputError
 
-
-def invoke(*args: object):
-    """Run ``mixsolve ARGS`` in-process; return click's Result."""
-    return CliRunner().invoke(main, [str(a) for a in args])
+#: The shared in-process runner (the ``cli`` fixture's class), for module-level helpers.
+invoke = Cli()
 
 
 def leaf_commands(group: click.Group = main,
@@ -266,3 +264,19 @@ def test_root_help_and_version_import_no_numerical_library():
         "from click.testing import CliRunner\n"
         "from mixsolve.cli import main\n"
         "CliRunner().invoke(main, ['unmix', '--help'])\n")
+
+
+@pytest.mark.parametrize(("message", "expected"), [
+    ("pathlength_cm: 0 cm is not a positive number", "--pathlength: 0 cm is not a positive number"),
+    ("absorbance_range: 0-2 AU must be increasing", "--range: 0-2 AU must be increasing"),
+    ("max_shift_nm: nan nm is not a finite number", "--max-shift: nan nm is not a finite number"),
+    ("window 800-900 nm holds no measured wavelength", "window 800-900 nm holds no measured "
+     "wavelength"),
+    ("lib.nc: not a mixsolve library", "lib.nc: not a mixsolve library"),
+    ("volume_ul: 0 µL is not a positive number", "volume_ul: 0 µL is not a positive number"),
+])
+def test_core_errors_name_the_flags_of_the_command_that_ran(message, expected):
+    """A core error names an API parameter; the command line names the flag of the running
+    command for it (unmix has no --volume-ul, so that name stays), and nothing else."""
+    unmix = dict(COMMANDS)[("unmix",)]
+    assert in_flag_words(message, unmix) == expected

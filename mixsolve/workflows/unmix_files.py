@@ -7,6 +7,7 @@ and used in place of a library: the spectra are then predicted by the model.
 from __future__ import annotations
 
 import functools
+import inspect
 import json
 import os
 import warnings
@@ -44,12 +45,10 @@ from mixsolve.workflows.measurement import (
 )
 
 PathLike = str | os.PathLike[str]
-#: Least-squares settings and their defaults: refused with a PLS model unless left as is.
-LS_DEFAULTS: dict[str, tuple[str, object]] = {
-    "weights": ("--weights", "none"), "noise": ("--noise", None),
-    "fit_shift": ("--fit-shift", False), "absorbance_range": ("--range", (0.3, 2.0)),
-    "max_shift_nm": ("--max-shift", 3.0),
-    "wavelength_tolerance_nm": ("--wavelength-tolerance", 0.5)}
+#: Least-squares settings of :func:`mixsolve.unmix`: refused with a PLS model unless left
+#: at unmix's own defaults.
+LS_ONLY = ("window", "wavelengths", "baseline", "method", "weights", "noise", "fit_shift",
+           "absorbance_range", "max_shift_nm", "wavelength_tolerance_nm")
 #: Largest result printed as a full table by :func:`format_unmix` (more: a summary).
 TABLE_MOST_SPECTRA = 500
 
@@ -124,21 +123,19 @@ def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions
     budget_rows = None
     if file_kind(library) == MODEL_KIND:
         if extra.budget is not None:
-            raise InputError("--budget: the uncertainty budget covers least-squares results, "
+            raise InputError("budget: the uncertainty budget covers least-squares results, "
                              "not a PLS model")
         model = read_model(library)
-        ls_options = [(LS_DEFAULTS[k][0], v, LS_DEFAULTS[k][1])
-                      for k, v in options.items() if k in LS_DEFAULTS]
-        for option, value, default in (("--window", window, None),
-                                       ("--wavelengths", wavelengths, None),
-                                       ("--baseline", baseline, "none"),
-                                       ("--method", method, "nnls"), *ls_options):
-            if value != default:
+        given = {"window": window, "wavelengths": wavelengths, "baseline": baseline,
+                 "method": method, **options}
+        defaults = inspect.signature(unmix).parameters
+        for name in LS_ONLY:
+            if name in given and given[name] != defaults[name].default:
                 raise InputError(
-                    f"{option}: does not apply to the PLS model {os.path.basename(library)}, "
+                    f"{name}: does not apply to the PLS model {os.path.basename(library)}, "
                     "whose wavelengths and preprocessing were fixed at calibration")
         if report is not None:
-            raise InputError("--report: the HTML page covers least-squares results; for a PLS "
+            raise InputError("report: the HTML page covers least-squares results; for a PLS "
                              "model use the results CSV and the calibration figures")
         measured, done = _corrected(read_spectra(spectra), extra)
         result = predict(measured, model, pathlength_cm=pathlength_cm, unit=unit)
