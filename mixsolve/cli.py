@@ -68,6 +68,40 @@ def one_line_errors(debug: bool) -> Iterator[None]:
 
 
 @contextlib.contextmanager
+def interrupts_noted() -> Iterator[None]:
+    """Ctrl-C raises ``KeyboardInterrupt`` as usual and is also noted
+    (:func:`mixsolve.io.outputs.note_interrupt`): a run whose interrupt some callback
+    swallowed still commits nothing and ends with exit 130."""
+    import signal
+    import threading
+
+    from mixsolve.io.outputs import clear_interrupt, note_interrupt
+
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def on_sigint(signum: int, frame: Any) -> None:
+        note_interrupt()
+        raise KeyboardInterrupt
+
+    def unraisable(info: Any) -> None:  # "Exception ignored in ...": noted, so not shown
+        if not issubclass(info.exc_type, KeyboardInterrupt):
+            hook(info)
+
+    clear_interrupt()
+    previous = signal.signal(signal.SIGINT, on_sigint)
+    hook, sys.unraisablehook = sys.unraisablehook, unraisable
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+        sys.unraisablehook = hook
+        if clear_interrupt():
+            raise KeyboardInterrupt  # mapped to one line and exit 130 by one_line_errors
+
+
+@contextlib.contextmanager
 def warning_lines(debug: bool) -> Iterator[None]:
     """Echo mixsolve's own warnings as ``warning: ...`` lines on stderr when the command ends.
 
@@ -398,7 +432,7 @@ class OneLineErrors(click.Group):
 
     def invoke(self, ctx: click.Context) -> Any:
         debug = bool(ctx.params.get("debug"))
-        with warning_lines(debug), one_line_errors(debug):
+        with warning_lines(debug), one_line_errors(debug), interrupts_noted():
             return super().invoke(ctx)
 
     def main(self, *args: Any, **kwargs: Any) -> Any:

@@ -23,7 +23,13 @@ from helpers_io import WL, band, write_wide
 
 import mixsolve.io.outputs as outputs
 from mixsolve.errors import OutputError
-from mixsolve.io.outputs import all_or_nothing, guard_outputs, unique_names
+from mixsolve.io.outputs import (
+    RECORD,
+    all_or_nothing,
+    guard_outputs,
+    recorded_files,
+    unique_names,
+)
 from mixsolve.io.results_io import write_text
 from mixsolve.workflows.demo import demo_file
 
@@ -280,10 +286,11 @@ def test_a_failed_move_puts_the_previous_versions_back(tmp_path, monkeypatch):
 
 def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch, cli):
     """A plate run whose workbook write fails (disk full) exits 2 and leaves no output;
-    an earlier result in --out stays as it was."""
+    the outputs of an earlier run in --out stay exactly as they were."""
     out = plate_dir["dir"] / "out"
-    out.mkdir()
-    (out / "samples.csv").write_text("an earlier result\n")
+    args = ("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
+            plate_dir["lib"], "--out", out)
+    cli.ok(*args)
     before = snapshot(plate_dir["dir"])
 
     real_write = Path.write_bytes
@@ -294,11 +301,28 @@ def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch, cli):
         return real_write(self, data)
 
     monkeypatch.setattr(Path, "write_bytes", full)
-    result = cli("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
-                 plate_dir["lib"], "--out", out)
-    assert_cli_error(result, "No space left", literal=True, progress=True)
+    assert_cli_error(cli(*args), "No space left", literal=True, progress=True)
     assert snapshot(plate_dir["dir"]) == before
-    assert sorted(p.name for p in out.iterdir()) == ["samples.csv"]
+    assert not [p for p in out.rglob(".*") if p.name != RECORD]
+
+
+def test_plate_out_holding_a_users_own_file_is_refused(plate_dir, cli):
+    """--out names a folder; a file there that no mixsolve run wrote (the user's own
+    samples.csv) is never replaced: refused before any work, and a rerun into a folder
+    of mixsolve's own outputs is fine."""
+    out = plate_dir["dir"] / "out"
+    out.mkdir()
+    (out / "samples.csv").write_text("my own sample list\n")
+    before = snapshot(plate_dir["dir"])
+    args = ("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
+            plate_dir["lib"], "--out", out)
+    assert_cli_error(cli(*args), "samples.csv: exists and was not written by mixsolve",
+                     literal=True)
+    assert snapshot(plate_dir["dir"]) == before
+    (out / "samples.csv").unlink()
+    cli.ok(*args)
+    cli.ok(*args)  # the second run replaces the first run's files, which are recorded
+    assert "samples.csv" in recorded_files(out)
 
 
 @pytest.mark.skipif(sys.platform == "win32", reason="POSIX file-size limit")
@@ -347,4 +371,51 @@ def test_ctrl_c_exits_130_with_one_line_and_changes_nothing(cuvette, monkeypatch
     assert result.exit_code == 130, (result.output, result.exception)
     lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
     assert lines == ["error: interrupted (Ctrl-C); this run changed no file"]
+    assert snapshot(cuvette["dir"]) == before
+
+
+def test_a_swallowed_ctrl_c_still_commits_nothing(tmp_path):
+    """A Ctrl-C that some callback swallowed ('Exception ignored in ...') is noted; the run
+    then moves nothing into place and ends as interrupted."""
+    old = tmp_path / "a.txt"
+    old.write_text("old\n")
+    with pytest.raises(KeyboardInterrupt), all_or_nothing():
+        write_text("new\n", old)
+        outputs.note_interrupt()  # what the command line's SIGINT handler does
+    assert outputs.clear_interrupt()  # noted, and now forgotten
+    assert old.read_text() == "old\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.txt"]
+
+
+def test_ctrl_c_while_outputs_move_into_place_is_held(tmp_path, monkeypatch):
+    """SIGINT arriving between two moves does not stop the commit half way: every output
+    is in place and no set-aside previous version is left behind."""
+    import signal
+
+    files = [tmp_path / f"{k}.txt" for k in range(3)]
+    for f in files:
+        f.write_text("old\n")
+    real_replace = os.replace
+
+    def replace_then_interrupt(src, dst):
+        real_replace(src, dst)
+        if str(src).endswith(".part"):
+            os.kill(os.getpid(), signal.SIGINT)  # Ctrl-C in the middle of the moves
+
+    monkeypatch.setattr(outputs.os, "replace", replace_then_interrupt)
+    with all_or_nothing():
+        for f in files:
+            write_text("new\n", f)
+    assert [f.read_text() for f in files] == ["new\n"] * 3
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["0.txt", "1.txt", "2.txt"]
+
+
+def test_out_that_is_the_same_file_under_another_name_is_refused(cuvette, cli):
+    """File identity, not the path string: a hard link to the spectra (as a bind mount or
+    another letter case on a case-insensitive file system would be) is the spectra."""
+    alias = cuvette["dir"] / "alias.csv"
+    os.link(cuvette["spectra"], alias)
+    before = snapshot(cuvette["dir"])
+    assert_cli_error(cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", alias),
+                     "is also an input", literal=True)
     assert snapshot(cuvette["dir"]) == before

@@ -17,11 +17,14 @@ and the folders the run made, and leaves earlier files as they were.
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import re
 import shutil
+import signal
 import stat
 import tempfile
+import threading
 import unicodedata
 from collections.abc import Iterable, Iterator, Sequence
 from contextvars import ContextVar
@@ -33,6 +36,9 @@ from mixsolve.errors import OutputError
 PathLike = str | os.PathLike[str]
 #: Entries a Zarr store (format 2 or 3) holds at its top; any other file there is not ours.
 ZARR_ENTRIES = frozenset({"zarr.json", ".zgroup", ".zattrs", ".zmetadata", ".zarray"})
+#: The record, in an output folder, of the files that mixsolve runs wrote there: only those
+#: may be replaced by a later run that names just the folder (plate, demo).
+RECORD = ".mixsolve-outputs.json"
 
 _FILE_KINDS = ((stat.S_ISFIFO, "a FIFO (named pipe)"), (stat.S_ISCHR, "a character device"),
                (stat.S_ISBLK, "a block device"), (stat.S_ISSOCK, "a socket"))
@@ -63,6 +69,7 @@ def guard_outputs(files: Iterable[PathLike | None] = (), *,
         Naming the output, what is wrong and what to do.
     """
     ins = [(Path(p), _real(p)) for p in inputs if p is not None and os.path.lexists(p)]
+    ids = {_identity(real): given for given, real in ins if _identity(real) is not None}
     made = [Path(p) for p in folders if p is not None]
     outs: list[tuple[Path, Path, str]] = []
     for folder in made:
@@ -73,6 +80,7 @@ def guard_outputs(files: Iterable[PathLike | None] = (), *,
     for path, real, kind in outs:
         for given, real_in in ins:
             _check_apart(path, real, kind, given, real_in)
+        _check_apart_by_identity(path, real, kind, ids)
         if kind == "file":
             _check_file(path, made)
         elif kind == "store":
@@ -88,6 +96,68 @@ def guard_outputs(files: Iterable[PathLike | None] = (), *,
 
 def _real(path: PathLike) -> Path:
     return Path(os.path.realpath(path))
+
+
+def _identity(path: Path) -> tuple[int, int] | None:
+    """(device, inode) of an existing path: the same file under any name (a bind mount, a
+    hard link, another letter case on a case-insensitive file system)."""
+    try:
+        st = os.stat(path)
+    except OSError:
+        return None
+    return st.st_dev, st.st_ino
+
+
+def _check_apart_by_identity(path: Path, real: Path, kind: str,
+                             ids: dict[tuple[int, int], Path]) -> None:
+    """As :func:`_check_apart`, by file identity: catches what path strings cannot."""
+    if not ids:
+        return
+    own = _identity(real)
+    if own is not None and own in ids:
+        reason = f"is also an input of this run ({ids[own]})"
+    else:
+        above = next((ids[i] for i in map(_identity, real.parents) if i in ids), None)
+        if above is None or kind == "folder":
+            return
+        reason = f"lies inside {above}, an input of this run"
+    if kind == "folder":
+        raise OutputError(f"{path}: {reason}; choose another output folder")
+    raise OutputError(f"{path}: {reason}; writing it would destroy input data, so choose "
+                      "another output name")
+
+
+def check_own_files(folder: PathLike, names: Iterable[str]) -> None:
+    """Refuse to replace a file in ``folder`` that no earlier mixsolve run wrote there.
+
+    For runs given only a folder (``plate --out``, ``demo --out``): the files they write
+    inside it are implied, so one the user keeps there (their own ``samples.csv``) must
+    not be replaced. Files listed in the folder's :data:`RECORD` were written by mixsolve
+    and may be replaced.
+
+    Raises
+    ------
+    OutputError
+    """
+    root = Path(folder)
+    if not root.is_dir():
+        return
+    ours = set(recorded_files(root))
+    for name in names:
+        target = root / name
+        if os.path.lexists(target) and name not in ours:
+            raise OutputError(f"{target}: exists and was not written by mixsolve into {root} "
+                              f"(not in its {RECORD}); move it, or choose a new or empty "
+                              "output folder")
+
+
+def recorded_files(folder: PathLike) -> list[str]:
+    """The names (relative to ``folder``) that earlier mixsolve runs recorded as theirs."""
+    try:
+        data = json.loads((Path(folder) / RECORD).read_text(encoding="utf-8"))
+        return [str(n) for n in data.get("files", [])]
+    except (OSError, ValueError, AttributeError):
+        return []
 
 
 def _inside(path: Path, folder: Path) -> bool:
@@ -236,13 +306,51 @@ def all_or_nothing() -> Iterator[None]:
         yield
         _RUN.reset(token)
         token = None
-        _commit(run)
+        if _INTERRUPTED.is_set():  # a Ctrl-C that a callback swallowed
+            raise KeyboardInterrupt
+        with _sigint_held():
+            _commit(run)
     except BaseException:
-        _discard(run)
+        with _sigint_held():
+            _discard(run)
         raise
     finally:
         if token is not None:
             _RUN.reset(token)
+
+
+_INTERRUPTED = threading.Event()
+
+
+def note_interrupt() -> None:
+    """Record a Ctrl-C (the command line's SIGINT handler calls this before raising).
+
+    A ``KeyboardInterrupt`` raised inside a callback (a weakref finaliser, a ``__del__``)
+    is printed and swallowed by Python; the record makes the run fail all the same:
+    :func:`all_or_nothing` commits nothing once an interrupt was noted.
+    """
+    _INTERRUPTED.set()
+
+
+def clear_interrupt() -> bool:
+    """Forget a noted interrupt; say whether there was one."""
+    was = _INTERRUPTED.is_set()
+    _INTERRUPTED.clear()
+    return was
+
+
+@contextlib.contextmanager
+def _sigint_held() -> Iterator[None]:
+    """Hold Ctrl-C while staged outputs move into place, so the moves (or the putting back)
+    always finish; an interrupt in that moment is dropped: the run has then completed."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def in_run() -> bool:

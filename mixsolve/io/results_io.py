@@ -8,8 +8,10 @@ from __future__ import annotations
 
 import gc
 import io
+import json
 import os
 import sys
+from collections.abc import Sequence
 from pathlib import Path
 
 import pandas as pd
@@ -17,6 +19,7 @@ import pandas as pd
 from mixsolve.errors import OutputError
 from mixsolve.io.atomic import atomic_path
 from mixsolve.io.cell_text import csv_line_end, safe_frame, text_not_formulas
+from mixsolve.io.outputs import RECORD, recorded_files
 
 
 def write_table(table: pd.DataFrame, path: str | os.PathLike[str]) -> Path:
@@ -37,6 +40,18 @@ def write_text(text: str, path: str | os.PathLike[str]) -> Path:
     with atomic_path(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
     return Path(path)
+
+
+def record_outputs(folder: str | os.PathLike[str], names: Sequence[str]) -> Path:
+    """Add ``names`` (relative to ``folder``) to the folder's record of mixsolve's own files.
+
+    A later run given only the folder may replace these and no other existing file
+    (:func:`mixsolve.io.outputs.check_own_files`). The record is staged with the run's
+    other outputs.
+    """
+    files = sorted({*recorded_files(folder), *names})
+    text = json.dumps({"written_by": "mixsolve", "files": files}, indent=1) + "\n"
+    return write_text(text, Path(folder) / RECORD)
 
 
 def write_workbook(sheets: dict[str, pd.DataFrame], path: str | os.PathLike[str]) -> Path:

@@ -13,6 +13,8 @@ from __future__ import annotations
 import contextlib
 import importlib.util
 import logging
+import signal
+import threading
 from collections.abc import Iterator, Sequence
 from typing import Any, TextIO
 
@@ -46,6 +48,21 @@ def _require(module: str) -> Any:
     except ImportError:
         raise InputError(f"{module} is not installed; install mixsolve's scale extra: "
                          "pip install 'mixsolve[scale]'") from None
+
+
+@contextlib.contextmanager
+def _workers_ignore_ctrl_c() -> Iterator[None]:
+    """Start worker processes with SIGINT ignored (they inherit it): Ctrl-C at the terminal
+    reaches every process of the group, and only this one should answer it (one line, exit
+    130); it then closes the cluster, which stops the workers without their tracebacks."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 @contextlib.contextmanager
@@ -84,11 +101,12 @@ def dask_client(scheduler: str | None = None, workers: int | None = None) -> Ite
         # silence_logs: a failing task (e.g. an infinite reading) is raised here, where
         # the command line turns it into one line; the workers would also log it, with
         # a traceback, on the same terminal
-        with distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1,
-                                      processes=True, host="127.0.0.1",
-                                      dashboard_address=None,
-                                      silence_logs=logging.CRITICAL) as cluster, \
-                distributed.Client(cluster) as client:
+        with _workers_ignore_ctrl_c():
+            cluster = distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1,
+                                               processes=True, host="127.0.0.1",
+                                               dashboard_address=None,
+                                               silence_logs=logging.CRITICAL)
+        with cluster, distributed.Client(cluster) as client:
             yield client
         return
     try:

@@ -17,8 +17,8 @@ import xarray as xr
 
 from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.library_store import write_library
-from mixsolve.io.outputs import all_or_nothing, guard_outputs
-from mixsolve.io.results_io import write_table
+from mixsolve.io.outputs import all_or_nothing, check_own_files, guard_outputs
+from mixsolve.io.results_io import record_outputs, write_table
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.io.standards_io import molar_masses_from_sheet, read_standards
 from mixsolve.library import build_library
@@ -81,10 +81,14 @@ def run_demo(out_dir: str | os.PathLike[str] = "mixsolve-demo") -> DemoRun:
         line on how many results lie within 2 standard uncertainties of the truth.
     """
     top, plate = Path(out_dir), Path(out_dir) / "plate"
-    guard_outputs([top / n for n in ("library.nc", "results.csv", "comparison.csv")]
-                  + [plate / "comparison.csv"], folders=[top, plate])
+    guard_outputs([top / n for n in DEMO_FILES], folders=[top, plate])
+    check_own_files(top, DEMO_FILES)  # the user's own files in --out stay theirs
     with all_or_nothing():
         return _run_demo(top)
+
+
+#: What the demo writes into its folder besides the plate run's own outputs in plate/.
+DEMO_FILES = ("library.nc", "results.csv", "comparison.csv", "plate/comparison.csv")
 
 
 def _run_demo(out_dir: Path) -> DemoRun:
@@ -115,6 +119,7 @@ def _run_demo(out_dir: Path) -> DemoRun:
         "",
     ])
     plate, plate_comparison, plate_text = run_demo_plate(folder / "plate", library)
+    record_outputs(folder, DEMO_FILES)
     return DemoRun(library, result, comparison, text + plate_text, folder, plate,
                    plate_comparison)
 

@@ -21,9 +21,9 @@ from mixsolve.errors import InputError
 from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.layout_io import read_layout
 from mixsolve.io.library_store import read_library, write_library
-from mixsolve.io.outputs import all_or_nothing, guard_outputs, unique_names
+from mixsolve.io.outputs import all_or_nothing, check_own_files, guard_outputs, unique_names
 from mixsolve.io.plates import read_plate
-from mixsolve.io.results_io import write_table, write_text, write_workbook
+from mixsolve.io.results_io import record_outputs, write_table, write_text, write_workbook
 from mixsolve.plate.analysis import PlateResult, analyse_plate
 from mixsolve.report.plate_text import plate_notes, plate_settings
 from mixsolve.report.text import CAUTION
@@ -153,17 +153,20 @@ def run_plates(
                                            Path(out) / COMBINED])
     names = plate_folder_names(paths)
     files = [*PLATE_FILES, *(["library.nc"] if library_from_plate else [])]
-    guard_outputs([Path(out) / COMBINED, *(Path(out) / n / f for n in names for f in files)],
+    own = [COMBINED, *(f"{n}/{f}" for n in names for f in files)]
+    guard_outputs([Path(out) / name for name in own],
                   folders=[out, *(Path(out) / n for n in names)],
                   inputs=[*paths, layout, library_path])  # before any work is done
+    check_own_files(out, own)  # the user's own files in --out stay theirs
     with all_or_nothing():
-        return _run_plates(paths, names, layout, out=Path(out), library=library,
+        return _run_plates(paths, names, own, layout, out=Path(out), library=library,
                            library_path=library_path, library_from_plate=library_from_plate,
                            sheet=sheet, layout_sheet=layout_sheet, plate_size=plate_size,
                            progress=progress, **options)
 
 
-def _run_plates(paths: list[Path], names: list[str], layout: PathLike, *, out: Path,
+def _run_plates(paths: list[Path], names: list[str], own: list[str], layout: PathLike, *,
+                out: Path,
                 library: xr.Dataset | PathLike | None, library_path: PathLike | None,
                 library_from_plate: bool, sheet: str | None, layout_sheet: str | None,
                 plate_size: int | None, progress: Progress | None, **options: Any
@@ -194,6 +197,7 @@ def _run_plates(paths: list[Path], names: list[str], layout: PathLike, *, out: P
     for result, page, sub in zip(plates, pages, folders, strict=True):
         _write_plate(sub, result, page, library_from_plate)
     write_table(combined, folder / COMBINED)
+    record_outputs(folder, own)
     lines = []
     for result, sub in zip(plates, folders, strict=True):
         lines.append(f"{_summary(result)} -> {sub}")
