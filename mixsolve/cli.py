@@ -198,6 +198,14 @@ def callback(parse: Callable[[str, str], T]) -> Callable[..., T | None]:
     return parse_option
 
 
+def number(text: str) -> float:
+    """A number as a person writes it: ``float`` without Python's ``1_000`` digit grouping
+    (``6_20`` is a typo, not 620)."""
+    if "_" in text:
+        raise ValueError(text)
+    return float(text)
+
+
 def _finite(values: list[float], option: str, text: str) -> list[float]:
     """``values`` parsed from ``text``, refused when one is NaN or infinite."""
     for value in values:
@@ -210,7 +218,7 @@ def parse_window(text: str, option: str = "--window") -> tuple[float, float]:
     """Parse ``"400-700"`` (nm) into a pair; both ends are included in the fit."""
     parts = text.replace(":", "-").split("-")
     try:
-        low, high = (float(p) for p in parts)
+        low, high = (number(p) for p in parts)
     except ValueError:
         raise InputError(f"{option}: {text!r} is not LOW-HIGH, e.g. 400-700") from None
     low, high = _finite([low, high], option, text)
@@ -230,7 +238,7 @@ def numbers_text(values: tuple[float, ...]) -> str:
 def parse_wavelengths(text: str, option: str = "--wavelengths") -> list[float]:
     """Parse ``"663.6,646.6"`` (nm)."""
     try:
-        values = [float(p) for p in text.split(",") if p.strip()]
+        values = [number(p) for p in text.split(",") if p.strip()]
     except ValueError:
         raise InputError(f"{option}: {text!r} is not a comma-separated list of nm, "
                          "e.g. 663.6,646.6") from None
@@ -240,7 +248,7 @@ def parse_wavelengths(text: str, option: str = "--wavelengths") -> list[float]:
 def parse_numbers(text: str, option: str) -> list[float]:
     """Parse a comma-separated list of numbers given to ``option``."""
     try:
-        values = [float(p) for p in text.split(",") if p.strip()]
+        values = [number(p) for p in text.split(",") if p.strip()]
     except ValueError:
         raise InputError(f"{option}: {text!r} is not a comma-separated list of numbers") from None
     return _finite(values, option, text)
@@ -254,7 +262,7 @@ def parse_names(text: str, option: str) -> list[str] | None:
 def parse_noise(text: str, option: str = "--noise") -> str | float:
     """``--noise``: a preset name or σ_A in AU."""
     try:
-        value = float(text)
+        value = number(text)
     except ValueError:
         return text
     return _finite([value], option, text)[0]
@@ -270,9 +278,13 @@ def parse_molar_masses(text: str, option: str = "--molar-mass") -> dict[str, flo
         try:
             if not sep:
                 raise ValueError
-            out[name.strip()] = float(value)
+            mass = number(value)
         except ValueError:
             raise InputError(f"{option}: {item!r} is not NAME=G_PER_MOL") from None
+        if name.strip() in out:
+            raise InputError(f"{option}: {name.strip()!r} is given twice; give each "
+                             "component once")
+        out[name.strip()] = mass
         _finite([out[name.strip()]], option, item)
     return out
 

@@ -419,3 +419,24 @@ def test_out_that_is_the_same_file_under_another_name_is_refused(cuvette, cli):
     assert_cli_error(cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", alias),
                      "is also an input", literal=True)
     assert snapshot(cuvette["dir"]) == before
+
+
+@pytest.mark.parametrize(("args", "message"), [
+    (("--wavelengths", "450,528,6_20"), "--wavelengths: '450,528,6_20' is not"),
+    (("--out", "r.csv/"), "r.csv/: names a folder"),
+])
+def test_typos_in_paths_and_numbers_are_refused(cuvette, cli, args, message):
+    """Python's digit grouping (6_20 = 620) and a trailing '/' on a file name are typos:
+    refused, nothing written."""
+    before = snapshot(cuvette["dir"])
+    assert_cli_error(cli("unmix", cuvette["lib"], cuvette["spectra"], *args), message,
+                     literal=True)
+    assert snapshot(cuvette["dir"]) == before
+
+
+def test_a_molar_mass_given_twice_is_refused(cuvette, cli):
+    """--molar-mass amber=0,amber=3 used to keep the last value silently."""
+    out = cuvette["dir"] / "l2.nc"
+    assert_cli_error(cli("library", "import", cuvette["eps"], "--unit", "L/(mol*cm)",
+                         "--molar-mass", "red=500,red=3", "--out", out),
+                     "--molar-mass: 'red' is given twice", literal=True, must_not_exist=[out])

@@ -75,7 +75,11 @@ def guard_outputs(files: Iterable[PathLike | None] = (), *,
     for folder in made:
         _check_folder(folder)
         outs.append((folder, _real(folder), "folder"))
-    outs += [(Path(p), _real(p), "file") for p in files if p is not None]
+    files = [p for p in files if p is not None]
+    for p in files:
+        if os.fspath(p).endswith(("/", os.sep)):
+            raise OutputError(f"{p}: names a folder (it ends in '/'); give a file name to write")
+    outs += [(Path(p), _real(p), "file") for p in files]
     outs += [(Path(p), _real(p), "store") for p in stores if p is not None]
     for path, real, kind in outs:
         for given, real_in in ins:
@@ -196,6 +200,8 @@ def _check_folder(folder: Path) -> None:
     kind = _special(folder)
     if kind is not None or (folder.exists() and not folder.is_dir()):
         raise OutputError(f"{folder}: exists and is not a folder; choose another output folder")
+    if folder.is_dir() and not os.access(folder, os.W_OK):
+        raise OutputError(f"{folder}: cannot write in the folder (permission denied)")
     probe = folder
     while not probe.exists():
         probe = probe.parent
