@@ -38,7 +38,10 @@ from helpers_io import (
 )
 from helpers_plate import (
     SAMPLES,
+    export_rows,
     scenario_layout,
+    scenario_values,
+    write_export,
     write_layout,
     write_scenario,
 )
@@ -53,6 +56,7 @@ from mixsolve.io.layout_io import read_layout
 from mixsolve.io.reference_io import read_reference
 from mixsolve.io.standards_io import read_standards
 from mixsolve.names import check_spellings, check_unique_names, normalise_name
+from mixsolve.plate.wells import parse_well, plate_wells
 from mixsolve.report.figures import PLOT_LIMIT, drawable, literal, sample_figure
 from mixsolve.report.plate_page import heat_map, residual_figure
 from mixsolve.solve.design import MAX_CONDITION_NUMBER
@@ -717,3 +721,17 @@ def test_plate_layout_one_spelling_in_many_wells_is_one_sample(tmp_path, written
     assert list(mine["n_wells"]) == [6, 6]
     assert len(samples) == 2 * len(SAMPLES)
 
+
+@pytest.mark.parametrize("layout", ["well columns", "long"])
+def test_plate_export_well_names_in_normal_form(tmp_path, layout):
+    """Well names in an export are read in normal form: a zero-width space before A1 and
+    a no-break space after B2 still name A1 and B2."""
+    wells, values = scenario_values()
+    rows = export_rows(layout, wells, WL, values, size=96)
+    changed = {"A1": "\u200bA1", "B2": "B2\u00a0"}
+    rows = [[changed.get(c, c) if isinstance(c, str) else c for c in row] for row in rows]
+    assert any("\u200bA1" in row for row in rows)
+    plate = ms.read_plate(write_export(tmp_path / "plate.csv", rows))
+    assert list(plate["well"].values) == plate_wells(96)
+    assert parse_well("\u200bA01\u00a0") == (0, 1)
+    assert parse_well("A\t1") is None
