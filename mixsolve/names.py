@@ -12,23 +12,29 @@ The normal form (:func:`normalise_name`):
    U+FEFF;
 2. Unicode normalisation form C (canonical composition: ``e`` followed by a combining
    acute accent becomes ``é``), as :func:`unicodedata.normalize` does it;
-3. every space separator (Unicode category Zs: no-break space U+00A0, the en, em, thin
-   and narrow no-break spaces, ideographic space ...) becomes a plain space U+0020;
+3. every white-space character (:meth:`str.isspace`: tab, line breaks, the space
+   separators of Unicode category Zs such as no-break space U+00A0, the en, em, thin and
+   narrow no-break spaces, ideographic space ...) becomes a plain space U+0020;
 4. surrounding white space is stripped.
 
 Names whose normal forms differ only in letter case (:meth:`str.casefold`), or that have
 the same normal form but were spelled differently, are refused with both spellings named.
+In a column that names one thing on many lines (a sample in many wells) the same
+spelling may repeat, but two spellings of one name are still refused
+(:func:`check_spellings`).
 """
 
 from __future__ import annotations
 
 import unicodedata
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 
 from mixsolve.errors import InputError
 
 #: Zero-width characters removed from names (a ``str.translate`` table).
 ZERO_WIDTH = dict.fromkeys(map(ord, "\u200b\u200c\u200d\ufeff"))
+#: ASCII white space other than the plain space (tab, line breaks ...) as plain spaces.
+ASCII_SPACES = {ord(ch): " " for ch in map(chr, range(128)) if ch.isspace() and ch != " "}
 
 
 def normalise_name(name: object) -> str:
@@ -42,14 +48,14 @@ def normalise_name(name: object) -> str:
     Returns
     -------
     str
-        Without zero-width characters, in Unicode NFC, space separators as plain spaces,
-        surrounding white space stripped. Plain ASCII is only stripped.
+        Without zero-width characters, in Unicode NFC, white space (tabs, no-break
+        spaces ...) as plain spaces, surrounding white space stripped.
     """
     text = str(name)
     if text.isascii():
-        return text.strip()
+        return text.translate(ASCII_SPACES).strip()
     text = unicodedata.normalize("NFC", text.translate(ZERO_WIDTH))
-    return "".join(" " if unicodedata.category(ch) == "Zs" else ch for ch in text).strip()
+    return "".join(" " if ch.isspace() else ch for ch in text).strip()
 
 
 def name_key(name: object) -> str:
@@ -66,17 +72,23 @@ def _shown(first: str, second: str) -> tuple[str, str]:
     return a, b
 
 
-def near_duplicate_message(first: str, second: str, where: str) -> str:
-    """The refusal for two spellings of one name, each shown so that they differ."""
+def near_duplicate_message(first: str, second: str, where: str, *,
+                           lines: tuple[int, int] | None = None,
+                           fix: str = "rename one") -> str:
+    """The refusal for two spellings of one name, each shown so that they differ.
+
+    ``lines`` are the file lines of the two spellings, named after each; ``fix`` ends the
+    message.
+    """
     a, b = _shown(first, second)
+    if lines is not None:
+        a, b = f"{a} (line {lines[0]})", f"{b} (line {lines[1]})"
     prefix = f"{where}: " if where else ""
     if first == second:
-        return f"{prefix}name {a} appears twice; rename one"
-    if normalise_name(first) == normalise_name(second) and \
-            unicodedata.normalize("NFC", first.strip()) == \
-            unicodedata.normalize("NFC", second.strip()):
-        return f"{prefix}names {a} and {b} differ only in Unicode form; rename one"
-    return f"{prefix}names {a} and {b} differ only in case or spacing; rename one"
+        return f"{prefix}name {a} appears twice; {fix}"
+    if unicodedata.normalize("NFC", first) == unicodedata.normalize("NFC", second):
+        return f"{prefix}names {a} and {b} differ only in Unicode form; {fix}"
+    return f"{prefix}names {a} and {b} differ only in case or spacing; {fix}"
 
 
 def check_unique_names(names: Iterable[object], where: str) -> list[str]:
@@ -103,7 +115,7 @@ def check_unique_names(names: Iterable[object], where: str) -> list[str]:
         one".
     """
     raw = [n if isinstance(n, str) else str(n) for n in names]
-    out = [n.strip() if n.isascii() else normalise_name(n) for n in raw]
+    out = [normalise_name(n) for n in raw]
     keys = {name.casefold() for name in out}
     if len(keys) == len(out) and "" not in keys:  # the common case, in one pass
         return out
@@ -119,19 +131,25 @@ def check_unique_names(names: Iterable[object], where: str) -> list[str]:
     return out
 
 
-def check_spellings(names: Iterable[object], where: str) -> list[str]:
+def check_spellings(names: Iterable[object], where: str,
+                    lines: Sequence[int] | None = None) -> list[str]:
     """Normalise names that may repeat (a sample named in many rows) and refuse two
-    that differ only in case.
+    spellings of one name.
 
-    Spellings with one normal form are one name (``Ext\u00a003`` and ``Ext 03`` name the
-    same sample); normal forms that differ only in case are refused.
+    The same spelling on many rows is one name; two different spellings whose normal
+    forms differ at most in case (``Ext03`` and ``Ext03 ``, ``Ext\u00a003`` and ``Ext 03``,
+    ``Mix 1`` and ``mix 1``) are refused: they may be two things that were meant to be
+    told apart, and pooling them would be silent.
 
     Parameters
     ----------
     names : iterable
-        Names, one per row; a name may appear any number of times.
+        Names as written (not stripped), one per row; a name may appear any number of
+        times.
     where : str
         Where the names come from, for the message.
+    lines : sequence of int, optional
+        The file line of each name, to name the first line of each spelling.
 
     Returns
     -------
@@ -142,16 +160,23 @@ def check_spellings(names: Iterable[object], where: str) -> list[str]:
     Raises
     ------
     InputError
-        Two spellings whose normal forms differ only in case, both named ("names
-        'Mix 1 ' and 'mix 1' differ only in case or spacing; rename one").
+        Two spellings with one case-folded normal form, both named with their lines
+        ("names 'Mix 1 ' (line 3) and 'mix 1' (line 7) differ only in case or spacing;
+        ...").
     """
     raw = [n if isinstance(n, str) else str(n) for n in names]
-    normal = {n: normalise_name(n) for n in dict.fromkeys(raw)}
-    first: dict[str, str] = {}
+    first_row: dict[str, int] = {}
+    for i, given in enumerate(raw):
+        first_row.setdefault(given, i)
+    normal = {given: normalise_name(given) for given in first_row}
+    spelling: dict[str, str] = {}
     for given, name in normal.items():
         if not name:
             continue
-        other = first.setdefault(name.casefold(), given)
-        if normal[other] != name:
-            raise InputError(near_duplicate_message(other, given, where))
+        other = spelling.setdefault(name.casefold(), given)
+        if other != given:
+            at = None if lines is None else (lines[first_row[other]], lines[first_row[given]])
+            raise InputError(near_duplicate_message(
+                other, given, where, lines=at,
+                fix="write one name the same way on every line, or rename one"))
     return [normal[n] for n in raw]

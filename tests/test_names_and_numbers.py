@@ -36,6 +36,15 @@ from helpers_io import (
     write_text,
     write_wide,
 )
+from helpers_plate import (
+    SAMPLES,
+    export_rows,
+    scenario_layout,
+    scenario_values,
+    write_export,
+    write_layout,
+    write_scenario,
+)
 
 import mixsolve as ms
 from mixsolve.errors import InputError
@@ -47,6 +56,7 @@ from mixsolve.io.layout_io import read_layout
 from mixsolve.io.reference_io import read_reference
 from mixsolve.io.standards_io import read_standards
 from mixsolve.names import check_spellings, check_unique_names, normalise_name
+from mixsolve.plate.wells import parse_well, plate_wells
 from mixsolve.report.figures import PLOT_LIMIT, drawable, literal, sample_figure
 from mixsolve.report.plate_page import heat_map, residual_figure
 from mixsolve.solve.design import MAX_CONDITION_NUMBER
@@ -56,8 +66,10 @@ from mixsolve.wavelengths.choose import _variances, choose_wavelengths
 from mixsolve.workflows.demo import demo_file
 
 NEAR = r"names 'Ext_03 ' and 'ext_03' differ only in case or spacing; rename one"
-#: The same from a file: the table reader strips every cell first (mixsolve.io.tables).
+#: The same from a spectra file: the table reader strips every cell first (mixsolve.io.tables).
 NEAR_FILE = "names 'Ext_03' and 'ext_03' differ only in case or spacing; rename one"
+#: The fix named when a column that may repeat a name holds two spellings of one.
+ONE_SPELLING = "write one name the same way on every line, or rename one"
 
 
 def digest(folder: Path) -> dict[str, str]:
@@ -98,9 +110,13 @@ def cuvette(tmp_path: Path) -> dict[str, Path]:
     ("Cafe\u0301", "Caf\u00e9"),         # NFD: e + combining acute becomes é
     ("  Ext_03\t", "Ext_03"),            # surrounding white space
     ("\u00a0 Ext 03 \u2009", "Ext 03"),  # surrounding no-break and thin spaces
+    ("Ext\t03", "Ext 03"),              # a tab inside counts as a space
+    ("Ext\t\u00a003\r\n", "Ext  03"),   # ... in the non-ASCII path too; line breaks
+    ("Ext\u202803", "Ext 03"),           # line separator (white space, not Zs)
 ])
 def test_normal_form(given, normal):
-    """Zero-width characters go, NFC, every space separator (Zs) a plain space, stripped."""
+    """Zero-width characters go, NFC, every white-space character a plain space,
+    stripped."""
     assert normalise_name(given) == normal
 
 
@@ -120,12 +136,20 @@ def test_near_duplicates_refused_with_both_spellings(first, second, message):
         check_unique_names([first, "other", second], "where")
 
 
-def test_repeated_names_are_one_name_unless_case_differs():
-    """In a column that may repeat a name, spellings with one normal form are one name;
-    spellings that differ only in case are refused."""
-    assert check_spellings(["Ext\u00a003", "Ext 03", "x"], "w") == ["Ext 03", "Ext 03", "x"]
-    with pytest.raises(InputError, match=r"w: names 'Mix 1' and 'mix\\xa01' differ only"):
-        check_spellings(["Mix 1", "Mix 1", "mix\u00a01"], "w")
+def test_repeated_names_are_one_name_only_under_one_spelling():
+    """In a column that may repeat a name, one spelling on many rows is one name, in
+    normal form; two spellings of one name (space, Unicode form or case) are refused,
+    naming both and, when given, the first line of each."""
+    assert check_spellings(["Ext\u00a003", "Ext\u00a003", "x", ""], "w") == \
+        ["Ext 03", "Ext 03", "x", ""]
+    with pytest.raises(InputError, match=r"^w: names 'Ext\\xa003' and 'Ext 03' differ only in "
+                                         "case or spacing; " + ONE_SPELLING + "$"):
+        check_spellings(["Ext\u00a003", "Ext 03", "x"], "w")
+    with pytest.raises(InputError, match=r"^w: names 'Mix 1' \(line 2\) and 'mix\\xa01' "
+                                         r"\(line 4\) differ only in case or spacing"):
+        check_spellings(["Mix 1", "Mix 1", "mix\u00a01"], "w", [2, 3, 4])
+    with pytest.raises(InputError, match=r"names 'Ext03' \(line 7\) and 'Ext03 ' \(line 9\)"):
+        check_spellings(["Ext03", "Ext03", "Ext03 "], "w", [7, 8, 9])
 
 
 def test_a_name_of_spaces_only_is_refused():
@@ -228,36 +252,63 @@ def test_standards_sheet_names(tmp_path):
                                          "'Red' differ only in case"):
         ms.build_library(ms.read_spectra(spectra_path), sheet)
     sheet.to_csv(sheet_path, index=False)
-    with pytest.raises(InputError, match=r"sheet.csv, components: names 'red' and 'Red'"):
+    with pytest.raises(InputError, match=r"sheet.csv, components: names 'red' \(line 2\) and "
+                                         r"'Red' \(line 3\) differ only in case"):
+        read_standards(sheet_path)
+    sheet.loc[1, "component"] = "red\u200b"
+    sheet.to_csv(sheet_path, index=False)
+    with pytest.raises(InputError, match=r"sheet.csv, components: names 'red' \(line 2\) and "
+                                         r"'red\\u200b' \(line 3\) differ only in case or "
+                                         "spacing; " + ONE_SPELLING):
         read_standards(sheet_path)
 
 
 def test_layout_names(tmp_path):
-    """Layout: well '\\u200bA1' is A1; 'Ext 03' and 'Ext\\xa003' are one sample;
-    'Ext_03 ' and 'ext_03' are refused naming both."""
-    rows = [["\u200bA1", "sample", "Ext 03"], ["A2", "sample", "Ext\u00a003"],
+    """Layout: well '\\u200bA1' is A1; 'Ext\\xa003' in two wells is one sample 'Ext 03';
+    'Ext 03' beside 'Ext\\xa003', and 'Ext_03 ' beside 'ext_03', are refused naming both
+    spellings as written and their lines."""
+    rows = [["\u200bA1", "sample", "Ext\u00a003"], ["A2", "sample", "Ext\u00a003"],
             ["A3", "blank", ""]]
     path = write_text(tmp_path / "layout.csv", table_text(["well", "role", "sample"], rows))
     layout = read_layout(path)
     assert list(layout["well"]) == ["A1", "A2", "A3"]
     assert list(layout["sample"]) == ["Ext 03", "Ext 03", ""]
+    rows[1][2] = "Ext 03"
+    path.write_text(table_text(["well", "role", "sample"], rows))
+    with pytest.raises(InputError, match=r"^layout.csv, samples: names 'Ext\\xa003' \(line 2\) "
+                                         r"and 'Ext 03' \(line 3\) differ only in case or "
+                                         "spacing; " + ONE_SPELLING + "$"):
+        read_layout(path)
     rows[1][2] = "ext_03"
     rows[0][2] = "Ext_03 "
-    path.write_text(table_text(["well", "role", "sample"], rows).replace(
-        "Ext_03,", "Ext_03 ,"))
-    with pytest.raises(InputError, match=r"layout.csv, samples: " + NEAR_FILE):
+    path.write_text(table_text(["well", "role", "sample"], rows))
+    with pytest.raises(InputError, match=r"layout.csv, samples: names 'Ext_03 ' \(line 2\) "
+                                         r"and 'ext_03' \(line 3\) differ only in case"):
         read_layout(path)
 
 
 def test_reference_table_names(tmp_path):
-    """Reference table: 'red' and 'Red' are refused; 'mix\\xa01' reads as 'mix 1'."""
-    rows = [["mix\u00a01", "red", 1.0, "mg/L"], ["mix 1", "blue", 2.0, "mg/L"]]
+    """Reference table: 'mix\\xa01' reads as 'mix 1'; 'mix\\xa01' beside 'mix 1', and
+    'red' beside 'Red', are refused."""
+    rows = [["mix\u00a01", "red", 1.0, "mg/L"], ["mix\u00a01", "blue", 2.0, "mg/L"]]
     header = ["sample", "component", "concentration", "unit"]
     path = write_text(tmp_path / "ref.csv", table_text(header, rows))
     assert list(read_reference(path)["sample"]) == ["mix 1", "mix 1"]
+    rows[1][0] = "mix 1"
+    path.write_text(table_text(header, rows))
+    with pytest.raises(InputError, match=r"ref.csv, samples: names 'mix\\xa01' \(line 2\) and "
+                                         r"'mix 1' \(line 3\) differ only in case or spacing"):
+        read_reference(path)
+    rows[1][0] = "mix\u00a01 "  # a trailing space: the reader keeps it to compare
+    path.write_text(table_text(header, rows))
+    with pytest.raises(InputError, match=r"ref.csv, samples: names 'mix\\xa01' \(line 2\) and "
+                                         r"'mix\\xa01 ' \(line 3\) differ only in case"):
+        read_reference(path)
+    rows[1][0] = "mix\u00a01"
     rows[1][1] = "Red"
     path.write_text(table_text(header, rows))
-    with pytest.raises(InputError, match=r"ref.csv, components: names 'red' and 'Red'"):
+    with pytest.raises(InputError, match=r"ref.csv, components: names 'red' \(line 2\) and "
+                                         r"'Red' \(line 3\)"):
         read_reference(path)
 
 
@@ -292,7 +343,10 @@ def test_near_duplicate_names_refused_by_cli(tmp_path, command, cli):
         args = ["plate", demo_file("plate_export.csv"), "--layout", layout, "--library", lib,
                 "--out", tmp_path / "out"]
     before = digest(tmp_path)
-    assert_refused(cli(*args), tmp_path, before, NEAR_FILE)
+    # a layout keeps its cells as written, so the layout's 'Ext_03 ' is shown with its space
+    needle = (NEAR_FILE if command != "plate" else
+              "names 'Ext_03 ' (line 3) and 'ext_03' (line 4) differ only in case or spacing")
+    assert_refused(cli(*args), tmp_path, before, needle)
 
 
 # --- numbers: options -----------------------------------------------------------------------
@@ -590,3 +644,94 @@ def test_plate_with_dollar_component_names(tmp_path, cli):
                  demo_file("plate_layout.csv"), "--library", lib, "--out", out)
     assert result.exit_code == 0, (result.output, result.exception)
     assert (out / "plate_export" / "report.html").stat().st_size > 0
+
+
+# --- names: two spellings of one sample in a plate layout -----------------------------------
+
+def _plate_run(folder: Path, samples: dict[str, str] | None = None,
+               components: dict[str, str] | None = None) -> list[object]:
+    """The scenario's export, a library and its layout with some wells' sample (or
+    component) names as written here (well -> name); the ``mixsolve plate`` arguments."""
+    layout = scenario_layout()
+    for row in layout:
+        row["sample"] = (samples or {}).get(str(row["well"]), row.get("sample", ""))
+        row["component"] = (components or {}).get(str(row["well"]), row.get("component", ""))
+    return ["plate", write_scenario(folder), "--layout", write_layout(folder / "layout.csv",
+                                                                      layout),
+            "--library", write_library_file(folder / "lib.nc"), "--out", folder / "out"]
+
+
+#: Sample S1 fills wells B1-B6 of the scenario (layout lines 6-11).
+S1_WELLS = [f"B{c}" for c in range(1, 7)]
+
+
+@pytest.mark.parametrize(("name", "variant", "shown", "how"), [
+    ("Ext03", "Ext03 ", "'Ext03' (line 6) and 'Ext03 ' (line 11)", "case or spacing"),
+    ("Ext03", " Ext03", "'Ext03' (line 6) and ' Ext03' (line 11)", "case or spacing"),
+    ("Ext03", "Ext03\u00a0", r"'Ext03' (line 6) and 'Ext03\xa0' (line 11)", "case or spacing"),
+    ("Ext 03", "Ext\u00a003", r"'Ext 03' (line 6) and 'Ext\xa003' (line 11)",
+     "case or spacing"),
+    ("Ext03", "Ext\u200b03", r"'Ext03' (line 6) and 'Ext\u200b03' (line 11)",
+     "case or spacing"),
+    ("Ext 03", "Ext\t03", r"'Ext 03' (line 6) and 'Ext\t03' (line 11)", "case or spacing"),
+    ("Ext\u00e903", "Exte\u030103", r"'Ext\xe903' (line 6) and 'Exte\u030103' (line 11)",
+     "Unicode form"),
+    ("Ext03", "ext03", "'Ext03' (line 6) and 'ext03' (line 11)", "case or spacing"),
+])
+def test_plate_layout_refuses_two_spellings_of_one_sample(tmp_path, name, variant, shown,
+                                                          how, cli):
+    """A layout whose sample fills five wells as ``name`` and one as ``variant`` (a
+    trailing or leading space, a no-break, zero-width or tab space, another Unicode form,
+    another case) is refused, not pooled: exit 2, one line naming the file, both
+    spellings as they differ and their lines, and the fix; inputs intact, nothing
+    written."""
+    spellings = dict.fromkeys(S1_WELLS, name) | {"B6": variant}
+    args = _plate_run(tmp_path, samples=spellings)
+    before = digest(tmp_path)
+    line = assert_cli_error(cli(*args), must_not_exist=[tmp_path / "out"])
+    assert line == (f"error: layout.csv, samples: names {shown} differ only in {how}; "
+                    f"{ONE_SPELLING}")
+    assert digest(tmp_path) == before
+
+
+def test_plate_layout_refuses_two_spellings_of_one_component(tmp_path, cli):
+    """Standard wells H1-H3 hold 'red'; 'red ' in H3 is refused naming both (lines 42,
+    44)."""
+    args = _plate_run(tmp_path, components={"H3": "red "})
+    before = digest(tmp_path)
+    assert_refused(cli(*args), tmp_path, before,
+                   "layout.csv, components: names 'red' (line 42) and 'red ' (line 44) "
+                   "differ only in case or spacing; " + ONE_SPELLING)
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize(("written", "normal"), [
+    ("Ext\u00a003", "Ext 03"), ("Ext03 ", "Ext03"), ("Cafe\u0301", "Caf\u00e9"),
+    ("Ext\t03", "Ext 03"),
+])
+def test_plate_layout_one_spelling_in_many_wells_is_one_sample(tmp_path, written, normal,
+                                                                cli):
+    """The same spelling in all six wells of a sample (replicates and dilutions) is one
+    sample, named in normal form, with all six wells."""
+    args = _plate_run(tmp_path, samples=dict.fromkeys(S1_WELLS, written))
+    cli.ok(*args)
+    samples = pd.read_csv(tmp_path / "out" / "plate1" / "samples.csv", keep_default_na=False)
+    assert set(samples["sample"]) == {normal, *SAMPLES} - {"S1"}
+    mine = samples[samples["sample"] == normal]
+    assert list(mine["n_wells"]) == [6, 6]
+    assert len(samples) == 2 * len(SAMPLES)
+
+
+@pytest.mark.parametrize("layout", ["well columns", "long"])
+def test_plate_export_well_names_in_normal_form(tmp_path, layout):
+    """Well names in an export are read in normal form: a zero-width space before A1 and
+    a no-break space after B2 still name A1 and B2."""
+    wells, values = scenario_values()
+    rows = export_rows(layout, wells, WL, values, size=96)
+    changed = {"A1": "\u200bA1", "B2": "B2\u00a0"}
+    rows = [[changed.get(c, c) if isinstance(c, str) else c for c in row] for row in rows]
+    assert any("\u200bA1" in row for row in rows)
+    plate = ms.read_plate(write_export(tmp_path / "plate.csv", rows))
+    assert list(plate["well"].values) == plate_wells(96)
+    assert parse_well("\u200bA01\u00a0") == (0, 1)
+    assert parse_well("A\t1") is None

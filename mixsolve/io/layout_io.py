@@ -51,10 +51,12 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
         Missing columns, unknown or duplicated wells, a row naming a sample but no well,
         unknown roles, sample wells without a sample name, non-positive dilutions and
         incomplete standards; the message names the file, line and well. Well, sample
-        and component names are compared in normal form (:mod:`mixsolve.names`): samples
-        (or components) whose names differ only in case are refused.
+        and component names are compared in normal form (:mod:`mixsolve.names`): one
+        sample (or component) may fill many wells under one spelling, but two spellings
+        of one name (``Ext03`` and ``Ext03 ``, a no-break or zero-width space, another
+        Unicode form, another case) are refused naming both and their lines.
     """
-    table = read_table(path, sheet=sheet)
+    table = read_table(path, sheet=sheet, keep_spaces=True)  # names as written
     names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
     missing = [c for c in ("well", "role") if c not in names]
     if missing:
@@ -93,7 +95,7 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
                                     allow_missing=False)
             check_number(dilution, f"{where}, dilution", positive=True)
         # the sample as written: check_spellings below puts it in normal form and shows
-        # 'Ext_03 ' beside 'ext_03' when two spellings differ only in case
+        # 'Ext_03 ' beside 'Ext_03' when two spellings differ only in case or spacing
         raw_sample = str(cells[col["sample"]]) if "sample" in col else ""
         record = {"line": line, "well": well, "role": role, "sample": raw_sample,
                   "dilution": dilution, "component": "", "concentration": np.nan, "unit": ""}
@@ -102,7 +104,8 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
         records.append(record)
     frame = pd.DataFrame.from_records(records, columns=list(LAYOUT_COLUMNS))
     for name in ("sample", "component"):  # one spelling per name (mixsolve.names)
-        frame[name] = check_spellings(frame[name], f"{table.name}, {name}s")
+        frame[name] = check_spellings(frame[name], f"{table.name}, {name}s",
+                                       frame["line"].tolist())
     frame.attrs["source"] = table.name
     return frame
 

@@ -33,9 +33,11 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
     ------
     FileFormatError, InputError
         Missing columns, an empty name or unit, a missing or non-numeric concentration;
-        the message names the file, line and column.
+        the message names the file, line and column. Two spellings of one sample or
+        component name (``mix 1`` and ``mix 1 ``, ``Red`` and ``red``) are refused,
+        naming both and their lines (:func:`mixsolve.names.check_spellings`).
     """
-    table = read_table(path, sheet=sheet)
+    table = read_table(path, sheet=sheet, keep_spaces=True)  # names as written
     names = header_names(table, REQUIRED, "a reference table")
     cols = {c: names.index(c) for c in REQUIRED}
     records = []
@@ -47,14 +49,20 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
                 rec[col] = parse_number(cells[j], table.decimal, table.where(i, j),
                                         allow_missing=False)
                 continue
-            text = str(cells[j]).strip()
-            if not text:
+            text = str(cells[j])  # as written: check_spellings compares spellings
+            core = text.strip()
+            if not core:
                 raise FileFormatError(f"{table.where(i, j)}: empty {col}")
+            if col == "unit":
+                text = core
             # CSV/TSV only: an XLSX cell is text as it stands (mixsolve writes no apostrophe)
-            rec[col] = unquote_cell(text) if table.separator is not None else text
+            if table.separator is not None and unquote_cell(core) != core:
+                text = text.replace(core, unquote_cell(core), 1)  # spaces around kept
+            rec[col] = text
         records.append(rec)
     frame = pd.DataFrame.from_records(records, columns=[*REQUIRED, "line"])
     for col in ("sample", "component"):  # names as people read them (mixsolve.names)
-        frame[col] = check_spellings(frame[col], f"{table.name}, {col}s")
+        frame[col] = check_spellings(frame[col], f"{table.name}, {col}s",
+                                     frame["line"].tolist())
     frame.attrs["source"] = table.name
     return frame

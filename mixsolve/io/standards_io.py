@@ -29,9 +29,10 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
     FileFormatError, InputError
         Missing columns, text where a number belongs; the message names line and column.
         Sample and component names are put in normal form (:mod:`mixsolve.names`); two
-        spellings of one name (``Red`` and ``red``) are refused.
+        spellings of one name (``Red`` and ``red``, ``red `` and ``red``) are refused,
+        naming both and their lines.
     """
-    table = read_table(path, sheet=sheet)
+    table = read_table(path, sheet=sheet, keep_spaces=True)  # names as written
     names = header_names(table, REQUIRED, "a standards sheet",
                          optional_note="optional: pathlength_cm")
     records = []
@@ -48,15 +49,16 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
             elif col in OPTIONAL:
                 rec[col] = parse_number(cells[j], table.decimal, table.where(i, j))
             else:
-                text = str(cells[j]).strip()
+                text = str(cells[j])  # as written: check_spellings compares spellings
                 if not normalise_name(text):
                     raise FileFormatError(f"{table.where(i, j)}: empty {col}")
-                rec[col] = text
+                rec[col] = text.strip() if col == "unit" else text
         records.append(rec)
     frame = pd.DataFrame.from_records(records)
     for col in ("sample", "component"):  # names as people read them (mixsolve.names)
         if col in frame:
-            frame[col] = check_spellings(frame[col], f"{table.name}, {col}s")
+            frame[col] = check_spellings(frame[col], f"{table.name}, {col}s",
+                                         frame["line"].tolist())
     if "pathlength_cm" not in frame:
         frame["pathlength_cm"] = np.nan
     return frame

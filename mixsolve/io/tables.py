@@ -3,8 +3,10 @@
 Text files: UTF-8 with or without BOM, any line ending; the separator (comma, semicolon
 or tab) and the decimal mark (point or comma) are detected and recorded, never guessed
 silently: an ambiguous or mixed file is refused with the reason. Cells stay as read
-(text, or numbers from XLSX); :func:`parse_number` turns one into a float and names its
-place when it cannot.
+(text, or numbers from XLSX), stripped of surrounding white space unless the reader asks to
+keep it (``keep_spaces``: readers that must tell ``'Ext03 '`` from ``'Ext03'``, see
+:func:`mixsolve.names.check_spellings`); :func:`parse_number` turns one into a float and
+names its place when it cannot.
 """
 
 from __future__ import annotations
@@ -58,7 +60,8 @@ class RawTable:
         return text
 
 
-def read_table(path: str | os.PathLike[str], *, sheet: str | None = None) -> RawTable:
+def read_table(path: str | os.PathLike[str], *, sheet: str | None = None,
+               keep_spaces: bool = False) -> RawTable:
     """Read a CSV, TSV or XLSX table.
 
     Parameters
@@ -67,6 +70,9 @@ def read_table(path: str | os.PathLike[str], *, sheet: str | None = None) -> Raw
         The file. XLSX is recognised by its content, not only its suffix.
     sheet : str, optional
         XLSX sheet name; default the first sheet.
+    keep_spaces : bool
+        Keep the white space around the text of data cells (the header is always
+        stripped), for readers that compare names as written; by default it is stripped.
 
     Returns
     -------
@@ -78,7 +84,7 @@ def read_table(path: str | os.PathLike[str], *, sheet: str | None = None) -> Raw
     FileFormatError
         Missing, unreadable, binary, non-UTF-8, empty or header-only files.
     """
-    table = _load(path, sheet, _read_text)
+    table = _load(path, sheet, _read_text, keep_spaces)
     if not table.rows:
         raise FileFormatError(f"{table.name}: header only, no data rows")
     return table
@@ -104,7 +110,7 @@ def read_rows(path: str | os.PathLike[str], *, sheet: str | None = None) -> RawT
         Missing, unreadable, binary, non-UTF-8 or empty files, or a text file in which
         no line has two cells.
     """
-    table = _load(path, sheet, _read_text_rows)
+    table = _load(path, sheet, _read_text_rows, False)
     if table.header_line:  # XLSX: the reader took the first row as the header
         first = list(table.header)
         table = RawTable(table.name, [], [first, *table.rows],
@@ -113,7 +119,7 @@ def read_rows(path: str | os.PathLike[str], *, sheet: str | None = None) -> RawT
 
 
 def _load(path: str | os.PathLike[str], sheet: str | None,
-          read_text: Callable[[bytes, str], RawTable]) -> RawTable:
+          read_text: Callable[..., RawTable], keep_spaces: bool) -> RawTable:
     """Open ``path`` and read it as XLSX (by content) or with ``read_text``."""
     p = Path(path)
     name = p.name
@@ -130,8 +136,8 @@ def _load(path: str | os.PathLike[str], sheet: str | None,
         with open(p, "rb") as fh:
             head = fh.read(8)
             if head.startswith(b"PK\x03\x04"):
-                return _read_xlsx(p, name, sheet)
-            return read_text(head + fh.read(), name)
+                return _read_xlsx(p, name, sheet, keep_spaces)
+            return read_text(head + fh.read(), name, keep_spaces)
     except OSError as exc:
         raise FileFormatError(f"{path}: cannot read the file ({exc.strerror})") from None
 
@@ -162,19 +168,20 @@ def _numbered_lines(raw: bytes, name: str) -> list[tuple[int, str]]:
     return numbered
 
 
-def _read_text(raw: bytes, name: str) -> RawTable:
+def _read_text(raw: bytes, name: str, keep_spaces: bool) -> RawTable:
     numbered = _numbered_lines(raw, name)
     separator = _detect_separator(numbered, name)
     parsed = _split(numbered, separator, name)
     header_line, header = parsed[0]
     header = [h.strip() for h in header]
-    rows = [[c.strip() for c in cells] for _, cells in parsed[1:]]
+    stripped = [[c.strip() for c in cells] for _, cells in parsed[1:]]
     row_lines = [ln for ln, _ in parsed[1:]]
-    decimal = _detect_decimal(rows, row_lines, separator, name)
+    decimal = _detect_decimal(stripped, row_lines, separator, name)
+    rows = [cells for _, cells in parsed[1:]] if keep_spaces else stripped
     return RawTable(name, header, rows, row_lines, header_line, separator, decimal)
 
 
-def _read_text_rows(raw: bytes, name: str) -> RawTable:
+def _read_text_rows(raw: bytes, name: str, keep_spaces: bool) -> RawTable:
     numbered = _numbered_lines(raw, name)
     scores = {sep: sum(len(next(csv.reader(io.StringIO(line), delimiter=sep))) >= 2
                        for _, line in numbered) for sep in SEPARATORS}
@@ -183,9 +190,10 @@ def _read_text_rows(raw: bytes, name: str) -> RawTable:
         raise FileFormatError(
             f"{name}: no line has two or more cells separated by commas, semicolons or tabs")
     parsed = _split(numbered, separator, name)
-    rows = [[c.strip() for c in cells] for _, cells in parsed]
+    stripped = [[c.strip() for c in cells] for _, cells in parsed]
     lines = [ln for ln, _ in parsed]
-    decimal = _detect_decimal(rows, lines, separator, name)
+    decimal = _detect_decimal(stripped, lines, separator, name)
+    rows = [cells for _, cells in parsed] if keep_spaces else stripped
     return RawTable(name, [], rows, lines, 0, separator, decimal)
 
 
@@ -268,7 +276,7 @@ def _check_xlsx_size(data: bytes, name: str) -> None:
             "save the sheet as CSV or split the workbook")
 
 
-def _read_xlsx(p: Path, name: str, sheet: str | None) -> RawTable:
+def _read_xlsx(p: Path, name: str, sheet: str | None, keep_spaces: bool) -> RawTable:
     import openpyxl  # deferred: only XLSX input needs it
 
     data = p.read_bytes()
@@ -302,7 +310,8 @@ def _read_xlsx(p: Path, name: str, sheet: str | None) -> RawTable:
     header_text = [str(h).strip() for h in header]
     while header_text and not header_text[-1]:
         header_text.pop()
-    rows = [[c.strip() if isinstance(c, str) else c for c in cells] for _, cells in numbered[1:]]
+    rows = [[c.strip() if isinstance(c, str) and not keep_spaces else c for c in cells]
+            for _, cells in numbered[1:]]
     return RawTable(name, header_text, rows, [n for n, _ in numbered[1:]], header_line, None,
                     ".", [f"sheet {ws.title!r}"])
 

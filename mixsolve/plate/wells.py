@@ -14,6 +14,7 @@ import numpy as np
 import xarray as xr
 
 from mixsolve.errors import InputError
+from mixsolve.names import normalise_name
 from mixsolve.spectra import WAVELENGTH, check_number
 
 WELL = "well"
@@ -36,9 +37,11 @@ def parse_well(text: object) -> tuple[int, int] | None:
     """Row index (0 = A) and column number (1-based) of a well name, or None.
 
     ``A1``, ``a1`` and ``A01`` are the same well; rows A–P and columns 1–99 are read
-    (whether the well lies on a given plate is :func:`on_plate`'s business).
+    (whether the well lies on a given plate is :func:`on_plate`'s business). The text is
+    put in normal form first (:func:`mixsolve.names.normalise_name`), so a zero-width or
+    no-break space around it does not hide the well.
     """
-    match = _WELL_NAME.match(str(text).strip())
+    match = _WELL_NAME.match(normalise_name(text))
     if match is None:
         return None
     return ROW_LETTERS.index(match.group(1).upper()), int(match.group(2))
