@@ -314,10 +314,10 @@ def all_or_nothing() -> Iterator[None]:
         token = None
         if _INTERRUPTED.is_set():  # a Ctrl-C that a callback swallowed
             raise KeyboardInterrupt
-        with _sigint_held():
+        with ctrl_c_ignored():
             _commit(run)
     except BaseException:
-        with _sigint_held():
+        with ctrl_c_ignored():
             _discard(run)
         raise
     finally:
@@ -346,9 +346,13 @@ def clear_interrupt() -> bool:
 
 
 @contextlib.contextmanager
-def _sigint_held() -> Iterator[None]:
-    """Hold Ctrl-C while staged outputs move into place, so the moves (or the putting back)
-    always finish; an interrupt in that moment is dropped: the run has then completed."""
+def ctrl_c_ignored() -> Iterator[None]:
+    """Ignore SIGINT inside the block (main thread only; elsewhere signals cannot be set).
+
+    Used while staged outputs move into place, so the moves (or the putting back) always
+    finish (an interrupt in that moment is dropped: the run has then completed), and while
+    worker processes start, so that they inherit it and only mixsolve answers Ctrl-C.
+    """
     if threading.current_thread() is not threading.main_thread():
         yield
         return

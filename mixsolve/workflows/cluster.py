@@ -13,12 +13,11 @@ from __future__ import annotations
 import contextlib
 import importlib.util
 import logging
-import signal
-import threading
 from collections.abc import Iterator, Sequence
 from typing import Any, TextIO
 
 from mixsolve.errors import InputError
+from mixsolve.io.outputs import ctrl_c_ignored
 
 #: Seconds a computation must run before its progress bar appears ("long runs").
 PROGRESS_AFTER_S = 1.0
@@ -48,21 +47,6 @@ def _require(module: str) -> Any:
     except ImportError:
         raise InputError(f"{module} is not installed; install mixsolve's scale extra: "
                          "pip install 'mixsolve[scale]'") from None
-
-
-@contextlib.contextmanager
-def _workers_ignore_ctrl_c() -> Iterator[None]:
-    """Start worker processes with SIGINT ignored (they inherit it): Ctrl-C at the terminal
-    reaches every process of the group, and only this one should answer it (one line, exit
-    130); it then closes the cluster, which stops the workers without their tracebacks."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, previous)
 
 
 @contextlib.contextmanager
@@ -101,7 +85,9 @@ def dask_client(scheduler: str | None = None, workers: int | None = None) -> Ite
         # silence_logs: a failing task (e.g. an infinite reading) is raised here, where
         # the command line turns it into one line; the workers would also log it, with
         # a traceback, on the same terminal
-        with _workers_ignore_ctrl_c():
+        # workers inherit SIGINT ignored: Ctrl-C at the terminal reaches every process of
+        # the group, and only this one answers it (one line, exit 130), closing the cluster
+        with ctrl_c_ignored():
             cluster = distributed.LocalCluster(n_workers=int(workers), threads_per_worker=1,
                                                processes=True, host="127.0.0.1",
                                                dashboard_address=None,

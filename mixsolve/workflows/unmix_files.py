@@ -74,9 +74,10 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
     before fitting; with ``budget`` the uncertainty budget is built (before any file is
     written), written as CSV and attached to the result (``budget_*`` variables).
 
-    The data take one path: every file is read first (spectra, cell blank, repeat scans),
-    the spectra are corrected in core (:mod:`mixsolve.uncertainty.corrections`), fitted
-    (the fit checks them at its boundary), the budget built, and then reported.
+    The data take one path: each file is read once, in ``io`` (the spectra and the cell
+    blank, then the repeat scans when the budget needs them), the spectra are corrected in
+    core (:mod:`mixsolve.uncertainty.corrections`), fitted (the fit checks them at its
+    boundary), the budget built, and then reported.
 
     If ``library`` is a PLS model file, :func:`mixsolve.predict` runs instead; a window,
     a wavelength list or a baseline do not apply to a model (its wavelengths and
@@ -86,16 +87,16 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
     Cubes: ``spectra`` or ``out`` ending in ``.zarr`` or ``.nc``, or a ``scheduler`` or
     ``workers`` given, run :func:`unmix_cube_files` instead (lazy, chunked, on dask).
     """
-    extra = measurement_options(measurement)
-    # Before any work: a bad path costs nothing, and no output may overwrite an input.
-    guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
     if is_cube_path(spectra) or (out is not None and is_cube_path(out)) \
             or scheduler is not None or workers is not None:
-        return unmix_cube_files(
+        return unmix_cube_files(  # which checks its options and outputs the same way
             library, spectra, window=window, wavelengths=wavelengths, method=method,
             baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, out=out,
             report=report, measurement=measurement, scheduler=scheduler, workers=workers,
             progress=progress, **options)
+    extra = measurement_options(measurement)
+    # Before any work: a bad path costs nothing, and no output may overwrite an input.
+    guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
     with all_or_nothing():
         return _unmix_table(library, spectra, extra, window=window, wavelengths=wavelengths,
                             method=method, baseline=baseline, pathlength_cm=pathlength_cm,
