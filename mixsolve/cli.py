@@ -588,8 +588,9 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
     SPECTRA is a table, or a .zarr/.nc cube (any dims besides wavelength, run chunk by
     chunk on dask; docs/scale.md).
     """
+    from mixsolve.report.unmix_text import format_unmix
     from mixsolve.workflows.measurement import budget_text
-    from mixsolve.workflows.unmix_files import format_unmix, unmix_files
+    from mixsolve.workflows.unmix_files import unmix_files
 
     result = unmix_files(library_file, spectra, window=window,
                          wavelengths=wavelengths, method=method,

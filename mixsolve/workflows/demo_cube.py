@@ -26,8 +26,9 @@ from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.outputs import guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.library import COMPONENT
+from mixsolve.report.unmix_text import format_cube_summary
 from mixsolve.workflows.cluster import require_scale
-from mixsolve.workflows.unmix_files import format_cube_summary, unmix_cube_files
+from mixsolve.workflows.unmix_files import unmix_cube_files
 
 #: Pixels per side of the grid of pixels compared with the truth.
 CHECK_GRID = 25
