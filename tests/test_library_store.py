@@ -6,6 +6,7 @@ import json
 import os
 import stat
 import warnings
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -224,12 +225,12 @@ def test_write_failing_midway_leaves_nothing_and_keeps_old_file(tmp_path, librar
     write_library(library, path)
     before = path.read_bytes()
 
-    def half_write(self, target, *args, **kwargs):
-        with open(target, "wb") as fh:
-            fh.write(b"\x89HDF half a file")
+    def half_write(self, data):  # the file, built in memory, meets a full disk
+        with open(self, "wb") as fh:
+            fh.write(bytes(data)[:100])
         raise OSError(28, "No space left on device")
 
-    monkeypatch.setattr(xr.Dataset, "to_netcdf", half_write)
+    monkeypatch.setattr(Path, "write_bytes", half_write)
     with pytest.raises(OutputError, match=r"lib\.nc: cannot write the file \(No space left on "
                                           r"device\)$"):
         write_library(library.assign_attrs(solvent="other"), path)

@@ -6,7 +6,9 @@ or more. It is read lazily with dask, in chunks of whole spectra (the wavelength
 never split) of about ``CHUNK_BYTES`` of absorbance each (32 000 spectra of 250
 wavelengths, 16 000 of 500), aligned to the chunks on disk.
 Results are written lazily too, chunk by chunk, so a cube larger than memory streams
-through; a failed write leaves nothing behind (see :func:`write_cube`).
+through; a failed write leaves nothing behind (see :func:`write_cube`: a ``.nc`` result of
+up to ``NETCDF_IN_MEMORY_BYTES`` is built in memory first, as HDF5 streaming to disk
+cannot recover from a failed write).
 """
 
 from __future__ import annotations
@@ -23,6 +25,7 @@ import xarray as xr
 
 from mixsolve.errors import FileFormatError, OutputError
 from mixsolve.flags import VLEN_STR
+from mixsolve.io import limits
 from mixsolve.io.atomic import atomic_path
 from mixsolve.io.outputs import stage
 from mixsolve.spectra import WAVELENGTH, check_number
@@ -36,6 +39,13 @@ CHUNK_BYTES = 64_000_000
 #: Name of the absorbance variable written by mixsolve and looked for first when reading.
 ABSORBANCE = "absorbance"
 NETCDF_ENGINE = "h5netcdf"
+#: A ``.nc`` cube of up to this many bytes of arrays is computed and built in memory, then
+#: written in one plain write (:func:`mixsolve.io.netcdf_store.netcdf_image`); a larger one
+#: streams to disk chunk by chunk, where HDF5 cannot survive a write that fails midway.
+NETCDF_IN_MEMORY_BYTES = limits.CAREFUL_MAX_BYTES
+#: Room a streamed ``.nc`` cube needs beyond its arrays (bytes): HDF5's headers, about
+#: 1 kB a variable, with a wide margin.
+NETCDF_OVERHEAD_BYTES = 1_000_000
 
 
 def is_cube_path(path: str | os.PathLike[str]) -> bool:
@@ -217,7 +227,10 @@ def write_cube(data: xr.Dataset | xr.DataArray, path: str | os.PathLike[str], *,
         consolidated metadata, so that opening it reads one file) is written to
         a temporary folder beside the target and renamed into place (an existing store of
         that name is replaced only once the new one is complete); a netCDF file goes
-        through :func:`mixsolve.io.atomic.atomic_path`.
+        through :func:`mixsolve.io.atomic.atomic_path`. A netCDF cube of up to
+        ``NETCDF_IN_MEMORY_BYTES`` is built in memory first, so a full disk or a file-size
+        limit fails cleanly; a larger one streams to disk and is refused beforehand if it
+        cannot fit (see :func:`_check_room`).
     """
     target = Path(path)
     ds = data.to_dataset(name=data.name or ABSORBANCE) if isinstance(data, xr.DataArray) \
@@ -227,12 +240,63 @@ def write_cube(data: xr.Dataset | xr.DataArray, path: str | os.PathLike[str], *,
     if suffix == ".zarr":
         _write_zarr(ds, target, compute)
     elif suffix == ".nc":
-        with atomic_path(target) as tmp:
-            _run(ds.to_netcdf(tmp, engine=NETCDF_ENGINE, compute=False), compute)
+        _write_netcdf(ds, target, compute)
     else:
         raise OutputError(f"{target}: a cube is written as .zarr or .nc, not "
                           f"{suffix or 'no suffix'!r}")
     return target
+
+
+def _write_netcdf(ds: xr.Dataset, target: Path, compute: Callable[[Any], Any] | None) -> None:
+    """Write a ``.nc`` cube through :func:`~mixsolve.io.atomic.atomic_path`.
+
+    Up to ``NETCDF_IN_MEMORY_BYTES``: computed, built in memory, written in one go (a
+    failed write is a plain :class:`OutputError`). Larger: streamed chunk by chunk, after
+    :func:`_check_room`; a disk that fills during that write can still crash HDF5.
+    """
+    from mixsolve.io.netcdf_store import netcdf_image
+
+    if ds.nbytes <= NETCDF_IN_MEMORY_BYTES:
+        computed = ds.compute() if compute is None else compute(ds)
+        image = netcdf_image(computed)
+        with atomic_path(target) as tmp:
+            tmp.write_bytes(image)
+        return
+    _check_room(target, ds.nbytes)
+    with atomic_path(target) as tmp:
+        _run(ds.to_netcdf(tmp, engine=NETCDF_ENGINE, compute=False), compute)
+
+
+def _check_room(target: Path, nbytes: int) -> None:
+    """Refuse a streamed ``.nc`` cube that cannot fit: free space or ``ulimit -f`` below
+    its arrays' ``nbytes`` (the file holds them uncompressed) plus
+    ``NETCDF_OVERHEAD_BYTES``.
+
+    Raises
+    ------
+    OutputError
+        ``"Y.nc: needs about 1.2 GB but only 300 MB are free in out; free some space
+        or write to another disk"``, or the like for the file-size limit.
+    """
+    need = nbytes + NETCDF_OVERHEAD_BYTES
+    folder = target.parent if str(target.parent) else Path(".")
+    try:
+        free = shutil.disk_usage(folder).free
+    except OSError:
+        return  # the write itself reports a folder it cannot use
+    if need > free:
+        raise OutputError(f"{target}: needs about {limits.size_text(need)} but only "
+                          f"{limits.size_text(free)} are free in {folder}; free some space "
+                          "or write to another disk")
+    try:
+        import resource  # POSIX only
+    except ImportError:
+        return
+    soft = resource.getrlimit(resource.RLIMIT_FSIZE)[0]
+    if soft != resource.RLIM_INFINITY and need > soft:
+        raise OutputError(f"{target}: needs about {limits.size_text(need)} but the "
+                          f"file-size limit (ulimit -f) is {limits.size_text(soft)}; raise "
+                          "the limit or write a .zarr store (many smaller files)")
 
 
 def _plain(ds: xr.Dataset) -> xr.Dataset:

@@ -11,9 +11,10 @@ from __future__ import annotations
 
 import math
 import os
+import sys
 import warnings
 from collections.abc import Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from pathlib import Path
 from typing import Any, NamedTuple
 
@@ -48,10 +49,39 @@ class Declared(NamedTuple):
 
 
 def write_netcdf(ds: xr.Dataset, path: str | os.PathLike[str]) -> Path:
-    """Write ``ds`` to ``path`` (netCDF-4). A failed write leaves no file behind."""
+    """Write ``ds`` to ``path`` (netCDF-4). A failed write leaves no file behind.
+
+    The file is built in memory (:func:`netcdf_image`) and only then written, so a full
+    disk or a file-size limit is a plain failed write.
+
+    Raises
+    ------
+    OutputError
+        The folder is missing or not writable, or writing fails (disk full, file-size
+        limit, permissions); nothing is left and an earlier file of that name is unchanged.
+    """
+    image = netcdf_image(ds)
     with atomic_path(path) as tmp:
-        ds.to_netcdf(tmp, engine=ENGINE, invalid_netcdf=False)
+        tmp.write_bytes(image)
     return Path(path)
+
+
+def netcdf_image(ds: xr.Dataset) -> memoryview:
+    """The bytes of ``ds`` as a netCDF-4 file, built in memory in this thread.
+
+    HDF5 writing straight to disk cannot be stopped cleanly when a write fails (a full
+    disk, ``ulimit -f``): it reports errors while freeing its objects and then crashes
+    the process. Building the file in memory first leaves the disk to one plain write,
+    whose failure is an ordinary :class:`OSError`. Meant for numpy-backed data of up to
+    about :data:`~mixsolve.io.limits.CAREFUL_MAX_BYTES`: the image is held whole.
+    """
+    dask = sys.modules.get("dask")
+    # With a dask.distributed Client active, xarray takes a cluster-wide write lock named
+    # after the target, which an in-memory file cannot have (distributed refuses the
+    # lock); this file is built here, in one thread, so dask's local scheduler is right.
+    local = dask.config.set(scheduler="synchronous") if dask is not None else nullcontext()
+    with local:
+        return ds.to_netcdf(engine=ENGINE, invalid_netcdf=False)  # no path: the bytes
 
 
 @contextmanager
