@@ -609,9 +609,10 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
 
 
 merit_options = [
-    click.option("--noise", type=float, show_default=True,
-                 default=CoreDefault("mixsolve.wavelengths.check:DEFAULT_SIGMA_A"),
-                 help="Reading noise σ_A in AU."),
+    click.option("--noise", type=str, show_default=True, callback=callback(parse_noise),
+                 default=CoreDefault("mixsolve.wavelengths.check:DEFAULT_SIGMA_A", text=str),
+                 help="Reading noise: σ_A in AU, or a preset (benchtop_double_beam, "
+                 "diode_array, microplate, field_photometer) taken at A = 0."),
     click.option("--baseline", type=BASELINE_CHOICE, show_default=True,
                  default=CoreDefault("mixsolve.wavelengths.check:check_wavelengths", "baseline")),
     click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead."),
@@ -631,7 +632,7 @@ def wavelengths() -> None:
 @add_options(merit_options)
 def wavelengths_check(library_file: str, window: tuple[float, float] | None,
                       wavelengths: list[float] | None, components: list[str] | None,
-                      noise: float, baseline: str,
+                      noise: str | float, baseline: str,
                       as_json: bool) -> None:
     """Conditioning and figures of merit of LIBRARY_FILE at the chosen wavelengths."""
     import json
@@ -653,16 +654,20 @@ def wavelengths_check(library_file: str, window: tuple[float, float] | None,
 @click.option("--window", callback=callback(parse_window),
               help="Candidate window LOW-HIGH in nm, both ends included.")
 @click.option("--contiguous", is_flag=True, help="Choose a contiguous run of wavelengths.")
-@click.option("--compare", callback=callback(parse_wavelengths),
-              help="Your own wavelengths (nm, comma-separated) to compare.")
+@click.option("--against", callback=callback(parse_wavelengths),
+              help="Your own wavelengths (nm, comma-separated) to report beside the choice.")
+@click.option("--compare", callback=callback(parse_wavelengths), hidden=True,
+              help="Old name of --against (until the next release).")
 @add_options(merit_options)
 def wavelengths_choose(library_file: str, count: int, window: tuple[float, float] | None,
-                       contiguous: bool, compare: list[float] | None, noise: float,
+                       contiguous: bool, against: list[float] | None,
+                       compare: list[float] | None, noise: str | float,
                        baseline: str,
                        as_json: bool) -> None:
     """Choose COUNT wavelengths that minimise the predicted concentration variance."""
     import json
 
+    from mixsolve.errors import renamed
     from mixsolve.io.library_store import read_library
     from mixsolve.report.merit_text import format_choice
     from mixsolve.wavelengths.choose import choose_wavelengths
@@ -670,7 +675,8 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
     choice = choose_wavelengths(read_library(library_file), count, window=window,
                                 contiguous=contiguous, noise=noise,
                                 baseline=baseline,  # type: ignore[arg-type]
-                                compare=compare)
+                                against=renamed("--compare", "--against", compare,
+                                                against))  # type: ignore[arg-type]
     click.echo(json.dumps(choice.to_dict()) if as_json else format_choice(choice),
                nl=as_json)
 

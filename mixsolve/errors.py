@@ -64,3 +64,33 @@ class ExtrapolationWarning(MixsolveWarning):
 
 class IllConditionedWarning(MixsolveWarning):
     """The wavelength set separates the components poorly (large condition number)."""
+
+
+class RenamedWarning(MixsolveWarning, FutureWarning):
+    """A parameter or option was given by its old name, which works for one more release.
+
+    The message names the new spelling; the old one will then be refused.
+    """
+
+
+def renamed(old: str, new: str, old_value: object, new_value: object,
+            stacklevel: int = 3) -> object:
+    """The value of a renamed keyword: ``new_value``, or ``old_value`` with a warning.
+
+    Call it from the public function that renamed the keyword: the default ``stacklevel``
+    points the :class:`RenamedWarning` at that function's caller.
+
+    Raises
+    ------
+    InputError
+        Both spellings given.
+    """
+    import warnings
+
+    if old_value is None:
+        return new_value
+    if new_value is not None:
+        raise InputError(f"{old} is the old name of {new}; give {new} only")
+    warnings.warn(f"{old} is now called {new}; the old name works until the next release",
+                  RenamedWarning, stacklevel=stacklevel)
+    return old_value

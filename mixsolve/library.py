@@ -27,7 +27,7 @@ import pandas as pd
 import xarray as xr
 
 from mixsolve._version import __version__
-from mixsolve.errors import InputError, LinearityWarning
+from mixsolve.errors import InputError, LinearityWarning, renamed
 from mixsolve.names import check_spellings, check_unique_names, normalise_name
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 from mixsolve.units import (
@@ -397,8 +397,8 @@ def _check_molar_masses(library: xr.Dataset, name: str) -> None:
 
 
 def build_library(
-    standards: xr.DataArray,
-    sheet: pd.DataFrame,
+    spectra: xr.DataArray | None = None,
+    standards: pd.DataFrame | None = None,
     *,
     intercept: bool = False,
     pathlength_cm: float | None = None,
@@ -409,16 +409,19 @@ def build_library(
     max_relative_deviation: float = DEFAULT_MAX_RELATIVE_DEVIATION,
     min_levels: int = DEFAULT_MIN_LEVELS,
     source: str = "",
-    sheet_name: str = "standards sheet",
+    standards_name: str | None = None,
+    sheet: pd.DataFrame | None = None,
+    sheet_name: str | None = None,
 ) -> xr.Dataset:
     """Build a library from spectra of pure standards of known concentration.
 
     Parameters
     ----------
-    standards : DataArray with dims ("sample", "wavelength")
-        Blank-corrected absorbance of each standard solution.
-    sheet : DataFrame
-        One row per standard: ``sample``, ``component``, ``concentration``, ``unit``
+    spectra : DataArray with dims ("sample", "wavelength")
+        Blank-corrected absorbance of each standard solution (required).
+    standards : DataFrame
+        The standards sheet (what ``mixsolve library build --standards`` reads), one row
+        per standard: ``sample``, ``component``, ``concentration``, ``unit``
         and optionally ``pathlength_cm`` (cm). A ``line`` column, if present, is used
         to name the row in error messages. Every sample must be a pure standard of one
         component; a row with concentration 0 is a blank of that component's series.
@@ -436,8 +439,13 @@ def build_library(
         Linearity criteria at each component's peak wavelength; a component that
         misses one triggers a :class:`LinearityWarning` (common practice: R² ≥ 0.995,
         every standard within 5 % of the line, at least 3 concentration levels).
-    sheet_name : str
-        How error messages name the sheet (the workflow passes the file name).
+    standards_name : str, optional
+        How error messages name the standards sheet (default "standards sheet"; the
+        workflow passes the file name).
+    sheet, sheet_name
+        Old names of ``standards`` and ``standards_name``, and ``standards`` given a
+        DataArray by keyword is the old name of ``spectra``: they work until the next
+        release, with a :class:`~mixsolve.errors.RenamedWarning`.
 
     Returns
     -------
@@ -462,8 +470,14 @@ def build_library(
     1 − RSS/Σ(A − Ā)². The worst relative deviation is max |A − Â|/Â over standards
     with c > 0.
     """
-    spectra = check_spectra(standards, "standards")
-    table = _check_sheet(sheet, spectra, sheet_name)
+    if spectra is None and isinstance(standards, xr.DataArray):  # the old keyword
+        spectra = renamed("standards", "spectra", standards, None)  # type: ignore[assignment]
+        standards = None
+    standards = renamed("sheet", "standards", sheet, standards)  # type: ignore[assignment]
+    standards_name = renamed(  # type: ignore[assignment]
+        "sheet_name", "standards_name", sheet_name, standards_name)
+    spectra = check_spectra(spectra, "standards")
+    table = _check_sheet(standards, spectra, standards_name or "standards sheet")
     default_b = check_number(pathlength_cm if pathlength_cm is not None else
                              spectra.attrs.get("pathlength_cm", 1.0), "pathlength_cm", "cm",
                              positive=True)

@@ -175,3 +175,30 @@ def noise_model(spec: NoiseModel | str | float | None) -> NoiseModel | None:
         return PRESETS[spec]
     sigma = check_noise_sd(spec)
     return NoiseModel(k0=sigma * LN10, name=f"constant sigma_T ({sigma:g} AU at A=0)")
+
+
+def blank_noise_sd(spec: NoiseModel | str | float) -> float:
+    """σ_A (AU) of a blank reading (A = 0) under a noise specification, as float.
+
+    Parameters
+    ----------
+    spec : NoiseModel, preset name or float
+        What :func:`mixsolve.unmix` takes as ``noise``: a float is σ_A itself (AU),
+        returned as given; a model or a preset gives ``sigma_absorbance(0)``.
+
+    Raises
+    ------
+    InputError
+        Unknown preset name, or a float that is not positive and finite.
+
+    Notes
+    -----
+    The figures of merit of :func:`mixsolve.check_wavelengths` take one constant σ_A. It is
+    the noise at A = 0 because their LOD and LOQ are those of a blank-limited reading, and a
+    float ``noise`` means a constant σ_A near A = 0 in ``unmix`` too.
+    """
+    if isinstance(spec, NoiseModel | str):
+        model = noise_model(spec)
+        assert model is not None  # a model or a preset name, never None
+        return float(model.sigma_absorbance(0.0))
+    return check_noise_sd(spec)

@@ -17,6 +17,7 @@ import xarray as xr
 from helpers_cli import assert_cli_error
 
 import mixsolve as ms
+from mixsolve.noise import PRESETS
 from mixsolve.wavelengths.check import check_wavelengths
 from mixsolve.wavelengths.choose import EQUAL_TIME_MARGIN
 from mixsolve.workflows.demo import demo_file, run_demo
@@ -162,10 +163,26 @@ def test_acceptance_shoulders_are_more_shift_sensitive_than_band_maxima(demo_lib
     (("--wavelengths", "300,460"), "wavelengths: 300 nm is outside the library"),
     (("--components", "amber,navy"), "components: 'navy' is not in the library"),
     (("--noise", "-1"), "noise: -1 AU is not a positive number"),
+    (("--noise", "abc"), "noise: unknown preset 'abc'; presets are benchtop_double_beam, "
+                         "diode_array, microplate, field_photometer"),
 ])
 def test_check_bad_options_exit_2_with_one_error_line(demo_library, args, match, cli):
     """User mistakes: exit code 2, one ``error:`` line, no traceback."""
     assert_cli_error(cli("wavelengths", "check", demo_library, *args), match, literal=True)
+
+
+def test_check_and_choose_take_a_noise_preset_as_unmix_does(demo_library, cli):
+    """--noise diode_array (a preset, as unmix takes it) gives the figures for that
+    model's σ_A at A = 0, the same as that number given in AU."""
+    sigma = float(PRESETS["diode_array"].sigma_absorbance(0.0))
+    for command in (("check",), ("choose", "--count", "4")):
+        preset = json.loads(cli.ok("wavelengths", *command, demo_library, "--noise",
+                                   "diode_array", "--json").stdout)
+        number = json.loads(cli.ok("wavelengths", *command, demo_library, "--noise",
+                                   repr(sigma), "--json").stdout)
+        assert preset == number
+        merit = preset if command == ("check",) else preset["full_window"]
+        assert merit["noise_au"] == sigma
 
 
 def test_check_missing_library_file_is_a_clean_error(tmp_path, cli):
@@ -177,10 +194,10 @@ def test_check_missing_library_file_is_a_clean_error(tmp_path, cli):
 
 
 def test_click_level_bad_choices_exit_2_without_traceback(demo_library, cli):
-    """Values click itself refuses (a --baseline outside its choices, --noise not a
-    number) also exit 2 without a traceback; click's own message names the option.
+    """Values click itself refuses (a --baseline outside its choices) also exit 2 without a
+    traceback; click's own message names the option.
     """
-    for args in (("--baseline", "quadratic"), ("--noise", "abc")):
+    for args in (("--baseline", "quadratic"),):
         result = cli("wavelengths", "check", demo_library, *args)
         assert result.exit_code == 2
         assert "Traceback" not in result.output
@@ -216,10 +233,10 @@ def test_choose_text_and_json_agree(demo_library, cli):
     assert "full window" in text
 
 
-def test_choose_contiguous_window_and_compare(demo_library, cli):
-    """--contiguous gives neighbouring grid points inside --window; --compare is reported."""
+def test_choose_contiguous_window_and_against(demo_library, cli):
+    """--contiguous gives neighbouring grid points inside --window; --against is reported."""
     out = cli.ok("wavelengths", "choose", demo_library, "--count", "10", "--contiguous",
-                 "--window", "420-680", "--compare", "460,528,608", "--json")
+                 "--window", "420-680", "--against", "460,528,608", "--json")
     data = json.loads(out.stdout)
     wl = np.array(data["wavelengths_nm"])
     assert data["contiguous"] is True
@@ -228,9 +245,25 @@ def test_choose_contiguous_window_and_compare(demo_library, cli):
     assert data["user_set"]["wavelengths_nm"] == [460.0, 528.0, 608.0]
     assert isinstance(data["user_criterion"], float)
     text = cli.ok("wavelengths", "choose", demo_library, "--count", "10", "--contiguous",
-                  "--compare", "460,528,608").stdout
+                  "--against", "460,528,608").stdout
     assert text.startswith("Chosen contiguous window: ")
     assert "your set: J = " in text
+
+
+def test_choose_old_option_compare_works_hidden_with_a_warning(demo_library, cli):
+    """--compare is the old name of --against: it still works for one release, says so on
+    one ``warning:`` line, and is not listed in --help."""
+    new = cli.ok("wavelengths", "choose", demo_library, "--count", "4",
+                 "--against", "460,528,608", "--json")
+    old = cli.ok("wavelengths", "choose", demo_library, "--count", "4",
+                 "--compare", "460,528,608", "--json")
+    assert json.loads(old.stdout) == json.loads(new.stdout)
+    assert old.stderr == ("warning: --compare is now called --against; the old name works "
+                          "until the next release\n")
+    assert new.stderr == ""
+    helped = cli.ok("wavelengths", "choose", "--help").stdout
+    assert "--against" in helped
+    assert "--compare" not in helped
 
 
 @pytest.mark.parametrize(("args", "match"), [
@@ -240,7 +273,9 @@ def test_choose_contiguous_window_and_compare(demo_library, cli):
     (("--count", "500"), "count: 500 is not a number ≤ 191; the window holds 191 candidate "
                          "wavelengths"),
     (("--count", "4", "--window", "400-300"), "window: 400-300 nm is not an increasing"),
-    (("--count", "4", "--compare", "460,x"), "is not a comma-separated list"),
+    (("--count", "4", "--against", "460,x"), "--against: '460,x' is not a comma-separated list"),
+    (("--count", "4", "--against", "460", "--compare", "528"),
+     "--compare is the old name of --against; give --against only"),
 ])
 def test_choose_bad_options_exit_2_with_one_error_line(demo_library, args, match, cli):
     """User mistakes: exit code 2, one ``error:`` line, no traceback."""

@@ -16,9 +16,9 @@ import xarray as xr
 from scipy import stats
 
 import mixsolve as ms
-from mixsolve.errors import InputError
+from mixsolve.errors import InputError, RenamedWarning
 from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, STATUS_CODES, STRUCTURED
-from mixsolve.noise import NoiseModel
+from mixsolve.noise import PRESETS, NoiseModel
 from mixsolve.report.merit_text import format_check, format_choice
 from mixsolve.solve.sample_checks import (
     MIN_POINTS_RUNS,
@@ -91,6 +91,21 @@ def test_check_records_its_settings_and_units(library):
     assert check_wavelengths(library).attrs["noise_au"] == DEFAULT_SIGMA_A
 
 
+@pytest.mark.parametrize("name", sorted(PRESETS))
+def test_check_and_choose_take_noise_as_unmix_does(library, name):
+    """noise may be a preset name or a NoiseModel, as in unmix: the figures are those of its
+    σ_A at A = 0 (a blank reading), i.e. of k0, k1, k2 through σ_T(1)/ln 10."""
+    model = PRESETS[name]
+    sigma = np.sqrt(model.k0**2 + model.k1**2 + model.k2**2) / np.log(10)
+    plain = check_wavelengths(library, noise=float(sigma))
+    for spec in (name, model):
+        check = check_wavelengths(library, noise=spec)
+        assert check.attrs["noise_au"] == pytest.approx(sigma, rel=1e-12)
+        np.testing.assert_allclose(check["lod"], plain["lod"], rtol=1e-12)
+        full = choose_wavelengths(library, 4, noise=spec).full
+        np.testing.assert_allclose(full["loq"], plain["loq"], rtol=1e-12)
+
+
 def test_check_interpolates_wavelengths_between_library_points(library, eps):
     """A wavelength between grid points uses the linearly interpolated library."""
     check = check_wavelengths(library, wavelengths=[462.5, 530.0, 612.5])
@@ -130,6 +145,8 @@ def test_check_of_a_component_subset(library, eps):
                                         r"\(amber, rose, teal\)"),
     ({"noise": 0.0}, r"^noise: 0 AU is not a positive number$"),
     ({"noise": float("nan")}, r"^noise: nan AU is not a finite number$"),
+    ({"noise": "diode"}, r"^noise: unknown preset 'diode'; presets are benchtop_double_beam, "
+                         r"diode_array, microplate, field_photometer$"),
     ({"baseline": "quadratic"}, r"baseline: 'quadratic' is not one of"),
 ])
 def test_check_rejects_bad_selections(library, kwargs, message):
@@ -288,21 +305,34 @@ def test_choose_contiguous_returns_the_best_run_of_neighbours(library, eps):
 
 
 def test_choose_reports_a_users_set_beside_the_choice(library, eps):
-    """``compare`` gives the user's J and figures; a set too short to solve gets J = inf
+    """``against`` gives the user's J and figures; a set too short to solve gets J = inf
     (None in JSON), not a meaningless huge number.
     """
-    choice = choose_wavelengths(library, 4, compare=[440.0, 520.0, 600.0, 650.0])
+    choice = choose_wavelengths(library, 4, against=[440.0, 520.0, 600.0, 650.0])
     user = np.searchsorted(WL, [440.0, 520.0, 600.0, 650.0])
     assert choice.user_criterion == pytest.approx(
         criterion(eps, user, np.arange(WL.size)), rel=1e-9)
     assert choice.user is not None
     assert choice.user.attrs["wavelengths_nm"] == [440.0, 520.0, 600.0, 650.0]
     assert choice.user_criterion >= choice.criterion
-    short = choose_wavelengths(library, 4, compare=[460.0, 470.0])
+    short = choose_wavelengths(library, 4, against=[460.0, 470.0])
     assert short.user_criterion == float("inf")
     out = json.loads(json.dumps(short.to_dict(), allow_nan=False))
     assert out["user_criterion"] is None
     assert "your set: J = inf" in format_choice(short)
+
+
+def test_choose_old_keyword_compare_still_works_with_a_warning(library):
+    """``compare`` is the old name of ``against``: same result for one release, and a
+    RenamedWarning naming the new spelling that points at the caller's line."""
+    users = [440.0, 520.0, 600.0, 650.0]
+    with pytest.warns(RenamedWarning, match="^compare is now called against; ") as caught:
+        old = choose_wavelengths(library, 4, compare=users)
+    assert caught[0].filename == __file__
+    assert old.user_criterion == choose_wavelengths(library, 4, against=users).user_criterion
+    with pytest.raises(InputError, match=r"^compare is the old name of against; give against "
+                                         r"only$"):
+        choose_wavelengths(library, 4, against=users, compare=users)
 
 
 def test_choose_to_dict_and_text(library):

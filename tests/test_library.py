@@ -14,7 +14,7 @@ from helpers_core import gaussian_bands
 from scipy import stats
 
 import mixsolve as ms
-from mixsolve.errors import InputError, LinearityWarning, UnitError
+from mixsolve.errors import InputError, LinearityWarning, RenamedWarning, UnitError
 
 WL = np.arange(400.0, 701.0, 2.0)
 TRUE_EPS = {  # invented molar absorptivities, L/(mol*cm)
@@ -54,6 +54,30 @@ def _true(lib: xr.Dataset) -> np.ndarray:
 
 
 # ----------------------------------------------------------------------------- build_library
+
+
+def test_build_names_its_inputs_spectra_and_standards(rng: np.random.Generator) -> None:
+    """``standards`` is the standards sheet, as in ``build_library_files`` and the CLI's
+    ``--standards``; ``standards_name`` names it in messages. The old keywords ``sheet``,
+    ``sheet_name`` and ``standards=<spectra>`` still work, each with a RenamedWarning that
+    names the new spelling and points at the caller."""
+    spectra, sheet = _standards(rng)
+    new = ms.build_library(spectra=spectra, standards=sheet)
+    with pytest.warns(RenamedWarning) as caught:
+        old = ms.build_library(standards=spectra, sheet=sheet)
+    assert [str(w.message).split(";")[0] for w in caught] == [
+        "standards is now called spectra", "sheet is now called standards"]
+    assert {w.filename for w in caught} == {__file__}
+    xr.testing.assert_identical(old, new)
+    bad = sheet.assign(unit="furlong")
+    with pytest.raises(InputError, match=r"^std\.csv, line 2: unit: 'furlong'"):
+        ms.build_library(spectra, bad, standards_name="std.csv")
+    with pytest.warns(RenamedWarning, match=r"^sheet_name is now called standards_name; "), \
+            pytest.raises(InputError, match=r"^std\.csv, line 2: unit: 'furlong'"):
+        ms.build_library(spectra, bad, sheet_name="std.csv")
+    with pytest.raises(InputError, match=r"^sheet is the old name of standards; give "
+                                         r"standards only$"):
+        ms.build_library(spectra, sheet, sheet=sheet)
 
 
 def test_build_recovers_absorptivity_within_uncertainty(rng: np.random.Generator) -> None:

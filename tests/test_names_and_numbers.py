@@ -414,7 +414,7 @@ def test_nan_wavelength_refused_by_the_api():
     with pytest.raises(InputError, match=message):
         check_wavelengths(lib, wavelengths=[450.0, np.nan, 620.0])
     with pytest.raises(InputError, match=message):
-        choose_wavelengths(lib, 3, compare=[450.0, np.nan, 620.0])
+        choose_wavelengths(lib, 3, against=[450.0, np.nan, 620.0])
     with pytest.raises(InputError, match=r"max_shift_nm: nan nm is not a finite number"):
         ms.unmix(spectra, lib, max_shift_nm=np.nan)
 
@@ -451,8 +451,8 @@ def test_instrument_options_refused_by_the_api():
       "--out", "{out}"], "--molar-mass: nan in 'red=nan' is not a finite number"),
     (["wavelengths", "check", "{lib}", "--wavelengths", "450,nan,620"],
      "--wavelengths: nan in '450,nan,620' is not a finite number"),
-    (["wavelengths", "choose", "{lib}", "--count", "3", "--compare", "450,inf,620"],
-     "--compare: inf in '450,inf,620' is not a finite number"),
+    (["wavelengths", "choose", "{lib}", "--count", "3", "--against", "450,inf,620"],
+     "--against: inf in '450,inf,620' is not a finite number"),
     (["instrument", "wavelength", "{spectra}", "--bands", "241.15,nan"],
      "--bands: nan in '241.15,nan' is not a finite number"),
     (["instrument", "stray-light", "{spectra}", "--bandwidth", "nan"],

@@ -10,7 +10,7 @@ import xarray as xr
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.names import normalise_name
-from mixsolve.noise import check_noise_sd
+from mixsolve.noise import NoiseModel, blank_noise_sd
 from mixsolve.solve.design import BASELINE_TERMS, BASELINES, Baseline, design_matrix
 from mixsolve.solve.shift_sensitivity import library_derivative, shift_matrix
 from mixsolve.spectra import WAVELENGTH, check_option, check_wavelength_list, check_window
@@ -64,7 +64,7 @@ def check_wavelengths(
     window: tuple[float, float] | None = None,
     wavelengths: Sequence[float] | None = None,
     components: Sequence[str] | None = None,
-    noise: float = DEFAULT_SIGMA_A,
+    noise: NoiseModel | str | float = DEFAULT_SIGMA_A,
     baseline: Baseline = "none",
 ) -> xr.Dataset:
     """Conditioning and figures of merit of a library at a set of wavelengths.
@@ -79,9 +79,11 @@ def check_wavelengths(
         Exactly these wavelengths (nm), interpolated inside the library range.
     components : sequence of str, optional
         Check only these components (default all).
-    noise : float
-        Reading noise σ_A in AU, taken constant across wavelengths (default 0.001 AU,
-        a typical benchtop figure: common practice).
+    noise : NoiseModel, preset name or float
+        Reading noise, as :func:`mixsolve.unmix` takes it: σ_A in AU (default 0.001 AU, a
+        typical benchtop figure: common practice), or a noise model or preset
+        (:data:`mixsolve.noise.PRESETS`), whose σ_A at A = 0 (a blank reading) is used.
+        σ_A is taken constant across wavelengths.
     baseline : {"none", "offset", "linear"}
         Include baseline columns as in the fit.
 
@@ -107,7 +109,7 @@ def check_wavelengths(
     """
     library = check_library(library)
     check_option(baseline, BASELINES, "baseline")
-    sigma = check_noise_sd(noise)
+    sigma = blank_noise_sd(noise)
     if components is not None:
         components = [normalise_name(c) for c in components]  # as the library's names
         names = [str(c) for c in library[COMPONENT].values]

@@ -27,9 +27,9 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from mixsolve.errors import InputError
+from mixsolve.errors import InputError, renamed
 from mixsolve.library import COMPONENT, check_library, resample_library
-from mixsolve.noise import check_noise_sd
+from mixsolve.noise import NoiseModel, blank_noise_sd
 from mixsolve.solve.design import (
     BASELINE_TERMS,
     BASELINES,
@@ -114,8 +114,9 @@ def choose_wavelengths(
     *,
     window: tuple[float, float] | None = None,
     contiguous: bool = False,
-    noise: float = DEFAULT_SIGMA_A,
+    noise: NoiseModel | str | float = DEFAULT_SIGMA_A,
     baseline: Baseline = "none",
+    against: list[float] | None = None,
     compare: list[float] | None = None,
 ) -> WavelengthChoice:
     """Find ``count`` wavelengths that minimise the predicted concentration variance.
@@ -129,20 +130,26 @@ def choose_wavelengths(
         Candidate library wavelengths (nm), both ends included; default the whole library.
     contiguous : bool
         Choose the best run of ``count`` neighbouring candidate wavelengths instead.
-    noise : float
-        σ_A (AU) for the figures of merit (the choice itself does not depend on it).
+    noise : NoiseModel, preset name or float
+        Reading noise for the figures of merit, as in :func:`check_wavelengths` (σ_A in
+        AU, or a model or preset evaluated at A = 0); the choice itself does not depend
+        on it.
     baseline : {"none", "offset", "linear"}
-    compare : list of float, optional
+    against : list of float, optional
         A user's own wavelength set (nm) to report beside the choice.
+    compare : list of float, optional
+        Old name of ``against`` (warns :class:`~mixsolve.errors.RenamedWarning`; works until
+        the next release).
 
     Returns
     -------
     WavelengthChoice
         See the module docstring for the criterion and the search.
     """
+    against = renamed("compare", "against", compare, against)  # type: ignore[assignment]
     library = check_library(library)
     check_option(baseline, BASELINES, "baseline")
-    sigma = check_noise_sd(noise)
+    sigma = blank_noise_sd(noise)
     candidates = candidate_wavelengths(library, window=window)
     n = library.sizes[COMPONENT]
     p = n + len(BASELINE_TERMS[baseline])
@@ -182,10 +189,10 @@ def choose_wavelengths(
             + (" or set contiguous=False" if contiguous else ""))
     chosen_nm = candidates[np.sort(chosen)]
     user = user_value = None
-    if compare:
-        user = _figures(library, candidate_wavelengths(library, wavelengths=compare), sigma,
+    if against:
+        user = _figures(library, candidate_wavelengths(library, wavelengths=against), sigma,
                         baseline)
-        lib_u, _ = resample_library(library, np.sort(np.asarray(compare, float)))
+        lib_u, _ = resample_library(library, np.sort(np.asarray(against, float)))
         ku = lib_u["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
         user_value = float(np.mean(_variances(design_matrix(ku, lib_u[WAVELENGTH].values,
                                                             baseline), n) / full_var))

@@ -40,7 +40,7 @@ def build_library_files(spectra: PathLike, standards: PathLike, out: PathLike | 
     lib = build_library(measured, sheet, intercept=intercept, pathlength_cm=pathlength_cm,
                         molar_mass_g_per_mol=masses or None, solvent=solvent,
                         bandwidth_nm=bandwidth_nm, source=os.path.basename(spectra),
-                        sheet_name=os.path.basename(standards))
+                        standards_name=os.path.basename(standards))
     if out is not None:
         write_library(lib, out)  # one file, atomic
     return lib
