@@ -212,10 +212,10 @@ def test_volume_pathlength_and_option_conflicts(files):
         ms.analyse_plate(plate, layout, lib, volume_ul=100)
     with pytest.raises(InputError, match=r"^volume_ul: 0 µL is not a positive number$"):
         ms.analyse_plate(plate, layout, lib, volume_ul=0, well_diameter_mm=6.4)
-    with pytest.raises(InputError, match=r"^give either library or library_from_plate, not "
+    with pytest.raises(InputError, match=r"^give either a library or library_from_plate, not "
                                          r"both$"):
         ms.analyse_plate(plate, layout, lib, library_from_plate=True)
-    with pytest.raises(InputError, match=r"^no library: give library, or build it from the "
+    with pytest.raises(InputError, match=r"^no library: give a library, or build it from the "
                                          r"plate's standard wells \(library_from_plate\)$"):
         ms.analyse_plate(plate, layout)
     for options, message in (
@@ -453,9 +453,13 @@ def test_cli_plate(tmp_path, files, cli):
 
 
 @pytest.mark.parametrize(("extra", "message"), [
-    (["--library-from-plate"], "error: give either library or library_from_plate, not both"),
+    (["--library-from-plate"], "error: give either a library or --library-from-plate, not "
+                               "both"),
     (["--pathlength", "0.5", "--water-band"], "error: pathlength given 2 ways (fixed, water "
-                                              "band); give one of pathlength_cm"),
+                                              "band); give one of --pathlength, --volume-ul "
+                                              "with --well-diameter-mm, or --water-band\n"),
+    (["--volume-ul", "100"], "error: --volume-ul and --well-diameter-mm go together: the "
+                             "pathlength from the fill volume needs both\n"),
     (["--range", "high"], "error: --range: 'high' is not LOW-HIGH"),
 ])
 def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message, cli):

@@ -435,27 +435,27 @@ def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
     if pathlength_cm is None:
         pathlength_cm = spectra.attrs.get("pathlength_cm", 1.0)
     b = pathlength_cm if isinstance(pathlength_cm, xr.DataArray) else xr.DataArray(
-        check_number(pathlength_cm, "pathlength", "cm", positive=True))
+        check_number(pathlength_cm, "pathlength_cm", "cm", positive=True))
     for dim in b.dims:
         # One value per spectrum: every dim must be a spectra dim and cover all its labels,
         # else xarray alignment would silently drop spectra or leave NaN results.
         if dim == WAVELENGTH or dim not in spectra.dims:
-            raise InputError(f"pathlength: dimension {dim!r} is not one of the spectra's "
+            raise InputError(f"pathlength_cm: dimension {dim!r} is not one of the spectra's "
                              f"dimensions other than wavelength "
                              f"({', '.join(d for d in spectra.dims if d != WAVELENGTH)})")
         if dim in b.coords and dim in spectra.coords:
             have = set(b[dim].values.tolist())
             lacking = [v for v in spectra[dim].values.tolist() if v not in have]
             if lacking:
-                raise InputError(f"pathlength: no value for {dim} {str(lacking[0])!r}")
+                raise InputError(f"pathlength_cm: no value for {dim} {str(lacking[0])!r}")
             b = b.sel({dim: spectra[dim].values})
         elif b.sizes[dim] != spectra.sizes[dim]:
-            raise InputError(f"pathlength: {b.sizes[dim]} value(s) along {dim!r} for "
+            raise InputError(f"pathlength_cm: {b.sizes[dim]} value(s) along {dim!r} for "
                              f"{spectra.sizes[dim]} spectra")
     values = np.asarray(b.values, dtype=float)
     bad = values[~(np.isfinite(values) & (values > 0))].ravel()
     if bad.size:
-        check_number(bad[0], "pathlength", "cm", positive=True)  # raises, naming it
+        check_number(bad[0], "pathlength_cm", "cm", positive=True)  # raises, naming it
     return b.astype(float).assign_attrs(units="cm")
 
 
