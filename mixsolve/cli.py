@@ -402,6 +402,7 @@ API_PARAMETERS = {
     "search_nm": "search", "reference_u_nm": "reference_u", "bands_nm": "bands",
     "wavelength_nm": "wavelength", "limit_au": "limit", "max_shift_nm": "max_shift",
     "wavelength_tolerance_nm": "wavelength_tolerance", "bandwidth_nm": "bandwidth",
+    "pixels": "cube_pixels", "n_wavelengths": "cube_wavelengths",
 }
 _LEADING_NAME = re.compile(r"^([a-z][a-z0-9_]*)(?=:)")
 #: An API parameter named mid-sentence: an identifier with an underscore, not part of a file

@@ -110,7 +110,9 @@ def test_shift_wavelengths_moves_the_axis(wl_grid) -> None:
     with pytest.raises(ms.InputError, match=r"^offset_nm: 500 nm is not a number from -10 to "
                                             r"10 nm; an error that large is a fault to repair"):
         ms.shift_wavelengths(spectra, 500.0)
-    with pytest.raises(ms.InputError, match=r"^offset_nm: 10 nm would make -9\.5 nm ≤ 0$"):
+    with pytest.raises(ms.InputError, match=r"^offset_nm: 10 nm is not a number below 0\.5 nm; the "
+                                            r"corrected wavelengths \(read − offset\) must "
+                                            r"stay above 0 nm$"):
         ms.shift_wavelengths(ms.make_spectra(np.ones((1, 3)), [0.5, 1.0, 2.0]), 10.0)
 
 

@@ -232,13 +232,11 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
     except (TypeError, ValueError):
         raise InputError(f"absorbance_range: expected (low, high) in AU, got "
                          f"{absorbance_range!r}") from None
-    if not (np.isfinite(low) and np.isfinite(high)) or not 0 < low < high:
-        raise InputError(f"absorbance_range: {low:g}-{high:g} AU must be two increasing "
-                         "absorbances above 0, e.g. 0.3-2")
+    hint = "give two increasing absorbances above 0, e.g. 0.3-2"
+    check_number(low, "absorbance_range", "AU", positive=True, hint=hint)
+    check_number(high, "absorbance_range", "AU", low=low, low_open=True, hint=hint)
     model = noise_model(noise)
-    tolerance = check_number(wavelength_tolerance_nm, "wavelength_tolerance_nm", "nm")
-    if tolerance < 0:
-        raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm is not a number ≥ 0")
+    tolerance = check_number(wavelength_tolerance_nm, "wavelength_tolerance_nm", "nm", low=0)
     # finite even when fit_shift is off; above zero when it is on
     max_shift = check_number(max_shift_nm, "max_shift_nm", "nm", positive=fit_shift)
     if fit_shift and weights != "none":
