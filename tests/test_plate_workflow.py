@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from helpers_cli import assert_cli_error
 from helpers_io import WL, band, make_library, write_library_file, write_text
 from helpers_plate import (
     BACKGROUND_AU,
@@ -466,9 +467,8 @@ def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message, c
     out = tmp_path / "cli"
     run = cli("plate", files["export"], "--layout", files["layout"], "--library",
               files["library"], "--out", out, *extra)
-    assert run.exit_code == 2
-    assert run.stderr.startswith(message) and len(run.stderr.strip().splitlines()) == 1
-    assert not out.exists()
+    assert_cli_error(run, "^" + re.escape(message.rstrip("\n")) + ("$" if message.endswith(
+        "\n") else ""), must_not_exist=[out])
 
 
 # --- demo -------------------------------------------------------------------------------
