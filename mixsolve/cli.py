@@ -402,21 +402,39 @@ API_PARAMETERS = {
     "search_nm": "search", "reference_u_nm": "reference_u", "bands_nm": "bands",
     "wavelength_nm": "wavelength", "limit_au": "limit", "max_shift_nm": "max_shift",
     "wavelength_tolerance_nm": "wavelength_tolerance", "bandwidth_nm": "bandwidth",
+    "pixels": "cube_pixels", "n_wavelengths": "cube_wavelengths",
 }
 _LEADING_NAME = re.compile(r"^([a-z][a-z0-9_]*)(?=:)")
+#: An API parameter named mid-sentence: an identifier with an underscore, not part of a file
+#: name or path (``plate_1.csv``), not already a flag (``--water-band``), and not a field of a
+#: file (``attribute pathlength_cm``, ``first column wavelength_nm``), which keeps its name.
+_INNER_NAME = re.compile(
+    r"(?<![\w./\\-])(?<!attribute )(?<!variable )(?<!column )(?<!optionally )(?<!has )"
+    r"(?<!starts with )([a-z][a-z0-9]*(?:_[a-z0-9]+)+)(?![\w/\\-])(?!\.\w)")
 
 
 def in_flag_words(message: str, command: click.Command) -> str:
-    """A core error names an API parameter (``pathlength_cm: 0 cm is ...``); on the command
-    line it names the flag the user typed (``--pathlength: 0 cm is ...``)."""
-    match = _LEADING_NAME.match(message)
-    if match is None:
-        return message
+    """A core error names API parameters (``pathlength_cm: 0 cm is ...``, ``give one of
+    pathlength_cm, volume_ul with well_diameter_mm``); on the command line it names the flags
+    the user typed (``--pathlength: 0 cm is ...``, ``give one of --pathlength, --volume-ul
+    with --well-diameter-mm``).
+
+    A leading ``name:`` is mapped whatever the name (``window:`` → ``--window``); further on,
+    only identifiers with an underscore are, so plain words mid-sentence ("window", "unit",
+    "library") stay words. Names the running command has no flag for stay as they are.
+    """
     flags = {p.name: p.opts[0] for p in command.params
              if isinstance(p, click.Option) and p.name}
-    name = match.group(1)
-    flag = flags.get(name) or flags.get(API_PARAMETERS.get(name, ""))
-    return message if flag is None else flag + message[match.end():]
+
+    def flag(name: str) -> str | None:
+        return flags.get(name) or flags.get(API_PARAMETERS.get(name, ""))
+
+    match = _LEADING_NAME.match(message)
+    head, rest = "", message
+    if match is not None:
+        head = flag(match.group(1)) or match.group(1)
+        rest = message[match.end():]
+    return head + _INNER_NAME.sub(lambda m: flag(m.group(1)) or m.group(1), rest)
 
 
 class FlagWordsCommand(click.Command):

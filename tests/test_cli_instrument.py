@@ -10,6 +10,7 @@ import csv
 
 import numpy as np
 import pytest
+from helpers_cli import assert_cli_error
 from helpers_instrument import UV, dichromate
 from helpers_io import leftovers, write_text, write_wide
 
@@ -133,9 +134,5 @@ def test_bad_input_is_one_error_line_and_exit_2(tmp_path, args, message, cli) ->
         "notlog": write_text(tmp_path / "notes.csv", "a,b\n1,2\n"),
     }
     run = cli("instrument", *[a.format(**files) for a in args])
-    assert run.exit_code == 2, run.output
-    lines = [t for t in run.stderr.splitlines() if t.strip()]
-    assert len(lines) == 1 and lines[0].startswith("error: ")
-    assert message in lines[0]
-    assert "Traceback" not in run.output
+    assert_cli_error(run, message, literal=True)
     assert (tmp_path / "notes.csv").read_text() == "a,b\n1,2\n"

@@ -352,7 +352,10 @@ def test_unmix_noise_weights_through_the_cli(files, tmp_path, cli):
     (("--weights", "noise"), "weights='noise' needs a noise model"),
     (("--noise", "bogus"), "noise: unknown preset 'bogus'; presets are benchtop_double_beam"),
     (("--noise", "-0.001"), "noise: -0.001 AU is not a positive number"),
-    (("--range", "0-2"), "--range: 0-2 AU must be two increasing absorbances above 0"),
+    (("--range", "0-2"), "--range: 0 AU is not a positive number; give two increasing "
+                         "absorbances above 0, e.g. 0.3-2"),
+    (("--range", "2-0.3"), "--range: 0.3 AU is not a number > 2 AU; give two increasing "
+                           "absorbances above 0, e.g. 0.3-2"),
     (("--range", "abc"), "--range: 'abc' is not LOW-HIGH"),
     (("--wavelength-tolerance", "-1"), "--wavelength-tolerance: -1 nm is not a number ≥ 0"),
 ])

@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from helpers_cli import assert_cli_error
 from mixsolve.reference_spectra_demo import make_demo_cube
 
 from mixsolve.errors import InputError
@@ -56,9 +57,14 @@ def test_cli_cube_demo_recovers_the_maps(tmp_path: Path, cli) -> None:
 
 def test_cube_demo_refusals(tmp_path: Path, monkeypatch: pytest.MonkeyPatch, cli) -> None:
     """Too small a cube, and a missing scale extra, are one-line errors (exit 2)."""
-    run = cli("demo", "--out", tmp_path, "--cube", "1")
-    assert run.exit_code == 2
-    assert run.stderr.strip() == "error: --cube: 1 pixels per side; give at least 2, e.g. 1000"
+    assert_cli_error(cli("demo", "--out", tmp_path, "--cube", "1"),
+                     r"^error: --cube: 1 is not a whole number ≥ 2; give the pixels per side, "
+                     r"e\.g\. 1000$", must_not_exist=[tmp_path / "cube"])
+    assert_cli_error(cli("demo", "--out", tmp_path, "--cube", "4", "--cube-wavelengths", "5"),
+                     r"^error: --cube-wavelengths: 5 is not a whole number ≥ 10; e\.g\. 191$",
+                     must_not_exist=[tmp_path / "cube"])
+    with pytest.raises(InputError, match=r"^pixels: 2\.5 is not a whole number ≥ 2; give the "):
+        run_cube_demo(tmp_path, 2.5)
     import importlib.util
 
     real = importlib.util.find_spec

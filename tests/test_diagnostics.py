@@ -543,10 +543,12 @@ def test_range_uses_only_the_used_wavelengths(library, eps):
 
 
 @pytest.mark.parametrize(("bad", "message"), [
-    ((0.0, 2.0), r"absorbance_range: 0-2 AU must be two increasing absorbances above 0"),
-    ((-0.1, 2.0), r"absorbance_range: -0.1-2 AU must be two increasing absorbances"),
-    ((2.0, 0.3), r"absorbance_range: 2-0.3 AU must be two increasing absorbances"),
-    (("low", 2.0), r"absorbance_range: expected \(low, high\) in AU"),
+    ((0.0, 2.0), r"^absorbance_range: 0 AU is not a positive number; give two increasing "
+                 r"absorbances above 0, e\.g\. 0\.3-2$"),
+    ((-0.1, 2.0), r"^absorbance_range: -0\.1 AU is not a positive number; give two "),
+    ((2.0, 0.3), r"^absorbance_range: 0\.3 AU is not a number > 2 AU; give two increasing "),
+    ((0.3, float("nan")), r"^absorbance_range: nan AU is not a finite number$"),
+    (("low", 2.0), r"^absorbance_range: expected \(low, high\) in AU"),
 ])
 def test_bad_absorbance_ranges_are_refused(library, eps, bad, message):
     """The range must be an increasing pair of positive absorbances."""

@@ -346,7 +346,7 @@ def test_library_import_bad_unit(tmp_path, inputs, unit, parts, cli):
     ("text", "parts"),
     [("red:500", [r"^error: --molar-mass: 'red:500' is not NAME=G_PER_MOL$"]),
      ("green=500", [r"molar mass given for 'green', which is not a component"]),
-     ("red=-5", [r"^error: molar_mass_g_per_mol of 'red': -5 g/mol is not a positive number$"])],
+     ("red=-5", [r"^error: --molar-mass of 'red': -5 g/mol is not a positive number$"])],
 )
 def test_library_import_bad_molar_mass(tmp_path, inputs, text, parts, cli):
     out = tmp_path / "lib.nc"

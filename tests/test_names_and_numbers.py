@@ -444,7 +444,7 @@ def test_instrument_options_refused_by_the_api():
     (["unmix", "{lib}", "{spectra}", "--noise", "nan", "--out", "{out}"],
      "--noise: nan in 'nan' is not a finite number"),
     (["unmix", "{lib}", "{spectra}", "--pathlength", "inf", "--out", "{out}"],
-     "pathlength: inf cm is not a finite number"),
+     "--pathlength: inf cm is not a finite number"),
     (["unmix", "{lib}", "{spectra}", "--max-shift", "nan", "--out", "{out}"],
      "--max-shift: nan nm is not a finite number"),
     (["library", "import", "{table}", "--unit", "L/(mol*cm)", "--molar-mass", "red=nan",

@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from helpers_cli import assert_cli_error
 from helpers_io import WL, band, make_library, write_library_file, write_text
 from helpers_plate import (
     BACKGROUND_AU,
@@ -212,10 +213,10 @@ def test_volume_pathlength_and_option_conflicts(files):
         ms.analyse_plate(plate, layout, lib, volume_ul=100)
     with pytest.raises(InputError, match=r"^volume_ul: 0 µL is not a positive number$"):
         ms.analyse_plate(plate, layout, lib, volume_ul=0, well_diameter_mm=6.4)
-    with pytest.raises(InputError, match=r"^give either library or library_from_plate, not "
+    with pytest.raises(InputError, match=r"^give either a library or library_from_plate, not "
                                          r"both$"):
         ms.analyse_plate(plate, layout, lib, library_from_plate=True)
-    with pytest.raises(InputError, match=r"^no library: give library, or build it from the "
+    with pytest.raises(InputError, match=r"^no library: give a library, or build it from the "
                                          r"plate's standard wells \(library_from_plate\)$"):
         ms.analyse_plate(plate, layout)
     for options, message in (
@@ -453,18 +454,21 @@ def test_cli_plate(tmp_path, files, cli):
 
 
 @pytest.mark.parametrize(("extra", "message"), [
-    (["--library-from-plate"], "error: give either library or library_from_plate, not both"),
+    (["--library-from-plate"], "error: give either a library or --library-from-plate, not "
+                               "both"),
     (["--pathlength", "0.5", "--water-band"], "error: pathlength given 2 ways (fixed, water "
-                                              "band); give one of pathlength_cm"),
+                                              "band); give one of --pathlength, --volume-ul "
+                                              "with --well-diameter-mm, or --water-band\n"),
+    (["--volume-ul", "100"], "error: --volume-ul and --well-diameter-mm go together: the "
+                             "pathlength from the fill volume needs both\n"),
     (["--range", "high"], "error: --range: 'high' is not LOW-HIGH"),
 ])
 def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message, cli):
     out = tmp_path / "cli"
     run = cli("plate", files["export"], "--layout", files["layout"], "--library",
               files["library"], "--out", out, *extra)
-    assert run.exit_code == 2
-    assert run.stderr.startswith(message) and len(run.stderr.strip().splitlines()) == 1
-    assert not out.exists()
+    assert_cli_error(run, "^" + re.escape(message.rstrip("\n")) + ("$" if message.endswith(
+        "\n") else ""), must_not_exist=[out])
 
 
 # --- demo -------------------------------------------------------------------------------

@@ -371,11 +371,11 @@ def test_pathlength_per_sample_by_label(molar_library: xr.Dataset,
 
 
 @pytest.mark.parametrize(("value", "message"), [
-    ("long", r"pathlength: 'long' is not a number"),
-    (0.0, r"pathlength: 0 cm is not a positive number"),
-    (float("inf"), r"pathlength: inf cm is not a finite number"),
-    (xr.DataArray([1.0, -2.0], dims="sample"), r"pathlength: -2 cm is not a positive number"),
-    (xr.DataArray([np.nan, 1.0], dims="sample"), r"pathlength: nan cm is not a finite number"),
+    ("long", r"pathlength_cm: 'long' is not a number"),
+    (0.0, r"pathlength_cm: 0 cm is not a positive number"),
+    (float("inf"), r"pathlength_cm: inf cm is not a finite number"),
+    (xr.DataArray([1.0, -2.0], dims="sample"), r"pathlength_cm: -2 cm is not a positive number"),
+    (xr.DataArray([np.nan, 1.0], dims="sample"), r"pathlength_cm: nan cm is not a finite number"),
 ])
 def test_pathlength_that_is_not_a_positive_number(molar_library: xr.Dataset,
                                                   mix_spectra: MixFactory, value: object,
@@ -391,11 +391,12 @@ def test_pathlength_per_sample_must_cover_spectra(molar_library: xr.Dataset,
     silently aligned away)."""
     spectra = mix_spectra(CONC)
     partial = xr.DataArray([1.0], dims="sample", coords={"sample": ["sample_1"]})
-    with pytest.raises(InputError, match=r"pathlength: no value for sample 'sample_2'"):
+    with pytest.raises(InputError, match=r"^pathlength_cm: no value for sample 'sample_2'"):
         ms.unmix(spectra, molar_library, pathlength_cm=partial)
-    with pytest.raises(InputError, match=r"pathlength: dimension 'well'"):
+    with pytest.raises(InputError, match=r"^pathlength_cm: dimension 'well'"):
         ms.unmix(spectra, molar_library, pathlength_cm=xr.DataArray([1.0, 2.0], dims="well"))
-    with pytest.raises(InputError, match=r"3 value\(s\) along 'sample' for 2 spectra"):
+    with pytest.raises(InputError, match=r"^pathlength_cm: 3 value\(s\) along 'sample' for 2 "
+                                         r"spectra"):
         ms.unmix(spectra, molar_library, pathlength_cm=xr.DataArray([1.0, 2.0, 3.0],
                                                                      dims="sample"))
 

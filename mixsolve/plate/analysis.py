@@ -221,9 +221,9 @@ def analyse_plate(
         p for p in map(parse_well, read) if p is not None) or 384)
     _check_layout(layout, layout_name, size, source)
     if library is not None and library_from_plate:
-        raise InputError("give either library or library_from_plate, not both")
+        raise InputError("give either a library or library_from_plate, not both")
     if library is None and not library_from_plate:
-        raise InputError("no library: give library, or build it from the plate's standard "
+        raise InputError("no library: give a library, or build it from the plate's standard "
                          "wells (library_from_plate)")
     roles = dict(zip(layout["well"], layout["role"], strict=True))
     fitted = [w for w in read if roles.get(w) in FITTED_ROLES]

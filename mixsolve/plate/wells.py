@@ -79,10 +79,6 @@ def on_plate(position: tuple[int, int], size: int) -> bool:
     return position[0] < rows and 1 <= position[1] <= cols
 
 
-#: The old name (``check_`` is for validators): kept until issue 13's branches are merged.
-check_on_plate = on_plate
-
-
 def subtract_blank(
     spectra: xr.DataArray, blank_wells: Sequence[str]
 ) -> tuple[xr.DataArray, xr.DataArray, xr.DataArray]:

@@ -96,10 +96,6 @@ def log_records(result: CheckResult, *, when: datetime, source: str = "") -> pd.
     })
 
 
-#: The old name (``check_`` is for validators): kept until issue 13's branches are merged.
-check_records = log_records
-
-
 def format_repeatability(stats: xr.Dataset, source: str = "") -> str:
     """Repeatability of repeated scans: pooled SD, SD range, drift over the run, notes."""
     sd = stats["sd"].values

@@ -8,6 +8,18 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from mixsolve.flags import (
+    ABOVE_RANGE,
+    BELOW_RANGE,
+    FLAG_MEANINGS,
+    ILL_CONDITIONED,
+    LACK_OF_FIT,
+    NO_DOF,
+    NO_SIGNAL,
+    SHIFT_SENSITIVE,
+    STATUS_CODES,
+    STRUCTURED,
+)
 from mixsolve.library import COMPONENT
 from mixsolve.spectra import WAVELENGTH
 
@@ -114,6 +126,21 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
     return "\n".join(lines) + "\n"
 
 
+#: What the results page adds to a flag's meaning (:data:`mixsolve.flags.FLAG_MEANINGS`, the
+#: one place meanings are kept): what to do about it, by flag code.
+FLAG_ADVICE: dict[str, str] = {
+    STATUS_CODES[NO_DOF]: "the fit is exact, so the residual says nothing; measure more "
+                          "wavelengths",
+    STATUS_CODES[LACK_OF_FIT]: "an unmodelled absorber, scatter, a wrong library or a wrong "
+                               "noise model",
+    STATUS_CODES[ILL_CONDITIONED]: "choose better wavelengths",
+    STATUS_CODES[STRUCTURED]: "look at the residual spectrum",
+    STATUS_CODES[NO_SIGNAL]: "an empty column, a failed export or a blank subtracted from "
+                             "itself; measure the sample",
+    SHIFT_SENSITIVE: "check the wavelength scale or measure nearer band maxima",
+}
+
+
 def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float]) -> list[str]:
     notes = []
     if left_out:
@@ -125,45 +152,25 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
     for s, text in zip(samples, flags, strict=False):
         for code in filter(None, str(text).split(";")):
             by_code.setdefault(code, []).append(s)
-    explain = {
-        "no_dof": "as many unknowns as wavelengths: the fit is exact, so the residual says "
-                  "nothing and the uncertainty is not available (n/a); measure more "
-                  "wavelengths",
-        "missing_readings": "some readings were missing; fitted on the wavelengths present",
-        "too_few_readings": "too few readings left to fit; no result",
-        "rank_deficient": "the readings left cannot separate the components; no result",
-        "above_range": f"peak absorbance above the reliable range "
-                       f"({result.attrs.get('absorbance_range', '')} AU)",
-        "below_range": f"peak absorbance below the reliable range "
-                       f"({result.attrs.get('absorbance_range', '')} AU)",
-        "lack_of_fit": "the residual is larger than the noise model allows: an unmodelled "
-                       "absorber, scatter, a wrong library or a wrong noise model",
-        "ill_conditioned": "the wavelength set separates the components poorly (scaled "
-                           f"condition number {result.attrs.get('condition_number', 0):.3g} "
-                           "> 1000): noise is amplified that much; choose better wavelengths",
-        "structured_residual": "the residual has shape, not noise (runs test): look at the "
-                               "residual spectrum for a missing absorber, scatter or a shift",
-        "no_signal": "every reading is exactly zero: nothing was measured (an empty column, "
-                     "a failed export or a blank subtracted from itself), so the zero result "
-                     "means nothing; measure the sample",
+    detail = {
+        STATUS_CODES[ABOVE_RANGE]: f"{result.attrs.get('absorbance_range', '')} AU",
+        STATUS_CODES[BELOW_RANGE]: f"{result.attrs.get('absorbance_range', '')} AU",
+        STATUS_CODES[ILL_CONDITIONED]: "scaled condition number "
+                                       f"{result.attrs.get('condition_number', 0):.3g}",
+        SHIFT_SENSITIVE: f"wavelength tolerance {result.attrs.get('wavelength_tolerance_nm', '')}"
+                         " nm",
     }
     dilution = result["suggested_dilution"].values if "suggested_dilution" in result else None
     for code, who in by_code.items():
         base, _, comp = code.partition(":")
         names = ", ".join(who[:6]) + (f" and {len(who) - 6} more" if len(who) > 6 else "")
-        if base == "at_zero":
-            text = f"{comp!r} held at zero by the non-negativity constraint"
-        elif base == "negative":
-            text = f"{comp!r} came out negative (below zero beyond what the model allows)"
-        elif base == "shift_sensitive":
-            tol = result.attrs.get("wavelength_tolerance_nm", "")
-            text = (f"a {tol} nm wavelength error would move {comp!r} by more than 2 %; check "
-                    "the wavelength scale or measure nearer band maxima")
-        else:
-            text = explain.get(base, base)
-        if base in ("above_range", "below_range") and dilution is not None:
+        text = (f"{comp!r}: " if comp else "") + FLAG_MEANINGS.get(base, base)
+        text += (f" ({detail[base]})" if base in detail else "") + (
+            f"; {FLAG_ADVICE[base]}" if base in FLAG_ADVICE else "")
+        ranged = (STATUS_CODES[ABOVE_RANGE], STATUS_CODES[BELOW_RANGE])
+        if base in ranged and dilution is not None:
             factors = [float(dilution[samples.index(s)]) for s in who[:6]]
-            verb = "dilute" if base == "above_range" else "concentrate (or longer cell)"
+            verb = "dilute" if base == ranged[0] else "concentrate (or longer cell)"
             text += "; " + verb + " about " + ", ".join(
                 _fold(f) for f in factors)
         notes.append(f"{names}: {text} [{code}].")

@@ -232,13 +232,11 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
     except (TypeError, ValueError):
         raise InputError(f"absorbance_range: expected (low, high) in AU, got "
                          f"{absorbance_range!r}") from None
-    if not (np.isfinite(low) and np.isfinite(high)) or not 0 < low < high:
-        raise InputError(f"absorbance_range: {low:g}-{high:g} AU must be two increasing "
-                         "absorbances above 0, e.g. 0.3-2")
+    hint = "give two increasing absorbances above 0, e.g. 0.3-2"
+    check_number(low, "absorbance_range", "AU", positive=True, hint=hint)
+    check_number(high, "absorbance_range", "AU", low=low, low_open=True, hint=hint)
     model = noise_model(noise)
-    tolerance = check_number(wavelength_tolerance_nm, "wavelength_tolerance_nm", "nm")
-    if tolerance < 0:
-        raise InputError(f"wavelength_tolerance_nm: {tolerance:g} nm is not a number ≥ 0")
+    tolerance = check_number(wavelength_tolerance_nm, "wavelength_tolerance_nm", "nm", low=0)
     # finite even when fit_shift is off; above zero when it is on
     max_shift = check_number(max_shift_nm, "max_shift_nm", "nm", positive=fit_shift)
     if fit_shift and weights != "none":
@@ -435,27 +433,27 @@ def _pathlength(spectra: xr.DataArray, pathlength_cm: Any) -> xr.DataArray:
     if pathlength_cm is None:
         pathlength_cm = spectra.attrs.get("pathlength_cm", 1.0)
     b = pathlength_cm if isinstance(pathlength_cm, xr.DataArray) else xr.DataArray(
-        check_number(pathlength_cm, "pathlength", "cm", positive=True))
+        check_number(pathlength_cm, "pathlength_cm", "cm", positive=True))
     for dim in b.dims:
         # One value per spectrum: every dim must be a spectra dim and cover all its labels,
         # else xarray alignment would silently drop spectra or leave NaN results.
         if dim == WAVELENGTH or dim not in spectra.dims:
-            raise InputError(f"pathlength: dimension {dim!r} is not one of the spectra's "
+            raise InputError(f"pathlength_cm: dimension {dim!r} is not one of the spectra's "
                              f"dimensions other than wavelength "
                              f"({', '.join(d for d in spectra.dims if d != WAVELENGTH)})")
         if dim in b.coords and dim in spectra.coords:
             have = set(b[dim].values.tolist())
             lacking = [v for v in spectra[dim].values.tolist() if v not in have]
             if lacking:
-                raise InputError(f"pathlength: no value for {dim} {str(lacking[0])!r}")
+                raise InputError(f"pathlength_cm: no value for {dim} {str(lacking[0])!r}")
             b = b.sel({dim: spectra[dim].values})
         elif b.sizes[dim] != spectra.sizes[dim]:
-            raise InputError(f"pathlength: {b.sizes[dim]} value(s) along {dim!r} for "
+            raise InputError(f"pathlength_cm: {b.sizes[dim]} value(s) along {dim!r} for "
                              f"{spectra.sizes[dim]} spectra")
     values = np.asarray(b.values, dtype=float)
     bad = values[~(np.isfinite(values) & (values > 0))].ravel()
     if bad.size:
-        check_number(bad[0], "pathlength", "cm", positive=True)  # raises, naming it
+        check_number(bad[0], "pathlength_cm", "cm", positive=True)  # raises, naming it
     return b.astype(float).assign_attrs(units="cm")
 
 

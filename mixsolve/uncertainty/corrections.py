@@ -249,9 +249,10 @@ def check_offset(offset_nm: object, name: str = "offset_nm") -> float:
 
 def _shift(spectra: xr.DataArray, delta: float) -> xr.DataArray:
     """:func:`shift_wavelengths` of spectra and an offset already checked."""
+    check_number(delta, "offset_nm", "nm", high=float(spectra[WAVELENGTH].values[0]),
+                 high_open=True, hint="the corrected wavelengths (read − offset) must stay "
+                                      "above 0 nm")
     wl = spectra[WAVELENGTH].values - delta
-    if wl[0] <= 0:
-        raise InputError(f"offset_nm: {delta:g} nm would make {wl[0]:g} nm ≤ 0")
     out = spectra.assign_coords({WAVELENGTH: wl})
     out.attrs = {**spectra.attrs, "wavelength_offset_nm": delta}
     return out

@@ -18,6 +18,7 @@ from typing import Any, TextIO
 
 from mixsolve.errors import InputError
 from mixsolve.io.outputs import ctrl_c_ignored
+from mixsolve.spectra import check_number
 
 #: Seconds a computation must run before its progress bar appears ("long runs").
 PROGRESS_AFTER_S = 1.0
@@ -80,8 +81,7 @@ def dask_client(scheduler: str | None = None, workers: int | None = None) -> Ite
         return
     distributed = _require("distributed")
     if workers is not None:
-        if int(workers) < 1:
-            raise InputError(f"workers: {workers} must be at least 1")
+        workers = int(check_number(workers, "workers", low=1, integer=True))
         # silence_logs: a failing task (e.g. an infinite reading) is raised here, where
         # the command line turns it into one line; the workers would also log it, with
         # a traceback, on the same terminal

@@ -21,12 +21,12 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.errors import InputError
 from mixsolve.io.atomic import ensure_folder
 from mixsolve.io.outputs import guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.library import COMPONENT
 from mixsolve.report.unmix_text import format_cube_summary
+from mixsolve.spectra import check_number
 from mixsolve.workflows.cluster import require_scale
 from mixsolve.workflows.unmix_files import unmix_cube_files
 
@@ -77,10 +77,10 @@ def run_cube_demo(out_dir: str | os.PathLike[str], pixels: int = 1000,
     InputError
         Too few pixels or wavelengths, or the scale extra (dask, zarr) not installed.
     """
-    if int(pixels) < 2:
-        raise InputError(f"--cube: {pixels} pixels per side; give at least 2, e.g. 1000")
-    if int(n_wavelengths) < 10:
-        raise InputError(f"--cube-wavelengths: {n_wavelengths}; give at least 10, e.g. 191")
+    pixels = int(check_number(pixels, "pixels", low=2, integer=True,
+                              hint="give the pixels per side, e.g. 1000"))
+    n_wavelengths = int(check_number(n_wavelengths, "n_wavelengths", low=10, integer=True,
+                                     hint="e.g. 191"))
     require_scale(("dask", "zarr"), "the cube demo needs")
     from mixsolve.reference_spectra_demo.make_demo_cube import concentrations, write_demo_cube
 
