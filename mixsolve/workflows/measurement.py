@@ -138,14 +138,14 @@ def measurement_corrections(options: MeasurementOptions,
         Text that is not ``V`` or ``V±U``, a ratio that is not positive, an offset beyond
         ±10 nm (named by their options), or a blank with a missing reading.
     """
-    ratio = parse_value_u(options.cell_ratio, "--cell-ratio")
-    offset = parse_value_u(options.wavelength_offset, "--wavelength-offset", "nm")
+    ratio = parse_value_u(options.cell_ratio, "cell_ratio")
+    offset = parse_value_u(options.wavelength_offset, "wavelength_offset", "nm")
     if offset is not None:
-        check_offset(offset[0], "--wavelength-offset")
+        check_offset(offset[0], "wavelength_offset")
     cell = None
     if blank_scans is not None or ratio is not None:
         r, u_r = ratio if ratio is not None else (1.0, None)
-        r = check_number(r, "--cell-ratio", positive=True)
+        r = check_number(r, "cell_ratio", positive=True)
         cell = (cell_blank(blank_scans, ratio=r, u_ratio=u_r or 0.0) if blank_scans is not None
                 else CellCorrection(ratio=r, u_ratio=u_r or 0.0))
     return Corrections(cell, *(offset if offset is not None else (None, None)))
