@@ -516,20 +516,6 @@ def test_cli_choose_on_zero_tails(tmp_path, cli):
     assert json.loads(result.stdout)["chosen"]["condition_number"] is not None
 
 
-def test_a_singular_set_to_compare_against_is_refused(tmp_path, cli):
-    """--against a set that cannot separate the components (all three on the zero tails of
-    two of them) used to print 'J = inf, condition number inf'; now one line, exit 2."""
-    lib = _zero_tail_library(30.0)
-    with pytest.raises(InputError, match=r"^against: 400, 410, 420 nm cannot separate the "
-                                         r"components \(singular"):
-        choose_wavelengths(lib, 3, against=[400.0, 410.0, 420.0])
-    path = tmp_path / "tails.nc"
-    ms.write_library(lib, path)
-    assert_cli_error(cli("wavelengths", "choose", path, "--count", "3", "--against",
-                         "400,410,420"), "--against: 400, 410, 420 nm cannot separate",
-                     literal=True)
-
-
 # --- numbers: all-zero spectra --------------------------------------------------------------
 
 @pytest.mark.parametrize("zero", [0.0, -0.0])

@@ -196,11 +196,6 @@ def choose_wavelengths(
         ku = lib_u["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
         user_value = float(np.mean(_variances(design_matrix(ku, lib_u[WAVELENGTH].values,
                                                             baseline), n) / full_var))
-        if not np.isfinite(user_value):
-            raise InputError(
-                f"against: {', '.join(f'{w:g}' for w in sorted(against))} nm cannot separate "
-                f"the components (singular: scaled condition number above "
-                f"{MAX_CONDITION_NUMBER:.0e}); compare with other or more wavelengths")
     return WavelengthChoice(
         wavelengths_nm=[float(w) for w in chosen_nm],
         criterion=value,
