@@ -13,8 +13,11 @@ from the core (:class:`CoreChoice`, :class:`CoreDefault`) when a command needs t
 
 from __future__ import annotations
 
+import ast
 import contextlib
+import functools
 import importlib
+import importlib.util
 import inspect
 import re
 import sys
@@ -132,6 +135,72 @@ def core(ref: str) -> Any:
     return getattr(importlib.import_module(module), name)
 
 
+_NOT_LITERAL = object()
+
+
+def core_value(ref: str, keyword: str | None = None) -> Any:
+    """A core constant, or the default of a core function's keyword, as the core defines it.
+
+    Read from the module's source when it is a literal (a number, a string, a tuple, a
+    dict, or a module-level constant that is one), so that ``mixsolve unmix --help`` need
+    not import numpy, xarray and scipy (a few seconds) to show its choices and defaults;
+    anything else is imported. ``tests/test_cli_root.py`` checks both roads agree.
+    """
+    value = _literal(ref, keyword)
+    if value is not _NOT_LITERAL:
+        return value
+    value = core(ref)
+    return value if keyword is None else inspect.signature(value).parameters[keyword].default
+
+
+@functools.cache
+def _module_tree(module: str) -> ast.Module | None:
+    spec = importlib.util.find_spec(module)
+    if spec is None or spec.origin is None or not spec.origin.endswith(".py"):
+        return None
+    with open(spec.origin, encoding="utf-8") as handle:
+        return ast.parse(handle.read())
+
+
+def _literal(ref: str, keyword: str | None) -> Any:
+    module, _, name = ref.partition(":")
+    try:
+        tree = _module_tree(module)
+    except (ImportError, OSError, SyntaxError, ValueError):
+        return _NOT_LITERAL
+    if tree is None:
+        return _NOT_LITERAL
+    constants = {}
+    imported = {alias.asname or alias.name: f"{node.module}:{alias.name}"
+                for node in tree.body if isinstance(node, ast.ImportFrom) and node.module
+                for alias in node.names}
+    for node in tree.body:
+        target = node.targets[0] if isinstance(node, ast.Assign) and len(node.targets) == 1 \
+            else node.target if isinstance(node, ast.AnnAssign) and node.value else None
+        if isinstance(target, ast.Name):
+            constants[target.id] = node.value  # type: ignore[union-attr]
+    if keyword is None:
+        expr = constants.get(name)
+    else:
+        function = next((n for n in tree.body if isinstance(n, ast.FunctionDef)
+                         and n.name == name), None)
+        if function is None:
+            return _NOT_LITERAL
+        args = function.args
+        pairs = list(zip(args.args[len(args.args) - len(args.defaults):], args.defaults,
+                         strict=True))
+        pairs += [(a, d) for a, d in zip(args.kwonlyargs, args.kw_defaults, strict=True) if d]
+        expr = next((d for a, d in pairs if a.arg == keyword), None)
+    if isinstance(expr, ast.Name):  # a module-level constant, here or imported
+        if expr.id not in constants:
+            return _literal(imported[expr.id], None) if expr.id in imported else _NOT_LITERAL
+        expr = constants.get(expr.id)
+    try:
+        return ast.literal_eval(expr) if expr is not None else _NOT_LITERAL
+    except ValueError:
+        return _NOT_LITERAL
+
+
 def number_text(value: float) -> str:
     """A number as the command line takes it: ``2.0`` as ``2``, ``241.15`` as it is."""
     return f"{value:.15g}"
@@ -154,10 +223,7 @@ class CoreDefault:
         self.text = text
 
     def __call__(self) -> Any:
-        value = core(self.ref)
-        if self.keyword is not None:
-            value = inspect.signature(value).parameters[self.keyword].default
-        return self.text(value)
+        return self.text(core_value(self.ref, self.keyword))
 
     def __str__(self) -> str:
         return str(self())
@@ -177,7 +243,7 @@ class CoreChoice(click.Choice):
 
     @property
     def choices(self) -> tuple[str, ...]:
-        return tuple(str(choice) for choice in core(self.ref))
+        return tuple(str(choice) for choice in core_value(self.ref))
 
     def __repr__(self) -> str:
         return f"CoreChoice({self.ref!r})"

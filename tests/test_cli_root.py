@@ -252,18 +252,44 @@ def test_help_texts_name_what_the_core_offers():
     assert f"[min({DEFAULT_FOLDS}, samples)]" in calibrate
 
 
-def test_root_help_and_version_import_no_numerical_library():
-    """`mixsolve --help` and `--version` stay quick: the core's choices and defaults are
-    read only when a command needs them."""
+def test_help_and_version_import_no_numerical_library():
+    """`mixsolve --help`, `--version` and each command's help stay quick: the core's
+    choices and defaults are read from its source (core_value), not by importing numpy,
+    xarray and scipy; a real run does import them."""
     assert numerical_imports(
         "from click.testing import CliRunner\n"
         "from mixsolve.cli import main\n"
-        "for args in (['--help'], ['--version'], ['instrument', '--help']):\n"
+        "for args in (['--help'], ['--version'], ['instrument', '--help'],\n"
+        "             ['unmix', '--help'], ['plate', '--help'], ['calibrate', '--help'],\n"
+        "             ['wavelengths', 'choose', '--help'],\n"
+        "             ['instrument', 'wavelength', '--help']):\n"
         "    assert CliRunner().invoke(main, args).exit_code == 0, args\n") == []
     assert "numpy" in numerical_imports(
         "from click.testing import CliRunner\n"
         "from mixsolve.cli import main\n"
-        "CliRunner().invoke(main, ['unmix', '--help'])\n")
+        "CliRunner().invoke(main, ['unmix', 'no-such.nc', 'no-such.csv'])\n")
+
+
+def test_defaults_read_from_source_equal_the_imported_ones():
+    """core_value reads literals from the source; each equals what importing gives."""
+    import inspect
+
+    from mixsolve.cli import _NOT_LITERAL, _literal
+
+    compared = 0
+    for _, command in COMMANDS:
+        for param in command.params:
+            for ref, keyword in [(getattr(param.default, "ref", None),
+                                  getattr(param.default, "keyword", None)),
+                                 (getattr(param.type, "ref", None), None)]:
+                if ref is None:
+                    continue
+                read = _literal(ref, keyword)
+                real = core(ref) if keyword is None \
+                    else inspect.signature(core(ref)).parameters[keyword].default
+                assert read is _NOT_LITERAL or read == real, (ref, keyword, read, real)
+                compared += read is not _NOT_LITERAL
+    assert compared >= 20, compared  # the source road is really taken
 
 
 @pytest.mark.parametrize(("command", "message", "expected"), [
