@@ -69,7 +69,6 @@ def guard_outputs(files: Iterable[PathLike | None] = (), *,
         Naming the output, what is wrong and what to do.
     """
     ins = [(Path(p), _real(p)) for p in inputs if p is not None and os.path.lexists(p)]
-    ids = {_identity(real): given for given, real in ins if _identity(real) is not None}
     made = [Path(p) for p in folders if p is not None]
     outs: list[tuple[Path, Path, str]] = []
     for folder in made:
@@ -84,7 +83,6 @@ def guard_outputs(files: Iterable[PathLike | None] = (), *,
     for path, real, kind in outs:
         for given, real_in in ins:
             _check_apart(path, real, kind, given, real_in)
-        _check_apart_by_identity(path, real, kind, ids)
         if kind == "file":
             _check_file(path, made)
         elif kind == "store":
@@ -110,25 +108,6 @@ def _identity(path: Path) -> tuple[int, int] | None:
     except OSError:
         return None
     return st.st_dev, st.st_ino
-
-
-def _check_apart_by_identity(path: Path, real: Path, kind: str,
-                             ids: dict[tuple[int, int], Path]) -> None:
-    """As :func:`_check_apart`, by file identity: catches what path strings cannot."""
-    if not ids:
-        return
-    own = _identity(real)
-    if own is not None and own in ids:
-        reason = f"is also an input of this run ({ids[own]})"
-    else:
-        above = next((ids[i] for i in map(_identity, real.parents) if i in ids), None)
-        if above is None or kind == "folder":
-            return
-        reason = f"lies inside {above}, an input of this run"
-    if kind == "folder":
-        raise OutputError(f"{path}: {reason}; choose another output folder")
-    raise OutputError(f"{path}: {reason}; writing it would destroy input data, so choose "
-                      "another output name")
 
 
 def check_own_files(folder: PathLike, names: Iterable[str]) -> None:
@@ -232,22 +211,36 @@ def _is_zarr_node(folder: Path) -> bool:
         or folder.name.isdigit()
 
 
+def _relation(real: Path, real_in: Path) -> str | None:
+    """How an output stands to an input: ``same``, ``inside`` it, ``contains`` it, or None.
+
+    By real path and by file identity, so a hard link, a bind mount or another letter case
+    on a case-insensitive file system is caught as well as a link or ``..``.
+    """
+    own, other = _identity(real), _identity(real_in)
+    if real == real_in or (own is not None and own == other):
+        return "same"
+    if _inside(real, real_in) or (other is not None and other in map(_identity, real.parents)):
+        return "inside"
+    if _inside(real_in, real) or (own is not None and own in map(_identity, real_in.parents)):
+        return "contains"
+    return None
+
+
 def _check_apart(path: Path, real: Path, kind: str, given: Path, real_in: Path) -> None:
-    if kind == "folder":
-        if real == real_in:
+    relation = _relation(real, real_in)
+    if kind == "folder":  # an input inside the output folder is fine; its files are checked
+        if relation == "same":
             raise OutputError(f"{path}: is also an input of this run ({given}); choose "
                               "another output folder")
-        return  # an input inside the output folder is fine; its files are checked alone
-    if real == real_in:
-        reason = f"is also an input of this run ({given})"
-    elif _inside(real, real_in):
-        reason = f"lies inside {given}, an input of this run"
-    elif _inside(real_in, real):
-        reason = f"would replace the folder holding {given}, an input of this run"
-    else:
         return
-    raise OutputError(f"{path}: {reason}; writing it would destroy input data, so choose "
-                      "another output name")
+    reason = {"same": f"is also an input of this run ({given})",
+              "inside": f"lies inside {given}, an input of this run",
+              "contains": f"would replace the folder holding {given}, an input of this run",
+              }.get(relation or "")
+    if reason is not None:
+        raise OutputError(f"{path}: {reason}; writing it would destroy input data, so "
+                          "choose another output name")
 
 
 def safe_file_name(text: str, *, fallback: str) -> str:
