@@ -94,6 +94,10 @@ class Condition:
         −log10((10^−A + s)/(1 + s)) (../shared/CHECKS.md).
     peak_au : (float, float)
         Range of each sample's peak true absorbance (AU), drawn uniformly.
+    declared : bool
+        Whether the standards sheet states what the lab knows: ``u_concentration`` =
+        ``prep_rel`` × nominal, and a ``stock`` with ``u_stock_rel`` = ``stock_rel``
+        (columns of the standards sheet, docs/uncertainty.md).
     replicates : int
         0: every well is a result of its own. n > 0: each sample is read in n wells of a
         plate, one component is absent (true 0), and the results are the replicate means
@@ -109,6 +113,7 @@ class Condition:
     stray: float = 0.0
     peak_au: tuple[float, float] = (0.1, 1.5)
     replicates: int = 0
+    declared: bool = True
 
     def noise_model(self) -> ms.NoiseModel:
         """What a careful user states: σ_A constant (σ_T ∝ T: k2 = σ·ln 10) and the stray light."""
@@ -181,8 +186,13 @@ def lab_library(cond: Condition, rng: np.random.Generator) -> xr.Dataset:
             nominal = round(1000.0 * level / eps[k].max(), 2)
             actual = nominal * stock * (1.0 + cond.prep_rel * rng.standard_normal())
             true_au.append(eps[k] * actual / 1000.0)
-            rows.append({"sample": f"{comp}_std{i + 1}", "component": comp,
-                         "concentration": nominal, "unit": CONCENTRATION_UNIT})
+            row = {"sample": f"{comp}_std{i + 1}", "component": comp,
+                   "concentration": nominal, "unit": CONCENTRATION_UNIT}
+            if cond.declared and cond.prep_rel > 0:
+                row["u_concentration"] = cond.prep_rel * nominal
+            if cond.declared and cond.stock_rel > 0:
+                row.update(stock=f"stock of {comp}", u_stock_rel=cond.stock_rel)
+            rows.append(row)
     sheet = pd.DataFrame(rows)
     standards = ms.make_spectra(measure(np.array(true_au), cond, rng), WAVELENGTHS_NM,
                                 sheet["sample"].tolist(), pathlength_cm=1.0)

@@ -28,6 +28,16 @@ import xarray as xr
 
 from mixsolve._version import __version__
 from mixsolve.errors import InputError, LinearityWarning, renamed
+from mixsolve.library_error import (
+    ERROR_KIND,
+    ERROR_PATTERN,
+    ERROR_SOURCE,
+    check_patterns,
+    component_patterns,
+    declared_patterns,
+    preparation_scale,
+    stock_weights,
+)
 from mixsolve.names import check_spellings, check_unique_names, normalise_name
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 from mixsolve.units import (
@@ -78,17 +88,28 @@ def _new_library(
     solvent: str,
     bandwidth_nm: float | None,
     provenance: dict[str, Any],
+    patterns: tuple[np.ndarray, list[str], list[str]] | None = None,
 ) -> xr.Dataset:
     unit = ABSORPTIVITY_UNITS[basis]
     dims = (COMPONENT, WAVELENGTH)
+    data: dict[str, Any] = {
+        "absorptivity": (dims, absorptivity, {"units": unit}),
+        "u_absorptivity": (dims, u_absorptivity, {"units": unit}),
+        "molar_mass_g_per_mol": ((COMPONENT,), _molar_masses(components, molar_mass),
+                                 {"units": "g/mol"}),
+    }
+    coords: dict[str, Any] = {COMPONENT: components,
+                              WAVELENGTH: ("wavelength", wavelengths, {"units": "nm"})}
+    if patterns is not None and patterns[0].shape[0]:  # none stated: no variable
+        values, sources, kinds = patterns
+        data[ERROR_PATTERN] = ((ERROR_SOURCE, *dims), values, {
+            "units": unit, "meaning": "library error δε = Σ_f pattern_f·z_f, z_f independent "
+            "with variance 1 (docs/uncertainty.md, 'Library')"})
+        coords[ERROR_SOURCE] = sources
+        coords[ERROR_KIND] = ((ERROR_SOURCE,), kinds)
     ds = xr.Dataset(
-        {
-            "absorptivity": (dims, absorptivity, {"units": unit}),
-            "u_absorptivity": (dims, u_absorptivity, {"units": unit}),
-            "molar_mass_g_per_mol": ((COMPONENT,), _molar_masses(components, molar_mass),
-                                     {"units": "g/mol"}),
-        },
-        coords={COMPONENT: components, WAVELENGTH: ("wavelength", wavelengths, {"units": "nm"})},
+        data,
+        coords=coords,
         attrs={
             "mixsolve_kind": LIBRARY_KIND,
             "format_version": FORMAT_VERSION,
@@ -112,6 +133,7 @@ def import_absorptivities(
     solvent: str = "",
     bandwidth_nm: float | None = None,
     source: str = "",
+    u_scale_rel: float | Mapping[str, float] | None = None,
 ) -> xr.Dataset:
     """Make a library from a table of known absorptivities.
 
@@ -133,11 +155,17 @@ def import_absorptivities(
         Spectral bandwidth (nm) of the instrument the values were measured with.
     source : str
         Where the table came from; recorded in the provenance.
+    u_scale_rel : float or mapping of component to float, optional
+        Relative standard uncertainty of each component's whole spectrum (e.g. 0.02 for a
+        published absorptivity known to 2 %): a fully correlated scale error, stored as a
+        ``declared_scale`` error pattern (:mod:`mixsolve.library_error`).
 
     Returns
     -------
     Dataset
         A library (see the module docstring), values converted to the canonical unit.
+        Stated ``u_absorptivity`` and ``u_scale_rel`` become its ``error_pattern``
+        (stated u(ε) taken as fully correlated within its component).
 
     Raises
     ------
@@ -163,16 +191,24 @@ def import_absorptivities(
             f"{eps[WAVELENGTH].values[idx]:g} nm is missing or not a number"
         )
     provenance = {"method": "imported table", "source": source, "unit_given": unit}
+    components = [str(c) for c in eps[COMPONENT].values]
+    u_values = np.asarray(u, dtype=float) * factor
+    if np.any(np.isinf(u_values)) or np.any(u_values < 0):
+        raise InputError("library: u_absorptivity holds "
+                         f"{u_values[np.isinf(u_values) | (u_values < 0)].flat[0]:g}; an "
+                         "uncertainty is a number ≥ 0 (NaN where not stated)")
+    patterns = declared_patterns(values, u_values, components, u_scale_rel)
     return _new_library(
         values,
-        np.asarray(u, dtype=float) * factor,
-        [str(c) for c in eps[COMPONENT].values],
+        u_values,
+        components,
         eps[WAVELENGTH].values,
         basis,
         molar_mass_g_per_mol,
         solvent,
         bandwidth_nm,
         provenance,
+        patterns,
     )
 
 
@@ -254,7 +290,9 @@ def _check_contents(library: xr.Dataset, name: str) -> xr.Dataset:
         raise InputError(f"{name}: absorptivity has dims ({', '.join(map(str, dims))}); a "
                          "library's are (component, wavelength), one value per pair")
     for var, array in library.data_vars.items():
-        extra = [str(d) for d in array.dims if d not in (COMPONENT, WAVELENGTH)]
+        allowed = (COMPONENT, WAVELENGTH, ERROR_SOURCE) if var == ERROR_PATTERN \
+            else (COMPONENT, WAVELENGTH)
+        extra = [str(d) for d in array.dims if d not in allowed]
         if extra:
             raise InputError(f"{name}: variable {var!r} has dimension {extra[0]!r}; a library "
                              "holds arrays over component and wavelength only")
@@ -274,8 +312,9 @@ def _check_contents(library: xr.Dataset, name: str) -> xr.Dataset:
     if not all(isinstance(c, str) for c in comps):
         library = library.assign_coords({COMPONENT: [str(c) for c in comps]})
     library = _check_units(library, name)
-    if any(v.dims == (WAVELENGTH, COMPONENT) for v in library.data_vars.values()):
-        library = library.transpose(COMPONENT, WAVELENGTH)
+    if any(v.dims[-2:] == (WAVELENGTH, COMPONENT) for v in library.data_vars.values()):
+        library = library.transpose(..., COMPONENT, WAVELENGTH)
+    check_patterns(library, name)
     eps = library["absorptivity"].values
     if not np.all(np.isfinite(eps)):
         k, j = np.argwhere(~np.isfinite(eps))[0]
@@ -423,7 +462,12 @@ def build_library(
         The standards sheet (what ``mixsolve library build --standards`` reads), one row
         per standard: ``sample``, ``component``, ``concentration``, ``unit``
         and optionally ``pathlength_cm`` (cm). A ``line`` column, if present, is used
-        to name the row in error messages. Every sample must be a pure standard of one
+        to name the row in error messages. Optional uncertainty columns:
+        ``u_concentration`` (standard uncertainty of that standard's own preparation,
+        same unit as ``concentration``, independent between standards), ``stock`` (a
+        label: standards that share it were made from one stock) and ``u_stock_rel``
+        (relative standard uncertainty of that stock's concentration: purity, weighing,
+        volume; see :func:`mixsolve.stock_uncertainty` where available). Every sample must be a pure standard of one
         component; a row with concentration 0 is a blank of that component's series.
     intercept : bool
         Fit A = ε·b·c + a₀ instead of A = ε·b·c, exposing a blank offset a₀(λ)
@@ -454,7 +498,12 @@ def build_library(
         ``n_standards``, ``n_levels`` (distinct non-zero concentrations),
         ``concentration_min``/``concentration_max`` (library concentration unit),
         ``peak_wavelength_nm``, and at that peak ``r_squared``, ``residual_sd``
-        (AU) and ``worst_relative_deviation`` (fraction).
+        (AU) and ``worst_relative_deviation`` (fraction); the library's error as
+        ``error_pattern`` (error_source, component, wavelength) with its ``error_kind``
+        (:mod:`mixsolve.library_error`), and per component the relative scale
+        uncertainty used (``u_preparation_rel``), shown by the standards' scatter
+        (``u_preparation_rel_scatter``) and declared (``u_preparation_rel_declared``,
+        NaN when not declared).
 
     Warns
     -----
@@ -468,7 +517,8 @@ def build_library(
     s² = Σ (A − εx)² / (n − 1). With ``intercept`` the ordinary straight-line fit is
     used, u(ε) = s/√Sxx with s² = RSS/(n − 2). R² is the centred coefficient
     1 − RSS/Σ(A − Ā)². The worst relative deviation is max |A − Â|/Â over standards
-    with c > 0.
+    with c > 0. The error patterns and why they are built so: :mod:`mixsolve.library_error`
+    and docs/uncertainty.md, "Library".
     """
     if spectra is None and isinstance(standards, xr.DataArray):  # the old keyword
         spectra = renamed("standards", "spectra", standards, None)  # type: ignore[assignment]
@@ -489,6 +539,10 @@ def build_library(
     u_eps = np.empty(shape)
     icpt = np.zeros(shape)
     u_icpt = np.zeros(shape)
+    scatter_parts: list[np.ndarray] = []
+    prep_parts: list[np.ndarray] = []
+    scale_u: list[tuple[float, float, float]] = []
+    stock_share: dict[str, np.ndarray] = {}
     figures: dict[str, list[float]] = {k: [] for k in (
         "n_standards", "n_levels", "concentration_min", "concentration_max",
         "peak_wavelength_nm", "r_squared", "residual_sd", "worst_relative_deviation")}
@@ -508,6 +562,16 @@ def build_library(
         fit = _line_fit(x, absorb, intercept)
         eps[k], u_eps[k], icpt[k], u_icpt[k] = fit["slope"], fit["u_slope"], fit["icpt"], \
             fit["u_icpt"]
+        declared = rows["u_relative"].to_numpy(dtype=float)
+        scatter, prep, s_a, s_b = component_patterns(
+            x, absorb - np.outer(x, fit["slope"]) - fit["icpt"], fit["slope"],
+            intercept=intercept, u_relative=declared if np.isfinite(declared).any() else None)
+        scatter_parts.append(scatter)
+        prep_parts.append(prep)
+        scale_u.append((preparation_scale(s_a, s_b, x.size - (2 if intercept else 1)), s_a,
+                        s_b))
+        for label, weight in stock_weights(x, rows["stock"].tolist(), intercept).items():
+            stock_share.setdefault(label, np.zeros(len(components)))[k] = weight
         peak = int(np.argmax(eps[k]))
         predicted = fit["slope"][peak] * x + fit["icpt"][peak]
         observed = absorb[:, peak]
@@ -534,8 +598,18 @@ def build_library(
         "criteria": {"min_r2": min_r2, "max_relative_deviation": max_relative_deviation,
                      "min_levels": min_levels},
     }
+    stock_u = table.groupby("stock")["u_stock_rel"].first().to_dict() if stock_share else {}
+    provenance["uncertainty"] = {
+        "preparation_declared": bool(np.isfinite(table["u_relative"]).any()),
+        "stocks": {label: float(stock_u[label]) for label in stock_share}}
+    patterns = _standards_patterns(components, eps, scatter_parts, prep_parts, stock_share,
+                                   stock_u, table)
     lib = _new_library(eps, u_eps, components, wl, basis, molar_mass_g_per_mol, solvent,
-                       bandwidth_nm, provenance)
+                       bandwidth_nm, provenance, patterns)
+    for name, values in zip(("u_preparation_rel", "u_preparation_rel_scatter",
+                             "u_preparation_rel_declared"), zip(*scale_u, strict=True),
+                            strict=True):
+        lib[name] = ((COMPONENT,), np.asarray(values, dtype=float), {"units": "1"})
     for name, values in figures.items():
         lib[name] = ((COMPONENT,), np.asarray(values))
     lib["concentration_min"].attrs["units"] = lib.attrs["concentration_unit"]
@@ -545,6 +619,36 @@ def build_library(
         lib["intercept"] = ((COMPONENT, WAVELENGTH), icpt, {"units": "AU"})
         lib["u_intercept"] = ((COMPONENT, WAVELENGTH), u_icpt, {"units": "AU"})
     return lib
+
+
+def _standards_patterns(components: list[str], eps: np.ndarray, scatter: list[np.ndarray],
+                        prep: list[np.ndarray], stock_share: dict[str, np.ndarray],
+                        stock_u: Mapping[str, float], table: pd.DataFrame
+                        ) -> tuple[np.ndarray, list[str], list[str]]:
+    """The error patterns of a library built from standards (:mod:`mixsolve.library_error`):
+    one ``standards_scatter`` pattern per standard, one ``preparation`` pattern per
+    component, one ``stock`` pattern per declared stock."""
+    n, m = eps.shape
+    patterns, sources, kinds = [], [], []
+    for k, comp in enumerate(components):
+        names = table.loc[table["component"] == comp, "sample"].tolist()
+        for i, row in enumerate(scatter[k]):
+            p = np.zeros((n, m))
+            p[k] = row
+            patterns.append(p)
+            sources.append(f"scatter of standard {names[i]}")
+            kinds.append("standards_scatter")
+    for k, comp in enumerate(components):
+        p = np.zeros((n, m))
+        p[k] = prep[k]
+        patterns.append(p)
+        sources.append(f"preparation of {comp}")
+        kinds.append("preparation")
+    for label, share in stock_share.items():
+        patterns.append(eps * (share * float(stock_u[label]))[:, None])
+        sources.append(f"stock {label}")
+        kinds.append("stock")
+    return np.stack(patterns), sources, kinds
 
 
 def _line_fit(x: np.ndarray, absorb: np.ndarray, intercept: bool) -> dict[str, np.ndarray]:
@@ -618,6 +722,7 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
         table["line"] = np.arange(len(table)) + 2
     if "pathlength_cm" not in table.columns:
         table["pathlength_cm"] = np.nan
+    table = _check_uncertainty_columns(table, name)
     table["sample"] = check_spellings(table["sample"].astype(str), f"{name}, samples")
     table["component"] = check_spellings(table["component"].astype(str),
                                          f"{name}, components")
@@ -661,6 +766,54 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
         raise InputError(
             f"standards: spectra {', '.join(map(repr, unused[:5]))} have no row in the standards "
             "sheet; add them or remove them from the spectra file")
+    return table
+
+
+def _check_uncertainty_columns(table: pd.DataFrame, name: str) -> pd.DataFrame:
+    """Check the optional ``u_concentration``, ``stock`` and ``u_stock_rel`` columns; add
+    ``u_relative`` (u_concentration/concentration, NaN when not declared), ``stock`` ("" when
+    none) and ``u_stock_rel`` (NaN when none)."""
+    for col in ("u_concentration", "u_stock_rel"):
+        if col not in table.columns:
+            table[col] = np.nan
+    if "stock" not in table.columns:
+        table["stock"] = ""
+    table["stock"] = ["" if pd.isna(v) else str(v).strip() for v in table["stock"]]
+    rel, stock_u = [], []
+    for row in table.itertuples(index=False):
+        where = f"{name}, line {row.line}"
+        u_c = np.nan
+        if not pd.isna(row.u_concentration):
+            u_c = check_number(row.u_concentration, f"{where}, u_concentration", low=0,
+                               hint="the standard uncertainty of this standard's "
+                               "concentration, in its unit; leave empty if not known")
+        conc = check_number(row.concentration, f"{where}, concentration", low=0)
+        rel.append(u_c / conc if conc > 0 and np.isfinite(u_c) else
+                   (0.0 if np.isfinite(u_c) else np.nan))
+        u_s = np.nan
+        if not pd.isna(row.u_stock_rel):
+            u_s = check_number(row.u_stock_rel, f"{where}, u_stock_rel", low=0, high=1,
+                               high_open=True, hint="a relative standard uncertainty, e.g. "
+                               "0.005 for 0.5 %")
+            if not row.stock:
+                raise InputError(f"{where}: u_stock_rel {u_s:g} is given without a stock; "
+                                 "name the stock the standard was made from in the stock "
+                                 "column")
+        stock_u.append(u_s)
+    table["u_relative"] = rel
+    table["u_stock_rel"] = stock_u
+    for label, group in table[table["stock"] != ""].groupby("stock"):
+        values = group["u_stock_rel"].dropna().unique()
+        if values.size == 0:
+            raise InputError(f"{name}, line {group['line'].iloc[0]}: stock {label!r} has no "
+                             "u_stock_rel; give its relative standard uncertainty (purity, "
+                             "weighing, volume; e.g. 0.005) on at least one of its rows")
+        if values.size > 1:
+            line = group.loc[group["u_stock_rel"] == values[1], "line"].iloc[0]
+            raise InputError(f"{name}, line {line}: stock {label!r} has u_stock_rel "
+                             f"{values[1]:g} here and {values[0]:g} on another row; one stock "
+                             "has one uncertainty")
+        table.loc[group.index, "u_stock_rel"] = float(values[0])
     return table
 
 

@@ -1,4 +1,5 @@
-"""Read a standards sheet: ``sample, component, concentration, unit`` [, ``pathlength_cm``]."""
+"""Read a standards sheet: ``sample, component, concentration, unit`` [, ``pathlength_cm``,
+``u_concentration``, ``stock``, ``u_stock_rel``]."""
 
 from __future__ import annotations
 
@@ -12,7 +13,9 @@ from mixsolve.io.tables import header_names, parse_number, read_table
 from mixsolve.names import check_spellings, normalise_name
 
 REQUIRED = ("sample", "component", "concentration", "unit")
-OPTIONAL = ("pathlength_cm", "molar_mass_g_per_mol")
+OPTIONAL = ("pathlength_cm", "molar_mass_g_per_mol", "u_concentration", "u_stock_rel")
+#: Optional text columns.
+OPTIONAL_TEXT = ("stock",)
 
 
 def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd.DataFrame:
@@ -22,7 +25,9 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
     -------
     DataFrame
         Columns ``sample``, ``component``, ``concentration`` (float), ``unit``,
-        ``pathlength_cm`` (float, NaN when not given) and ``line`` (file line number).
+        ``pathlength_cm`` (float, NaN when not given) and ``line`` (file line number);
+        when present, ``u_concentration`` and ``u_stock_rel`` (float, NaN when empty) and
+        ``stock`` (text, "" when empty).
 
     Raises
     ------
@@ -34,12 +39,13 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
     """
     table = read_table(path, sheet=sheet, keep_spaces=True)  # names as written
     names = header_names(table, REQUIRED, "a standards sheet",
-                         optional_note="optional: pathlength_cm")
+                         optional_note="optional: pathlength_cm, u_concentration, stock, "
+                         "u_stock_rel")
     records = []
     for i, row in enumerate(table.rows):
         cells = list(row) + [""] * (len(names) - len(row))
         rec: dict[str, object] = {"line": table.lines[i]}
-        for col in REQUIRED + OPTIONAL:
+        for col in REQUIRED + OPTIONAL + OPTIONAL_TEXT:
             if col not in names:
                 continue
             j = names.index(col)
@@ -48,6 +54,8 @@ def read_standards(path: str | os.PathLike[str], *, sheet: str | None = None) ->
                                         allow_missing=False)
             elif col in OPTIONAL:
                 rec[col] = parse_number(cells[j], table.decimal, table.where(i, j))
+            elif col in OPTIONAL_TEXT:
+                rec[col] = str(cells[j]).strip()
             else:
                 text = str(cells[j])  # as written: check_spellings compares spellings
                 if not normalise_name(text):

@@ -28,6 +28,7 @@ from threadpoolctl import ThreadpoolController
 from mixsolve.errors import InfiniteReadingError
 from mixsolve.flags import flag_texts
 from mixsolve.library import COMPONENT
+from mixsolve.library_error import library_variance
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.cls import fit_spectra
 from mixsolve.solve.design import Baseline
@@ -91,6 +92,9 @@ class BlockSettings:
     design_status: int  #: status bits that hold for every spectrum (ill conditioning)
     unit_factor: np.ndarray  #: (n,) result unit per library concentration unit
     shift_matrix: np.ndarray  #: (n, n) library-unit bias per nm per unit of each component
+    #: (F, p, n) how each library error pattern moves the coefficients per unit coefficient
+    #: (:func:`mixsolve.library_error.library_sensitivity`); F = 0: no library error stated
+    library_sensitivity: np.ndarray
     tolerance_nm: float  #: wavelength accuracy for the shift_sensitive flag
     #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.engine.choose_engine`), chosen for
     #: the whole job so that every block and dask chunk uses the same
@@ -256,7 +260,10 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
         settings.noise is not None)
     canonical = fit.coef[:, :n] / b[:, None]
     conc = canonical * settings.unit_factor
-    u_conc = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
+    u_noise = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
+    u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_sensitivity)[:, :n]
+                        ) / b[:, None] * settings.unit_factor
+    u_conc = np.sqrt(u_noise**2 + u_library**2)  # the combined standard uncertainty
     at_zero = (conc == 0) & (settings.method == "nnls")
     bias = (canonical @ settings.shift_matrix.T) * settings.unit_factor
     with np.errstate(invalid="ignore"):  # no dilution brings a peak ≤ 0 AU into range
@@ -266,6 +273,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
                        ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
                        known=texts)
     return {"coef": fit.coef, "concentration": conc, "std_uncertainty": u_conc,
+            "u_noise": u_noise, "u_library": u_library,
             "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,
             "dof": fit.dof, "status": status, **dict(zip(CHECK_NAMES, checks, strict=True)),
             "suggested_dilution": dilution, "flags": flags, **fit.extra}

@@ -30,9 +30,12 @@ BASELINE_TERM = "baseline_term"
 MadeBy = Literal["kernel", "shift kernel", "model", "unmix"]
 
 UNCERTAINTY_BASIS = (
-    "Type A from the fit only: s * sqrt(diag((D^T D)^-1)) / pathlength, s^2 = RSS/(n - p) of "
-    "each spectrum; library absorptivity, pathlength and volumetric uncertainties are not "
-    "included; NaN when n - p = 0"
+    "combined standard uncertainty sqrt(u_noise^2 + u_library^2): u_noise Type A from the "
+    "fit, s * sqrt(diag((D^T D)^-1)) / pathlength with s^2 = RSS/(n - p) of each spectrum "
+    "(NaN when n - p = 0); u_library the library's error with its correlation over "
+    "wavelengths (error_pattern), propagated as delta x = -G delta D x and shared by every "
+    "spectrum of the run; pathlength, dilution and volumetric uncertainties are not "
+    "included (uncertainty_budget adds them)"
 )
 
 
@@ -73,9 +76,13 @@ OUTPUTS: tuple[Output, ...] = (
            in_result=False),
     Output("concentration", (COMPONENT,), "concentration of each component, c = x/b "
            "(x its fitted coefficient, b the pathlength)", "{unit}"),
-    Output("std_uncertainty", (COMPONENT,), "standard uncertainty u(c), Type A from the "
-           "fit only (attribute basis)", "{unit}",
+    Output("std_uncertainty", (COMPONENT,), "combined standard uncertainty u(c) of every "
+           "source the inputs carry, √(u_noise² + u_library²) (attribute basis)", "{unit}",
            extra_attrs=(("basis", UNCERTAINTY_BASIS),)),
+    Output("u_noise", (COMPONENT,), "part of u(c) from the spectrum's own noise, Type A "
+           "from the fit residuals", "{unit}"),
+    Output("u_library", (COMPONENT,), "part of u(c) from the library's error, correlated "
+           "over wavelengths and shared by every spectrum of the run", "{unit}"),
     Output("at_zero", (COMPONENT,), "true where NNLS held the component at 0", dtype=bool),
     Output("shift_bias_per_nm", (COMPONENT,), "change of each concentration per +1 nm of "
            "wavelength error, at the fitted composition", "{unit} per nm"),

@@ -30,8 +30,8 @@ SOURCE = "source"
 SOURCES: dict[str, tuple[str, str, str, str]] = {
     "spectral_noise": ("A", "normal", "AU", "scatter of the readings (fit residual or "
                        "repeat scans)"),
-    "absorptivity": ("A", "normal", "library unit", "library absorptivities, u(ε) from the "
-                     "standards' regression"),
+    "absorptivity": ("A", "normal", "library unit", "library absorptivities: their error "
+                     "patterns, correlated over wavelengths (standards, preparation, stock)"),
     "pathlength": ("B", "normal", "cm", "cell pathlength"),
     "dilution": ("B", "rectangular", "1", "dilution factor from the volumetric ware"),
     "carryover": ("B", "rectangular", "1", "residual liquid left in a refilled cell"),
@@ -65,10 +65,10 @@ def _linear(model: MeasurementModel, s: SampleModel, conc: np.ndarray, u_fit: np
         propagate_independent(s.g, s.sigma_noise)[:n_comp] * scale
     contrib[:, src.index("spectral_noise")] = noise
     jac = design_sensitivity(s.g, s.m, s.residual, s.coef, n_comp, s.weights)[:n_comp]
-    u_eps = s.u_absorptivity
+    patterns = s.library_patterns  # (F, n, n_comp): δε = Σ_f P_f z_f
     contrib[:, src.index("absorptivity")] = (
-        np.sqrt(np.einsum("kij,ij->k", jac**2, u_eps**2)) * scale
-        if np.all(np.isfinite(u_eps)) else np.nan)
+        np.sqrt(np.sum(np.einsum("kij,fij->fk", jac, patterns) ** 2, axis=0)) * scale
+        if patterns.shape[0] else np.nan)
     contrib[:, src.index("cell_blank")] = (
         0.0 if model.cell.blank is None
         else propagate_independent(s.g, s.sigma_blank)[:n_comp] * scale)
@@ -143,11 +143,14 @@ def uncertainty_budget(
     -----
     Sources (docs/uncertainty.md has the reasoning and a worked example):
 
-    - spectral_noise: the fit's ``std_uncertainty`` (× F); with ``noise_sd``,
+    - spectral_noise: the fit's ``u_noise`` (× F; ``std_uncertainty`` of a result made
+      before it had the parts); with ``noise_sd``,
       √(Σᵢ G_kᵢ² σᵢ²)·f_k·F/b, G the fit's least-squares operator.
-    - absorptivity: √(Σᵢⱼ (∂x_k/∂ε_j(λᵢ))² u²(ε_j(λᵢ)))·f_k·F/b with the linearised
-      sensitivity of :func:`mixsolve.uncertainty.sensitivity.design_sensitivity`; errors
-      independent across wavelengths and components; NaN when any u(ε) is not stated.
+    - absorptivity: √(Σ_f (Σᵢⱼ ∂x_k/∂ε_j(λᵢ)·P_f[λᵢ, j])²)·f_k·F/b, P_f the library's
+      error patterns (:mod:`mixsolve.library_error`: errors correlated over wavelengths,
+      and across components through a shared stock) and the linearised sensitivity of
+      :func:`mixsolve.uncertainty.sensitivity.design_sensitivity`; NaN when the library
+      states no error at all.
     - pathlength: |y|·u(b)/b. cell_ratio: |y|·u(r)/r.
     - dilution: |y|·u(F)/F, u(F)/F = √Σ(u(Vᵢ)/Vᵢ)².
     - carryover: fraction f = v/(V_fill + v); the uncorrected change f·(c_prev − c)·F is
@@ -167,7 +170,8 @@ def uncertainty_budget(
     k_factor = inputs.coverage_factor
     model = measurement_model(result, library, inputs)
     conc = result["concentration"].transpose(SAMPLE, COMPONENT).values
-    u_fit = result["std_uncertainty"].transpose(SAMPLE, COMPONENT).values
+    noise_part = "u_noise" if "u_noise" in result else "std_uncertainty"
+    u_fit = result[noise_part].transpose(SAMPLE, COMPONENT).values
     n_s, n_c, n_src = conc.shape[0], conc.shape[1], len(SOURCES)
     contrib = np.full((n_s, n_c, n_src), np.nan)
     sens = np.full((n_s, n_c, n_src), np.nan)

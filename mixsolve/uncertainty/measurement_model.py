@@ -22,6 +22,7 @@ import xarray as xr
 
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
+from mixsolve.library_error import patterns_at
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.design import design_matrix
 from mixsolve.solve.shift_sensitivity import library_derivative
@@ -52,7 +53,9 @@ class SampleModel:
     m: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
     pathlength_cm: float = 1.0
     sigma_noise: np.ndarray = field(default_factory=lambda: np.empty(0))
-    u_absorptivity: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
+    #: (F, n, n_components) the library's error patterns at the used wavelengths that had
+    #: a reading (:mod:`mixsolve.library_error`); F = 0 when the library states none
+    library_patterns: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))
     derivative: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
     stray_bias: np.ndarray = field(default_factory=lambda: np.empty(0))
     sigma_blank: np.ndarray = field(default_factory=lambda: np.empty(0))
@@ -152,7 +155,7 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
     n_comp = len(comps)
     eps = lib_used["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
     design = design_matrix(eps, used_wl, result.attrs["baseline"])
-    u_eps = lib_used["u_absorptivity"].transpose(WAVELENGTH, COMPONENT).values
+    patterns = patterns_at(library, used_wl)
     grid = library[WAVELENGTH].values
     eps_grid = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
     deriv = library_derivative(eps_grid, grid, used_wl)
@@ -210,7 +213,8 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
         samples.append(SampleModel(
             name=name, ok=True, wavelengths_nm=used_wl[present], design=d, weights=w,
             observed=a_fit + r, residual=r, coef=coef, g=g, m=m, pathlength_cm=b,
-            sigma_noise=sigma, u_absorptivity=u_eps[present], derivative=deriv[present],
+            sigma_noise=sigma, library_patterns=patterns[:, present, :],
+            derivative=deriv[present],
             stray_bias=bias, sigma_blank=blank_u[present] / cell.ratio,
             carry_delta=carry_frac * (previous - conc[i]) / factor))
     return MeasurementModel(

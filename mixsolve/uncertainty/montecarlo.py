@@ -8,8 +8,10 @@ with the full (non-linear) model of :mod:`mixsolve.uncertainty.measurement_model
   Σⱼ xⱼ (εⱼ(λ + δ) − εⱼ(λ)), ε between grid points from a cubic spline (linear
   interpolation would put a kink at every grid point and, for δ of either sign, a spurious
   bias of order |δ|·Δε′);
-- absorptivities: ε + N(0, u(ε)) at every used wavelength, then the least-squares system
-  is solved again (weighted as the fit was);
+- absorptivities: whole library spectra ε + Σ_f P_f·z_f, z_f ~ N(0, 1), with the library's
+  error patterns P_f (:mod:`mixsolve.library_error`: correlated over wavelengths and, through
+  a shared stock, across components), then the least-squares system is solved again
+  (weighted as the fit was);
 - pathlength N(b, u_b); cell ratio N(r, u_r); each volume V + U(−a, a) (or triangular)
   + N(0, s_r), F = Π V_final / Π V_aliquot; carry-over U(−1, 1)·δ_carry.
 
@@ -89,9 +91,11 @@ def _sample_draws(model: MeasurementModel, s: SampleModel, draws: int,
             here = spline(s.wavelengths_nm)  # (n_comp, n)
             a += np.einsum("j,jbn->bn", s.coef[:n_comp], moved - here[:, None, :])
         design = s.design
-        if np.all(np.isfinite(s.u_absorptivity)) and np.any(s.u_absorptivity > 0):
+        patterns = s.library_patterns
+        if patterns.shape[0]:
             design = np.broadcast_to(s.design, (size, *s.design.shape)).copy()
-            design[:, :, :n_comp] += rng.standard_normal((size, n, n_comp)) * s.u_absorptivity
+            z = rng.standard_normal((size, patterns.shape[0]))
+            design[:, :, :n_comp] += np.einsum("bf,fnk->bnk", z, patterns)
         x = _solve(design, a, s.weights)[:, :n_comp]
         value = (x - nominal[:n_comp]) * scale
         factor = np.ones(size)
