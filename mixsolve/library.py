@@ -467,8 +467,9 @@ def build_library(
         same unit as ``concentration``, independent between standards), ``stock`` (a
         label: standards that share it were made from one stock) and ``u_stock_rel``
         (relative standard uncertainty of that stock's concentration: purity, weighing,
-        volume; see :func:`mixsolve.stock_uncertainty` where available). Every sample must be a pure standard of one
-        component; a row with concentration 0 is a blank of that component's series.
+        volume; :func:`mixsolve.prepared_standard` computes it). Every sample must be a
+        pure standard of one component; a row with concentration 0 is a blank of that
+        component's series.
     intercept : bool
         Fit A = ε·b·c + a₀ instead of A = ε·b·c, exposing a blank offset a₀(λ)
         (stored as ``intercept`` and ``u_intercept``).

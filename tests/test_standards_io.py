@@ -81,7 +81,8 @@ def test_missing_columns(tmp_path):
     with pytest.raises(FileFormatError,
                        match=r"^sheet\.csv, line 1: missing column\(s\) concentration, unit; a "
                              r"standards sheet has columns sample, component, concentration, "
-                             r"unit \(optional: pathlength_cm, u_concentration, stock, u_stock_rel\)$"):
+                             r"unit \(optional: pathlength_cm, u_concentration, stock, "
+                             r"u_stock_rel\)$"):
         read_standards(write_text(tmp_path / "sheet.csv", text))
 
 
