@@ -37,6 +37,7 @@ _LAZY: dict[str, str] = {
     "make_spectra": "mixsolve.spectra",
     "parse_dilution": "mixsolve.uncertainty.volumetric",
     "predict": "mixsolve.pls.predict",
+    "prepared_standard": "mixsolve.uncertainty.preparation",
     "read_cube": "mixsolve.io.cubes",
     "read_layout": "mixsolve.io.layout_io",
     "read_library": "mixsolve.io.library_store",
@@ -77,6 +78,7 @@ if TYPE_CHECKING:
     from mixsolve.uncertainty.budget import budget_table, uncertainty_budget
     from mixsolve.uncertainty.corrections import cell_blank, correct_cells, shift_wavelengths
     from mixsolve.uncertainty.inputs import BudgetInputs
+    from mixsolve.uncertainty.preparation import prepared_standard
     from mixsolve.uncertainty.volumetric import parse_dilution
     from mixsolve.wavelengths.check import check_wavelengths
     from mixsolve.wavelengths.choose import choose_wavelengths
@@ -121,6 +123,7 @@ __all__ = [
     "make_spectra",
     "parse_dilution",
     "predict",
+    "prepared_standard",
     "read_cube",
     "read_layout",
     "read_library",

@@ -1,8 +1,10 @@
 """Instrument checks against the reference values of ../shared/CHECKS.md.
 
-Spectra are synthetic, built from the reference values themselves, so the checks hold by
-construction: a correct implementation passes them whatever the exact recalled digits,
-and a wrong rule (units, ranges, sign of an offset) fails them.
+The published values are typed in this file (``DICHROMATE_TABLE``, ``HOLMIUM_NM``,
+``KCL_*``), never imported from mixsolve: a test whose expected value came from the code's
+own constants would pass with a wrong constant. Spectra are synthetic, built from these
+published values, so a correct implementation passes whatever the exact recalled digits,
+and a wrong constant, rule, range or sign in mixsolve fails.
 """
 
 from __future__ import annotations
@@ -16,14 +18,26 @@ from mixsolve.instrument.absorbance_scale import DICHROMATE_SPECIFIC_ABSORBANCE
 from mixsolve.instrument.stray_light import stray_fraction_bound
 from mixsolve.instrument.wavelength_scale import HOLMIUM_BANDS_NM, band_position
 
+#: Potassium dichromate, 57-63 mg/L in 0.005 M H2SO4: wavelength (nm) -> A(1 %, 1 cm)
+#: (nominal, low, high). Older pharmacopoeia table quoted in a calibration procedure
+#: (CHECKS.md, **seen**).
+DICHROMATE_TABLE: dict[float, tuple[float, float, float]] = {
+    235.0: (124.5, 122.9, 126.2), 257.0: (144.5, 142.8, 146.2),
+    313.0: (48.6, 47.0, 50.3), 350.0: (107.3, 105.6, 109.0)}
+#: Holmium oxide in perchloric acid, band positions (nm); tolerance ±1 nm in the UV, ±3 nm
+#: in the visible. European Pharmacopoeia 2.2.25 (CHECKS.md, **seen**).
+HOLMIUM_NM = (241.15, 287.15, 361.5, 536.3)
+#: Stray light: 12 g/L KCl in 1 cm, A at 200 nm above 2.0 (same table, CHECKS.md, **seen**).
+KCL_NM, KCL_LIMIT_AU = 200.0, 2.0
+
 UV_NM = np.arange(220.0, 400.1, 1.0)
 
 
 def dichromate_spectrum(conc_mg_l: float, scale: float = 1.0) -> np.ndarray:
     """Absorbance (1 cm) of a synthetic dichromate solution whose A(1 %, 1 cm) equals the
-    table's nominal values at 235, 257, 313 and 350 nm (a spline through them between)."""
-    lam = np.array(list(DICHROMATE_SPECIFIC_ABSORBANCE))
-    nominal = np.array([v[0] for v in DICHROMATE_SPECIFIC_ABSORBANCE.values()])
+    published nominal values at 235, 257, 313 and 350 nm (a spline through them between)."""
+    lam = np.array(list(DICHROMATE_TABLE))
+    nominal = np.array([v[0] for v in DICHROMATE_TABLE.values()])
     return scale * CubicSpline(lam, nominal)(UV_NM) * conc_mg_l / 1.0e4
 
 
@@ -32,10 +46,8 @@ def test_reference_values_are_those_of_checks_md() -> None:
 
     Source: an older pharmacopoeia table quoted in a calibration procedure (**seen**);
     holmium oxide positions from European Pharmacopoeia 2.2.25 (**seen**)."""
-    assert DICHROMATE_SPECIFIC_ABSORBANCE == {
-        235.0: (124.5, 122.9, 126.2), 257.0: (144.5, 142.8, 146.2),
-        313.0: (48.6, 47.0, 50.3), 350.0: (107.3, 105.6, 109.0)}
-    assert HOLMIUM_BANDS_NM == (241.15, 287.15, 361.5, 536.3)
+    assert DICHROMATE_SPECIFIC_ABSORBANCE == DICHROMATE_TABLE
+    assert HOLMIUM_BANDS_NM == HOLMIUM_NM
 
 
 def test_dichromate_at_the_table_values_passes() -> None:
@@ -54,6 +66,26 @@ def test_dichromate_three_percent_low_fails() -> None:
     check = ms.check_absorbance_scale(spectra, 60.0)
     assert not check.passed
     assert check.items["passed"].tolist() == [False, False, True, False]
+
+
+def edge_spectrum(edge: int, step: float) -> np.ndarray:
+    """60 mg/L dichromate whose A(1 %, 1 cm) is the published range edge (1 low, 2 high)
+    + ``step`` at each of the four wavelengths (a spline through those values)."""
+    lam = np.array(list(DICHROMATE_TABLE))
+    values = np.array([v[edge] for v in DICHROMATE_TABLE.values()]) + step
+    return CubicSpline(lam, values)(UV_NM) * 60.0 / 1.0e4
+
+
+@pytest.mark.parametrize(("edge", "step", "passed"), [
+    (1, +0.05, True), (1, -0.05, False), (2, -0.05, True), (2, +0.05, False)])
+def test_dichromate_range_edges(edge, step, passed) -> None:
+    """Readings 0.05 inside each published range edge pass at all four wavelengths, 0.05
+    outside fail at all four. Source: CHECKS.md dichromate ranges (**seen**)."""
+    spectra = ms.make_spectra(edge_spectrum(edge, step), UV_NM, ["edge"])
+    check = ms.check_absorbance_scale(spectra, 60.0)
+    assert check.items["passed"].tolist() == [passed] * 4
+    np.testing.assert_allclose(check.items["measured"],
+                               [v[edge] + step for v in DICHROMATE_TABLE.values()])
 
 
 def test_dichromate_user_tolerance_replaces_the_ranges() -> None:
@@ -82,11 +114,12 @@ def test_dichromate_linearity_over_levels() -> None:
 
 
 def holmium_spectrum(wl: np.ndarray, shift_nm: float, rng: np.random.Generator,
-                     noise_au: float = 0.0005) -> np.ndarray:
-    """Synthetic holmium-like spectrum: Gaussian bands (σ = 1.5 nm) at the CHECKS.md
-    positions + ``shift_nm``, on a sloping background, with seeded noise."""
-    bands = sum(0.6 * np.exp(-0.5 * ((wl - (b + shift_nm)) / 1.5) ** 2)
-                for b in HOLMIUM_BANDS_NM)
+                     noise_au: float = 0.0005,
+                     band_nm: tuple[float, ...] = HOLMIUM_NM) -> np.ndarray:
+    """Synthetic holmium-like spectrum: Gaussian bands (σ = 1.5 nm) at the published
+    positions ``bands`` (default Ph. Eur. 2.2.25, seen) + ``shift_nm``, on a sloping
+    background, with seeded noise."""
+    bands = sum(0.6 * np.exp(-0.5 * ((wl - (b + shift_nm)) / 1.5) ** 2) for b in band_nm)
     return 0.05 + 1e-4 * (wl - 240.0) + bands + rng.normal(0, noise_au, wl.size)
 
 
@@ -113,13 +146,36 @@ def test_holmium_quadratic_fit_and_coarse_grid(rng) -> None:
     assert check.summary["offset_nm"] == pytest.approx(-0.3, abs=0.1)
 
 
-def test_holmium_beyond_tolerance_fails(rng) -> None:
-    """A +1.5 nm shift fails the ±1 nm UV tolerance at the three UV bands and passes the
-    ±3 nm visible one at 536.3 nm. Source: Ph. Eur. 2.2.25 tolerances (**seen**)."""
+@pytest.mark.parametrize(("shift_nm", "passed"), [
+    (0.8, [True, True, True, True]),
+    (-0.8, [True, True, True, True]),
+    (1.5, [False, False, False, True]),
+    (-2.5, [False, False, False, True]),
+    (3.5, [False, False, False, False]),
+])
+def test_holmium_tolerances_uv_and_visible(rng, shift_nm, passed) -> None:
+    """Ph. Eur. 2.2.25 tolerances (**seen**): ±1 nm at the three UV bands, ±3 nm at
+    536.3 nm. Shifts of ±0.8 nm pass everywhere; 1.5 and 2.5 nm fail the UV bands only;
+    3.5 nm fails all four. Each shift also comes back as the offset where all bands are
+    found (bands at the published positions, typed in this file)."""
     wl = np.arange(230.0, 560.01, 0.5)
-    check = ms.check_wavelength_scale(ms.make_spectra(holmium_spectrum(wl, 1.5, rng), wl))
-    assert check.items["passed"].tolist() == [False, False, False, True]
-    assert check.summary["offset_nm"] == pytest.approx(1.5, abs=0.03)
+    check = ms.check_wavelength_scale(ms.make_spectra(holmium_spectrum(wl, shift_nm, rng), wl))
+    assert check.items["passed"].tolist() == passed
+    np.testing.assert_allclose(check.items["expected"], HOLMIUM_NM)
+    if check.summary["bands_found"] == 4:
+        assert check.summary["offset_nm"] == pytest.approx(shift_nm, abs=0.03)
+
+
+def test_holmium_uv_visible_boundary_is_400_nm(rng) -> None:
+    """The ±1 nm (UV) / ±3 nm (visible) split of Ph. Eur. 2.2.25 (**seen**) at 400 nm, the
+    usual edge of the ultraviolet (**common practice**): two synthetic bands at 395 and
+    405 nm read 2 nm high; the first fails, the second passes."""
+    wl = np.arange(380.0, 420.01, 0.5)
+    bands = (395.0, 405.0)
+    spectra = ms.make_spectra(holmium_spectrum(wl, 2.0, rng, band_nm=bands), wl)
+    check = ms.check_wavelength_scale(spectra, bands_nm=bands)
+    assert check.items["passed"].tolist() == [False, True]
+    np.testing.assert_allclose(check.items["high"] - check.items["expected"], [1.0, 3.0])
 
 
 def test_band_position_without_a_band() -> None:
@@ -129,17 +185,41 @@ def test_band_position_without_a_band() -> None:
     assert np.isnan(pos) and np.isnan(u) and "no band maximum" in note
 
 
+def kcl_spectrum(a_at_200: float) -> tuple[np.ndarray, np.ndarray]:
+    """Synthetic KCl cut-off: absorbance falling steeply with wavelength, 0.2 AU per nm,
+    equal to ``a_at_200`` at 200 nm (1 nm grid, 190-230 nm). The slope makes the reading
+    depend on where it is taken: 198 nm reads 0.4 AU more than 200 nm."""
+    wl = np.arange(190.0, 231.0, 1.0)
+    return wl, np.clip(a_at_200 - 0.2 * (wl - 200.0), 0.05, None)
+
+
 def test_kcl_stray_light_rule() -> None:
     """12 g/L KCl, 1 cm: A at 200 nm must exceed 2.0 (Ph. Eur. table in CHECKS.md,
-    **seen**). 2.3 passes, 1.8 fails; the bound s ≤ 10^−A/(1 − 10^−A) follows the noise
-    model's stray-light convention (CHECKS.md, A = −log10((T + s)/(1 + s)))."""
-    wl = np.arange(190.0, 231.0, 1.0)
-    good = ms.make_spectra(np.full(wl.size, 2.3), wl, ["kcl"])
-    bad = ms.make_spectra(np.full(wl.size, 1.8), wl, ["kcl"])
-    assert ms.check_stray_light(good).passed
-    assert not ms.check_stray_light(bad).passed
-    s = ms.check_stray_light(good).summary["stray_fraction_bound"]
+    **seen**). On a steep cut-off, 2.3 at 200 nm passes and 1.8 fails, and the reading
+    reported is the one at 200 nm; the limit sits between 1.98 (fails) and 2.02 (passes).
+    The bound s ≤ 10^−A/(1 − 10^−A) follows the noise model's stray-light convention
+    (CHECKS.md, A = −log10((T + s)/(1 + s))), written out here."""
+    readings = {}
+    for a200, passed in ((2.3, True), (1.8, False), (2.02, True), (1.98, False)):
+        wl, a = kcl_spectrum(a200)
+        check = ms.check_stray_light(ms.make_spectra(a, wl, ["kcl"]))
+        assert check.passed is passed, a200
+        assert float(check.items["measured"].iloc[0]) == pytest.approx(a200, abs=1e-12)
+        assert check.settings["wavelength_nm"] == KCL_NM
+        assert check.settings["limit_au"] == KCL_LIMIT_AU
+        readings[a200] = check
+    s = readings[2.3].summary["stray_fraction_bound"]
     assert s == pytest.approx(10**-2.3 / (1 - 10**-2.3))
     model = ms.NoiseModel(k0=1e-5, stray=s)
     assert float(model.apparent_absorbance(50.0)) == pytest.approx(2.3, abs=1e-9)
     assert stray_fraction_bound(0.0) == float("inf")
+
+
+def test_kcl_check_wavelength_is_a_parameter() -> None:
+    """Newer pharmacopoeia editions are recalled as reading KCl at 198 nm (CHECKS.md,
+    **from memory**, unverified): the check wavelength is a parameter, and the same
+    spectrum read there gives the reading 0.4 AU higher (synthetic slope 0.2 AU/nm)."""
+    wl, a = kcl_spectrum(1.8)
+    check = ms.check_stray_light(ms.make_spectra(a, wl, ["kcl"]), wavelength_nm=198.0)
+    assert check.passed
+    assert float(check.items["measured"].iloc[0]) == pytest.approx(2.2, abs=1e-12)

@@ -27,11 +27,19 @@ def textbook_relative_error(sigma_t: np.ndarray, t: np.ndarray) -> np.ndarray:
     return 0.434 * sigma_t / (t * np.abs(np.log10(t)))
 
 
+def sigma_t(t: np.ndarray, k0: float = 0.0, k1: float = 0.0, k2: float = 0.0) -> np.ndarray:
+    """σT written out here: σT² = k0² + k1²·T + k2²·T², the constant, ∝√T (shot) and ∝T
+    (flicker) forms of Rothman, Crouch & Ingle (seen) added in quadrature as independent
+    sources (common practice), not mixsolve's ``sigma_transmittance``."""
+    return np.sqrt(k0**2 + k1**2 * t + k2**2 * t**2)
+
+
 def grid_minimum(model: NoiseModel) -> float:
     """Absorbance of the smallest textbook σc/c on a 0.0001 AU grid (independent search)."""
     a = np.arange(0.01, 6.0, 1e-4)
     t = 10.0**-a
-    return float(a[np.argmin(textbook_relative_error(model.sigma_transmittance(t), t))])
+    sig = sigma_t(t, model.k0, model.k1, model.k2)
+    return float(a[np.argmin(textbook_relative_error(sig, t))])
 
 
 def test_constant_sigma_t_gives_minimum_at_0_434():
@@ -100,9 +108,10 @@ def test_relative_error_matches_the_textbook_formula(form, kwargs):
     a = np.linspace(0.02, 3.0, 150)
     t = 10.0**-a
     ours = model.relative_concentration_error(a)
-    np.testing.assert_allclose(ours, textbook_relative_error(model.sigma_transmittance(t), t),
+    np.testing.assert_allclose(model.sigma_transmittance(t), sigma_t(t, **kwargs), rtol=1e-12)
+    np.testing.assert_allclose(ours, textbook_relative_error(sigma_t(t, **kwargs), t),
                                rtol=1e-3)
-    exact = model.sigma_transmittance(t) / (np.log(10.0) * t * np.abs(np.log10(t)))
+    exact = sigma_t(t, **kwargs) / (np.log(10.0) * t * np.abs(np.log10(t)))
     np.testing.assert_allclose(ours, exact, rtol=1e-12)
 
 
