@@ -355,6 +355,32 @@ def parse_molar_masses(text: str, option: str = "--molar-mass") -> dict[str, flo
     return out
 
 
+def parse_scale_uncertainty(text: str, option: str = "--u-scale-rel"
+                            ) -> float | dict[str, float] | None:
+    """Parse ``"0.02"`` (every component) or ``"chl_a=0.02,chl_b=0.03"`` (relative)."""
+    if not text:
+        return None
+    if "=" not in text:
+        try:
+            value = number(text)
+        except ValueError:
+            raise InputError(f"{option}: {text!r} is not a number or NAME=VALUE,...") from None
+        _finite([value], option, text)
+        return value
+    out: dict[str, float] = {}
+    for item in text.split(","):
+        name, sep, value_text = item.partition("=")
+        try:
+            if not sep:
+                raise ValueError
+            out[name.strip()] = number(value_text)
+        except ValueError:
+            raise InputError(f"{option}: {item!r} is not NAME=VALUE (a relative standard "
+                             "uncertainty, e.g. chl_a=0.02)") from None
+        _finite([out[name.strip()]], option, item)
+    return out
+
+
 def parse_latent(text: str, option: str = "--latent") -> int | str:
     """Parse ``--latent``: ``auto`` or a whole number of latent variables."""
     if text.strip().lower() == "auto":
@@ -595,20 +621,27 @@ def library() -> None:
               help="Molar masses, NAME=G_PER_MOL,...")
 @click.option("--solvent", default="", help="Solvent or matrix the values hold for.")
 @click.option("--bandwidth-nm", type=float, help="Spectral bandwidth of the instrument (nm).")
+@click.option("--u-scale-rel", callback=callback(parse_scale_uncertainty),
+              help="Relative standard uncertainty of each whole spectrum, e.g. 0.02, or "
+              "NAME=VALUE,... (a published absorptivity's).")
 def library_import(table: str, unit: str, out: str, molar_mass: dict[str, float] | None,
-                   solvent: str, bandwidth_nm: float | None) -> None:
+                   solvent: str, bandwidth_nm: float | None,
+                   u_scale_rel: float | dict[str, float] | None) -> None:
     """Make a library from a table of known absorptivities (wavelength_nm, one column each)."""
     from mixsolve.workflows.library_files import import_library_file
 
     lib = import_library_file(table, unit, out, molar_mass=molar_mass,
-                              solvent=solvent, bandwidth_nm=bandwidth_nm)
+                              solvent=solvent, bandwidth_nm=bandwidth_nm,
+                              u_scale_rel=u_scale_rel)
     click.echo(f"wrote {out}: {lib.sizes['component']} components, "
                f"{lib.sizes['wavelength']} wavelengths, {lib.attrs['unit']}", err=True)
 
 
 @library.command("build")
 @click.argument("spectra")
-@click.option("--standards", required=True, help="Sheet: sample, component, concentration, unit.")
+@click.option("--standards", required=True,
+              help="Sheet: sample, component, concentration, unit [, pathlength_cm, "
+              "u_concentration, stock, u_stock_rel].")
 @click.option("--out", required=True, help="Library file to write (.nc).")
 @click.option("--intercept", is_flag=True, help="Fit an intercept to expose blank offsets.")
 @click.option("--pathlength", type=float, help="Pathlength in cm of rows that give none [1].")

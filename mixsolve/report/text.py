@@ -21,6 +21,7 @@ from mixsolve.flags import (
     STRUCTURED,
 )
 from mixsolve.library import COMPONENT
+from mixsolve.library_error import ERROR_KIND, ERROR_PATTERN
 from mixsolve.spectra import WAVELENGTH
 
 CAUTION = (
@@ -258,5 +259,37 @@ def format_library(library: xr.Dataset, name: str = "") -> str:
         lines.append(f"  (range in {library.attrs['concentration_unit']}; R², sd and worst "
                      "relative deviation at each component's peak)")
     lines.append("")
+    lines += _library_error_lines(library, comps, prov, notes)
     lines += _notes(notes)
     return "\n".join(lines) + "\n"
+
+
+def _library_error_lines(library: xr.Dataset, comps: list[str], prov: dict[str, Any],
+                         notes: list[str]) -> list[str]:
+    """What the library says of its own error (:mod:`mixsolve.library_error`), a few lines."""
+    if ERROR_PATTERN not in library:
+        notes.append("the library states no error of its own: results carry the noise term "
+                     "only (u_library = 0).")
+        return []
+    kinds = [str(k) for k in library[ERROR_KIND].values]
+    lines = ["Library error (correlated over wavelengths; docs/uncertainty.md, \"Library\"):"]
+    counts = {k: kinds.count(k) for k in dict.fromkeys(kinds)}
+    lines.append("  patterns      " + ", ".join(f"{n} {k.replace('_', ' ')}"
+                                               for k, n in counts.items()))
+    if "u_preparation_rel" in library:
+        cw = max(12, *(len(c) for c in comps)) + 2
+        lines.append(f"  {'component':<{cw}}{'scale u':>9}{'scatter':>9}{'declared':>10}")
+        for k, c in enumerate(comps):
+            used, seen, said = (float(library[v].values[k]) for v in (
+                "u_preparation_rel", "u_preparation_rel_scatter", "u_preparation_rel_declared"))
+            lines.append(f"  {c:<{cw}}{_pct(used, 9)}{_pct(seen, 9)}{_pct(said, 10)}")
+        lines.append("  (relative standard uncertainty of each whole spectrum: the declared "
+                     "preparation unless the scatter shows it too small)")
+    for label, u in prov.get("uncertainty", {}).get("stocks", {}).items():
+        lines.append(f"  stock {label}: {100 * float(u):.3g} % (shared by its standards)")
+    lines.append("")
+    return lines
+
+
+def _pct(value: float, width: int) -> str:
+    return f"{'n/a':>{width}}" if not np.isfinite(value) else f"{100 * value:>{width - 2}.3g} %"

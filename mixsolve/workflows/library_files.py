@@ -18,12 +18,14 @@ PathLike = str | os.PathLike[str]
 
 def import_library_file(table: PathLike, unit: str, out: PathLike, *,
                         molar_mass: Mapping[str, float] | None = None, solvent: str = "",
-                        bandwidth_nm: float | None = None) -> xr.Dataset:
+                        bandwidth_nm: float | None = None,
+                        u_scale_rel: float | Mapping[str, float] | None = None) -> xr.Dataset:
     """Read an absorptivity table, make a library and write it to ``out``."""
     check_writable(out, inputs=[table])
     eps = read_absorptivity_table(table)
     lib = import_absorptivities(eps, unit, molar_mass_g_per_mol=molar_mass, solvent=solvent,
-                                bandwidth_nm=bandwidth_nm, source=os.path.basename(table))
+                                bandwidth_nm=bandwidth_nm, source=os.path.basename(table),
+                                u_scale_rel=u_scale_rel)
     write_library(lib, out)  # one file, atomic
     return lib
 
