@@ -154,7 +154,16 @@ def test_plate_with_library_recovers_samples_and_lists_every_well(files):
     floor = np.mean(s1["std_uncertainty"] ** 2)
     assert row["std_uncertainty"] == pytest.approx(np.sqrt(max(row["sd"] ** 2, floor) / 6))
     assert row["cv"] == pytest.approx(row["sd"] / row["concentration"])
-    assert "at_zero:blue" in _samples(done).loc[("S3", "blue"), "flags"]
+    # S3 has no blue: its wells were held at zero, but the sample's mean is formed from the
+    # unconstrained (OLS) fit of the same wells and the bound applied to the mean alone.
+    assert wells.loc[[(f"D{c}", "blue") for c in range(1, 7)], "flags"].str.contains(
+        "at_zero:blue").any()
+    free = done.unconstrained["concentration"].sel(component="blue")
+    s3 = _samples(done).loc[("S3", "blue")]
+    mean = np.mean([float(free.sel(well=f"D{c}")) * (1 if c <= 3 else 2) for c in range(1, 7)])
+    assert s3["mean_unconstrained"] == pytest.approx(mean)
+    assert s3["concentration"] == max(mean, 0.0)
+    assert ("at_zero:blue" in s3["flags"]) == (mean < 0)
     assert "at_zero:blue" not in _samples(done).loc[("S3", "red"), "flags"]
 
 
@@ -371,8 +380,8 @@ def test_batch_of_a_folder_writes_every_output(tmp_path, files):
         assert len(wells) == 96 * 2 and set(wells["unit"]) == {"umol/L"}
         samples = pd.read_csv(sub / "samples.csv")
         assert list(samples.columns) == ["sample", "component", "concentration",
-                                         "std_uncertainty", "unit", "n_wells", "sd", "cv",
-                                         "wells", "flags"]
+                                         "std_uncertainty", "unit", "n_wells",
+                                         "mean_unconstrained", "sd", "cv", "wells", "flags"]
         book = pd.read_excel(sub / "results.xlsx", sheet_name=None)
         assert list(book) == ["wells", "samples", "settings"]
         assert len(book["wells"]) == len(wells) and len(book["samples"]) == len(samples)
@@ -394,7 +403,9 @@ def test_report_carries_cautions_settings_and_flagged_wells(tmp_path, files):
     text = (out / "plate1" / "report.html").read_text(encoding="utf-8")
     for caution in SAFETY_CAUTIONS:
         assert caution.replace("'", "&#x27;") in text
-    assert "Settings" in text and "u(mean) = sqrt(max(SD^2, mean(u_fit^2)) / n)" in text
+    assert "Settings" in text and "u_noise = sqrt(max(SD^2, mean(u_fit^2)) / n)" in text
+    assert "unconstrained (OLS) results, held at 0 afterwards" in text
+    assert "(shared by every well, not divided by sqrt(n))" in text
     assert "Flagged wells" in text and "not_in_layout" in text
 
 

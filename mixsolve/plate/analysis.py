@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import re
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -16,12 +17,14 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.errors import InputError
+from mixsolve.errors import InputError, MixsolveWarning
 from mixsolve.flags import (
+    AT_ZERO,
     COMPONENT_CODES,
     EMPTY_WELL,
     HIGH_CV,
     MARKER,
+    NEGATIVE,
     NO_PATHLENGTH,
     NO_RESULT,
     NOT_IN_LAYOUT,
@@ -53,7 +56,9 @@ FITTED_ROLES = ("blank", "sample", "standard")
 WELL_COLUMNS = ("well", "sample", "role", "component", "concentration", "std_uncertainty",
                 "unit", "dilution", "pathlength_cm", "rms_residual_au", "flags")
 SAMPLE_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
-                  "n_wells", "sd", "cv", "wells", "flags")
+                  "n_wells", "mean_unconstrained", "sd", "cv", "wells", "flags")
+#: Per-well uncertainty parts shared by every well of a run: not averaged down in a mean.
+SHARED_PARTS = ("u_library", "u_stray")
 
 
 @dataclass(frozen=True)
@@ -117,6 +122,9 @@ class PlateResult:
         The settings of the analysis (worded by
         :func:`mixsolve.report.plate_text.plate_settings`; cautions for the reader by
         :func:`mixsolve.report.plate_text.plate_notes`).
+    unconstrained : Dataset or None
+        The same fit by ordinary least squares (``method="ols"``), whose estimates the
+        sample means are formed from; ``result`` itself when that was an OLS fit.
     """
 
     name: str
@@ -132,6 +140,7 @@ class PlateResult:
     pathlength_cm: pd.Series
     plate_size: int
     options: PlateOptions
+    unconstrained: xr.Dataset | None = None
 
 
 def analyse_plate(
@@ -201,8 +210,13 @@ def analyse_plate(
     Notes
     -----
     Every well of the plate and of the layout gets rows in ``wells`` and every sample
-    rows in ``samples``, with a result or a flag saying why there is none. The sample
-    mean and its uncertainty follow :func:`mixsolve.plate.wells.replicate_statistics`.
+    rows in ``samples``, with a result or a flag saying why there is none. The wells are
+    fitted as asked; the sample means are formed from the same fit by ordinary least
+    squares (same wavelengths, baseline, pathlengths and options), and with ``nnls`` the
+    non-negativity is applied to the mean afterwards (a negative mean is reported as 0,
+    flagged ``at_zero:<component>``), so a mean of an absent component is not biased
+    upwards by the bound. The mean and its uncertainty follow
+    :func:`mixsolve.plate.wells.replicate_statistics` (docs/plates.md).
     """
     plate = check_spectra(plate, "plate")
     max_cv = check_number(max_cv, "max_cv", positive=True,
@@ -238,22 +252,29 @@ def analyse_plate(
     if window is None and wavelengths is None:
         window = _overlap(plate[WAVELENGTH].values, library[WAVELENGTH].values)
     fit_wells = [w for w in fitted if np.isfinite(b[w])]
-    result = None
+    result = unconstrained = None
     if fit_wells:
         b_da = xr.DataArray(b[fit_wells].to_numpy(), dims=(WELL,), coords={WELL: fit_wells})
-        result = unmix(corrected.sel({WELL: fit_wells}), library, window=window,
-                       wavelengths=wavelengths, method=method, baseline=baseline,
-                       pathlength_cm=b_da, unit=unit, **fit_options)
+        fit = dict(window=window, wavelengths=wavelengths, baseline=baseline,
+                   pathlength_cm=b_da, unit=unit, **fit_options)
+        result = unconstrained = unmix(corrected.sel({WELL: fit_wells}), library,
+                                       method=method, **fit)
+        if method != "ols":
+            with warnings.catch_warnings():  # the fit above has said it all
+                warnings.simplefilter("ignore", MixsolveWarning)
+                unconstrained = unmix(corrected.sel({WELL: fit_wells}), library,
+                                      method="ols", **fit)
     out_unit = result.attrs["unit"] if result is not None else (
         unit or library.attrs["concentration_unit"])
     components = [str(c) for c in library[COMPONENT].values]
     all_wells = [w for w in plate_wells(size) if w in set(read) | set(roles)]
     wells = _wells_table(plate, layout, all_wells, read, b, result, components, out_unit)
-    samples = _samples_table(layout, wells, components, out_unit, max_cv)
+    samples = _samples_table(layout, wells, unconstrained, components, out_unit, max_cv,
+                             non_negative=method != "ols")
     options = PlateOptions(mode, water_k_au_per_cm, max_cv, library_from_plate, method,
                            baseline, out_unit, tuple(blanks))
     return PlateResult(source, plate, corrected, layout, library, result, wells, samples,
-                       blank_mean, blank_sd, b, size, options)
+                       blank_mean, blank_sd, b, size, options, unconstrained)
 
 
 def _check_layout(layout: pd.DataFrame, layout_name: str, size: int, source: str) -> None:
@@ -352,16 +373,13 @@ def _wells_table(plate: xr.DataArray, layout: pd.DataFrame, all_wells: list[str]
     info = layout.set_index("well")[["role", "sample", "dilution"]].to_dict("index")
     markers = _marker_codes(plate)
     pos = {w: i for i, w in enumerate(all_wells)}
-    conc = np.full((len(all_wells), len(components)), np.nan)
-    u = conc.copy()
+    conc = _per_well(result, "concentration", all_wells, components)
+    u = _per_well(result, "std_uncertainty", all_wells, components)
     rms = np.full(len(all_wells), np.nan)
     fit_flags: dict[str, str] = {}
     if result is not None:
         fit = [str(w) for w in result[WELL].values]
-        rows_fit = [pos[w] for w in fit]
-        conc[rows_fit] = result["concentration"].transpose(WELL, COMPONENT).values
-        u[rows_fit] = result["std_uncertainty"].transpose(WELL, COMPONENT).values
-        rms[rows_fit] = result["rms_residual"].values
+        rms[[pos[w] for w in fit]] = result["rms_residual"].values
         fit_flags = dict(zip(fit, map(str, result["flags"].values), strict=True))
     read_set = set(read)
     lengths = b.to_dict()
@@ -392,13 +410,35 @@ def _wells_table(plate: xr.DataArray, layout: pd.DataFrame, all_wells: list[str]
     }, columns=list(WELL_COLUMNS))
 
 
-def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, components: list[str],
-                   unit: str, max_cv: float) -> pd.DataFrame:
+def _per_well(result: xr.Dataset | None, name: str, all_wells: list[str],
+              components: list[str]) -> np.ndarray:
+    """``result[name]`` as (well of ``all_wells``, component); NaN for wells not fitted."""
+    out = np.full((len(all_wells), len(components)), np.nan)
+    if result is not None:
+        pos = {w: i for i, w in enumerate(all_wells)}
+        out[[pos[str(w)] for w in result[WELL].values]] = \
+            result[name].transpose(WELL, COMPONENT).values
+    return out
+
+
+def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, free: xr.Dataset | None,
+                   components: list[str], unit: str, max_cv: float, *,
+                   non_negative: bool) -> pd.DataFrame:
+    """One row per sample and component from the unconstrained fit ``free`` of the wells.
+
+    Each well's values are multiplied by its dilution. The noise part of a well's
+    uncertainty is ``u_noise`` when the fit gives it, else ``std_uncertainty`` (then the
+    fit's noise term alone); the parts ``SHARED_PARTS`` it gives are shared by every well.
+    """
     n_c = len(components)
-    names = wells["well"].to_numpy()[::n_c]
+    names = list(wells["well"].to_numpy()[::n_c])
     pos = {w: i for i, w in enumerate(names)}
-    conc = wells["concentration"].to_numpy().reshape(-1, n_c)
-    u = wells["std_uncertainty"].to_numpy().reshape(-1, n_c)
+    dilution = wells["dilution"].to_numpy()[::n_c, None]
+    noise_name = "u_noise" if free is not None and "u_noise" in free else "std_uncertainty"
+    conc, u = (dilution * _per_well(free, name, names, components)
+               for name in ("concentration", noise_name))
+    shared = [dilution * _per_well(free, name, names, components)
+              for name in SHARED_PARTS if free is not None and name in free]
     flags = wells["flags"].to_numpy()[::n_c]
     sample_rows = layout[layout["role"] == "sample"]
     rows = []
@@ -406,11 +446,13 @@ def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, components: list[s
         members = group["well"].tolist()
         idx = [pos[w] for w in members]
         for k, comp in enumerate(components):
-            stats = replicate_statistics(conc[idx, k], u[idx, k])
+            stats = replicate_statistics(conc[idx, k], u[idx, k],
+                                         u_shared=[part[idx, k] for part in shared],
+                                         non_negative=non_negative)
             codes = _sample_flags(flags[idx], comp, stats, len(members), max_cv)
-            rows.append((sample, comp, stats["mean"], stats["std_uncertainty"], unit,
-                         stats["n"], stats["sd"], stats["cv"], ";".join(members),
-                         ";".join(codes)))
+            rows.append((sample, comp, stats["value"], stats["std_uncertainty"], unit,
+                         stats["n"], stats["mean"], stats["sd"], stats["cv"],
+                         ";".join(members), ";".join(codes)))
     return pd.DataFrame(rows, columns=list(SAMPLE_COLUMNS))
 
 
@@ -420,9 +462,13 @@ def _sample_flags(well_flags: Sequence[str], component: str, stats: dict[str, An
     for text in well_flags:
         for code in filter(None, str(text).split(";")):
             base, _, comp = code.partition(":")
-            if base in COMPONENT_CODES and comp != component:
-                continue
+            if base in COMPONENT_CODES and (comp != component or base in (AT_ZERO, NEGATIVE)):
+                continue  # the bound's codes describe the mean, not its wells
             codes[code] = None
+    if stats["at_zero"]:
+        codes[f"{AT_ZERO}:{component}"] = None
+    elif stats["mean"] < 0:
+        codes[f"{NEGATIVE}:{component}"] = None
     n = stats["n"]
     if n == 0:
         codes[NO_RESULT] = None

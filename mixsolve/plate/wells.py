@@ -177,48 +177,82 @@ def water_band_pathlength(
     return b.assign_attrs(units="cm")
 
 
-def replicate_statistics(values: np.ndarray, u_fit: np.ndarray) -> dict[str, float]:
+def replicate_statistics(values: np.ndarray, u_fit: np.ndarray, *,
+                         u_shared: Sequence[np.ndarray] = (),
+                         non_negative: bool = False) -> dict[str, float]:
     """Mean, SD, CV and the standard uncertainty of the mean of replicate wells.
 
     Parameters
     ----------
     values : array, shape (n,)
-        Concentrations from each well, already multiplied by the well's dilution; NaN
-        (no result) entries are left out.
+        Unconstrained concentrations from each well (ordinary least squares, so an absent
+        component scatters around 0 on both sides), already multiplied by the well's
+        dilution; NaN (no result) entries are left out.
     u_fit : array, shape (n,)
-        Their standard uncertainties from the fit (same unit, same dilution factor).
+        The noise part of their standard uncertainties (the fit's Type A term, ``u_noise``
+        of :func:`mixsolve.unmix`; same unit, same dilution factor).
+    u_shared : sequence of arrays, shape (n,) each
+        Parts of each well's uncertainty shared by every well of the run (``u_library``,
+        ``u_stray``; same unit and dilution factor). Empty: none.
+    non_negative : bool
+        Apply the non-negativity bound to the mean (the requested fit was NNLS).
 
     Returns
     -------
     dict
-        ``n`` (wells with a result), ``mean``, ``sd`` (n − 1 denominator; NaN for n < 2),
-        ``cv`` = sd / |mean| (NaN for n < 2 or a zero mean), ``u_fit_rms`` =
-        √mean(u_fit²), and ``std_uncertainty`` of the mean.
+        ``n`` (wells with a result), ``mean`` (of ``values``, unconstrained), ``value``
+        (the mean, or 0 where ``non_negative`` and the mean is negative), ``at_zero``
+        (whether that happened), ``sd`` (n − 1 denominator; NaN for n < 2), ``cv`` =
+        sd / |mean| (NaN for n < 2 or a zero mean), ``u_fit_rms`` = √mean(u_fit²),
+        ``u_noise`` and ``u_shared`` (the two parts below) and ``std_uncertainty`` of the
+        mean.
 
     Notes
     -----
-    u(mean) = √(max(SD², mean(u_fitᵢ²)) / n). Each well's result scatters by well-to-well
-    effects (pipetting, volume, pathlength) plus the measurement noise the fit
-    uncertainty describes, so SD² already contains the fit variance and adding the two
-    would count it twice; but SD from two or three wells is itself very uncertain and can
-    come out small by chance, so the fit variance is kept as a floor. With n = 1 this is
-    u_fit of that well. A NaN fit uncertainty (``no_dof``) counts as unknown: then only SD
-    is used, and with n = 1 the uncertainty is NaN. See docs/plates.md.
+    u(mean) = √(u_noise² + u_shared²) with
+
+        u_noise  = √(max(SD², mean(u_fitᵢ²)) / n)
+        u_shared = √(Σ_parts mean_i(u_part,i)²)
+
+    Noise part: each well's result scatters by well-to-well effects (pipetting, volume,
+    pathlength) plus the measurement noise the fit uncertainty describes, so SD² already
+    contains the fit variance and adding the two would count it twice; but SD from two or
+    three wells is itself very uncertain and can come out small by chance, so the fit
+    variance is kept as a floor: the larger of the "external" (scatter) and "internal"
+    (stated uncertainties) estimate, common practice when combining measurements (cf.
+    Birge's ratio, R. T. Birge, Phys. Rev. 40, 207 (1932); from memory). With n = 1 this
+    is u_fit of that well. A NaN fit uncertainty (``no_dof``) counts as unknown: then only
+    SD is used, and with n = 1 the noise part is NaN.
+
+    Shared part: a library or stray-light error moves every well of the run alike
+    (correlation +1), so the mean's share of it is the mean of the wells' shares, not
+    divided by √n (JCGM 100:2008, 5.2.2 with r = 1: u = Σ cᵢuᵢ, cᵢ = 1/n). A NaN there
+    makes the uncertainty NaN.
+
+    Bound: the mean of unconstrained estimates is unbiased; averaging values already held
+    at zero is not (an absent component's NNLS values are ≥ 0, so their mean is biased
+    upwards by about E[max(0, Z)] = 1/√(2π) ≈ 0.4 u_well whatever n). The bound is
+    applied once, to the mean; a mean set to 0 keeps the uncertainty of the unconstrained
+    mean. See docs/plates.md.
     """
     values = np.asarray(values, dtype=float)
     u_fit = np.asarray(u_fit, dtype=float)
     keep = np.isfinite(values)
     x, u = values[keep], u_fit[keep]
+    shared = [np.asarray(part, dtype=float)[keep] for part in u_shared]
     n = int(x.size)
     nan = float("nan")
     if n == 0:
-        return {"n": 0, "mean": nan, "sd": nan, "cv": nan, "u_fit_rms": nan,
-                "std_uncertainty": nan}
+        return {"n": 0, "mean": nan, "value": nan, "at_zero": False, "sd": nan, "cv": nan,
+                "u_fit_rms": nan, "u_noise": nan, "u_shared": nan, "std_uncertainty": nan}
     mean = float(x.mean())
     sd = float(x.std(ddof=1)) if n >= 2 else nan
     cv = sd / abs(mean) if n >= 2 and mean != 0 else nan
     u_rms = float(np.sqrt(np.mean(u**2))) if np.all(np.isfinite(u)) else nan
     variances = [v for v in (sd**2, u_rms**2) if np.isfinite(v)]
-    u_mean = float(np.sqrt(max(variances) / n)) if variances else nan
-    return {"n": n, "mean": mean, "sd": sd, "cv": cv, "u_fit_rms": u_rms,
-            "std_uncertainty": u_mean}
+    u_noise = float(np.sqrt(max(variances) / n)) if variances else nan
+    u_common = float(np.sqrt(sum(np.mean(part) ** 2 for part in shared)))
+    at_zero = non_negative and mean < 0
+    return {"n": n, "mean": mean, "value": 0.0 if at_zero else mean, "at_zero": at_zero,
+            "sd": sd, "cv": cv, "u_fit_rms": u_rms, "u_noise": u_noise,
+            "u_shared": u_common, "std_uncertainty": float(np.hypot(u_noise, u_common))}

@@ -22,8 +22,11 @@ from mixsolve.spectra import WAVELENGTH
 #: How the uncertainty of a sample's mean is found
 #: (:func:`mixsolve.plate.wells.replicate_statistics`).
 SAMPLE_MEAN_RULE = (
-    "u(mean) = sqrt(max(SD^2, mean(u_fit^2)) / n): replicate scatter, with the wells' mean "
-    "fit variance as a floor; n wells with a result, results multiplied by their dilution"
+    "mean of the wells' unconstrained (OLS) results, held at 0 afterwards with NNLS; "
+    "u(mean) = sqrt(u_noise^2 + u_shared^2), u_noise = sqrt(max(SD^2, mean(u_fit^2)) / n) "
+    "(replicate scatter, with the wells' mean fit variance as a floor), u_shared = the "
+    "wells' mean library and stray-light terms (shared by every well, not divided by "
+    "sqrt(n)); n wells with a result, results multiplied by their dilution"
 )
 
 
