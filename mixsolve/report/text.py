@@ -250,8 +250,6 @@ def format_library(library: xr.Dataset, name: str = "") -> str:
             if np.isfinite(worst) and worst > crit.get("max_relative_deviation", 0.05):
                 notes.append(f"{c}: a standard lies {100 * worst:.1f} % off the line.")
         lines.append(row)
-    if not np.isfinite(u).any():
-        notes.append("absorptivity uncertainties were not stated (imported table).")
     if not np.isfinite(bw):
         notes.append("spectral bandwidth not stated: absorptivities of narrow bands depend on "
                      "it, so measure with the bandwidth the library was made with.")
@@ -268,8 +266,8 @@ def _library_error_lines(library: xr.Dataset, comps: list[str], prov: dict[str, 
                          notes: list[str]) -> list[str]:
     """What the library says of its own error (:mod:`mixsolve.library_error`), a few lines."""
     if ERROR_PATTERN not in library:
-        notes.append("the library states no error of its own: results carry the noise term "
-                     "only (u_library = 0).")
+        notes.insert(0, "the library states no error of its own (no u(ε), no scale "
+                     "uncertainty): results carry the noise term only (u_library = 0).")
         return []
     kinds = [str(k) for k in library[ERROR_KIND].values]
     lines = ["Library error (correlated over wavelengths; docs/uncertainty.md, \"Library\"):"]
@@ -283,10 +281,10 @@ def _library_error_lines(library: xr.Dataset, comps: list[str], prov: dict[str, 
             used, seen, said = (float(library[v].values[k]) for v in (
                 "u_preparation_rel", "u_preparation_rel_scatter", "u_preparation_rel_declared"))
             lines.append(f"  {c:<{cw}}{_pct(used, 9)}{_pct(seen, 9)}{_pct(said, 10)}")
-        lines.append("  (relative standard uncertainty of each whole spectrum: the declared "
-                     "preparation unless the scatter shows it too small)")
+        lines.append("  (relative standard uncertainty of each whole spectrum: the declared")
+        lines.append("  preparation, unless the standards' scatter shows it too small)")
     for label, u in prov.get("uncertainty", {}).get("stocks", {}).items():
-        lines.append(f"  stock {label}: {100 * float(u):.3g} % (shared by its standards)")
+        lines.append(f"  stock {label!r}: {100 * float(u):.3g} % (shared by its standards)")
     lines.append("")
     return lines
 
