@@ -36,6 +36,11 @@ MODEL_ARRAYS: dict[str, tuple[str, ...]] = {
     "block_of_component": ("component",), "rmsecv": ("component",),
     "reference_min": ("component",), "reference_max": ("component",),
 }
+#: Arrays checked when present (models written before them lack them and still load).
+OPTIONAL_ARRAYS: dict[str, tuple[str, ...]] = {
+    "cv_t2": ("sample", "block"),
+    "t2_false_alarm_cv": ("block", "confidence"), "q_false_alarm_cv": ("block", "confidence"),
+}
 
 
 def write_model(model: xr.Dataset, path: str | os.PathLike[str]) -> Path:
@@ -70,7 +75,8 @@ def _check_contents(model: xr.Dataset, name: str) -> xr.Dataset:
         hint = " (it holds a library's 'absorptivity')" if "absorptivity" in model else ""
         raise InputError(f"{name}: not a complete PLS model{hint}: no variable "
                          f"{', '.join(map(repr, missing[:3]))}{' ...' if len(missing) > 3 else ''}")
-    for var, dims in MODEL_ARRAYS.items():
+    present = {v: d for v, d in OPTIONAL_ARRAYS.items() if v in model.data_vars}
+    for var, dims in {**MODEL_ARRAYS, **present}.items():
         found = model[var].dims
         if sorted(found) != sorted(dims):
             raise InputError(f"{name}: variable {var!r} has dims ({', '.join(found)}), not "
@@ -106,6 +112,11 @@ def _check_contents(model: xr.Dataset, name: str) -> xr.Dataset:
             if not np.all(np.isfinite(part)):
                 raise InputError(f"{name}: {var} of block {b} holds a non-finite value within "
                                  f"its {k} latent variable(s)")
+    for var in ("t2_false_alarm_cv", "q_false_alarm_cv"):
+        rate = model[var].values if var in present else np.array([])
+        if np.any(~np.isnan(rate) & ((rate < 0) | (rate > 1))):
+            raise InputError(f"{name}: variable {var!r} must hold fractions from 0 to 1 "
+                             "(or NaN)")
     if np.any(model["x_scale"].values <= 0) or np.any(model["score_variance"].values <= 0):
         raise InputError(f"{name}: x_scale and score_variance must be positive")
     _check_attributes(model, name)

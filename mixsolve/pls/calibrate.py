@@ -26,12 +26,12 @@ from mixsolve.pls.cross_validation import (
     Split,
     check_counts,
     cross_validate,
-    cv_x_residuals,
+    cv_block_statistics,
     latent_bound,
     make_folds,
     rms_error,
 )
-from mixsolve.pls.limits import CONFIDENCE, q_limit, t2_limit
+from mixsolve.pls.limits import CONFIDENCE, cv_false_alarm, cv_limit, q_limit
 from mixsolve.pls.model import FORMAT_VERSION, MODEL_KIND, UNCERTAINTY_BASIS
 from mixsolve.pls.preprocessing import (
     SCALES,
@@ -120,10 +120,12 @@ def calibrate(
         ``x_loadings`` P (block, wavelength, latent),
         ``y_loadings`` (block, component, latent), ``score_variance`` (block, latent),
         ``n_latent``, ``t2_limit`` and ``q_limit`` (block, confidence), ``q_theta``;
+        ``t2_false_alarm_cv`` and ``q_false_alarm_cv`` (block, confidence: the fraction of
+        mixtures above the limit computed without their fold);
         ``block_of_component``; calibration figures ``rmsec``, ``rmsecv``,
         ``reference_min``/``reference_max`` (component); ``reference``, ``fitted``,
         ``cv_predicted`` (sample, component), ``fold``, ``calibration_t2``/``_q`` (of the
-        final fit) and ``cv_q`` (cross-validated) (sample, block); the CV curves
+        final fit) and ``cv_t2``, ``cv_q`` (cross-validated) (sample, block); the CV curves
         ``cv_rmsecv``, ``cv_criterion``, ``cv_standard_error`` (cv_mode, component,
         cv_latent) and ``cv_choice`` (cv_mode, component). ``attrs``
         record ``mixsolve_kind``, the mode, preprocessing, CV settings, unit and pathlength.
@@ -145,10 +147,12 @@ def calibrate(
     latent variables follows the one-standard-error rule (Hastie, Tibshirani & Friedman,
     Elements of Statistical Learning, §7.10): the CV error of a candidate is the mean over
     samples of (ŷ − y)²/var(y) (averaged over the block's components); its standard error
-    is the standard deviation of the per-fold means over √folds. Hotelling T² and Q limits:
-    :func:`mixsolve.pls.limits.t2_limit`, :func:`mixsolve.pls.limits.q_limit`;
-    the Q limit's eigenvalues are those of E_cvᵀE_cv/n, E_cv the cross-validated spectral
-    residuals of the mixtures at the chosen number of latent variables.
+    is the standard deviation of the per-fold means over √folds. Hotelling T² limit:
+    :func:`mixsolve.pls.limits.cv_limit` of the cross-validated T² (each mixture projected
+    on the block fitted without its fold, over that block's score variances); Q limit:
+    :func:`mixsolve.pls.limits.q_limit`, its eigenvalues those of E_cvᵀE_cv/n, E_cv the
+    cross-validated spectral residuals of the mixtures at the chosen number of latent
+    variables.
     """
     spectra = check_spectra(spectra)
     if set(spectra.dims) != {SAMPLE, WAVELENGTH}:
@@ -229,10 +233,13 @@ def _final_model(x: np.ndarray, y: np.ndarray, wl: np.ndarray, comps: list[str],
                  ) -> xr.Dataset:
     """Fit the chosen blocks on all mixtures; loadings, limits and calibration figures.
 
-    The Q limits come from the cross-validated residuals (:func:`cv_x_residuals`), not
-    from the residuals of the final fit: a fit partly absorbs the noise of its own
-    mixtures, so their residuals are smaller than those of new samples, and a limit
-    taken from them would flag ordinary new samples far more often than 5 % or 1 %.
+    The T² and Q limits come from the cross-validated T² and residuals
+    (:func:`cv_block_statistics`), not from the final fit: a fit partly absorbs the noise
+    of its own mixtures, so their residuals are smaller than those of new samples, and a
+    limit taken from them would flag ordinary new samples far more often than 5 % or 1 %;
+    and the normal-theory T² limit is wrong whenever the scores are not normal
+    (docs/calibration.md). Each limit's false-alarm rate is measured by recomputing it
+    without each fold in turn (:func:`mixsolve.pls.limits.cv_false_alarm`).
     """
     n, n_y = y.shape
     mx, sx = centre_scale(x, scale)
@@ -252,6 +259,8 @@ def _final_model(x: np.ndarray, y: np.ndarray, wl: np.ndarray, comps: list[str],
     q_lim = np.empty((nb, len(CONFIDENCE)))
     theta = np.empty((nb, 3))
     cal_t2, cal_q, cv_q = np.empty((n, nb)), np.empty((n, nb)), np.empty((n, nb))
+    cv_t2 = np.empty((n, nb))
+    t2_alarm, q_alarm = np.empty((nb, len(CONFIDENCE))), np.empty((nb, len(CONFIDENCE)))
     fitted = np.empty_like(y)
     block_of = np.empty(n_y, dtype=np.int64)
     methods = []
@@ -260,19 +269,20 @@ def _final_model(x: np.ndarray, y: np.ndarray, wl: np.ndarray, comps: list[str],
         scores = xs @ block["rotations"]
         var = scores.var(axis=0, ddof=1)
         _, t2, _, q = project(xs, block["rotations"], block["loadings"], var)
-        cv_resid = cv_x_residuals(x, y, fold, scale, cols, a)
+        cv_t2[:, b], cv_resid = cv_block_statistics(x, y, fold, scale, cols, a)
         lam = np.linalg.svd(cv_resid, compute_uv=False) ** 2 / n
         rot[b, :, :a], load[b, :, :a], svar[b, :a] = block["rotations"], block["loadings"], var
         weights[b, :, :a] = block["weights"]
         yload[b, :, :a] = 0.0
         yload[b, cols, :a] = block["y_loadings"]
         fitted[:, cols] = scores @ block["y_loadings"].T * sy[cols] + my[cols]
-        t2_lim[b] = [t2_limit(a, n, c) for c in CONFIDENCE]
+        t2_lim[b] = [cv_limit(cv_t2[:, b], c) for c in CONFIDENCE]
         limits = [q_limit(lam, c) for c in CONFIDENCE]
         q_lim[b] = [v for v, _ in limits]
         methods.append(limits[0][1])
         theta[b] = [np.sum(lam**i) for i in (1, 2, 3)]
         cal_t2[:, b], cal_q[:, b], cv_q[:, b] = t2, q, np.sum(cv_resid**2, axis=1)
+        t2_alarm[b], q_alarm[b] = _cv_false_alarms(cv_t2[:, b], cv_resid, fold)
         block_of[cols] = b
     cv_pred = np.stack([cv[mode]["pred"][choice[k] - 1, :, k] for k in range(n_y)], axis=1)
     blocks = ["all"] if mode == "pls2" else comps
@@ -286,7 +296,11 @@ def _final_model(x: np.ndarray, y: np.ndarray, wl: np.ndarray, comps: list[str],
             "y_loadings": (("block", COMPONENT, "latent"), yload),
             "score_variance": (("block", "latent"), svar),
             "n_latent": (("block",), np.asarray(a_blocks, dtype=np.int64)),
-            "t2_limit": (("block", "confidence"), t2_lim),
+            "t2_limit": (("block", "confidence"), t2_lim,
+                         {"method": "cross-validated: scaled F from the mean and variance "
+                                    "of cv_t2 (mixsolve.pls.limits.cv_limit)"}),
+            "t2_false_alarm_cv": (("block", "confidence"), t2_alarm, {"units": "1"}),
+            "q_false_alarm_cv": (("block", "confidence"), q_alarm, {"units": "1"}),
             "q_limit": (("block", "confidence"), q_lim,
                         {"method": json.dumps(dict(zip(blocks, methods, strict=True))),
                          "residuals": "cross-validated"}),
@@ -299,11 +313,37 @@ def _final_model(x: np.ndarray, y: np.ndarray, wl: np.ndarray, comps: list[str],
             "calibration_t2": ((SAMPLE, "block"), cal_t2),
             "calibration_q": ((SAMPLE, "block"), cal_q),
             "cv_q": ((SAMPLE, "block"), cv_q),
+            "cv_t2": ((SAMPLE, "block"), cv_t2),
         },
         coords={WAVELENGTH: (WAVELENGTH, wl, {"units": "nm"}), COMPONENT: comps,
                 "block": blocks, "latent": np.arange(1, a_pad + 1),
                 "confidence": list(CONFIDENCE), "theta": [1, 2, 3]},
     )
+
+
+def _cv_false_alarms(cv_t2: np.ndarray, cv_resid: np.ndarray, fold: np.ndarray
+                     ) -> tuple[list[float], list[float]]:
+    """False-alarm rates of the T² and Q limits of one block, measured in cross-validation.
+
+    For each fold, the limits are recomputed as the model computes them but from the other
+    folds' mixtures only (T²: :func:`cv_limit` of their ``cv_t2``; Q: :func:`q_limit` of
+    the eigenvalues of their cross-validated residuals, E_cvᵀE_cv/n_other); the rate at
+    each confidence is the fraction of mixtures above the limit of their own fold
+    (:func:`cv_false_alarm`).
+    """
+    folds = np.unique(fold)
+    t2_rates, q_rates = [], []
+    q_cv = np.sum(cv_resid**2, axis=1)
+    lam = []
+    for f in folds:
+        other = cv_resid[fold != f]
+        lam.append(np.linalg.svd(other, compute_uv=False) ** 2 / other.shape[0])
+    for c in CONFIDENCE:
+        t2_lims = [cv_limit(cv_t2[fold != f], c) for f in folds]
+        q_lims = [q_limit(ev, c)[0] for ev in lam]
+        t2_rates.append(cv_false_alarm(cv_t2, fold, np.asarray(t2_lims)))
+        q_rates.append(cv_false_alarm(q_cv, fold, np.asarray(q_lims)))
+    return t2_rates, q_rates
 
 
 def _add_cv_curves(model: xr.Dataset, cv: dict[str, dict[str, Any]], y: np.ndarray) -> None:

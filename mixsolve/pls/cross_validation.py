@@ -13,7 +13,7 @@ import numpy as np
 from sklearn.model_selection import KFold
 
 from mixsolve.errors import InputError
-from mixsolve.pls.blocks import block_groups, fit_block
+from mixsolve.pls.blocks import block_groups, fit_block, project
 from mixsolve.pls.preprocessing import centre_scale
 from mixsolve.spectra import check_number
 
@@ -178,12 +178,36 @@ def cv_x_residuals(x: np.ndarray, y: np.ndarray, fold: np.ndarray, scale: str,
         (preprocessed, scaled units): what the residual of a new sample looks like, and
         so the basis of the Q limit (:func:`mixsolve.pls.limits.q_limit`).
     """
+    return cv_block_statistics(x, y, fold, scale, cols, n_latent)[1]
+
+
+def cv_block_statistics(x: np.ndarray, y: np.ndarray, fold: np.ndarray, scale: str,
+                        cols: list[int], n_latent: int) -> tuple[np.ndarray, np.ndarray]:
+    """Hotelling T² and spectral residual of each mixture under the block fitted without it.
+
+    Parameters
+    ----------
+    x, y, fold, scale, cols, n_latent
+        As for :func:`cv_x_residuals`.
+
+    Returns
+    -------
+    t2 : array, shape (n_samples,)
+        T² = Σₐ tₐ²/s²ₐ of each left-out spectrum, t = x R of the block fitted on the other
+        folds and s²ₐ the variance (ddof 1) of that block's training scores: the T² a new
+        sample gets, and so the basis of the T² limit
+        (:func:`mixsolve.pls.limits.cv_limit`). Dimensionless.
+    residual : array, shape (n_samples, n_wavelengths)
+        As returned by :func:`cv_x_residuals`.
+    """
+    t2 = np.empty(x.shape[0])
     residual = np.empty_like(x)
     for split in _splits(x, y, fold, scale):
         block = fit_block(split.xs_train, split.ys_train[:, cols], n_latent)
-        xs = split.xs_test
-        residual[split.test] = xs - xs @ block["rotations"] @ block["loadings"].T
-    return residual
+        var = (split.xs_train @ block["rotations"]).var(axis=0, ddof=1)
+        _, t2[split.test], residual[split.test], _ = project(
+            split.xs_test, block["rotations"], block["loadings"], var)
+    return t2, residual
 
 
 class _Split(NamedTuple):

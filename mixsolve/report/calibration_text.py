@@ -61,7 +61,8 @@ def format_calibration(model: xr.Dataset) -> str:
     str
         Header lines, a table per component (latent variables, RMSEC, RMSECV and the
         reference range, in the model unit), the cross-validation curve (RMSECV against
-        latent variables, the chosen number marked ``*``), the T² and Q limits, the CLS
+        latent variables, the chosen number marked ``*``), the T² and Q limits and their
+        false-alarm rates measured in cross-validation (when the model holds them), the CLS
         comparison when the model holds one, then numbered notes.
     """
     comps = [str(c) for c in model[COMPONENT].values]
@@ -108,10 +109,35 @@ def format_calibration(model: xr.Dataset) -> str:
         label = "all components" if name == "all" else str(name)
         lines.append(f"  {label:<{cw}} T² 95 % {t2[0]:.4g}, 99 % {t2[1]:.4g};  "
                      f"Q 95 % {q[0]:.4g}, 99 % {q[1]:.4g}")
+    lines += _false_alarm_lines(model, cw)
     if "cls_rmsecv" in model:
         lines += ["", *_comparison(model, comps, cw)]
     lines += ["", *_notes(_calibration_notes(model, comps, cvs)), CAUTION]
     return "\n".join(lines) + "\n"
+
+
+def _false_alarm_lines(model: xr.Dataset, cw: int) -> list[str]:
+    """The false-alarm rates of the limits measured in cross-validation (none in older models).
+
+    Each rate is the share of calibration mixtures above the limit recomputed without their
+    fold (:func:`mixsolve.pls.limits.cv_false_alarm`), shown as a percentage and a count.
+    """
+    if "t2_false_alarm_cv" not in model or "q_false_alarm_cv" not in model:
+        return []
+    n = model.sizes[SAMPLE]
+
+    def rate(value: float) -> str:
+        return "n/a" if not np.isfinite(value) else f"{100 * value:.2g} % ({round(value * n)}/{n})"
+
+    lines = ["", "False alarms measured in cross-validation (mixtures above the limit "
+                 "computed without their fold; nominal 5 % and 1 %)"]
+    for b, name in enumerate(model["block"].values):
+        t2 = model["t2_false_alarm_cv"].values[b]
+        q = model["q_false_alarm_cv"].values[b]
+        label = "all components" if name == "all" else str(name)
+        lines.append(f"  {label:<{cw}} T² 95 % {rate(t2[0])}, 99 % {rate(t2[1])};  "
+                     f"Q 95 % {rate(q[0])}, 99 % {rate(q[1])}")
+    return lines
 
 
 def _comparison(model: xr.Dataset, comps: list[str], cw: int) -> list[str]:
