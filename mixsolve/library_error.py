@@ -18,8 +18,8 @@ Each pattern has a kind (coordinate ``error_kind``):
 ``standards_scatter``
     One per standard, from the standards' residual spectra (what the line fit leaves):
     the heteroskedasticity-consistent ("sandwich") estimate of the slope's covariance
-    (White 1980; HC1 scaling n/(n − q)), with the part along the component's own spectrum
-    taken out (it is the ``preparation`` pattern's).
+    (White 1980; the HC2 form of MacKinnon & White 1985), with the part along the
+    component's own spectrum taken out when the declared preparation stands for it.
 ``preparation``
     One per component: a fully correlated scale error ε_k·s_k. s_k comes from the
     scale error the standards' residuals show (Type A, the part of the sandwich estimate
@@ -44,7 +44,8 @@ Each pattern has a kind (coordinate ``error_kind``):
 References: JCGM 100:2008 (GUM) §5.2; JCGM 101:2008 and 102:2011 (Monte Carlo, vector
 outputs); Eurachem/CITAC guide CG 4, "Quantifying Uncertainty in Analytical Measurement",
 3rd ed. (2012), on calibration standards and shared stock (from memory); White, H.
-Econometrica 48 (1980) 817 (sandwich estimator).
+Econometrica 48 (1980) 817 (sandwich estimator); MacKinnon, J. G. & White, H.
+J. Econometrics 29 (1985) 305 (HC2).
 """
 
 from __future__ import annotations
@@ -108,21 +109,29 @@ def component_patterns(
     Returns
     -------
     scatter : ndarray, shape (n, m)
-        The ``standards_scatter`` patterns (library unit), the scale part removed.
+        The ``standards_scatter`` patterns (library unit); the scale part removed when the
+        declared preparation is used instead.
     preparation : ndarray, shape (m,)
-        The ``preparation`` pattern ε̂·s.
+        The ``preparation`` pattern: ε̂·s_B when the declared preparation is used, else 0
+        (the scale part stays in the scatter patterns).
     s_type_a, s_type_b : float
         The relative scale uncertainty shown by the residuals and the declared one
         (NaN when nothing was declared); s is :func:`preparation_scale` of them.
 
     Notes
     -----
-    The sandwich estimate of cov(ε̂) is Σ_i (n/(n − q))·a_i² r_i r_iᵀ with a_i the slope
-    weights (:func:`slope_weights`); its patterns are √(n/(n − q))·a_i·r_i. Each is split
-    into its projection on ε̂ (coefficient α_i) and the rest; the projections give the
-    Type A relative scale uncertainty s_A = √Σα_i² / 1. The declared preparation gives
-    s_B = √Σ (a_i x_i u_i)², since δε̂/ε̂ = Σ a_i x_i ρ_i for relative errors ρ_i of the
-    standards. With n ≤ q there is nothing to estimate from: no scatter patterns, s_A = 0.
+    The sandwich estimate of cov(ε̂) is Σ_i a_i² r_i r_iᵀ/(1 − h_i) with a_i the slope
+    weights (:func:`slope_weights`) and h_i the leverage of standard i (HC2, MacKinnon &
+    White, J. Econometrics 29 (1985) 305: unbiased when the errors have equal variance;
+    with five standards HC1's n/(n − q) leaves the top standard's leverage ~0.45
+    uncorrected); its patterns are a_i·r_i/√(1 − h_i), so that at each wavelength Σ_f P_f²
+    is the HC2 variance of that wavelength's slope. Each pattern's projection on ε̂
+    (coefficient α_i) is its scale part: the Type A relative scale uncertainty is
+    s_A = √Σα_i². The declared preparation gives s_B = √Σ (a_i x_i u_i)², since
+    δε̂/ε̂ = Σ a_i x_i ρ_i for relative errors ρ_i of the standards. When s_B is kept
+    (:func:`preparation_scale`), the scale parts are taken out of the scatter patterns and
+    one pattern ε̂·s_B stands for them; otherwise the sandwich patterns stay whole. With
+    n ≤ q there is nothing to estimate from: no scatter patterns, s_A = 0.
     """
     x = np.asarray(x, dtype=float)
     n, m = residuals.shape
@@ -133,15 +142,28 @@ def component_patterns(
         scatter = np.zeros((0, m))
         s_a = 0.0
     else:
-        raw = np.sqrt(n / (n - q)) * a[:, None] * residuals
-        alpha = raw @ slope / norm2
-        scatter = raw - alpha[:, None] * slope[None, :]
+        scatter = (a / np.sqrt(1.0 - leverage(x, intercept)))[:, None] * residuals
+        alpha = scatter @ slope / norm2
         s_a = float(np.sqrt(np.sum(alpha**2)))
     s_b = float("nan")
     if u_relative is not None and np.isfinite(u_relative).any():
         u = np.where(np.isfinite(u_relative), u_relative, 0.0)
         s_b = float(np.sqrt(np.sum((a * x * u) ** 2)))
-    return scatter, slope * preparation_scale(s_a, s_b, n - q), s_a, s_b
+    if not np.isfinite(s_b) or preparation_scale(s_a, s_b, n - q) == s_a:
+        return scatter, np.zeros(m), s_a, s_b
+    if scatter.shape[0]:
+        scatter = scatter - alpha[:, None] * slope[None, :]
+    return scatter, slope * s_b, s_a, s_b
+
+
+def leverage(x: np.ndarray, intercept: bool) -> np.ndarray:
+    """Leverage h_i of each standard in the line fit: x_i²/Σx² through the origin,
+    1/n + (x_i − x̄)²/Sxx with an intercept (the diagonal of the hat matrix)."""
+    x = np.asarray(x, dtype=float)
+    if intercept:
+        centred = x - x.mean()
+        return 1.0 / x.size + centred**2 / float(centred @ centred)
+    return x**2 / float(x @ x)
 
 
 def preparation_scale(s_a: float, s_b: float, dof: int, level: float = 0.95) -> float:
