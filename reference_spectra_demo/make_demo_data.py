@@ -30,6 +30,12 @@ BANDS = {
 MOLAR_MASS = {"amber": 352.4, "rose": 610.5, "teal": 792.9}
 #: Standard levels (mg/L) of each pigment's dilution series.
 LEVELS_MG_L = [2.0, 4.0, 8.0, 12.0, 16.0]
+#: How well the invented lab makes up its standards (relative standard uncertainties),
+#: declared in the standards sheet as the lab would: each standard's own dilution
+#: (u_concentration) and the stock every standard of a pigment is diluted from (u_stock_rel).
+#: The true concentrations are drawn with these errors; the sheet states the nominal ones.
+PREPARATION_REL = 0.01
+STOCK_REL = 0.005
 #: Batch extracts with their true content (mg/L), as the demo's known values.
 BATCHES_MG_L = {
     "batch_01": (6.0, 4.0, 3.0),
@@ -58,15 +64,21 @@ def main() -> None:
     """Write standards_spectra.csv, standards.csv, batches_spectra.csv, batches_truth.csv,
     then the plate files (:func:`write_plate_demo`)."""
     rng = np.random.default_rng(SEED)
+    # the preparation errors from a stream of their own, so the noise draws stay as they were
+    made_up = np.random.default_rng(np.random.SeedSequence(SEED).spawn(1)[0])
     eps = {name: absorptivity(name) for name in BANDS}
     std_cols, sheet = {}, []
     for name in BANDS:
+        stock = 1.0 + STOCK_REL * made_up.standard_normal()
         for i, level in enumerate(LEVELS_MG_L, start=1):
             sample = f"std_{name}_{i}"
-            std_cols[sample] = noisy(eps[name] * level / 1000.0, rng)
+            actual = level * stock * (1.0 + PREPARATION_REL * made_up.standard_normal())
+            std_cols[sample] = noisy(eps[name] * actual / 1000.0, rng)
             sheet.append({"sample": sample, "component": name, "concentration": level,
                           "unit": "mg/L", "pathlength_cm": 1.0,
-                          "molar_mass_g_per_mol": MOLAR_MASS[name]})
+                          "molar_mass_g_per_mol": MOLAR_MASS[name],
+                          "u_concentration": round(PREPARATION_REL * level, 6),
+                          "stock": f"{name} stock", "u_stock_rel": STOCK_REL})
     batch_cols, truth = {}, []
     for sample, levels in BATCHES_MG_L.items():
         clean = sum(eps[n] * c / 1000.0 for n, c in zip(BANDS, levels, strict=True))
