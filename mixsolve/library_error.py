@@ -325,23 +325,45 @@ def library_sensitivity(design: np.ndarray, patterns: np.ndarray) -> np.ndarray:
     return np.einsum("pm,fmn->fpn", g, patterns)
 
 
-def library_variance(coef: np.ndarray, sensitivity: np.ndarray) -> np.ndarray:
+def library_quadratic(sensitivity: np.ndarray, n_out: int | None = None) -> np.ndarray:
+    """The library's covariance as one quadratic form per output coefficient.
+
+    Parameters
+    ----------
+    sensitivity : array, shape (F, p, n)
+        :func:`library_sensitivity`.
+    n_out : int, optional
+        How many leading coefficients to keep (default all p; ``unmix`` keeps the n
+        components).
+
+    Returns
+    -------
+    ndarray, shape (n_out, n, n)
+        Q_j = Σ_f m_fjᵀ m_fj with m_fj row j of M_f, so that var(x_j) = xᵀ Q_j x: F·p·n
+        numbers reduced once per design to n_out·n², and n_out·n² operations per spectrum.
+    """
+    n_out = sensitivity.shape[1] if n_out is None else n_out
+    rows = sensitivity[:, :n_out, :]
+    return np.einsum("fjn,fjm->jnm", rows, rows)
+
+
+def library_variance(coef: np.ndarray, quadratic: np.ndarray) -> np.ndarray:
     """Variance of each coefficient from the library's error, per spectrum.
 
     Parameters
     ----------
     coef : array, shape (N, n)
-        The component coefficients (b·c) of N spectra (NaN allowed).
-    sensitivity : array, shape (F, p, n)
-        :func:`library_sensitivity`.
+        The component coefficients (b·c) of N spectra (NaN allowed: NaN out).
+    quadratic : array, shape (n_out, n, n)
+        :func:`library_quadratic`.
 
     Returns
     -------
-    ndarray, shape (N, p)
-        var(x_j) = Σ_f (M_f·x)_j²: the first-order propagation of the correlated
-        library error (GUM eq. 13, with the covariance Σ_f P_f P_fᵀ).
+    ndarray, shape (N, n_out)
+        var(x_j) = xᵀ Q_j x = Σ_f (M_f·x)_j²: the first-order propagation of the
+        correlated library error (GUM eq. 13 with the covariance Σ_f P_f P_fᵀ).
     """
-    if sensitivity.shape[0] == 0:
-        return np.zeros((coef.shape[0], sensitivity.shape[1]))
-    moved = np.einsum("fpn,sn->sfp", sensitivity, coef)
-    return np.einsum("sfp,sfp->sp", moved, moved)
+    out = np.empty((coef.shape[0], quadratic.shape[0]))
+    for j, q in enumerate(quadratic):
+        out[:, j] = np.einsum("sn,sn->s", coef @ q, coef)
+    return np.maximum(out, 0.0)  # a sum of squares; rounding may not make it negative

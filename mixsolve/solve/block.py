@@ -92,9 +92,10 @@ class BlockSettings:
     design_status: int  #: status bits that hold for every spectrum (ill conditioning)
     unit_factor: np.ndarray  #: (n,) result unit per library concentration unit
     shift_matrix: np.ndarray  #: (n, n) library-unit bias per nm per unit of each component
-    #: (F, p, n) how each library error pattern moves the coefficients per unit coefficient
-    #: (:func:`mixsolve.library_error.library_sensitivity`); F = 0: no library error stated
-    library_sensitivity: np.ndarray
+    #: (n, n, n) the library's covariance as one quadratic form per component,
+    #: var(x_j) = xᵀ Q_j x (:func:`mixsolve.library_error.library_quadratic`); zeros when the
+    #: library states no error
+    library_quadratic: np.ndarray
     tolerance_nm: float  #: wavelength accuracy for the shift_sensitive flag
     #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.engine.choose_engine`), chosen for
     #: the whole job so that every block and dask chunk uses the same
@@ -261,7 +262,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     canonical = fit.coef[:, :n] / b[:, None]
     conc = canonical * settings.unit_factor
     u_noise = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
-    u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_sensitivity)[:, :n]
+    u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic)
                         ) / b[:, None] * settings.unit_factor
     u_conc = np.sqrt(u_noise**2 + u_library**2)  # the combined standard uncertainty
     at_zero = (conc == 0) & (settings.method == "nnls")

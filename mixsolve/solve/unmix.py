@@ -21,7 +21,7 @@ from mixsolve.errors import (
 )
 from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
-from mixsolve.library_error import library_sensitivity, patterns_at
+from mixsolve.library_error import library_quadratic, library_sensitivity, patterns_at
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
 from mixsolve.solve.block import (
     BlockSettings,
@@ -310,7 +310,8 @@ def _plan(options: _Options) -> _Plan:
         absorbance_range=options.absorbance_range,
         design_status=ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE else 0,
         unit_factor=factor, shift_matrix=shift_bias_matrix(library, design, used_wl),
-        library_sensitivity=library_sensitivity(design, patterns_at(library, used_wl)),
+        library_quadratic=library_quadratic(
+            library_sensitivity(design, patterns_at(library, used_wl)), len(components)),
         tolerance_nm=options.tolerance_nm,
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
                                                    if d != WAVELENGTH]))))
