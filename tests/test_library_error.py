@@ -180,3 +180,28 @@ def test_results_with_a_library_from_declared_standards_are_covered(key) -> None
     low, high = cs.TARGET_BAND
     assert low <= row.p_within_2u <= high, row
     assert abs(row.mean_z) < 0.2, row
+
+
+def test_the_command_line_reports_what_the_api_does(tmp_path, cli, rng) -> None:
+    """library build from a sheet with the uncertainty columns, then unmix, through the CLI:
+    the results file holds the API's std_uncertainty and its parts, to the 6 significant
+    digits written."""
+    spectra, sheet = _standards(rng, prep=0.015, stock=0.015)
+    spectra.to_pandas().T.rename_axis("wavelength_nm").to_csv(tmp_path / "std.csv")
+    sheet.to_csv(tmp_path / "sheet.csv", index=False)
+    conc = cs.draw_samples(cs.condition("3"), rng, 6)
+    samples = ms.make_spectra(cs.measure(conc @ EPS / 1e3, cs.condition("3"), rng), WL,
+                              [f"s{i}" for i in range(6)])
+    samples.to_pandas().T.rename_axis("wavelength_nm").to_csv(tmp_path / "samples.csv")
+    cli.ok("library", "build", str(tmp_path / "std.csv"), "--standards",
+           str(tmp_path / "sheet.csv"), "--out", str(tmp_path / "lab.nc"))
+    cli.ok("unmix", str(tmp_path / "lab.nc"), str(tmp_path / "samples.csv"), "--unit", "mg/L",
+           "--out", str(tmp_path / "results.csv"))
+    table = pd.read_csv(tmp_path / "results.csv").set_index(["sample", "component"])
+    api = ms.unmix(ms.read_spectra(tmp_path / "samples.csv"),
+                   ms.read_library(tmp_path / "lab.nc"), unit="mg/L")
+    expected = ms.results_table(api).set_index(["sample", "component"])
+    for column in ("std_uncertainty", "u_noise", "u_library"):
+        got, want = table[column].to_numpy(), expected.loc[table.index, column].to_numpy()
+        assert np.allclose(got, want, rtol=1e-5), np.max(np.abs(got / want - 1))
+    assert (table["u_library"] > table["u_noise"]).mean() > 0.5  # the library dominates here

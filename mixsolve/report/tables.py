@@ -10,10 +10,11 @@ from mixsolve.library import COMPONENT
 
 RESULT_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
                   "rms_residual_au", "dof", "flags")
-#: Columns added after ``flags`` when the result holds them (a fitted wavelength shift;
-#: PLS predictions).
-OPTIONAL_COLUMNS = ("wavelength_shift_nm", "u_wavelength_shift_nm", "t2", "t2_limit_95",
-                    "t2_limit_99", "q_residual", "q_limit_95", "q_limit_99")
+#: Columns added after ``flags`` when the result holds them (the parts of std_uncertainty;
+#: a fitted wavelength shift; PLS predictions).
+OPTIONAL_COLUMNS = ("u_noise", "u_library", "u_stray", "wavelength_shift_nm",
+                    "u_wavelength_shift_nm", "t2", "t2_limit_95", "t2_limit_99", "q_residual",
+                    "q_limit_95", "q_limit_99")
 
 
 def results_table(result: xr.Dataset) -> pd.DataFrame:
@@ -30,7 +31,9 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
     DataFrame
         Columns ``sample, component, concentration, std_uncertainty, unit,
         rms_residual_au, dof, flags``. ``flags`` holds the sample's ``;``-joined flag codes
-        (empty when nothing is doubtful). With ``fit_shift`` the fitted offset adds
+        (empty when nothing is doubtful). The parts of ``std_uncertainty`` follow when the
+        result has them (``u_noise, u_library, u_stray``). With ``fit_shift`` the fitted
+        offset adds
         ``wavelength_shift_nm, u_wavelength_shift_nm``. Results of
         :func:`mixsolve.predict` (PLS) add
         ``t2, t2_limit_95, t2_limit_99, q_residual, q_limit_95, q_limit_99``; there
