@@ -205,3 +205,19 @@ def test_the_command_line_reports_what_the_api_does(tmp_path, cli, rng) -> None:
         got, want = table[column].to_numpy(), expected.loc[table.index, column].to_numpy()
         assert np.allclose(got, want, rtol=1e-5), np.max(np.abs(got / want - 1))
     assert (table["u_library"] > table["u_noise"]).mean() > 0.5  # the library dominates here
+
+
+def test_budget_and_its_monte_carlo_draw_the_same_correlated_library(rng) -> None:
+    """The budget's absorptivity term on a noise-free spectrum equals the result's u_library
+    (the residual term of ∂x/∂ε vanishes), and 20 000 Monte Carlo draws of whole library
+    spectra agree with it within 5 % (JCGM 101:2008, 8.2 style comparison)."""
+    lib = _build(*_standards(rng, prep=0.015, stock=0.015))
+    conc = np.array([[3.0, 5.0, 2.0]])
+    result = ms.unmix(ms.make_spectra(conc @ EPS / 1e3, WL, ["x"]), lib, unit="mg/L",
+                      method="ols")
+    budget = ms.uncertainty_budget(result, lib, wavelength_tolerance_nm=0.0, stray_fraction=0,
+                                   monte_carlo=20000, seed=5)
+    term = budget["contribution"].sel(sample="x", source="absorptivity").values
+    assert np.allclose(term, result["u_library"].values[0], rtol=1e-6)
+    ratio = budget["mc_standard_uncertainty"].values[0] / budget["combined_uncertainty"].values[0]
+    assert np.all(np.abs(ratio - 1) < 0.05), ratio
