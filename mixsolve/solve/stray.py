@@ -78,9 +78,8 @@ def corrected_absorbance(apparent: np.ndarray, fraction: float) -> np.ndarray:
         A (AU); NaN where the corrected transmittance is ≤ 0 (a reading at or beyond
         saturation: see :func:`too_dark`).
     """
-    t = 10.0 ** -np.asarray(apparent, dtype=float) * (1.0 + fraction) - fraction
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(t > 0, -np.log10(np.where(t > 0, t, 1.0)), np.nan)
+    t = _corrected_transmittance(apparent, fraction)
+    return _absorbance(t, t > 0)
 
 
 def stray_sensitivity(corrected: np.ndarray, fraction: float) -> np.ndarray:
@@ -132,8 +131,24 @@ def too_dark(apparent: np.ndarray, fraction: float, u_fraction: float) -> np.nda
     above 10·u(s) (its linear propagation would fail). Such readings are left out of the
     fit like a missing reading.
     """
-    t = 10.0 ** -np.asarray(apparent, dtype=float) * (1.0 + fraction) - fraction
-    return t <= darkness_limit(fraction, u_fraction)
+    return _corrected_transmittance(apparent, fraction) <= darkness_limit(fraction, u_fraction)
+
+
+def _corrected_transmittance(apparent: np.ndarray, fraction: float) -> np.ndarray:
+    """T = T_app·(1 + s) − s with T_app = 10^−A_app, as one new array changed in place."""
+    t = np.multiply(np.asarray(apparent, dtype=float), -LN10)
+    np.exp(t, out=t)
+    t *= 1.0 + fraction
+    t -= fraction
+    return t
+
+
+def _absorbance(t: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """−log10 T where ``keep``, NaN elsewhere (and where T is NaN), in place of ``t``."""
+    np.log10(t, out=t, where=keep)
+    np.copyto(t, np.nan, where=~keep)
+    np.negative(t, out=t)
+    return t
 
 
 @dataclass(frozen=True)
@@ -145,10 +160,9 @@ class StrayCorrection:
 
     def apply(self, apparent: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """The corrected readings (NaN where too dark) and the too-dark mask."""
-        dark = too_dark(apparent, self.fraction, self.u_fraction)
-        corrected = corrected_absorbance(apparent, self.fraction)
-        corrected[dark] = np.nan
-        return corrected, dark
+        t = _corrected_transmittance(apparent, self.fraction)
+        dark = t <= darkness_limit(self.fraction, self.u_fraction)
+        return _absorbance(t, ~dark & (t > 0)), dark
 
     def describe(self) -> str:
         """One line for a result's attributes."""
