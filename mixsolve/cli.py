@@ -466,8 +466,10 @@ measurement_options = [
     click.option("--fill-volume", type=float, help="Volume filled into the cell (µL) [3000]."),
     click.option("--repeat-scans", help="Repeated scans of one solution: their SD per "
                  "wavelength is the Type A noise of --budget."),
-    click.option("--stray", type=float, help="Stray-light fraction, e.g. 0.0005, for --budget "
-                 "[that of --noise]."),
+    click.option("--stray", type=float, help="Stray-light fraction, e.g. 0.0005: readings are "
+                 "corrected for it before the fit, too dark ones left out [that of --noise]."),
+    click.option("--u-stray", type=float, help="Standard uncertainty of --stray, propagated "
+                 "to u_stray [stray/√3]."),
     click.option("--monte-carlo", type=int,
                  help="Also propagate by Monte Carlo with this many draws (--budget)."),
 ]
@@ -488,6 +490,7 @@ API_PARAMETERS = {
     "pathlength_cm": "pathlength", "molar_mass_g_per_mol": "molar_mass",
     "water_k_au_per_cm": "water_k", "library": "library_file", "pathlength_u_cm": "pathlength_u",
     "carryover_ul": "carryover", "fill_volume_ul": "fill_volume", "stray_fraction": "stray",
+    "u_stray_fraction": "u_stray",
     "concentration_mg_l": "concentration", "tolerance_pct": "tolerance",
     "linearity_tolerance_pct": "linearity_tolerance", "uv_tolerance_nm": "uv_tolerance",
     "vis_tolerance_nm": "vis_tolerance", "fit_half_width_nm": "fit_half_width",
@@ -716,6 +719,8 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
                          weights=weights, noise=noise, absorbance_range=absorbance_range,
                          fit_shift=fit_shift, max_shift_nm=max_shift,
                          wavelength_tolerance_nm=wavelength_tolerance,
+                         stray_fraction=measurement.pop("stray"),
+                         u_stray_fraction=measurement.pop("u_stray"),
                          measurement=measurement, scheduler=scheduler, workers=workers,
                          progress=sys.stderr)
     click.echo(format_unmix(result) + budget_text(result), nl=False)

@@ -17,6 +17,7 @@ LACK_OF_FIT = 64  # residual larger than the noise model allows
 STRUCTURED = 128  # residual has shape (runs test), not noise
 ILL_CONDITIONED = 256  # the wavelength set amplifies noise > 1000-fold (condition number)
 NO_SIGNAL = 512  # every used reading is exactly zero: nothing was measured
+TOO_DARK = 1024  # readings too dark to correct for the stated stray light: left out
 
 STATUS_CODES: dict[int, str] = {
     NO_DOF: "no_dof",
@@ -29,6 +30,7 @@ STATUS_CODES: dict[int, str] = {
     STRUCTURED: "structured_residual",
     ILL_CONDITIONED: "ill_conditioned",
     NO_SIGNAL: "no_signal",
+    TOO_DARK: "too_dark_for_stray",
 }
 
 #: Codes about one component, written ``code:<component>``.
@@ -69,6 +71,8 @@ FLAG_MEANINGS: dict[str, str] = {
     STATUS_CODES[NO_SIGNAL]: "every reading is exactly zero: nothing was measured; the zero "
                              "result means nothing",
     STATUS_CODES[LACK_OF_FIT]: "residual larger than the noise model allows",
+    STATUS_CODES[TOO_DARK]: "readings too dark to correct for the stated stray light were "
+                            "left out; fitted on the rest (dilute or use a shorter path)",
     STATUS_CODES[ILL_CONDITIONED]: "the wavelengths separate the components poorly (scaled "
                                    "condition number above 1000): noise is amplified that "
                                    "much",

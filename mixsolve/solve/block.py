@@ -14,6 +14,7 @@ and the result to one set of labelled variables.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import functools
 import itertools
 import threading
@@ -26,7 +27,7 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from mixsolve.errors import InfiniteReadingError
-from mixsolve.flags import flag_texts
+from mixsolve.flags import MISSING, TOO_DARK, flag_texts
 from mixsolve.library import COMPONENT
 from mixsolve.library_error import library_variance
 from mixsolve.noise import NoiseModel
@@ -37,6 +38,7 @@ from mixsolve.solve.outputs import TERM, kernel_outputs
 from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.sample_checks import lack_of_fit, target_absorbance
 from mixsolve.solve.shift_fit import fit_with_shift
+from mixsolve.solve.stray import StrayCorrection, coefficient_sensitivity
 from mixsolve.solve.trust import (
     CHECK_NAMES,
     lack_of_fit_model,
@@ -100,6 +102,8 @@ class BlockSettings:
     #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.engine.choose_engine`), chosen for
     #: the whole job so that every block and dask chunk uses the same
     engine: Literal["numpy", "compiled"] = "numpy"
+    #: the stated stray fraction the readings are corrected for (None: not corrected)
+    stray: StrayCorrection | None = None
 
 
 def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
@@ -223,10 +227,14 @@ class _Fitted(NamedTuple):
     lack: tuple[np.ndarray, np.ndarray] | None  #: lack-of-fit ratio and p (noise model)
     #: the shift fit's outputs: shift, u(shift), fitted and residual spectra, by name
     extra: dict[str, np.ndarray]
+    #: stray correction: ∂coef/∂s·u(s) (n, p) and which spectra had readings too dark
+    stray: tuple[np.ndarray, np.ndarray] | None = None
 
 
 def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     """Fit spectra (n, m): the plain, weighted or shift fit, and the lack-of-fit figures."""
+    if settings.stray is not None:
+        return _fit_corrected(spectra, settings)
     n = len(settings.components)
     kind = settings.fit
     if isinstance(kind, ShiftFit):
@@ -250,6 +258,32 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
 
 
+def _fit_corrected(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
+    """:func:`_fit_task` of the readings corrected for the stated stray light (too dark
+    ones left out), with ∂coef/∂s·u(s) and the spectra that had readings too dark.
+
+    ∂A/∂s is taken at the fitted absorbances of the readings used, and G is the fit's
+    operator there: weighted by 1/σ² at the fitted absorbance for a weighted fit (as the
+    uncertainty budget does), the plain design for the shift fit (linearised at no shift).
+    """
+    stray = settings.stray
+    assert stray is not None
+    missing = np.isnan(spectra).any(axis=1)
+    corrected, dark = stray.apply(spectra)
+    fit = _fit_task(corrected, dataclasses.replace(settings, stray=None))
+    fitted = fit.extra["fitted"] if "fitted" in fit.extra else fit.coef @ settings.design.T
+    fitted = np.where(np.isnan(corrected), np.nan, fitted)  # the readings the fit used
+    weights = None
+    if isinstance(settings.fit, WeightedFit):
+        weights = 1.0 / settings.fit.noise.sigma_absorbance(np.clip(fitted, 0.0, None)) ** 2
+    per_s = coefficient_sensitivity(fitted, stray.fraction, settings.design,
+                                    len(settings.components), weights)
+    too_dark = dark.any(axis=1)
+    # readings left out for being too dark are flagged as such, not as missing readings
+    status = np.where(too_dark & ~missing, fit.status & ~MISSING, fit.status)
+    return fit._replace(status=status, stray=(np.abs(per_s) * stray.u_fraction, too_dark))
+
+
 def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
                 texts: dict[object, str]) -> dict[str, np.ndarray]:
     """The kernel's outputs of one task's fit, by name; b (n,) pathlengths in cm."""
@@ -264,7 +298,9 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     u_noise = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
     u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic)
                         ) / b[:, None] * settings.unit_factor
-    u_conc = np.sqrt(u_noise**2 + u_library**2)  # the combined standard uncertainty
+    u_stray, status = _stray_terms(fit, b, settings, status)
+    # the combined standard uncertainty: independent inputs (JCGM 100:2008, 5.1.2)
+    u_conc = np.sqrt(u_noise**2 + u_library**2 + u_stray**2)
     at_zero = (conc == 0) & (settings.method == "nnls")
     bias = (canonical @ settings.shift_matrix.T) * settings.unit_factor
     with np.errstate(invalid="ignore"):  # no dilution brings a peak ≤ 0 AU into range
@@ -274,7 +310,19 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
                        ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
                        known=texts)
     return {"coef": fit.coef, "concentration": conc, "std_uncertainty": u_conc,
-            "u_noise": u_noise, "u_library": u_library,
+            "u_noise": u_noise, "u_library": u_library, "u_stray": u_stray,
             "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,
             "dof": fit.dof, "status": status, **dict(zip(CHECK_NAMES, checks, strict=True)),
             "suggested_dilution": dilution, "flags": flags, **fit.extra}
+
+
+def _stray_terms(fit: _Fitted, b: np.ndarray, settings: BlockSettings, status: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray]:
+    """u_stray (n, components) in the result unit (0 without a stated fraction), and the
+    status with ``TOO_DARK`` where a spectrum had readings too dark to correct."""
+    n = len(settings.components)
+    if fit.stray is None:
+        return np.zeros((b.size, n)), status
+    per_coef, dark = fit.stray
+    return (per_coef[:, :n] / b[:, None] * settings.unit_factor,
+            status | np.where(dark, TOO_DARK, 0))

@@ -83,6 +83,10 @@ OUTPUTS: tuple[Output, ...] = (
            "from the fit residuals", "{unit}"),
     Output("u_library", (COMPONENT,), "part of u(c) from the library's error, correlated "
            "over wavelengths and shared by every spectrum of the run", "{unit}"),
+    Output("u_stray", (COMPONENT,), "standard uncertainty from the stated stray-light "
+           "fraction's uncertainty, |G·∂A/∂s|·u(s)/b, fully correlated across wavelengths "
+           "and shared by all spectra of the call (0 when no fraction is stated; "
+           "docs/uncertainty.md, Stray light)", "{unit}"),
     Output("at_zero", (COMPONENT,), "true where NNLS held the component at 0", dtype=bool),
     Output("shift_bias_per_nm", (COMPONENT,), "change of each concentration per +1 nm of "
            "wavelength error, at the fitted composition", "{unit} per nm"),

@@ -51,6 +51,7 @@ from mixsolve.solve.outputs import (
     kernel_outputs,
     result_outputs,
 )
+from mixsolve.solve.stray import StrayCorrectedNoise, StrayCorrection, default_u_fraction
 from mixsolve.solve.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
 from mixsolve.spectra import (
     WAVELENGTH,
@@ -83,6 +84,8 @@ def unmix(
     fit_shift: bool = False,
     max_shift_nm: float = 3.0,
     wavelength_tolerance_nm: float = DEFAULT_WAVELENGTH_TOLERANCE_NM,
+    stray_fraction: float | None = None,
+    u_stray_fraction: float | None = None,
 ) -> xr.Dataset:
     """Resolve absorbance spectra into component concentrations by classical least squares.
 
@@ -133,6 +136,16 @@ def unmix(
     wavelength_tolerance_nm : float
         Wavelength accuracy of the instrument (nm) for the ``shift_sensitive`` flag: a
         component is flagged when an error this large would move it by more than 2 %.
+    stray_fraction : float, optional
+        Stray-light fraction s of the instrument (0.001 = 0.1 %T), 0 ≤ s < 1; default the
+        ``stray`` of ``noise``. When s > 0 every reading is corrected before the fit,
+        A = −log10(T_app·(1 + s) − s) (:mod:`mixsolve.solve.stray`); readings too dark to
+        correct are left out and the spectrum flagged ``too_dark_for_stray``. Given with a
+        noise model whose ``stray`` is above 0, the two must agree.
+    u_stray_fraction : float, optional
+        Standard uncertainty u(s) of the stated fraction, propagated to ``u_stray``;
+        default s/√3 (s the middle of a rectangular distribution from 0 to 2s). Needs a
+        stated fraction.
 
     Returns
     -------
@@ -187,7 +200,8 @@ def unmix(
         spectra, library, window=window, wavelengths=wavelengths, method=method,
         baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, weights=weights,
         noise=noise, absorbance_range=absorbance_range, fit_shift=fit_shift,
-        max_shift_nm=max_shift_nm, wavelength_tolerance_nm=wavelength_tolerance_nm)
+        max_shift_nm=max_shift_nm, wavelength_tolerance_nm=wavelength_tolerance_nm,
+        stray_fraction=stray_fraction, u_stray_fraction=u_stray_fraction)
     plan = _plan(options)
     return _result(options, plan, _run_kernel(options, plan))
 
@@ -214,12 +228,14 @@ class _Options:
     fit_shift: bool
     max_shift_nm: float
     tolerance_nm: float
+    stray: StrayCorrection | None = None  #: the stated stray fraction, when above 0
 
 
 def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
                    method: Any, baseline: Any, pathlength_cm: Any, unit: str | None,
                    weights: Any, noise: Any, absorbance_range: Any, fit_shift: bool,
-                   max_shift_nm: Any, wavelength_tolerance_nm: Any) -> _Options:
+                   max_shift_nm: Any, wavelength_tolerance_nm: Any,
+                   stray_fraction: Any = None, u_stray_fraction: Any = None) -> _Options:
     """Check every option of :func:`unmix` (the public boundary: the spectra are checked
     here once, their values by the solver as it reads them)."""
     spectra = check_spectra(spectra, scan_values=False)
@@ -254,7 +270,28 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
                 "spectra.chunk({'wavelength': -1})")
     return _Options(spectra, library, window, wavelengths, method, baseline,
                     _pathlength(spectra, pathlength_cm), unit, weights, model, (low, high),
-                    bool(fit_shift), max_shift, tolerance)
+                    bool(fit_shift), max_shift, tolerance,
+                    _stray(model, stray_fraction, u_stray_fraction))
+
+
+def _stray(model: NoiseModel | None, stray_fraction: Any, u_stray_fraction: Any
+           ) -> StrayCorrection | None:
+    """The stated stray fraction and its uncertainty (None when no fraction above 0 is
+    stated): ``stray_fraction``, else the noise model's ``stray``."""
+    stated = 0.0 if model is None else model.stray
+    if stray_fraction is not None:
+        given = check_number(stray_fraction, "stray_fraction", low=0, high=1, high_open=True)
+        if stated > 0 and given != stated:
+            raise InputError(f"stray_fraction: {given:g} disagrees with the noise model's "
+                             f"stray {stated:g}; give one of them, or the same value")
+        stated = given
+    if u_stray_fraction is None:
+        return StrayCorrection(stated, default_u_fraction(stated)) if stated > 0 else None
+    u = check_number(u_stray_fraction, "u_stray_fraction", low=0)
+    if stated == 0:
+        raise InputError(f"u_stray_fraction: {u:g} given without a stray fraction; state "
+                         "stray_fraction (or a noise model with stray above 0)")
+    return StrayCorrection(stated, u)
 
 
 @dataclass(frozen=True, eq=False)
@@ -304,8 +341,8 @@ def _plan(options: _Options) -> _Plan:
                                             library["molar_mass_g_per_mol"].values)
         conc_unit = options.unit
     settings = BlockSettings(
-        design=design, components=components, method=options.method, noise=options.noise,
-        fit=_fit_kind(options, used_wl),
+        design=design, components=components, method=options.method,
+        noise=_fit_noise(options), fit=_fit_kind(options, used_wl),
         threads=1 if used.chunks is not None else default_threads(),
         absorbance_range=options.absorbance_range,
         design_status=ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE else 0,
@@ -314,14 +351,24 @@ def _plan(options: _Options) -> _Plan:
             library_sensitivity(design, patterns_at(library, used_wl)), len(components)),
         tolerance_nm=options.tolerance_nm,
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
-                                                   if d != WAVELENGTH]))))
+                                                   if d != WAVELENGTH]))),
+        stray=options.stray)
     return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings)
+
+
+def _fit_noise(options: _Options) -> NoiseModel | None:
+    """The noise of the readings fitted: the stated model, or for readings corrected for
+    stray light the model of corrected readings (:class:`StrayCorrectedNoise`)."""
+    if options.noise is None or options.stray is None:
+        return options.noise
+    return StrayCorrectedNoise(**{**options.noise.to_dict(), "stray": options.stray.fraction})
 
 
 def _fit_kind(options: _Options, used_wl: np.ndarray) -> FitKind:
     """The fit the options ask for; the shift fit needs the library around the used λ."""
-    if options.weights == "noise" and options.noise is not None:
-        return WeightedFit(options.noise)
+    noise = _fit_noise(options)
+    if options.weights == "noise" and noise is not None:
+        return WeightedFit(noise)
     if not options.fit_shift:
         return PlainFit()
     library, max_shift = options.library, options.max_shift_nm
@@ -369,7 +416,8 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
     made["baseline"] = xr.Variable(tuple(BASELINE_TERM if d == TERM else d
                                          for d in baseline_part.dims), baseline_part.data)
     if "fitted" not in made:  # one design for all: computed from the coefficients
-        fitted, residual = fitted_and_residual(plan.used, coef, plan.settings.design)
+        fitted, residual = fitted_and_residual(_fitted_readings(plan), coef,
+                                               plan.settings.design)
         made.update(fitted=fitted.variable, residual=residual.variable)
     made["pathlength_cm"] = options.pathlength.variable
     made["unit_factor"] = xr.Variable((COMPONENT,), plan.settings.unit_factor)
@@ -401,6 +449,7 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
             "absorbance_range": f"{low:g}-{high:g}",
             "fit_shift": int(options.fit_shift),
             "wavelength_tolerance_nm": options.tolerance_nm,
+            **_stray_attrs(options.stray),
         },
     )
     # Variables derived from the spectra inherit their attributes; a concentration is not an
@@ -409,6 +458,24 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
         for key in INPUT_ATTRS:
             var.attrs.pop(key, None)
     return result
+
+
+def _fitted_readings(plan: _Plan) -> xr.DataArray:
+    """The readings the fit saw: the used spectra, corrected for stray light when a
+    fraction is stated (too dark ones NaN; lazy for dask-backed spectra)."""
+    stray = plan.settings.stray
+    if stray is None:
+        return plan.used
+    return xr.apply_ufunc(lambda a: stray.apply(a)[0], plan.used, dask="parallelized",
+                          output_dtypes=[float]).assign_attrs(plan.used.attrs)
+
+
+def _stray_attrs(stray: StrayCorrection | None) -> dict[str, Any]:
+    """The record of the stray-light correction (fraction 0 and no text without one)."""
+    if stray is None:
+        return {"stray_fraction": 0.0, "u_stray_fraction": 0.0, "stray_correction": ""}
+    return {"stray_fraction": stray.fraction, "u_stray_fraction": stray.u_fraction,
+            "stray_correction": stray.describe()}
 
 
 def _where_infinite(used: xr.DataArray, exc: InfiniteReadingError) -> str:

@@ -36,7 +36,8 @@ SOURCES: dict[str, tuple[str, str, str, str]] = {
     "dilution": ("B", "rectangular", "1", "dilution factor from the volumetric ware"),
     "carryover": ("B", "rectangular", "1", "residual liquid left in a refilled cell"),
     "wavelength": ("B", "rectangular", "nm", "wavelength-scale accuracy"),
-    "stray_light": ("B", "rectangular", "1", "stray light (fraction of incident power)"),
+    "stray_light": ("B", "rectangular", "1", "stray light (fraction of incident power): "
+                    "u(s) of the fraction corrected for, or the uncorrected bias at s"),
     "cell_blank": ("A", "normal", "AU", "mean of the cell-blank scans"),
     "cell_ratio": ("B", "normal", "1", "cell pathlength ratio"),
 }
@@ -81,11 +82,12 @@ def _linear(model: MeasurementModel, s: SampleModel, conc: np.ndarray, u_fit: np
     put("carryover", carry / f if f > 0 else 0.0, f / np.sqrt(3.0))
     per_nm = (s.g @ (s.derivative @ s.coef[:n_comp]))[:n_comp] * scale
     put("wavelength", per_nm, model.wavelength_u_nm)
-    stray = model.stray_fraction
-    if np.isfinite(stray) and stray > 0:
-        put("stray_light", (s.g @ s.stray_bias)[:n_comp] * scale / stray, stray / np.sqrt(3.0))
+    u_stray = model.u_stray_fraction  # stray_bias is √3·u(s)·∂A/∂s per reading
+    if np.isfinite(u_stray) and u_stray > 0:
+        put("stray_light", (s.g @ s.stray_bias)[:n_comp] * scale / (np.sqrt(3.0) * u_stray),
+            u_stray)
     else:
-        put("stray_light", 0.0 if stray == 0 else np.nan, stray)
+        put("stray_light", 0.0 if u_stray == 0 else np.nan, u_stray)
     put("cell_ratio", -value / model.cell.ratio, model.cell.u_ratio)
     return contrib, sens, u_in
 
@@ -157,9 +159,12 @@ def uncertainty_budget(
       the half-width of a rectangular distribution: u = |f·(c_prev − c)|·F/√3.
     - wavelength: |∂y/∂λ|·a/√3 (a the ± tolerance, rectangular) or ·u_λ, with
       ∂y/∂λ = (G K′ x)_k f_k F/b, K′ = dε/dλ from the library.
-    - stray_light: the bias of every fitted reading at stray fraction s,
-      δAᵢ = −log10((10^−Aᵢ + s)/(1 + s)) − Aᵢ, propagated δy = (G δA)_k f_k F/b; s being an
-      upper limit, δy is the half-width of a rectangular distribution: u = |δy|/√3.
+    - stray_light: for a result corrected for a stated fraction s (``unmix``'s
+      ``stray_fraction``), |(G ∂A/∂s)_k|·f_k·F/b·u(s) with ∂A/∂s of each corrected
+      reading (:func:`mixsolve.solve.stray.stray_sensitivity`), the result's ``u_stray``.
+      For an uncorrected result and a budget ``stray_fraction`` s: the bias of every
+      fitted reading, δAᵢ = −log10((10^−Aᵢ + s)/(1 + s)) − Aᵢ, propagated
+      δy = (G δA)_k f_k F/b, is the half-width of a rectangular distribution: u = |δy|/√3.
     - cell_blank: √(Σᵢ G_kᵢ² (u_blank,ᵢ/r)²)·f_k·F/b; 0 without a blank.
 
     u_c sums the stated sources only; ``attrs["not_stated"]`` lists the others. A sample

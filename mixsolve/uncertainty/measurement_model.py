@@ -26,6 +26,7 @@ from mixsolve.library_error import patterns_at
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.design import design_matrix
 from mixsolve.solve.shift_sensitivity import library_derivative
+from mixsolve.solve.stray import StrayCorrectedNoise, stray_sensitivity
 from mixsolve.spectra import SAMPLE, WAVELENGTH
 from mixsolve.uncertainty.corrections import CellCorrection, on_wavelengths
 from mixsolve.uncertainty.inputs import BudgetInputs
@@ -57,6 +58,8 @@ class SampleModel:
     #: a reading (:mod:`mixsolve.library_error`); F = 0 when the library states none
     library_patterns: np.ndarray = field(default_factory=lambda: np.empty((0, 0, 0)))
     derivative: np.ndarray = field(default_factory=lambda: np.empty((0, 0)))
+    #: half-width (AU) of each reading's rectangular stray-light error: the bias at s of
+    #: an uncorrected result, √3·u(s)·∂A/∂s of a result corrected for s
     stray_bias: np.ndarray = field(default_factory=lambda: np.empty(0))
     sigma_blank: np.ndarray = field(default_factory=lambda: np.empty(0))
     carry_delta: np.ndarray = field(default_factory=lambda: np.empty(0))
@@ -77,6 +80,8 @@ class MeasurementModel:
     wavelength_u_nm: float
     wavelength_distribution: str
     stray_fraction: float
+    #: u(s): of the fraction a corrected result was corrected with, else s/√3
+    u_stray_fraction: float
     carryover_fraction: float
     cell: CellCorrection
     noise_from: str
@@ -138,11 +143,20 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
     fill = float(inputs.fill_volume_ul)  # type: ignore[arg-type]  # None became the default
     carry_ul = _stated(inputs.carryover_ul)
     carry_frac = 0.0 if np.isnan(carry_ul) else carry_ul / (fill + carry_ul)
-    if inputs.stray_fraction is None:
+    corrected = float(result.attrs.get("stray_fraction", 0.0)) > 0
+    if corrected:  # the readings were corrected: u(s) remains (docs/uncertainty.md)
+        stray = float(result.attrs["stray_fraction"])
+        u_stray = float(result.attrs["u_stray_fraction"])
+        if inputs.stray_fraction is not None and inputs.stray_fraction != stray:
+            raise InputError(f"stray_fraction: {inputs.stray_fraction:g} disagrees with the "
+                             f"fraction {stray:g} the result was corrected with")
+    elif inputs.stray_fraction is None:
         model = _result_noise_model(result)
         stray = model.stray if model is not None else float("nan")
+        u_stray = stray / np.sqrt(3.0)
     else:
         stray = inputs.stray_fraction
+        u_stray = stray / np.sqrt(3.0)
     cell = inputs.cell if inputs.cell is not None else CellCorrection()
     noise_sd = inputs.noise_sd
     carryover_from = inputs.carryover_from
@@ -164,6 +178,8 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
                else on_wavelengths(cell.u_blank, used_wl, "cell blank"))
     weighted = result.attrs.get("weights") == "noise"
     noise = _result_noise_model(result)
+    if corrected and noise is not None:  # the fit weighted the corrected readings
+        noise = StrayCorrectedNoise(**{**noise.to_dict(), "stray": stray})
     if result.attrs.get("fit_shift"):
         notes.append("the fit also fitted a wavelength shift; the budget linearises the "
                      "plain least-squares model at the fitted concentrations")
@@ -203,6 +219,8 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
         a_fit = fitted[i, present]
         if np.isnan(stray):
             bias = np.full(r.shape, np.nan)
+        elif corrected:
+            bias = np.sqrt(3.0) * u_stray * stray_sensitivity(a_fit, stray)
         else:
             t = 10.0 ** -a_fit
             bias = -np.log10((t + stray) / (1.0 + stray)) - a_fit
@@ -223,5 +241,6 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
         u_pathlength_cm=_stated(inputs.pathlength_u_cm),
         dilution=inputs.dilution,  # type: ignore[arg-type]  # text became a Dilution
         wavelength_u_nm=u_wl, wavelength_distribution=wl_dist, stray_fraction=stray,
+        u_stray_fraction=u_stray,
         carryover_fraction=carry_frac, cell=cell,
         noise_from="repeat scans" if sd is not None else "fit residual", notes=notes)

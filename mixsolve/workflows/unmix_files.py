@@ -43,7 +43,8 @@ PathLike = str | os.PathLike[str]
 #: Least-squares settings of :func:`mixsolve.unmix`: refused with a PLS model unless left
 #: at unmix's own defaults.
 LS_ONLY = ("window", "wavelengths", "baseline", "method", "weights", "noise", "fit_shift",
-           "absorbance_range", "max_shift_nm", "wavelength_tolerance_nm")
+           "absorbance_range", "max_shift_nm", "wavelength_tolerance_nm", "stray_fraction",
+           "u_stray_fraction")
 
 
 def unmix_files(library: PathLike, spectra: PathLike, *,
