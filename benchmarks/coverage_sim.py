@@ -90,8 +90,14 @@ class Condition:
         0 for white noise; otherwise white noise smoothed by a Gaussian kernel of this
         full width at half maximum (nm), rescaled to the same marginal σ.
     stray : float
-        Stray-light fraction s: a reading of true absorbance A shows
-        −log10((10^−A + s)/(1 + s)) (../shared/CHECKS.md).
+        Stray-light fraction s the lab states: a reading of true absorbance A shows
+        −log10((10^−A + s_lab)/(1 + s_lab)) (../shared/CHECKS.md), s_lab the lab's true
+        fraction.
+    stray_u_rel : float
+        What the lab knows of its fraction (from its own stray-light check): the relative
+        standard uncertainty it states with s; each lab's true s_lab is drawn as
+        s·(1 + ``stray_u_rel``·N(0, 1)), ≥ 0. Both fits state s and u(s) to ``unmix``
+        (``stray_fraction``, ``u_stray_fraction``), which corrects the readings.
     peak_au : (float, float)
         Range of each sample's peak true absorbance (AU), drawn uniformly.
     declared : bool
@@ -111,6 +117,7 @@ class Condition:
     stock_rel: float = 0.0
     noise_fwhm_nm: float = 0.0
     stray: float = 0.0
+    stray_u_rel: float = 0.0
     peak_au: tuple[float, float] = (0.1, 1.5)
     replicates: int = 0
     declared: bool = True
@@ -130,8 +137,8 @@ CONDITIONS: tuple[Condition, ...] = (
               library="standards", prep_rel=0.015, stock_rel=0.015),
     Condition("4 corr. noise", "exact library, noise correlated over 4 nm (FWHM)",
               noise_fwhm_nm=4.0),
-    Condition("5 stray", "exact library, stray light 0.1 %, peak A up to 3",
-              stray=0.001, peak_au=(0.1, 3.0)),
+    Condition("5 stray", "exact library, stray light 0.1 % (known to 20 %), peak A up to 3",
+              stray=0.001, stray_u_rel=0.2, peak_au=(0.1, 3.0)),
     Condition("6 absent, mean", "exact library, triplicate means of absent components",
               replicates=3),
 )
@@ -162,11 +169,15 @@ def correlated_noise(rng: np.random.Generator, shape: tuple[int, int], fwhm_nm: 
     return SIGMA_AU * correlate1d(white, kernel, axis=-1)[:, half:-half]
 
 
-def measure(true_au: np.ndarray, cond: Condition, rng: np.random.Generator) -> np.ndarray:
-    """Readings (AU) of true absorbances (spectra × wavelengths): stray light, then noise."""
+def measure(true_au: np.ndarray, cond: Condition, rng: np.random.Generator,
+            stray: float | None = None) -> np.ndarray:
+    """Readings (AU) of true absorbances (spectra × wavelengths): stray light, then noise.
+
+    ``stray``: the lab's true fraction (default the condition's stated one)."""
     shown = true_au
-    if cond.stray > 0:
-        shown = -np.log10((10.0 ** -true_au + cond.stray) / (1.0 + cond.stray))
+    stray = cond.stray if stray is None else stray
+    if stray > 0:
+        shown = -np.log10((10.0 ** -true_au + stray) / (1.0 + stray))
     return shown + correlated_noise(rng, true_au.shape, cond.noise_fwhm_nm)
 
 
@@ -217,6 +228,8 @@ def draw_samples(cond: Condition, rng: np.random.Generator, n: int) -> np.ndarra
 def _fit_options(cond: Condition, fit: str) -> dict[str, object]:
     options: dict[str, object] = {"window": WINDOW_NM, "method": "nnls",
                                   "unit": CONCENTRATION_UNIT}
+    if cond.stray > 0:
+        options.update(stray_fraction=cond.stray, u_stray_fraction=cond.stray * cond.stray_u_rel)
     if fit == "noise stated":
         options["noise"] = cond.noise_model()
     elif fit != "defaults":
@@ -300,7 +313,10 @@ def simulate_lab(cond: Condition, rng: np.random.Generator, n_samples: int,
         conc = draw_samples(cond, rng, n_samples)
         if cond.replicates:
             return _replicate_z(cond, lib, conc, rng, fits)
-        readings = measure(conc @ absorptivity() / 1000.0, cond, rng)
+        lab_stray = None
+        if cond.stray > 0:
+            lab_stray = max(0.0, cond.stray * (1.0 + cond.stray_u_rel * rng.standard_normal()))
+        readings = measure(conc @ absorptivity() / 1000.0, cond, rng, lab_stray)
         spectra = ms.make_spectra(readings, WAVELENGTHS_NM, pathlength_cm=1.0)
         out = {}
         for fit in fits:
