@@ -384,7 +384,7 @@ def test_cli_cube_to_csv_and_local_workers(cube_files: Path, cli) -> None:
               "--workers", "1")
     assert run.exit_code == 0, run.output
     lines = out.read_text().splitlines()
-    assert lines[0].endswith(",flags,u_noise,u_library,y,x") and len(lines) == 1 + 6 * 8 * 3
+    assert lines[0].endswith(",flags,u_noise,u_library,u_stray,y,x") and len(lines) == 1 + 6 * 8 * 3
 
 
 def test_cli_infinity_in_a_cube_on_local_workers(cube_files: Path) -> None:

@@ -30,12 +30,12 @@ BASELINE_TERM = "baseline_term"
 MadeBy = Literal["kernel", "shift kernel", "model", "unmix"]
 
 UNCERTAINTY_BASIS = (
-    "combined standard uncertainty sqrt(u_noise^2 + u_library^2): u_noise Type A from the "
-    "fit, s * sqrt(diag((D^T D)^-1)) / pathlength with s^2 = RSS/(n - p) of each spectrum "
-    "(NaN when n - p = 0); u_library the library's error with its correlation over "
-    "wavelengths (error_pattern), propagated as delta x = -G delta D x and shared by every "
-    "spectrum of the run; pathlength, dilution and volumetric uncertainties are not "
-    "included (uncertainty_budget adds them)"
+    "combined standard uncertainty sqrt(u_noise^2 + u_library^2 + u_stray^2) of independent "
+    "inputs: u_noise Type A from the fit residuals, s * sqrt(diag((D^T D)^-1)) / pathlength "
+    "with s^2 = RSS/(n - p) (NaN when n - p = 0); u_library the library's error with its "
+    "correlation over wavelengths; u_stray the stated stray-light fraction's uncertainty; "
+    "pathlength, dilution, volumetric and wavelength-scale uncertainties are not included "
+    "(uncertainty_budget adds them)"
 )
 
 
@@ -77,7 +77,8 @@ OUTPUTS: tuple[Output, ...] = (
     Output("concentration", (COMPONENT,), "concentration of each component, c = x/b "
            "(x its fitted coefficient, b the pathlength)", "{unit}"),
     Output("std_uncertainty", (COMPONENT,), "combined standard uncertainty u(c) of every "
-           "source the inputs carry, √(u_noise² + u_library²) (attribute basis)", "{unit}",
+           "source the inputs carry, √(u_noise² + u_library² + u_stray²) (attribute "
+           "basis)", "{unit}",
            extra_attrs=(("basis", UNCERTAINTY_BASIS),)),
     Output("u_noise", (COMPONENT,), "part of u(c) from the spectrum's own noise, Type A "
            "from the fit residuals", "{unit}"),

@@ -21,7 +21,13 @@ from mixsolve.errors import (
 )
 from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
-from mixsolve.library_error import library_quadratic, library_sensitivity, patterns_at
+from mixsolve.library_error import (
+    ERROR_KIND,
+    error_patterns,
+    library_quadratic,
+    library_sensitivity,
+    patterns_at,
+)
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
 from mixsolve.solve.block import (
     BlockSettings,
@@ -186,10 +192,15 @@ def unmix(
     fast combinatorial active-set NNLS over all spectra at once with the baseline columns
     free, checked against ``scipy.optimize.nnls``: :mod:`mixsolve.solve.nnls`, or its
     compiled twin :mod:`mixsolve.solve.fused` for jobs of 10⁴ spectra or more when numba
-    is installed) and c = x / b. The standard
-    uncertainty is Type A from the fit only: u(cₖ) = s √[(DᵀD)⁻¹]ₖₖ / b with
-    s² = RSS/(n − p). For NNLS it is the linearised value of the unconstrained model at
-    the solution, ignoring the constraint.
+    is installed) and c = x / b. The standard uncertainty is the combined standard
+    uncertainty u(cₖ) = √(u_noise² + u_library² + u_stray²) of independent inputs
+    (JCGM 100:2008, 5.1.2): u_noise = s √[(DᵀD)⁻¹]ₖₖ / b with s² = RSS/(n − p) (Type A),
+    inflated when neighbouring readings are correlated; u_library the library's error
+    patterns P_f propagated to first order, δx = −G·δD·x, u² = Σ_f (G P_f x)²ₖ / b²
+    (:mod:`mixsolve.library_error`); u_stray = |G ∂A/∂s|ₖ u(s) / b for a stated stray
+    fraction (:mod:`mixsolve.solve.stray`). For NNLS they are the linearised values of the
+    unconstrained model at the solution, ignoring the constraint. ``attrs
+    ["uncertainty_basis"]`` says which sources the result holds (docs/uncertainty.md).
 
     Examples
     --------
@@ -441,7 +452,7 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
             "library_unit": options.library.attrs["unit"],
             "library_provenance": options.library.attrs.get("provenance", ""),
             "source": options.spectra.attrs.get("source", ""),
-            "uncertainty_basis": UNCERTAINTY_BASIS,
+            "uncertainty_basis": _uncertainty_basis(options, plan),
             "mixsolve_version": __version__,
             "weights": options.weights,
             "noise_model": json.dumps(options.noise.to_dict())
@@ -458,6 +469,27 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
         for key in INPUT_ATTRS:
             var.attrs.pop(key, None)
     return result
+
+
+def _uncertainty_basis(options: _Options, plan: _Plan) -> str:
+    """One paragraph naming the sources ``std_uncertainty`` holds in this result."""
+    patterns = error_patterns(options.library)
+    if patterns.shape[0]:
+        kinds = [str(k) for k in options.library[ERROR_KIND].values] \
+            if ERROR_KIND in options.library.coords else ["declared_u"] * patterns.shape[0]
+        counts = ", ".join(f"{kinds.count(k)} {k}" for k in dict.fromkeys(kinds))
+        library = (f"u_library from the library's {patterns.shape[0]} error patterns "
+                   f"({counts}), correlated over wavelengths, propagated as "
+                   "delta x = -G delta D x with the unweighted design and shared by every "
+                   "spectrum of the run")
+    else:
+        library = "u_library = 0: the library states no error of its own"
+    stray = plan.settings.stray
+    stray_text = ("u_stray from the stated stray-light fraction "
+                  f"{stray.fraction:g} +- {stray.u_fraction:g} after the readings were "
+                  "corrected" if stray is not None else
+                  "u_stray = 0: no stray-light fraction stated, readings not corrected")
+    return (f"{UNCERTAINTY_BASIS}. In this result: {library}; {stray_text}.")
 
 
 def _fitted_readings(plan: _Plan) -> xr.DataArray:
