@@ -20,8 +20,10 @@ Used by ``benchmarks/coverage_study.py`` (the table) and ``tests/test_coverage_h
 
 from __future__ import annotations
 
+import tempfile
 import warnings
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Literal
 
 import numpy as np
@@ -181,15 +183,28 @@ def measure(true_au: np.ndarray, cond: Condition, rng: np.random.Generator,
     return shown + correlated_noise(rng, true_au.shape, cond.noise_fwhm_nm)
 
 
+def exact_table() -> xr.DataArray:
+    """The true absorptivities as a table (component × wavelength, ``ABSORPTIVITY_UNIT``)."""
+    return xr.DataArray(absorptivity(), dims=("component", "wavelength"),
+                        coords={"component": list(BANDS), "wavelength": WAVELENGTHS_NM})
+
+
 def lab_library(cond: Condition, rng: np.random.Generator) -> xr.Dataset:
     """The library one lab works with: the exact table, or built from its own standards."""
+    if cond.library == "exact":
+        return ms.import_absorptivities(exact_table(), ABSORPTIVITY_UNIT,
+                                        source="synthetic coverage study (exact)")
+    standards, sheet = lab_standards(cond, rng)
+    return ms.build_library(standards, sheet, source="synthetic coverage study (standards)")
+
+
+def lab_standards(cond: Condition, rng: np.random.Generator
+                  ) -> tuple[xr.DataArray, pd.DataFrame]:
+    """One lab's standards: five per component at ``STANDARD_LEVELS_AU``, made up with the
+    condition's preparation and stock errors, read with its noise; and the standards sheet
+    (nominal concentrations, and what the lab declares, see ``Condition.declared``)."""
     eps = absorptivity()
     names = list(BANDS)
-    if cond.library == "exact":
-        table = xr.DataArray(eps, dims=("component", "wavelength"),
-                             coords={"component": names, "wavelength": WAVELENGTHS_NM})
-        return ms.import_absorptivities(table, ABSORPTIVITY_UNIT,
-                                        source="synthetic coverage study (exact)")
     rows, true_au = [], []
     for k, comp in enumerate(names):
         stock = 1.0 + cond.stock_rel * rng.standard_normal()
@@ -207,7 +222,7 @@ def lab_library(cond: Condition, rng: np.random.Generator) -> xr.Dataset:
     sheet = pd.DataFrame(rows)
     standards = ms.make_spectra(measure(np.array(true_au), cond, rng), WAVELENGTHS_NM,
                                 sheet["sample"].tolist(), pathlength_cm=1.0)
-    return ms.build_library(standards, sheet, source="synthetic coverage study (standards)")
+    return standards, sheet
 
 
 def draw_samples(cond: Condition, rng: np.random.Generator, n: int) -> np.ndarray:
@@ -328,6 +343,69 @@ def simulate_lab(cond: Condition, rng: np.random.Generator, n_samples: int,
     return out
 
 
+def simulate_lab_cli(cond: Condition, rng: np.random.Generator, n_samples: int,
+                     folder: Path) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """The lab of :func:`simulate_lab` (the same draws), through the command line.
+
+    Its inputs are written as files in ``folder`` (an absorptivity table, or the standards'
+    spectra and sheet; the samples' spectra), then ``mixsolve library import`` or
+    ``mixsolve library build`` and ``mixsolve unmix`` run in this process through click's
+    test runner, exactly as typed at a prompt, and the z scores come from the results CSV.
+    Only the ``defaults`` fit (the command line states a noise model differently) and
+    conditions without replicates.
+    """
+    from click.testing import CliRunner
+
+    from mixsolve.cli import main
+
+    if cond.replicates:
+        raise ValueError("replicate conditions run through the plate workflow; use the API")
+    runner = CliRunner()
+
+    def run(*args: str) -> None:
+        done = runner.invoke(main, list(args))
+        if done.exit_code != 0:
+            raise RuntimeError(f"mixsolve {' '.join(args)}: {done.output}")
+
+    def write_spectra(values: np.ndarray, names: list[str], path: Path) -> None:
+        frame = pd.DataFrame(values.T, columns=names)
+        frame.insert(0, "wavelength_nm", WAVELENGTHS_NM)
+        frame.to_csv(path, index=False, float_format="%.9g")
+
+    lib = str(folder / "lab.nc")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", MixsolveWarning)
+        if cond.library == "exact":
+            exact_table().to_pandas().T.rename_axis("wavelength_nm").to_csv(folder / "eps.csv")
+            run("library", "import", str(folder / "eps.csv"), "--unit", ABSORPTIVITY_UNIT,
+                "--out", lib)
+        else:
+            standards, sheet = lab_standards(cond, rng)
+            write_spectra(standards.values, sheet["sample"].tolist(), folder / "std.csv")
+            sheet.to_csv(folder / "sheet.csv", index=False)
+            run("library", "build", str(folder / "std.csv"), "--standards",
+                str(folder / "sheet.csv"), "--out", lib)
+        conc = draw_samples(cond, rng, n_samples)
+        lab_stray = None
+        if cond.stray > 0:
+            lab_stray = max(0.0, cond.stray * (1.0 + cond.stray_u_rel * rng.standard_normal()))
+        readings = measure(conc @ absorptivity() / 1000.0, cond, rng, lab_stray)
+        names = [f"s{i:03d}" for i in range(n_samples)]
+        write_spectra(readings, names, folder / "samples.csv")
+        stray = ["--stray", f"{cond.stray:g}", "--u-stray",
+                 f"{cond.stray * cond.stray_u_rel:g}"] if cond.stray > 0 else []
+        run("unmix", lib, str(folder / "samples.csv"), "--window",
+            f"{WINDOW_NM[0]:g}-{WINDOW_NM[1]:g}", "--method", "nnls", "--unit",
+            CONCENTRATION_UNIT, *stray, "--out", str(folder / "results.csv"))
+    table = pd.read_csv(folder / "results.csv", keep_default_na=False, na_values=[""])
+    truth = pd.DataFrame({"sample": np.repeat(names, len(BANDS)),
+                          "component": np.tile(list(BANDS), n_samples),
+                          "truth": conc.ravel()})
+    hit = truth.merge(table, on=["sample", "component"], how="left")
+    z = ((hit["concentration"] - hit["truth"]) / hit["std_uncertainty"]).to_numpy()
+    return {"defaults": (z, _doubted(hit["flags"].fillna("")))}
+
+
 @dataclass(frozen=True)
 class Coverage:
     """Summary of the z scores of one condition and fit."""
@@ -359,8 +437,12 @@ def summarise(z: np.ndarray, doubt: np.ndarray, cond_key: str, fit: str,
 
 
 def run_condition(cond: Condition, n_labs: int, n_samples: int, seed: int,
-                  fits: tuple[str, ...] = FITS) -> list[Coverage]:
+                  fits: tuple[str, ...] = FITS, via: Literal["api", "cli"] = "api"
+                  ) -> list[Coverage]:
     """Simulate ``n_labs`` independent labs of ``n_samples`` samples; one summary per fit.
+
+    ``via="cli"``: every lab through the command line (:func:`simulate_lab_cli`, the
+    ``defaults`` fit only), in a temporary folder.
 
     The labs of condition i draw from ``SeedSequence(seed)`` child i (its position in
     ``CONDITIONS``), lab j from that child's child j.
@@ -369,9 +451,17 @@ def run_condition(cond: Condition, n_labs: int, n_samples: int, seed: int,
     labs = np.random.SeedSequence(seed).spawn(len(CONDITIONS) + 1)[index].spawn(n_labs)
     z: dict[str, list[np.ndarray]] = {fit: [] for fit in fits}
     doubt: dict[str, list[np.ndarray]] = {fit: [] for fit in fits}
+    if via == "cli":
+        fits = ("defaults",)
+        z, doubt = {"defaults": []}, {"defaults": []}
     for lab_seed in labs:
-        for fit, (values, doubted) in simulate_lab(
-                cond, np.random.default_rng(lab_seed), n_samples, fits).items():
+        rng = np.random.default_rng(lab_seed)
+        if via == "cli":
+            with tempfile.TemporaryDirectory() as folder:
+                lab = simulate_lab_cli(cond, rng, n_samples, Path(folder))
+        else:
+            lab = simulate_lab(cond, rng, n_samples, fits)
+        for fit, (values, doubted) in lab.items():
             z[fit].append(values)
             doubt[fit].append(doubted)
     return [summarise(np.concatenate(z[fit]), np.concatenate(doubt[fit]), cond.key, fit,

@@ -29,32 +29,14 @@ NAMES = list(cs.BANDS)
 
 
 def _table(eps: np.ndarray = EPS) -> xr.DataArray:
-    return xr.DataArray(eps, dims=("component", "wavelength"),
-                        coords={"component": NAMES, "wavelength": WL})
+    return cs.exact_table().copy(data=eps)
 
 
 def _standards(rng: np.random.Generator, *, prep: float = 0.0, stock: float = 0.0,
                declare: bool = True) -> tuple[xr.DataArray, pd.DataFrame]:
-    """Five synthetic standards per component, 1.5 % errors as asked, σ_A 0.002 AU."""
-    cond = cs.Condition("t", "test", library="standards", prep_rel=prep, stock_rel=stock,
-                        declared=declare)
-    rows, true_au = [], []
-    for k, comp in enumerate(NAMES):
-        drawn = 1.0 + stock * rng.standard_normal()
-        for i, level in enumerate(cs.STANDARD_LEVELS_AU):
-            nominal = round(1000.0 * level / EPS[k].max(), 2)
-            true_au.append(EPS[k] * nominal * drawn * (1 + prep * rng.standard_normal()) / 1e3)
-            row = {"sample": f"{comp}_{i}", "component": comp, "concentration": nominal,
-                   "unit": "mg/L"}
-            if declare and prep:
-                row["u_concentration"] = prep * nominal
-            if declare and stock:
-                row.update(stock=f"{comp} stock", u_stock_rel=stock)
-            rows.append(row)
-    sheet = pd.DataFrame(rows)
-    spectra = ms.make_spectra(cs.measure(np.array(true_au), cond, rng), WL,
-                              sheet["sample"].tolist(), pathlength_cm=1.0)
-    return spectra, sheet
+    """Five synthetic standards per component (coverage_sim.lab_standards), errors as asked."""
+    return cs.lab_standards(cs.Condition("t", "test", library="standards", prep_rel=prep,
+                                         stock_rel=stock, declared=declare), rng)
 
 
 def _build(spectra: xr.DataArray, sheet: pd.DataFrame, **kw) -> xr.Dataset:
