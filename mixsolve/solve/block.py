@@ -95,6 +95,8 @@ class BlockSettings:
     #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.engine.choose_engine`), chosen for
     #: the whole job so that every block and dask chunk uses the same
     engine: Literal["numpy", "compiled"] = "numpy"
+    #: readings over which noise may be correlated (:func:`mixsolve.solve.trust.structure_lag`)
+    structure_lag: int | None = None
 
 
 def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
@@ -231,15 +233,19 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
         residual = spectra - fitted
         lack = None if settings.noise is None else lack_of_fit(
             residual, fitted, dof, settings.noise)
-        return _Fitted(coef, se, dof, status, summarise(spectra, residual), lack,
+        summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + the shift
+                            settings.structure_lag)
+        return _Fitted(coef, se, dof, status, summary, lack,
                        {"wavelength_shift_nm": shift, "u_wavelength_shift_nm": u_shift,
                         "fitted": fitted, "residual": residual})
-    fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine)
+    fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine,
+                      structure_lag=settings.structure_lag)
     if isinstance(kind, WeightedFit):
         first = fit.coef @ settings.design.T
         at = np.where(np.isfinite(first), first, spectra)
         weights = 1.0 / kind.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
-        fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights)
+        fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights,
+                          structure_lag=settings.structure_lag)
     lack = None if settings.noise is None else lack_of_fit_model(
         spectra, fit.coef, settings.design, fit.dof, settings.noise)
     return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
@@ -256,7 +262,8 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
         settings.noise is not None)
     canonical = fit.coef[:, :n] / b[:, None]
     conc = canonical * settings.unit_factor
-    u_conc = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
+    u_noise = _noise_term(fit, b, settings)
+    u_conc = u_noise  # std_uncertainty: the combined standard uncertainty of every source
     at_zero = (conc == 0) & (settings.method == "nnls")
     bias = (canonical @ settings.shift_matrix.T) * settings.unit_factor
     with np.errstate(invalid="ignore"):  # no dilution brings a peak ≤ 0 AU into range
@@ -266,6 +273,16 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
                        ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
                        known=texts)
     return {"coef": fit.coef, "concentration": conc, "std_uncertainty": u_conc,
-            "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,
+            "u_noise": u_noise, "at_zero": at_zero, "shift_bias_per_nm": bias,
+            "rms_residual": rms, "noise_inflation": fit.summary.noise_inflation,
             "dof": fit.dof, "status": status, **dict(zip(CHECK_NAMES, checks, strict=True)),
             "suggested_dilution": dilution, "flags": flags, **fit.extra}
+
+
+def _noise_term(fit: _Fitted, b: np.ndarray, settings: BlockSettings) -> np.ndarray:
+    """u_noise (n, components), result unit: the fit's standard error s·√diag((DᵀD)⁻¹)
+    per b and unit, times the correlated-noise inflation f of each spectrum
+    (:func:`mixsolve.solve.residuals.lag_figures`)."""
+    n = len(settings.components)
+    inflation = fit.summary.noise_inflation[:, None]
+    return fit.std_error[:, :n] / b[:, None] * settings.unit_factor * inflation

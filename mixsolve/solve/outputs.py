@@ -30,9 +30,10 @@ BASELINE_TERM = "baseline_term"
 MadeBy = Literal["kernel", "shift kernel", "model", "unmix"]
 
 UNCERTAINTY_BASIS = (
-    "Type A from the fit only: s * sqrt(diag((D^T D)^-1)) / pathlength, s^2 = RSS/(n - p) of "
-    "each spectrum; library absorptivity, pathlength and volumetric uncertainties are not "
-    "included; NaN when n - p = 0"
+    "Type A from the fit only: f * s * sqrt(diag((D^T D)^-1)) / pathlength, s^2 = RSS/(n - p) "
+    "of each spectrum, f its correlated-noise inflation (noise_inflation, Newey-West); "
+    "library absorptivity, pathlength and volumetric uncertainties are not included; NaN "
+    "when n - p = 0"
 )
 
 
@@ -74,12 +75,18 @@ OUTPUTS: tuple[Output, ...] = (
     Output("concentration", (COMPONENT,), "concentration of each component, c = x/b "
            "(x its fitted coefficient, b the pathlength)", "{unit}"),
     Output("std_uncertainty", (COMPONENT,), "standard uncertainty u(c), Type A from the "
-           "fit only (attribute basis)", "{unit}",
+           "fit only, u_noise (attribute basis)", "{unit}",
            extra_attrs=(("basis", UNCERTAINTY_BASIS),)),
+    Output("u_noise", (COMPONENT,), "the fit's Type A term: the standard error from the "
+           "residual, s·√diag((DᵀD)⁻¹)/b, times noise_inflation for noise correlated "
+           "between neighbouring readings", "{unit}"),
     Output("at_zero", (COMPONENT,), "true where NNLS held the component at 0", dtype=bool),
     Output("shift_bias_per_nm", (COMPONENT,), "change of each concentration per +1 nm of "
            "wavelength error, at the fitted composition", "{unit} per nm"),
     Output("rms_residual", (), "root-mean-square residual over the readings used", "AU"),
+    Output("noise_inflation", (), "f, the factor by which correlated noise widens u_noise: "
+           "Newey–West long-run-variance ratio of the residual, Bartlett window chosen by "
+           "Newey–West 1994 (1: independent readings)"),
     Output("dof", (), "residual degrees of freedom n − p", dtype=np.int64),
     Output("status", (), "bit mask of the status bits of mixsolve.flags", dtype=np.int64),
     Output("absorbance_max", (), "largest measured absorbance over the used wavelengths",
@@ -89,6 +96,9 @@ OUTPUTS: tuple[Output, ...] = (
     Output("runs_z", (), "runs test z of the residual signs in wavelength order"),
     Output("runs_p", (), "one-sided p of the runs test (too few runs)"),
     Output("residual_lag1", (), "lag-1 autocorrelation of the residual"),
+    Output("structure_z", (), "autocorrelation of the residual at lag s + 1 in units of its "
+           "standard error for noise correlated over at most s readings, s the readings "
+           "within 5 nm (Bartlett 1946); structured_residual above 3.09"),
     Output("lack_of_fit_ratio", (), "√(χ²/dof) against the noise model (NaN without one)"),
     Output("lack_of_fit_p", (), "p = P(χ²_dof ≥ χ²) (NaN without a noise model)"),
     Output("suggested_dilution", (), "dilution factor bringing the peak to sqrt(low*high) AU",

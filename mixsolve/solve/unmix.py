@@ -50,7 +50,11 @@ from mixsolve.solve.outputs import (
     kernel_outputs,
     result_outputs,
 )
-from mixsolve.solve.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
+from mixsolve.solve.trust import (
+    DEFAULT_WAVELENGTH_TOLERANCE_NM,
+    shift_bias_matrix,
+    structure_lag,
+)
 from mixsolve.spectra import (
     WAVELENGTH,
     check_number,
@@ -311,7 +315,8 @@ def _plan(options: _Options) -> _Plan:
         unit_factor=factor, shift_matrix=shift_bias_matrix(library, design, used_wl),
         tolerance_nm=options.tolerance_nm,
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
-                                                   if d != WAVELENGTH]))))
+                                                   if d != WAVELENGTH]))),
+        structure_lag=structure_lag(used_wl))
     return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings)
 
 
