@@ -292,28 +292,33 @@ def lag_constants(n: int, n_terms: int) -> tuple[int, float, int]:
 
 @numba.njit(nogil=True, cache=True, fastmath=REORDER)
 def _lag_sum(r: np.ndarray, lag: int) -> float:
-    """Σᵢ rᵢ rᵢ₊ₗ."""
+    """Σᵢ rᵢ rᵢ₊ₗ (over two views, which vectorises; indexing r twice does not)."""
+    head = r[:r.shape[0] - lag]
+    tail = r[lag:]
     acc = 0.0
-    for j in range(r.shape[0] - lag):
-        acc += r[j] * r[j + lag]
+    for j in range(head.shape[0]):
+        acc += head[j] * tail[j]
     return acc
 
 
 @numba.njit(nogil=True, cache=True)
-def _lag_figures(r: np.ndarray, ss: float, n_terms: int, q: int, scale: float, l_max: int,
-                 s: int, rho: np.ndarray, out: np.ndarray) -> None:
-    """f, L and z of :func:`mixsolve.solve.residuals.lag_figures` into out[:3] (``rho``:
-    scratch of at least max(q, s + 1, l_max) + 1; ``s`` the structure lag)."""
+def _lag_figures(r: np.ndarray, ss: float, lag1: float, n_terms: int, q: int, scale: float,
+                 l_max: int, s: int, rho: np.ndarray, out: np.ndarray) -> None:
+    """f, L and z of :func:`mixsolve.solve.residuals.lag_figures` into out[:3] (``ss`` and
+    ``lag1``: Σr² and Σrᵢrᵢ₊₁; ``rho``: scratch of at least max(q, s + 1, l_max) + 1; ``s``
+    the structure lag)."""
     n = r.shape[0]
     if not ss > 0.0:
         out[0] = 1.0
         out[1] = 0.0
         out[2] = np.nan
         return
-    top = max(q, l_max)
+    first = q
     if 0 <= s and s + 1 < n:
-        top = max(top, s + 1)
-    for lag in range(1, min(top, n - 1) + 1):
+        first = max(first, s + 1)
+    first = min(first, n - 1)
+    rho[1] = lag1 * (1.0 / ss)
+    for lag in range(2, first + 1):
         rho[lag] = _lag_sum(r, lag) * (1.0 / ss)
     s0 = 0.0
     s1 = 0.0
@@ -326,6 +331,8 @@ def _lag_figures(r: np.ndarray, ss: float, n_terms: int, q: int, scale: float, l
     if s0 > 0.0:
         gamma = BARTLETT_LAG_CONSTANT * ((s1 / s0) ** 2) ** (1.0 / 3.0)
         window = min(np.floor(gamma * scale), l_max)
+    for lag in range(first + 1, int(window) + 1):  # the window's lags beyond those
+        rho[lag] = _lag_sum(r, lag) * (1.0 / ss)
     total = 0.0
     for lag in range(1, int(window) + 1):
         total += (1.0 - lag / (window + 1.0)) * rho[lag]
@@ -468,7 +475,7 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
         if not summarise:
             continue
         _residual_summary(row, x, design_t, resid, out)
-        _lag_figures(resid, out[0], p, q, scale, l_max, lag_s, rho, lagged)
+        _lag_figures(resid, out[0], out[1], p, q, scale, l_max, lag_s, rho, lagged)
         sum_squares[i] = out[0]
         lag_sum[i] = out[1]
         n_positive[i] = out[2]

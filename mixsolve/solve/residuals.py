@@ -86,7 +86,8 @@ def summarise(values: np.ndarray, residual: np.ndarray, n_terms: int = 0,
         n_nonzero = np.count_nonzero(residual, axis=1).astype(float)
     a_max, a_min = values.max(axis=1), values.min(axis=1)
     odd = ~np.isfinite(ss) | (n_nonzero < m) | np.isnan(a_max)
-    lagged = lag_figures(np.where(odd[:, None], 0.0, residual), n_terms, structure_lag)
+    lagged = lag_figures(np.where(odd[:, None], 0.0, residual) if odd.any() else residual,
+                         n_terms, structure_lag)
     out = ResidualSummary(
         ss, lag, np.full(n, float(m)), np.count_nonzero(pos, axis=1).astype(float),
         n_nonzero, np.count_nonzero(pos[:, 1:] != pos[:, :-1], axis=1).astype(float),
@@ -215,12 +216,22 @@ def lag_figures(residual: np.ndarray, n_terms: int = 0, structure_lag: int | Non
 
     with np.errstate(invalid="ignore", divide="ignore"):
         scale = np.where(gamma0 > 0, 1.0 / gamma0, 0.0)
+        first = min(max(c.q, s + 1), n - 1)
+        for lag in range(1, first + 1):
+            at(lag)
         head = np.array([at(j) for j in range(1, c.q + 1)]).reshape(c.q, k)
         s0 = 1.0 + 2.0 * head.sum(axis=0)
         s1 = 2.0 * (np.arange(1, c.q + 1) @ head)
         gamma = BARTLETT_LAG_CONSTANT * ((s1 / s0) ** 2) ** (1.0 / 3.0)
         window = np.where(s0 > 0, np.minimum(np.floor(gamma * c.scale), c.l_max), c.l_max)
         window = np.where(gamma0 > 0, window, 0.0)
+        longer = np.flatnonzero(window > first)  # the few rows whose window reaches further
+        if longer.size:
+            sub, sub_scale = r[longer], scale[longer]
+            for lag in range(first + 1, int(window.max()) + 1):
+                rho[lag] = np.zeros(k)
+                rho[lag][longer] = np.einsum("ij,ij->i", sub[:, :-lag], sub[:, lag:]) \
+                    * sub_scale
         total = np.zeros(k)
         for lag in range(1, int(window.max(initial=0)) + 1):
             total += np.clip(1.0 - lag / (window + 1.0), 0.0, None) * at(lag)
