@@ -14,7 +14,7 @@ DEPENDENT = 8  # the wavelengths left make the design rank deficient: results ar
 ABOVE_RANGE = 16  # peak absorbance above the reliable range
 BELOW_RANGE = 32  # peak absorbance below the reliable range
 LACK_OF_FIT = 64  # residual larger than the noise model allows
-STRUCTURED = 128  # residual has shape (runs test), not noise
+STRUCTURED = 128  # residual has shape beyond the noise's correlation (structure_z)
 ILL_CONDITIONED = 256  # the wavelength set amplifies noise > 1000-fold (condition number)
 NO_SIGNAL = 512  # every used reading is exactly zero: nothing was measured
 TOO_DARK = 1024  # readings too dark to correct for the stated stray light: left out
@@ -76,8 +76,8 @@ FLAG_MEANINGS: dict[str, str] = {
     STATUS_CODES[ILL_CONDITIONED]: "the wavelengths separate the components poorly (scaled "
                                    "condition number above 1000): noise is amplified that "
                                    "much",
-    STATUS_CODES[STRUCTURED]: "residual has shape, not noise: unmodelled absorber, scatter or "
-                              "a wavelength shift",
+    STATUS_CODES[STRUCTURED]: "residual has shape wider than correlated noise: unmodelled "
+                              "absorber, scatter or a wavelength shift",
     AT_ZERO: "held at zero by the non-negativity constraint",
     NEGATIVE: "ordinary least squares gave a negative concentration",
     SHIFT_SENSITIVE: "a small wavelength error would move this result by more than 2 %",

@@ -198,7 +198,8 @@ def test_carryover_by_hand(molar_library, mix_spectra) -> None:
 
 def test_repeat_scan_sd_replaces_the_fit_scatter(noisy_result, uncertain_library) -> None:
     """Given σ per wavelength equal to the fit's s, the propagated noise equals the fit's
-    noise term u_noise; doubling σ doubles it; the basis is recorded."""
+    noise term u_noise without its correlated-noise inflation; doubling σ doubles it; the
+    basis is recorded."""
     dof = noisy_result["dof"].values
     rss = (noisy_result["residual"] ** 2).sum("wavelength").values
     s = np.sqrt(rss / dof)
@@ -208,7 +209,9 @@ def test_repeat_scan_sd_replaces_the_fit_scatter(noisy_result, uncertain_library
         budget = ms.uncertainty_budget(noisy_result.sel(sample=[name]), uncertain_library,
                                        noise_sd=sd)
         got = budget["contribution"].sel(source="spectral_noise").values[0]
-        assert np.allclose(got, noisy_result["u_noise"].values[i], rtol=1e-8)
+        # u_noise is s·√diag(...)/b times the correlated-noise inflation f; σ = s gives f = 1
+        expected = noisy_result["u_noise"].values[i] / noisy_result["noise_inflation"].values[i]
+        assert np.allclose(got, expected, rtol=1e-8)
         assert budget.attrs["noise_from"] == "repeat scans"
         twice = ms.uncertainty_budget(noisy_result.sel(sample=[name]), uncertain_library,
                                       noise_sd=2 * sd)

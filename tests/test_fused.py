@@ -155,11 +155,12 @@ def test_rows_at_the_iteration_limit_are_finished_by_numpy(
     original = fused.fit_rows
     limited = []
 
-    def no_iterations(*args: object) -> None:
+    def no_iterations(*args: object, **options: object) -> None:
         args = list(args)
         args[11] = 0  # max_iter
-        original(*args)
-        limited.append(int(np.sum(args[-1] == engine.ROW_ITERATION_LIMIT)))
+        original(*args, **options)
+        state = args[14 + len(fused.SUMMARY_FIELDS)]  # after coef and the summary fields
+        limited.append(int(np.sum(state == engine.ROW_ITERATION_LIMIT)))
 
     monkeypatch.setattr(fused, "fit_rows", no_iterations)
     got = fit_spectra(spectra, design, 5, "nnls", engine="compiled").coef

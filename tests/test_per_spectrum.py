@@ -341,8 +341,8 @@ def test_unmix_weights_noise_equals_the_weighted_reference(method: str, baseline
     """``unmix(weights="noise", noise=...)``: the two-pass weighted fit, redone here by
     hand: an unweighted first pass (scipy.optimize.nnls / numpy.linalg.lstsq), weights
     1/σ_A² of the noise preset at its fitted absorbance, then the weighted reference per
-    spectrum, rows scaled by √w. Concentrations, uncertainties and dof agree; a spectrum
-    with missing readings is fitted on the rest."""
+    spectrum, rows scaled by √w. Concentrations, uncertainties (u_noise before its
+    inflation f) and dof agree; a spectrum with missing readings is fitted on the rest."""
     rng = np.random.default_rng(SEED + 100)
     lib = library_of_bands()
     wl = lib["wavelength"].values
@@ -366,5 +366,8 @@ def test_unmix_weights_noise_equals_the_weighted_reference(method: str, baseline
         x, se, dof = weighted_reference(design, a[i], w, 3, method)
         np.testing.assert_allclose(result["concentration"].values[i], x[:3], rtol=1e-6,
                                    atol=1e-12)
-        np.testing.assert_allclose(result["std_uncertainty"].values[i], se[:3], rtol=1e-6)
+        # the standard errors of independent readings, before the correlated-noise
+        # inflation f (tests/external/test_newey_west.py checks f)
+        f = float(result["noise_inflation"].values[i])
+        np.testing.assert_allclose(result["u_noise"].values[i] / f, se[:3], rtol=1e-6)
         assert int(result["dof"].values[i]) == dof

@@ -66,7 +66,7 @@ def test_model_summary_equals_the_explicit_residual(rng: np.random.Generator,
     values[3, 9] = np.nan
     coef[5] = np.nan  # a spectrum that could not be fitted
     got = summarise_model(values, coef, design)
-    want = summarise(values, values - coef @ design.T)
+    want = summarise(values, values - coef @ design.T, design.shape[1])
     for g, w, name in zip(got, want, residuals.ResidualSummary._fields, strict=True):
         np.testing.assert_allclose(g, w, rtol=1e-12, equal_nan=True, err_msg=name)
     assert np.isnan(got.sum_squares[5]) and got.n_points[3] == 39

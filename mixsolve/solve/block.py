@@ -104,6 +104,8 @@ class BlockSettings:
     engine: Literal["numpy", "compiled"] = "numpy"
     #: the stated stray fraction the readings are corrected for (None: not corrected)
     stray: StrayCorrection | None = None
+    #: readings over which noise may be correlated (:func:`mixsolve.solve.trust.structure_lag`)
+    structure_lag: int | None = None
 
 
 def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
@@ -244,15 +246,19 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
         residual = spectra - fitted
         lack = None if settings.noise is None else lack_of_fit(
             residual, fitted, dof, settings.noise)
-        return _Fitted(coef, se, dof, status, summarise(spectra, residual), lack,
+        summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + the shift
+                            settings.structure_lag)
+        return _Fitted(coef, se, dof, status, summary, lack,
                        {"wavelength_shift_nm": shift, "u_wavelength_shift_nm": u_shift,
                         "fitted": fitted, "residual": residual})
-    fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine)
+    fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine,
+                      structure_lag=settings.structure_lag)
     if isinstance(kind, WeightedFit):
         first = fit.coef @ settings.design.T
         at = np.where(np.isfinite(first), first, spectra)
         weights = 1.0 / kind.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
-        fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights)
+        fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights,
+                          structure_lag=settings.structure_lag)
     lack = None if settings.noise is None else lack_of_fit_model(
         spectra, fit.coef, settings.design, fit.dof, settings.noise)
     return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
@@ -295,7 +301,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
         settings.noise is not None)
     canonical = fit.coef[:, :n] / b[:, None]
     conc = canonical * settings.unit_factor
-    u_noise = fit.std_error[:, :n] / b[:, None] * settings.unit_factor
+    u_noise = _noise_term(fit, b, settings)
     u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic)
                         ) / b[:, None] * settings.unit_factor
     u_stray, status = _stray_terms(fit, b, settings, status)
@@ -312,6 +318,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     return {"coef": fit.coef, "concentration": conc, "std_uncertainty": u_conc,
             "u_noise": u_noise, "u_library": u_library, "u_stray": u_stray,
             "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,
+            "noise_inflation": fit.summary.noise_inflation,
             "dof": fit.dof, "status": status, **dict(zip(CHECK_NAMES, checks, strict=True)),
             "suggested_dilution": dilution, "flags": flags, **fit.extra}
 
@@ -326,3 +333,12 @@ def _stray_terms(fit: _Fitted, b: np.ndarray, settings: BlockSettings, status: n
     per_coef, dark = fit.stray
     return (per_coef[:, :n] / b[:, None] * settings.unit_factor,
             status | np.where(dark, TOO_DARK, 0))
+
+
+def _noise_term(fit: _Fitted, b: np.ndarray, settings: BlockSettings) -> np.ndarray:
+    """u_noise (n, components), result unit: the fit's standard error s·√diag((DᵀD)⁻¹)
+    per b and unit, times the correlated-noise inflation f of each spectrum
+    (:func:`mixsolve.solve.residuals.lag_figures`)."""
+    n = len(settings.components)
+    inflation = fit.summary.noise_inflation[:, None]
+    return fit.std_error[:, :n] / b[:, None] * settings.unit_factor * inflation

@@ -44,7 +44,7 @@ from mixsolve.solve.engine import (
     kkt_rtol,
 )
 from mixsolve.solve.nnls import solve_reduced
-from mixsolve.solve.per_spectrum import block_spectra, fit_each
+from mixsolve.solve.per_spectrum import block_spectra, fit_each, weighted_inflation
 from mixsolve.solve.residuals import (
     ResidualSummary,
     empty_summary,
@@ -83,6 +83,7 @@ def fit_spectra(
     weights: np.ndarray | None = None,
     *,
     engine: Engine = "auto",
+    structure_lag: int | None = None,
 ) -> Fit:
     """Fit every spectrum (last axis: wavelength) to the design matrix.
 
@@ -102,6 +103,9 @@ def fit_spectra(
         s² = Σ wᵢrᵢ²/(n − p) (so u stays in concentration units).
     engine : {"auto", "numpy", "compiled"}
         Who fits the complete spectra (:func:`mixsolve.solve.engine.choose_engine`).
+    structure_lag : int, optional
+        Readings over which the noise may be correlated, for the summary's structure z
+        (:func:`mixsolve.solve.residuals.lag_figures`; None: its default).
 
     Returns
     -------
@@ -137,17 +141,18 @@ def fit_spectra(
         w = np.broadcast_to(np.asarray(weights, dtype=float), spectra.shape).reshape(flat.shape)
         refuse_infinity(flat, np.arange(n_spec))
         values = np.where(np.isfinite(w) & (w > 0), flat, np.nan)
-        _fit_weighted(values, w, design, n_components, method, out)
+        _fit_weighted(values, w, design, n_components, method, out, structure_lag)
     else:
         rest = np.arange(n_spec)
         if n_spec:
             plan = _plan(np.ascontiguousarray(design, dtype=float).tobytes(), design.shape,
                          n_components, method)
             if plan.full_rank:
-                rest = _fit_complete(flat, plan, out, engine)
+                rest = _fit_complete(flat, plan, out, engine, structure_lag)
         if rest.size:
             refuse_infinity(flat, rest)
-            _fit_groups(flat, _missing_groups(flat, rest), design, n_components, method, out)
+            _fit_groups(flat, _missing_groups(flat, rest), design, n_components, method, out,
+                        structure_lag)
     return Fit(
         out.coef.reshape(*lead, n_terms),
         out.std_error.reshape(*lead, n_terms),
@@ -249,26 +254,29 @@ def _plan(design: bytes, shape: tuple[int, int], n_components: int, method: Meth
     return _Plan(np.frombuffer(design).reshape(shape), n_components, method)
 
 
-def _fit_complete(flat: np.ndarray, plan: _Plan, out: _Outputs, engine: Engine
-                  ) -> np.ndarray:
+def _fit_complete(flat: np.ndarray, plan: _Plan, out: _Outputs, engine: Engine,
+                  structure_lag: int | None = None) -> np.ndarray:
     """Fit every spectrum whose readings are all finite; return the rows left over."""
     n_spec, n_wl = flat.shape
     design = plan.design
     state = np.zeros(n_spec, dtype=np.int64)
     kernel = plan.compiled() if choose_engine(engine, n_spec) == "compiled" else None
     if kernel is not None:
-        kernel(np.ascontiguousarray(flat), out.coef, out.summary, state)
+        kernel(np.ascontiguousarray(flat), out.coef, out.summary, state,
+               -1 if structure_lag is None else structure_lag)
         out.summary.n_points[_rows(state == ROW_DONE)] = n_wl
         # rows not fitted have NaN counts, which compare False
-        _fix_zero_residuals(flat, out, np.flatnonzero(out.summary.n_nonzero < n_wl), design)
+        _fix_zero_residuals(flat, out, np.flatnonzero(out.summary.n_nonzero < n_wl), design,
+                            structure_lag)
         again = np.flatnonzero(state == ROW_ITERATION_LIMIT)
         if again.size:
             values = flat[again]
             out.coef[again] = nnls_batch(design, values, plan.n_components).x
-            put(out.summary, again, summarise_model(values, out.coef[again], design))
+            put(out.summary, again, summarise_model(values, out.coef[again], design,
+                                                    structure_lag))
             state[again] = ROW_DONE
     else:
-        _numpy_pass(flat, plan, out, state)
+        _numpy_pass(flat, plan, out, state, structure_lag)
     done = _rows(state == ROW_DONE)
     out.set_errors(done, n_wl - design.shape[1], plan.inverse_diag,
                    out.summary.sum_squares[done])
@@ -280,7 +288,8 @@ def _rows(mask: np.ndarray) -> np.ndarray | slice:
     return slice(None) if mask.all() else mask
 
 
-def _numpy_pass(values: np.ndarray, plan: _Plan, out: _Outputs, state: np.ndarray) -> None:
+def _numpy_pass(values: np.ndarray, plan: _Plan, out: _Outputs, state: np.ndarray,
+                structure_lag: int | None = None) -> None:
     """The numpy engine: project, solve the reduced problems, summarise the residuals."""
     projected = values @ plan.qt.T
     finite = np.isfinite(projected).all(axis=1)
@@ -298,7 +307,7 @@ def _numpy_pass(values: np.ndarray, plan: _Plan, out: _Outputs, state: np.ndarra
         x = solve_reduced(plan.r, y, plan.constrained, plan.rtol, plan.max_iter)[0]
     coef = (x / plan.norms[:, None]).T
     out.coef[target] = coef
-    put(out.summary, target, summarise_model(values, coef, plan.design))
+    put(out.summary, target, summarise_model(values, coef, plan.design, structure_lag))
 
 
 def _compiled_kernel(plan: _Plan) -> Any:
@@ -309,21 +318,22 @@ def _compiled_kernel(plan: _Plan) -> Any:
         return None
 
     def kernel(values: np.ndarray, coef: np.ndarray, summary: ResidualSummary,
-               state: np.ndarray) -> None:
+               state: np.ndarray, structure_lag: int) -> None:
         fused.fit_rows(values, plan.qt, plan.r, plan.norms, plan.design_t, *tables,
                        plan.rtol, plan.max_iter, plan.ols, coef,
-                       *(getattr(summary, name) for name in fused.SUMMARY_FIELDS), state)
+                       *(getattr(summary, name) for name in fused.SUMMARY_FIELDS), state,
+                       structure_lag=structure_lag)
 
     return kernel
 
 
 def _fix_zero_residuals(flat: np.ndarray, out: _Outputs, rows: np.ndarray,
-                        design: np.ndarray) -> None:
+                        design: np.ndarray, structure_lag: int | None = None) -> None:
     """Summarise these rows again without their exact zero residuals (the runs test drops
     zeros; the compiled pass counts them as negative)."""
     if rows.size:
         values = flat[rows]
-        put(out.summary, rows, summarise_model(values, out.coef[rows], design))
+        put(out.summary, rows, summarise_model(values, out.coef[rows], design, structure_lag))
 
 
 # --- spectra with missing readings: one group per pattern -----------------------------------
@@ -336,7 +346,8 @@ def _missing_groups(flat: np.ndarray, rows: np.ndarray) -> list[tuple[np.ndarray
 
 
 def _fit_groups(flat: np.ndarray, groups: list[tuple[np.ndarray, np.ndarray]],
-                design: np.ndarray, n_components: int, method: Method, out: _Outputs) -> None:
+                design: np.ndarray, n_components: int, method: Method, out: _Outputs,
+                structure_lag: int | None = None) -> None:
     """Fit each group of rows on the wavelengths of its mask."""
     n_terms = design.shape[1]
     for mask, rows in groups:
@@ -353,7 +364,7 @@ def _fit_groups(flat: np.ndarray, groups: list[tuple[np.ndarray, np.ndarray]],
         out.coef[rows] = _fit(sub, flat[np.ix_(rows, np.flatnonzero(mask))], n_components,
                               method)
         residual = flat[rows] - out.coef[rows] @ design.T
-        put(out.summary, rows, summarise(flat[rows], residual))
+        put(out.summary, rows, summarise(flat[rows], residual, n_terms, structure_lag))
         out.set_errors(rows, n_used - n_terms, _inverse_diag(sub),
                        out.summary.sum_squares[rows])
 
@@ -370,7 +381,7 @@ def _fit(design: np.ndarray, values: np.ndarray, n_components: int, method: Meth
 # --- weighted fits: one design per spectrum (rows scaled by √w), all spectra at once ----------
 
 def _fit_weighted(values: np.ndarray, w: np.ndarray, design: np.ndarray, n_components: int,
-                  method: Method, out: _Outputs) -> None:
+                  method: Method, out: _Outputs, structure_lag: int | None = None) -> None:
     """Fit each spectrum with its rows scaled by √w, block by block, all spectra at once.
 
     ``values`` (n, m) holds NaN where a reading is absent (missing, or weight 0 or not
@@ -388,12 +399,14 @@ def _fit_weighted(values: np.ndarray, w: np.ndarray, design: np.ndarray, n_compo
         rows = np.arange(lo, min(lo + step, values.shape[0]))
         rows = rows[~too_few[rows]]
         if rows.size:
-            _fit_weighted_rows(values, w, present, rows, design, n_components, method, out)
+            _fit_weighted_rows(values, w, present, rows, design, n_components, method, out,
+                               structure_lag)
 
 
 def _fit_weighted_rows(values: np.ndarray, w: np.ndarray, present: np.ndarray,
                        rows: np.ndarray, design: np.ndarray, n_components: int,
-                       method: Method, out: _Outputs) -> None:
+                       method: Method, out: _Outputs, structure_lag: int | None = None
+                       ) -> None:
     """:func:`_fit_weighted` for the listed rows (each with at least p readings)."""
     root_w = np.sqrt(np.where(present[rows], w[rows], 0.0))
     columns = root_w[:, None, :] * design.T  # (n, p, m): fit_each reads it by columns
@@ -403,6 +416,9 @@ def _fit_weighted_rows(values: np.ndarray, w: np.ndarray, present: np.ndarray,
     ok = fit.full_rank
     rows = rows[ok]
     out.coef[rows] = fit.coef[ok]
-    put(out.summary, rows, summarise(values[rows], values[rows] - fit.coef[ok] @ design.T))
+    residual = values[rows] - fit.coef[ok] @ design.T
+    summary = summarise(values[rows], residual, design.shape[1], structure_lag)
+    put(out.summary, rows, weighted_inflation(summary, residual * root_w[ok],
+                                              design.shape[1]))
     out.set_errors(rows, present[rows].sum(axis=1) - design.shape[1], fit.inverse_diag[ok],
                    fit.rss[ok])

@@ -16,8 +16,11 @@ scaled to unit column norms (computed once, by the caller):
    substitution from a QR factorisation of R[:, S] precomputed for every passive set S
    (2^k sets for k constrained columns: :func:`subset_factors`);
 3. the residual r = a − D x (x = x̂ / column norms) while a is still in the first-level
-   cache, summarised as Σr², Σrᵢrᵢ₊₁, how many rᵢ are > 0 and ≠ 0, and how many sign
-   changes occur between neighbours. The fitted and residual spectra are not stored.
+   cache, summarised as Σr², Σrᵢrᵢ₊₁, how many rᵢ are > 0 and ≠ 0, how many sign
+   changes occur between neighbours, and the lag figures of
+   :func:`mixsolve.solve.residuals.lag_figures` (autocovariances up to a few lags: the
+   correlated-noise inflation f, its window L and the structure z). The fitted and
+   residual spectra are not stored.
 
 The kernel is serial and releases the GIL (``nogil``): the caller runs it on blocks of
 spectra in several threads, or inside dask's threads. The sums of steps 1 and 3 may be
@@ -47,7 +50,11 @@ REORDER = {"reassoc", "contract", "nsz", "arcp"}
 #: The fields of :class:`mixsolve.solve.residuals.ResidualSummary` that
 #: :func:`fit_rows` fills, in the order of its arguments (``n_points`` is the caller's).
 SUMMARY_FIELDS = ("sum_squares", "lag_sum", "n_positive", "n_nonzero", "sign_changes",
-                  "absorbance_max", "absorbance_min")
+                  "absorbance_max", "absorbance_min", "noise_inflation", "noise_lags",
+                  "structure_z")
+#: :data:`mixsolve.solve.residuals.BARTLETT_LAG_CONSTANT` (numba reads module globals as
+#: constants).
+BARTLETT_LAG_CONSTANT = 1.1447
 
 
 def solver_tables(r: np.ndarray, constrained: np.ndarray
@@ -269,13 +276,88 @@ def _nnls(y: np.ndarray, r: np.ndarray, con_mask: int, qt: np.ndarray, rs: np.nd
             x[j] = z[j]
 
 
+@numba.njit(nogil=True, cache=True)
+def lag_constants(n: int, n_terms: int) -> tuple[int, float, int]:
+    """:func:`mixsolve.solve.residuals.lag_constants` (q, n^(1/3), largest L), compiled."""
+    q = max(min(int(np.floor(4.0 * (n / 100.0) ** (2.0 / 9.0))), n - 1), 0)
+    scale = float(n) ** (1.0 / 3.0)
+    cap = 0.0
+    if q > 0:
+        cap = BARTLETT_LAG_CONSTANT * (q * (q + 1) / (2 * q + 1)) ** (2.0 / 3.0)
+    l_dof = n - 1
+    if n_terms > 0:
+        l_dof = (n - n_terms) // (2 * n_terms) - 1
+    return q, scale, max(min(int(np.floor(cap * scale)), l_dof, n - 1), 0)
+
+
+@numba.njit(nogil=True, cache=True, fastmath=REORDER)
+def _lag_sum(r: np.ndarray, lag: int) -> float:
+    """Σᵢ rᵢ rᵢ₊ₗ (over two views, which vectorises; indexing r twice does not)."""
+    head = r[:r.shape[0] - lag]
+    tail = r[lag:]
+    acc = 0.0
+    for j in range(head.shape[0]):
+        acc += head[j] * tail[j]
+    return acc
+
+
+@numba.njit(nogil=True, cache=True)
+def _lag_figures(r: np.ndarray, ss: float, lag1: float, n_terms: int, q: int, scale: float,
+                 l_max: int, s: int, rho: np.ndarray, out: np.ndarray) -> None:
+    """f, L and z of :func:`mixsolve.solve.residuals.lag_figures` into out[:3] (``ss`` and
+    ``lag1``: Σr² and Σrᵢrᵢ₊₁; ``rho``: scratch of at least max(q, s + 1, l_max) + 1; ``s``
+    the structure lag)."""
+    n = r.shape[0]
+    if not ss > 0.0:
+        out[0] = 1.0
+        out[1] = 0.0
+        out[2] = np.nan
+        return
+    first = q
+    if 0 <= s and s + 1 < n:
+        first = max(first, s + 1)
+    first = min(first, n - 1)
+    rho[1] = lag1 * (1.0 / ss)
+    for lag in range(2, first + 1):
+        rho[lag] = _lag_sum(r, lag) * (1.0 / ss)
+    s0 = 0.0
+    s1 = 0.0
+    for j in range(1, q + 1):
+        s0 += rho[j]
+        s1 += j * rho[j]
+    s0 = 1.0 + 2.0 * s0
+    s1 = 2.0 * s1
+    window = float(l_max)
+    if s0 > 0.0:
+        gamma = BARTLETT_LAG_CONSTANT * ((s1 / s0) ** 2) ** (1.0 / 3.0)
+        window = min(np.floor(gamma * scale), l_max)
+    for lag in range(first + 1, int(window) + 1):  # the window's lags beyond those
+        rho[lag] = _lag_sum(r, lag) * (1.0 / ss)
+    total = 0.0
+    for lag in range(1, int(window) + 1):
+        total += (1.0 - lag / (window + 1.0)) * rho[lag]
+    f = 1.0
+    if window > 0:
+        f2 = (1.0 + 2.0 * total) * (n - n_terms) / (n - n_terms * (window + 1.0))
+        f = np.sqrt(max(f2, 1.0))
+    out[0] = f
+    out[1] = window
+    out[2] = np.nan
+    if 0 <= s and s + 1 < n:
+        squares = 0.0
+        for j in range(1, s + 1):
+            squares += rho[j] * rho[j]
+        out[2] = rho[s + 1] * np.sqrt(float(n)) / np.sqrt(1.0 + 2.0 * squares)
+
+
 @numba.njit(nogil=True, cache=True, fastmath=REORDER)
 def _residual_summary(row: np.ndarray, x: np.ndarray, design_t: np.ndarray,
                       r: np.ndarray, out: np.ndarray) -> None:
     """r = row − Dx, then Σr², Σrᵢrᵢ₊₁, #(r > 0), #(r ≠ 0), sign changes into out[:5].
 
     Exact zeros count as negative in the sign changes; the caller summarises rows with
-    zeros again (#(r ≠ 0) < m tells which).
+    zeros again (#(r ≠ 0) < m tells which). The lag figures are the caller's
+    (:func:`_lag_figures`).
     """
     p, m = design_t.shape
     for j in range(m):
@@ -312,7 +394,8 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
              coef: np.ndarray, sum_squares: np.ndarray, lag_sum: np.ndarray,
              n_positive: np.ndarray, n_nonzero: np.ndarray, sign_changes: np.ndarray,
              absorbance_max: np.ndarray, absorbance_min: np.ndarray,
-             state: np.ndarray, summarise: bool = True) -> None:
+             noise_inflation: np.ndarray, noise_lags: np.ndarray, structure_z: np.ndarray,
+             state: np.ndarray, summarise: bool = True, structure_lag: int = -1) -> None:
     """Fit every row of ``a`` and summarise its residual (module docstring).
 
     Parameters
@@ -341,12 +424,14 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
         Coefficients in the units of the design's columns (left as they were where not
         fitted).
     sum_squares, lag_sum, n_positive, n_nonzero, sign_changes, absorbance_max,
-    absorbance_min : arrays, shape (n,), output
+    absorbance_min, noise_inflation, noise_lags, structure_z : arrays, shape (n,), output
         The residual summary (``SUMMARY_FIELDS``); left as they were where not fitted.
     state : array of int64, shape (n,), output
         ``ROW_DONE``, ``ROW_NOT_FINITE`` or ``ROW_ITERATION_LIMIT``.
     summarise : bool
         False: the coefficients only (steps 1-2; the summary arrays are not written).
+    structure_lag : int
+        s of :func:`mixsolve.solve.residuals.lag_figures` (readings); −1: its q.
     """
     n, m = a.shape
     p = r.shape[0]
@@ -358,6 +443,10 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
     res = np.empty(p)
     resid = np.empty(m)
     out = np.empty(5)
+    lagged = np.empty(3)
+    q, scale, l_max = lag_constants(m, p)
+    lag_s = q if structure_lag < 0 else structure_lag
+    rho = np.zeros(max(q, lag_s + 1, l_max) + 1)
     scratch = np.empty(2, dtype=np.int64)
     full = (1 << p) - 1
     for i in range(n):
@@ -386,6 +475,7 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
         if not summarise:
             continue
         _residual_summary(row, x, design_t, resid, out)
+        _lag_figures(resid, out[0], out[1], p, q, scale, l_max, lag_s, rho, lagged)
         sum_squares[i] = out[0]
         lag_sum[i] = out[1]
         n_positive[i] = out[2]
@@ -393,3 +483,6 @@ def fit_rows(a: np.ndarray, qt_design: np.ndarray, r: np.ndarray, norms: np.ndar
         sign_changes[i] = out[4]
         absorbance_max[i] = a_max
         absorbance_min[i] = a_min
+        noise_inflation[i] = lagged[0]
+        noise_lags[i] = lagged[1]
+        structure_z[i] = lagged[2]

@@ -31,11 +31,12 @@ MadeBy = Literal["kernel", "shift kernel", "model", "unmix"]
 
 UNCERTAINTY_BASIS = (
     "combined standard uncertainty sqrt(u_noise^2 + u_library^2 + u_stray^2) of independent "
-    "inputs: u_noise Type A from the fit residuals, s * sqrt(diag((D^T D)^-1)) / pathlength "
-    "with s^2 = RSS/(n - p) (NaN when n - p = 0); u_library the library's error with its "
-    "correlation over wavelengths; u_stray the stated stray-light fraction's uncertainty; "
-    "pathlength, dilution, volumetric and wavelength-scale uncertainties are not included "
-    "(uncertainty_budget adds them)"
+    "inputs: u_noise Type A from the fit residuals, f * s * sqrt(diag((D^T D)^-1)) / "
+    "pathlength with s^2 = RSS/(n - p) of each spectrum and f its correlated-noise inflation "
+    "(noise_inflation, Newey-West; NaN when n - p = 0); u_library the library's error with "
+    "its correlation over wavelengths; u_stray the stated stray-light fraction's "
+    "uncertainty; pathlength, dilution, volumetric and wavelength-scale uncertainties are not "
+    "included (uncertainty_budget adds them)"
 )
 
 
@@ -80,8 +81,9 @@ OUTPUTS: tuple[Output, ...] = (
            "source the inputs carry, √(u_noise² + u_library² + u_stray²) (attribute "
            "basis)", "{unit}",
            extra_attrs=(("basis", UNCERTAINTY_BASIS),)),
-    Output("u_noise", (COMPONENT,), "part of u(c) from the spectrum's own noise, Type A "
-           "from the fit residuals", "{unit}"),
+    Output("u_noise", (COMPONENT,), "part of u(c) from the spectrum's own noise: the "
+           "standard error from the residual, s·√diag((DᵀD)⁻¹)/b, times noise_inflation "
+           "for noise correlated between neighbouring readings", "{unit}"),
     Output("u_library", (COMPONENT,), "part of u(c) from the library's error, correlated "
            "over wavelengths and shared by every spectrum of the run", "{unit}"),
     Output("u_stray", (COMPONENT,), "standard uncertainty from the stated stray-light "
@@ -92,6 +94,9 @@ OUTPUTS: tuple[Output, ...] = (
     Output("shift_bias_per_nm", (COMPONENT,), "change of each concentration per +1 nm of "
            "wavelength error, at the fitted composition", "{unit} per nm"),
     Output("rms_residual", (), "root-mean-square residual over the readings used", "AU"),
+    Output("noise_inflation", (), "f, the factor by which correlated noise widens u_noise: "
+           "Newey–West long-run-variance ratio of the residual, Bartlett window chosen by "
+           "Newey–West 1994 (1: independent readings)"),
     Output("dof", (), "residual degrees of freedom n − p", dtype=np.int64),
     Output("status", (), "bit mask of the status bits of mixsolve.flags", dtype=np.int64),
     Output("absorbance_max", (), "largest measured absorbance over the used wavelengths",
@@ -101,6 +106,9 @@ OUTPUTS: tuple[Output, ...] = (
     Output("runs_z", (), "runs test z of the residual signs in wavelength order"),
     Output("runs_p", (), "one-sided p of the runs test (too few runs)"),
     Output("residual_lag1", (), "lag-1 autocorrelation of the residual"),
+    Output("structure_z", (), "autocorrelation of the residual at lag s + 1 in units of its "
+           "standard error for noise correlated over at most s readings, s the readings "
+           "within 5 nm (Bartlett 1946); structured_residual above 3.09"),
     Output("lack_of_fit_ratio", (), "√(χ²/dof) against the noise model (NaN without one)"),
     Output("lack_of_fit_p", (), "p = P(χ²_dof ≥ χ²) (NaN without a noise model)"),
     Output("suggested_dilution", (), "dilution factor bringing the peak to sqrt(low*high) AU",

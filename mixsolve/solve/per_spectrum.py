@@ -48,13 +48,15 @@ from typing import NamedTuple
 import numpy as np
 
 from mixsolve.solve.engine import Method, iteration_limit, kkt_rtol, scipy_fallback
+from mixsolve.solve.residuals import ResidualSummary, summarise
 
 #: Bytes of one block of designs (n × m × p float64) that callers build at a time.
 BLOCK_BYTES = 16 * 2**20
 #: Spectra reduced together (the Householder reflections stay in cache).
 CHUNK_SPECTRA = 128
 
-__all__ = ["BLOCK_BYTES", "EachFit", "block_spectra", "fit_each", "inverse_diagonal"]
+__all__ = ["BLOCK_BYTES", "EachFit", "block_spectra", "fit_each", "inverse_diagonal",
+           "weighted_inflation"]
 
 
 class EachFit(NamedTuple):
@@ -74,6 +76,26 @@ class _Reduced(NamedTuple):
     y: np.ndarray  #: (n, p) Qᵀa
     rho: np.ndarray  #: (n,) norm of the part of a outside the column space
     full_rank: np.ndarray  #: (n,) bool
+
+
+def weighted_inflation(summary: ResidualSummary, weighted_residual: np.ndarray,
+                       n_terms: int) -> ResidualSummary:
+    """``summary`` with the correlated-noise inflation of the weighted residual.
+
+    Parameters
+    ----------
+    summary : ResidualSummary
+        Of the unweighted residual r (its runs, lag-1 and structure figures stay).
+    weighted_residual : array, shape (n, m)
+        √wᵢ·rᵢ (NaN where a reading is absent): the residual of the problem whose
+        s² = Σ wᵢrᵢ²/(n − p) the standard errors use, so its autocorrelation is the one that
+        inflates them (:func:`mixsolve.solve.residuals.lag_figures`).
+    n_terms : int
+        p, the fitted coefficients.
+    """
+    weighted = summarise(weighted_residual, weighted_residual, n_terms)
+    return summary._replace(noise_inflation=weighted.noise_inflation,
+                            noise_lags=weighted.noise_lags)
 
 
 def block_spectra(n_wavelengths: int, n_terms: int) -> int:

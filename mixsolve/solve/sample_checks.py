@@ -13,7 +13,10 @@ and return arrays over the leading axes.
   wavelength order. Too few runs (long stretches of one sign) mean the residual has shape —
   an unmodelled absorber, scatter or a wavelength shift — rather than noise. One-sided
   p = Φ(z), z = (R − μ)/√v, μ = 2n₊n₋/n + 1, v = (μ − 1)(μ − 2)/(n − 1). The lag-1
-  autocorrelation r₁ = Σ rᵢrᵢ₊₁ / Σ rᵢ² is reported beside it.
+  autocorrelation r₁ = Σ rᵢrᵢ₊₁ / Σ rᵢ² is reported beside it. Both also respond to noise
+  correlated between neighbouring readings, so the structured-residual flag uses the
+  autocorrelation beyond the noise's span instead (``structure_z``,
+  :func:`mixsolve.solve.residuals.lag_figures`).
 """
 
 from __future__ import annotations

@@ -31,18 +31,38 @@ from mixsolve.spectra import WAVELENGTH
 #: p-value below which lack of fit or residual structure is flagged (judgement; 1 in 1000
 #: clean spectra is flagged by chance).
 FLAG_P_VALUE = 1e-3
-#: Lag-1 autocorrelation limit: under white noise r₁√n is about standard normal, and 3.09 is
-#: its one-sided 0.1 % point. It catches a narrow unmodelled band that the runs test,
-#: which sees only signs, can miss.
-LAG1_Z_LIMIT = 3.09
+#: Limit of ``structure_z`` (about N(0, 1) when the noise is correlated over at most
+#: :func:`structure_lag` readings): its one-sided 0.1 % point, as for the other checks.
+STRUCTURE_Z_LIMIT = 3.09
 #: RMS residual (AU) below which a fit is exact to rounding and is not tested for shape.
 NUMERICAL_ZERO_AU = 1e-10
 #: Wavelength accuracy assumed for the shift_sensitive flag (nm): a typical benchtop, ±0.5 nm
 #: (from memory; plate readers are often ±1-2 nm: set it for your instrument).
 DEFAULT_WAVELENGTH_TOLERANCE_NM = 0.5
+#: Span (nm) over which instrument noise may be correlated without raising the
+#: structured-residual flag (judgement: smoothing and oversampled slits correlate noise over
+#: about 1–4 nm FWHM; noise correlated more widely raises false alarms, measured in
+#: tests/test_correlated_noise.py).
+NOISE_SPAN_NM = 5.0
 #: Names of the figures :func:`summary_checks` returns, in order.
 CHECK_NAMES = ("absorbance_max", "absorbance_min", "runs_z", "runs_p", "residual_lag1",
-               "lack_of_fit_ratio", "lack_of_fit_p")
+               "structure_z", "lack_of_fit_ratio", "lack_of_fit_p")
+
+
+def structure_lag(wavelengths_nm: np.ndarray) -> int:
+    """s: the readings within ``NOISE_SPAN_NM`` of a reading, at the median spacing.
+
+    Lags count in readings (the residual summary's neighbours are the readings used, in
+    order), so a span in nm becomes s = ⌊NOISE_SPAN_NM / median spacing⌋ readings: 5 at
+    1 nm, 1 at 5 nm, 0 (the lag-1 test of white noise) above 5 nm. With irregular
+    spacing, or a window that skips a range, the median spacing stands for all.
+    """
+    wl = np.sort(np.asarray(wavelengths_nm, dtype=float))
+    steps = np.diff(wl)
+    steps = steps[steps > 0]
+    if not steps.size:
+        return 0
+    return int(np.floor(NOISE_SPAN_NM / float(np.median(steps)) + 1e-9))
 
 
 def summary_checks(summary: ResidualSummary,
@@ -61,12 +81,15 @@ def summary_checks(summary: ResidualSummary,
     -------
     tuple of arrays, shaped as the summary fields
         In the order of ``CHECK_NAMES``: A_max and A_min (AU), runs-test z and one-sided p,
-        lag-1 autocorrelation of the residual, lack-of-fit ratio √(χ²/dof) and its p-value.
+        lag-1 autocorrelation of the residual, its structure z beyond the noise's lags
+        (:func:`mixsolve.solve.residuals.lag_figures`), lack-of-fit ratio √(χ²/dof) and
+        its p-value.
     """
     z, p_runs, lag1 = runs_from_summary(summary)
     if lack is None:
         lack = (np.full(z.shape, np.nan), np.full(z.shape, np.nan))
-    return summary.absorbance_max, summary.absorbance_min, z, p_runs, lag1, *lack
+    return (summary.absorbance_max, summary.absorbance_min, z, p_runs, lag1,
+            summary.structure_z, *lack)
 
 
 def runs_from_summary(summary: ResidualSummary) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -145,18 +168,18 @@ def trust_status(checks: tuple[np.ndarray, ...], rms: np.ndarray, n_used: int,
     array of int64
         ``ABOVE_RANGE``/``BELOW_RANGE`` (A_max outside the range), ``NO_SIGNAL`` (every
         used reading exactly 0 AU, A_max = A_min = 0, instead of ``BELOW_RANGE``),
-        ``STRUCTURED`` (runs-test p < ``FLAG_P_VALUE``, or lag-1 z = r₁√n >
-        ``LAG1_Z_LIMIT`` with n ≥ ``MIN_POINTS_RUNS``), ``LACK_OF_FIT`` (p <
-        ``FLAG_P_VALUE``). NaN figures set none.
+        ``STRUCTURED`` (structure z > ``STRUCTURE_Z_LIMIT`` with n ≥ ``MIN_POINTS_RUNS``:
+        residual structure wider than the s readings over which noise may be correlated;
+        the runs test and r₁, which also fire on correlated noise alone, are reported but
+        do not set it), ``LACK_OF_FIT`` (p < ``FLAG_P_VALUE``). NaN figures set none.
     """
-    a_max, a_min, _, runs_p, lag1, _, lack_p = checks
+    a_max, a_min, _, _, _, structure_z, _, lack_p = checks
     low, high = absorbance_range
     with np.errstate(invalid="ignore"):
         silent = (a_max == 0) & (a_min == 0)  # -0.0 included; NaN (no reading) is not
         status = np.where(a_max > high, ABOVE_RANGE, 0) | np.where(
             (a_max < low) & ~silent, BELOW_RANGE, 0) | np.where(silent, NO_SIGNAL, 0)
-        shaped = (runs_p < FLAG_P_VALUE) | (
-            (lag1 * np.sqrt(n_used) > LAG1_Z_LIMIT) & (n_used >= MIN_POINTS_RUNS))
+        shaped = (structure_z > STRUCTURE_Z_LIMIT) & (n_used >= MIN_POINTS_RUNS)
         status |= np.where(shaped & (rms > NUMERICAL_ZERO_AU), STRUCTURED, 0)
         if noise_given:
             status |= np.where(lack_p < FLAG_P_VALUE, LACK_OF_FIT, 0)

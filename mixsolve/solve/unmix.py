@@ -58,7 +58,11 @@ from mixsolve.solve.outputs import (
     result_outputs,
 )
 from mixsolve.solve.stray import StrayCorrectedNoise, StrayCorrection, default_u_fraction
-from mixsolve.solve.trust import DEFAULT_WAVELENGTH_TOLERANCE_NM, shift_bias_matrix
+from mixsolve.solve.trust import (
+    DEFAULT_WAVELENGTH_TOLERANCE_NM,
+    shift_bias_matrix,
+    structure_lag,
+)
 from mixsolve.spectra import (
     WAVELENGTH,
     check_number,
@@ -363,7 +367,8 @@ def _plan(options: _Options) -> _Plan:
         tolerance_nm=options.tolerance_nm,
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
                                                    if d != WAVELENGTH]))),
-        stray=options.stray)
+        stray=options.stray,
+        structure_lag=structure_lag(used_wl))
     return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings)
 
 

@@ -193,6 +193,8 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
     base = (result["baseline"].transpose(SAMPLE, ...).values
             if result["baseline"].size else np.zeros((conc.shape[0], 0)))
     dof = result["dof"].values
+    inflation = (result["noise_inflation"].values if "noise_inflation" in result
+                 else np.ones(dof.shape))
     samples = []
     for i, name in enumerate(str(s) for s in result[SAMPLE].values):
         present = np.isfinite(residual[i]) & np.isfinite(fitted[i])
@@ -212,7 +214,9 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
             sigma = sd[present]
         elif dof[i] > 0:
             wr2 = r**2 if w is None else w * r**2
-            s = np.sqrt(np.sum(wr2) / dof[i])
+            # × the fit's correlated-noise inflation f: independent readings of σ·f move the
+            # fit as much as the correlated ones did (u_noise); their shape is not redrawn
+            s = np.sqrt(np.sum(wr2) / dof[i]) * inflation[i]
             sigma = s / np.sqrt(w) if w is not None else np.full(r.shape, s)
         else:
             sigma = np.full(r.shape, np.nan)

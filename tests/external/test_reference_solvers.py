@@ -82,7 +82,9 @@ def test_ols_matches_numpy_lstsq(rng: np.random.Generator, size: tuple[int, int,
 def test_ols_std_uncertainty_textbook_formula(rng: np.random.Generator,
                                               size: tuple[int, int, int], baseline: str) -> None:
     """Textbook OLS covariance s²(DᵀD)⁻¹ with s² = RSS/(n − p) (common practice; stated in
-    mixsolve's uncertainty basis): the reported std_uncertainty is its diagonal's root / b."""
+    mixsolve's uncertainty basis): the reported noise term u_noise, before its
+    correlated-noise inflation f (noise_inflation, checked against statsmodels in
+    test_newey_west.py), is its diagonal's root / b."""
     wl, eps, absorbance = _problem(rng, *size)
     design = _design(wl, eps, baseline)
     b = 2.0
@@ -93,8 +95,8 @@ def test_ols_std_uncertainty_textbook_formula(rng: np.random.Generator,
     rss = np.sum((absorbance - x @ design.T) ** 2, axis=1)
     cov_unscaled = np.linalg.inv(design.T @ design)
     want = np.sqrt(np.outer(rss / (n - p), np.diag(cov_unscaled)))[:, : eps.shape[1]] / b
-    got = result["std_uncertainty"].transpose("sample", "component").values
-    np.testing.assert_allclose(got, want, rtol=1e-7)
+    got = (result["u_noise"] / result["noise_inflation"]).transpose("sample", "component")
+    np.testing.assert_allclose(got.values, want, rtol=1e-7)
     np.testing.assert_array_equal(result["dof"].values, n - p)
 
 
