@@ -86,8 +86,8 @@ def summarise(values: np.ndarray, residual: np.ndarray, n_terms: int = 0,
         n_nonzero = np.count_nonzero(residual, axis=1).astype(float)
     a_max, a_min = values.max(axis=1), values.min(axis=1)
     odd = ~np.isfinite(ss) | (n_nonzero < m) | np.isnan(a_max)
-    lagged = lag_figures(np.where(odd[:, None], 0.0, residual) if odd.any() else residual,
-                         n_terms, structure_lag)
+    lagged = lag_figures(np.where(odd[:, None], 0.0, residual), n_terms, structure_lag) \
+        if odd.any() else lag_figures(residual, n_terms, structure_lag, (ss, lag))
     out = ResidualSummary(
         ss, lag, np.full(n, float(m)), np.count_nonzero(pos, axis=1).astype(float),
         n_nonzero, np.count_nonzero(pos[:, 1:] != pos[:, :-1], axis=1).astype(float),
@@ -147,7 +147,8 @@ def lag_constants(n: int, n_terms: int) -> LagConstants:
     return LagConstants(q, scale, max(min(int(np.floor(cap * scale)), l_dof, n - 1), 0))
 
 
-def lag_figures(residual: np.ndarray, n_terms: int = 0, structure_lag: int | None = None
+def lag_figures(residual: np.ndarray, n_terms: int = 0, structure_lag: int | None = None,
+                sums: tuple[np.ndarray, np.ndarray] | None = None
                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Correlated-noise inflation f, its window L and the structure z beyond s lags.
 
@@ -161,6 +162,8 @@ def lag_figures(residual: np.ndarray, n_terms: int = 0, structure_lag: int | Non
         s, the readings over which the noise may be correlated, for z
         (:func:`mixsolve.solve.trust.structure_lag` turns a span in nm into readings);
         None: q of :func:`lag_constants`.
+    sums : (array, array), optional
+        Σr² and Σrᵢrᵢ₊₁ of each row when the caller has them (not computed again).
 
     Returns
     -------
@@ -206,7 +209,7 @@ def lag_figures(residual: np.ndarray, n_terms: int = 0, structure_lag: int | Non
     k, n = r.shape
     c = lag_constants(n, n_terms)
     s = c.q if structure_lag is None else int(structure_lag)
-    gamma0 = np.einsum("ij,ij->i", r, r)
+    gamma0 = np.einsum("ij,ij->i", r, r) if sums is None else sums[0]
     rho: dict[int, np.ndarray] = {}
 
     def at(lag: int) -> np.ndarray:
@@ -216,6 +219,8 @@ def lag_figures(residual: np.ndarray, n_terms: int = 0, structure_lag: int | Non
 
     with np.errstate(invalid="ignore", divide="ignore"):
         scale = np.where(gamma0 > 0, 1.0 / gamma0, 0.0)
+        if sums is not None and n > 1:
+            rho[1] = sums[1] * scale
         first = min(max(c.q, s + 1), n - 1)
         for lag in range(1, first + 1):
             at(lag)
