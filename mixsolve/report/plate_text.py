@@ -75,7 +75,8 @@ def plate_settings(done: PlateResult) -> dict[str, str]:
         "pathlength": pathlength,
         "blank": blank,
         "unit": options.unit,
-        "well uncertainty": "fit only (Type A): s·√[(DᵀD)⁻¹]ₖₖ / b, times the dilution",
+        "well uncertainty": "std_uncertainty of each well (noise, library, stray light; "
+                            "docs/uncertainty.md), times the dilution",
         "sample uncertainty": SAMPLE_MEAN_RULE,
         "high_cv flag": f"CV > {100 * options.max_cv:g} % for a component whose mean exceeds "
                         "3 × its fit uncertainty",
