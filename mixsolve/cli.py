@@ -364,12 +364,17 @@ def parse_scale_uncertainty(text: str, option: str = "--u-scale-rel"
         try:
             value = number(text)
         except ValueError:
-            raise InputError(f"{option}: {text!r} is not a number or NAME=VALUE,...") from None
+            raise InputError(f"{option}: {text!r} is not a number or NAME=VALUE,...; give a "
+                             "relative standard uncertainty as a fraction, e.g. 0.02 for 2 %, "
+                             "or chl_a=0.02,chl_b=0.03") from None
         _finite([value], option, text)
         return value
     out: dict[str, float] = {}
     for item in text.split(","):
         name, sep, value_text = item.partition("=")
+        if name.strip() in out:
+            raise InputError(f"{option}: {name.strip()!r} is given twice; give each "
+                             "component once")
         try:
             if not sep:
                 raise ValueError

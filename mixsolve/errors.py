@@ -66,6 +66,11 @@ class IllConditionedWarning(MixsolveWarning):
     """The wavelength set separates the components poorly (large condition number)."""
 
 
+class LargeUncertaintyWarning(MixsolveWarning):
+    """A stated relative uncertainty is above 10 %: perhaps a percentage written where a
+    fraction belongs (0.8 for 0.8 %)."""
+
+
 class RenamedWarning(MixsolveWarning, FutureWarning):
     """A parameter or option was given by its old name, which works for one more release.
 

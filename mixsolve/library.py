@@ -27,7 +27,7 @@ import pandas as pd
 import xarray as xr
 
 from mixsolve._version import __version__
-from mixsolve.errors import InputError, LinearityWarning, renamed
+from mixsolve.errors import InputError, LargeUncertaintyWarning, LinearityWarning, renamed
 from mixsolve.library_error import (
     ERROR_KIND,
     ERROR_PATTERN,
@@ -803,6 +803,7 @@ def _check_uncertainty_columns(table: pd.DataFrame, name: str) -> pd.DataFrame:
         stock_u.append(u_s)
     table["u_relative"] = rel
     table["u_stock_rel"] = stock_u
+    _warn_large(table, name)
     for label, group in table[table["stock"] != ""].groupby("stock"):
         values = group["u_stock_rel"].dropna().unique()
         if values.size == 0:
@@ -816,6 +817,24 @@ def _check_uncertainty_columns(table: pd.DataFrame, name: str) -> pd.DataFrame:
                              "has one uncertainty")
         table.loc[group.index, "u_stock_rel"] = float(values[0])
     return table
+
+
+#: A stated relative standard uncertainty above this draws a LargeUncertaintyWarning
+#: (common practice: standards are made up to well under 10 %).
+LARGE_RELATIVE_U = 0.1
+
+
+def _warn_large(table: pd.DataFrame, name: str) -> None:
+    """Warn once for the first relative uncertainty above ``LARGE_RELATIVE_U``."""
+    for col, what in (("u_relative", "u_concentration"), ("u_stock_rel", "u_stock_rel")):
+        big = table[table[col] > LARGE_RELATIVE_U]
+        if len(big):
+            row = big.iloc[0]
+            value = float(row[col])
+            warnings.warn(
+                f"{name}, line {row['line']}: {what} is {100 * value:.3g} % of the "
+                f"concentration; if you meant {value:g} %, write {value / 100:g}",
+                LargeUncertaintyWarning, stacklevel=4)
 
 
 def absorptivity_at(library: xr.Dataset, wavelengths_nm: np.ndarray) -> np.ndarray:

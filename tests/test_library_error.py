@@ -16,10 +16,11 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from helpers_cli import assert_cli_error
 from test_coverage_harness import cs  # benchmarks/coverage_sim.py, loaded once
 
 import mixsolve as ms
-from mixsolve.errors import InputError, MixsolveWarning
+from mixsolve.errors import InputError, LargeUncertaintyWarning, MixsolveWarning
 from mixsolve.io.library_store import read_library, write_library
 from mixsolve.library_error import error_patterns, patterns_at
 
@@ -203,3 +204,20 @@ def test_budget_and_its_monte_carlo_draw_the_same_correlated_library(rng) -> Non
     assert np.allclose(term, result["u_library"].values[0], rtol=1e-6)
     ratio = budget["mc_standard_uncertainty"].values[0] / budget["combined_uncertainty"].values[0]
     assert np.all(np.abs(ratio - 1) < 0.05), ratio
+
+
+def test_a_percentage_written_as_a_fraction_is_warned_of(rng) -> None:
+    """u_stock_rel 0.8 meant as 0.8 %: a warning naming the line and the likely meaning."""
+    spectra, sheet = _standards(rng, stock=0.015)
+    sheet["u_stock_rel"] = 0.8
+    with pytest.warns(LargeUncertaintyWarning, match=r"line 2: u_stock_rel is 80 % of the "
+                      r"concentration; if you meant 0\.8 %, write 0\.008$"):
+        ms.build_library(spectra, sheet)
+
+
+def test_scale_uncertainty_flag_refuses_a_component_given_twice(tmp_path, cli) -> None:
+    cs.exact_table().to_pandas().T.rename_axis("wavelength_nm").to_csv(tmp_path / "eps.csv")
+    result = cli("library", "import", tmp_path / "eps.csv", "--unit", "L/(g*cm)", "--out",
+                 tmp_path / "lib.nc", "--u-scale-rel", "synth_red=0.02,synth_red=0.03")
+    assert_cli_error(result, "error: --u-scale-rel: 'synth_red' is given twice; give each "
+                     "component once", literal=True, must_not_exist=[tmp_path / "lib.nc"])

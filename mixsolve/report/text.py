@@ -222,7 +222,7 @@ def format_library(library: xr.Dataset, name: str = "") -> str:
     ]
     built = "r_squared" in library
     cw = max(12, *(len(c) for c in comps)) + 2
-    head = f"{'component':<{cw}}{'peak nm':>8}{'ε at peak':>12}{'u(ε)':>10}{'M g/mol':>9}"
+    head = f"{'component':<{cw}}{'peak nm':>8}{'ε at peak':>12}{'u(ε) fit':>10}{'M g/mol':>9}"
     if built:
         head += f"{'levels':>7}{'range':>16}{'R²':>9}{'sd AU':>9}{'worst':>8}"
     lines.append(head)
@@ -265,7 +265,10 @@ def format_library(library: xr.Dataset, name: str = "") -> str:
 
 def _library_error_lines(library: xr.Dataset, comps: list[str], prov: dict[str, Any],
                          notes: list[str]) -> list[str]:
-    """What the library says of its own error (:mod:`mixsolve.library_error`), a few lines."""
+    """What the library says of its own error (:mod:`mixsolve.library_error`), a few lines:
+    per component the whole relative u of ε at its peak (every pattern: what a result of
+    that component alone inherits) and, for a library from standards, its preparation
+    part (used, shown by the scatter, declared)."""
     if ERROR_PATTERN not in library:
         notes.insert(0, "the library states no error of its own (no u(ε), no scale "
                      "uncertainty): results carry the noise term only (u_library = 0).")
@@ -275,15 +278,27 @@ def _library_error_lines(library: xr.Dataset, comps: list[str], prov: dict[str, 
     counts = {k: kinds.count(k) for k in dict.fromkeys(kinds)}
     lines.append("  patterns      " + ", ".join(f"{n} {k.replace('_', ' ')}"
                                                for k, n in counts.items()))
-    if "u_preparation_rel" in library:
-        cw = max(12, *(len(c) for c in comps)) + 2
-        lines.append(f"  {'component':<{cw}}{'scale u':>9}{'scatter':>9}{'declared':>10}")
-        for k, c in enumerate(comps):
+    eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
+    patterns = library[ERROR_PATTERN].transpose(..., COMPONENT, WAVELENGTH).values
+    peak = np.argmax(eps, axis=1)
+    whole = np.array([np.sqrt(np.sum(patterns[:, k, j] ** 2)) / eps[k, j]
+                      for k, j in enumerate(peak)])
+    built = "u_preparation_rel" in library
+    cw = max(12, *(len(c) for c in comps)) + 2
+    head = f"  {'component':<{cw}}{'whole u':>9}"
+    lines.append(head + (f"{'prep. u':>9}{'scatter':>9}{'declared':>10}" if built else ""))
+    for k, c in enumerate(comps):
+        row = f"  {c:<{cw}}{_pct(whole[k], 9)}"
+        if built:
             used, seen, said = (float(library[v].values[k]) for v in (
                 "u_preparation_rel", "u_preparation_rel_scatter", "u_preparation_rel_declared"))
-            lines.append(f"  {c:<{cw}}{_pct(used, 9)}{_pct(seen, 9)}{_pct(said, 10)}")
-        lines.append("  (relative standard uncertainty of each whole spectrum: the declared")
-        lines.append("  preparation, unless the standards' scatter shows it too small)")
+            row += f"{_pct(used, 9)}{_pct(seen, 9)}{_pct(said, 10)}"
+        lines.append(row + ("  (none stated: taken as exact)" if whole[k] == 0 else ""))
+    lines.append("  (whole u: the relative standard uncertainty of ε at the component's peak from")
+    lines.append("  every pattern, stocks included" + (";" if built else ")"))
+    if built:
+        lines.append("  prep. u: its preparation part, the declared value unless the standards'")
+        lines.append("  scatter exceeds it beyond chance, χ² test at 95 %, then the scatter's)")
     for label, u in prov.get("uncertainty", {}).get("stocks", {}).items():
         lines.append(f"  stock {label!r}: {100 * float(u):.3g} % (shared by its standards)")
     lines.append("")

@@ -483,7 +483,8 @@ def _uncertainty_basis(options: _Options, plan: _Plan) -> str:
         kinds = [str(k) for k in options.library[ERROR_KIND].values] \
             if ERROR_KIND in options.library.coords else ["declared_u"] * patterns.shape[0]
         counts = ", ".join(f"{kinds.count(k)} {k}" for k in dict.fromkeys(kinds))
-        library = (f"u_library from the library's {patterns.shape[0]} error patterns "
+        count = patterns.shape[0]
+        library = (f"u_library from the library's {count} error pattern{'s' * (count > 1)} "
                    f"({counts}), correlated over wavelengths, propagated as "
                    "delta x = -G delta D x with the unweighted design and shared by every "
                    "spectrum of the run")

@@ -30,7 +30,7 @@ SOURCE = "source"
 SOURCES: dict[str, tuple[str, str, str, str]] = {
     "spectral_noise": ("A", "normal", "AU", "scatter of the readings (fit residual or "
                        "repeat scans)"),
-    "absorptivity": ("A", "normal", "library unit", "library absorptivities: their error "
+    "absorptivity": ("A, B", "normal", "library unit", "library absorptivities: their error "
                      "patterns, correlated over wavelengths (standards, preparation, stock)"),
     "pathlength": ("B", "normal", "cm", "cell pathlength"),
     "dilution": ("B", "rectangular", "1", "dilution factor from the volumetric ware"),
