@@ -96,8 +96,16 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
         f"  pathlength    {b_text}",
         f"  unit          {unit}, value ± standard uncertainty"
         + ("  [known value]" if truth is not None else ""),
-        "",
+        f"  uncertainty   {_uncertainty_parts(result)}",
     ]
+    if float(result.attrs.get("stray_fraction", 0.0) or 0.0) > 0:
+        noise = json.loads(result.attrs.get("noise_model") or "{}")
+        lines.append(f"  stray light   readings corrected for a fraction of "
+                     f"{result.attrs['stray_fraction']:g} ± "
+                     f"{result.attrs['u_stray_fraction']:g}"
+                     + (f" (from the noise model {noise['name']!r})"
+                        if noise.get("stray") else ""))
+    lines.append("")
     name_w = max(8, *(len(s) for s in samples)) + 2
     cell_w = max(26 if truth is None else 34, *(len(c) + 2 for c in comps))
     head = f"{'sample':<{name_w}}" + "".join(f"{c:<{cell_w}}" for c in comps)
@@ -261,6 +269,15 @@ def format_library(library: xr.Dataset, name: str = "") -> str:
     lines += _library_error_lines(library, comps, prov, notes)
     lines += _notes(notes)
     return "\n".join(lines) + "\n"
+
+
+def _uncertainty_parts(result: xr.Dataset) -> str:
+    """Which parts the result's standard uncertainties hold, in a few words."""
+    parts = ["noise"]
+    for name, what in (("u_library", "library"), ("u_stray", "stray light")):
+        if name in result and bool(np.nanmax(np.abs(result[name].values), initial=0.0) > 0):
+            parts.append(what)
+    return " + ".join(parts) + " (docs/uncertainty.md; not pathlength, dilution, wavelength)"
 
 
 def _library_error_lines(library: xr.Dataset, comps: list[str], prov: dict[str, Any],
