@@ -370,6 +370,9 @@ def parse_scale_uncertainty(text: str, option: str = "--u-scale-rel"
     out: dict[str, float] = {}
     for item in text.split(","):
         name, sep, value_text = item.partition("=")
+        if name.strip() in out:
+            raise InputError(f"{option}: {name.strip()!r} is given twice; give each "
+                             "component once")
         try:
             if not sep:
                 raise ValueError

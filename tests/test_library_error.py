@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from helpers_cli import assert_cli_error
 from test_coverage_harness import cs  # benchmarks/coverage_sim.py, loaded once
 
 import mixsolve as ms
@@ -203,3 +204,30 @@ def test_budget_and_its_monte_carlo_draw_the_same_correlated_library(rng) -> Non
     assert np.allclose(term, result["u_library"].values[0], rtol=1e-6)
     ratio = budget["mc_standard_uncertainty"].values[0] / budget["combined_uncertainty"].values[0]
     assert np.all(np.abs(ratio - 1) < 0.05), ratio
+
+
+def test_cli_import_states_a_scale_uncertainty_like_the_api(tmp_path, cli) -> None:
+    """``library import --u-scale-rel``: a 2 % scale of one component gives it u_library
+    = 2 % of c (Beer–Lambert, as above) and the API's patterns; junk, a value outside 0–1,
+    an unknown or repeated name are one-line errors (exit 2) and write nothing."""
+
+    table = pd.DataFrame(EPS.T, columns=NAMES)
+    table.insert(0, "wavelength_nm", WL)
+    table.to_csv(tmp_path / "t.csv", index=False, float_format="%.17g")
+    cli.ok("library", "import", tmp_path / "t.csv", "--unit", "L/(g*cm)", "--out",
+           tmp_path / "lib.nc", "--u-scale-rel", f"{NAMES[0]}=0.02")
+    api = ms.import_absorptivities(_table(), "L/(g*cm)", u_scale_rel={NAMES[0]: 0.02})
+    np.testing.assert_allclose(error_patterns(read_library(tmp_path / "lib.nc")),
+                               error_patterns(api), rtol=1e-12, atol=1e-12)
+    result = ms.unmix(ms.make_spectra(np.array([[2.0, 3.0, 4.0]]) @ EPS / 1e3, WL),
+                      read_library(tmp_path / "lib.nc"), unit="mg/L", method="ols")
+    assert result["u_library"].values[0, 0] == pytest.approx(0.02 * 2.0, rel=1e-9)
+    for given, says in (("abc", "--u-scale-rel: 'abc' is not a number"),
+                        ("1.5", "--u-scale-rel: 1.5 is not a number from 0 to 1"),
+                        ("nosuch=0.02", "--u-scale-rel given for 'nosuch', which is not a"),
+                        (f"{NAMES[1]}=0.02,{NAMES[1]}=0.03",
+                         f"--u-scale-rel: '{NAMES[1]}' is given twice")):
+        out = tmp_path / "refused.nc"
+        refused = cli("library", "import", tmp_path / "t.csv", "--unit", "L/(g*cm)", "--out",
+                      out, "--u-scale-rel", given)
+        assert_cli_error(refused, says, literal=True, must_not_exist=[out])
