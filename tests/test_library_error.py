@@ -132,6 +132,9 @@ def test_the_library_file_keeps_its_error_and_resampling_moves_it(tmp_path, rng)
     ("u_stock_rel", 0.01, {}, r"line 2: u_stock_rel 0\.01 is given without a stock; name"),
     ("stock", "S1", {}, r"line 2: stock 'S1' has no u_stock_rel; give its relative"),
     ("u_concentration", -1.0, {}, r"line 2, u_concentration: -1 is not a number ≥ 0"),
+    # a percentage (or a relative u) where the sheet wants mg/L: 100 % or more is refused
+    ("u_concentration", 1e6, {}, r"line 2: u_concentration 1e\+06 is not below the "
+                                 r"concentration [0-9.]+; it is a standard uncertainty"),
     ("u_stock_rel", 1.5, {"stock": "S1"}, r"line 2, u_stock_rel: 1\.5 is not a number ≥ 0 and"),
 ])
 def test_uncertainty_columns_are_checked(rng, column, value, other, message) -> None:
