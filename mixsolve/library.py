@@ -789,6 +789,10 @@ def _check_uncertainty_columns(table: pd.DataFrame, name: str) -> pd.DataFrame:
                                hint="the standard uncertainty of this standard's "
                                "concentration, in its unit; leave empty if not known")
         conc = check_number(row.concentration, f"{where}, concentration", low=0)
+        if conc > 0 and u_c >= conc:
+            raise InputError(f"{where}: u_concentration {u_c:g} is not below the concentration "
+                             f"{conc:g}; it is a standard uncertainty in the concentration's "
+                             "unit (e.g. 0.015 × concentration for 1.5 %), not a percentage")
         rel.append(u_c / conc if conc > 0 and np.isfinite(u_c) else
                    (0.0 if np.isfinite(u_c) else np.nan))
         u_s = np.nan

@@ -257,8 +257,13 @@ def _scale_per_component(u_scale_rel: float | Mapping[str, float] | None,
     if u_scale_rel is None:
         return out
     if isinstance(u_scale_rel, Mapping):
+        seen: set[str] = set()
         for given, value in u_scale_rel.items():
             name = normalise_name(given)
+            if name in seen:
+                raise InputError(f"u_scale_rel: {name!r} is given twice; give each component "
+                                 "once")
+            seen.add(name)
             if name not in components:
                 raise InputError(f"u_scale_rel given for {name!r}, which is not a component "
                                  f"(components: {', '.join(components)})")

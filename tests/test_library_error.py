@@ -132,6 +132,9 @@ def test_the_library_file_keeps_its_error_and_resampling_moves_it(tmp_path, rng)
     ("u_stock_rel", 0.01, {}, r"line 2: u_stock_rel 0\.01 is given without a stock; name"),
     ("stock", "S1", {}, r"line 2: stock 'S1' has no u_stock_rel; give its relative"),
     ("u_concentration", -1.0, {}, r"line 2, u_concentration: -1 is not a number ≥ 0"),
+    # a percentage (or a relative u) where the sheet wants mg/L: 100 % or more is refused
+    ("u_concentration", 1e6, {}, r"line 2: u_concentration 1e\+06 is not below the "
+                                 r"concentration [0-9.]+; it is a standard uncertainty"),
     ("u_stock_rel", 1.5, {"stock": "S1"}, r"line 2, u_stock_rel: 1\.5 is not a number ≥ 0 and"),
 ])
 def test_uncertainty_columns_are_checked(rng, column, value, other, message) -> None:
@@ -215,9 +218,28 @@ def test_a_percentage_written_as_a_fraction_is_warned_of(rng) -> None:
         ms.build_library(spectra, sheet)
 
 
-def test_scale_uncertainty_flag_refuses_a_component_given_twice(tmp_path, cli) -> None:
-    cs.exact_table().to_pandas().T.rename_axis("wavelength_nm").to_csv(tmp_path / "eps.csv")
-    result = cli("library", "import", tmp_path / "eps.csv", "--unit", "L/(g*cm)", "--out",
-                 tmp_path / "lib.nc", "--u-scale-rel", "synth_red=0.02,synth_red=0.03")
-    assert_cli_error(result, "error: --u-scale-rel: 'synth_red' is given twice; give each "
-                     "component once", literal=True, must_not_exist=[tmp_path / "lib.nc"])
+def test_cli_import_states_a_scale_uncertainty_like_the_api(tmp_path, cli) -> None:
+    """``library import --u-scale-rel``: a 2 % scale of one component gives it u_library
+    = 2 % of c (Beer–Lambert, as above) and the API's patterns; junk, a value outside 0–1,
+    an unknown or repeated name are one-line errors (exit 2) and write nothing."""
+
+    table = pd.DataFrame(EPS.T, columns=NAMES)
+    table.insert(0, "wavelength_nm", WL)
+    table.to_csv(tmp_path / "t.csv", index=False, float_format="%.17g")
+    cli.ok("library", "import", tmp_path / "t.csv", "--unit", "L/(g*cm)", "--out",
+           tmp_path / "lib.nc", "--u-scale-rel", f"{NAMES[0]}=0.02")
+    api = ms.import_absorptivities(_table(), "L/(g*cm)", u_scale_rel={NAMES[0]: 0.02})
+    np.testing.assert_allclose(error_patterns(read_library(tmp_path / "lib.nc")),
+                               error_patterns(api), rtol=1e-12, atol=1e-12)
+    result = ms.unmix(ms.make_spectra(np.array([[2.0, 3.0, 4.0]]) @ EPS / 1e3, WL),
+                      read_library(tmp_path / "lib.nc"), unit="mg/L", method="ols")
+    assert result["u_library"].values[0, 0] == pytest.approx(0.02 * 2.0, rel=1e-9)
+    for given, says in (("abc", "--u-scale-rel: 'abc' is not a number"),
+                        ("1.5", "--u-scale-rel: 1.5 is not a number from 0 to 1"),
+                        ("nosuch=0.02", "--u-scale-rel given for 'nosuch', which is not a"),
+                        (f"{NAMES[1]}=0.02,{NAMES[1]}=0.03",
+                         f"--u-scale-rel: '{NAMES[1]}' is given twice")):
+        out = tmp_path / "refused.nc"
+        refused = cli("library", "import", tmp_path / "t.csv", "--unit", "L/(g*cm)", "--out",
+                      out, "--u-scale-rel", given)
+        assert_cli_error(refused, says, literal=True, must_not_exist=[out])

@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
+from helpers_cli import assert_cli_error
 
 import mixsolve as ms
 from mixsolve.errors import MixsolveWarning
@@ -213,8 +214,9 @@ def test_too_dark_readings_are_left_out_and_flagged(rng) -> None:
 
 
 def test_options_are_checked_and_recorded(rng) -> None:
-    """stray_fraction and the noise model's stray must agree; u(s) needs a fraction; the
-    default u(s) is s/√3; without a fraction nothing is corrected and u_stray is 0."""
+    """stray_fraction and the noise model's stray must agree; u(s) needs a fraction and
+    must leave readings to correct (10·u(s) < 1); the default u(s) is s/√3; without a
+    fraction nothing is corrected and u_stray is 0."""
     conc = draw(rng, 3)
     spectra = read(conc, S, rng)
     lib = exact_library()
@@ -227,6 +229,10 @@ def test_options_are_checked_and_recorded(rng) -> None:
     with pytest.raises(ms.InputError, match=r"^stray_fraction: 1 is not a number ≥ 0 and "
                        r"below 1$"):
         ms.unmix(spectra, lib, stray_fraction=1.0)
+    # a relative u(s) (0.2 for 20 %) given as the absolute one: every reading too dark
+    with pytest.raises(ms.InputError, match=r"^u_stray_fraction: 0\.2 leaves no reading to "
+                       r"correct .* e\.g\. 0\.0002 for 0\.001 known to 20 %$"):
+        ms.unmix(spectra, lib, stray_fraction=S, u_stray_fraction=0.2)
     same = ms.unmix(spectra, lib, noise=stated_noise(S), stray_fraction=S)
     assert same.attrs["u_stray_fraction"] == pytest.approx(S / np.sqrt(3))
     plain = ms.unmix(spectra, lib)
@@ -295,3 +301,7 @@ def test_cli_stray_corrects_like_the_api(rng, tmp_path, cli) -> None:
     np.testing.assert_allclose(table["std_uncertainty"].reindex(want.index).values,
                                api["std_uncertainty"].to_series().values, rtol=1e-5)
     assert (raw["concentration"].reindex(want.index).values < got.values).sum() >= 10
+    refused = cli("unmix", tmp_path / "lib.nc", tmp_path / "s.csv", "--stray", S, "--u-stray",
+                  0.2, "--out", tmp_path / "none.csv")
+    assert_cli_error(refused, "--u-stray: 0.2 leaves no reading to correct", literal=True,
+                     must_not_exist=[tmp_path / "none.csv"])

@@ -57,7 +57,12 @@ from mixsolve.solve.outputs import (
     kernel_outputs,
     result_outputs,
 )
-from mixsolve.solve.stray import StrayCorrectedNoise, StrayCorrection, default_u_fraction
+from mixsolve.solve.stray import (
+    StrayCorrectedNoise,
+    StrayCorrection,
+    darkness_limit,
+    default_u_fraction,
+)
 from mixsolve.solve.trust import (
     DEFAULT_WAVELENGTH_TOLERANCE_NM,
     shift_bias_matrix,
@@ -155,7 +160,7 @@ def unmix(
     u_stray_fraction : float, optional
         Standard uncertainty u(s) of the stated fraction, propagated to ``u_stray``;
         default s/√3 (s the middle of a rectangular distribution from 0 to 2s). Needs a
-        stated fraction.
+        stated fraction, and below 0.1 (readings with T ≤ 10·u(s) are too dark).
 
     Returns
     -------
@@ -306,6 +311,11 @@ def _stray(model: NoiseModel | None, stray_fraction: Any, u_stray_fraction: Any
     if stated == 0:
         raise InputError(f"u_stray_fraction: {u:g} given without a stray fraction; state "
                          "stray_fraction (or a noise model with stray above 0)")
+    if darkness_limit(stated, u) >= 1:  # every reading would be too dark to correct
+        raise InputError(f"u_stray_fraction: {u:g} leaves no reading to correct (a corrected "
+                         f"transmittance must exceed {darkness_limit(stated, u):g}); give the "
+                         f"absolute standard uncertainty of the fraction, e.g. "
+                         f"{0.2 * stated:.2g} for {stated:g} known to 20 %")
     return StrayCorrection(stated, u)
 
 
