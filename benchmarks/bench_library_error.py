@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 from bench_nnls import WAVELENGTHS_NM, best_of, design, spectra
+from bench_unmix import labelled
 
 import mixsolve as ms
 from mixsolve.solve.engine import ENGINE_VARIABLE
@@ -49,11 +50,6 @@ def library_from_standards(k: np.ndarray, seed: int = 7) -> xr.Dataset:
     sheet = pd.DataFrame(rows)
     standards = ms.make_spectra(np.array(readings), WAVELENGTHS_NM, sheet["sample"].tolist())
     return ms.build_library(standards, sheet, source="invented benchmark standards")
-
-
-def labelled(a: np.ndarray) -> xr.DataArray:
-    return xr.DataArray(a, dims=("sample", "wavelength"),
-                        coords={"wavelength": WAVELENGTHS_NM}, name="absorbance")
 
 
 def main() -> None:

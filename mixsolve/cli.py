@@ -452,6 +452,16 @@ selection_options = [
 ]
 
 
+#: The stated stray-light fraction and its uncertainty (unmix and plate; the readings are
+#: corrected before the fit, docs/uncertainty.md "Stray light").
+stray_options = [
+    click.option("--stray", type=float, help="Stray-light fraction, e.g. 0.0005: readings "
+                 "are corrected for it before the fit, too dark ones left out [that of "
+                 "--noise]."),
+    click.option("--u-stray", type=float, help="Standard uncertainty of --stray, "
+                 "propagated to u_stray [stray/√3]."),
+]
+
 #: Options of ``unmix`` beyond the fit: corrections and the uncertainty budget
 #: (mixsolve.workflows.measurement.MeasurementOptions; docs/uncertainty.md).
 measurement_options = [
@@ -471,10 +481,7 @@ measurement_options = [
     click.option("--fill-volume", type=float, help="Volume filled into the cell (µL) [3000]."),
     click.option("--repeat-scans", help="Repeated scans of one solution: their SD per "
                  "wavelength is the Type A noise of --budget."),
-    click.option("--stray", type=float, help="Stray-light fraction, e.g. 0.0005: readings are "
-                 "corrected for it before the fit, too dark ones left out [that of --noise]."),
-    click.option("--u-stray", type=float, help="Standard uncertainty of --stray, propagated "
-                 "to u_stray [stray/√3]."),
+    *stray_options,
     click.option("--monte-carlo", type=int,
                  help="Also propagate by Monte Carlo with this many draws (--budget)."),
 ]
@@ -911,6 +918,7 @@ class PlateProgress:
 @click.option("--plate-size", type=CoreChoice("mixsolve.plate.wells:PLATE_SHAPES"),
               callback=callback(parse_whole), help="Plate format [detected].")
 @add_options(noise_options)
+@add_options(stray_options)
 def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
           library_from_plate: bool, out_dir: str, window: tuple[float, float] | None,
           wavelengths: list[float] | None,
@@ -918,7 +926,8 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
           volume_ul: float | None, well_diameter_mm: float | None, water_band: bool,
           water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
           plate_size: int | None, weights: str, noise: str | float | None,
-          absorbance_range: tuple[float, float]) -> None:
+          absorbance_range: tuple[float, float], stray: float | None,
+          u_stray: float | None) -> None:
     """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample."""
     from mixsolve.workflows.plate import run_plates
 
@@ -931,7 +940,7 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
             method=method, baseline=baseline, unit=unit, pathlength_cm=pathlength,
             volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
             water_k_au_per_cm=water_k, max_cv=max_cv, weights=weights, noise=noise,
-            absorbance_range=absorbance_range)
+            absorbance_range=absorbance_range, stray_fraction=stray, u_stray_fraction=u_stray)
     finally:
         progress.close()
     click.echo(batch.text, nl=False)

@@ -305,3 +305,29 @@ def test_cli_stray_corrects_like_the_api(rng, tmp_path, cli) -> None:
                   0.2, "--out", tmp_path / "none.csv")
     assert_cli_error(refused, "--u-stray: 0.2 leaves no reading to correct", literal=True,
                      must_not_exist=[tmp_path / "none.csv"])
+
+
+def test_plate_command_states_the_stray_fraction_like_the_api(tmp_path, cli) -> None:
+    """mixsolve plate --stray/--u-stray reach analyse_plate (the demo plate, synthetic): the
+    wells' uncertainties are the API's with the same fraction, to the digits written, and
+    not those of a run without it."""
+    from mixsolve.workflows.demo import demo_file
+
+    lib = tmp_path / "lib.nc"
+    cli.ok("library", "build", demo_file("standards_spectra.csv"), "--standards",
+           demo_file("standards.csv"), "--out", lib)
+    cli.ok("plate", demo_file("plate_export.csv"), "--layout", demo_file("plate_layout.csv"),
+           "--library", lib, "--out", tmp_path / "run", "--volume-ul", "300",
+           "--well-diameter-mm", "6.96", "--stray", "0.001", "--u-stray", "0.0002")
+    wells = pd.read_csv(next((tmp_path / "run").rglob("wells.csv")))
+    args = (ms.read_plate(demo_file("plate_export.csv")),
+            ms.read_layout(demo_file("plate_layout.csv")), ms.read_library(lib))
+    api = ms.analyse_plate(*args, volume_ul=300, well_diameter_mm=6.96, stray_fraction=0.001,
+                           u_stray_fraction=0.0002).wells
+    plain = ms.analyse_plate(*args, volume_ul=300, well_diameter_mm=6.96).wells
+    got = wells.set_index(["well", "component"])["std_uncertainty"].dropna()
+    assert np.allclose(got, api.set_index(["well", "component"]).loc[got.index,
+                                                                     "std_uncertainty"],
+                       rtol=1e-5)
+    before = plain.set_index(["well", "component"]).loc[got.index, "std_uncertainty"]
+    assert not np.allclose(got, before, rtol=1e-3)  # the correction reached the fit
