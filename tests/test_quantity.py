@@ -107,22 +107,21 @@ def test_make_spectra_takes_quantity():
 # --- refusing values that cannot be absorbance --------------------------------------------
 
 
-def test_percent_transmittance_refused_without_quantity():
+@pytest.mark.parametrize(("values", "message"), [
+    ([[20.0, 50.0, 100.4]],
+     r"^x\.csv: most readings are above 10 \(median 50\) and none above 110, which looks "
+     r"like percent transmittance, not absorbance; give quantity='percent_transmittance' "
+     r"\(or quantity='absorbance' if it really is\)$"),
+    ([[3.0, 850.0, 1900.0]],
+     r"^x\.csv: most readings are above 10 \(median 850, largest 1900\), which no absorbance "
+     r"reading is; it looks like milliabsorbance \(mAU\): give quantity='milliabsorbance' "
+     r"\(or quantity='absorbance' if it really is\)$"),
+])
+def test_refused_without_quantity(values, message):
     """Common practice: no photometer reads beyond about 4-6 AU, and a %T export is on a
     0-100 scale (a reading at the blank's level a little above 100)."""
-    with pytest.raises(InputError, match=r"^x\.csv: most readings are above 10 \(median 50\) "
-                       r"and none above 110, which looks like percent transmittance, not "
-                       r"absorbance; give quantity='percent_transmittance' \(or "
-                       r"quantity='absorbance' if it really is\)$"):
-        to_absorbance(readings([[20.0, 50.0, 100.4]]))
-
-
-def test_milliabsorbance_refused_without_quantity():
-    with pytest.raises(InputError, match=r"^x\.csv: most readings are above 10 \(median 850, "
-                       r"largest 1900\), which no absorbance reading is; it looks like "
-                       r"milliabsorbance \(mAU\): give quantity='milliabsorbance' \(or "
-                       r"quantity='absorbance' if it really is\)$"):
-        to_absorbance(readings([[3.0, 850.0, 1900.0]]))
+    with pytest.raises(InputError, match=message):
+        to_absorbance(readings(values))
 
 
 def test_explicit_absorbance_never_refused():
@@ -230,8 +229,21 @@ def test_cli_results_match_the_absorbance_run(tmp_path, cli, library_file, quant
 def test_cli_explicit_absorbance_is_not_refused(tmp_path, cli, library_file):
     """--quantity absorbance reads the numbers as they are, however unlikely."""
     path = written_as(tmp_path / "odd.csv", "percent_transmittance")
-    run = cli("unmix", library_file, path, "--quantity", "absorbance")
+    run = cli.ok("unmix", library_file, path, "--quantity", "absorbance")
     assert "looks like" not in run.output
+    assert "above_range" in run.stdout  # read as 20-100 AU, and flagged as such
+
+
+def test_cube_converted_lazily(tmp_path):
+    """A cube in %T with quantity= is converted chunk by chunk (still dask-backed)."""
+    absorbance = ms.read_spectra(demo_file("batches_spectra.csv"))
+    percent = ms.read_spectra(written_as(tmp_path / "t.csv", "percent_transmittance"),
+                              quantity="absorbance")
+    ms.write_cube(percent.to_dataset(name="absorbance"), tmp_path / "t.nc")
+    cube = ms.read_cube(tmp_path / "t.nc", quantity="percent_transmittance")
+    assert cube.chunks is not None
+    assert cube.attrs["quantity_read"] == "percent_transmittance"
+    np.testing.assert_allclose(cube.values, absorbance.values, rtol=0, atol=1e-10)
 
 
 def test_api_results_match_the_absorbance_run(tmp_path, library_file):
