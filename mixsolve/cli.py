@@ -444,6 +444,15 @@ noise_options = [
                  help="Reliable absorbance range LOW-HIGH (AU) for the range flags."),
 ]
 
+#: What the numbers of the spectra files are (mixsolve.spectra.to_absorbance); no default,
+#: so that values which cannot be absorbance are refused unless the option is given.
+quantity_option = click.option(
+    "--quantity", type=CoreChoice("mixsolve.spectra:QUANTITIES"),
+    help="What the file's numbers are: absorbance, transmittance (0-1), "
+    "percent_transmittance (0-100) or milliabsorbance (mAU); converted to absorbance on "
+    "reading. Not given: absorbance, and values that cannot be (median above 10) are "
+    "refused, naming the likely quantity.")
+
 selection_options = [
     click.option("--window", callback=callback(parse_window),
                  help="Wavelength window LOW-HIGH in nm, both ends included."),
@@ -518,6 +527,10 @@ _LEADING_NAME = re.compile(r"^([a-z][a-z0-9_]*)(?=:)")
 _INNER_NAME = re.compile(
     r"(?<![\w./\\-])(?<!attribute )(?<!variable )(?<!column )(?<!optionally )(?<!has )"
     r"(?<!starts with )([a-z][a-z0-9]*(?:_[a-z0-9]+)+)(?![\w/\\-])(?!\.\w)")
+#: A fix that gives a keyword with its value as the API takes it (``give
+#: quantity='milliabsorbance'``, ``(or quantity='absorbance' ...``), shown as the flag and
+#: its value (``--quantity milliabsorbance``) when the command has that option.
+_KEYWORD_VALUE = re.compile(r"(?:(?<=\bgive )|(?<=\bor ))([a-z][a-z0-9_]*)='([^'\s]+)'")
 
 
 def in_flag_words(message: str, command: click.Command) -> str:
@@ -532,15 +545,22 @@ def in_flag_words(message: str, command: click.Command) -> str:
     """
     flags = {p.name: p.opts[0] for p in command.params
              if isinstance(p, click.Option) and p.name}
+    valued = {p.name for p in command.params
+              if isinstance(p, click.Option) and p.name and not p.is_flag}
 
     def flag(name: str) -> str | None:
         return flags.get(name) or flags.get(API_PARAMETERS.get(name, ""))
+
+    def with_value(m: re.Match[str]) -> str:
+        name = m.group(1) if m.group(1) in flags else API_PARAMETERS.get(m.group(1), "")
+        return f"{flags[name]} {m.group(2)}" if name in valued else m.group(0)
 
     match = _LEADING_NAME.match(message)
     head, rest = "", message
     if match is not None:
         head = flag(match.group(1)) or match.group(1)
         rest = message[match.end():]
+    rest = _KEYWORD_VALUE.sub(with_value, rest)
     return head + _INNER_NAME.sub(lambda m: flag(m.group(1)) or m.group(1), rest)
 
 
@@ -664,9 +684,10 @@ def library_import(table: str, unit: str, out: str, molar_mass: dict[str, float]
               help="Molar masses, NAME=G_PER_MOL,...")
 @click.option("--solvent", default="", help="Solvent or matrix of the standards.")
 @click.option("--bandwidth-nm", type=float, help="Spectral bandwidth of the instrument (nm).")
+@quantity_option
 def library_build(spectra: str, standards: str, out: str, intercept: bool,
                   pathlength: float | None, molar_mass: dict[str, float] | None, solvent: str,
-                  bandwidth_nm: float | None) -> None:
+                  bandwidth_nm: float | None, quantity: str | None) -> None:
     """Build a library from spectra of pure standards and their concentrations."""
     from mixsolve.report.text import format_library
     from mixsolve.workflows.library_files import build_library_files
@@ -674,7 +695,8 @@ def library_build(spectra: str, standards: str, out: str, intercept: bool,
     lib = build_library_files(spectra, standards, out, intercept=intercept,
                               pathlength_cm=pathlength,
                               molar_mass=molar_mass, solvent=solvent,
-                              bandwidth_nm=bandwidth_nm)
+                              bandwidth_nm=bandwidth_nm,
+                              quantity=quantity)  # type: ignore[arg-type]
     click.echo(format_library(lib, out), nl=False)
 
 
@@ -707,6 +729,7 @@ def library_show(library_file: str) -> None:
 @click.option("--report", help="HTML page to write: settings, results, notes and figures.")
 @click.option("--scheduler", help="Run on this dask.distributed scheduler (tcp://HOST:PORT).")
 @click.option("--workers", type=int, help="Run on a local dask cluster of N worker processes.")
+@quantity_option
 @add_options(measurement_options)
 def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
           wavelengths: list[float] | None, method: str, baseline: str,
@@ -714,7 +737,7 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
           absorbance_range: tuple[float, float], fit_shift: bool,
           max_shift: float, wavelength_tolerance: float, out: str | None,
           report: str | None, scheduler: str | None, workers: int | None,
-          **measurement: Any) -> None:
+          quantity: str | None, **measurement: Any) -> None:
     """Resolve SPECTRA into concentrations with the library (or PLS model) LIBRARY_FILE.
 
     SPECTRA is a table, or a .zarr/.nc cube (any dims besides wavelength, run chunk by
@@ -734,7 +757,7 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
                          stray_fraction=measurement.pop("stray"),
                          u_stray_fraction=measurement.pop("u_stray"),
                          measurement=measurement, scheduler=scheduler, workers=workers,
-                         progress=sys.stderr)
+                         progress=sys.stderr, quantity=quantity)  # type: ignore[arg-type]
     click.echo(format_unmix(result) + budget_text(result), nl=False)
     if out:
         click.echo(f"wrote {out}", err=True)
@@ -850,11 +873,12 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
 @click.option("--compare", is_flag=True,
               help="Also cross-validate CLS on the same folds and print both.")
 @click.option("--plot", help="PNG file for the CV curve and predicted-vs-reference plots.")
+@quantity_option
 def calibrate(spectra: str, reference: str, out: str, window: tuple[float, float] | None,
               latent: int | str,
               max_latent: int, folds: int | None, split: str, seed: int, mode: str,
               scale: str, derivative: int | None, polyorder: int, pathlength: float | None,
-              compare: bool, plot: str | None) -> None:
+              compare: bool, plot: str | None, quantity: str | None) -> None:
     """Build a PLS model from SPECTRA of mixtures of known composition (--reference)."""
     from mixsolve.workflows.calibrate import calibrate_files
 
@@ -862,7 +886,8 @@ def calibrate(spectra: str, reference: str, out: str, window: tuple[float, float
                           latent=latent, max_latent=max_latent, folds=folds,
                           split=split, seed=seed, mode=mode, scale=scale,
                           derivative=derivative, polyorder=polyorder,
-                          pathlength_cm=pathlength, compare=compare)
+                          pathlength_cm=pathlength, compare=compare,
+                          quantity=quantity)  # type: ignore[arg-type]
     click.echo(run.text, nl=False)
     click.echo(f"wrote {out}" + (f" and {plot}" if plot else ""), err=True)
 
@@ -917,6 +942,7 @@ class PlateProgress:
 @click.option("--layout-sheet", help="XLSX sheet of the layout [first].")
 @click.option("--plate-size", type=CoreChoice("mixsolve.plate.wells:PLATE_SHAPES"),
               callback=callback(parse_whole), help="Plate format [detected].")
+@quantity_option
 @add_options(noise_options)
 @add_options(stray_options)
 def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
@@ -925,9 +951,9 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
           method: str, baseline: str, unit: str | None, pathlength: float | None,
           volume_ul: float | None, well_diameter_mm: float | None, water_band: bool,
           water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
-          plate_size: int | None, weights: str, noise: str | float | None,
-          absorbance_range: tuple[float, float], stray: float | None,
-          u_stray: float | None) -> None:
+          plate_size: int | None, quantity: str | None, weights: str,
+          noise: str | float | None, absorbance_range: tuple[float, float],
+          stray: float | None, u_stray: float | None) -> None:
     """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample."""
     from mixsolve.workflows.plate import run_plates
 
@@ -936,7 +962,8 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
         batch = run_plates(
             exports, layout_file, out=out_dir, library=library_file,
             library_from_plate=library_from_plate, sheet=sheet, layout_sheet=layout_sheet,
-            plate_size=plate_size, progress=progress, window=window, wavelengths=wavelengths,
+            plate_size=plate_size, quantity=quantity,  # type: ignore[arg-type]
+            progress=progress, window=window, wavelengths=wavelengths,
             method=method, baseline=baseline, unit=unit, pathlength_cm=pathlength,
             volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
             water_k_au_per_cm=water_k, max_cv=max_cv, weights=weights, noise=noise,
@@ -969,13 +996,15 @@ bandwidth_option = click.option("--bandwidth", type=float,
               help="Largest deviation of a level from the mean specific absorbance (%).")
 @bandwidth_option
 @log_option
+@quantity_option
 def instrument_absorbance(spectra: str, concentration: list[float], pathlength: float,
                           tolerance: float | None, linearity_tolerance: float,
-                          bandwidth: float | None, log: str | None) -> None:
+                          bandwidth: float | None, log: str | None,
+                          quantity: str | None) -> None:
     """Absorbance scale from potassium dichromate SPECTRA (235, 257, 313, 350 nm)."""
     from mixsolve.workflows.instrument import run_check
 
-    _, text = run_check("absorbance", spectra, log=log,
+    _, text = run_check("absorbance", spectra, log=log, quantity=quantity,  # type: ignore[arg-type]
                         concentration_mg_l=concentration,
                         pathlength_cm=pathlength, tolerance_pct=tolerance,
                         linearity_tolerance_pct=linearity_tolerance, bandwidth_nm=bandwidth)
@@ -1005,14 +1034,15 @@ def instrument_absorbance(spectra: str, concentration: list[float], pathlength: 
               help="Standard uncertainty of the certified positions (nm).")
 @bandwidth_option
 @log_option
+@quantity_option
 def instrument_wavelength(spectra: str, bands: list[float], uv_tolerance: float,
                           vis_tolerance: float, fit: str, fit_half_width: float,
                           search: float | None, reference_u: float, bandwidth: float | None,
-                          log: str | None) -> None:
+                          log: str | None, quantity: str | None) -> None:
     """Wavelength scale from a holmium oxide SPECTRA: band positions, offset and its u."""
     from mixsolve.workflows.instrument import run_check
 
-    _, text = run_check("wavelength", spectra, log=log,
+    _, text = run_check("wavelength", spectra, log=log, quantity=quantity,  # type: ignore[arg-type]
                         bands_nm=bands,
                         uv_tolerance_nm=uv_tolerance, vis_tolerance_nm=vis_tolerance,
                         method=fit, fit_half_width_nm=fit_half_width, search_nm=search,
@@ -1030,21 +1060,26 @@ def instrument_wavelength(spectra: str, bands: list[float], uv_tolerance: float,
               help="Each reading must exceed this absorbance (AU).")
 @bandwidth_option
 @log_option
+@quantity_option
 def instrument_stray_light(spectra: str, wavelength: float, limit: float,
-                           bandwidth: float | None, log: str | None) -> None:
+                           bandwidth: float | None, log: str | None,
+                           quantity: str | None) -> None:
     """Stray light from cut-off filter SPECTRA (12 g/L KCl: A at 200 nm above 2)."""
     from mixsolve.workflows.instrument import run_check
 
     _, text = run_check("stray_light", spectra, log=log, wavelength_nm=wavelength,
-                        limit_au=limit, bandwidth_nm=bandwidth)
+                        limit_au=limit, bandwidth_nm=bandwidth,
+                        quantity=quantity)  # type: ignore[arg-type]
     click.echo(text, nl=False)
 
 
 @instrument.command("repeatability")
 @click.argument("scans")
 @click.option("--out", help="CSV of mean, SD and drift per wavelength to write.")
-def instrument_repeatability(scans: str, out: str | None) -> None:
+@quantity_option
+def instrument_repeatability(scans: str, out: str | None, quantity: str | None) -> None:
     """SD per wavelength and drift of repeated SCANS of one solution (columns in order)."""
     from mixsolve.workflows.instrument import run_repeatability
 
-    click.echo(run_repeatability(scans, out=out)[1], nl=False)
+    click.echo(run_repeatability(scans, out=out,
+                                 quantity=quantity)[1], nl=False)  # type: ignore[arg-type]

@@ -2,13 +2,14 @@
 
 A spectra array is an :class:`xarray.DataArray` with a ``wavelength`` dimension
 (nm, float, strictly increasing) and any other dimensions (usually ``sample``).
-Attributes: ``quantity`` ("absorbance"), ``pathlength_cm`` where known, ``source``.
+Attributes: ``quantity`` ("absorbance"), ``quantity_read`` (what the numbers were before
+:func:`to_absorbance` turned them into absorbance), ``pathlength_cm`` where known, ``source``.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
@@ -19,6 +20,17 @@ from mixsolve.names import check_unique_names
 WAVELENGTH = "wavelength"
 SAMPLE = "sample"
 
+#: What the numbers of a spectra file or array are (``quantity``); each becomes absorbance
+#: on reading (:func:`to_absorbance`).
+QUANTITIES = ("absorbance", "transmittance", "percent_transmittance", "milliabsorbance")
+Quantity = Literal["absorbance", "transmittance", "percent_transmittance", "milliabsorbance"]
+#: Readings whose median is above this (AU) cannot be absorbance: no photometer reads
+#: beyond about 4-6 AU (common practice).
+NOT_ABSORBANCE_MEDIAN = 10.0
+#: ... and if none is above this, they look like percent transmittance (a reading at the
+#: blank's level lies a little above 100 %); otherwise like milliabsorbance.
+PERCENT_T_MAX = 110.0
+
 
 def make_spectra(
     values: Any,
@@ -27,13 +39,15 @@ def make_spectra(
     *,
     source: str = "",
     pathlength_cm: float | None = None,
+    quantity: Quantity | None = None,
 ) -> xr.DataArray:
     """Build a validated spectra array from plain arrays.
 
     Parameters
     ----------
     values : array_like, shape (n_samples, n_wavelengths)
-        Absorbance (dimensionless, AU). NaN marks a missing reading.
+        Absorbance (dimensionless, AU), or the ``quantity`` named. NaN marks a missing
+        reading.
     wavelengths_nm : array_like, shape (n_wavelengths,)
         Wavelengths in nm, any order; they are sorted ascending.
     samples : sequence of str, optional
@@ -42,10 +56,14 @@ def make_spectra(
         Where the spectra came from (file name), kept in ``attrs``.
     pathlength_cm : float, optional
         Cell pathlength, if known, kept in ``attrs``.
+    quantity : {"absorbance", "transmittance", "percent_transmittance", "milliabsorbance"}, optional
+        What ``values`` are; converted to absorbance (:func:`to_absorbance`). Omitted,
+        values that cannot be absorbance are refused.
 
     Returns
     -------
     DataArray with dims ("sample", "wavelength")
+        Absorbance (AU); ``attrs["quantity_read"]`` says what ``values`` were.
     """
     data = np.atleast_2d(np.asarray(values, dtype=float))
     wl = np.asarray(wavelengths_nm, dtype=float)
@@ -66,7 +84,112 @@ def make_spectra(
         attrs=attrs,
         name="absorbance",
     )
-    return check_spectra(da.sortby(WAVELENGTH))
+    return to_absorbance(check_spectra(da.sortby(WAVELENGTH)), quantity, source or "values")
+
+
+def to_absorbance(spectra: xr.DataArray, quantity: Quantity | None = None,
+                  where: str | None = None) -> xr.DataArray:
+    """Spectra as absorbance, from the quantity their numbers are.
+
+    Parameters
+    ----------
+    spectra : DataArray
+        Readings as they were measured or exported (numpy- or dask-backed).
+    quantity : {"absorbance", "transmittance", "percent_transmittance", "milliabsorbance"}, optional
+        What the readings are: absorbance A (AU); transmittance T = I/I₀ as a fraction
+        (0–1); percent transmittance %T = 100·T (0–100); milliabsorbance (mAU, 1/1000 AU).
+        None: absorbance, refused when the values cannot be absorbance (see Notes).
+    where : str, optional
+        The file or array the readings come from, for messages; default
+        ``attrs["source"]``, else "spectra".
+
+    Returns
+    -------
+    DataArray
+        Absorbance (AU), same dims and coordinates; ``attrs["quantity"]`` is
+        ``"absorbance"``, ``attrs["quantity_read"]`` what the readings were, and for
+        numpy-backed transmittance ``attrs["dark_readings"]`` how many were ≤ 0.
+
+    Raises
+    ------
+    InputError
+        ``quantity`` not one of :data:`QUANTITIES`; or ``quantity`` omitted and the values
+        cannot be absorbance (one line naming the likely quantity and the option).
+
+    Notes
+    -----
+    Conversions (IUPAC Gold Book, "absorbance", decadic: A = −log10 T):
+
+    - transmittance: A = −log10(T)
+    - percent transmittance: A = 2 − log10(%T), i.e. −log10(%T/100)
+    - milliabsorbance: A = mAU / 1000
+
+    A transmittance ≤ 0 (a dark reading: nothing reached the detector, or the dark
+    correction overshot) has no absorbance; it becomes NaN, a missing reading, which
+    ``unmix`` flags ``missing_readings`` and plates record as the marker ``dark``.
+    Transmittance above 1 (100 %) is kept: it gives a small negative absorbance, as a
+    reading at the blank's level does.
+
+    Without ``quantity`` the readings are taken as absorbance unless they cannot be one
+    (common practice: no photometer reads beyond about 4–6 AU, and a transmittance
+    export is on a 0–100 scale). Only numpy-backed arrays are looked at; a lazy cube is
+    not read for this. When the median of the finite readings is above 10, most of them
+    lie beyond any photometer's range and the readings are refused:
+
+    - none above 110: they look like percent transmittance (a reading at the blank's
+      level lies a little above 100 %);
+    - otherwise: they look like milliabsorbance.
+
+    Both hints name the option; milliabsorbance readings that all lie below 110 are
+    named percent transmittance. Transmittance as a fraction (0–1) is not guessed:
+    readings of 0.3–1 are just as likely absorbances of a dilute sample, so such a file
+    is read as absorbance unless ``quantity="transmittance"`` says otherwise; nor are
+    percent transmittances of strongly absorbing samples (median below 10 %, i.e. most
+    absorbances above 1), nor a few mAU near the baseline. Given
+    ``quantity="absorbance"``, values are never refused on these grounds.
+    """
+    if quantity is None:
+        _refuse_unlikely_absorbance(spectra, where or spectra.attrs.get("source") or "spectra")
+        read = "absorbance"
+    else:
+        read = check_option(quantity, QUANTITIES, "quantity")
+    attrs = {**spectra.attrs, "quantity": "absorbance", "quantity_read": read}
+    if read == "absorbance":
+        out = spectra.copy(deep=False)
+    elif read == "milliabsorbance":
+        out = spectra / 1000.0
+    else:
+        t = spectra / 100.0 if read == "percent_transmittance" else spectra
+        lit = t > 0
+        out = 0.0 - np.log10(t.where(lit))  # NaN (missing) where T <= 0: dark
+        if not _is_dask(spectra):
+            attrs["dark_readings"] = int((np.isfinite(t.values) & ~lit.values).sum())
+    out.attrs = attrs
+    out.name = spectra.name
+    return out
+
+
+def _refuse_unlikely_absorbance(spectra: xr.DataArray, where: str) -> None:
+    """Refuse numpy-backed readings that cannot be absorbance (:func:`to_absorbance`)."""
+    if _is_dask(spectra):
+        return
+    values = np.asarray(spectra.values, dtype=float)
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return
+    high, median = float(finite.max()), float(np.median(finite))
+    if median <= NOT_ABSORBANCE_MEDIAN:
+        return
+    if high <= PERCENT_T_MAX:
+        raise InputError(
+            f"{where}: most readings are above {NOT_ABSORBANCE_MEDIAN:g} (median {median:.3g}) "
+            f"and none above {PERCENT_T_MAX:g}, which looks like percent transmittance, not "
+            "absorbance; give quantity='percent_transmittance' (or quantity='absorbance' if it "
+            "really is)")
+    raise InputError(
+        f"{where}: most readings are above {NOT_ABSORBANCE_MEDIAN:g} (median {median:.4g}, "
+        f"largest {high:.4g}), which no absorbance reading is; it looks like milliabsorbance "
+        "(mAU): give quantity='milliabsorbance' (or quantity='absorbance' if it really is)")
 
 
 def check_spectra(spectra: xr.DataArray, name: str = "spectra", *,

@@ -50,7 +50,7 @@ def test_wide_csv(tmp_path, columns):
     assert da["wavelength"].dtype == np.float64
     np.testing.assert_allclose(da.values, _as_matrix(columns), rtol=1e-15)
     assert da.attrs == {"quantity": "absorbance", "source": "wide.csv", "layout": "wide",
-                        "separator": "comma", "decimal": "."}
+                        "separator": "comma", "decimal": ".", "quantity_read": "absorbance"}
 
 
 @pytest.mark.parametrize("first", ["wavelength_nm", "wavelength", "Wavelength (nm)",

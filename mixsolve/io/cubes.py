@@ -28,7 +28,14 @@ from mixsolve.flags import VLEN_STR
 from mixsolve.io import limits
 from mixsolve.io.atomic import atomic_path
 from mixsolve.io.outputs import stage
-from mixsolve.spectra import WAVELENGTH, check_number
+from mixsolve.spectra import (
+    QUANTITIES,
+    WAVELENGTH,
+    Quantity,
+    check_number,
+    check_option,
+    to_absorbance,
+)
 
 #: File name endings read and written as cubes (lower case).
 CUBE_SUFFIXES = (".zarr", ".nc")
@@ -54,7 +61,8 @@ def is_cube_path(path: str | os.PathLike[str]) -> bool:
 
 
 def read_cube(path: str | os.PathLike[str], *, variable: str | None = None,
-              chunk_spectra: int | None = None) -> xr.DataArray:
+              chunk_spectra: int | None = None,
+              quantity: Quantity | None = None) -> xr.DataArray:
     """Open a spectra cube lazily (dask-backed), chunked over spectra only.
 
     Parameters
@@ -66,6 +74,10 @@ def read_cube(path: str | os.PathLike[str], *, variable: str | None = None,
         with a ``wavelength`` dimension.
     chunk_spectra : int, optional
         About how many spectra one chunk holds; default ``CHUNK_BYTES`` worth.
+    quantity : {"absorbance", "transmittance", "percent_transmittance", "milliabsorbance"}, optional
+        What the values are; converted to absorbance lazily, chunk by chunk
+        (:func:`mixsolve.spectra.to_absorbance`). Omitted: absorbance, not checked (a
+        lazy cube is not read to guess what it holds).
 
     Returns
     -------
@@ -82,6 +94,8 @@ def read_cube(path: str | os.PathLike[str], *, variable: str | None = None,
     """
     if chunk_spectra is not None:
         chunk_spectra = int(check_number(chunk_spectra, "chunk_spectra", low=1, integer=True))
+    if quantity is not None:
+        check_option(quantity, QUANTITIES, "quantity")
     p = Path(path)
     if not p.exists():
         raise FileFormatError(f"{path}: file not found")
@@ -98,7 +112,7 @@ def read_cube(path: str | os.PathLike[str], *, variable: str | None = None,
     da = da.chunk(plan)
     da.attrs.setdefault("quantity", "absorbance")
     da.attrs["source"] = p.name
-    return da
+    return da if quantity is None else to_absorbance(da, quantity, p.name)
 
 
 def _open(p: Path) -> xr.Dataset:

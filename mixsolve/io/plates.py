@@ -10,7 +10,9 @@
 96-well (8 × 12) and 384-well (16 × 24) plates; comma, semicolon or tab separators,
 decimal comma, CSV/TSV/XLSX (:func:`mixsolve.io.tables.read_rows`). A non-numeric reading
 (``OVER``, ``*****``, ``Err``) is a missing reading of that well at that wavelength; it is
-kept as NaN and recorded in ``attrs["markers"]``, never dropped silently.
+kept as NaN and recorded in ``attrs["markers"]``, never dropped silently. Readings in
+transmittance are converted to absorbance (``quantity``); a transmittance ≤ 0 is a
+missing reading recorded as the marker ``dark``.
 """
 
 from __future__ import annotations
@@ -37,7 +39,14 @@ from mixsolve.plate.wells import (
     plate_size_for,
     well_name,
 )
-from mixsolve.spectra import WAVELENGTH, check_spectra
+from mixsolve.spectra import (
+    QUANTITIES,
+    WAVELENGTH,
+    Quantity,
+    check_option,
+    check_spectra,
+    to_absorbance,
+)
 
 GRID, WELL_COLUMNS, LONG = "grid blocks", "well columns", "long"
 WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]",
@@ -50,6 +59,9 @@ LAYOUT_HELP = (
     "1-24, rows lettered A-H or A-P), well columns (wavelength_nm, A1, A2, ...) or long "
     "(well, wavelength_nm, absorbance); see docs/plates.md")
 
+#: The marker of a transmittance reading ≤ 0 (no light reached the detector).
+DARK = "dark"
+
 Readings = tuple[list[str], np.ndarray, np.ndarray, dict[str, list[tuple[float, str]]]]
 
 
@@ -58,6 +70,7 @@ def read_plate(
     *,
     sheet: str | None = None,
     plate_size: int | None = None,
+    quantity: Quantity | None = None,
 ) -> xr.DataArray:
     """Read a plate-reader export (grid blocks, well columns or long; see the module doc).
 
@@ -70,23 +83,31 @@ def read_plate(
     plate_size : {96, 384}, optional
         Plate format; by default the grid's size, or for the other layouts the smallest
         format holding every well named.
+    quantity : {"absorbance", "transmittance", "percent_transmittance", "milliabsorbance"}, optional
+        What the readings are, converted to absorbance
+        (:func:`mixsolve.spectra.to_absorbance`); a transmittance ≤ 0 becomes NaN with
+        the marker ``dark``. Omitted: absorbance, and readings that cannot be absorbance
+        are refused, naming the option.
 
     Returns
     -------
     DataArray with dims ("well", "wavelength")
         Raw absorbance (AU), wells in plate order (A1, A2, ...), wavelengths ascending
         (nm); NaN where a reading is missing. ``attrs``: ``layout`` (which of the three
-        was found), ``plate_size``, ``separator``, ``decimal``, ``source`` and ``markers``
-        (JSON: well → list of [wavelength nm, marker text]).
+        was found), ``plate_size``, ``separator``, ``decimal``, ``source``, ``markers``
+        (JSON: well → list of [wavelength nm, marker text]) and ``quantity_read``.
 
     Raises
     ------
     FileFormatError, InputError
         No layout recognised, malformed blocks, unknown or repeated wells, repeated
-        wavelengths, wells off the plate; the message names file, line, well and value.
+        wavelengths, wells off the plate, readings that cannot be absorbance when
+        ``quantity`` is omitted; the message names file, line, well and value.
     """
     if plate_size is not None and plate_size not in PLATE_SHAPES:
         raise InputError(f"plate_size: {plate_size!r} is not one of 96, 384")
+    if quantity is not None:
+        check_option(quantity, QUANTITIES, "quantity")
     table = read_rows(path, sheet=sheet)
     layout, reader = _detect(table)
     wells, wavelengths, values, markers = reader(table)
@@ -111,10 +132,15 @@ def read_plate(
             "separator": SEPARATOR_NAMES[table.separator],
             "decimal": table.decimal,
             "sheet": "; ".join(table.notes),
-            "markers": json.dumps(markers),
         },
     )
-    return check_spectra(da, table.name)
+    absorbance = to_absorbance(da, quantity, table.name)
+    dark = np.isfinite(da.values) & np.isnan(absorbance.values)
+    for i, j in zip(*np.nonzero(dark), strict=True):
+        well, wl = str(da[WELL].values[i]), float(da[WAVELENGTH].values[j])
+        markers.setdefault(well, []).append((wl, DARK))
+    absorbance.attrs["markers"] = json.dumps(markers)
+    return check_spectra(absorbance, table.name)
 
 
 # --- cells -------------------------------------------------------------------------------

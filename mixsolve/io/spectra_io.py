@@ -24,7 +24,16 @@ from mixsolve.io.tables import (
     read_table,
 )
 from mixsolve.names import check_unique_names, normalise_name
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
+from mixsolve.spectra import (
+    QUANTITIES,
+    SAMPLE,
+    WAVELENGTH,
+    Quantity,
+    check_number,
+    check_option,
+    check_spectra,
+    to_absorbance,
+)
 
 WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]")
 
@@ -38,8 +47,9 @@ def read_spectra(
     *,
     sheet: str | None = None,
     pathlength_cm: float | None = None,
+    quantity: Quantity | None = None,
 ) -> xr.DataArray:
-    """Read absorbance spectra from CSV, TSV or XLSX.
+    """Read absorbance spectra (or transmittance, converted) from CSV, TSV or XLSX.
 
     Parameters
     ----------
@@ -49,24 +59,35 @@ def read_spectra(
         XLSX sheet; default the first.
     pathlength_cm : float, optional
         Pathlength (cm) to record in ``attrs``.
+    quantity : {"absorbance", "transmittance", "percent_transmittance", "milliabsorbance"}, optional
+        What the file's numbers are; converted to absorbance by
+        :func:`mixsolve.spectra.to_absorbance` (a transmittance ≤ 0 becomes NaN).
+        Omitted: absorbance, and a file whose values cannot be absorbance (all within
+        5–100 with the median above 10, or all above 10) is refused, naming the option.
+        In a long table the value column is still headed ``absorbance``.
 
     Returns
     -------
     DataArray with dims ("sample", "wavelength")
         Absorbance (AU), wavelengths ascending (nm). Empty cells are NaN (missing).
+        ``attrs["quantity_read"]`` says what the file held.
 
     Raises
     ------
     FileFormatError, InputError
         Unreadable files, unknown layout, duplicate wavelengths or samples, text in
-        numeric cells; the message names the file, line, column and value.
+        numeric cells, values that cannot be absorbance when ``quantity`` is omitted;
+        the message names the file, line, column and value.
     """
     if pathlength_cm is not None:
         pathlength_cm = check_number(pathlength_cm, "pathlength_cm", "cm", positive=True)
+    if quantity is not None:
+        check_option(quantity, QUANTITIES, "quantity")  # before reading the file
     da = _read_large_text(Path(path)) if sheet is None else None
     if da is None:
         table = read_table(path, sheet=sheet)
         da = _to_array(table, SAMPLE)
+    da = to_absorbance(da, quantity, str(da.attrs.get("source") or Path(path).name))
     if pathlength_cm is not None:
         da.attrs["pathlength_cm"] = pathlength_cm
     return da

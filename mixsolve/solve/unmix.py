@@ -78,7 +78,8 @@ from mixsolve.spectra import (
 from mixsolve.units import conversion_factor
 
 #: Attributes of the input spectra that must not label the result's variables.
-INPUT_ATTRS = ("quantity", "source", "layout", "separator", "decimal", "pathlength_cm")
+INPUT_ATTRS = ("quantity", "quantity_read", "dark_readings", "source", "layout", "separator",
+               "decimal", "pathlength_cm")
 Weights = Literal["none", "noise"]
 WEIGHTS: tuple[str, ...] = ("none", "noise")
 

@@ -21,6 +21,7 @@ from mixsolve.io.reference_io import read_reference
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.pls.calibrate import calibrate
 from mixsolve.report.calibration_text import format_calibration
+from mixsolve.spectra import Quantity
 
 PathLike = str | os.PathLike[str]
 
@@ -34,7 +35,8 @@ class CalibrationRun:
 
 
 def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None, *,
-                    plot: PathLike | None = None, **options: Any) -> CalibrationRun:
+                    plot: PathLike | None = None, quantity: Quantity | None = None,
+                    **options: Any) -> CalibrationRun:
     """Read spectra and reference, calibrate, write the model (and a plot) when asked.
 
     Parameters
@@ -46,6 +48,8 @@ def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None
     plot : path-like, optional
         PNG file for the cross-validation curve and predicted-against-reference panels
         (:func:`mixsolve.report.figures.calibration_figure`).
+    quantity : str, optional
+        What the spectra file's numbers are (:func:`mixsolve.read_spectra`).
     **options
         Passed to :func:`mixsolve.calibrate` (window, latent, folds, split, mode, ...).
 
@@ -55,7 +59,8 @@ def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None
         The model and :func:`mixsolve.report.calibration_text.format_calibration` of it.
     """
     check_writable(out, plot, inputs=[spectra, reference])
-    model = calibrate(read_spectra(spectra), read_reference(reference), **options)
+    model = calibrate(read_spectra(spectra, quantity=quantity), read_reference(reference),
+                      **options)
     figure = None
     if plot is not None:  # drawn before anything is written: a failure leaves no file
         from mixsolve.report.figures import calibration_figure  # deferred: matplotlib

@@ -26,6 +26,7 @@ from mixsolve.io.outputs import guard_outputs
 from mixsolve.io.results_io import write_table
 from mixsolve.io.spectra_io import read_spectra
 from mixsolve.report.instrument_text import format_check, format_repeatability, log_records
+from mixsolve.spectra import Quantity
 
 PathLike = str | os.PathLike[str]
 CHECKS: dict[str, Callable[..., CheckResult]] = {
@@ -36,7 +37,8 @@ CHECKS: dict[str, Callable[..., CheckResult]] = {
 
 
 def run_check(check: str, spectra: PathLike, *, log: PathLike | None = None,
-              when: datetime | None = None, **options: Any) -> tuple[CheckResult, str]:
+              when: datetime | None = None, quantity: Quantity | None = None,
+              **options: Any) -> tuple[CheckResult, str]:
     """Run one instrument check on a spectra file.
 
     Parameters
@@ -48,6 +50,8 @@ def run_check(check: str, spectra: PathLike, *, log: PathLike | None = None,
         CSV log to append the dated records to (created when missing).
     when : datetime, optional
         Time stamp of the records; default now, local time with its UTC offset.
+    quantity : str, optional
+        What the file's numbers are (:func:`mixsolve.read_spectra`).
     **options
         Passed to the check function (tolerances, concentration, bandwidth...).
 
@@ -57,7 +61,7 @@ def run_check(check: str, spectra: PathLike, *, log: PathLike | None = None,
         The result and its text (with a last line naming the log when written).
     """
     guard_outputs([log], inputs=[spectra])  # before any work
-    data = read_spectra(spectra)
+    data = read_spectra(spectra, quantity=quantity)
     result = CHECKS[check](data, **options)
     text = format_check(result, os.path.basename(str(spectra)))
     if log is not None:
@@ -68,15 +72,16 @@ def run_check(check: str, spectra: PathLike, *, log: PathLike | None = None,
     return result, text
 
 
-def run_repeatability(scans: PathLike, *, out: PathLike | None = None
-                      ) -> tuple[xr.Dataset, str]:
+def run_repeatability(scans: PathLike, *, out: PathLike | None = None,
+                      quantity: Quantity | None = None) -> tuple[xr.Dataset, str]:
     """Repeatability statistics of a file of repeated scans (one column per scan, in order).
 
     ``out`` writes the per-wavelength table (wavelength_nm, mean, sd, drift_per_scan,
-    u_drift_per_scan, drift_over_run, drift_significant) as CSV.
+    u_drift_per_scan, drift_over_run, drift_significant) as CSV. ``quantity`` says what
+    the file's numbers are (:func:`mixsolve.read_spectra`).
     """
     guard_outputs([out], inputs=[scans])  # before any work
-    stats = repeatability(read_spectra(scans))
+    stats = repeatability(read_spectra(scans, quantity=quantity))
     text = format_repeatability(stats, os.path.basename(str(scans)))
     if out is not None:
         table = stats.drop_vars(["n_scans", "pooled_sd", "mean_drift_over_run"]).to_dataframe()

@@ -12,6 +12,7 @@ from mixsolve.io.library_store import write_library
 from mixsolve.io.spectra_io import read_absorptivity_table, read_spectra
 from mixsolve.io.standards_io import molar_masses_from_sheet, read_standards
 from mixsolve.library import build_library, import_absorptivities
+from mixsolve.spectra import Quantity
 
 PathLike = str | os.PathLike[str]
 
@@ -33,10 +34,14 @@ def import_library_file(table: PathLike, unit: str, out: PathLike, *,
 def build_library_files(spectra: PathLike, standards: PathLike, out: PathLike | None, *,
                         intercept: bool = False, pathlength_cm: float | None = None,
                         molar_mass: Mapping[str, float] | None = None, solvent: str = "",
-                        bandwidth_nm: float | None = None) -> xr.Dataset:
-    """Read standards spectra and sheet, build a library and write it to ``out`` (if given)."""
+                        bandwidth_nm: float | None = None,
+                        quantity: Quantity | None = None) -> xr.Dataset:
+    """Read standards spectra and sheet, build a library and write it to ``out`` (if given).
+
+    ``quantity`` says what the spectra file's numbers are (:func:`read_spectra`).
+    """
     check_writable(out, inputs=[spectra, standards])
-    measured = read_spectra(spectra)
+    measured = read_spectra(spectra, quantity=quantity)
     sheet = read_standards(standards)
     masses = {**molar_masses_from_sheet(sheet), **(molar_mass or {})}
     lib = build_library(measured, sheet, intercept=intercept, pathlength_cm=pathlength_cm,

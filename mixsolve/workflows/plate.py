@@ -27,6 +27,7 @@ from mixsolve.io.results_io import record_outputs, write_table, write_text, writ
 from mixsolve.plate.analysis import PlateResult, analyse_plate
 from mixsolve.report.plate_text import plate_notes, plate_settings
 from mixsolve.report.text import CAUTION
+from mixsolve.spectra import Quantity
 
 PathLike = str | os.PathLike[str]
 #: File suffixes taken from a folder of exports.
@@ -106,6 +107,7 @@ def run_plates(
     sheet: str | None = None,
     layout_sheet: str | None = None,
     plate_size: int | None = None,
+    quantity: Quantity | None = None,
     progress: Progress | None = None,
     **options: Any,
 ) -> PlateBatch:
@@ -129,6 +131,8 @@ def run_plates(
         XLSX sheets of the exports and of the layout; default the first.
     plate_size : {96, 384}, optional
         Plate format; detected by default.
+    quantity : str, optional
+        What the exports' readings are (:func:`read_plate`): absorbance by default.
     progress : callable, optional
         ``progress(done, total, message)`` after each plate (the CLI shows a bar).
     **options
@@ -162,15 +166,15 @@ def run_plates(
         return _run_plates(paths, names, own, layout, out=Path(out), library=library,
                            library_path=library_path, library_from_plate=library_from_plate,
                            sheet=sheet, layout_sheet=layout_sheet, plate_size=plate_size,
-                           progress=progress, **options)
+                           quantity=quantity, progress=progress, **options)
 
 
 def _run_plates(paths: list[Path], names: list[str], own: list[str], layout: PathLike, *,
                 out: Path,
                 library: xr.Dataset | PathLike | None, library_path: PathLike | None,
                 library_from_plate: bool, sheet: str | None, layout_sheet: str | None,
-                plate_size: int | None, progress: Progress | None, **options: Any
-                ) -> PlateBatch:
+                plate_size: int | None, quantity: Quantity | None,
+                progress: Progress | None, **options: Any) -> PlateBatch:
     """:func:`run_plates` once its outputs are checked; the caller stages them."""
     plan = read_layout(layout, sheet=layout_sheet)
     lib = read_library(library_path) if library_path is not None else library
@@ -178,7 +182,7 @@ def _run_plates(paths: list[Path], names: list[str], own: list[str], layout: Pat
 
     plates, pages = [], []
     for k, path in enumerate(paths, start=1):
-        measured = read_plate(path, sheet=sheet, plate_size=plate_size)
+        measured = read_plate(path, sheet=sheet, plate_size=plate_size, quantity=quantity)
         result = analyse_plate(measured, plan, lib,  # type: ignore[arg-type]
                                library_from_plate=library_from_plate, **options)
         plates.append(result)

@@ -26,6 +26,7 @@ from mixsolve.pls.model import MODEL_KIND
 from mixsolve.pls.predict import predict
 from mixsolve.report.tables import results_table
 from mixsolve.solve.unmix import unmix
+from mixsolve.spectra import Quantity
 from mixsolve.uncertainty.budget import budget_table, uncertainty_budget
 from mixsolve.workflows.cluster import compute, dask_client, require_scale
 from mixsolve.workflows.measurement import (
@@ -55,8 +56,13 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
                 report: PathLike | None = None,
                 measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                 scheduler: str | None = None, workers: int | None = None,
-                progress: TextIO | None = None, **options: Any) -> xr.Dataset:
+                progress: TextIO | None = None, quantity: Quantity | None = None,
+                **options: Any) -> xr.Dataset:
     """Read both files, run :func:`mixsolve.unmix`, write ``out`` (CSV) when given.
+
+    ``quantity`` says what the numbers of every spectra file of the run are (the spectra,
+    the cell blank, the repeated scans): absorbance by default, else converted on reading
+    (:func:`mixsolve.read_spectra`, :func:`mixsolve.io.cubes.read_cube`).
 
     ``report`` writes the HTML page of :func:`mixsolve.report.unmix_page.unmix_report`
     (least-squares results only).
@@ -87,14 +93,14 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
             library, spectra, window=window, wavelengths=wavelengths, method=method,
             baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, out=out,
             report=report, measurement=measurement, scheduler=scheduler, workers=workers,
-            progress=progress, **options)
+            progress=progress, quantity=quantity, **options)
     extra = measurement_options(measurement)
     # Before any work: a bad path costs nothing, and no output may overwrite an input.
     guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
     with all_or_nothing():
         return _unmix_table(library, spectra, extra, window=window, wavelengths=wavelengths,
                             method=method, baseline=baseline, pathlength_cm=pathlength_cm,
-                            unit=unit, out=out, report=report, **options)
+                            unit=unit, out=out, report=report, quantity=quantity, **options)
 
 
 def guard_unmix_outputs(library: PathLike, spectra: PathLike, *, out: PathLike | None,
@@ -113,7 +119,8 @@ def guard_unmix_outputs(library: PathLike, spectra: PathLike, *, out: PathLike |
 def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions, *,
                  window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
                  method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
-                 out: PathLike | None, report: PathLike | None, **options: Any) -> xr.Dataset:
+                 out: PathLike | None, report: PathLike | None, quantity: Quantity | None,
+                 **options: Any) -> xr.Dataset:
     """:func:`unmix_files` for a table in memory; the caller guards and stages the outputs."""
     budget_rows = None
     if file_kind(library) == MODEL_KIND:
@@ -132,12 +139,13 @@ def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions
         if report is not None:
             raise InputError("report: the HTML page covers least-squares results; for a PLS "
                              "model use the results CSV and the calibration figures")
-        measured, done = _corrected(read_spectra(spectra), extra)
+        measured, done = _corrected(read_spectra(spectra, quantity=quantity), extra, quantity)
         result = predict(measured, model, pathlength_cm=pathlength_cm, unit=unit)
     else:
         lib = read_library(library)
-        measured, done = _corrected(read_spectra(spectra), extra)
-        scans = read_spectra(extra.repeat_scans) if extra.repeat_scans is not None else None
+        measured, done = _corrected(read_spectra(spectra, quantity=quantity), extra, quantity)
+        scans = (read_spectra(extra.repeat_scans, quantity=quantity)
+                 if extra.repeat_scans is not None else None)
         result = unmix(measured, lib, window=window, wavelengths=wavelengths,
                        method=method,  # type: ignore[arg-type]
                        baseline=baseline,  # type: ignore[arg-type]
@@ -170,7 +178,8 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
                      report: PathLike | None = None,
                      measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                      scheduler: str | None = None, workers: int | None = None,
-                     progress: TextIO | None = None, **options: Any) -> xr.Dataset:
+                     progress: TextIO | None = None, quantity: Quantity | None = None,
+                     **options: Any) -> xr.Dataset:
     """Unmix a spectra cube (or a table) on dask, chunk by chunk, into a cube or a CSV.
 
     Parameters
@@ -186,7 +195,7 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         worker processes (:func:`mixsolve.workflows.cluster.dask_client`); default dask's threads.
     progress : text stream, optional
         Where the progress bar of a long run goes (the CLI passes stderr).
-    window, wavelengths, method, baseline, pathlength_cm, unit, measurement, options
+    window, wavelengths, method, baseline, pathlength_cm, unit, measurement, quantity, options
         As for :func:`unmix_files`; the uncertainty budget, the HTML report and PLS models
         are not available for cubes.
 
@@ -210,7 +219,7 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         result = _unmix_cube(library, spectra, extra, window=window, wavelengths=wavelengths,
                              method=method, baseline=baseline, pathlength_cm=pathlength_cm,
                              unit=unit, out=out, scheduler=scheduler, workers=workers,
-                             progress=progress, **options)
+                             progress=progress, quantity=quantity, **options)
     if out is not None and is_cube_path(out) and not in_run():
         return open_result(out)  # the written store, now in place
     return result
@@ -220,11 +229,13 @@ def _unmix_cube(library: PathLike, spectra: PathLike, extra: MeasurementOptions,
                 window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
                 method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
                 out: PathLike | None, scheduler: str | None, workers: int | None,
-                progress: TextIO | None, **options: Any) -> xr.Dataset:
+                progress: TextIO | None, quantity: Quantity | None,
+                **options: Any) -> xr.Dataset:
     """:func:`unmix_cube_files` once checked; the caller guards and stages the outputs."""
     lib = read_library(library)
     measured, _ = _corrected(
-        read_cube(spectra) if is_cube_path(spectra) else read_spectra(spectra), extra)
+        read_cube(spectra, quantity=quantity) if is_cube_path(spectra)
+        else read_spectra(spectra, quantity=quantity), extra, quantity)
     with dask_client(scheduler, workers) as client:
         if measured.chunks is None:
             measured = measured.chunk(chunk_plan(dict(measured.sizes)))
@@ -242,10 +253,12 @@ def _unmix_cube(library: PathLike, spectra: PathLike, extra: MeasurementOptions,
     return small
 
 
-def _corrected(measured: xr.DataArray, extra: MeasurementOptions
-                      ) -> tuple[xr.DataArray, Corrections]:
-    """The spectra as read, corrected as ``extra`` asks (the cell blank read from its file)."""
-    blank = read_spectra(extra.cell_blank) if extra.cell_blank is not None else None
+def _corrected(measured: xr.DataArray, extra: MeasurementOptions,
+               quantity: Quantity | None = None) -> tuple[xr.DataArray, Corrections]:
+    """The spectra as read, corrected as ``extra`` asks (the cell blank read from its file,
+    in the same ``quantity`` as the spectra)."""
+    blank = (read_spectra(extra.cell_blank, quantity=quantity)
+             if extra.cell_blank is not None else None)
     return correct_measurement(measured, measurement_corrections(extra, blank))
 
 
