@@ -293,18 +293,21 @@ def error_patterns(library: xr.Dataset) -> np.ndarray:
 def patterns_at(library: xr.Dataset, wavelengths_nm: np.ndarray) -> np.ndarray:
     """Error patterns at wavelengths inside the library's range, shape (F, m, n_components).
 
-    Linear interpolation (``numpy.interp``) like :func:`mixsolve.library.absorptivity_at`
-    (the patterns are linear in ε, so they interpolate alike); the library is checked.
+    Linear interpolation between the grid points around each wavelength, as
+    :func:`mixsolve.library.absorptivity_at` (``numpy.interp``) gives ε (the patterns are
+    linear in ε, so they interpolate alike), for every pattern at once; values on the grid
+    are kept exactly.
     """
     patterns = error_patterns(library)
     grid = library["wavelength"].values
     at = np.clip(np.asarray(wavelengths_nm, dtype=float), grid[0], grid[-1])
-    f, n, _ = patterns.shape
-    out = np.empty((f, at.size, n))
-    for i in range(f):
-        for k in range(n):
-            out[i, :, k] = np.interp(at, grid, patterns[i, k])
-    return out
+    if grid.size == 1:
+        return np.repeat(patterns, at.size, axis=2).transpose(0, 2, 1)
+    right = np.clip(np.searchsorted(grid, at, side="right"), 1, grid.size - 1)
+    left = right - 1
+    weight = (at - grid[left]) / (grid[right] - grid[left])
+    out = patterns[:, :, left] * (1.0 - weight) + patterns[:, :, right] * weight
+    return out.transpose(0, 2, 1)
 
 
 def library_sensitivity(design: np.ndarray, patterns: np.ndarray) -> np.ndarray:
