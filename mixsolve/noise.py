@@ -159,7 +159,9 @@ def noise_model(spec: NoiseModel | str | float | None) -> NoiseModel | None:
     Parameters
     ----------
     spec : NoiseModel, preset name, float or None
-        A float is a constant σ_A near zero absorbance in AU (k0 = σ_A · ln 10).
+        A float is a constant σ_A in AU at every absorbance (k2 = σ_A · ln 10: σ_T ∝ T,
+        so σ_A = σ_T/(T ln 10) is the same at every reading), as everywhere in mixsolve
+        (:func:`blank_noise_sd`, the figures of merit).
 
     Raises
     ------
@@ -174,7 +176,7 @@ def noise_model(spec: NoiseModel | str | float | None) -> NoiseModel | None:
                              f"{', '.join(PRESETS)}")
         return PRESETS[spec]
     sigma = check_noise_sd(spec)
-    return NoiseModel(k0=sigma * LN10, name=f"constant sigma_T ({sigma:g} AU at A=0)")
+    return NoiseModel(k2=sigma * LN10, name=f"constant sigma_A ({sigma:g} AU)")
 
 
 def blank_noise_sd(spec: NoiseModel | str | float) -> float:
@@ -194,8 +196,8 @@ def blank_noise_sd(spec: NoiseModel | str | float) -> float:
     Notes
     -----
     The figures of merit of :func:`mixsolve.check_wavelengths` take one constant σ_A. It is
-    the noise at A = 0 because their LOD and LOQ are those of a blank-limited reading, and a
-    float ``noise`` means a constant σ_A near A = 0 in ``unmix`` too.
+    the noise at A = 0 because their LOD and LOQ are those of a blank-limited reading; a
+    float ``noise`` is a constant σ_A in ``unmix`` too.
     """
     if isinstance(spec, NoiseModel | str):
         model = noise_model(spec)

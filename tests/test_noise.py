@@ -150,16 +150,18 @@ def test_noise_model_is_frozen_and_round_trips_through_json():
 # --- resolution and presets ----------------------------------------------------------------
 
 def test_noise_model_resolves_none_instances_presets_and_floats():
-    """None stays None, a model passes through, a name picks a preset, a float is σ_A(0)."""
+    """None stays None, a model passes through, a name picks a preset, a float is a constant
+    σ_A at every absorbance (σ_T ∝ T; σ_A = σ_T/(T ln 10), the propagation of A = −log10 T)."""
     m = NoiseModel(k1=1e-3)
     assert noise_model(None) is None
     assert noise_model(m) is m
     assert noise_model("diode_array") is PRESETS["diode_array"]
     flat = noise_model(0.002)
     assert flat is not None
-    assert float(flat.sigma_absorbance(0.0)) == pytest.approx(0.002, rel=1e-12)
-    assert flat.k0 == pytest.approx(0.002 * LN10)
-    assert flat.k1 == flat.k2 == flat.stray == 0
+    for a in (0.0, 1.0, 2.5):
+        assert float(flat.sigma_absorbance(a)) == pytest.approx(0.002, rel=1e-12)
+    assert flat.k2 == pytest.approx(0.002 * LN10)
+    assert flat.k0 == flat.k1 == flat.stray == 0
 
 
 def test_noise_model_rejects_unknown_presets_and_non_positive_sigma():
