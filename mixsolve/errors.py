@@ -71,6 +71,12 @@ class LargeUncertaintyWarning(MixsolveWarning):
     fraction belongs (0.8 for 0.8 %)."""
 
 
+class OutdatedLibraryWarning(MixsolveWarning):
+    """A library file built from standards before libraries kept their error's correlation
+    (no ``error_pattern``): its u(ε) is taken as fully correlated, which can be several-fold
+    off; rebuild it from the standards."""
+
+
 class RenamedWarning(MixsolveWarning, FutureWarning):
     """A parameter or option was given by its old name, which works for one more release.
 

@@ -243,3 +243,20 @@ def test_cli_import_states_a_scale_uncertainty_like_the_api(tmp_path, cli) -> No
         refused = cli("library", "import", tmp_path / "t.csv", "--unit", "L/(g*cm)", "--out",
                       out, "--u-scale-rel", given)
         assert_cli_error(refused, says, literal=True, must_not_exist=[out])
+
+
+def test_an_old_library_file_is_read_with_a_warning_to_rebuild(tmp_path, rng) -> None:
+    """A library from standards without error patterns (written before them): read, its
+    u(ε) taken as fully correlated, and a warning says to rebuild it."""
+    from mixsolve.errors import OutdatedLibraryWarning
+
+    lib = _build(*_standards(rng, prep=0.015))
+    old = lib.drop_vars(["error_pattern", "error_kind", "error_source"])
+    path = write_library(old, tmp_path / "old.nc")
+    with pytest.warns(OutdatedLibraryWarning, match=r"^old\.nc: built from standards by an "
+                      r"older mixsolve.*rebuild it with `mixsolve library build`$"):
+        back = read_library(path)
+    assert error_patterns(back).shape[0] == 3  # one declared_u pattern per component
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", OutdatedLibraryWarning)
+        read_library(write_library(lib, tmp_path / "new.nc"))  # a current file: no warning

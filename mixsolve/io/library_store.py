@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import json
 import os
+import warnings
 from pathlib import Path
 
+import numpy as np
 import xarray as xr
 
-from mixsolve.errors import FileFormatError, InputError
+from mixsolve.errors import FileFormatError, InputError, OutdatedLibraryWarning
 from mixsolve.io.netcdf_store import ENGINE, open_kind, open_netcdf, write_netcdf
 from mixsolve.library import LIBRARY_KIND, check_library
 
@@ -26,10 +29,35 @@ def read_library(path: str | os.PathLike[str]) -> xr.Dataset:
     ------
     FileFormatError
         Missing file, not netCDF, or a netCDF file that is not a mixsolve library.
+
+    Warns
+    -----
+    OutdatedLibraryWarning
+        A library built from standards that has no ``error_pattern`` (written before
+        libraries kept their error's correlation, docs/uncertainty.md "Library").
     """
     ds = open_kind(path, LIBRARY_KIND, noun="a library",
                    made_by="`mixsolve library import` or `library build`", label="library")
     try:
-        return check_library(ds, Path(path).name)
+        library = check_library(ds, Path(path).name)
     except InputError as exc:
         raise FileFormatError(str(exc)) from None
+    if _built_without_patterns(library):
+        warnings.warn(
+            f"{Path(path).name}: built from standards by an older mixsolve, without the "
+            "library's error patterns; its u(ε) is taken as fully correlated, which can be "
+            "several-fold off: rebuild it with `mixsolve library build`",
+            OutdatedLibraryWarning, stacklevel=2)
+    return library
+
+
+def _built_without_patterns(library: xr.Dataset) -> bool:
+    """A library from standards (provenance) with stated u(ε) and no ``error_pattern``."""
+    if "error_pattern" in library:
+        return False
+    try:
+        method = json.loads(library.attrs.get("provenance", "{}") or "{}").get("method")
+    except (ValueError, AttributeError):
+        return False
+    return method == "built from standards" and bool(
+        np.isfinite(library["u_absorptivity"].values).any())
