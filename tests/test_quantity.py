@@ -220,7 +220,10 @@ def test_cli_results_match_the_absorbance_run(tmp_path, cli, library_file, quant
     cli.ok("unmix", library_file, demo_file("batches_spectra.csv"), "--out",
            tmp_path / "a.csv")
     path = written_as(tmp_path / f"{quantity}.csv", quantity)
-    cli.ok("unmix", library_file, path, "--quantity", quantity, "--out", tmp_path / "q.csv")
+    run = cli.ok("unmix", library_file, path, "--quantity", quantity, "--out",
+                 tmp_path / "q.csv")
+    assert f"  readings      {quantity.replace('_', ' ')}, converted to absorbance" \
+        in run.stdout  # the report says what the file held
     expected = pd.read_csv(tmp_path / "a.csv")
     got = pd.read_csv(tmp_path / "q.csv")
     pd.testing.assert_frame_equal(got, expected)

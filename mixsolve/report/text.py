@@ -98,6 +98,9 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
         + ("  [known value]" if truth is not None else ""),
         f"  uncertainty   {_uncertainty_parts(result)}",
     ]
+    read = result.attrs.get("quantity_read", "absorbance")
+    if read != "absorbance":
+        lines.append(f"  readings      {read.replace('_', ' ')}, converted to absorbance")
     if float(result.attrs.get("stray_fraction", 0.0) or 0.0) > 0:
         noise = json.loads(result.attrs.get("noise_model") or "{}")
         lines.append(f"  stray light   readings corrected for a fraction of "

@@ -468,6 +468,7 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
             "library_unit": options.library.attrs["unit"],
             "library_provenance": options.library.attrs.get("provenance", ""),
             "source": options.spectra.attrs.get("source", ""),
+            "quantity_read": options.spectra.attrs.get("quantity_read", "absorbance"),
             "uncertainty_basis": _uncertainty_basis(options, plan),
             "mixsolve_version": __version__,
             "weights": options.weights,
