@@ -371,7 +371,8 @@ def library_variance(coef: np.ndarray, quadratic: np.ndarray) -> np.ndarray:
         var(x_j) = xᵀ Q_j x = Σ_f (M_f·x)_j²: the first-order propagation of the
         correlated library error (GUM eq. 13 with the covariance Σ_f P_f P_fᵀ).
     """
-    out = np.empty((coef.shape[0], quadratic.shape[0]))
-    for j, q in enumerate(quadratic):
-        out[:, j] = np.einsum("sn,sn->s", coef @ q, coef)
-    return np.maximum(out, 0.0)  # a sum of squares; rounding may not make it negative
+    n_out, n, _ = quadratic.shape
+    # one product for every Q_j at once: (N, n) @ (n, n_out·n), then xᵀ(Q_j x) per row
+    moved = (coef @ quadratic.transpose(1, 0, 2).reshape(n, n_out * n)).reshape(-1, n_out, n)
+    out = np.einsum("sjn,sn->sj", moved, coef)
+    return np.maximum(out, 0.0, out=out)  # a sum of squares; rounding may not make it < 0

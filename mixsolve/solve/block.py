@@ -299,14 +299,20 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     status = fit.status | settings.design_status | trust_status(
         checks, rms, settings.design.shape[0], settings.absorbance_range,
         settings.noise is not None)
-    canonical = fit.coef[:, :n] / b[:, None]
+    per_b = (1.0 / b)[:, None]
+    canonical = fit.coef[:, :n] * per_b
     conc = canonical * settings.unit_factor
-    u_noise = _noise_term(fit, b, settings)
-    u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic)
-                        ) / b[:, None] * settings.unit_factor
+    to_result = per_b * settings.unit_factor  # coefficient units → result unit
+    u_noise = _noise_term(fit, to_result, n)
+    u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic))
+    u_library *= to_result
     u_stray, status = _stray_terms(fit, b, settings, status)
     # the combined standard uncertainty: independent inputs (JCGM 100:2008, 5.1.2)
-    u_conc = np.sqrt(u_noise**2 + u_library**2 + u_stray**2)
+    u_conc = u_noise * u_noise
+    u_conc += u_library * u_library
+    if fit.stray is not None:
+        u_conc += u_stray * u_stray
+    np.sqrt(u_conc, out=u_conc)
     at_zero = (conc == 0) & (settings.method == "nnls")
     bias = (canonical @ settings.shift_matrix.T) * settings.unit_factor
     with np.errstate(invalid="ignore"):  # no dilution brings a peak ≤ 0 AU into range
@@ -335,10 +341,8 @@ def _stray_terms(fit: _Fitted, b: np.ndarray, settings: BlockSettings, status: n
             status | np.where(dark, TOO_DARK, 0))
 
 
-def _noise_term(fit: _Fitted, b: np.ndarray, settings: BlockSettings) -> np.ndarray:
-    """u_noise (n, components), result unit: the fit's standard error s·√diag((DᵀD)⁻¹)
-    per b and unit, times the correlated-noise inflation f of each spectrum
-    (:func:`mixsolve.solve.residuals.lag_figures`)."""
-    n = len(settings.components)
-    inflation = fit.summary.noise_inflation[:, None]
-    return fit.std_error[:, :n] / b[:, None] * settings.unit_factor * inflation
+def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int) -> np.ndarray:
+    """u_noise (spectra, n components), result unit: the fit's standard error
+    s·√diag((DᵀD)⁻¹) times ``to_result`` (1/b × unit factor) and the correlated-noise
+    inflation f of each spectrum (:func:`mixsolve.solve.residuals.lag_figures`)."""
+    return fit.std_error[:, :n] * (to_result * fit.summary.noise_inflation[:, None])

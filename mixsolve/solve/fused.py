@@ -329,7 +329,8 @@ def _lag_figures(r: np.ndarray, ss: float, lag1: float, n_terms: int, q: int, sc
     s1 = 2.0 * s1
     window = float(l_max)
     if s0 > 0.0:
-        gamma = BARTLETT_LAG_CONSTANT * ((s1 / s0) ** 2) ** (1.0 / 3.0)
+        ratio = s1 / s0
+        gamma = BARTLETT_LAG_CONSTANT * np.cbrt(ratio * ratio)  # |ŝ¹/ŝ⁰|^(2/3)
         window = min(np.floor(gamma * scale), l_max)
     for lag in range(first + 1, int(window) + 1):  # the window's lags beyond those
         rho[lag] = _lag_sum(r, lag) * (1.0 / ss)
