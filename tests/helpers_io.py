@@ -168,3 +168,9 @@ def write_standards(folder: Path) -> tuple[Path, Path]:
 def leftovers(folder: Path) -> list[str]:
     """Names of temporary ``.part`` files left in ``folder``."""
     return sorted(p.name for p in folder.iterdir() if p.name.endswith(".part"))
+
+
+#: The fix every "is not a number" refusal of a table cell ends with (regex; the empty-cell
+#: advice only where a cell may be missing).
+NUMBER_FIX = (r"; write it as a number \(digits and one decimal separator, no unit\)"
+              r"( or leave the cell empty)?$")

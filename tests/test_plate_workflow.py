@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from helpers_cli import assert_cli_error
-from helpers_io import WL, band, make_library, write_library_file, write_text
+from helpers_io import NUMBER_FIX, WL, band, make_library, write_library_file, write_text
 from helpers_plate import (
     BACKGROUND_AU,
     SAMPLES,
@@ -100,7 +100,7 @@ def test_read_layout_csv_and_xlsx(tmp_path):
         ("well,role,sample,dilution\nB1,sample,S1,0\n", InputError,
          r"^l\.csv, line 2, well B1, dilution: 0 is not a positive number$"),
         ("well,role,sample,dilution\nB1,sample,S1,two\n", InputError,
-         r"^l\.csv, line 2, well B1, dilution: 'two' is not a number$"),
+         r"^l\.csv, line 2, well B1, dilution: 'two' is not a number" + NUMBER_FIX),
         ("well,role,sample\nH1,standard,s\n", FileFormatError,
          r"^l\.csv: standard wells need the column\(s\) component, concentration, unit$"),
         ("well,role,component,concentration,unit\nH1,standard,,1,mg/L\n", InputError,

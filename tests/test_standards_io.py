@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from helpers_io import STANDARDS, write_standards, write_text, write_xlsx
+from helpers_io import NUMBER_FIX, STANDARDS, write_standards, write_text, write_xlsx
 
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.standards_io import molar_masses_from_sheet, read_standards
@@ -89,7 +89,7 @@ def test_missing_columns(tmp_path):
 def test_non_numeric_concentration(tmp_path):
     text = "sample,component,concentration,unit\nr1,red,0.01,mmol/L\nr2,red,ten,mmol/L\n"
     with pytest.raises(InputError, match=r"^sheet\.csv, line 3, column 3 \('concentration'\): "
-                                         r"'ten' is not a number$"):
+                                         r"'ten' is not a number" + NUMBER_FIX):
         read_standards(write_text(tmp_path / "sheet.csv", text))
 
 
@@ -103,7 +103,7 @@ def test_missing_concentration(tmp_path):
 def test_non_numeric_pathlength(tmp_path):
     text = "sample,component,concentration,unit,pathlength_cm\nr1,red,1,mmol/L,1 cm\n"
     with pytest.raises(InputError, match=r"^sheet\.csv, line 2, column 5 \('pathlength_cm'\): "
-                                         r"'1 cm' is not a number$"):
+                                         r"'1 cm' is not a number" + NUMBER_FIX):
         read_standards(write_text(tmp_path / "sheet.csv", text))
 
 

@@ -328,8 +328,10 @@ def parse_number(cell: Any, decimal: str, where: str, *, allow_missing: bool = T
         Text that is not a number, an infinite value, or a missing value where one
         is required; the message starts with ``where``.
     """
+    fix = "; write it as a number (digits and one decimal separator, no unit)" + (
+        " or leave the cell empty" if allow_missing else "")
     if isinstance(cell, bool):
-        raise InputError(f"{where}: {cell!r} is not a number")
+        raise InputError(f"{where}: {cell!r} is not a number{fix}")
     if isinstance(cell, int | float):
         value = float(cell)
     else:
@@ -345,7 +347,7 @@ def parse_number(cell: Any, decimal: str, where: str, *, allow_missing: bool = T
             try:
                 value = float(text)
             except ValueError:
-                raise InputError(f"{where}: {str(cell)!r} is not a number") from None
+                raise InputError(f"{where}: {str(cell)!r} is not a number{fix}") from None
     if np.isnan(value):
         if not allow_missing:
             raise InputError(f"{where}: value is missing")
