@@ -223,7 +223,11 @@ def test_cli_results_match_the_absorbance_run(tmp_path, cli, library_file, quant
     run = cli.ok("unmix", library_file, path, "--quantity", quantity, "--out",
                  tmp_path / "q.csv")
     assert f"  readings      {quantity.replace('_', ' ')}, converted to absorbance" \
-        in run.stdout  # the report says what the file held
+        in run.stdout  # the report says what the file held, and so does the HTML page
+    cli.ok("unmix", library_file, path, "--quantity", quantity, "--report",
+           tmp_path / "page.html")
+    assert f"(read as {quantity.replace('_', ' ')}, converted to absorbance)" in \
+        (tmp_path / "page.html").read_text(encoding="utf-8")
     expected = pd.read_csv(tmp_path / "a.csv")
     got = pd.read_csv(tmp_path / "q.csv")
     pd.testing.assert_frame_equal(got, expected)

@@ -50,7 +50,10 @@ def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "",
     low, high = (float(v) for v in result.attrs.get(
         "absorbance_range", "-".join(map(str, DEFAULT_ABSORBANCE_RANGE))).split("-"))
     settings = {
-        "spectra": result.attrs.get("source", "") or "(in memory)",
+        "spectra": (result.attrs.get("source", "") or "(in memory)") + (
+            f" (read as {result.attrs['quantity_read'].replace('_', ' ')}, converted to "
+            "absorbance)" if result.attrs.get("quantity_read", "absorbance") != "absorbance"
+            else ""),
         "method": f"{result.attrs['method']}, baseline {result.attrs['baseline']}, "
                   f"weights {result.attrs.get('weights', 'none')}",
         "wavelengths": f"{used.size} used, {used.min():g}-{used.max():g} nm",
