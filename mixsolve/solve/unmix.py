@@ -23,6 +23,8 @@ from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.library_error import (
     ERROR_KIND,
+    ERROR_PATTERN,
+    ERROR_SOURCE,
     error_patterns,
     library_quadratic,
     library_sensitivity,
@@ -490,12 +492,13 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
 
 def _uncertainty_basis(options: _Options, plan: _Plan) -> str:
     """One paragraph naming the sources ``std_uncertainty`` holds in this result."""
-    patterns = error_patterns(options.library)
-    if patterns.shape[0]:
+    lib = options.library
+    count = lib.sizes.get(ERROR_SOURCE, 0) if ERROR_PATTERN in lib else \
+        error_patterns(lib).shape[0]
+    if count:
         kinds = [str(k) for k in options.library[ERROR_KIND].values] \
-            if ERROR_KIND in options.library.coords else ["declared_u"] * patterns.shape[0]
+            if ERROR_KIND in options.library.coords else ["declared_u"] * count
         counts = ", ".join(f"{kinds.count(k)} {k}" for k in dict.fromkeys(kinds))
-        count = patterns.shape[0]
         library = (f"u_library from the library's {count} error pattern{'s' * (count > 1)} "
                    f"({counts}), correlated over wavelengths, propagated as "
                    "delta x = -G delta D x with the unweighted design and shared by every "
