@@ -7,6 +7,7 @@ prints :func:`format_prediction`. Figures of a calibration: :mod:`mixsolve.repor
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -103,12 +104,7 @@ def format_calibration(model: xr.Dataset) -> str:
             for k, c in enumerate(comps))
         lines.append(f"{n_lv:>5d}{cells}")
     lines += ["", "Limits for new samples (Hotelling T²; Q residual, preprocessed units)"]
-    for b, name in enumerate(model["block"].values):
-        t2 = model["t2_limit"].values[b]
-        q = model["q_limit"].values[b]
-        label = "all components" if name == "all" else str(name)
-        lines.append(f"  {label:<{cw}} T² 95 % {t2[0]:.4g}, 99 % {t2[1]:.4g};  "
-                     f"Q 95 % {q[0]:.4g}, 99 % {q[1]:.4g}")
+    lines += _per_block(model, cw, "t2_limit", "q_limit", lambda v: f"{v:.4g}")
     lines += _false_alarm_lines(model, cw)
     if "cls_rmsecv" in model:
         lines += ["", *_comparison(model, comps, cw)]
@@ -129,14 +125,20 @@ def _false_alarm_lines(model: xr.Dataset, cw: int) -> list[str]:
     def rate(value: float) -> str:
         return "n/a" if not np.isfinite(value) else f"{100 * value:.2g} % ({round(value * n)}/{n})"
 
-    lines = ["", "False alarms measured in cross-validation (mixtures above the limit "
-                 "computed without their fold; nominal 5 % and 1 %)"]
+    return ["", "False alarms measured in cross-validation (mixtures above the limit "
+                "computed without their fold; nominal 5 % and 1 %)",
+            *_per_block(model, cw, "t2_false_alarm_cv", "q_false_alarm_cv", rate)]
+
+
+def _per_block(model: xr.Dataset, cw: int, t2_name: str, q_name: str,
+               shown: Callable[[float], str]) -> list[str]:
+    """One line per model block: its T² and Q figures at 95 % and 99 %, each ``shown``."""
+    lines = []
     for b, name in enumerate(model["block"].values):
-        t2 = model["t2_false_alarm_cv"].values[b]
-        q = model["q_false_alarm_cv"].values[b]
+        t2, q = model[t2_name].values[b], model[q_name].values[b]
         label = "all components" if name == "all" else str(name)
-        lines.append(f"  {label:<{cw}} T² 95 % {rate(t2[0])}, 99 % {rate(t2[1])};  "
-                     f"Q 95 % {rate(q[0])}, 99 % {rate(q[1])}")
+        lines.append(f"  {label:<{cw}} T² 95 % {shown(t2[0])}, 99 % {shown(t2[1])};  "
+                     f"Q 95 % {shown(q[0])}, 99 % {shown(q[1])}")
     return lines
 
 
