@@ -338,20 +338,25 @@ def parse_molar_masses(text: str, option: str = "--molar-mass") -> dict[str, flo
     """Parse ``"chl_a=893.5,chl_b=907.5"`` (g/mol)."""
     if not text:
         return None
-    out = {}
+    return _named_numbers(text, option, "NAME=G_PER_MOL")
+
+
+def _named_numbers(text: str, option: str, form: str) -> dict[str, float]:
+    """Parse ``"a=1,b=2"`` into {name: number}: each item ``form``, each name once, finite."""
+    out: dict[str, float] = {}
     for item in text.split(","):
         name, sep, value = item.partition("=")
         try:
             if not sep:
                 raise ValueError
-            mass = number(value)
+            parsed = number(value)
         except ValueError:
-            raise InputError(f"{option}: {item!r} is not NAME=G_PER_MOL") from None
+            raise InputError(f"{option}: {item!r} is not {form}") from None
         if name.strip() in out:
             raise InputError(f"{option}: {name.strip()!r} is given twice; give each "
                              "component once")
-        out[name.strip()] = mass
-        _finite([out[name.strip()]], option, item)
+        out[name.strip()] = parsed
+        _finite([parsed], option, item)
     return out
 
 
@@ -369,21 +374,8 @@ def parse_scale_uncertainty(text: str, option: str = "--u-scale-rel"
                              "or chl_a=0.02,chl_b=0.03") from None
         _finite([value], option, text)
         return value
-    out: dict[str, float] = {}
-    for item in text.split(","):
-        name, sep, value_text = item.partition("=")
-        if name.strip() in out:
-            raise InputError(f"{option}: {name.strip()!r} is given twice; give each "
-                             "component once")
-        try:
-            if not sep:
-                raise ValueError
-            out[name.strip()] = number(value_text)
-        except ValueError:
-            raise InputError(f"{option}: {item!r} is not NAME=VALUE (a relative standard "
-                             "uncertainty, e.g. chl_a=0.02)") from None
-        _finite([out[name.strip()]], option, item)
-    return out
+    return _named_numbers(text, option, "NAME=VALUE (a relative standard uncertainty, e.g. "
+                          "chl_a=0.02)")
 
 
 def parse_latent(text: str, option: str = "--latent") -> int | str:
