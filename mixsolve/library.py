@@ -38,7 +38,7 @@ from mixsolve.library_error import (
     preparation_scale,
     stock_weights,
 )
-from mixsolve.names import check_spellings, check_unique_names, normalise_name
+from mixsolve.names import check_spellings, check_unique_names, per_component
 from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 from mixsolve.units import (
     ABSORPTIVITY_UNITS,
@@ -58,17 +58,9 @@ DEFAULT_MIN_LEVELS = 3
 
 
 def _molar_masses(components: list[str], molar_mass: Mapping[str, float] | None) -> np.ndarray:
-    masses = np.full(len(components), np.nan)
-    for given, value in (molar_mass or {}).items():
-        name = normalise_name(given)
-        if name not in components:
-            raise InputError(
-                f"molar mass given for {name!r}, which is not a component "
-                f"(components: {', '.join(components)})"
-            )
-        masses[components.index(name)] = check_number(
-            value, f"molar_mass_g_per_mol of {name!r}", "g/mol", positive=True)
-    return masses
+    return per_component(molar_mass or {}, components, "molar mass", lambda value, label:
+                         check_number(value, label, "g/mol", positive=True), np.nan,
+                         value_name="molar_mass_g_per_mol")
 
 
 def _bandwidth(bandwidth_nm: float | None) -> float:

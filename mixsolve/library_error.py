@@ -58,7 +58,7 @@ import xarray as xr
 from scipy.stats import chi2
 
 from mixsolve.errors import InputError
-from mixsolve.names import normalise_name
+from mixsolve.names import per_component
 from mixsolve.spectra import check_number
 
 ERROR_SOURCE = "error_source"
@@ -253,26 +253,14 @@ def declared_patterns(
 
 def _scale_per_component(u_scale_rel: float | Mapping[str, float] | None,
                          components: Sequence[str]) -> np.ndarray:
-    out = np.zeros(len(components))
     if u_scale_rel is None:
-        return out
+        return np.zeros(len(components))
     if isinstance(u_scale_rel, Mapping):
-        seen: set[str] = set()
-        for given, value in u_scale_rel.items():
-            name = normalise_name(given)
-            if name in seen:
-                raise InputError(f"u_scale_rel: {name!r} is given twice; give each component "
-                                 "once")
-            seen.add(name)
-            if name not in components:
-                raise InputError(f"u_scale_rel given for {name!r}, which is not a component "
-                                 f"(components: {', '.join(components)})")
-            out[list(components).index(name)] = check_number(
-                value, f"u_scale_rel of {name!r}", low=0, high=1)
-        return out
-    out[:] = check_number(u_scale_rel, "u_scale_rel", low=0, high=1,
-                          hint="a relative standard uncertainty, e.g. 0.02 for 2 %")
-    return out
+        return per_component(u_scale_rel, components, "u_scale_rel", lambda value, label:
+                             check_number(value, label, low=0, high=1), 0.0)
+    return np.full(len(components), check_number(
+        u_scale_rel, "u_scale_rel", low=0, high=1,
+        hint="a relative standard uncertainty, e.g. 0.02 for 2 %"))
 
 
 def error_patterns(library: xr.Dataset) -> np.ndarray:

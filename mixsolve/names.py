@@ -27,7 +27,10 @@ spelling may repeat, but two spellings of one name are still refused
 from __future__ import annotations
 
 import unicodedata
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from typing import Any
+
+import numpy as np
 
 from mixsolve.errors import InputError
 
@@ -180,3 +183,44 @@ def check_spellings(names: Iterable[object], where: str,
                 other, given, where, lines=at,
                 fix="write one name the same way on every line, or rename one"))
     return [normal[n] for n in raw]
+
+
+def per_component(given: Mapping[object, Any], components: Sequence[str], what: str,
+                  value_of: Callable[[Any, str], float], fill: float, *,
+                  value_name: str | None = None) -> np.ndarray:
+    """Values given by component name, as one array in the order of ``components``.
+
+    Parameters
+    ----------
+    given : mapping
+        Component name (any spelling that normalises to one of ``components``) → value.
+    components : sequence of str
+        The component names, in normal form.
+    what : str
+        How messages name the values (``"molar mass"``, ``"u_scale_rel"``).
+    value_of : callable
+        Checks one value and returns it as float; called with the value and its label
+        (``"<value_name> of 'name'"``).
+    fill : float
+        The value of components not given.
+    value_name : str, optional
+        The values' name in that label (default ``what``; the API parameter's name).
+
+    Raises
+    ------
+    InputError
+        A name that is no component, or one component given twice (two spellings).
+    """
+    out = np.full(len(components), fill, dtype=float)
+    seen: set[str] = set()
+    for raw, value in given.items():
+        name = normalise_name(raw)
+        if name in seen:
+            raise InputError(f"{what}: {name!r} is given twice; give each component once")
+        seen.add(name)
+        if name not in components:
+            raise InputError(f"{what} given for {name!r}, which is not a component "
+                             f"(components: {', '.join(components)})")
+        out[list(components).index(name)] = value_of(value,
+                                                     f"{value_name or what} of {name!r}")
+    return out

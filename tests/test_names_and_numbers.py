@@ -735,3 +735,15 @@ def test_plate_export_well_names_in_normal_form(tmp_path, layout):
     assert list(plate["well"].values) == plate_wells(96)
     assert parse_well("\u200bA01\u00a0") == (0, 1)
     assert parse_well("A\t1") is None
+
+
+def test_one_component_given_twice_by_name_is_refused() -> None:
+    """Molar masses and scale uncertainties by component: two spellings of one name
+    ('red', 'Red ') are refused like every other pair of spellings (mixsolve.names)."""
+    table = pd.DataFrame({"red": [1.0, 2.0], "blue": [2.0, 1.0]}, index=[400.0, 500.0])
+    with pytest.raises(InputError, match=r"^molar mass: 'red' is given twice; give each "
+                                         r"component once$"):
+        ms.import_absorptivities(table, "L/(mol*cm)",
+                                 molar_mass_g_per_mol={"red": 300.0, "red ": 310.0})
+    with pytest.raises(InputError, match=r"^u_scale_rel: 'red' is given twice"):
+        ms.import_absorptivities(table, "L/(mol*cm)", u_scale_rel={"red": 0.01, "red ": 0.02})
