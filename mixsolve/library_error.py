@@ -280,6 +280,16 @@ def error_patterns(library: xr.Dataset) -> np.ndarray:
     return declared_patterns(eps, u, comps, None)[0]
 
 
+def pattern_counts(library: xr.Dataset) -> dict[str, int]:
+    """How many error patterns of each kind the library holds (as :func:`error_patterns`
+    reads it: a library without ``error_pattern`` or ``error_kind`` has ``declared_u``)."""
+    count = error_patterns(library).shape[0]
+    kinds = ([str(k) for k in library[ERROR_KIND].values]
+             if ERROR_PATTERN in library and ERROR_KIND in library.coords
+             else ["declared_u"] * count)
+    return {k: kinds.count(k) for k in dict.fromkeys(kinds)}
+
+
 def patterns_at(library: xr.Dataset, wavelengths_nm: np.ndarray) -> np.ndarray:
     """Error patterns at wavelengths inside the library's range, shape (F, m, n_components).
 

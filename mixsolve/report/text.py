@@ -22,7 +22,7 @@ from mixsolve.flags import (
     STRUCTURED,
 )
 from mixsolve.library import COMPONENT
-from mixsolve.library_error import ERROR_KIND, ERROR_PATTERN
+from mixsolve.library_error import error_patterns, pattern_counts
 from mixsolve.spectra import WAVELENGTH
 
 CAUTION = (
@@ -289,17 +289,16 @@ def _library_error_lines(library: xr.Dataset, comps: list[str], prov: dict[str, 
     per component the whole relative u of ε at its peak (every pattern: what a result of
     that component alone inherits) and, for a library from standards, its preparation
     part (used, shown by the scatter, declared)."""
-    if ERROR_PATTERN not in library:
+    patterns = error_patterns(library)  # (F, component, wavelength)
+    if not patterns.shape[0]:
         notes.insert(0, "the library states no error of its own (no u(ε), no scale "
                      "uncertainty): results carry the noise term only (u_library = 0).")
         return []
-    kinds = [str(k) for k in library[ERROR_KIND].values]
     lines = ["Library error (correlated over wavelengths; docs/uncertainty.md, \"Library\"):"]
-    counts = {k: kinds.count(k) for k in dict.fromkeys(kinds)}
+    counts = pattern_counts(library)
     lines.append("  patterns      " + ", ".join(f"{n} {k.replace('_', ' ')}"
                                                for k, n in counts.items()))
     eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
-    patterns = library[ERROR_PATTERN].transpose(..., COMPONENT, WAVELENGTH).values
     peak = np.argmax(eps, axis=1)
     whole = np.array([np.sqrt(np.sum(patterns[:, k, j] ** 2)) / eps[k, j]
                       for k, j in enumerate(peak)])

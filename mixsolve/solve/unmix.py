@@ -22,12 +22,9 @@ from mixsolve.errors import (
 from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.library_error import (
-    ERROR_KIND,
-    ERROR_PATTERN,
-    ERROR_SOURCE,
-    error_patterns,
     library_quadratic,
     library_sensitivity,
+    pattern_counts,
     patterns_at,
 )
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
@@ -492,13 +489,10 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
 
 def _uncertainty_basis(options: _Options, plan: _Plan) -> str:
     """One paragraph naming the sources ``std_uncertainty`` holds in this result."""
-    lib = options.library
-    count = lib.sizes.get(ERROR_SOURCE, 0) if ERROR_PATTERN in lib else \
-        error_patterns(lib).shape[0]
+    kinds = pattern_counts(options.library)
+    count = sum(kinds.values())
     if count:
-        kinds = [str(k) for k in options.library[ERROR_KIND].values] \
-            if ERROR_KIND in options.library.coords else ["declared_u"] * count
-        counts = ", ".join(f"{kinds.count(k)} {k}" for k in dict.fromkeys(kinds))
+        counts = ", ".join(f"{n} {k}" for k, n in kinds.items())
         library = (f"u_library from the library's {count} error pattern{'s' * (count > 1)} "
                    f"({counts}), correlated over wavelengths, propagated as "
                    "delta x = -G delta D x with the unweighted design and shared by every "
