@@ -427,18 +427,16 @@ def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, free: xr.Dataset |
     """One row per sample and component from the unconstrained fit ``free`` of the wells.
 
     Each well's values are multiplied by its dilution. The noise part of a well's
-    uncertainty is ``u_noise`` when the fit gives it, else ``std_uncertainty`` (then the
-    fit's noise term alone); the parts ``SHARED_PARTS`` it gives are shared by every well.
+    uncertainty is its ``u_noise``; the parts ``SHARED_PARTS`` are shared by every well.
     """
     n_c = len(components)
     names = list(wells["well"].to_numpy()[::n_c])
     pos = {w: i for i, w in enumerate(names)}
     dilution = wells["dilution"].to_numpy()[::n_c, None]
-    noise_name = "u_noise" if free is not None and "u_noise" in free else "std_uncertainty"
     conc, u = (dilution * _per_well(free, name, names, components)
-               for name in ("concentration", noise_name))
+               for name in ("concentration", "u_noise"))
     shared = [dilution * _per_well(free, name, names, components)
-              for name in SHARED_PARTS if free is not None and name in free]
+              for name in SHARED_PARTS if free is not None]
     flags = wells["flags"].to_numpy()[::n_c]
     sample_rows = layout[layout["role"] == "sample"]
     rows = []

@@ -22,7 +22,7 @@ import xarray as xr
 
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
-from mixsolve.library_error import patterns_at
+from mixsolve.library_error import error_patterns
 from mixsolve.noise import NoiseModel
 from mixsolve.solve.design import design_matrix
 from mixsolve.solve.shift_sensitivity import library_derivative
@@ -169,7 +169,7 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
     n_comp = len(comps)
     eps = lib_used["absorptivity"].transpose(WAVELENGTH, COMPONENT).values
     design = design_matrix(eps, used_wl, result.attrs["baseline"])
-    patterns = patterns_at(library, used_wl)
+    patterns = error_patterns(lib_used).transpose(0, 2, 1)  # resampled with the library
     grid = library[WAVELENGTH].values
     eps_grid = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
     deriv = library_derivative(eps_grid, grid, used_wl)
