@@ -49,6 +49,8 @@ from mixsolve.units import (
 
 COMPONENT = "component"
 LIBRARY_KIND = "mixsolve-library"
+#: ``provenance["method"]`` of a library made by :func:`build_library`.
+BUILT_FROM_STANDARDS = "built from standards"
 FORMAT_VERSION = 1
 
 #: Default linearity criteria for standards (common practice, configurable).
@@ -583,7 +585,7 @@ def build_library(
         figures["worst_relative_deviation"].append(float(np.max(rel)) if len(rel) else np.nan)
         _warn_linearity(comp, figures, min_r2, max_relative_deviation, min_levels)
     provenance = {
-        "method": "built from standards",
+        "method": BUILT_FROM_STANDARDS,
         "source": source,
         "fit": "slope and intercept" if intercept else "through the origin",
         "standards": {c: table.loc[table["component"] == c, "sample"].tolist()

@@ -12,7 +12,8 @@ import xarray as xr
 
 from mixsolve.errors import FileFormatError, InputError, OutdatedLibraryWarning
 from mixsolve.io.netcdf_store import ENGINE, open_kind, open_netcdf, write_netcdf
-from mixsolve.library import LIBRARY_KIND, check_library
+from mixsolve.library import BUILT_FROM_STANDARDS, LIBRARY_KIND, check_library
+from mixsolve.library_error import ERROR_PATTERN
 
 __all__ = ["ENGINE", "open_netcdf", "read_library", "write_library"]
 
@@ -53,11 +54,11 @@ def read_library(path: str | os.PathLike[str]) -> xr.Dataset:
 
 def _built_without_patterns(library: xr.Dataset) -> bool:
     """A library from standards (provenance) with stated u(ε) and no ``error_pattern``."""
-    if "error_pattern" in library:
+    if ERROR_PATTERN in library:
         return False
     try:
         method = json.loads(library.attrs.get("provenance", "{}") or "{}").get("method")
     except (ValueError, AttributeError):
         return False
-    return method == "built from standards" and bool(
+    return method == BUILT_FROM_STANDARDS and bool(
         np.isfinite(library["u_absorptivity"].values).any())

@@ -306,7 +306,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     u_noise = _noise_term(fit, to_result, n)
     u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic))
     u_library *= to_result
-    u_stray, status = _stray_terms(fit, b, settings, status)
+    u_stray, status = _stray_terms(fit, to_result, n, status)
     # the combined standard uncertainty: independent inputs (JCGM 100:2008, 5.1.2)
     u_conc = u_noise * u_noise
     u_conc += u_library * u_library
@@ -329,16 +329,15 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
             "suggested_dilution": dilution, "flags": flags, **fit.extra}
 
 
-def _stray_terms(fit: _Fitted, b: np.ndarray, settings: BlockSettings, status: np.ndarray
+def _stray_terms(fit: _Fitted, to_result: np.ndarray, n: int, status: np.ndarray
                  ) -> tuple[np.ndarray, np.ndarray]:
-    """u_stray (n, components) in the result unit (0 without a stated fraction), and the
-    status with ``TOO_DARK`` where a spectrum had readings too dark to correct."""
-    n = len(settings.components)
+    """u_stray (spectra, n components) in the result unit (0 without a stated fraction;
+    ``to_result`` = 1/b × unit factor), and the status with ``TOO_DARK`` where a spectrum
+    had readings too dark to correct."""
     if fit.stray is None:
-        return np.zeros((b.size, n)), status
+        return np.zeros((to_result.shape[0], n)), status
     per_coef, dark = fit.stray
-    return (per_coef[:, :n] / b[:, None] * settings.unit_factor,
-            status | np.where(dark, TOO_DARK, 0))
+    return per_coef[:, :n] * to_result, status | np.where(dark, TOO_DARK, 0)
 
 
 def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int) -> np.ndarray:
