@@ -86,6 +86,11 @@ class NoiseModel:
         t = 10.0 ** -np.clip(np.asarray(absorbance, dtype=float), 0.0, None)
         return self.sigma_transmittance(t) / (t * LN10)
 
+    def weights(self, absorbance: np.ndarray | float) -> np.ndarray:
+        """Weights 1/σ_A² (AU⁻²) of readings at absorbance ``A`` (:meth:`sigma_absorbance`:
+        below 0 taken at 0), for a weighted least-squares fit."""
+        return 1.0 / self.sigma_absorbance(absorbance) ** 2
+
     def relative_concentration_error(self, absorbance: np.ndarray | float) -> np.ndarray:
         """Predicted σ_c/c of a single-wavelength reading at true absorbance ``A`` (> 0).
 

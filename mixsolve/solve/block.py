@@ -256,7 +256,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     if isinstance(kind, WeightedFit):
         first = fit.coef @ settings.design.T
         at = np.where(np.isfinite(first), first, spectra)
-        weights = 1.0 / kind.noise.sigma_absorbance(np.clip(at, 0.0, None)) ** 2
+        weights = kind.noise.weights(at)
         fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights,
                           structure_lag=settings.structure_lag)
     lack = None if settings.noise is None else lack_of_fit_model(
@@ -281,7 +281,7 @@ def _fit_corrected(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     fitted = np.where(np.isnan(corrected), np.nan, fitted)  # the readings the fit used
     weights = None
     if isinstance(settings.fit, WeightedFit):
-        weights = 1.0 / settings.fit.noise.sigma_absorbance(np.clip(fitted, 0.0, None)) ** 2
+        weights = settings.fit.noise.weights(fitted)
     per_s = coefficient_sensitivity(fitted, stray.fraction, settings.design,
                                     len(settings.components), weights)
     too_dark = dark.any(axis=1)

@@ -180,6 +180,11 @@ class StrayCorrectedNoise(NoiseModel):
     showed and σ(A_app) the parent model's noise there (:func:`noise_gain`).
     """
 
+    @classmethod
+    def of(cls, model: NoiseModel, fraction: float) -> StrayCorrectedNoise:
+        """``model``'s noise for readings corrected for the stray ``fraction``."""
+        return cls(**{**model.to_dict(), "stray": fraction})
+
     def sigma_absorbance(self, absorbance: np.ndarray | float) -> np.ndarray:
         """σ_A (AU) of a corrected reading whose corrected absorbance is ``absorbance``
         (values below 0 evaluated at 0, as the parent model does)."""

@@ -387,7 +387,7 @@ def _fit_noise(options: _Options) -> NoiseModel | None:
     stray light the model of corrected readings (:class:`StrayCorrectedNoise`)."""
     if options.noise is None or options.stray is None:
         return options.noise
-    return StrayCorrectedNoise(**{**options.noise.to_dict(), "stray": options.stray.fraction})
+    return StrayCorrectedNoise.of(options.noise, options.stray.fraction)
 
 
 def _fit_kind(options: _Options, used_wl: np.ndarray) -> FitKind:

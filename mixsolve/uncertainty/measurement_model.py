@@ -179,7 +179,7 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
     weighted = result.attrs.get("weights") == "noise"
     noise = _result_noise_model(result)
     if corrected and noise is not None:  # the fit weighted the corrected readings
-        noise = StrayCorrectedNoise(**{**noise.to_dict(), "stray": stray})
+        noise = StrayCorrectedNoise.of(noise, stray)
     if result.attrs.get("fit_shift"):
         notes.append("the fit also fitted a wavelength shift; the budget linearises the "
                      "plain least-squares model at the fitted concentrations")
@@ -207,7 +207,7 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
         d = design[present]
         w = None
         if weighted and noise is not None:
-            w = 1.0 / noise.sigma_absorbance(np.clip(fitted[i, present], 0.0, None)) ** 2
+            w = noise.weights(fitted[i, present])
         g, m = ls_operators(d, w)
         r = residual[i, present]
         if sd is not None:
