@@ -35,7 +35,6 @@ from mixsolve.library_error import (
     check_patterns,
     component_patterns,
     declared_patterns,
-    preparation_scale,
     stock_weights,
 )
 from mixsolve.names import check_spellings, check_unique_names, per_component
@@ -558,13 +557,11 @@ def build_library(
         eps[k], u_eps[k], icpt[k], u_icpt[k] = fit["slope"], fit["u_slope"], fit["icpt"], \
             fit["u_icpt"]
         declared = rows["u_relative"].to_numpy(dtype=float)
-        scatter, prep, s_a, s_b = component_patterns(
-            x, absorb - np.outer(x, fit["slope"]) - fit["icpt"], fit["slope"],
-            intercept=intercept, u_relative=declared if np.isfinite(declared).any() else None)
-        scatter_parts.append(scatter)
-        prep_parts.append(prep)
-        scale_u.append((preparation_scale(s_a, s_b, x.size - (2 if intercept else 1)), s_a,
-                        s_b))
+        error = component_patterns(x, absorb - np.outer(x, fit["slope"]) - fit["icpt"],
+                                   fit["slope"], intercept=intercept, u_relative=declared)
+        scatter_parts.append(error.scatter)
+        prep_parts.append(error.preparation)
+        scale_u.append((error.scale, error.scale_scatter, error.scale_declared))
         for label, weight in stock_weights(x, rows["stock"].tolist(), intercept).items():
             stock_share.setdefault(label, np.zeros(len(components)))[k] = weight
         peak = int(np.argmax(eps[k]))

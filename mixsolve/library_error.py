@@ -51,7 +51,7 @@ J. Econometrics 29 (1985) 305 (HC2).
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
-from typing import Literal
+from typing import Literal, NamedTuple
 
 import numpy as np
 import xarray as xr
@@ -82,6 +82,16 @@ def slope_weights(x: np.ndarray, intercept: bool) -> np.ndarray:
     return x / float(x @ x)
 
 
+class ComponentError(NamedTuple):
+    """One component's error from its standards (:func:`component_patterns`)."""
+
+    scatter: np.ndarray  #: (n standards, m) ``standards_scatter`` patterns
+    preparation: np.ndarray  #: (m,) the ``preparation`` pattern (0 when not used)
+    scale: float  #: relative scale uncertainty kept
+    scale_scatter: float  #: relative scale uncertainty the residuals show (Type A)
+    scale_declared: float  #: declared one (Type B), NaN when not declared
+
+
 def component_patterns(
     x: np.ndarray,
     residuals: np.ndarray,
@@ -89,7 +99,7 @@ def component_patterns(
     *,
     intercept: bool,
     u_relative: np.ndarray | None = None,
-) -> tuple[np.ndarray, np.ndarray, float, float]:
+) -> ComponentError:
     """Error patterns of one component built from its standards.
 
     Parameters
@@ -114,9 +124,9 @@ def component_patterns(
     preparation : ndarray, shape (m,)
         The ``preparation`` pattern: ε̂·s_B when the declared preparation is used, else 0
         (the scale part stays in the scatter patterns).
-    s_type_a, s_type_b : float
-        The relative scale uncertainty shown by the residuals and the declared one
-        (NaN when nothing was declared); s is :func:`preparation_scale` of them.
+    scale, scale_scatter, scale_declared : float
+        The relative scale uncertainty kept (:func:`preparation_scale`), the one the
+        residuals show and the declared one (NaN when nothing was declared).
 
     Notes
     -----
@@ -149,11 +159,12 @@ def component_patterns(
     if u_relative is not None and np.isfinite(u_relative).any():
         u = np.where(np.isfinite(u_relative), u_relative, 0.0)
         s_b = float(np.sqrt(np.sum((a * x * u) ** 2)))
-    if not np.isfinite(s_b) or preparation_scale(s_a, s_b, n - q) == s_a:
-        return scatter, np.zeros(m), s_a, s_b
+    scale = preparation_scale(s_a, s_b, n - q)
+    if not np.isfinite(s_b) or scale == s_a:
+        return ComponentError(scatter, np.zeros(m), scale, s_a, s_b)
     if scatter.shape[0]:
         scatter = scatter - alpha[:, None] * slope[None, :]
-    return scatter, slope * s_b, s_a, s_b
+    return ComponentError(scatter, slope * s_b, scale, s_a, s_b)
 
 
 def leverage(x: np.ndarray, intercept: bool) -> np.ndarray:
