@@ -714,12 +714,11 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
         table["line"] = np.arange(len(table)) + 2
     if "pathlength_cm" not in table.columns:
         table["pathlength_cm"] = np.nan
-    table = _check_uncertainty_columns(table, name)
     table["sample"] = check_spellings(table["sample"].astype(str), f"{name}, samples")
     table["component"] = check_spellings(table["component"].astype(str),
                                          f"{name}, components")
     known = set(map(str, spectra[SAMPLE].values))
-    canon, bases = [], []
+    canon, bases, values = [], [], []
     for row in table.itertuples(index=False):
         where = f"{name}, line {row.line}"
         if row.sample not in known:
@@ -733,8 +732,11 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
         basis, factor = concentration_basis(str(row.unit), f"{where}: unit")
         canon.append(value * factor)
         bases.append(basis)
+        values.append(value)
     table["concentration_canonical"] = canon
     table["basis"] = bases
+    table["concentration"] = values  # checked numbers, in each row's unit
+    table = _check_uncertainty_columns(table, name)
     if len(set(bases)) > 1:
         first = table.iloc[0]
         other = table[table["basis"] != first["basis"]].iloc[0]
@@ -762,9 +764,10 @@ def _check_sheet(sheet: pd.DataFrame, spectra: xr.DataArray, name: str = "standa
 
 
 def _check_uncertainty_columns(table: pd.DataFrame, name: str) -> pd.DataFrame:
-    """Check the optional ``u_concentration``, ``stock`` and ``u_stock_rel`` columns; add
-    ``u_relative`` (u_concentration/concentration, NaN when not declared), ``stock`` ("" when
-    none) and ``u_stock_rel`` (NaN when none)."""
+    """Check the optional ``u_concentration``, ``stock`` and ``u_stock_rel`` columns (after
+    :func:`_check_sheet` has checked the concentrations); add ``u_relative``
+    (u_concentration/concentration, NaN when not declared), ``stock`` ("" when none) and
+    ``u_stock_rel`` (NaN when none)."""
     for col in ("u_concentration", "u_stock_rel"):
         if col not in table.columns:
             table[col] = np.nan
@@ -779,7 +782,7 @@ def _check_uncertainty_columns(table: pd.DataFrame, name: str) -> pd.DataFrame:
             u_c = check_number(row.u_concentration, f"{where}, u_concentration", low=0,
                                hint="the standard uncertainty of this standard's "
                                "concentration, in its unit; leave empty if not known")
-        conc = check_number(row.concentration, f"{where}, concentration", low=0)
+        conc = float(row.concentration)  # checked by _check_sheet
         if conc > 0 and u_c >= conc:
             raise InputError(f"{where}: u_concentration {u_c:g} is not below the concentration "
                              f"{conc:g}; it is a standard uncertainty in the concentration's "
