@@ -5,6 +5,10 @@ predictions (docs/flags.md, docs/plates.md).
 
 from __future__ import annotations
 
+import json
+from collections.abc import Mapping
+from typing import NamedTuple
+
 import numpy as np
 
 NO_DOF = 1  # as many unknowns as wavelengths: no residual, uncertainty unknown
@@ -196,3 +200,71 @@ def _factorize(key: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     first = np.full(uniques.size, -1, dtype=np.intp)
     first[index[::-1]] = np.arange(index.size - 1, -1, -1)
     return index, first
+
+
+# --- Two kinds of doubt (docs/flags.md) --------------------------------------------------
+#: Severity of a per-sample code: the result is doubtful, or the sample is worth a look.
+DOUBTFUL = "doubtful"
+LOOK = "look"
+SEVERITIES: tuple[str, ...] = (DOUBTFUL, LOOK)
+#: Severity of each per-sample code (the part before ``:``); a code not listed is LOOK.
+FLAG_SEVERITY: dict[str, str] = {
+    STATUS_CODES[TOO_FEW]: DOUBTFUL,
+    STATUS_CODES[DEPENDENT]: DOUBTFUL,
+    STATUS_CODES[ABOVE_RANGE]: DOUBTFUL,
+    STATUS_CODES[NO_SIGNAL]: DOUBTFUL,
+    STATUS_CODES[LACK_OF_FIT]: DOUBTFUL,
+    NO_RESULT: DOUBTFUL,
+    NO_PATHLENGTH: DOUBTFUL,
+    NOT_READ: DOUBTFUL,
+    INCOMPLETE_SPECTRUM: DOUBTFUL,
+    T2_ABOVE_99: DOUBTFUL,
+    Q_ABOVE_99: DOUBTFUL,
+}
+
+
+def severity_of(code: str) -> str:
+    """The severity (``DOUBTFUL`` or ``LOOK``) of one flag code such as ``at_zero:rose``."""
+    return FLAG_SEVERITY.get(code.partition(":")[0], LOOK)
+
+
+def by_severity(codes: list[str]) -> list[str]:
+    """Flag codes ordered doubtful first, keeping their order within a severity."""
+    return sorted(codes, key=lambda code: SEVERITIES.index(severity_of(code)))
+
+
+class RunNote(NamedTuple):
+    """A risk that holds for the whole run (the design, not one sample), said once.
+
+    Attributes
+    ----------
+    code : str
+        Short code, e.g. ``shift_risk``, ``bandwidth_mismatch``.
+    severity : str
+        ``DOUBTFUL`` or ``LOOK``.
+    text : str
+        One sentence with the risk's size (numbers with units).
+    fix : str
+        What to do about it, in one clause.
+    """
+
+    code: str
+    severity: str
+    text: str
+    fix: str
+
+
+#: Where a result's run notes are kept: ``attrs[RUN_NOTES_ATTR]``, a JSON list of
+#: objects with the fields of :class:`RunNote` (text survives netCDF and Zarr).
+RUN_NOTES_ATTR = "run_notes"
+
+
+def add_run_notes(attrs: dict, notes: list[RunNote]) -> None:
+    """Append run notes to a result's attrs (in place; a code already there is replaced)."""
+    kept = [n for n in run_notes_of(attrs) if n.code not in {m.code for m in notes}]
+    attrs[RUN_NOTES_ATTR] = json.dumps([n._asdict() for n in kept + list(notes)])
+
+
+def run_notes_of(attrs: Mapping) -> list[RunNote]:
+    """The run notes kept in a result's attrs (an empty list when there are none)."""
+    return [RunNote(**n) for n in json.loads(attrs.get(RUN_NOTES_ATTR) or "[]")]
