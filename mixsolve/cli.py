@@ -716,7 +716,7 @@ def library_show(library_file: str) -> None:
               help="Largest wavelength offset searched with --fit-shift (nm).")
 @click.option("--wavelength-tolerance", type=float, show_default=True,
               default=CoreDefault(UNMIX, "wavelength_tolerance_nm"),
-              help="Instrument wavelength accuracy (nm) for the shift_sensitive flag.")
+              help="Instrument wavelength accuracy (nm) for the shift_risk run note.")
 @click.option("--out", help="Results to write: a tidy CSV, or a .zarr or .nc cube.")
 @click.option("--report", help="HTML page to write: settings, results, notes and figures.")
 @click.option("--scheduler", help="Run on this dask.distributed scheduler (tcp://HOST:PORT).")

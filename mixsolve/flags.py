@@ -22,6 +22,8 @@ STRUCTURED = 128  # residual has shape beyond the noise's correlation (structure
 ILL_CONDITIONED = 256  # the wavelength set amplifies noise > 1000-fold (condition number)
 NO_SIGNAL = 512  # every used reading is exactly zero: nothing was measured
 TOO_DARK = 1024  # readings too dark to correct for the stated stray light: left out
+SHIFTED = 8192  # the fitted wavelength shift is significantly non-zero (fit_shift only)
+SATURATED = 16384  # a reading at the instrument's ceiling (a flat top above the range)
 
 STATUS_CODES: dict[int, str] = {
     NO_DOF: "no_dof",
@@ -35,12 +37,16 @@ STATUS_CODES: dict[int, str] = {
     ILL_CONDITIONED: "ill_conditioned",
     NO_SIGNAL: "no_signal",
     TOO_DARK: "too_dark_for_stray",
+    SHIFTED: "shifted",
+    SATURATED: "saturated_reading",
 }
 
 #: Codes about one component, written ``code:<component>``.
 AT_ZERO = "at_zero"  # NNLS held the component at zero
 NEGATIVE = "negative"  # OLS gave a negative concentration
-SHIFT_SENSITIVE = "shift_sensitive"  # a small wavelength error moves the result > 2 %
+#: Written on rows by mixsolve before issue 15 (a risk of the whole design, now the run note
+#: ``shift_risk``); kept so that old result files still read and explain.
+SHIFT_SENSITIVE = "shift_sensitive"
 COMPONENT_CODES: tuple[str, ...] = (AT_ZERO, NEGATIVE, SHIFT_SENSITIVE)
 
 #: Codes of a plate well (docs/plates.md), besides those of its fit.
@@ -77,14 +83,19 @@ FLAG_MEANINGS: dict[str, str] = {
     STATUS_CODES[LACK_OF_FIT]: "residual larger than the noise model allows",
     STATUS_CODES[TOO_DARK]: "readings too dark to correct for the stated stray light were "
                             "left out; fitted on the rest (dilute or use a shorter path)",
-    STATUS_CODES[ILL_CONDITIONED]: "the wavelengths separate the components poorly (scaled "
-                                   "condition number above 1000): noise is amplified that "
-                                   "much",
+    STATUS_CODES[ILL_CONDITIONED]: "the readings this sample has left (after missing ones) "
+                                   "separate the components poorly (scaled condition number "
+                                   "above 1000): noise is amplified that much",
     STATUS_CODES[STRUCTURED]: "residual has shape wider than correlated noise: unmodelled "
                               "absorber, scatter or a wavelength shift",
     AT_ZERO: "held at zero by the non-negativity constraint",
     NEGATIVE: "ordinary least squares gave a negative concentration",
-    SHIFT_SENSITIVE: "a small wavelength error would move this result by more than 2 %",
+    SHIFT_SENSITIVE: "(older result files) a small wavelength error would move this result "
+                     "by more than 2 %; now said once for the run (run note shift_risk)",
+    STATUS_CODES[SHIFTED]: "the fitted wavelength shift is significantly non-zero: the "
+                           "wavelength scale is off by about wavelength_shift_nm",
+    STATUS_CODES[SATURATED]: "a reading at the instrument's ceiling (a flat top above the "
+                             "reliable range): the readings near the peak are not absorbance",
     MARKER: "non-numeric reading(s) in the export (saturation or error marker): missing at "
             "those wavelengths, fitted on the rest",
     NO_PATHLENGTH: "the water band gave no positive pathlength: no result",
@@ -104,7 +115,7 @@ FLAG_MEANINGS: dict[str, str] = {
     INCOMPLETE_SPECTRUM: "missing readings at model wavelengths: no prediction",
 }
 
-#: A component is flagged shift-sensitive when a wavelength error of the stated tolerance
+#: The run note ``shift_risk`` is given when a wavelength error of the stated tolerance
 #: would move a quantifiable concentration by more than this fraction (judgement).
 SHIFT_FLAG_FRACTION = 0.02
 #: Variable-length str dtype (object dtype marked as holding str): netCDF and Zarr store
@@ -112,9 +123,9 @@ SHIFT_FLAG_FRACTION = 0.02
 VLEN_STR = np.dtype(object, metadata={"element_type": str})
 
 
-def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.ndarray,
-               bias: np.ndarray | None, components: list[str], *, ols: bool,
-               tolerance_nm: float, known: dict[object, str] | None = None) -> np.ndarray:
+def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray,
+               components: list[str], *, ols: bool,
+               known: dict[object, str] | None = None) -> np.ndarray:
     """Each spectrum's flag codes joined with ``;`` (docs/flags.md).
 
     Parameters
@@ -123,17 +134,11 @@ def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.
         Status bits.
     at_zero : array of bool, shape (..., n_components)
         Components NNLS held at zero.
-    conc, u : arrays, shape (..., n_components)
-        Concentrations and their standard uncertainties (one unit).
-    bias : array, shape (..., n_components), or None
-        Concentration bias per +1 nm of wavelength error (same unit per nm); None: no
-        ``shift_sensitive`` codes.
+    conc : array, shape (..., n_components)
+        Concentrations.
     components : list of str
     ols : bool
         Add ``negative:<component>`` where a concentration is below zero.
-    tolerance_nm : float
-        Wavelength accuracy for ``shift_sensitive``: flagged when a quantifiable
-        concentration (c > 3u) would move by more than ``SHIFT_FLAG_FRACTION`` of itself.
     known : dict, optional
         Texts already built, by bit pattern (shared by the tasks of one call, which must
         have the same components and options); new ones are added.
@@ -144,27 +149,21 @@ def flag_texts(status: np.ndarray, at_zero: np.ndarray, conc: np.ndarray, u: np.
 
     Notes
     -----
-    Codes in this order: ``STATUS_CODES``, ``at_zero:``, ``negative:``,
-    ``shift_sensitive:``. The codes of a spectrum are packed into bits, the distinct bit
-    patterns found by hashing (``pandas.factorize``), and each pattern's text is built
-    once, so a million spectra cost a few passes over small integer arrays.
+    Codes in this order: ``STATUS_CODES``, ``at_zero:``, ``negative:`` (reports show them
+    doubtful first, :func:`by_severity`). A wavelength error's risk holds for the whole
+    design and is a run note (``shift_risk``), not a per-sample code. The codes of a
+    spectrum are packed into bits, the distinct bit patterns found by hashing
+    (``pandas.factorize``), and each pattern's text is built once, so a million spectra
+    cost a few passes over small integer arrays.
     """
     lead = status.shape
     n = len(components)
     status = status.reshape(-1)
     groups = [at_zero.reshape(-1, n)]
     names = [f"{AT_ZERO}:{c}" for c in components]
-    conc, u = conc.reshape(-1, n), u.reshape(-1, n)
     if ols:
-        groups.append(conc < 0)
+        groups.append(conc.reshape(-1, n) < 0)
         names += [f"{NEGATIVE}:{c}" for c in components]
-    if bias is not None:
-        with np.errstate(invalid="ignore"):
-            quantified = conc > 3 * np.where(np.isfinite(u), u, 0.0)
-            risky = np.abs(bias.reshape(-1, n)) * tolerance_nm > \
-                SHIFT_FLAG_FRACTION * np.abs(conc)
-        groups.append(quantified & risky)
-        names += [f"{SHIFT_SENSITIVE}:{c}" for c in components]
     if not status.size:
         return np.empty(lead, dtype=VLEN_STR)
     bits = np.concatenate(groups, axis=1)
@@ -208,19 +207,44 @@ DOUBTFUL = "doubtful"
 LOOK = "look"
 SEVERITIES: tuple[str, ...] = (DOUBTFUL, LOOK)
 #: Severity of each per-sample code (the part before ``:``); a code not listed is LOOK.
+#: Doubtful: the result should not be used as it is (no result, a reading outside what the
+#: instrument can measure, a model that does not fit, a design this sample cannot support,
+#: replicates or a calibration that disagree). Everything else is worth a look: the result
+#: stands with its uncertainty (docs/flags.md, "Severity").
 FLAG_SEVERITY: dict[str, str] = {
     STATUS_CODES[TOO_FEW]: DOUBTFUL,
     STATUS_CODES[DEPENDENT]: DOUBTFUL,
     STATUS_CODES[ABOVE_RANGE]: DOUBTFUL,
     STATUS_CODES[NO_SIGNAL]: DOUBTFUL,
     STATUS_CODES[LACK_OF_FIT]: DOUBTFUL,
+    STATUS_CODES[ILL_CONDITIONED]: DOUBTFUL,  # this sample's own design, after missing readings
+    STATUS_CODES[SATURATED]: DOUBTFUL,
+    MARKER: DOUBTFUL,  # a saturation or error marker in the export
     NO_RESULT: DOUBTFUL,
     NO_PATHLENGTH: DOUBTFUL,
     NOT_READ: DOUBTFUL,
+    HIGH_CV: DOUBTFUL,
     INCOMPLETE_SPECTRUM: DOUBTFUL,
     T2_ABOVE_99: DOUBTFUL,
     Q_ABOVE_99: DOUBTFUL,
+    OUTSIDE_RANGE: DOUBTFUL,
 }
+
+
+#: Run-note codes of unmix (docs/flags.md, "Run notes"): what each says, in one line.
+SHIFT_RISK = "shift_risk"
+ILL_CONDITIONED_DESIGN = "ill_conditioned_design"
+RUN_NOTE_MEANINGS: dict[str, str] = {
+    SHIFT_RISK: "a wavelength error of the stated tolerance would move results by more than "
+                "2 % (wavelengths on steep band flanks)",
+    ILL_CONDITIONED_DESIGN: "the wavelengths separate the components poorly (scaled "
+                            "condition number above 1000): noise is amplified",
+}
+
+
+def order_flags(text: str) -> str:
+    """A ``;``-joined flag string with its codes doubtful first (:func:`by_severity`)."""
+    return ";".join(by_severity([c for c in str(text).split(";") if c]))
 
 
 def severity_of(code: str) -> str:

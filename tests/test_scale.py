@@ -136,19 +136,12 @@ def _flags_by_definition(result: xr.Dataset) -> np.ndarray:
     n = len(comps)
     at_zero = result["at_zero"].values.reshape(-1, n)
     conc = result["concentration"].values.reshape(-1, n)
-    u = result["std_uncertainty"].values.reshape(-1, n)
-    bias = result["shift_bias_per_nm"].values.reshape(-1, n)
-    tol = result.attrs["wavelength_tolerance_nm"]
     out = []
     for i in range(status.size):
         codes = [code for bit, code in STATUS_CODES.items() if status[i] & bit]
         codes += [f"at_zero:{c}" for c, z in zip(comps, at_zero[i], strict=True) if z]
         if result.attrs["method"] == "ols":
             codes += [f"negative:{c}" for c, v in zip(comps, conc[i], strict=True) if v < 0]
-        quantified = conc[i] > 3 * np.where(np.isfinite(u[i]), u[i], 0.0)
-        risky = np.abs(bias[i]) * tol > 0.02 * np.abs(conc[i])
-        codes += [f"shift_sensitive:{c}" for c, q, r in zip(comps, quantified, risky,
-                                                            strict=True) if q and r]
         out.append(";".join(codes))
     return np.array(out)
 

@@ -159,11 +159,14 @@ def test_unmix_shift_bias_is_the_shift_matrix_times_the_concentrations(library):
     assert res["shift_bias_per_nm"].attrs["units"] == "mol/L per nm"
 
 
-def test_shift_sensitive_flag_follows_the_wavelength_tolerance(library):
-    """Shoulder wavelengths are flagged ``shift_sensitive`` when a large wavelength error is
-    assumed (2 nm), not when the instrument is perfect (0 nm); maxima are never flagged.
+def test_shift_risk_run_note_follows_the_wavelength_tolerance(library):
+    """Shoulder wavelengths give the run note ``shift_risk`` once when a large wavelength
+    error is assumed (2 nm), not when the instrument is perfect (0 nm); maxima never do.
+    No row carries ``shift_sensitive`` any more (issue 15: a design-wide risk).
     """
-    spectra = shifted_spectra(CONC, [0.0], noise=1e-4)
+    from mixsolve.flags import run_notes_of
+
+    spectra = shifted_spectra(CONC, [0.0, 0.0, 0.0], noise=1e-4)
     shoulders = [430.0, 435.0, 500.0, 505.0, 640.0, 645.0]
     maxima = [459.0, 460.0, 461.0, 529.0, 530.0, 531.0, 609.0, 610.0, 611.0]
     loose = ms.unmix(spectra, library, method="ols", wavelengths=shoulders,
@@ -172,9 +175,18 @@ def test_shift_sensitive_flag_follows_the_wavelength_tolerance(library):
                       wavelength_tolerance_nm=0.0)
     peaks = ms.unmix(spectra, library, method="ols", wavelengths=maxima,
                      wavelength_tolerance_nm=2.0)
-    assert "shift_sensitive:" in str(loose["flags"].values[0])
-    assert "shift_sensitive" not in str(strict["flags"].values[0])
-    assert "shift_sensitive" not in str(peaks["flags"].values[0])
+    notes = run_notes_of(loose.attrs)
+    assert [n.code for n in notes] == ["shift_risk"]  # once for the run, not per row
+    assert notes[0].text.startswith("a wavelength error of 2 nm would move ")
+    assert "--fit-shift" in notes[0].fix
+    assert not any("shift_sensitive" in str(f) for f in loose["flags"].values)
+    assert run_notes_of(strict.attrs) == []
+    assert run_notes_of(peaks.attrs) == []
+    # the size said is the largest |S c|·tol/c over the quantified results
+    conc, bias = loose["concentration"].values, loose["shift_bias_per_nm"].values
+    worst = np.max(np.abs(bias) * 2.0 / conc, axis=0)
+    k = int(np.argmax(worst))
+    assert f"{loose.component.values[k]} by up to {100 * worst[k]:.2g} %" in notes[0].text
     assert loose.attrs["wavelength_tolerance_nm"] == 2.0
     with pytest.raises(InputError, match=r"wavelength_tolerance_nm: -1 nm is not a number ≥ 0"):
         ms.unmix(spectra, library, wavelength_tolerance_nm=-1.0)

@@ -506,8 +506,9 @@ def test_ols_with_baseline_recovers_offset(molar_library: xr.Dataset,
     assert not np.allclose(_conc(plain), CONC, rtol=1e-3)
 
 
-def test_ill_conditioned_design_warns_and_flags_every_sample():
-    """Scaled condition number between 10³ and 10⁶: a warning and ``ill_conditioned``.
+def test_ill_conditioned_design_warns_and_says_it_once():
+    """Scaled condition number between 10³ and 10⁶: a warning and the run note
+    ``ill_conditioned_design`` (once, with the condition number), no per-sample flag.
 
     Two components whose spectra differ by 0.1 % of a second band are nearly collinear;
     the condition number (numpy.linalg.cond on unit columns) lies in that range.
@@ -528,7 +529,13 @@ def test_ill_conditioned_design_warns_and_flags_every_sample():
         result = ms.unmix(spectra, lib, method="ols")
     assert any(issubclass(w.category, IllConditionedWarning) for w in caught)
     assert result.attrs["condition_number"] == pytest.approx(cond, rel=1e-6)
-    assert "ill_conditioned" in str(result["flags"].values[0])
+    assert "ill_conditioned" not in str(result["flags"].values[0])
+    from mixsolve.flags import run_notes_of
+
+    notes = [n for n in run_notes_of(result.attrs) if n.code == "ill_conditioned_design"]
+    assert len(notes) == 1
+    assert f"scaled condition number {cond:.3g}" in notes[0].text
+    assert "mixsolve wavelengths" in notes[0].fix
 
 
 def test_numerically_singular_design_is_refused():

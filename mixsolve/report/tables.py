@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from mixsolve.flags import order_flags
 from mixsolve.library import COMPONENT
 
 RESULT_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
@@ -30,8 +31,9 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
     -------
     DataFrame
         Columns ``sample, component, concentration, std_uncertainty, unit,
-        rms_residual_au, dof, flags``. ``flags`` holds the sample's ``;``-joined flag codes
-        (empty when nothing is doubtful). The parts of ``std_uncertainty`` follow when the
+        rms_residual_au, dof, flags``. ``flags`` holds the sample's ``;``-joined flag codes,
+        doubtful ones first (:func:`mixsolve.flags.by_severity`; empty when nothing is
+        doubtful). The parts of ``std_uncertainty`` follow when the
         result has them (``u_noise, u_library, u_stray``). With ``fit_shift`` the fitted
         offset adds
         ``wavelength_shift_nm, u_wavelength_shift_nm``. Results of
@@ -62,6 +64,7 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
     else:
         labels = [str(s) for s in stacked[row_dim].values]
     flags = stacked["flags"].values if "flags" in stacked else np.full(len(labels), "")
+    flags = _by_severity(flags)
     n_c = len(comps)
 
     def per_row(name: str) -> np.ndarray:
@@ -87,3 +90,9 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
         "flags": np.repeat(flags, n_c),
         **extra,
     }, columns=[*RESULT_COLUMNS, *extra])
+
+
+def _by_severity(flags: np.ndarray) -> np.ndarray:
+    """Each flag string with its codes doubtful first, each distinct string ordered once."""
+    texts, index = np.unique(np.asarray(flags, dtype=object).astype(str), return_inverse=True)
+    return np.array([order_flags(t) for t in texts], dtype=object)[index.ravel()]

@@ -27,7 +27,7 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from mixsolve.errors import InfiniteReadingError
-from mixsolve.flags import MISSING, TOO_DARK, flag_texts
+from mixsolve.flags import ILL_CONDITIONED, MISSING, SATURATED, TOO_DARK, flag_texts
 from mixsolve.library import COMPONENT
 from mixsolve.library_error import library_variance
 from mixsolve.noise import NoiseModel
@@ -36,12 +36,14 @@ from mixsolve.solve.design import Baseline
 from mixsolve.solve.engine import Method
 from mixsolve.solve.outputs import TERM, kernel_outputs
 from mixsolve.solve.residuals import ResidualSummary, summarise
-from mixsolve.solve.sample_checks import lack_of_fit, target_absorbance
+from mixsolve.solve.sample_checks import flat_top, lack_of_fit, target_absorbance
 from mixsolve.solve.shift_fit import fit_with_shift
 from mixsolve.solve.stray import StrayCorrection, coefficient_sensitivity
 from mixsolve.solve.trust import (
     CHECK_NAMES,
     lack_of_fit_model,
+    own_design_status,
+    shifted_status,
     summary_checks,
     trust_status,
 )
@@ -91,14 +93,16 @@ class BlockSettings:
     fit: FitKind
     threads: int  #: threads sharing a block (1 when dask's threads run the blocks)
     absorbance_range: tuple[float, float]  #: AU
-    design_status: int  #: status bits that hold for every spectrum (ill conditioning)
+    #: status bits of the whole design (ill conditioning): said once as run notes, not set
+    #: on the spectra (:mod:`mixsolve.solve.run_notes`)
+    design_status: int
     unit_factor: np.ndarray  #: (n,) result unit per library concentration unit
     shift_matrix: np.ndarray  #: (n, n) library-unit bias per nm per unit of each component
     #: (n, n, n) the library's covariance as one quadratic form per component,
     #: var(x_j) = xᵀ Q_j x (:func:`mixsolve.library_error.library_quadratic`); zeros when the
     #: library states no error
     library_quadratic: np.ndarray
-    tolerance_nm: float  #: wavelength accuracy for the shift_sensitive flag
+    tolerance_nm: float  #: wavelength accuracy (nm) for the shift_risk run note
     #: ``numpy`` or ``compiled`` (:func:`mixsolve.solve.engine.choose_engine`), chosen for
     #: the whole job so that every block and dask chunk uses the same
     engine: Literal["numpy", "compiled"] = "numpy"
@@ -154,7 +158,7 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
 
     def fit(rows: slice) -> _Fitted:
         try:
-            return _fit_task(flat[rows], settings)
+            return _reading_checks(_fit_task(flat[rows], settings), flat[rows], settings)
         except InfiniteReadingError as exc:  # its position within the block, not the task
             raise InfiniteReadingError(
                 str(exc), None if exc.spectrum is None else rows.start + exc.spectrum,
@@ -248,6 +252,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
             residual, fitted, dof, settings.noise)
         summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + the shift
                             settings.structure_lag)
+        status = status | shifted_status(shift, u_shift)
         return _Fitted(coef, se, dof, status, summary, lack,
                        {"wavelength_shift_nm": shift, "u_wavelength_shift_nm": u_shift,
                         "fitted": fitted, "residual": residual})
@@ -262,6 +267,27 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     lack = None if settings.noise is None else lack_of_fit_model(
         spectra, fit.coef, settings.design, fit.dof, settings.noise)
     return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
+
+
+def _reading_checks(fit: _Fitted, spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
+    """The fit with the checks of the readings themselves: ``SATURATED`` where a spectrum
+    has a flat top at the instrument's ceiling
+    (:func:`mixsolve.solve.sample_checks.flat_top`, on the readings as measured), and
+    ``ILL_CONDITIONED`` where the spectrum's own design after missing readings is ill
+    conditioned while the run's is not (the run's is a run note)."""
+    status = fit.status
+    if not settings.design_status & ILL_CONDITIONED:
+        status = status | own_design_status(spectra, settings.design, status)
+    with np.errstate(invalid="ignore"):  # only spectra above the range can have one
+        rows = np.flatnonzero(np.asarray(fit.summary.absorbance_max) >
+                              settings.absorbance_range[1])
+    if rows.size:
+        fitted = fit.extra.get("fitted")
+        fitted = fit.coef[rows] @ settings.design.T if fitted is None else fitted[rows]
+        top = flat_top(spectra[rows], fitted, settings.absorbance_range[1], settings.noise)
+        status = status.copy()
+        status[rows[top]] |= SATURATED
+    return fit._replace(status=status)
 
 
 def _fit_corrected(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
@@ -296,7 +322,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     n = len(settings.components)
     rms = fit.summary.rms()
     checks = summary_checks(fit.summary, fit.lack)
-    status = fit.status | settings.design_status | trust_status(
+    status = fit.status | trust_status(
         checks, rms, settings.design.shape[0], settings.absorbance_range,
         settings.noise is not None)
     per_b = (1.0 / b)[:, None]
@@ -318,9 +344,8 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     with np.errstate(invalid="ignore"):  # no dilution brings a peak ≤ 0 AU into range
         dilution = np.where(checks[0] > 0, checks[0], np.nan) / target_absorbance(
             *settings.absorbance_range)
-    flags = flag_texts(status, at_zero, conc, u_conc, bias, settings.components,
-                       ols=settings.method == "ols", tolerance_nm=settings.tolerance_nm,
-                       known=texts)
+    flags = flag_texts(status, at_zero, conc, settings.components,
+                       ols=settings.method == "ols", known=texts)
     return {"coef": fit.coef, "concentration": conc, "std_uncertainty": u_conc,
             "u_noise": u_noise, "u_library": u_library, "u_stray": u_stray,
             "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,

@@ -21,6 +21,8 @@ and return arrays over the leading axes.
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 from scipy import stats
 
@@ -85,3 +87,86 @@ def runs_test(residual: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]
             z[i] = (runs - mu) / np.sqrt(var)
     p = stats.norm.cdf(z)
     return z.reshape(lead), p.reshape(lead), lag1.reshape(lead)
+
+
+#: Fewest consecutive readings at the spectrum's maximum that make a flat top (judgement:
+#: two equal neighbours happen at any band maximum read finely; three level readings
+#: above the reliable range, with the fitted band rising over them, do not).
+PLATEAU_READINGS = 3
+#: Readings within this many noise SDs of the maximum count as level with it (judgement).
+PLATEAU_SDS = 3.0
+
+
+def spectrum_noise(used: np.ndarray) -> np.ndarray:
+    """Noise SD (AU) of each spectrum from its own readings (DER_SNR).
+
+    σ̂ = 1.482602/√6 · median |2fᵢ − fᵢ₋₂ − fᵢ₊₂| (Stoehr et al. 2008, "DER_SNR: a simple
+    and general spectroscopic signal-to-noise measurement algorithm", ASP Conf. Ser. 394,
+    505): second differences two readings apart remove a straight line exactly (a band's
+    curvature over 4 readings is counted as noise, so a finely read band with little noise
+    gives a larger σ̂), and the median ignores the few readings on sharp features. NaN with
+    fewer than 5 readings; missing readings are skipped.
+    """
+    if used.shape[-1] < 5:
+        return np.full(used.shape[:-1], np.nan)
+    second = 2 * used[..., 2:-2] - used[..., :-4] - used[..., 4:]
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows give NaN
+        return 1.482602 / np.sqrt(6.0) * np.nanmedian(np.abs(second), axis=-1)
+
+
+def flat_top(used: np.ndarray, fitted: np.ndarray, high: float,
+             noise: NoiseModel | None = None) -> np.ndarray:
+    """Whether each spectrum has a reading at the instrument's ceiling (a flat top).
+
+    Parameters
+    ----------
+    used : array, shape (..., m)
+        Measured absorbance (AU) at the used wavelengths, in wavelength order; NaN missing.
+    fitted : array, shape (..., m)
+        The fitted absorbance at the same readings.
+    high : float
+        Top of the reliable range (AU).
+    noise : NoiseModel, optional
+        σ_A of a reading; without it, each spectrum's own DER_SNR noise
+        (:func:`spectrum_noise`).
+
+    Returns
+    -------
+    array of bool, shape (...)
+
+    Notes
+    -----
+    With A_max the largest reading and σ the noise SD at A_max, a spectrum has a flat top
+    when A_max > ``high`` and (1) at least ``PLATEAU_READINGS`` consecutive readings lie
+    within ``PLATEAU_SDS``·σ of A_max, and (2) over those readings the fitted band rises
+    above A_max by more than ``PLATEAU_SDS``·σ: the data stop where the model of the other
+    readings goes on. A detector or converter at its ceiling reads a constant (or its noise)
+    however much more the sample absorbs; a real band maximum read finely is level too,
+    but the fit follows it, so (2) keeps it out.
+    """
+    from numpy.lib.stride_tricks import sliding_window_view
+
+    lead = used.shape[:-1]
+    flat = used.reshape(-1, used.shape[-1])
+    model = np.asarray(fitted, dtype=float).reshape(flat.shape)
+    out = np.zeros(flat.shape[0], dtype=bool)
+    if flat.shape[-1] < PLATEAU_READINGS:
+        return out.reshape(lead)
+    with np.errstate(all="ignore"):
+        empty = np.isnan(flat).all(axis=-1)
+        a_max = np.where(empty, np.nan, np.nanmax(np.where(empty[:, None], 0.0, flat),
+                                                  axis=-1))
+        rows = np.flatnonzero(a_max > high)
+        if not rows.size:
+            return out.reshape(lead)
+        part = flat[rows]
+        sigma = (noise.sigma_absorbance(a_max[rows]) if noise is not None
+                 else spectrum_noise(part))
+        tol = PLATEAU_SDS * np.where(np.isfinite(sigma), sigma, 0.0)
+        level = part >= (a_max[rows] - tol)[:, None]  # NaN readings are not level
+        runs = sliding_window_view(level, PLATEAU_READINGS, axis=-1).all(axis=-1)
+        above = model[rows] - a_max[rows][:, None] > tol[:, None]
+        rises = sliding_window_view(above, PLATEAU_READINGS, axis=-1).any(axis=-1)
+        out[rows] = (runs & rises).any(axis=-1)
+    return out.reshape(lead)

@@ -17,9 +17,21 @@ import numpy as np
 import xarray as xr
 from scipy.special import ndtr
 
-from mixsolve.flags import ABOVE_RANGE, BELOW_RANGE, LACK_OF_FIT, NO_SIGNAL, STRUCTURED
+from mixsolve.flags import (
+    ABOVE_RANGE,
+    BELOW_RANGE,
+    DEPENDENT,
+    ILL_CONDITIONED,
+    LACK_OF_FIT,
+    MISSING,
+    NO_SIGNAL,
+    SHIFTED,
+    STRUCTURED,
+    TOO_FEW,
+)
 from mixsolve.library import COMPONENT
 from mixsolve.noise import NoiseModel
+from mixsolve.solve.design import ILL_CONDITIONED_ABOVE
 from mixsolve.solve.residuals import ResidualSummary, model_blocks
 from mixsolve.solve.sample_checks import (
     MIN_POINTS_RUNS,
@@ -36,7 +48,7 @@ FLAG_P_VALUE = 1e-3
 STRUCTURE_Z_LIMIT = 3.09
 #: RMS residual (AU) below which a fit is exact to rounding and is not tested for shape.
 NUMERICAL_ZERO_AU = 1e-10
-#: Wavelength accuracy assumed for the shift_sensitive flag (nm): a typical benchtop, ±0.5 nm
+#: Wavelength accuracy assumed for the shift_risk run note (nm): a typical benchtop, ±0.5 nm
 #: (from memory; plate readers are often ±1-2 nm: set it for your instrument).
 DEFAULT_WAVELENGTH_TOLERANCE_NM = 0.5
 #: Span (nm) over which instrument noise may be correlated without raising the
@@ -200,3 +212,48 @@ def shift_bias_matrix(library: xr.Dataset, design: np.ndarray, used_wl: np.ndarr
     if not np.isfinite(deriv).all():
         return np.full((n, n), np.nan)
     return shift_matrix(design, deriv)[:n]
+
+
+#: |δ|/u(δ) above which a fitted wavelength shift is significant: the two-sided 0.1 % point
+#: of N(0, 1) (3.29), as strict as the other checks.
+SHIFT_Z_LIMIT = 3.29
+#: Smallest fitted shift (nm) worth flagging ``shifted`` (judgement: below 0.2 nm a
+#: wavelength error moves even steep-flank results by less than the usual 1-2 % and is
+#: within the accuracy of a good benchtop; a high signal-to-noise spectrum makes smaller
+#: shifts significant without mattering).
+SHIFT_PRACTICAL_NM = 0.2
+
+
+def shifted_status(shift_nm: np.ndarray, u_shift_nm: np.ndarray) -> np.ndarray:
+    """``SHIFTED`` where |δ| > ``SHIFT_PRACTICAL_NM`` and |δ|/u(δ) > ``SHIFT_Z_LIMIT``
+    (NaN figures set nothing)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        on = (np.abs(shift_nm) > SHIFT_PRACTICAL_NM) & (
+            np.abs(shift_nm) > SHIFT_Z_LIMIT * u_shift_nm)
+    return np.where(on, SHIFTED, 0).astype(np.int64)
+
+
+def own_design_status(spectra: np.ndarray, design: np.ndarray, status: np.ndarray
+                      ) -> np.ndarray:
+    """``ILL_CONDITIONED`` for spectra whose own design, on the readings they have, is ill
+    conditioned (scaled condition number above ``ILL_CONDITIONED_ABOVE``).
+
+    Only spectra with missing readings that were fitted (``MISSING`` without ``TOO_FEW``
+    or ``DEPENDENT``) are looked at, one condition number per pattern of readings present
+    (numpy.linalg.cond of the design rows with unit-length columns).
+    """
+    out = np.zeros(status.shape, dtype=np.int64)
+    rows = np.flatnonzero((status & MISSING).astype(bool) & ~(status & (TOO_FEW | DEPENDENT))
+                          .astype(bool))
+    if not rows.size:
+        return out
+    patterns, group = np.unique(~np.isnan(spectra[rows]), axis=0, return_inverse=True)
+    group = group.ravel()
+    for g, mask in enumerate(patterns):
+        sub = design[mask]
+        norms = np.linalg.norm(sub, axis=0)
+        if (norms == 0).any():
+            continue  # cannot be fitted: rank_deficient says it
+        if np.linalg.cond(sub / norms) > ILL_CONDITIONED_ABOVE:
+            out[rows[group == g]] = ILL_CONDITIONED
+    return out

@@ -19,7 +19,7 @@ from mixsolve.errors import (
     InfiniteReadingError,
     InputError,
 )
-from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
+from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, RunNote, add_run_notes, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.library_error import (
     library_quadratic,
@@ -56,6 +56,7 @@ from mixsolve.solve.outputs import (
     kernel_outputs,
     result_outputs,
 )
+from mixsolve.solve.run_notes import design_shift_risk, ill_conditioned_design, shift_risk
 from mixsolve.solve.stray import (
     StrayCorrectedNoise,
     StrayCorrection,
@@ -149,8 +150,8 @@ def unmix(
     max_shift_nm : float
         Bound of the shift search (nm).
     wavelength_tolerance_nm : float
-        Wavelength accuracy of the instrument (nm) for the ``shift_sensitive`` flag: a
-        component is flagged when an error this large would move it by more than 2 %.
+        Wavelength accuracy of the instrument (nm) for the run note ``shift_risk``: said
+        once when an error this large would move a quantified result by more than 2 %.
     stray_fraction : float, optional
         Stray-light fraction s of the instrument (0.001 = 0.1 %T), 0 ≤ s < 1; default the
         ``stray`` of ``noise``. When s > 0 every reading is corrected before the fit,
@@ -479,12 +480,29 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
             **_stray_attrs(options.stray),
         },
     )
+    add_run_notes(result.attrs, _run_notes(options, plan, result))
     # Variables derived from the spectra inherit their attributes; a concentration is not an
     # "absorbance" from "samples.csv": keep only what describes the variable itself.
     for var in result.variables.values():
         for key in INPUT_ATTRS:
             var.attrs.pop(key, None)
     return result
+
+
+def _run_notes(options: _Options, plan: _Plan, result: xr.Dataset) -> list[RunNote]:
+    """The design's risks, said once (:mod:`mixsolve.solve.run_notes`): poor conditioning,
+    and the shift risk over the run's quantified results (from the design alone when the
+    result is lazy; none with ``fit_shift``, which fits the shift instead)."""
+    notes = [ill_conditioned_design(plan.settings.design, plan.components, plan.condition)]
+    if not options.fit_shift:
+        tol = options.tolerance_nm
+        if result["concentration"].chunks is None:
+            notes.append(shift_risk(result["concentration"].values,
+                                    result["std_uncertainty"].values,
+                                    result["shift_bias_per_nm"].values, plan.components, tol))
+        else:
+            notes.append(design_shift_risk(plan.settings.shift_matrix, plan.components, tol))
+    return [n for n in notes if n is not None]
 
 
 def _uncertainty_basis(options: _Options, plan: _Plan) -> str:
@@ -595,20 +613,14 @@ def flags_of(result: xr.Dataset) -> xr.DataArray:
     -----
     Codes, in this order: the status codes of ``mixsolve.flags.STATUS_CODES``;
     ``at_zero:<component>`` where NNLS held a component at zero; ``negative:<component>``
-    where OLS returned a negative concentration; ``shift_sensitive:<component>`` where a
-    wavelength error of ``attrs["wavelength_tolerance_nm"]`` would move a quantifiable
-    concentration (c > 3u) by more than 2 %. See docs/flags.md
-    (:func:`mixsolve.flags.flag_texts`).
+    where OLS returned a negative concentration. Risks of the whole design are run notes
+    (``attrs["run_notes"]``, :func:`mixsolve.flags.run_notes_of`), not flags. See
+    docs/flags.md (:func:`mixsolve.flags.flag_texts`).
     """
     comps = [str(c) for c in result[COMPONENT].values]
-    conc = result["concentration"]
-    bias = result["shift_bias_per_nm"] if "shift_bias_per_nm" in result else xr.full_like(
-        conc, np.nan)
-    tol = result.attrs.get("wavelength_tolerance_nm", DEFAULT_WAVELENGTH_TOLERANCE_NM)
-    core = [[], [COMPONENT], [COMPONENT], [COMPONENT], [COMPONENT]]
+    core = [[], [COMPONENT], [COMPONENT]]
     flags = xr.apply_ufunc(
-        functools.partial(flag_texts, components=comps, ols=result.attrs["method"] == "ols",
-                          tolerance_nm=float(tol)),
-        result["status"], result["at_zero"], conc, result["std_uncertainty"], bias,
+        functools.partial(flag_texts, components=comps, ols=result.attrs["method"] == "ols"),
+        result["status"], result["at_zero"], result["concentration"],
         input_core_dims=core, dask="parallelized", output_dtypes=[VLEN_STR])
     return flags.rename("flags")
