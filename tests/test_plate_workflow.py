@@ -500,3 +500,31 @@ def test_demo_runs_the_plate_path(tmp_path):
     assert (np.abs(table["difference"]) <= 3 * table["std_uncertainty"]).mean() > 0.8
     assert "Plate run: a synthetic 96-well export" in run.text
     assert "marker:OVER" in table.set_index("sample").loc["extract_04", "flags"].iloc[0]
+    # Issue 15: the first screen says which wells need attention and why. The demo's one
+    # doubtful well is D3, the well its generator gave OVER markers
+    # (reference_spectra_demo/make_demo_data.py, PLATE_MARKERS); no well carries the old
+    # per-row shift_sensitive, and the design's shift risk is said once, with its fix.
+    done = run.plate.plates[0]
+    assert not done.wells["flags"].str.contains("shift_sensitive").any()
+    from mixsolve.report.plate_text import attention_table, well_counts
+
+    attention = attention_table(done.wells)
+    assert list(attention["well"]) == ["D3"] and list(attention["code"]) == ["marker:OVER"]
+    fitted, doubtful, look = well_counts(done.wells)
+    assert doubtful == 1 and fitted == 56 and look < fitted / 4
+    text = run.text.splitlines()
+    head = next(i for i, line in enumerate(text) if "plate_export.csv: grid blocks" in line)
+    assert f"{fitted} wells fitted, 1 doubtful, {look} worth a look" in text[head]
+    assert "Wells that need attention" in text[head + 1]
+    assert text[head + 3].split()[:3] == ["D3", "extract_04", "marker:OVER"]
+    assert sum("[shift_risk]" in line for line in text) == 2  # unmix demo and plate, once each
+    page = (tmp_path / "demo" / "plate" / "plate_export" / "report.html").read_text(
+        encoding="utf-8")
+    body = page[page.index("<body>"):]
+    assert body.index("Wells that need attention") < body.index("Concentration per well")
+    assert body.count("shift_risk") == 1
+    from mixsolve.report.plate_page import heat_map
+
+    fig = heat_map(done.wells, "amber", 96, "mg/L")
+    crosses = [c.get_offsets().tolist() for c in fig.axes[0].collections]
+    assert crosses == [[[2.0, 3.0]]]  # x = column 3 - 1, y = row D: only the doubtful well

@@ -31,6 +31,7 @@ from mixsolve.flags import (
     NOT_READ,
     SINGLE_WELL,
     WELLS_WITHOUT_RESULT,
+    by_severity,
 )
 from mixsolve.library import COMPONENT, build_library, check_library
 from mixsolve.plate.wells import (
@@ -391,8 +392,8 @@ def _wells_table(plate: xr.DataArray, layout: pd.DataFrame, all_wells: list[str]
         per_well["sample"].append("" if entry is None else str(entry["sample"]))
         per_well["role"].append(role or "unassigned")
         per_well["dilution"].append(1.0 if entry is None else float(entry["dilution"]))
-        per_well["flags"].append(";".join(
-            _well_flags(well, role, well in read_set, b, fit_flags, markers)))
+        per_well["flags"].append(";".join(by_severity(  # doubtful codes first
+            _well_flags(well, role, well in read_set, b, fit_flags, markers))))
     dilution = np.asarray(per_well["dilution"])
     n_c = len(components)
     return pd.DataFrame({
@@ -450,7 +451,7 @@ def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, free: xr.Dataset |
             codes = _sample_flags(flags[idx], comp, stats, len(members), max_cv)
             rows.append((sample, comp, stats["value"], stats["std_uncertainty"], unit,
                          stats["n"], stats["mean"], stats["sd"], stats["cv"],
-                         ";".join(members), ";".join(codes)))
+                         ";".join(members), ";".join(by_severity(codes))))
     return pd.DataFrame(rows, columns=list(SAMPLE_COLUMNS))
 
 

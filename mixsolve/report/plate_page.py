@@ -1,8 +1,9 @@
 """The plate report: one self-contained HTML page per plate (a pure function, no I/O).
 
-Heat maps of every component over the plate, the samples, the flagged wells with their
-reasons, the residual spectra of the worst-fitting wells, the run's settings and the
-cautions. Flag codes are explained in docs/plates.md and in
+First the wells whose result is doubtful and why, then the counts and the run's notes, heat
+maps of every component over the plate (doubtful results crossed), the samples, the flagged
+wells with their reasons, the residual spectra of the worst-fitting wells, the run's
+settings and the cautions. Flag codes are explained in docs/plates.md and in
 :data:`mixsolve.flags.FLAG_MEANINGS`.
 """
 
@@ -14,26 +15,13 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.flags import (
-    AT_ZERO,
-    BELOW_RANGE,
-    EMPTY_WELL,
-    FLAG_MEANINGS,
-    NEGATIVE,
-    NO_SIGNAL,
-    STATUS_CODES,
-    STRUCTURED,
-)
+from mixsolve.flags import AT_ZERO, DOUBTFUL, FLAG_MEANINGS, SEVERITIES, order_flags
 from mixsolve.plate.wells import PLATE_SHAPES, ROW_LETTERS, WELL, parse_well
 from mixsolve.report import html
-from mixsolve.report.text import value_with_uncertainty
+from mixsolve.report.plate_text import attention_table, counts_text, well_concern
+from mixsolve.report.text import run_note_sentences, value_with_uncertainty
 from mixsolve.spectra import WAVELENGTH
 
-#: Codes that do not make a well worth listing among the flagged ones (for blanks, a
-#: reading near zero is the point, so range and sign codes are routine there too).
-_ROUTINE = (AT_ZERO, EMPTY_WELL)
-_ROUTINE_BLANK = (*_ROUTINE, STATUS_CODES[BELOW_RANGE], NEGATIVE, STATUS_CODES[STRUCTURED],
-                  STATUS_CODES[NO_SIGNAL])
 WORST_WELLS = 6
 
 
@@ -48,16 +36,18 @@ def explain(flags: str) -> str:
 
 
 def noteworthy(flags: str, role: str = "sample") -> bool:
-    """Whether a well's flags hold a code beyond the routine ones for its role."""
-    routine = _ROUTINE_BLANK if role == "blank" else _ROUTINE
-    return any(code.partition(":")[0] not in routine for code in filter(None, flags.split(";")))
+    """Whether a well's flags hold a code beyond the routine ones for its role
+    (:func:`mixsolve.report.plate_text.well_concern`)."""
+    return well_concern(flags, role) is not None
 
 
 def heat_map(wells: pd.DataFrame, component: str, plate_size: int, unit: str) -> object:
     """A matplotlib Figure: the component's concentration in every well of the plate.
 
-    Wells without a result are grey; flagged wells (other than routine codes) carry a
-    cross; blanks are marked ``b`` and standards ``s``.
+    Wells without a result are grey; wells whose result is doubtful
+    (:func:`mixsolve.report.plate_text.well_concern`) carry a cross, nothing else does
+    (empty and unused wells, codes only worth a look); blanks are marked ``b`` and
+    standards ``s``.
     """
     import matplotlib as mpl
     from matplotlib.figure import Figure
@@ -75,7 +65,7 @@ def heat_map(wells: pd.DataFrame, component: str, plate_size: int, unit: str) ->
             index=False):
         r, c = parse_well(well)  # type: ignore[misc]
         grid[r, c - 1] = conc
-        if noteworthy(flags, role):
+        if well_concern(flags, role) == DOUBTFUL:
             marks.append((r, c - 1))
         if role in ("blank", "standard"):
             ax.text(c - 1, r, role[0], ha="center", va="center", fontsize=7, color="white")
@@ -159,38 +149,53 @@ def plate_page(
     settings : mapping of str
         The run's settings, shown as a table.
     notes : sequence of str
-        Sentences shown at the top.
+        Sentences shown near the top (after the wells that need attention, the counts and
+        the run notes of ``result``).
     title : str
 
     Returns
     -------
     str
-        A self-contained HTML page with one heat map figure per component.
+        A self-contained HTML page with one heat map figure per component. It opens with
+        the wells whose result is doubtful and why
+        (:func:`mixsolve.report.plate_text.attention_table`), then the counts (doubtful
+        apart from worth a look) and the run notes, each with its size and fix.
     """
     components = list(dict.fromkeys(wells["component"]))
     unit = str(wells["unit"].iloc[0]) if len(wells) else ""
     per_well = wells.drop_duplicates("well")
-    fitted = per_well["rms_residual_au"].notna().sum()
-    flagged = per_well[[noteworthy(f, r) for f, r in zip(per_well["flags"], per_well["role"],
-                                                         strict=True)]]
+    concern = [well_concern(f, r) for f, r in zip(per_well["flags"], per_well["role"],
+                                                  strict=True)]
+    flagged = per_well[[c is not None for c in concern]].assign(
+        _order=[SEVERITIES.index(c) for c in concern if c is not None]).sort_values(
+        "_order", kind="stable")
     at_zero = per_well["flags"].str.contains(f"{AT_ZERO}:").sum()
+    attention = attention_table(wells)
+    first = html.section(
+        "Wells that need attention",
+        html.table(attention) if len(attention) else
+        html.paragraph("No well has a doubtful result."))
     parts = [html.paragraph(
-        f"{len(per_well)} wells, {fitted} fitted, {len(flagged)} flagged; "
+        f"{len(per_well)} wells on the plate: {counts_text(wells)}; "
         f"{samples['sample'].nunique()} samples; concentrations in {unit}.")]
+    run_notes = run_note_sentences(result.attrs) if result is not None else []
+    if run_notes:
+        parts.append(html.paragraph("Run notes (hold for every well, said once):"))
+        parts.append(html.bullet_list(run_notes, kind="note"))
     parts += [html.paragraph(n, kind="note") for n in notes]
     maps = [html.figure(heat_map(wells, c, plate_size, unit),
                         f"Heat map of {c}: concentration per well ({unit}), dilution "
-                        "applied; grey = no result, × = flagged, b = blank, s = standard",
-                        alt=f"heat map of {c}")
+                        "applied; grey = no result, × = doubtful result, b = blank, "
+                        "s = standard", alt=f"heat map of {c}")
             for c in components]
-    sections = ["".join(parts), html.section("Concentration per well", *maps)]
+    sections = [first, "".join(parts), html.section("Concentration per well", *maps)]
     sections.append(html.section(
         "Samples", html.paragraph("Mean of the sample's wells ± standard uncertainty of the "
                                   "mean (see the settings for the rule)."),
         html.table(_samples_view(samples), digits=3) if len(samples) else
         html.paragraph("The layout lists no sample wells.")))
     listed = pd.DataFrame({"well": flagged["well"], "sample": flagged["sample"],
-                           "role": flagged["role"], "flags": flagged["flags"],
+                           "role": flagged["role"], "flags": flagged["flags"].map(order_flags),
                            "reasons": flagged["flags"].map(explain)})
     flag_parts = [html.table(listed) if len(listed) else
                   html.paragraph("No well is flagged beyond routine codes.")]

@@ -3,6 +3,9 @@
 :func:`plate_settings` and :func:`plate_notes` turn a
 :class:`mixsolve.plate.analysis.PlateResult` into display text, shown on the plate page,
 in the ``settings`` sheet of ``results.xlsx`` and in the summary ``mixsolve plate`` prints.
+:func:`attention_table` lists the wells with a doubtful result and why (the first thing the
+plate page and the printed summary show), :func:`well_concern` sorts a well into doubtful,
+worth a look or nothing, and :func:`well_counts` counts them.
 """
 
 from __future__ import annotations
@@ -10,14 +13,42 @@ from __future__ import annotations
 import json
 
 import numpy as np
+import pandas as pd
 import xarray as xr
 
 from mixsolve._version import __version__
-from mixsolve.flags import MARKER
+from mixsolve.flags import (
+    AT_ZERO,
+    BELOW_RANGE,
+    DOUBTFUL,
+    EMPTY_WELL,
+    FLAG_MEANINGS,
+    LOOK,
+    MARKER,
+    NEGATIVE,
+    NO_SIGNAL,
+    STATUS_CODES,
+    STRUCTURED,
+    by_severity,
+    severity_of,
+)
 from mixsolve.library import COMPONENT
 from mixsolve.plate.analysis import PlateResult
 from mixsolve.plate.wells import WELL
+from mixsolve.report.text import FLAG_ADVICE
 from mixsolve.spectra import WAVELENGTH
+
+#: Codes that never make a well worth listing: a component held at zero, a well empty in
+#: the layout. For blanks, a reading near zero is the point, so range, sign and shape codes
+#: are routine there too. (A well read but not in the layout, ``not_in_layout``, is worth a
+#: look, in case the layout is wrong; it has no result, so it is never crossed.)
+ROUTINE = (AT_ZERO, EMPTY_WELL)
+ROUTINE_BLANK = (*ROUTINE, STATUS_CODES[BELOW_RANGE], NEGATIVE, STATUS_CODES[STRUCTURED],
+                 STATUS_CODES[NO_SIGNAL])
+#: What to do about a plate code, beyond what :data:`mixsolve.report.text.FLAG_ADVICE` says.
+PLATE_ADVICE = {
+    MARKER: "dilute and read again (readings beside a saturated one are near the ceiling too)",
+}
 
 #: How the uncertainty of a sample's mean is found
 #: (:func:`mixsolve.plate.wells.replicate_statistics`).
@@ -138,3 +169,72 @@ def _trust_settings(result: xr.Dataset | None) -> str:
     if "wavelength_tolerance_nm" in attrs:
         parts.append(f"wavelength tolerance {attrs['wavelength_tolerance_nm']:g} nm")
     return ", ".join(parts)
+
+
+def concerns(flags: str, role: str = "sample") -> list[str]:
+    """A well's codes beyond the routine ones for its role, doubtful first."""
+    routine = ROUTINE_BLANK if role == "blank" else ROUTINE
+    return by_severity([c for c in str(flags).split(";")
+                        if c and c.partition(":")[0] not in routine])
+
+
+def well_concern(flags: str, role: str = "sample") -> str | None:
+    """``DOUBTFUL`` when a well has a doubtful code, ``LOOK`` when it has only codes worth a
+    look, None when it has none beyond the routine ones (:data:`ROUTINE`)."""
+    codes = concerns(flags, role)
+    if not codes:
+        return None
+    return DOUBTFUL if severity_of(codes[0]) == DOUBTFUL else LOOK
+
+
+def well_counts(wells: pd.DataFrame) -> tuple[int, int, int]:
+    """Wells fitted, wells with a doubtful result, wells worth a look (and not doubtful)."""
+    per_well = wells.drop_duplicates("well")
+    kinds = [well_concern(f, r) for f, r in zip(per_well["flags"], per_well["role"],
+                                                strict=True)]
+    return (int(per_well["rms_residual_au"].notna().sum()), kinds.count(DOUBTFUL),
+            kinds.count(LOOK))
+
+
+def counts_text(wells: pd.DataFrame) -> str:
+    """"53 wells fitted, 1 doubtful, 11 worth a look" (doubtful counted apart)."""
+    fitted, doubtful, look = well_counts(wells)
+    return f"{fitted} wells fitted, {doubtful} doubtful, {look} worth a look"
+
+
+def meaning_and_fix(code: str) -> str:
+    """One code's meaning (:data:`mixsolve.flags.FLAG_MEANINGS`) and what to do about it."""
+    base, _, detail = code.partition(":")
+    text = FLAG_MEANINGS.get(base, base) + (f" ({detail})" if detail else "")
+    fix = PLATE_ADVICE.get(base) or FLAG_ADVICE.get(base)
+    return text + (f"; {fix}" if fix else "")
+
+
+def attention_table(wells: pd.DataFrame) -> pd.DataFrame:
+    """The wells whose result is doubtful, and why: columns ``well, sample, code,
+    meaning and fix`` (one row per doubtful code; samples named, other roles in brackets)."""
+    per_well = wells.drop_duplicates("well")
+    rows = []
+    for well, sample, role, flags in per_well[["well", "sample", "role", "flags"]].itertuples(
+            index=False):
+        for code in concerns(flags, role):
+            if severity_of(code) == DOUBTFUL:
+                rows.append((well, sample if role == "sample" and sample else f"({role})",
+                             code, meaning_and_fix(code)))
+    return pd.DataFrame(rows, columns=["well", "sample", "code", "meaning and fix"])
+
+
+def attention_lines(wells: pd.DataFrame, indent: str = "  ") -> list[str]:
+    """:func:`attention_table` as aligned text lines (a line saying none when empty)."""
+    table = attention_table(wells)
+    if not len(table):
+        return [f"{indent}No well has a doubtful result."]
+    w_well = max(4, *(len(w) for w in table["well"])) + 2
+    w_sample = max(6, *(len(s) for s in table["sample"])) + 2
+    w_code = max(4, *(len(c) for c in table["code"])) + 2
+    lines = [f"{indent}Wells that need attention (doubtful results):",
+             f"{indent}{'well':<{w_well}}{'sample':<{w_sample}}{'code':<{w_code}}why, and "
+             "what to do"]
+    lines += [f"{indent}{w:<{w_well}}{s:<{w_sample}}{c:<{w_code}}{m}"
+              for w, s, c, m in table.itertuples(index=False)]
+    return lines

@@ -17,9 +17,16 @@ from mixsolve.flags import (
     LACK_OF_FIT,
     NO_DOF,
     NO_SIGNAL,
+    SATURATED,
     SHIFT_SENSITIVE,
+    SHIFTED,
     STATUS_CODES,
     STRUCTURED,
+    RunNote,
+    by_severity,
+    order_flags,
+    run_notes_of,
+    severity_of,
 )
 from mixsolve.library import COMPONENT
 from mixsolve.library_error import error_patterns, pattern_counts
@@ -57,6 +64,24 @@ def value_with_uncertainty(value: float, u: float) -> str:
         return f"({text})e{exponent:+03d}" if exponent else text
     text = f"{value:.{decimals}f} ± {u:.{decimals}f}"
     return f"({text})e{exponent:+03d}" if exponent else text
+
+
+def run_note_lines(attrs: Any, indent: str = "  ") -> list[str]:
+    """The run notes of a result (:func:`mixsolve.flags.run_notes_of`), one entry each with
+    its size and fix, for the header of a report; an empty list when there are none.
+
+    Any note is shown the same way (its code, text and fix), whoever added it.
+    """
+    return [indent + line for note in run_notes_of(attrs) for line in _run_note_text(note)]
+
+
+def _run_note_text(note: RunNote) -> list[str]:
+    return [f"[{note.code}] {note.text}.", f"  fix: {note.fix}."]
+
+
+def run_note_sentences(attrs: Any) -> list[str]:
+    """Each run note as one sentence: "text; fix (code, severity)" (HTML and plate pages)."""
+    return [f"{note.text}; {note.fix} [{note.code}]" for note in run_notes_of(attrs)]
 
 
 def _notes(lines: list[str]) -> list[str]:
@@ -108,6 +133,9 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
                      f"{result.attrs['u_stray_fraction']:g}"
                      + (f" (from the noise model {noise['name']!r})"
                         if noise.get("stray") else ""))
+    notes = run_note_lines(result.attrs)
+    if notes:
+        lines += ["", "Run notes (hold for every sample of this run, said once):", *notes]
     lines.append("")
     name_w = max(8, *(len(s) for s in samples)) + 2
     cell_w = max(26 if truth is None else 34, *(len(c) + 2 for c in comps))
@@ -115,7 +143,8 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
     lines.append(head + f"{'rms AU':>9}  flags")
     conc = result["concentration"].transpose("sample", COMPONENT).values
     u = result["std_uncertainty"].transpose("sample", COMPONENT).values
-    flags = result["flags"].values if "flags" in result else [""] * len(samples)
+    flags = [order_flags(f) for f in result["flags"].values] if "flags" in result else \
+        [""] * len(samples)
     for i, s in enumerate(samples):
         cells = []
         for k, c in enumerate(comps):
@@ -146,7 +175,11 @@ FLAG_ADVICE: dict[str, str] = {
                           "wavelengths",
     STATUS_CODES[LACK_OF_FIT]: "an unmodelled absorber, scatter, a wrong library or a wrong "
                                "noise model",
-    STATUS_CODES[ILL_CONDITIONED]: "choose better wavelengths",
+    STATUS_CODES[ILL_CONDITIONED]: "its missing readings left too few good wavelengths; "
+                                   "re-measure the sample",
+    STATUS_CODES[SATURATED]: "dilute or use a shorter cell and measure again",
+    STATUS_CODES[SHIFTED]: "the fit corrected it; check the wavelength scale (mixsolve "
+                           "instrument wavelength)",
     STATUS_CODES[STRUCTURED]: "look at the residual spectrum",
     STATUS_CODES[NO_SIGNAL]: "an empty column, a failed export or a blank subtracted from "
                              "itself; measure the sample",
@@ -168,13 +201,12 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
     detail = {
         STATUS_CODES[ABOVE_RANGE]: f"{result.attrs.get('absorbance_range', '')} AU",
         STATUS_CODES[BELOW_RANGE]: f"{result.attrs.get('absorbance_range', '')} AU",
-        STATUS_CODES[ILL_CONDITIONED]: "scaled condition number "
-                                       f"{result.attrs.get('condition_number', 0):.3g}",
         SHIFT_SENSITIVE: f"wavelength tolerance {result.attrs.get('wavelength_tolerance_nm', '')}"
                          " nm",
     }
     dilution = result["suggested_dilution"].values if "suggested_dilution" in result else None
-    for code, who in by_code.items():
+    for code in by_severity(list(by_code)):
+        who = by_code[code]
         base, _, comp = code.partition(":")
         names = ", ".join(who[:6]) + (f" and {len(who) - 6} more" if len(who) > 6 else "")
         text = (f"{comp!r}: " if comp else "") + FLAG_MEANINGS.get(base, base)
@@ -186,7 +218,7 @@ def _result_notes(result: xr.Dataset, samples: list[str], left_out: list[float])
             verb = "dilute" if base == ranged[0] else "concentrate (or longer cell)"
             text += "; " + verb + " about " + ", ".join(
                 _fold(f) for f in factors)
-        notes.append(f"{names}: {text} [{code}].")
+        notes.append(f"{names}: {text} [{code}, {severity_of(code)}].")
     return notes
 
 

@@ -12,7 +12,7 @@ from mixsolve.report import html
 from mixsolve.report.budget_text import format_budget
 from mixsolve.report.figures import library_figure, precision_figure, sample_figure
 from mixsolve.report.tables import results_table
-from mixsolve.report.text import _result_notes
+from mixsolve.report.text import _result_notes, run_note_sentences
 from mixsolve.uncertainty.budget import budget_table
 
 #: Most sample figures drawn; beyond this the worst fits (largest RMS residual) are shown.
@@ -37,7 +37,8 @@ def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "",
     Returns
     -------
     str
-        A self-contained HTML page: settings, the results table, numbered notes, the
+        A self-contained HTML page: settings, the run notes (once, with size and fix),
+        the results table (flags doubtful first), numbered notes, the
         library figure, measured/fitted/residual spectra per sample (at most
         ``MAX_SAMPLE_FIGURES``, the worst fits first when there are more), the predicted
         relative error against absorbance, and the cautions.
@@ -74,8 +75,13 @@ def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "",
                       "largest RMS residual.")
     figures = [html.figure(sample_figure(result, samples[i]), samples[i]) for i in order]
     table = results_table(result)
+    run_notes = run_note_sentences(result.attrs)
     sections = [
         html.section("Settings", html.key_values(settings)),
+        *([html.section("Run notes", html.paragraph(
+            "These hold for every sample of the run (the design, not one measurement) and "
+            "are said once here, each with its size and what to do."),
+            html.bullet_list(run_notes, kind="note"))] if run_notes else []),
         html.section("Results", html.table(table, digits=5)),
         html.section("Notes", html.bullet_list(notes, kind="note") if notes
                      else html.paragraph("Nothing doubtful was found by the checks run.")),

@@ -9,7 +9,7 @@ import numpy as np
 import xarray as xr
 
 from mixsolve.library import COMPONENT
-from mixsolve.report.text import format_results
+from mixsolve.report.text import format_results, run_note_lines
 
 #: Largest result printed as a full table by :func:`format_unmix` (more: a summary).
 TABLE_MOST_SPECTRA = 500
@@ -59,6 +59,8 @@ def format_cube_summary(result: xr.Dataset) -> str:
         f"  wavelengths   {len(used)} used"
         + (f", {min(used):g}-{max(used):g} nm" if used else ""),
         f"  unit          {unit}",
+        *(["", "Run notes (hold for every spectrum of this run, said once):",
+           *run_note_lines(result.attrs)] if run_note_lines(result.attrs) else []),
         "",
         f"{'component':<16}{'median':>12}{'5th pct':>12}{'95th pct':>12}{'at zero':>10}",
     ]

@@ -25,8 +25,13 @@ from mixsolve.io.outputs import all_or_nothing, check_own_files, guard_outputs, 
 from mixsolve.io.plates import read_plate
 from mixsolve.io.results_io import record_outputs, write_table, write_text, write_workbook
 from mixsolve.plate.analysis import PlateResult, analyse_plate
-from mixsolve.report.plate_text import plate_notes, plate_settings
-from mixsolve.report.text import CAUTION
+from mixsolve.report.plate_text import (
+    attention_lines,
+    counts_text,
+    plate_notes,
+    plate_settings,
+)
+from mixsolve.report.text import CAUTION, run_note_lines
 from mixsolve.spectra import Quantity
 
 PathLike = str | os.PathLike[str]
@@ -205,6 +210,11 @@ def _run_plates(paths: list[Path], names: list[str], own: list[str], layout: Pat
     lines = []
     for result, sub in zip(plates, folders, strict=True):
         lines.append(f"{_summary(result)} -> {sub}")
+        lines += attention_lines(result.wells)  # first: the wells that need attention
+        notes = (run_note_lines(result.result.attrs, indent="    ")
+                 if result.result is not None else [])
+        if notes:
+            lines += ["  Run notes (hold for every well, said once):", *notes]
         lines += [f"  note: {note}" for note in plate_notes(result)]
     lines += [f"Wrote {folder / COMBINED}: {combined['sample'].nunique()} samples from "
               f"{len(plates)} plate(s).", CAUTION, ""]
@@ -212,14 +222,8 @@ def _run_plates(paths: list[Path], names: list[str], own: list[str], layout: Pat
 
 
 def _summary(result: PlateResult) -> str:
-    from mixsolve.report.plate_page import noteworthy
-
-    per_well = result.wells.drop_duplicates("well")
-    flagged = [noteworthy(f, r) for f, r in zip(per_well["flags"], per_well["role"],
-                                                strict=True)]
     return (f"{result.name}: {result.plate.attrs.get('layout', '')}, {result.plate_size}-well; "
-            f"{per_well['rms_residual_au'].notna().sum()} wells fitted, {sum(flagged)} "
-            f"flagged; {result.samples['sample'].nunique()} samples")
+            f"{counts_text(result.wells)}; {result.samples['sample'].nunique()} samples")
 
 
 def _write_plate(sub: Path, result: PlateResult, page: str, with_library: bool) -> None:
