@@ -261,3 +261,22 @@ def test_cli_bandwidth(cli, tmp_path) -> None:
     assert "library broadened from 1 to the spectra's 4 nm" in out.output
     bad = cli("unmix", str(tmp_path / "lib.nc"), str(tmp_path / "s.csv"), "--bandwidth-nm", "0")
     assert_cli_error(bad, r"--bandwidth-nm: 0 nm is not a positive number")
+
+
+def test_plate_passes_the_bandwidth_and_fits_inside_the_broadened_range(tmp_path) -> None:
+    """analyse_plate(bandwidth_nm=) reaches unmix: the invented 2 nm library on its 10 nm
+    grid is broadened to 6 nm (triangle √32 nm), and the plate's automatic window keeps
+    inside the shrunk range (405.7–694.3 nm) instead of being refused."""
+    from helpers_io import make_library
+    from helpers_plate import write_layout, write_scenario
+
+    import mixsolve as ms
+
+    path = write_scenario(tmp_path)
+    layout = ms.read_layout(write_layout(tmp_path / "layout.csv"))
+    done = ms.analyse_plate(ms.read_plate(path), layout, make_library(), pathlength_cm=0.5,
+                            bandwidth_nm=6.0)
+    assert done.result is not None
+    assert done.result.attrs["library_broadened_nm"] == pytest.approx(np.sqrt(32.0))
+    used = json.loads(done.result.attrs["wavelengths_nm"])
+    assert min(used) == 410 and max(used) == 690
