@@ -280,3 +280,16 @@ def test_plate_passes_the_bandwidth_and_fits_inside_the_broadened_range(tmp_path
     assert done.result.attrs["library_broadened_nm"] == pytest.approx(np.sqrt(32.0))
     used = json.loads(done.result.attrs["wavelengths_nm"])
     assert min(used) == 410 and max(used) == 690
+
+
+def test_lazy_result_predicts_at_equal_peak_absorbances() -> None:
+    """A dask-backed run computes nothing for the note: the bias is predicted at equal
+    peak absorbances of the components, and the note says so; broadening works lazily."""
+    spectra, conc = mixtures(4.0, 20, seed=11)
+    lazy = spectra.chunk({"sample": 10})
+    result = quiet_unmix(lazy, library_at(4.0), window=(400, 700), bandwidth_nm=1.0)
+    note, = run_notes_of(result.attrs)
+    assert "(predicted at equal peak absorbances of the components)" in note.text
+    broadened = quiet_unmix(lazy, library_at(1.0), window=(400, 700), bandwidth_nm=4.0)
+    rel = broadened["concentration"].values / conc - 1
+    assert np.all(np.abs(rel.mean(axis=0)) < 0.001)
