@@ -111,6 +111,11 @@ def triangle_weights(grid_nm: np.ndarray, fwhm_nm: float,
     first = np.searchsorted(grid, at - w, side="right")
     last = np.searchsorted(grid, at + w, side="left")
     most = int(np.max(last - first, initial=0))
+    rows_per_block = max(1, BLOCK_NODES // (most + 3))  # bounded memory on fine grids
+    if at.size > rows_per_block:
+        return scipy.sparse.vstack(
+            [triangle_weights(grid, w, at[i:i + rows_per_block])
+             for i in range(0, at.size, rows_per_block)], format="csr")
     inner = first[:, None] + np.arange(most)[None, :]
     inside = inner < last[:, None]
     inner_nm = np.where(inside, grid[np.minimum(inner, grid.size - 1)], (at + w)[:, None])
@@ -128,6 +133,8 @@ def triangle_weights(grid_nm: np.ndarray, fwhm_nm: float,
                                    shape=(at.size, grid.size))
 
 
+#: Most quadrature pieces built at once by :func:`triangle_weights` (memory bound).
+BLOCK_NODES = 200_000
 #: Three-point Gauss-Legendre rule on [-1, 1], exact for polynomials up to degree 5
 #: (numpy.polynomial.legendre.leggauss; nodes 0 and ±√(3/5), weights 8/9 and 5/9).
 GAUSS_NODES, GAUSS_WEIGHTS = np.polynomial.legendre.leggauss(3)

@@ -293,3 +293,14 @@ def test_lazy_result_predicts_at_equal_peak_absorbances() -> None:
     broadened = quiet_unmix(lazy, library_at(1.0), window=(400, 700), bandwidth_nm=4.0)
     rel = broadened["concentration"].values / conc - 1
     assert np.all(np.abs(rel.mean(axis=0)) < 0.001)
+
+
+def test_weights_built_in_blocks_are_the_same(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The memory bound (rows built block by block on fine grids) changes nothing."""
+    import mixsolve.slit as slit
+
+    grid = np.arange(400.0, 500.0, 1.0)
+    whole = convolve_triangle(np.sin(grid / 7)[None], grid, 3.0)[0]
+    monkeypatch.setattr(slit, "BLOCK_NODES", 50)
+    np.testing.assert_array_equal(convolve_triangle(np.sin(grid / 7)[None], grid, 3.0)[0],
+                                  whole)
