@@ -304,3 +304,13 @@ def test_weights_built_in_blocks_are_the_same(monkeypatch: pytest.MonkeyPatch) -
     monkeypatch.setattr(slit, "BLOCK_NODES", 50)
     np.testing.assert_array_equal(convolve_triangle(np.sin(grid / 7)[None], grid, 3.0)[0],
                                   whole)
+
+
+def test_bad_wavelengths_with_a_bandwidth_keep_their_own_refusal() -> None:
+    """A selection that is not numbers is refused where selections are checked, not by
+    the bandwidth's range check."""
+    spectra, _ = mixtures(4.0, 2, seed=8)
+    with pytest.raises(InputError, match=r"wavelengths"):
+        unmix(spectra, library_at(1.0), wavelengths=["a", "b"], bandwidth_nm=4.0)
+    with pytest.raises(InputError, match=r"^bandwidth_nm: .* covers 383.873-766.127 nm"):
+        unmix(spectra, library_at(1.0), wavelengths=[381, 500, 600], bandwidth_nm=4.0)

@@ -343,12 +343,15 @@ def _bandwidth(library: xr.Dataset, bandwidth_nm: Any, window: tuple[float, floa
         return _Bandwidth(stated, own, 0.0, library)
     width = extra_fwhm(stated, own)
     low, high = fitted_range(library, stated)
-    chosen = list(window) if window is not None else (
-        [min(wavelengths), max(wavelengths)] if wavelengths is not None and len(wavelengths)
-        else [])
+    try:
+        chosen = np.asarray(window if window is not None else
+                            [] if wavelengths is None else wavelengths, dtype=float).ravel()
+    except (TypeError, ValueError):  # refused with its reason where the selection is checked
+        chosen = np.empty(0)
+    chosen = chosen[np.isfinite(chosen)]
     grid = library[WAVELENGTH].values
-    if chosen and low <= high and (min(chosen) < low - 1e-9 or max(chosen) > high + 1e-9) \
-            and grid[0] <= min(chosen) and max(chosen) <= grid[-1]:
+    if chosen.size and low <= high and (chosen.min() < low - 1e-9 or chosen.max() > high + 1e-9) \
+            and grid[0] <= chosen.min() and chosen.max() <= grid[-1]:
         raise InputError(
             f"bandwidth_nm: broadening the library from {own:g} to {stated:g} nm (a "
             f"{width:.3g} nm triangle) uses {width:.3g} nm of it at each end, so it covers "
