@@ -314,3 +314,22 @@ def test_bad_wavelengths_with_a_bandwidth_keep_their_own_refusal() -> None:
         unmix(spectra, library_at(1.0), wavelengths=["a", "b"], bandwidth_nm=4.0)
     with pytest.raises(InputError, match=r"^bandwidth_nm: .* covers 383.873-766.127 nm"):
         unmix(spectra, library_at(1.0), wavelengths=[381, 500, 600], bandwidth_nm=4.0)
+
+
+def test_cli_plate_bandwidth(cli, tmp_path) -> None:
+    """mixsolve plate --bandwidth-nm reaches the fit (a bad value names the flag)."""
+    from helpers_cli import assert_cli_error
+    from helpers_io import write_library_file
+    from helpers_plate import write_layout, write_scenario
+
+    export = write_scenario(tmp_path)
+    layout = write_layout(tmp_path / "layout.csv")
+    lib = write_library_file(tmp_path / "lib.nc")
+    args = ("plate", str(export), "--layout", str(layout), "--library", str(lib),
+            "--pathlength", "0.5")
+    cli.ok(*args, "--out", str(tmp_path / "out"), "--bandwidth-nm", "6")
+    assert_cli_error(cli(*args, "--out", str(tmp_path / "bad"), "--bandwidth-nm", "-2"),
+                     r"--bandwidth-nm: -2 nm is not a positive number")
+    assert_cli_error(cli(*args, "--out", str(tmp_path / "wide"), "--bandwidth-nm", "200"),
+                     r"--bandwidth-nm: broadening the library \(400-700 nm\) from 2 to 200 nm "
+                     r"needs 200 nm of data beyond each used wavelength, which leaves none")
