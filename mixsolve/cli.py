@@ -463,6 +463,12 @@ stray_options = [
                  "propagated to u_stray [stray/√3]."),
 ]
 
+#: The spectra's spectral bandpass (unmix and plate; docs/method.md "Spectral bandwidth").
+spectra_bandwidth_option = click.option(
+    "--bandwidth-nm", "bandwidth_nm", type=float,
+    help="Spectral bandpass (FWHM, nm) the spectra were read with; a narrower library is "
+    "broadened to it with a triangular slit function before the fit.")
+
 #: Options of ``unmix`` beyond the fit: corrections and the uncertainty budget
 #: (mixsolve.workflows.measurement.MeasurementOptions; docs/uncertainty.md).
 measurement_options = [
@@ -722,6 +728,7 @@ def library_show(library_file: str) -> None:
 @click.option("--scheduler", help="Run on this dask.distributed scheduler (tcp://HOST:PORT).")
 @click.option("--workers", type=int, help="Run on a local dask cluster of N worker processes.")
 @quantity_option
+@spectra_bandwidth_option
 @add_options(measurement_options)
 def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
           wavelengths: list[float] | None, method: str, baseline: str,
@@ -729,7 +736,7 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
           absorbance_range: tuple[float, float], fit_shift: bool,
           max_shift: float, wavelength_tolerance: float, out: str | None,
           report: str | None, scheduler: str | None, workers: int | None,
-          quantity: str | None, **measurement: Any) -> None:
+          quantity: str | None, bandwidth_nm: float | None, **measurement: Any) -> None:
     """Resolve SPECTRA into concentrations with the library (or PLS model) LIBRARY_FILE.
 
     SPECTRA is a table, or a .zarr/.nc cube (any dims besides wavelength, run chunk by
@@ -748,7 +755,8 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
                          wavelength_tolerance_nm=wavelength_tolerance,
                          stray_fraction=measurement.pop("stray"),
                          u_stray_fraction=measurement.pop("u_stray"),
-                         measurement=measurement, scheduler=scheduler, workers=workers,
+                         bandwidth_nm=bandwidth_nm, measurement=measurement,
+                         scheduler=scheduler, workers=workers,
                          progress=sys.stderr, quantity=quantity)  # type: ignore[arg-type]
     click.echo(format_unmix(result) + budget_text(result), nl=False)
     if out:
@@ -937,6 +945,7 @@ class PlateProgress:
 @quantity_option
 @add_options(noise_options)
 @add_options(stray_options)
+@spectra_bandwidth_option
 def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
           library_from_plate: bool, out_dir: str, window: tuple[float, float] | None,
           wavelengths: list[float] | None,
@@ -945,7 +954,7 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
           water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
           plate_size: int | None, quantity: str | None, weights: str,
           noise: str | float | None, absorbance_range: tuple[float, float],
-          stray: float | None, u_stray: float | None) -> None:
+          stray: float | None, u_stray: float | None, bandwidth_nm: float | None) -> None:
     """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample."""
     from mixsolve.workflows.plate import run_plates
 
@@ -959,7 +968,8 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
             method=method, baseline=baseline, unit=unit, pathlength_cm=pathlength,
             volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
             water_k_au_per_cm=water_k, max_cv=max_cv, weights=weights, noise=noise,
-            absorbance_range=absorbance_range, stray_fraction=stray, u_stray_fraction=u_stray)
+            absorbance_range=absorbance_range, stray_fraction=stray, u_stray_fraction=u_stray,
+            bandwidth_nm=bandwidth_nm)
     finally:
         progress.close()
     click.echo(batch.text, nl=False)

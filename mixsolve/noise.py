@@ -146,6 +146,18 @@ PRESETS: dict[str, NoiseModel] = {
                                    name="field_photometer"),
 }
 
+#: Typical spectral bandpass (FWHM, nm) of each preset's instrument class, **from memory**
+#: (common practice: benchtop scanning instruments 1-2 nm, diode arrays about 1-2 nm,
+#: monochromator plate readers several nm, filter photometers about 10 nm). Used only to
+#: say what an unstated bandwidth may cost (:mod:`mixsolve.slit`); state ``bandwidth_nm``
+#: for the instrument at hand.
+TYPICAL_BANDWIDTH_NM: dict[str, float] = {
+    "benchtop_double_beam": 1.0,
+    "diode_array": 2.0,
+    "microplate": 5.0,
+    "field_photometer": 10.0,
+}
+
 
 def check_noise_sd(sigma_au: object, name: str = "noise") -> float:
     """A constant absorbance noise σ_A (AU), as float.

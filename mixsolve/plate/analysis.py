@@ -48,6 +48,7 @@ from mixsolve.plate.wells import (
     subtract_blank,
     water_band_pathlength,
 )
+from mixsolve.slit import fitted_range
 from mixsolve.solve.design import Baseline
 from mixsolve.solve.engine import Method
 from mixsolve.solve.unmix import unmix
@@ -194,8 +195,9 @@ def analyse_plate(
         ``high_cv``.
     **fit_options
         Passed to :func:`mixsolve.unmix` (``weights``, ``noise``, ``absorbance_range``,
-        ``fit_shift``, ``max_shift_nm``, ``wavelength_tolerance_nm``): its trust checks
-        flag each well.
+        ``fit_shift``, ``max_shift_nm``, ``wavelength_tolerance_nm``, ``bandwidth_nm``, the
+        reader's bandpass to which a narrower library is broadened): its trust checks flag
+        each well.
 
     Returns
     -------
@@ -251,7 +253,8 @@ def analyse_plate(
         library = _plate_library(corrected, layout, fitted, b, layout_name, source)
     library = check_library(library)
     if window is None and wavelengths is None:
-        window = _overlap(plate[WAVELENGTH].values, library[WAVELENGTH].values)
+        window = _overlap(plate[WAVELENGTH].values,  # the broadened library's range
+                          np.asarray(fitted_range(library, fit_options.get("bandwidth_nm"))))
     fit_wells = [w for w in fitted if np.isfinite(b[w])]
     result = unconstrained = None
     if fit_wells:

@@ -133,6 +133,10 @@ def format_results(result: xr.Dataset, truth: pd.DataFrame | None = None) -> str
                      f"{result.attrs['u_stray_fraction']:g}"
                      + (f" (from the noise model {noise['name']!r})"
                         if noise.get("stray") else ""))
+    if float(result.attrs.get("library_broadened_nm", 0.0) or 0.0) > 0:
+        lines.append(f"  bandwidth     library broadened from "
+                     f"{result.attrs['library_bandwidth_nm']:g} to the spectra's "
+                     f"{result.attrs['bandwidth_nm']:g} nm (triangular slit)")
     notes = run_note_lines(result.attrs)
     if notes:
         lines += ["", "Run notes (hold for every sample of this run, said once):", *notes]

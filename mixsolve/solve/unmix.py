@@ -27,7 +27,21 @@ from mixsolve.library_error import (
     pattern_counts,
     patterns_at,
 )
-from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, PRESETS, NoiseModel, noise_model
+from mixsolve.noise import (
+    DEFAULT_ABSORBANCE_RANGE,
+    PRESETS,
+    TYPICAL_BANDWIDTH_NM,
+    NoiseModel,
+    noise_model,
+)
+from mixsolve.slit import (
+    assumed_bandwidth,
+    broaden_library,
+    extra_fwhm,
+    fitted_range,
+    mismatch_bias,
+    mismatch_note,
+)
 from mixsolve.solve.block import (
     BlockSettings,
     FitKind,
@@ -102,6 +116,7 @@ def unmix(
     wavelength_tolerance_nm: float = DEFAULT_WAVELENGTH_TOLERANCE_NM,
     stray_fraction: float | None = None,
     u_stray_fraction: float | None = None,
+    bandwidth_nm: float | None = None,
 ) -> xr.Dataset:
     """Resolve absorbance spectra into component concentrations by classical least squares.
 
@@ -162,6 +177,14 @@ def unmix(
         Standard uncertainty u(s) of the stated fraction, propagated to ``u_stray``;
         default s/√3 (s the middle of a rectangular distribution from 0 to 2s). Needs a
         stated fraction, and below 0.1 (readings with T ≤ 10·u(s) are too dark).
+    bandwidth_nm : float, optional
+        The spectra's spectral bandpass (FWHM, nm). When it is wider than the library's
+        ``attrs["bandwidth_nm"]`` b, the library (absorptivities and error patterns) is first
+        convolved with a triangular slit function of FWHM √(X² − b²) (:mod:`mixsolve.slit`),
+        which shortens its range by that much at each end. A library of unknown or wider
+        bandwidth, or a library's bandwidth without this one, gives the run note
+        ``bandwidth_mismatch`` with the predicted bias per component (docs/method.md,
+        "Spectral bandwidth").
 
     Returns
     -------
@@ -222,7 +245,8 @@ def unmix(
         baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, weights=weights,
         noise=noise, absorbance_range=absorbance_range, fit_shift=fit_shift,
         max_shift_nm=max_shift_nm, wavelength_tolerance_nm=wavelength_tolerance_nm,
-        stray_fraction=stray_fraction, u_stray_fraction=u_stray_fraction)
+        stray_fraction=stray_fraction, u_stray_fraction=u_stray_fraction,
+        bandwidth_nm=bandwidth_nm)
     plan = _plan(options)
     return _result(options, plan, _run_kernel(options, plan))
 
@@ -250,13 +274,25 @@ class _Options:
     max_shift_nm: float
     tolerance_nm: float
     stray: StrayCorrection | None = None  #: the stated stray fraction, when above 0
+    bandwidth: _Bandwidth | None = None  #: the bandpasses and any broadening of the library
+
+
+@dataclass(frozen=True, eq=False)
+class _Bandwidth:
+    """The spectra's and the library's bandpasses and what was done about them."""
+
+    stated_nm: float | None  #: the spectra's, as given (None: not stated)
+    library_nm: float  #: the library's own (NaN: not stated)
+    broadened_nm: float  #: FWHM of the triangle the library was convolved with (0: none)
+    original: xr.Dataset  #: the library as given
 
 
 def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
                    method: Any, baseline: Any, pathlength_cm: Any, unit: str | None,
                    weights: Any, noise: Any, absorbance_range: Any, fit_shift: bool,
                    max_shift_nm: Any, wavelength_tolerance_nm: Any,
-                   stray_fraction: Any = None, u_stray_fraction: Any = None) -> _Options:
+                   stray_fraction: Any = None, u_stray_fraction: Any = None,
+                   bandwidth_nm: Any = None) -> _Options:
     """Check every option of :func:`unmix` (the public boundary: the spectra are checked
     here once, their values by the solver as it reads them)."""
     spectra = check_spectra(spectra, scan_values=False)
@@ -289,10 +325,46 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
             raise InputError(
                 "spectra: the wavelength dimension spans several dask chunks; rechunk with "
                 "spectra.chunk({'wavelength': -1})")
-    return _Options(spectra, library, window, wavelengths, method, baseline,
-                    _pathlength(spectra, pathlength_cm), unit, weights, model, (low, high),
-                    bool(fit_shift), max_shift, tolerance,
-                    _stray(model, stray_fraction, u_stray_fraction))
+    bandwidth = _bandwidth(library, bandwidth_nm, window, wavelengths)
+    return _Options(spectra, _fitted_library(bandwidth), window, wavelengths, method,
+                    baseline, _pathlength(spectra, pathlength_cm), unit, weights, model,
+                    (low, high), bool(fit_shift), max_shift, tolerance,
+                    _stray(model, stray_fraction, u_stray_fraction), bandwidth)
+
+
+def _bandwidth(library: xr.Dataset, bandwidth_nm: Any, window: tuple[float, float] | None,
+               wavelengths: Any) -> _Bandwidth:
+    """The bandpasses, and the broadening the library needs (a stated selection must lie
+    within the broadened library's range)."""
+    own = float(library.attrs.get("bandwidth_nm", np.nan))
+    if bandwidth_nm is None:
+        return _Bandwidth(None, own, 0.0, library)
+    stated = check_number(bandwidth_nm, "bandwidth_nm", "nm", positive=True)
+    if not (np.isfinite(own) and stated > own):
+        return _Bandwidth(stated, own, 0.0, library)
+    width = extra_fwhm(stated, own)
+    low, high = fitted_range(library, stated)
+    try:
+        chosen = np.asarray(window if window is not None else
+                            [] if wavelengths is None else wavelengths, dtype=float).ravel()
+    except (TypeError, ValueError):  # refused with its reason where the selection is checked
+        chosen = np.empty(0)
+    chosen = chosen[np.isfinite(chosen)]
+    grid = library[WAVELENGTH].values
+    if chosen.size and low <= high and (chosen.min() < low - 1e-9 or chosen.max() > high + 1e-9) \
+            and grid[0] <= chosen.min() and chosen.max() <= grid[-1]:
+        raise InputError(
+            f"bandwidth_nm: broadening the library from {own:g} to {stated:g} nm (a "
+            f"{width:.3g} nm triangle) uses {width:.3g} nm of it at each end, so it covers "
+            f"{low:g}-{high:g} nm; keep the selection within that range")
+    return _Bandwidth(stated, own, width, library)
+
+
+def _fitted_library(bandwidth: _Bandwidth) -> xr.Dataset:
+    """The library the fit uses: broadened to the spectra's bandpass when that is wider."""
+    if bandwidth.broadened_nm > 0 and bandwidth.stated_nm is not None:
+        return broaden_library(bandwidth.original, bandwidth.stated_nm)
+    return bandwidth.original
 
 
 def _stray(model: NoiseModel | None, stray_fraction: Any, u_stray_fraction: Any
@@ -478,9 +550,12 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
             "fit_shift": int(options.fit_shift),
             "wavelength_tolerance_nm": options.tolerance_nm,
             **_stray_attrs(options.stray),
+            **_bandwidth_attrs(options.bandwidth),
         },
     )
-    add_run_notes(result.attrs, _run_notes(options, plan, result))
+    note = _bandwidth_note(options, plan, result)
+    add_run_notes(result.attrs, _run_notes(options, plan, result)
+                  + ([] if note is None else [note]))
     # Variables derived from the spectra inherit their attributes; a concentration is not an
     # "absorbance" from "samples.csv": keep only what describes the variable itself.
     for var in result.variables.values():
@@ -541,6 +616,56 @@ def _stray_attrs(stray: StrayCorrection | None) -> dict[str, Any]:
         return {"stray_fraction": 0.0, "u_stray_fraction": 0.0, "stray_correction": ""}
     return {"stray_fraction": stray.fraction, "u_stray_fraction": stray.u_fraction,
             "stray_correction": stray.describe()}
+
+
+def _bandwidth_attrs(bandwidth: _Bandwidth | None) -> dict[str, float]:
+    """The record of the bandpasses (nm; NaN not stated) and of the library's broadening
+    (FWHM of the triangle applied, 0 when none)."""
+    if bandwidth is None:
+        return {}
+    stated = np.nan if bandwidth.stated_nm is None else bandwidth.stated_nm
+    return {"bandwidth_nm": stated, "library_bandwidth_nm": bandwidth.library_nm,
+            "library_broadened_nm": bandwidth.broadened_nm}
+
+
+def _bandwidth_note(options: _Options, plan: _Plan, result: xr.Dataset) -> RunNote | None:
+    """The ``bandwidth_mismatch`` run note, or None when the bandpasses match or the
+    library was broadened to the spectra's (docs/method.md, "Spectral bandwidth")."""
+    record = options.bandwidth
+    if record is None or record.broadened_nm > 0:
+        return None
+    own, stated = record.library_nm, record.stated_nm
+    typical = None if options.noise is None else TYPICAL_BANDWIDTH_NM.get(options.noise.name)
+    spectra = stated if stated is not None else assumed_bandwidth(own, typical)
+    if spectra is None or spectra == own:
+        return None
+    wider = not np.isfinite(own) or spectra > own
+    width = spectra if not np.isfinite(own) else extra_fwhm(max(spectra, own),
+                                                            min(spectra, own))
+    library = record.original
+    eps = library["absorptivity"].transpose(COMPONENT, WAVELENGTH).values
+    n = eps.shape[0]
+    conc = result["concentration"]
+    u_rel = None
+    if conc.chunks is None:  # eager: the run's median result
+        others = [d for d in conc.dims if d != COMPONENT]
+        coef = (conc * result["pathlength_cm"] / result["unit_factor"]).median(others)
+        coef = coef.transpose(COMPONENT).values
+        median_c = np.abs(conc.median(others).transpose(COMPONENT).values)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            u_rel = result["std_uncertainty"].median(others).transpose(
+                COMPONENT).values / median_c
+        basis = "the run's median result"
+    else:  # lazy: equal peak absorbances, nothing computed
+        peak = np.abs(plan.settings.design[:, :n]).max(axis=0)
+        coef = np.where(peak > 0, 1.0 / (n * np.where(peak > 0, peak, 1.0)), 0.0)
+        basis = "equal peak absorbances of the components"
+    bias = mismatch_bias(eps, library[WAVELENGTH].values, plan.used_wl,
+                         plan.settings.design[:, n:], np.nan_to_num(coef), width,
+                         spectra_wider=wider)
+    return mismatch_note(library_nm=own, spectra_nm=stated, typical_nm=spectra,
+                         bias=bias, components=plan.components,
+                         u_relative=None if stated is None else u_rel, basis=basis)
 
 
 def _where_infinite(used: xr.DataArray, exc: InfiniteReadingError) -> str:

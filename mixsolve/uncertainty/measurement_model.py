@@ -24,6 +24,7 @@ from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT, check_library, resample_library
 from mixsolve.library_error import error_patterns
 from mixsolve.noise import NoiseModel
+from mixsolve.slit import as_fitted
 from mixsolve.solve.design import design_matrix
 from mixsolve.solve.shift_sensitivity import library_derivative
 from mixsolve.solve.stray import StrayCorrectedNoise, stray_sensitivity
@@ -129,7 +130,7 @@ def measurement_model(result: xr.Dataset, library: xr.Dataset, inputs: BudgetInp
     ``inputs`` were checked when made; the result's own ``wavelength_tolerance_nm`` and
     noise model's stray fraction stand in for those not given.
     """
-    library = check_library(library)
+    library = as_fitted(check_library(library), result.attrs)  # as broadened for the fit
     result = check_result(result, library)
     notes: list[str] = []
     if inputs.wavelength_u_nm is not None:
