@@ -33,6 +33,12 @@ STEP = 0.005  # nm, the fine grid of the outside reference convolutions
 FINE = np.round(np.arange(360.0, 790.0 + STEP / 2, STEP), 6)
 
 
+
+def bandwidth_notes(attrs: dict) -> list:
+    """The run's bandwidth_mismatch notes (other design notes, e.g. shift_risk, may sit
+    beside them)."""
+    return [n for n in run_notes_of(attrs) if n.code == "bandwidth_mismatch"]
+
 def gauss(centre: float, fwhm: float, height: float, at: np.ndarray = FINE) -> np.ndarray:
     return height * np.exp(-4 * np.log(2) * (at - centre) ** 2 / fwhm**2)
 
@@ -174,14 +180,14 @@ def test_bandwidth_option_removes_the_bias_full_window() -> None:
     plain = quiet_unmix(spectra, lib, window=(400, 700))
     bias, u = bias_and_u(plain, conc)
     assert bias[0] < -0.003 and bias[1] < -0.003
-    note, = run_notes_of(plain.attrs)
+    note, = bandwidth_notes(plain.attrs)
     assert note.code == "bandwidth_mismatch" and note.severity == LOOK
     predicted = [float(x) / 100 for x in re.findall(r"([+-][\d.]+) %", note.text)]
     np.testing.assert_allclose(predicted, bias, atol=1e-3)
     fixed = quiet_unmix(spectra, lib, window=(400, 700), bandwidth_nm=4.0)
     bias, u = bias_and_u(fixed, conc)
     assert np.all(np.abs(bias) < u / 3), (bias, u)
-    assert run_notes_of(fixed.attrs) == []
+    assert bandwidth_notes(fixed.attrs) == []
     assert fixed.attrs["library_broadened_nm"] == pytest.approx(np.sqrt(15.0))
     assert "library broadened from 1 to the spectra's 4 nm" in format_results(fixed)
 
@@ -206,20 +212,20 @@ def test_notes_for_each_mismatch() -> None:
     spectra, _ = mixtures(1.0, 20, seed=4)
     wide_lib = library_at(4.0)
     result = quiet_unmix(spectra, wide_lib, window=(400, 700), bandwidth_nm=1.0)
-    note, = run_notes_of(result.attrs)
+    note, = bandwidth_notes(result.attrs)
     assert "wider than the spectra's 1 nm" in note.text
     assert note.severity == DOUBTFUL  # a bias well above this run's u
     assert "+0.4" in note.text or "+0.5" in note.text  # chl_like, the other way round
     unknown = quiet_unmix(spectra, library_at(None), window=(400, 700), bandwidth_nm=4.0)
-    note, = run_notes_of(unknown.attrs)
+    note, = bandwidth_notes(unknown.attrs)
     assert note.text.startswith("the library's bandwidth is not stated")
     assert "library import/build --bandwidth-nm" in note.fix
     same = quiet_unmix(spectra, library_at(1.0), window=(400, 700), bandwidth_nm=1.0)
-    assert run_notes_of(same.attrs) == []
+    assert bandwidth_notes(same.attrs) == []
     neither = quiet_unmix(spectra, library_at(None), window=(400, 700))
-    assert run_notes_of(neither.attrs) == []
+    assert bandwidth_notes(neither.attrs) == []
     preset = quiet_unmix(spectra, library_at(1.0), window=(400, 700), noise="microplate")
-    note, = run_notes_of(preset.attrs)
+    note, = bandwidth_notes(preset.attrs)
     assert "with a 5 nm bandpass" in note.text and note.severity == LOOK
 
 
@@ -288,7 +294,7 @@ def test_lazy_result_predicts_at_equal_peak_absorbances() -> None:
     spectra, conc = mixtures(4.0, 20, seed=11)
     lazy = spectra.chunk({"sample": 10})
     result = quiet_unmix(lazy, library_at(4.0), window=(400, 700), bandwidth_nm=1.0)
-    note, = run_notes_of(result.attrs)
+    note, = bandwidth_notes(result.attrs)
     assert "(predicted at equal peak absorbances of the components)" in note.text
     broadened = quiet_unmix(lazy, library_at(1.0), window=(400, 700), bandwidth_nm=4.0)
     rel = broadened["concentration"].values / conc - 1
