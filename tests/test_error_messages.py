@@ -436,7 +436,7 @@ def test_click_usage_errors_exit_2_without_traceback(inputs, args, what, cli):
 def test_missing_argument_exits_2(inputs, cli):
     result = cli("unmix", inputs["lib"])
     assert result.exit_code == 2
-    assert "Missing argument 'SPECTRA'" in result.stderr
+    assert "Missing argument 'SPECTRA...'" in result.stderr
     assert "Traceback" not in result.output
 
 

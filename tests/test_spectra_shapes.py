@@ -192,9 +192,13 @@ def test_one_spectrum_named_from_file_or_header(tmp_path, columns):
     assert list(a["sample"].values) == ["run_7"]
     assert read_notes(a) == ["run_7.csv: one spectrum, named 'run_7' from the file name (its "
                              "column header 'Absorbance (AU)' is a generic word)"]
-    b = ms.read_spectra(_one_file(tmp_path, "run_8", "blank 2", columns["mix_1"]))
-    assert list(b["sample"].values) == ["blank 2"]
-    assert read_notes(b) == ["run_8.csv: one spectrum, named 'blank 2' from its column header"]
+    b = _one_file(tmp_path, "run_8", "blank 2", columns["mix_1"])
+    alone = ms.read_spectra(b)
+    assert list(alone["sample"].values) == ["blank 2"] and read_notes(alone) == []
+    both = ms.read_spectra([tmp_path / "run_7.csv", b])
+    assert list(both["sample"].values) == ["run_7", "blank 2"]
+    assert read_notes(both)[1] == ("run_8.csv: one spectrum, named 'blank 2' from its column "
+                                   "header")
 
 
 def test_folder_of_one_spectrum_files_equals_wide_table(tmp_path, columns, plain):

@@ -21,6 +21,7 @@ import os
 import re
 from collections.abc import Sequence
 from pathlib import Path
+from typing import TextIO
 
 import numpy as np
 import pandas as pd
@@ -143,6 +144,28 @@ def spectra_paths(spectra: PathLike | Sequence[PathLike]) -> list[Path]:
     return out
 
 
+def spectra_inputs(spectra: PathLike | Sequence[PathLike]) -> list[PathLike]:
+    """Everything a spectra argument reads, for the output guard: each path as given (a
+    folder too: no output may lie in it) and the files it names (:func:`spectra_paths`)."""
+    items = [spectra] if isinstance(spectra, str | os.PathLike) else list(spectra)
+    return [*items, *spectra_paths(items)]
+
+
+def one_or_many(spectra: PathLike | Sequence[PathLike]) -> PathLike | list[PathLike]:
+    """A spectra argument as one path when it names one (a sequence of one), else a list."""
+    if isinstance(spectra, str | os.PathLike):
+        return spectra
+    items = list(spectra)
+    return items[0] if len(items) == 1 else items
+
+
+def write_notes(spectra: xr.DataArray, stream: TextIO | None) -> None:
+    """Write what reading skipped or decided (:func:`read_notes`) as ``note:`` lines."""
+    if stream is not None:
+        for note in read_notes(spectra):
+            stream.write(f"note: {note}\n")
+
+
 def _skipped_in_folders(items: Sequence[PathLike]) -> list[str]:
     notes = []
     for item in items:
@@ -206,7 +229,7 @@ def read_spectra(
         check_option(quantity, QUANTITIES, "quantity")  # before reading the file
     items = [path] if isinstance(path, str | os.PathLike) else list(path)
     files = spectra_paths(items)
-    parts = [_read_one(p, sheet, quantity) for p in files]
+    parts = [_read_one(p, sheet, quantity, several=len(files) > 1) for p in files]
     da = parts[0] if len(parts) == 1 else _combine(parts, files)
     notes = _skipped_in_folders(items) + read_notes(da)
     if notes:
@@ -216,7 +239,8 @@ def read_spectra(
     return da
 
 
-def _read_one(p: Path, sheet: str | None, quantity: Quantity | None) -> xr.DataArray:
+def _read_one(p: Path, sheet: str | None, quantity: Quantity | None, *, several: bool
+              ) -> xr.DataArray:
     """One file as absorbance (the JCAMP-DX or the table path), one spectrum named."""
     if p.is_file() and is_jcamp(p):
         return _read_jcamp(p, quantity)
@@ -232,11 +256,15 @@ def _read_one(p: Path, sheet: str | None, quantity: Quantity | None) -> xr.DataA
                              f"{units!r}; leave quantity out, or correct the row")
         quantity = units  # type: ignore[assignment]
     da = to_absorbance(da, quantity, where)
-    return _name_single(da, p)
+    return _name_single(da, p, several)
 
 
-def _name_single(da: xr.DataArray, p: Path) -> xr.DataArray:
-    """A one-spectrum table whose column header is a generic word is named after its file."""
+def _name_single(da: xr.DataArray, p: Path, several: bool) -> xr.DataArray:
+    """A one-spectrum table whose column header is a generic word is named after its file.
+
+    The note says which name was used: always when it is the file's, and among several
+    files also when it is the header's (alone, a file named by its header reads as before).
+    """
     if da.sizes[SAMPLE] != 1 or da.attrs.get("layout") != "wide":
         return da
     header = str(da[SAMPLE].values[0])
@@ -247,9 +275,10 @@ def _name_single(da: xr.DataArray, p: Path) -> xr.DataArray:
         da = da.assign_coords({SAMPLE: [name]})
         notes.append(f"{p.name}: one spectrum, named {name!r} from the file name (its column "
                      f"header {header!r} is a generic word)")
-    else:
+    elif several:
         notes.append(f"{p.name}: one spectrum, named {header!r} from its column header")
-    da.attrs["read_notes"] = json.dumps(notes)
+    if notes:
+        da.attrs["read_notes"] = json.dumps(notes)
     return da
 
 
