@@ -224,3 +224,10 @@ def test_bad_jcamp_on_the_command_line(tmp_path, cli):
     bad = write_text(tmp_path / "bad.jdx", HAND.replace("430A60", "430A61"))
     assert_cli_error(cli("unmix", str(lib), str(bad), "--out", str(tmp_path / "r.csv")),
                      r"^error: bad\.jdx, line 13: Y check failed")
+
+
+def test_dup_count_beyond_npoints_refused_before_expanding(tmp_path):
+    text = HAND.replace("430A60%Tj0%", "430A60%s99999999999")
+    with pytest.raises(FileFormatError, match=r"^b\.jdx, line 13: a DUP count of 999999999999 "
+                                              r"runs past ##NPOINTS; the data are damaged$"):
+        read_jcamp(write_text(tmp_path / "b.jdx", text))

@@ -282,8 +282,13 @@ def _tokens(text: str, name: str, number: int) -> list[tuple[str, float]]:
     return out
 
 
-def _expand(tokens: list[tuple[str, float]], name: str, number: int) -> tuple[list[float], bool]:
-    """Ordinates of a line's tokens (after its X), and whether the last one was DIF form."""
+def _expand(tokens: list[tuple[str, float]], name: str, number: int, room: int
+            ) -> tuple[list[float], bool]:
+    """Ordinates of a line's tokens (after its X), and whether the last one was DIF form.
+
+    ``room``: how many ordinates the line may still hold (a DUP count beyond it is refused
+    before anything is repeated: a damaged count must not fill the memory).
+    """
     values: list[float] = []
     last: tuple[str, float] | None = None
     for kind, value in tokens:
@@ -291,6 +296,9 @@ def _expand(tokens: list[tuple[str, float]], name: str, number: int) -> tuple[li
             if last is None or value < 1:
                 raise FileFormatError(f"{name}, line {number}: a DUP count with no value "
                                       "before it to repeat")
+            if len(values) + value - 1 > room:
+                raise FileFormatError(f"{name}, line {number}: a DUP count of {int(value)} "
+                                      "runs past ##NPOINTS; the data are damaged")
             for _ in range(int(value) - 1):
                 values.append(values[-1] + last[1] if last[0] == "dif" else last[1])
             continue
@@ -327,7 +335,7 @@ def _xydata(block: dict[str, tuple[str, int, list[tuple[int, str]]]],
             raise FileFormatError(f"{name}, line {number}: a data line starts with its X "
                                   "value (a number)")
         x_line = tokens[0][1] * xfactor
-        values, ends_dif = _expand(tokens[1:], name, number)
+        values, ends_dif = _expand(tokens[1:], name, number, n + 1 - len(y))
         index = len(y)
         if check_next:
             if not values:
@@ -361,7 +369,7 @@ def _xypoints(block: dict[str, tuple[str, int, list[tuple[int, str]]]],
     numbers: list[float] = []
     for number, text in rows:
         tokens = _tokens(text, name, number)
-        if any(kind != "abs" for kind, _ in tokens):
+        if any(kind != "abs" for kind, _ in tokens):  # so no DUP is ever expanded here
             raise FileFormatError(f"{name}, line {number}: (XY..XY) pairs are plain numbers "
                                   "(AFFN); DIF and DUP forms belong to (X++(Y..Y))")
         numbers.extend(v for _, v in tokens)
