@@ -231,3 +231,11 @@ def test_dup_count_beyond_npoints_refused_before_expanding(tmp_path):
     with pytest.raises(FileFormatError, match=r"^b\.jdx, line 13: a DUP count of 999999999999 "
                                               r"runs past ##NPOINTS; the data are damaged$"):
         read_jcamp(write_text(tmp_path / "b.jdx", text))
+
+
+def test_jcamp_recognised_by_content_not_a_hash_comment(tmp_path):
+    """A .txt starting with ##TITLE= is JCAMP-DX; a table opening with '## ...' is a table."""
+    da = ms.read_spectra(write_text(tmp_path / "export.txt", HAND))
+    np.testing.assert_allclose(da.values[0], HAND_Y, rtol=1e-12)
+    table = ms.read_spectra(write_text(tmp_path / "t.csv", "## exported\nnm,s1\n400,0.1\n"))
+    assert list(table["sample"].values) == ["s1"]

@@ -93,7 +93,8 @@ class JcampSpectrum:
 
 
 def is_jcamp(path: str | os.PathLike[str]) -> bool:
-    """True for a ``.jdx``/``.dx`` file, or a file whose first text is ``##``."""
+    """True for a ``.jdx``/``.dx`` file, or a file whose first text is ``##TITLE=`` (a
+    table whose first line is a ``## ...`` comment stays a table)."""
     p = Path(path)
     if p.suffix.lower() in JCAMP_SUFFIXES:
         return True
@@ -102,7 +103,7 @@ def is_jcamp(path: str | os.PathLike[str]) -> bool:
             head = fh.read(256).lstrip(b"\xef\xbb\xbf \t\r\n")
     except OSError:
         return False
-    return head.startswith(b"##")
+    return re.match(rb"##\s*TITLE\s*=", head, re.IGNORECASE) is not None
 
 
 def _label(text: str) -> str:
