@@ -671,7 +671,7 @@ def library_import(table: str, unit: str, out: str, molar_mass: dict[str, float]
 
 
 @library.command("build")
-@click.argument("spectra")
+@click.argument("spectra", nargs=-1, required=True)
 @click.option("--standards", required=True,
               help="Sheet: sample, component, concentration, unit [, pathlength_cm, "
               "u_concentration, stock, u_stock_rel].")
@@ -683,10 +683,13 @@ def library_import(table: str, unit: str, out: str, molar_mass: dict[str, float]
 @click.option("--solvent", default="", help="Solvent or matrix of the standards.")
 @click.option("--bandwidth-nm", type=float, help="Spectral bandwidth of the instrument (nm).")
 @quantity_option
-def library_build(spectra: str, standards: str, out: str, intercept: bool,
+def library_build(spectra: tuple[str, ...], standards: str, out: str, intercept: bool,
                   pathlength: float | None, molar_mass: dict[str, float] | None, solvent: str,
                   bandwidth_nm: float | None, quantity: str | None) -> None:
-    """Build a library from spectra of pure standards and their concentrations."""
+    """Build a library from SPECTRA of pure standards and their concentrations.
+
+    SPECTRA: one or more tables or JCAMP-DX files, folders of them, or globs.
+    """
     from mixsolve.report.text import format_library
     from mixsolve.workflows.library_files import build_library_files
 
@@ -694,7 +697,7 @@ def library_build(spectra: str, standards: str, out: str, intercept: bool,
                               pathlength_cm=pathlength,
                               molar_mass=molar_mass, solvent=solvent,
                               bandwidth_nm=bandwidth_nm,
-                              quantity=quantity)  # type: ignore[arg-type]
+                              quantity=quantity, notes=sys.stderr)  # type: ignore[arg-type]
     click.echo(format_library(lib, out), nl=False)
 
 
@@ -710,7 +713,7 @@ def library_show(library_file: str) -> None:
 
 @main.command()
 @click.argument("library_file")
-@click.argument("spectra")
+@click.argument("spectra", nargs=-1, required=True)
 @add_options(selection_options)
 @add_options(fit_options)
 @click.option("--pathlength", type=float, help="Pathlength in cm [1].")
@@ -730,7 +733,7 @@ def library_show(library_file: str) -> None:
 @quantity_option
 @spectra_bandwidth_option
 @add_options(measurement_options)
-def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
+def unmix(library_file: str, spectra: tuple[str, ...], window: tuple[float, float] | None,
           wavelengths: list[float] | None, method: str, baseline: str,
           pathlength: float | None, unit: str | None, weights: str, noise: str | float | None,
           absorbance_range: tuple[float, float], fit_shift: bool,
@@ -739,8 +742,9 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
           quantity: str | None, bandwidth_nm: float | None, **measurement: Any) -> None:
     """Resolve SPECTRA into concentrations with the library (or PLS model) LIBRARY_FILE.
 
-    SPECTRA is a table, or a .zarr/.nc cube (any dims besides wavelength, run chunk by
-    chunk on dask; docs/scale.md).
+    SPECTRA: one or more tables or JCAMP-DX files, folders of them, or globs (one array,
+    one wavelength grid; docs/formats.md); or one .zarr/.nc cube (any dims besides
+    wavelength, run chunk by chunk on dask; docs/scale.md).
     """
     from mixsolve.report.unmix_text import format_unmix
     from mixsolve.workflows.measurement import budget_text
@@ -757,7 +761,8 @@ def unmix(library_file: str, spectra: str, window: tuple[float, float] | None,
                          u_stray_fraction=measurement.pop("u_stray"),
                          bandwidth_nm=bandwidth_nm, measurement=measurement,
                          scheduler=scheduler, workers=workers,
-                         progress=sys.stderr, quantity=quantity)  # type: ignore[arg-type]
+                         progress=sys.stderr, quantity=quantity,  # type: ignore[arg-type]
+                         notes=sys.stderr)
     click.echo(format_unmix(result) + budget_text(result), nl=False)
     if out:
         click.echo(f"wrote {out}", err=True)
@@ -840,7 +845,7 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
 
 
 @main.command()
-@click.argument("spectra")
+@click.argument("spectra", nargs=-1, required=True)
 @click.option("--reference", required=True,
               help="Known concentrations: sample, component, concentration, unit.")
 @click.option("--out", required=True, help="Model file to write (.nc).")
@@ -874,12 +879,15 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
               help="Also cross-validate CLS on the same folds and print both.")
 @click.option("--plot", help="PNG file for the CV curve and predicted-vs-reference plots.")
 @quantity_option
-def calibrate(spectra: str, reference: str, out: str, window: tuple[float, float] | None,
-              latent: int | str,
+def calibrate(spectra: tuple[str, ...], reference: str, out: str,
+              window: tuple[float, float] | None, latent: int | str,
               max_latent: int, folds: int | None, split: str, seed: int, mode: str,
               scale: str, derivative: int | None, polyorder: int, pathlength: float | None,
               compare: bool, plot: str | None, quantity: str | None) -> None:
-    """Build a PLS model from SPECTRA of mixtures of known composition (--reference)."""
+    """Build a PLS model from SPECTRA of mixtures of known composition (--reference).
+
+    SPECTRA: one or more tables or JCAMP-DX files, folders of them, or globs.
+    """
     from mixsolve.workflows.calibrate import calibrate_files
 
     run = calibrate_files(spectra, reference, out, plot=plot, window=window,
@@ -887,7 +895,7 @@ def calibrate(spectra: str, reference: str, out: str, window: tuple[float, float
                           split=split, seed=seed, mode=mode, scale=scale,
                           derivative=derivative, polyorder=polyorder,
                           pathlength_cm=pathlength, compare=compare,
-                          quantity=quantity)  # type: ignore[arg-type]
+                          quantity=quantity, notes=sys.stderr)  # type: ignore[arg-type]
     click.echo(run.text, nl=False)
     click.echo(f"wrote {out}" + (f" and {plot}" if plot else ""), err=True)
 

@@ -80,15 +80,16 @@ BAD_SPECTRA = {
         [r"text\.csv", r"line 3", r"column 3 \('b'\)", r"'n\.d\.' is not a number"]),
     "missing file": (lambda folder: folder / "absent.csv",
                      [r"absent\.csv: file not found$"]),
-    "a folder": (_folder, [r"spectra_dir: is a folder, not a table file$"]),
+    "an empty folder": (_folder, [r"spectra_dir: the folder holds no spectra file \(ending in "
+                                  r"\.csv, \.tsv, \.txt, \.xlsx, \.jdx, \.dx\)$"]),
     "binary data": (_bytes("data.csv", b"\x89PNG\r\n\x1a\n\x00\x00\x00\rIHDR"),
                     [r"^error: data\.csv: binary data, not a text table"]),
     "latin-1 micro sign": (
         _bytes("latin1.csv", "wavelength_nm,5 µL\n400,0.1\n".encode("latin-1")),
         [r"^error: latin1\.csv, line 1: byte 0xb5 is not UTF-8 text; save the file as UTF-8"]),
     "unknown layout": (
-        _text("odd.csv", "lambda,a\n400,0.1\n"),
-        [r"^error: odd\.csv, line 1: cannot tell the layout from the header 'lambda', 'a';",
+        _text("odd.csv", "energy,a\n400,0.1\n"),
+        [r"^error: odd\.csv, line 1: cannot tell the layout from the header 'energy', 'a';",
          r"expected wide .* or long"]),
     "duplicate sample names": (
         _text("names.csv", "wavelength_nm,a,a\n400,0.1,0.2\n"),
@@ -435,7 +436,7 @@ def test_click_usage_errors_exit_2_without_traceback(inputs, args, what, cli):
 def test_missing_argument_exits_2(inputs, cli):
     result = cli("unmix", inputs["lib"])
     assert result.exit_code == 2
-    assert "Missing argument 'SPECTRA'" in result.stderr
+    assert "Missing argument 'SPECTRA...'" in result.stderr
     assert "Traceback" not in result.output
 
 

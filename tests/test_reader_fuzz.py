@@ -99,3 +99,34 @@ def test_read_spectra_on_arbitrary_bytes(data):
 def test_read_spectra_on_fake_xlsx(data):
     """Bytes that start like a zip archive are refused as damaged workbooks, cleanly."""
     _check(read_spectra, b"PK\x03\x04" + data)
+
+
+jcamp_data = st.text(alphabet="0123456789.,;+- ?@ABCDEFGHIabcdefghi%JKLMNOPQRjklmnopqrSTUVWXYZs$E",
+                     max_size=30)
+jcamp_records = st.sampled_from([
+    "##TITLE=t", "##TITLE=", "##JCAMP-DX=4.24", "##DATA TYPE=LINK", "##XUNITS=NANOMETERS",
+    "##XUNITS=1/CM", "##YUNITS=ABSORBANCE", "##YUNITS=TRANSMITTANCE", "##XFACTOR=1",
+    "##YFACTOR=0.001", "##YFACTOR=0", "##FIRSTX=400", "##LASTX=410", "##LASTX=400",
+    "##NPOINTS=2", "##NPOINTS=1", "##NPOINTS=0", "##NPOINTS=x", "##XYDATA=(X++(Y..Y))",
+    "##XYPOINTS=(XY..XY)", "##END=", "$$ comment", "##=", "##"])
+
+
+@SETTINGS
+@given(st.lists(st.one_of(jcamp_records, jcamp_data), max_size=25))
+def test_read_spectra_on_generated_jcamp(lines):
+    """JCAMP-DX-like text (records and ASDF data lines): a DataArray or a MixsolveError."""
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "fuzz.jdx"
+        path.write_text("\n".join(lines), encoding="utf-8")
+        try:
+            out = read_spectra(path)
+        except MixsolveError:
+            return
+        assert isinstance(out, xr.DataArray)
+
+
+@SETTINGS
+@given(st.lists(st.text(max_size=20), max_size=4), tables())
+def test_read_spectra_after_generated_preamble(preamble, text):
+    """Free-text preamble and '#' lines before a plausible table: same contract."""
+    _check(read_spectra, ("\n".join(["# c", *preamble, text])).encode("utf-8"))

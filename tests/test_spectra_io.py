@@ -186,9 +186,9 @@ def test_empty_cells_with_semicolons(tmp_path):
 
 
 def test_trailing_empty_header_cells_are_ignored(tmp_path):
-    text = "wavelength_nm,a,,\n400,0.1,,\n410,0.2,,\n"
+    text = "wavelength_nm,mix,,\n400,0.1,,\n410,0.2,,\n"
     da = ms.read_spectra(write_text(tmp_path / "trail.csv", text))
-    assert list(da["sample"].values) == ["a"]
+    assert list(da["sample"].values) == ["mix"]
 
 
 # --- errors ------------------------------------------------------------------------------
@@ -298,12 +298,14 @@ def test_mixed_decimal_marks_tab(tmp_path):
 
 
 def test_unknown_layout(tmp_path):
-    text = "nm,a,b\n400,0.1,0.2\n"
+    text = "energy,a,b\n400,0.1,0.2\n"
     with pytest.raises(FileFormatError,
-                       match=r"^odd\.csv, line 1: cannot tell the layout from the header 'nm', "
-                             r"'a', 'b'; expected wide \(first column wavelength_nm, then one "
-                             r"column per sample\) or long \(columns sample, wavelength_nm, "
-                             r"absorbance\)$"):
+                       match=r"^odd\.csv, line 1: cannot tell the layout from the header "
+                             r"'energy', 'a', 'b'; expected wide \(first column the wavelength: "
+                             r"wavelength_nm, nm, Wavelength \(nm\), λ \(nm\); then one column "
+                             r"per sample\) or long \(columns sample, wavelength_nm, "
+                             r"absorbance\): rename the wavelength column, or delete the lines "
+                             r"above the header if they hold one$"):
         ms.read_spectra(write_text(tmp_path / "odd.csv", text))
 
 

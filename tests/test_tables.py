@@ -200,6 +200,9 @@ def test_folder_instead_of_file(tmp_path):
     folder = tmp_path / "spectra_dir"
     folder.mkdir()
     with pytest.raises(FileFormatError, match=r"spectra_dir: is a folder, not a table file$"):
+        read_table(folder)
+    # read_spectra reads a folder's spectra files; an empty one says what it looked for
+    with pytest.raises(InputError, match=r"spectra_dir: the folder holds no spectra file"):
         ms.read_spectra(folder)
 
 

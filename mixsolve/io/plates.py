@@ -28,7 +28,7 @@ import numpy as np
 import xarray as xr
 
 from mixsolve.errors import FileFormatError, InputError
-from mixsolve.io.tables import SEPARATOR_NAMES, RawTable, parse_number, read_rows
+from mixsolve.io.tables import SEPARATOR_NAMES, RawTable, axis_of, parse_number, read_rows
 from mixsolve.plate.wells import (
     PLATE_SHAPES,
     ROW_LETTERS,
@@ -49,8 +49,6 @@ from mixsolve.spectra import (
 )
 
 GRID, WELL_COLUMNS, LONG = "grid blocks", "well columns", "long"
-WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]",
-                      "wavelength/nm", "nm", "λ", "λ (nm)")
 _NUMERIC = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
 _NM = re.compile(r"(\d+(?:[.,]\d+)?)\s*nm\b", re.IGNORECASE)
 _NUMBER = re.compile(r"(?<![\w.,])(\d+(?:[.,]\d+)?)(?![\w.,])")
@@ -146,6 +144,12 @@ def read_plate(
 # --- cells -------------------------------------------------------------------------------
 
 
+def _is_wavelength(cell: Any) -> bool:
+    """A header cell naming a wavelength column in nm (the spectra tables' spellings,
+    :func:`mixsolve.io.tables.axis_of`)."""
+    return axis_of(_text(cell)) == "nm"
+
+
 def _text(cell: Any) -> str:
     return "" if cell is None else str(cell).strip().lstrip("\ufeff")
 
@@ -212,10 +216,10 @@ def _detect(table: RawTable) -> tuple[str, Callable[[RawTable], Readings]]:
     for row in table.rows:
         names = [_text(c).lower() for c in row]
         if "well" in names and "absorbance" in names and any(
-                n in WAVELENGTH_HEADERS for n in names):
+                _is_wavelength(n) for n in names):
             return LONG, _read_long
     for row in table.rows:
-        if row and _text(row[0]).lower() in WAVELENGTH_HEADERS and any(
+        if row and _is_wavelength(row[0]) and any(
                 parse_well(c) for c in row[1:]):
             return WELL_COLUMNS, _read_well_columns
     raise FileFormatError(f"{table.name}: no plate layout found; {LAYOUT_HELP}")
@@ -370,8 +374,8 @@ def _check_duplicate_wells(table: RawTable, i: int, names: list[str]) -> None:
 
 
 def _read_well_columns(table: RawTable) -> Readings:
-    h = next(i for i, row in enumerate(table.rows) if row and _text(row[0]).lower()
-             in WAVELENGTH_HEADERS and any(parse_well(c) for c in row[1:]))
+    h = next(i for i, row in enumerate(table.rows) if row and _is_wavelength(row[0])
+             and any(parse_well(c) for c in row[1:]))
     header = _trimmed(table.rows[h])
     wells = []
     for j, cell in enumerate(header[1:], start=1):
@@ -414,10 +418,10 @@ def _read_long(table: RawTable) -> Readings:
 
     h = next(i for i, row in enumerate(table.rows) if "well" in names_of(row)
              and "absorbance" in names_of(row)
-             and any(n in WAVELENGTH_HEADERS for n in names_of(row)))
+             and any(_is_wavelength(n) for n in names_of(row)))
     names = names_of(table.rows[h])
     w_col, a_col = names.index("well"), names.index("absorbance")
-    l_col = next(j for j, n in enumerate(names) if n in WAVELENGTH_HEADERS)
+    l_col = next(j for j, n in enumerate(names) if _is_wavelength(n))
     need = max(w_col, l_col, a_col) + 1
     data = _data_rows(table, h + 1, lambda r: len(r) > w_col and parse_well(r[w_col])
                       is not None, f"a well name in column {w_col + 1}")

@@ -1,14 +1,27 @@
-"""Read spectra tables (wide or long layout) into labelled arrays.
+"""Read spectra tables (wide or long layout) and JCAMP-DX files into labelled arrays.
 
-Wide: first column ``wavelength_nm`` (or ``wavelength``), one column per sample.
-Long: columns ``sample``, ``wavelength_nm`` (or ``wavelength``) and ``absorbance``,
-in any order. The layout found is recorded in ``attrs["layout"]``.
+Wide: first column the wavelength (``wavelength_nm``, ``nm``, ``Wavelength (nm)``, ``λ
+(nm)``...: :func:`mixsolve.io.tables.axis_of`), one column per sample. Long: columns
+``sample``, the wavelength and ``absorbance``, in any order. The layout found is recorded
+in ``attrs["layout"]``. A preamble before the header, ``#`` comment lines and a units row
+under the header are skipped and said in ``attrs["read_notes"]``
+(:func:`read_notes`). JCAMP-DX files: :mod:`mixsolve.io.jcamp`.
+
+Several files (a list, a folder, a glob) read into one array: their wavelength grids must
+agree and their sample names be unique across files. A file with one spectrum (two
+columns) names its sample from the column header, or from the file name when the header
+is a generic word (``absorbance``, ``A``, ``abs``: :data:`GENERIC_VALUE_HEADERS`).
 """
 
 from __future__ import annotations
 
+import glob
+import json
 import os
+import re
+from collections.abc import Sequence
 from pathlib import Path
+from typing import TextIO
 
 import numpy as np
 import pandas as pd
@@ -16,10 +29,12 @@ import xarray as xr
 
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io import fast_read, limits
+from mixsolve.io.jcamp import JCAMP_SUFFIXES, is_jcamp, jcamp_quantity, read_jcamp
 from mixsolve.io.tables import (
     MAX_TEXT_BYTES,
     SEPARATOR_NAMES,
     RawTable,
+    axis_of,
     parse_number,
     read_table,
 )
@@ -35,28 +50,152 @@ from mixsolve.spectra import (
     to_absorbance,
 )
 
-WAVELENGTH_HEADERS = ("wavelength_nm", "wavelength", "wavelength (nm)", "wavelength [nm]")
+PathLike = str | os.PathLike[str]
+#: File endings a folder or a glob of spectra is read for (others in a folder are skipped).
+SPECTRA_SUFFIXES = (".csv", ".tsv", ".txt", ".xlsx", *JCAMP_SUFFIXES)
+#: Column headers that say what the numbers are rather than which sample they belong to:
+#: a one-spectrum file headed so is named after its file (compared without case and
+#: without a unit in brackets).
+GENERIC_VALUE_HEADERS = ("absorbance", "abs", "a", "au", "absorbance (au)", "a (au)", "value",
+                         "values", "y", "signal", "data", "spectrum", "sample", "od",
+                         "transmittance", "t", "%t", "mau", "milliabsorbance", "intensity")
+#: What a units row under the header may say of the numbers, by quantity (no case).
+VALUE_UNITS = {"au": "absorbance", "a": "absorbance", "abs": "absorbance",
+               "absorbance": "absorbance", "t": "transmittance",
+               "transmittance": "transmittance", "%t": "percent_transmittance",
+               "%": "percent_transmittance", "% t": "percent_transmittance",
+               "mau": "milliabsorbance", "milliabsorbance": "milliabsorbance"}
+_UNSUPPORTED_AXIS = {
+    "wavenumber": "wavenumber axes (cm-1) are not yet supported; give the spectra against "
+                  "wavelength in nm",
+    "micrometre": "wavelengths in µm are not read; give them in nm (µm × 1000)",
+}
 
 
 def _norm(text: object) -> str:
     return str(text).strip().lstrip("\ufeff").lower()
 
 
+def _is_axis(cell: object) -> bool:
+    return axis_of(cell) is not None
+
+
+def is_spectra_header(cells: list[str]) -> bool:
+    """Whether a row is the header of a spectra table: the wavelength first (wide), or the
+    columns ``sample``, a wavelength and ``absorbance`` in any order (long)."""
+    if not cells:
+        return False
+    if _is_axis(cells[0]):
+        return True
+    names = [_norm(c) for c in cells]
+    return "sample" in names and "absorbance" in names and any(map(_is_axis, cells))
+
+
+def read_notes(spectra: xr.DataArray) -> list[str]:
+    """What reading the spectra skipped or decided (``attrs["read_notes"]``), as lines."""
+    return list(json.loads(spectra.attrs.get("read_notes", "[]")))
+
+
+def _natural(p: Path) -> list[object]:
+    return [int(t) if t.isdigit() else t.casefold() for t in re.split(r"(\d+)", p.name)]
+
+
+def spectra_paths(spectra: PathLike | Sequence[PathLike]) -> list[Path]:
+    """The files a spectra argument names: files as given, folders and globs expanded.
+
+    A folder gives its files ending in :data:`SPECTRA_SUFFIXES` (not hidden, not in
+    subfolders), a glob (``data/*.csv``, when no file has that very name) its matches; both
+    in natural order (``s2`` before ``s10``). A ``.zarr`` store is one path.
+
+    Raises
+    ------
+    InputError
+        Nothing given, a folder with no spectra file, a glob matching nothing, or one
+        file named twice.
+    """
+    items = [spectra] if isinstance(spectra, str | os.PathLike) else list(spectra)
+    if not items:
+        raise InputError("spectra: no file given; name one or more files, a folder or a glob")
+    out: list[Path] = []
+    for item in items:
+        p = Path(item)
+        if p.is_dir() and p.suffix.lower() != ".zarr":
+            found = sorted((f for f in p.iterdir() if f.is_file() and not f.name.startswith(".")
+                            and f.suffix.lower() in SPECTRA_SUFFIXES), key=_natural)
+            if not found:
+                raise InputError(f"{item}: the folder holds no spectra file (ending in "
+                                 f"{', '.join(SPECTRA_SUFFIXES)})")
+            out += found
+        elif not os.path.lexists(p) and glob.has_magic(os.fspath(item)):
+            found = sorted((Path(f) for f in glob.glob(os.fspath(item)) if Path(f).is_file()),
+                           key=_natural)
+            if not found:
+                raise InputError(f"{item}: no file matches")
+            out += found
+        else:
+            out.append(p)
+    seen: dict[str, Path] = {}
+    for p in out:
+        real = os.path.realpath(p)
+        if real in seen:
+            raise InputError(f"{p}: named twice among the spectra (also as {seen[real]}); "
+                             "give each file once")
+        seen[real] = p
+    return out
+
+
+def spectra_inputs(spectra: PathLike | Sequence[PathLike]) -> list[PathLike]:
+    """Everything a spectra argument reads, for the output guard: each path as given (a
+    folder too: no output may lie in it) and the files it names (:func:`spectra_paths`)."""
+    items = [spectra] if isinstance(spectra, str | os.PathLike) else list(spectra)
+    return [*items, *spectra_paths(items)]
+
+
+def one_or_many(spectra: PathLike | Sequence[PathLike]) -> PathLike | list[PathLike]:
+    """A spectra argument as one path when it names one (a sequence of one), else a list."""
+    if isinstance(spectra, str | os.PathLike):
+        return spectra
+    items = list(spectra)
+    return items[0] if len(items) == 1 else items
+
+
+def write_notes(spectra: xr.DataArray, stream: TextIO | None) -> None:
+    """Write what reading skipped or decided (:func:`read_notes`) as ``note:`` lines."""
+    if stream is not None:
+        for note in read_notes(spectra):
+            stream.write(f"note: {note}\n")
+
+
+def _skipped_in_folders(items: Sequence[PathLike]) -> list[str]:
+    notes = []
+    for item in items:
+        p = Path(item)
+        if p.is_dir() and p.suffix.lower() != ".zarr":
+            other = sorted(f.name for f in p.iterdir() if f.is_file() and not f.name.startswith(
+                ".") and f.suffix.lower() not in SPECTRA_SUFFIXES)
+            if other:
+                notes.append(f"{item}: skipped {len(other)} file(s) that are not spectra "
+                             f"tables ({', '.join(other[:3])}{', ...' if len(other) > 3 else ''})")
+    return notes
+
+
 def read_spectra(
-    path: str | os.PathLike[str],
+    path: PathLike | Sequence[PathLike],
     *,
     sheet: str | None = None,
     pathlength_cm: float | None = None,
     quantity: Quantity | None = None,
 ) -> xr.DataArray:
-    """Read absorbance spectra (or transmittance, converted) from CSV, TSV or XLSX.
+    """Read absorbance spectra (or transmittance, converted) from CSV, TSV, XLSX or JCAMP-DX.
 
     Parameters
     ----------
-    path : path-like
-        Wide or long table (see the module docstring).
+    path : path-like, or a sequence of them
+        A wide or long table, a JCAMP-DX file (``.jdx``, ``.dx``), a folder of such files
+        or a glob, or a list of any of these (:func:`spectra_paths`); see the module
+        docstring and docs/formats.md.
     sheet : str, optional
-        XLSX sheet; default the first.
+        XLSX sheet; default the first (of every XLSX file read).
     pathlength_cm : float, optional
         Pathlength (cm) to record in ``attrs``.
     quantity : {"absorbance", "transmittance", "percent_transmittance", "milliabsorbance"}, optional
@@ -64,33 +203,178 @@ def read_spectra(
         :func:`mixsolve.spectra.to_absorbance` (a transmittance ≤ 0 becomes NaN).
         Omitted: absorbance, and a file whose values cannot be absorbance (all within
         5–100 with the median above 10, or all above 10) is refused, naming the option.
-        In a long table the value column is still headed ``absorbance``.
+        In a long table the value column is still headed ``absorbance``. A units row
+        (``%T``, ``mAU``) or a JCAMP-DX ``##YUNITS`` says it too; a contradiction is refused.
 
     Returns
     -------
     DataArray with dims ("sample", "wavelength")
         Absorbance (AU), wavelengths ascending (nm). Empty cells are NaN (missing).
-        ``attrs["quantity_read"]`` says what the file held.
+        ``attrs["quantity_read"]`` says what the file held; ``attrs["read_notes"]`` (JSON
+        list, :func:`read_notes`) what was skipped or decided (preamble, comments, units
+        row, how a one-spectrum file was named); with several files ``attrs["files"]``
+        (JSON list of names) and ``layout`` ``"files"``.
 
     Raises
     ------
     FileFormatError, InputError
         Unreadable files, unknown layout, duplicate wavelengths or samples, text in
-        numeric cells, values that cannot be absorbance when ``quantity`` is omitted;
+        numeric cells, values that cannot be absorbance when ``quantity`` is omitted,
+        wavenumber axes; several files whose grids differ or that share a sample name;
         the message names the file, line, column and value.
     """
     if pathlength_cm is not None:
         pathlength_cm = check_number(pathlength_cm, "pathlength_cm", "cm", positive=True)
     if quantity is not None:
         check_option(quantity, QUANTITIES, "quantity")  # before reading the file
-    da = _read_large_text(Path(path)) if sheet is None else None
-    if da is None:
-        table = read_table(path, sheet=sheet)
-        da = _to_array(table, SAMPLE)
-    da = to_absorbance(da, quantity, str(da.attrs.get("source") or Path(path).name))
+    items = [path] if isinstance(path, str | os.PathLike) else list(path)
+    files = spectra_paths(items)
+    parts = [_read_one(p, sheet, quantity, several=len(files) > 1) for p in files]
+    da = parts[0] if len(parts) == 1 else _combine(parts, files)
+    notes = _skipped_in_folders(items) + read_notes(da)
+    if notes:
+        da.attrs["read_notes"] = json.dumps(notes)
     if pathlength_cm is not None:
         da.attrs["pathlength_cm"] = pathlength_cm
     return da
+
+
+def _read_one(p: Path, sheet: str | None, quantity: Quantity | None, *, several: bool
+              ) -> xr.DataArray:
+    """One file as absorbance (the JCAMP-DX or the table path), one spectrum named."""
+    if p.is_file() and is_jcamp(p):
+        return _read_jcamp(p, quantity)
+    da = _read_large_text(p) if sheet is None else None
+    units: str | None = None
+    if da is None:
+        table = read_table(p, sheet=sheet, find_header=is_spectra_header)
+        da, units = _to_array(table, SAMPLE)
+    where = str(da.attrs.get("source") or p.name)
+    if units is not None:
+        if quantity is not None and quantity != units:
+            raise InputError(f"quantity: {quantity!r}, but the units row of {where} says "
+                             f"{units!r}; leave quantity out, or correct the row")
+        quantity = units  # type: ignore[assignment]
+    da = to_absorbance(da, quantity, where)
+    return _name_single(da, p, several)
+
+
+def _name_single(da: xr.DataArray, p: Path, several: bool) -> xr.DataArray:
+    """A one-spectrum table whose column header is a generic word is named after its file.
+
+    The note says which name was used: always when it is the file's, and among several
+    files also when it is the header's (alone, a file named by its header reads as before).
+    """
+    if da.sizes[SAMPLE] != 1 or da.attrs.get("layout") != "wide":
+        return da
+    header = str(da[SAMPLE].values[0])
+    bare = re.sub(r"\s*[(\[][^)\]]*[)\]]\s*$", "", header).strip().casefold()
+    notes = read_notes(da)
+    if bare in GENERIC_VALUE_HEADERS or header.casefold() in GENERIC_VALUE_HEADERS:
+        name = normalise_name(p.stem)
+        da = da.assign_coords({SAMPLE: [name]})
+        notes.append(f"{p.name}: one spectrum, named {name!r} from the file name (its column "
+                     f"header {header!r} is a generic word)")
+    elif several:
+        notes.append(f"{p.name}: one spectrum, named {header!r} from its column header")
+    if notes:
+        da.attrs["read_notes"] = json.dumps(notes)
+    return da
+
+
+def _read_jcamp(p: Path, quantity: Quantity | None) -> xr.DataArray:
+    """A JCAMP-DX file as absorbance: one sample per spectrum, named by ##TITLE."""
+    parts = []
+    blocks = read_jcamp(p)
+    for k, spectrum in enumerate(blocks):
+        where = f"{p.name}, line {spectrum.line}"
+        read_as = jcamp_quantity(spectrum, quantity, where)
+        title = normalise_name(spectrum.title)
+        notes = []
+        if not title:
+            title = normalise_name(p.stem if len(blocks) == 1 else f"{p.stem}_{k + 1}")
+            notes.append(f"{where}: ##TITLE is empty; the spectrum is named {title!r}")
+        wl, values = spectrum.wavelength_nm, spectrum.values
+        if np.any(wl <= 0):
+            raise InputError(f"{where}: wavelength {wl[wl <= 0][0]:g} nm is not positive")
+        if np.unique(wl).size != wl.size:
+            raise InputError(f"{where}: a wavelength appears twice among the points")
+        order = np.argsort(wl)
+        da = xr.DataArray(values[order][None, :], dims=(SAMPLE, WAVELENGTH),
+                          coords={SAMPLE: [title], WAVELENGTH: wl[order]}, name="absorbance",
+                          attrs={"quantity": "absorbance", "source": p.name, "layout": "jcamp-dx",
+                                 "read_notes": json.dumps(notes)})
+        parts.append(to_absorbance(check_spectra(da, where), read_as, where))  # type: ignore[arg-type]
+    if len(parts) == 1:
+        return parts[0]
+    return _combine(parts, [f"{p.name}, line {b.line}" for b in blocks], source=p.name)
+
+
+def _grid_text(wl: np.ndarray) -> str:
+    return f"{wl.size} points {wl[0]:g}-{wl[-1]:g} nm" if wl.size else "no points"
+
+
+def _combine(parts: list[xr.DataArray], places: Sequence[PathLike],
+             source: str | None = None) -> xr.DataArray:
+    """Spectra read from several places as one array: one grid, unique sample names.
+
+    Raises
+    ------
+    InputError
+        Grids that differ (naming both places and the first difference), or a sample
+        name in two places (naming both).
+    """
+    names = [str(Path(p).name) if not isinstance(p, str) or os.path.exists(p) else str(p)
+             for p in places]
+    grid = parts[0][WAVELENGTH].values
+    for part, name in zip(parts[1:], names[1:], strict=True):
+        wl = part[WAVELENGTH].values
+        if wl.shape == grid.shape and np.allclose(wl, grid, rtol=0, atol=1e-9):
+            continue
+        if wl.size != grid.size:
+            first = (f"{grid.size} against {wl.size} wavelengths" if not np.array_equal(
+                wl[:min(wl.size, grid.size)], grid[:min(wl.size, grid.size)])
+                else f"{name} {'stops' if wl.size < grid.size else 'goes on'} after "
+                     f"{min(wl.size, grid.size)} points")
+            k = int(np.argmax(wl[:min(wl.size, grid.size)] != grid[:min(wl.size, grid.size)]))
+        else:
+            k = int(np.argmax(np.abs(wl - grid) > 1e-9))
+            first = ""
+        detail = (f"point {k + 1}: {grid[k]:g} nm against {wl[k]:g} nm"
+                  if k < min(wl.size, grid.size) and grid[k] != wl[k] else first)
+        raise InputError(
+            f"{name}: its wavelength grid ({_grid_text(wl)}) differs from that of "
+            f"{names[0]} ({_grid_text(grid)}), first at {detail}; give files measured on one "
+            "grid (resample them first), or read them in separate runs")
+    seen: dict[str, str] = {}
+    samples: list[str] = []
+    for part, name in zip(parts, names, strict=True):
+        for sample in part[SAMPLE].values:
+            key = str(sample).casefold()
+            if key in seen:
+                raise InputError(
+                    f"sample {str(sample)!r} is in both {seen[key]} and {name}; sample names "
+                    "must be unique across the files: rename the file or its column")
+            seen[key] = name
+            samples.append(str(sample))
+    notes = [n for part in parts for n in read_notes(part)]
+    read = sorted({str(part.attrs.get("quantity_read", "absorbance")) for part in parts})
+    attrs: dict[str, object] = {
+        "quantity": "absorbance",
+        "quantity_read": read[0] if len(read) == 1 else ", ".join(read),
+        "source": source or (f"{len(parts)} files: {names[0]}, ..., {names[-1]}"
+                             if len(parts) > 2 else ", ".join(names)),
+        "layout": "files" if source is None else "jcamp-dx",
+        "files": json.dumps(names),
+        "read_notes": json.dumps(notes),
+    }
+    dark = sum(int(part.attrs.get("dark_readings", 0)) for part in parts)
+    if dark:
+        attrs["dark_readings"] = dark
+    da = xr.DataArray(np.vstack([part.values for part in parts]), dims=(SAMPLE, WAVELENGTH),
+                      coords={SAMPLE: samples, WAVELENGTH: grid}, name="absorbance",
+                      attrs=attrs)
+    return check_spectra(da, str(attrs["source"]))
 
 
 def _read_large_text(p: Path) -> xr.DataArray | None:
@@ -112,15 +396,16 @@ def _read_large_text(p: Path) -> xr.DataArray | None:
     attrs = {"quantity": "absorbance", "source": p.name, "separator": SEPARATOR_NAMES[sep],
              "decimal": decimal}
     text_columns: tuple[int, ...] = ()
-    if names[0] in WAVELENGTH_HEADERS:
+    if axis_of(names[0]) == "nm":
         samples = [normalise_name(h) for h in header[1:]]
         if not all(samples) or len({n.casefold() for n in samples}) != len(samples):
             return None  # the careful reader names the column
         frame = fast_read.read_numeric(p, sep, decimal, header)
         da = None if frame is None else _fast_wide(frame, samples, attrs)
     else:
-        wl_cols = [i for i, n in enumerate(names) if n in WAVELENGTH_HEADERS]
-        if not ("sample" in names and "absorbance" in names and wl_cols):
+        wl_cols = [i for i, n in enumerate(names) if axis_of(n) is not None]
+        if not ("sample" in names and "absorbance" in names and wl_cols) \
+                or axis_of(names[wl_cols[0]]) != "nm":
             return None
         cols = (names.index("sample"), wl_cols[0], names.index("absorbance"))
         text_columns = tuple(i for i in range(len(header)) if i not in cols[1:])
@@ -181,7 +466,8 @@ def read_absorptivity_table(path: str | os.PathLike[str], *, sheet: str | None =
     DataArray with dims ("component", "wavelength")
     """
     table = read_table(path, sheet=sheet)
-    if _norm(table.header[0]) not in WAVELENGTH_HEADERS:
+    _check_axis(table, 0)
+    if axis_of(table.header[0]) is None:
         raise FileFormatError(
             f"{table.name}, line {table.header_line}: first column is {table.header[0]!r}; an "
             "absorptivity table starts with wavelength_nm, then one column per component")
@@ -196,29 +482,85 @@ def read_absorptivity_table(path: str | os.PathLike[str], *, sheet: str | None =
     return da
 
 
-def _to_array(table: RawTable, label: str) -> xr.DataArray:
-    first = _norm(table.header[0])
+def _check_axis(table: RawTable, column: int) -> None:
+    """Refuse a wavenumber or micrometre axis, naming the header cell and the fix."""
+    axis = axis_of(table.header[column])
+    if axis in _UNSUPPORTED_AXIS:
+        raise InputError(f"{table.name}, line {table.header_line}, column {column + 1}: "
+                         f"{str(table.header[column])!r}: {_UNSUPPORTED_AXIS[axis]}")
+
+
+def _to_array(table: RawTable, label: str) -> tuple[xr.DataArray, str | None]:
+    """The table as spectra, and the quantity its units row states (None: no row)."""
     names = [_norm(h) for h in table.header]
-    wl_cols = [i for i, n in enumerate(names) if n in WAVELENGTH_HEADERS]
+    wl_cols = [i for i, n in enumerate(names) if _is_axis(n)]
     # Long first: its columns may come in any order, wavelength_nm first included.
     if "sample" in names and "absorbance" in names and wl_cols:
-        return _long(table, names.index("sample"), wl_cols[0], names.index("absorbance"))
-    if first in WAVELENGTH_HEADERS:
-        return _wide(table, label)
+        _check_axis(table, wl_cols[0])
+        units = _units_row(table, wl_cols[0], [names.index("absorbance")])
+        return _long(table, names.index("sample"), wl_cols[0], names.index("absorbance")), units
+    if wl_cols and wl_cols[0] == 0:
+        _check_axis(table, 0)
+        units = _units_row(table, 0, range(1, len(table.header)))
+        return _wide(table, label), units
+    seen = ", ".join(map(repr, table.header[:4]))
     raise FileFormatError(
         f"{table.name}, line {table.header_line}: cannot tell the layout from the header "
-        f"{', '.join(map(repr, table.header[:4]))}; expected wide (first column wavelength_nm, "
-        "then one column per sample) or long (columns sample, wavelength_nm, absorbance)")
+        f"{seen}; expected wide (first column the wavelength: wavelength_nm, nm, "
+        "Wavelength (nm), λ (nm); then one column per sample) or long (columns sample, "
+        "wavelength_nm, absorbance): rename the wavelength column, or delete the lines "
+        "above the header if they hold one")
+
+
+def _units_row(table: RawTable, wl_col: int, value_cols: Sequence[int]) -> str | None:
+    """Drop a units row under the header (``nm``, ``AU``, ``%T``) and say what it states.
+
+    Returns the quantity the value columns' units name (one for all; None when the row
+    names none), or None when the first data row is not a units row.
+    """
+    if not table.rows:
+        return None
+    row = table.rows[0]
+    cell = str(row[wl_col]).strip() if wl_col < len(row) else ""
+    bare = cell.strip("()[] ").lower()
+    if axis_of(bare) is None or bare in ("wavelength", "λ", "lambda", "wl"):
+        return None
+    where = f"{table.name}, line {table.lines[0]}"
+    if axis_of(bare) in _UNSUPPORTED_AXIS:
+        raise InputError(f"{where} (units row): {cell!r}: {_UNSUPPORTED_AXIS[axis_of(bare)]}")
+    found: dict[str, str] = {}
+    for j in value_cols:
+        text = str(row[j]).strip() if j < len(row) else ""
+        unit = text.strip("()[] ").lower()
+        if not unit:
+            continue
+        if unit not in VALUE_UNITS:
+            raise InputError(
+                f"{where}, column {j + 1} (units row): {text!r} is not a unit mixsolve reads "
+                "(AU, A, mAU, T, %T); correct it, or delete the units row and say what the "
+                "numbers are with quantity")
+        found.setdefault(VALUE_UNITS[unit], text)
+    if len(found) > 1:
+        raise InputError(f"{where} (units row): the columns are in different units "
+                         f"({', '.join(found.values())}); one file holds one quantity")
+    del table.rows[0], table.lines[0]
+    quantity = next(iter(found), None)
+    table.skipped.append(f"skipped the units row on line {int(where.rsplit(' ', 1)[1])}"
+                         + (f" (read as {quantity.replace('_', ' ')})" if quantity else ""))
+    return quantity
 
 
 def _attrs(table: RawTable, layout: str) -> dict[str, object]:
-    return {
+    attrs: dict[str, object] = {
         "quantity": "absorbance",
         "source": table.name,
         "layout": layout,
         "separator": SEPARATOR_NAMES[table.separator],
         "decimal": table.decimal,
     }
+    if table.skipped:
+        attrs["read_notes"] = json.dumps([f"{table.name}: {t}" for t in table.skipped])
+    return attrs
 
 
 def _wide(table: RawTable, label: str) -> xr.DataArray:

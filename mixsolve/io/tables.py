@@ -35,6 +35,50 @@ _DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+([eE][+-]?\d+)?$")
 _MISSING = {"", "nan", "na", "n/a"}
 # Wide exports can hold 10^5 samples on one line: lift the csv module's 128 KiB cell cap.
 csv.field_size_limit(2**31 - 1)
+#: Lines searched for a table's header when the reader says what a header looks like: a
+#: preamble (instrument, date, operator) longer than this is not looked through.
+MAX_PREAMBLE_LINES = 200
+#: Spellings of the axis units in a header cell or a units row, by the axis they mean.
+AXIS_UNITS = {
+    "nm": ("nm", "nanometer", "nanometers", "nanometre", "nanometres"),
+    "wavenumber": ("cm-1", "cm^-1", "cm⁻¹", "1/cm", "/cm"),
+    "micrometre": ("µm", "μm", "um", "micrometer", "micrometers", "micrometre", "micrometres",
+                   "micron", "microns"),
+}
+_AXIS_NAMES = {"wavelength": "nm", "wave length": "nm", "λ": "nm", "lambda": "nm",
+               "wl": "nm", "wavenumber": "wavenumber", "wave number": "wavenumber",
+               "wavenumbers": "wavenumber"}
+_AXIS_CELL = re.compile(
+    r"^(?P<name>wavelength|wave length|λ|lambda|wl|wavenumbers?|wave number)?"
+    r"(?:[\s_/]*(?:[(\[]\s*(?P<bracketed>[^)\]]+?)\s*[)\]]|(?P<bare>[^\s_/(\[][^\s(\[]*)))?$")
+
+
+def axis_of(cell: object) -> str | None:
+    """The axis a header cell names: ``"nm"``, ``"wavenumber"``, ``"micrometre"`` or None.
+
+    Recognised, case-insensitive: a name (``wavelength``, ``λ``, ``lambda``, ``wl``,
+    ``wavenumber``), a unit (``nm``, ``cm-1``, ``1/cm``, ``µm``...), or a name followed by
+    its unit bare, after ``_`` or ``/``, or in brackets or parentheses: ``wavelength_nm``,
+    ``Wavelength nm``, ``Wavelength (nm)``, ``Wavelength [nm]``, ``λ (nm)``,
+    ``wavelength/nm``, ``Wavenumber (cm-1)``. A wavelength without a unit is in nm; a
+    stated unit decides (``Wavelength (cm-1)`` is a wavenumber axis). Anything else
+    (another unit, other words) is not an axis header.
+    """
+    text = " ".join(str(cell).strip().lstrip("\ufeff").lower().split())
+    m = _AXIS_CELL.match(text)
+    if m is None or not text:
+        return None
+    unit = m.group("bracketed") or m.group("bare")
+    named = _AXIS_NAMES.get(m.group("name") or "")
+    if unit is None:
+        return named
+    # the unit decides: "Wavelength (cm-1)" is a wavenumber axis, mislabelled
+    return next((axis for axis, units in AXIS_UNITS.items() if unit in units), None)
+
+
+def is_comment(line: str) -> bool:
+    """A ``#`` comment line (its first character that is not white space is ``#``)."""
+    return line.lstrip().startswith("#")
 
 
 
@@ -50,6 +94,9 @@ class RawTable:
     separator: str | None
     decimal: str
     notes: list[str] = field(default_factory=list)
+    #: What the reader skipped before the header and between the rows (preamble lines,
+    #: ``#`` comments), in words for the user; empty when nothing was skipped.
+    skipped: list[str] = field(default_factory=list)
 
     def where(self, i: int, column: int | None = None) -> str:
         """Describe data row ``i`` (and a column) for an error message."""
@@ -60,8 +107,11 @@ class RawTable:
         return text
 
 
+HeaderTest = Callable[[list[str]], bool]
+
+
 def read_table(path: str | os.PathLike[str], *, sheet: str | None = None,
-               keep_spaces: bool = False) -> RawTable:
+               keep_spaces: bool = False, find_header: HeaderTest | None = None) -> RawTable:
     """Read a CSV, TSV or XLSX table.
 
     Parameters
@@ -82,9 +132,10 @@ def read_table(path: str | os.PathLike[str], *, sheet: str | None = None,
     Raises
     ------
     FileFormatError
-        Missing, unreadable, binary, non-UTF-8, empty or header-only files.
+        Missing, unreadable, binary, non-UTF-8, empty or header-only files, and a second
+        header below the first (with ``find_header``).
     """
-    table = _load(path, sheet, _read_text, keep_spaces)
+    table = _load(path, sheet, _read_text, keep_spaces, find_header)
     if not table.rows:
         raise FileFormatError(f"{table.name}: header only, no data rows")
     return table
@@ -110,7 +161,7 @@ def read_rows(path: str | os.PathLike[str], *, sheet: str | None = None) -> RawT
         Missing, unreadable, binary, non-UTF-8 or empty files, or a text file in which
         no line has two cells.
     """
-    table = _load(path, sheet, _read_text_rows, False)
+    table = _load(path, sheet, _read_text_rows, False, None)
     if table.header_line:  # XLSX: the reader took the first row as the header
         first = list(table.header)
         table = RawTable(table.name, [], [first, *table.rows],
@@ -119,7 +170,8 @@ def read_rows(path: str | os.PathLike[str], *, sheet: str | None = None) -> RawT
 
 
 def _load(path: str | os.PathLike[str], sheet: str | None,
-          read_text: Callable[..., RawTable], keep_spaces: bool) -> RawTable:
+          read_text: Callable[..., RawTable], keep_spaces: bool,
+          find_header: HeaderTest | None) -> RawTable:
     """Open ``path`` and read it as XLSX (by content) or with ``read_text``."""
     p = Path(path)
     name = p.name
@@ -136,8 +188,8 @@ def _load(path: str | os.PathLike[str], sheet: str | None,
         with open(p, "rb") as fh:
             head = fh.read(8)
             if head.startswith(b"PK\x03\x04"):
-                return _read_xlsx(p, name, sheet, keep_spaces)
-            return read_text(head + fh.read(), name, keep_spaces)
+                return _read_xlsx(p, name, sheet, keep_spaces, find_header)
+            return read_text(head + fh.read(), name, keep_spaces, find_header)
     except OSError as exc:
         raise FileFormatError(f"{path}: cannot read the file ({exc.strerror})") from None
 
@@ -168,20 +220,80 @@ def _numbered_lines(raw: bytes, name: str) -> list[tuple[int, str]]:
     return numbered
 
 
-def _read_text(raw: bytes, name: str, keep_spaces: bool) -> RawTable:
+def _read_text(raw: bytes, name: str, keep_spaces: bool,
+               find_header: HeaderTest | None = None) -> RawTable:
     numbered = _numbered_lines(raw, name)
+    skipped: list[str] = []
+    if find_header is not None:
+        numbered, skipped = _after_preamble(numbered, find_header, name)
     separator = _detect_separator(numbered, name)
     parsed = _split(numbered, separator, name)
+    if find_header is not None:
+        _refuse_second_header([c for _, c in parsed[2:]], [n for n, _ in parsed[2:]],
+                              find_header, name)
     header_line, header = parsed[0]
     header = [h.strip() for h in header]
     stripped = [[c.strip() for c in cells] for _, cells in parsed[1:]]
     row_lines = [ln for ln, _ in parsed[1:]]
     decimal = _detect_decimal(stripped, row_lines, separator, name)
     rows = [cells for _, cells in parsed[1:]] if keep_spaces else stripped
-    return RawTable(name, header, rows, row_lines, header_line, separator, decimal)
+    return RawTable(name, header, rows, row_lines, header_line, separator, decimal,
+                    skipped=skipped)
 
 
-def _read_text_rows(raw: bytes, name: str, keep_spaces: bool) -> RawTable:
+def _line_range(numbers: list[int]) -> str:
+    if len(numbers) == 1:
+        return f"line {numbers[0]}"
+    if numbers[-1] - numbers[0] + 1 == len(numbers):
+        return f"lines {numbers[0]}-{numbers[-1]}"
+    return "lines " + ", ".join(map(str, numbers[:5])) + (", ..." if len(numbers) > 5 else "")
+
+
+def _skipped_text(preamble: list[tuple[int, str]], comments: list[int]) -> list[str]:
+    """What was skipped, in words: the preamble (with its first line) and the comments."""
+    out = []
+    if preamble:
+        first = " ".join(str(preamble[0][1]).split())[:60]
+        out.append(f"skipped {len(preamble)} line(s) before the header "
+                   f"({_line_range([n for n, _ in preamble])}, from {first!r})")
+    if comments:
+        out.append(f"skipped {len(comments)} comment line(s) starting with '#' "
+                   f"({_line_range(comments)})")
+    return out
+
+
+def _after_preamble(numbered: list[tuple[int, str]], find_header: HeaderTest, name: str
+                    ) -> tuple[list[tuple[int, str]], list[str]]:
+    """The lines from the header on, without ``#`` comments, and what was skipped."""
+    comments = [n for n, line in numbered if is_comment(line)]
+    lines = [(n, line) for n, line in numbered if not is_comment(line)]
+    if not lines:
+        raise FileFormatError(f"{name}: every line is a '#' comment; no table")
+    for k, (_, line) in enumerate(lines[:MAX_PREAMBLE_LINES]):
+        for sep in SEPARATORS:
+            try:
+                cells = next(csv.reader(io.StringIO(line), delimiter=sep))
+            except csv.Error:
+                continue
+            if len(cells) >= 2 and find_header([c.strip() for c in cells]):
+                return lines[k:], _skipped_text(lines[:k], comments)
+    return lines, _skipped_text([], comments)
+
+
+def _refuse_second_header(rows: Sequence[Sequence[Any]], lines: list[int],
+                          find_header: HeaderTest, name: str) -> None:
+    """Refuse a header among ``rows`` (from the second row under the header on: the first
+    may be a units row, ``nm, AU``, which the caller judges)."""
+    for cells, number in zip(rows, lines, strict=True):
+        texts = [str(c).strip() for c in cells]
+        if texts and find_header(texts):
+            raise FileFormatError(
+                f"{name}, line {number}: a second header ({', '.join(map(repr, texts[:3]))}); "
+                "one table per file: split the file there, or delete the line")
+
+
+def _read_text_rows(raw: bytes, name: str, keep_spaces: bool,
+                    find_header: HeaderTest | None = None) -> RawTable:
     numbered = _numbered_lines(raw, name)
     scores = {sep: sum(len(next(csv.reader(io.StringIO(line), delimiter=sep))) >= 2
                        for _, line in numbered) for sep in SEPARATORS}
@@ -276,7 +388,8 @@ def _check_xlsx_size(data: bytes, name: str) -> None:
             "save the sheet as CSV or split the workbook")
 
 
-def _read_xlsx(p: Path, name: str, sheet: str | None, keep_spaces: bool) -> RawTable:
+def _read_xlsx(p: Path, name: str, sheet: str | None, keep_spaces: bool,
+               find_header: HeaderTest | None = None) -> RawTable:
     import openpyxl  # deferred: only XLSX input needs it
 
     data = p.read_bytes()
@@ -306,6 +419,19 @@ def _read_xlsx(p: Path, name: str, sheet: str | None, keep_spaces: bool) -> RawT
         book.close()
     if not numbered:
         raise FileFormatError(f"{name}: the first sheet is empty")
+    skipped: list[str] = []
+    if find_header is not None:
+        comments = [n for n, cells in numbered if is_comment(str(cells[0]))]
+        numbered = [(n, cells) for n, cells in numbered if not is_comment(str(cells[0]))]
+        start = next((k for k, (_, cells) in enumerate(numbered[:MAX_PREAMBLE_LINES])
+                      if find_header([str(c).strip() for c in cells])), 0)
+        skipped = _skipped_text([(n, " ".join(str(c) for c in cells if str(c).strip()))
+                                 for n, cells in numbered[:start]], comments)
+        numbered = numbered[start:]
+        if not numbered:
+            raise FileFormatError(f"{name}: every row is a '#' comment; no table")
+        _refuse_second_header([c for _, c in numbered[2:]], [n for n, _ in numbered[2:]],
+                              find_header, name)
     header_line, header = numbered[0]
     header_text = [str(h).strip() for h in header]
     while header_text and not header_text[-1]:
@@ -313,7 +439,7 @@ def _read_xlsx(p: Path, name: str, sheet: str | None, keep_spaces: bool) -> RawT
     rows = [[c.strip() if isinstance(c, str) and not keep_spaces else c for c in cells]
             for _, cells in numbered[1:]]
     return RawTable(name, header_text, rows, [n for n, _ in numbered[1:]], header_line, None,
-                    ".", [f"sheet {ws.title!r}"])
+                    ".", [f"sheet {ws.title!r}"], skipped)
 
 
 def parse_number(cell: Any, decimal: str, where: str, *, allow_missing: bool = True) -> float:

@@ -93,7 +93,7 @@ from mixsolve.units import conversion_factor
 
 #: Attributes of the input spectra that must not label the result's variables.
 INPUT_ATTRS = ("quantity", "quantity_read", "dark_readings", "source", "layout", "separator",
-               "decimal", "pathlength_cm")
+               "decimal", "pathlength_cm", "read_notes", "files")
 Weights = Literal["none", "noise"]
 WEIGHTS: tuple[str, ...] = ("none", "noise")
 

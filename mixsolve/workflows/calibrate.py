@@ -8,8 +8,9 @@ model and, when asked, the calibration figure; the summary text comes from
 from __future__ import annotations
 
 import os
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, TextIO
 
 import xarray as xr
 
@@ -18,7 +19,7 @@ from mixsolve.io.figure_io import write_png
 from mixsolve.io.model_store import write_model
 from mixsolve.io.outputs import all_or_nothing
 from mixsolve.io.reference_io import read_reference
-from mixsolve.io.spectra_io import read_spectra
+from mixsolve.io.spectra_io import read_spectra, spectra_inputs, write_notes
 from mixsolve.pls.calibrate import calibrate
 from mixsolve.report.calibration_text import format_calibration
 from mixsolve.spectra import Quantity
@@ -34,15 +35,19 @@ class CalibrationRun:
     text: str
 
 
-def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None, *,
+def calibrate_files(spectra: PathLike | Sequence[PathLike], reference: PathLike,
+                    out: PathLike | None, *,
                     plot: PathLike | None = None, quantity: Quantity | None = None,
-                    **options: Any) -> CalibrationRun:
+                    notes: TextIO | None = None, **options: Any) -> CalibrationRun:
     """Read spectra and reference, calibrate, write the model (and a plot) when asked.
 
     Parameters
     ----------
-    spectra, reference : path-like
-        Spectra table of the calibration mixtures and the tidy reference table.
+    spectra : path-like, or a sequence of them
+        Spectra of the calibration mixtures: a table, a folder or a glob, or a list of them
+        (:func:`mixsolve.read_spectra`).
+    reference : path-like
+        The tidy reference table.
     out : path-like, optional
         Model file (netCDF) to write.
     plot : path-like, optional
@@ -50,6 +55,8 @@ def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None
         (:func:`mixsolve.report.figures.calibration_figure`).
     quantity : str, optional
         What the spectra file's numbers are (:func:`mixsolve.read_spectra`).
+    notes : text stream, optional
+        Receives what reading skipped or decided (``note: ...`` lines).
     **options
         Passed to :func:`mixsolve.calibrate` (window, latent, folds, split, mode, ...).
 
@@ -58,9 +65,10 @@ def calibrate_files(spectra: PathLike, reference: PathLike, out: PathLike | None
     CalibrationRun
         The model and :func:`mixsolve.report.calibration_text.format_calibration` of it.
     """
-    check_writable(out, plot, inputs=[spectra, reference])
-    model = calibrate(read_spectra(spectra, quantity=quantity), read_reference(reference),
-                      **options)
+    check_writable(out, plot, inputs=[*spectra_inputs(spectra), reference])
+    measured = read_spectra(spectra, quantity=quantity)
+    write_notes(measured, notes)
+    model = calibrate(measured, read_reference(reference), **options)
     figure = None
     if plot is not None:  # drawn before anything is written: a failure leaves no file
         from mixsolve.report.figures import calibration_figure  # deferred: matplotlib

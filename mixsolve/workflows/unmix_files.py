@@ -15,13 +15,19 @@ from typing import Any, TextIO
 
 import xarray as xr
 
-from mixsolve.errors import InputError
+from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.cubes import NETCDF_ENGINE, chunk_plan, is_cube_path, read_cube, write_cube
 from mixsolve.io.library_store import read_library
 from mixsolve.io.model_store import file_kind, read_model
 from mixsolve.io.outputs import all_or_nothing, guard_outputs, in_run
 from mixsolve.io.results_io import write_table, write_text
-from mixsolve.io.spectra_io import read_spectra
+from mixsolve.io.spectra_io import (
+    SPECTRA_SUFFIXES,
+    one_or_many,
+    read_spectra,
+    spectra_inputs,
+    write_notes,
+)
 from mixsolve.pls.model import MODEL_KIND
 from mixsolve.pls.predict import predict
 from mixsolve.report.tables import results_table
@@ -41,6 +47,7 @@ from mixsolve.workflows.measurement import (
 )
 
 PathLike = str | os.PathLike[str]
+Spectra = PathLike | Sequence[PathLike]
 #: Least-squares settings of :func:`mixsolve.unmix`: refused with a PLS model unless left
 #: at unmix's own defaults.
 LS_ONLY = ("window", "wavelengths", "baseline", "method", "weights", "noise", "fit_shift",
@@ -48,7 +55,7 @@ LS_ONLY = ("window", "wavelengths", "baseline", "method", "weights", "noise", "f
            "u_stray_fraction", "bandwidth_nm")
 
 
-def unmix_files(library: PathLike, spectra: PathLike, *,
+def unmix_files(library: PathLike, spectra: Spectra, *,
                 window: tuple[float, float] | None = None,
                 wavelengths: Sequence[float] | None = None, method: str = "nnls",
                 baseline: str = "none", pathlength_cm: float | None = None,
@@ -57,8 +64,12 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
                 measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                 scheduler: str | None = None, workers: int | None = None,
                 progress: TextIO | None = None, quantity: Quantity | None = None,
-                **options: Any) -> xr.Dataset:
+                notes: TextIO | None = None, **options: Any) -> xr.Dataset:
     """Read both files, run :func:`mixsolve.unmix`, write ``out`` (CSV) when given.
+
+    ``spectra`` is one file, a folder or a glob, or a list of them
+    (:func:`mixsolve.read_spectra`); ``notes`` receives what reading skipped or decided
+    (``note: ...`` lines, :func:`mixsolve.io.spectra_io.write_notes`).
 
     ``quantity`` says what the numbers of every spectra file of the run are (the spectra,
     the cell blank, the repeated scans): absorbance by default, else converted on reading
@@ -87,40 +98,71 @@ def unmix_files(library: PathLike, spectra: PathLike, *,
     Cubes: ``spectra`` or ``out`` ending in ``.zarr`` or ``.nc``, or a ``scheduler`` or
     ``workers`` given, run :func:`unmix_cube_files` instead (lazy, chunked, on dask).
     """
-    if is_cube_path(spectra) or (out is not None and is_cube_path(out)) \
+    spectra = _spectra_argument(library, spectra)
+    if _is_cube(spectra) or (out is not None and is_cube_path(out)) \
             or scheduler is not None or workers is not None:
         return unmix_cube_files(  # which checks its options and outputs the same way
             library, spectra, window=window, wavelengths=wavelengths, method=method,
             baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, out=out,
             report=report, measurement=measurement, scheduler=scheduler, workers=workers,
-            progress=progress, quantity=quantity, **options)
+            progress=progress, quantity=quantity, notes=notes, **options)
     extra = measurement_options(measurement)
     # Before any work: a bad path costs nothing, and no output may overwrite an input.
     guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
     with all_or_nothing():
         return _unmix_table(library, spectra, extra, window=window, wavelengths=wavelengths,
                             method=method, baseline=baseline, pathlength_cm=pathlength_cm,
-                            unit=unit, out=out, report=report, quantity=quantity, **options)
+                            unit=unit, out=out, report=report, quantity=quantity,
+                            notes=notes, **options)
 
 
-def guard_unmix_outputs(library: PathLike, spectra: PathLike, *, out: PathLike | None,
+def _spectra_argument(library: PathLike, spectra: Spectra) -> PathLike | list[PathLike]:
+    """The spectra as one path or a list; a library named where spectra belong is refused.
+
+    Raises
+    ------
+    InputError
+        A cube among several spectra paths (a cube is read alone).
+    FileFormatError
+        The library argument is a spectra file by its name (the two swapped, or a table
+        of absorptivities not yet made a library).
+    """
+    if Path(library).suffix.lower() in SPECTRA_SUFFIXES:
+        raise FileFormatError(
+            f"{os.path.basename(library)}: not a readable netCDF file (a spectra table or "
+            "JCAMP-DX file, by its name); a library is written by `mixsolve library import` "
+            "or `library build`, and comes first: mixsolve unmix LIBRARY SPECTRA...")
+    spectra = one_or_many(spectra)
+    if isinstance(spectra, list) and any(is_cube_path(p) for p in spectra):
+        raise InputError("spectra: a cube (.zarr, .nc) is read alone; give one cube, or "
+                         "spectra tables")
+    return spectra
+
+
+def _is_cube(spectra: PathLike | list[PathLike]) -> bool:
+    return not isinstance(spectra, list) and is_cube_path(spectra)
+
+
+def guard_unmix_outputs(library: PathLike, spectra: Spectra, *, out: PathLike | None,
                         report: PathLike | None, measurement: MeasurementOptions) -> None:
     """Refuse the outputs of an unmix run that cannot or must not be written (before work).
 
     A ``.zarr`` output is a store replaced whole; ``out``, ``report`` and the budget CSV
     are files. Inputs are the library, the spectra, the cell blank and the repeated scans
-    (:func:`mixsolve.io.outputs.guard_outputs`).
+    (:func:`mixsolve.io.outputs.guard_outputs`); spectra given as a folder or a glob count
+    with the folder and every file they name.
     """
     store = out if out is not None and Path(out).suffix.lower() == ".zarr" else None
+    read = [spectra] if _is_cube(one_or_many(spectra)) else spectra_inputs(spectra)
     guard_outputs([None if store else out, report, measurement.budget], stores=[store],
-                  inputs=[library, spectra, measurement.cell_blank, measurement.repeat_scans])
+                  inputs=[library, *read, measurement.cell_blank, measurement.repeat_scans])
 
 
-def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions, *,
+def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions, *,
                  window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
                  method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
                  out: PathLike | None, report: PathLike | None, quantity: Quantity | None,
-                 **options: Any) -> xr.Dataset:
+                 notes: TextIO | None = None, **options: Any) -> xr.Dataset:
     """:func:`unmix_files` for a table in memory; the caller guards and stages the outputs."""
     budget_rows = None
     if file_kind(library) == MODEL_KIND:
@@ -139,11 +181,11 @@ def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions
         if report is not None:
             raise InputError("report: the HTML page covers least-squares results; for a PLS "
                              "model use the results CSV and the calibration figures")
-        measured, done = _corrected(read_spectra(spectra, quantity=quantity), extra, quantity)
+        measured, done = _corrected(_read(spectra, quantity, notes), extra, quantity)
         result = predict(measured, model, pathlength_cm=pathlength_cm, unit=unit)
     else:
         lib = read_library(library)
-        measured, done = _corrected(read_spectra(spectra, quantity=quantity), extra, quantity)
+        measured, done = _corrected(_read(spectra, quantity, notes), extra, quantity)
         scans = (read_spectra(extra.repeat_scans, quantity=quantity)
                  if extra.repeat_scans is not None else None)
         result = unmix(measured, lib, window=window, wavelengths=wavelengths,
@@ -170,7 +212,14 @@ def _unmix_table(library: PathLike, spectra: PathLike, extra: MeasurementOptions
     return result
 
 
-def unmix_cube_files(library: PathLike, spectra: PathLike, *,
+def _read(spectra: Spectra, quantity: Quantity | None, notes: TextIO | None) -> xr.DataArray:
+    """The spectra read (:func:`read_spectra`), their reading notes written to ``notes``."""
+    measured = read_spectra(spectra, quantity=quantity)
+    write_notes(measured, notes)
+    return measured
+
+
+def unmix_cube_files(library: PathLike, spectra: Spectra, *,
                      window: tuple[float, float] | None = None,
                      wavelengths: Sequence[float] | None = None, method: str = "nnls",
                      baseline: str = "none", pathlength_cm: float | None = None,
@@ -179,7 +228,7 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
                      measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                      scheduler: str | None = None, workers: int | None = None,
                      progress: TextIO | None = None, quantity: Quantity | None = None,
-                     **options: Any) -> xr.Dataset:
+                     notes: TextIO | None = None, **options: Any) -> xr.Dataset:
     """Unmix a spectra cube (or a table) on dask, chunk by chunk, into a cube or a CSV.
 
     Parameters
@@ -205,6 +254,7 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         With a cube ``out``: the written result, opened lazily from it. Otherwise the
         computed result without the ``fitted`` and ``residual`` spectra.
     """
+    spectra = _spectra_argument(library, spectra)
     _require_scale(spectra, out)
     extra = measurement_options(measurement)
     guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
@@ -219,23 +269,24 @@ def unmix_cube_files(library: PathLike, spectra: PathLike, *,
         result = _unmix_cube(library, spectra, extra, window=window, wavelengths=wavelengths,
                              method=method, baseline=baseline, pathlength_cm=pathlength_cm,
                              unit=unit, out=out, scheduler=scheduler, workers=workers,
-                             progress=progress, quantity=quantity, **options)
+                             progress=progress, quantity=quantity, notes=notes, **options)
     if out is not None and is_cube_path(out) and not in_run():
         return open_result(out)  # the written store, now in place
     return result
 
 
-def _unmix_cube(library: PathLike, spectra: PathLike, extra: MeasurementOptions, *,
+def _unmix_cube(library: PathLike, spectra: PathLike | list[PathLike],
+                extra: MeasurementOptions, *,
                 window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
                 method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
                 out: PathLike | None, scheduler: str | None, workers: int | None,
                 progress: TextIO | None, quantity: Quantity | None,
-                **options: Any) -> xr.Dataset:
+                notes: TextIO | None = None, **options: Any) -> xr.Dataset:
     """:func:`unmix_cube_files` once checked; the caller guards and stages the outputs."""
     lib = read_library(library)
     measured, _ = _corrected(
-        read_cube(spectra, quantity=quantity) if is_cube_path(spectra)
-        else read_spectra(spectra, quantity=quantity), extra, quantity)
+        read_cube(spectra, quantity=quantity) if _is_cube(spectra)  # type: ignore[arg-type]
+        else _read(spectra, quantity, notes), extra, quantity)
     with dask_client(scheduler, workers) as client:
         if measured.chunks is None:
             measured = measured.chunk(chunk_plan(dict(measured.sizes)))
@@ -270,9 +321,10 @@ def open_result(path: PathLike) -> xr.Dataset:
     return xr.open_dataset(p, engine=NETCDF_ENGINE, chunks={})
 
 
-def _require_scale(spectra: PathLike, out: PathLike | None) -> None:
+def _require_scale(spectra: PathLike | list[PathLike], out: PathLike | None) -> None:
     """Refuse the chunked path cleanly when the ``scale`` extra is not installed."""
     needed = ["dask"]
-    if any(str(p).endswith(".zarr") for p in (spectra, out) if p is not None):
+    paths = [*(spectra if isinstance(spectra, list) else [spectra]), out]
+    if any(str(p).endswith(".zarr") for p in paths if p is not None):
         needed.append("zarr")
     require_scale(needed, "cube files and dask runs need")
