@@ -22,6 +22,8 @@ STRUCTURED = 128  # residual has shape beyond the noise's correlation (structure
 ILL_CONDITIONED = 256  # the wavelength set amplifies noise > 1000-fold (condition number)
 NO_SIGNAL = 512  # every used reading is exactly zero: nothing was measured
 TOO_DARK = 1024  # readings too dark to correct for the stated stray light: left out
+SCATTER = 2048  # fitted scatter amplitude significantly non-zero (baseline="scatter")
+UNMODELLED_SCATTER = 4096  # scatter-shaped residual while scatter is not modelled
 
 STATUS_CODES: dict[int, str] = {
     NO_DOF: "no_dof",
@@ -35,6 +37,8 @@ STATUS_CODES: dict[int, str] = {
     ILL_CONDITIONED: "ill_conditioned",
     NO_SIGNAL: "no_signal",
     TOO_DARK: "too_dark_for_stray",
+    SCATTER: "scatter",
+    UNMODELLED_SCATTER: "unmodelled_scatter",
 }
 
 #: Codes about one component, written ``code:<component>``.
@@ -82,6 +86,11 @@ FLAG_MEANINGS: dict[str, str] = {
                                    "much",
     STATUS_CODES[STRUCTURED]: "residual has shape wider than correlated noise: unmodelled "
                               "absorber, scatter or a wavelength shift",
+    STATUS_CODES[SCATTER]: "the fitted scatter term a·(λ/λ₀)^-n is significantly non-zero "
+                           "(|a| > 4 u(a)): a turbid sample; its results are corrected for it",
+    STATUS_CODES[UNMODELLED_SCATTER]: "the residual has the λ⁻⁴ shape of scatter, which the "
+                                      "fit does not model: refit with baseline scatter or a "
+                                      "reference wavelength",
     AT_ZERO: "held at zero by the non-negativity constraint",
     NEGATIVE: "ordinary least squares gave a negative concentration",
     SHIFT_SENSITIVE: "a small wavelength error would move this result by more than 2 %",
@@ -214,6 +223,8 @@ FLAG_SEVERITY: dict[str, str] = {
     STATUS_CODES[ABOVE_RANGE]: DOUBTFUL,
     STATUS_CODES[NO_SIGNAL]: DOUBTFUL,
     STATUS_CODES[LACK_OF_FIT]: DOUBTFUL,
+    STATUS_CODES[SCATTER]: LOOK,  # modelled: the result is corrected for it
+    STATUS_CODES[UNMODELLED_SCATTER]: DOUBTFUL,  # not modelled: the result is biased
     NO_RESULT: DOUBTFUL,
     NO_PATHLENGTH: DOUBTFUL,
     NOT_READ: DOUBTFUL,

@@ -27,7 +27,7 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from mixsolve.errors import InfiniteReadingError
-from mixsolve.flags import MISSING, TOO_DARK, flag_texts
+from mixsolve.flags import MISSING, SCATTER, TOO_DARK, UNMODELLED_SCATTER, flag_texts
 from mixsolve.library import COMPONENT
 from mixsolve.library_error import library_variance
 from mixsolve.noise import NoiseModel
@@ -37,6 +37,7 @@ from mixsolve.solve.engine import Method
 from mixsolve.solve.outputs import TERM, kernel_outputs
 from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.sample_checks import lack_of_fit, target_absorbance
+from mixsolve.solve.scatter import fit_with_scatter
 from mixsolve.solve.shift_fit import fit_with_shift
 from mixsolve.solve.stray import StrayCorrection, coefficient_sensitivity
 from mixsolve.solve.trust import (
@@ -76,8 +77,17 @@ class ShiftFit:
     max_shift_nm: float  #: bound of the search (nm)
 
 
+@dataclass(frozen=True, eq=False)
+class ScatterFit:
+    """An offset and a power-law scatter term a·(λ/λ₀)^(−n) per spectrum, n fitted with the
+    concentrations (:func:`mixsolve.solve.scatter.fit_with_scatter`)."""
+
+    base: np.ndarray  #: (m, q + 1) absorptivity columns at 1 cm, then the offset column
+    wavelengths_nm: np.ndarray  #: (m,) the used wavelengths; λ₀ is the shortest
+
+
 #: The choice of fit of one unmix call.
-FitKind = PlainFit | WeightedFit | ShiftFit
+FitKind = PlainFit | WeightedFit | ShiftFit | ScatterFit
 
 
 @dataclass(frozen=True)
@@ -106,10 +116,17 @@ class BlockSettings:
     stray: StrayCorrection | None = None
     #: readings over which noise may be correlated (:func:`mixsolve.solve.trust.structure_lag`)
     structure_lag: int | None = None
+    #: unit vector (m,) along the λ⁻⁴ shape orthogonal to the design's columns, for the
+    #: unmodelled-scatter check (None: scatter is fitted, or the design spans the shape)
+    scatter_probe: np.ndarray | None = None
+    #: readings averaged at the reference wavelength (0: no reference subtracted)
+    reference_readings: int = 0
+    #: (n,) G·1 of the components: how a reference reading's error moves each coefficient
+    reference_gain: np.ndarray | None = None
 
 
-def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
-                ) -> tuple[np.ndarray, ...]:
+def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings,
+                reference: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
     """All per-spectrum outputs of one block, in the order of
     :func:`mixsolve.solve.outputs.kernel_outputs`.
 
@@ -120,6 +137,9 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     pathlength_cm : array, broadcastable to shape (...)
         Pathlength b (cm).
     settings : BlockSettings
+    reference : array, broadcastable to shape (...), optional
+        Each spectrum's mean reading (AU) at the reference wavelength, subtracted from every
+        reading after the stray-light correction and before the fit.
 
     Returns
     -------
@@ -139,8 +159,11 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     m = spectra.shape[-1]
     flat = spectra.reshape(-1, m)
     b = np.broadcast_to(np.asarray(pathlength_cm, dtype=float), lead).reshape(-1)
+    ref = None if reference is None else np.broadcast_to(
+        np.asarray(reference, dtype=float), lead).reshape(-1)
     n_spec = flat.shape[0]
-    described = kernel_outputs(isinstance(settings.fit, ShiftFit))
+    described = kernel_outputs(isinstance(settings.fit, ShiftFit),
+                               isinstance(settings.fit, ScatterFit))
     sizes = {TERM: settings.design.shape[1], COMPONENT: len(settings.components),
              WAVELENGTH: m}
     outputs = {o.name: np.empty((n_spec, *(sizes[d] for d in o.dims)), dtype=o.dtype)
@@ -154,7 +177,7 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
 
     def fit(rows: slice) -> _Fitted:
         try:
-            return _fit_task(flat[rows], settings)
+            return _fit_task(flat[rows], settings, None if ref is None else ref[rows])
         except InfiniteReadingError as exc:  # its position within the block, not the task
             raise InfiniteReadingError(
                 str(exc), None if exc.spectrum is None else rows.start + exc.spectrum,
@@ -231,14 +254,34 @@ class _Fitted(NamedTuple):
     extra: dict[str, np.ndarray]
     #: stray correction: ∂coef/∂s·u(s) (n, p) and which spectra had readings too dark
     stray: tuple[np.ndarray, np.ndarray] | None = None
+    #: the scatter figure (:func:`_amplitude_z`, :func:`_probe_z`); NaN where none
+    scatter_z: np.ndarray | None = None
 
 
-def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
-    """Fit spectra (n, m): the plain, weighted or shift fit, and the lack-of-fit figures."""
+def _fit_task(spectra: np.ndarray, settings: BlockSettings,
+              reference: np.ndarray | None = None) -> _Fitted:
+    """Fit spectra (n, m): the plain, weighted, shift or scatter fit, and the lack-of-fit
+    figures; ``reference`` (n,) AU is subtracted first (after the stray correction)."""
     if settings.stray is not None:
-        return _fit_corrected(spectra, settings)
+        return _fit_corrected(spectra, settings, reference)
+    if reference is not None:
+        spectra = spectra - reference[:, None]
     n = len(settings.components)
     kind = settings.fit
+    if isinstance(kind, ScatterFit):
+        coef, se, fitted, dof, status, exponent, u_exponent = fit_with_scatter(
+            spectra, kind.base, kind.wavelengths_nm, n, settings.method,
+            engine=settings.engine)
+        residual = spectra - fitted
+        lack = None if settings.noise is None else lack_of_fit(
+            residual, fitted, dof, settings.noise)
+        summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + exponent
+                            settings.structure_lag)
+        return _Fitted(coef, se, dof, status, summary, lack,
+                       {"scatter_exponent": exponent, "u_scatter_exponent": u_exponent,
+                        "scatter_amplitude": coef[:, -1], "u_scatter_amplitude": se[:, -1],
+                        "fitted": fitted, "residual": residual},
+                       scatter_z=_amplitude_z(coef[:, -1], se[:, -1]))
     if isinstance(kind, ShiftFit):
         coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
             spectra, kind.eps, kind.grid_nm, kind.wavelengths_nm, kind.baseline,
@@ -250,7 +293,8 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
                             settings.structure_lag)
         return _Fitted(coef, se, dof, status, summary, lack,
                        {"wavelength_shift_nm": shift, "u_wavelength_shift_nm": u_shift,
-                        "fitted": fitted, "residual": residual})
+                        "fitted": fitted, "residual": residual},
+                       scatter_z=_probe_z(residual, summary, dof, settings.scatter_probe))
     fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine,
                       structure_lag=settings.structure_lag)
     if isinstance(kind, WeightedFit):
@@ -261,10 +305,44 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
                           structure_lag=settings.structure_lag)
     lack = None if settings.noise is None else lack_of_fit_model(
         spectra, fit.coef, settings.design, fit.dof, settings.noise)
-    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
+    # the probe is orthogonal to the design: its product with the residual is that with
+    # the readings, whatever the coefficients
+    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {},
+                   scatter_z=_probe_z(spectra, fit.summary, fit.dof, settings.scatter_probe))
 
 
-def _fit_corrected(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
+#: |a|/u(a) above which a fitted scatter amplitude is flagged ``scatter`` (judgement,
+#: measured in tests/test_scatter.py: the search over n makes |a|/u(a) of a spectrum
+#: without scatter wider than N(0, 1)).
+SCATTER_Z_LIMIT = 4.0
+#: Projection z above which unmodelled scatter is flagged (one-sided; judgement, measured
+#: in tests/test_scatter.py).
+UNMODELLED_SCATTER_Z_LIMIT = 3.09
+
+
+def _amplitude_z(amplitude: np.ndarray, u_amplitude: np.ndarray) -> np.ndarray:
+    """a/u(a) of the fitted scatter amplitude (NaN where u(a) is not finite or 0)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(u_amplitude > 0, amplitude / u_amplitude, np.nan)
+
+
+def _probe_z(values: np.ndarray, summary: ResidualSummary, dof: np.ndarray,
+             probe: np.ndarray | None) -> np.ndarray:
+    """z = vᵀr/(f·s) of the residual r along the unit λ⁻⁴ probe v orthogonal to the design,
+    s² = RSS/dof and f the correlated-noise inflation; NaN without a probe, with missing
+    readings (the probe is orthogonal on all of them only) or without dof.
+
+    ``values`` may be the readings (v ⟂ columns of D, so vᵀa = vᵀr) or the residual."""
+    n = values.shape[0]
+    if probe is None:
+        return np.full(n, np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s = np.sqrt(summary.sum_squares / np.where(dof > 0, dof, np.nan))
+        return (values @ probe) / (s * summary.noise_inflation)
+
+
+def _fit_corrected(spectra: np.ndarray, settings: BlockSettings,
+                   reference: np.ndarray | None = None) -> _Fitted:
     """:func:`_fit_task` of the readings corrected for the stated stray light (too dark
     ones left out), with ∂coef/∂s·u(s) and the spectra that had readings too dark.
 
@@ -276,6 +354,8 @@ def _fit_corrected(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     assert stray is not None
     missing = np.isnan(spectra).any(axis=1)
     corrected, dark = stray.apply(spectra)
+    if reference is not None:  # the reference reading corrected as the others
+        corrected = corrected - stray.apply(reference[:, None])[0]
     fit = _fit_task(corrected, dataclasses.replace(settings, stray=None))
     fitted = fit.extra["fitted"] if "fitted" in fit.extra else fit.coef @ settings.design.T
     fitted = np.where(np.isnan(corrected), np.nan, fitted)  # the readings the fit used
@@ -298,12 +378,12 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     checks = summary_checks(fit.summary, fit.lack)
     status = fit.status | settings.design_status | trust_status(
         checks, rms, settings.design.shape[0], settings.absorbance_range,
-        settings.noise is not None)
+        settings.noise is not None) | _scatter_status(fit.scatter_z, settings)
     per_b = (1.0 / b)[:, None]
     canonical = fit.coef[:, :n] * per_b
     conc = canonical * settings.unit_factor
     to_result = per_b * settings.unit_factor  # coefficient units → result unit
-    u_noise = _noise_term(fit, to_result, n)
+    u_noise = _noise_term(fit, to_result, n, settings)
     u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic))
     u_library *= to_result
     u_stray, status = _stray_terms(fit, to_result, n, status)
@@ -325,6 +405,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
             "u_noise": u_noise, "u_library": u_library, "u_stray": u_stray,
             "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,
             "noise_inflation": fit.summary.noise_inflation,
+            "scatter_z": np.full(rms.shape, np.nan) if fit.scatter_z is None else fit.scatter_z,
             "dof": fit.dof, "status": status, **dict(zip(CHECK_NAMES, checks, strict=True)),
             "suggested_dilution": dilution, "flags": flags, **fit.extra}
 
@@ -340,8 +421,32 @@ def _stray_terms(fit: _Fitted, to_result: np.ndarray, n: int, status: np.ndarray
     return per_coef[:, :n] * to_result, status | np.where(dark, TOO_DARK, 0)
 
 
-def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int) -> np.ndarray:
+def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int, settings: BlockSettings
+                ) -> np.ndarray:
     """u_noise (spectra, n components), result unit: the fit's standard error
     s·√diag((DᵀD)⁻¹) times ``to_result`` (1/b × unit factor) and the correlated-noise
-    inflation f of each spectrum (:func:`mixsolve.solve.residuals.lag_figures`)."""
-    return fit.std_error[:, :n] * (to_result * fit.summary.noise_inflation[:, None])
+    inflation f of each spectrum (:func:`mixsolve.solve.residuals.lag_figures`).
+
+    With a reference reading subtracted (the mean of k readings), its error δr moves every
+    reading alike and each coefficient by (G·1)ⱼ·δr, var(δr) = f²s²/k (s² = RSS/dof, the
+    spectrum's own noise): u_noise² = f²s²·diag((DᵀD)⁻¹) + (G·1)²·f²s²/k. With an offset in
+    the design G·1 = 0 for every component: the offset takes the reference's error."""
+    u = fit.std_error[:, :n] * (to_result * fit.summary.noise_inflation[:, None])
+    gain = settings.reference_gain
+    if settings.reference_readings and gain is not None and np.any(gain != 0):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            s = np.sqrt(fit.summary.sum_squares / np.where(fit.dof > 0, fit.dof, np.nan))
+        ref = (s * fit.summary.noise_inflation / np.sqrt(settings.reference_readings))
+        u = np.hypot(u, np.abs(gain) * ref[:, None] * to_result)
+    return u
+
+
+def _scatter_status(scatter_z: np.ndarray | None, settings: BlockSettings) -> np.ndarray:
+    """``SCATTER`` where a fitted amplitude has |a|/u(a) > ``SCATTER_Z_LIMIT``;
+    ``UNMODELLED_SCATTER`` where, scatter not fitted, the probe z > the one-sided limit."""
+    if scatter_z is None:
+        return np.zeros((), dtype=np.int64)
+    with np.errstate(invalid="ignore"):
+        if isinstance(settings.fit, ScatterFit):
+            return np.where(np.abs(scatter_z) > SCATTER_Z_LIMIT, SCATTER, 0)
+        return np.where(scatter_z > UNMODELLED_SCATTER_Z_LIMIT, UNMODELLED_SCATTER, 0)
