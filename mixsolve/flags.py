@@ -87,7 +87,7 @@ FLAG_MEANINGS: dict[str, str] = {
     STATUS_CODES[STRUCTURED]: "residual has shape wider than correlated noise: unmodelled "
                               "absorber, scatter or a wavelength shift",
     STATUS_CODES[SCATTER]: "the fitted scatter term a·(λ/λ₀)^-n is significantly non-zero "
-                           "(|a| > 4 u(a)): a turbid sample; its results are corrected for it",
+                           "(|a| > 3.09 u(a)): a turbid sample; its results are corrected for it",
     STATUS_CODES[UNMODELLED_SCATTER]: "the residual has the λ⁻⁴ shape of scatter, which the "
                                       "fit does not model: refit with baseline scatter or a "
                                       "reference wavelength",

@@ -98,7 +98,7 @@ OUTPUTS: tuple[Output, ...] = (
            "Newey–West long-run-variance ratio of the residual, Bartlett window chosen by "
            "Newey–West 1994 (1: independent readings)"),
     Output("scatter_z", (), "with baseline scatter: a/u(a) of the fitted scatter amplitude "
-           "(flag scatter above 4 in size); otherwise the residual along the λ⁻⁴ shape "
+           "(flag scatter above 3.09 in size); otherwise the residual along the λ⁻⁴ shape "
            "orthogonal to the design, vᵀr/(f·s) with v of unit length, s² = RSS/dof and f "
            "the noise inflation (flag unmodelled_scatter above 3.09); NaN with missing "
            "readings or when the design spans the shape"),

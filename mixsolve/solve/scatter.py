@@ -170,23 +170,28 @@ def _fixed_exponent_errors(values: np.ndarray, fitted: np.ndarray, lib: ScatterD
 
 
 def scatter_probe(design: np.ndarray, wavelengths_nm: np.ndarray) -> np.ndarray | None:
-    """Unit vector v (m,) along the part of (λ/λ₀)^(−4) orthogonal to the design's columns,
-    v = (I − DD⁺)s / ‖(I − DD⁺)s‖; None when the design holds the shape to within 1 % of
-    its norm (then a residual cannot show it).
+    """Orthonormal columns (m, k) spanning what a constant and (λ/λ₀)^(−4) add to the
+    design, the constant's part first (k = 2 without an offset in D, else 1): the last
+    column v is the part of the λ⁻⁴ shape orthogonal to [D | 1], of unit length. None when
+    [D | 1] holds the shape to within 1 % of its norm (then a residual cannot show it).
 
     Notes
     -----
-    vᵀr/σ of a residual r is N(0, 1) for white noise of SD σ whatever the fit, since v is
-    orthogonal to the design (the score of a one-column extension of the linear model;
-    Seber & Lee, *Linear Regression Analysis*, 2003, §4.3, from memory).
+    v is orthogonal to a constant so that an unmodelled cell offset is not taken for
+    scatter. vᵀr/σ of a residual r is N(0, 1) for white noise of SD σ whatever the fit,
+    since v is orthogonal to the design: the score of a one-column extension of the
+    linear model (Seber & Lee, *Linear Regression Analysis*, 2003, §4.3, from memory).
     """
     shape = scatter_column(wavelengths_nm, PROBE_EXPONENT)
-    coef = np.linalg.lstsq(design, shape, rcond=None)[0]
-    left = shape - design @ coef
-    size = float(np.linalg.norm(left))
-    if size <= 0.01 * float(np.linalg.norm(shape)):
+    added = np.column_stack([np.ones_like(shape), shape])
+    left = added - design @ np.linalg.lstsq(design, added, rcond=None)[0]
+    norms = np.linalg.norm(added, axis=0)
+    if np.linalg.norm(left[:, 0]) <= 1e-9 * norms[0]:  # the design has the constant
+        left, norms = left[:, 1:], norms[1:]
+    q, r = np.linalg.qr(left)
+    if abs(r[-1, -1]) <= 0.01 * norms[-1]:
         return None
-    return left / size
+    return q * np.sign(np.diag(r))  # v along +λ⁻⁴ (positive scatter gives z > 0)
 
 
 def reference_gain(design: np.ndarray, n_components: int) -> np.ndarray:

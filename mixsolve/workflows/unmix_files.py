@@ -45,7 +45,7 @@ PathLike = str | os.PathLike[str]
 #: at unmix's own defaults.
 LS_ONLY = ("window", "wavelengths", "baseline", "method", "weights", "noise", "fit_shift",
            "absorbance_range", "max_shift_nm", "wavelength_tolerance_nm", "stray_fraction",
-           "u_stray_fraction")
+           "u_stray_fraction", "reference_wavelength_nm")
 
 
 def unmix_files(library: PathLike, spectra: PathLike, *,
