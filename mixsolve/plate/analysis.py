@@ -193,8 +193,8 @@ def analyse_plate(
         ``high_cv``.
     **fit_options
         Passed to :func:`mixsolve.unmix` (``weights``, ``noise``, ``absorbance_range``,
-        ``fit_shift``, ``max_shift_nm``, ``wavelength_tolerance_nm``): its trust checks
-        flag each well.
+        ``fit_shift``, ``max_shift_nm``, ``wavelength_tolerance_nm``,
+        ``reference_wavelength_nm``): its trust checks flag each well.
 
     Returns
     -------
