@@ -227,9 +227,13 @@ def test_cli_scatter_and_reference(cli, tmp_path, library: xr.Dataset) -> None:
     lib_path, spec_path = tmp_path / "lib.nc", tmp_path / "spectra.csv"
     ms.write_library(library, lib_path)
     spectra.to_pandas().T.rename_axis("wavelength_nm").to_csv(spec_path)
+    table = tmp_path / "results.csv"
     out = cli.ok("unmix", str(lib_path), str(spec_path), "--window", "400-700",
-                 "--baseline", "scatter", "--reference-wavelength", "750")
+                 "--baseline", "scatter", "--reference-wavelength", "750", "--out", str(table))
     assert "baseline scatter" in out.output and "scatter" in out.output.split("flags")[1]
+    header = table.read_text().splitlines()[0].split(",")
+    assert {"scatter_exponent", "u_scatter_exponent", "scatter_amplitude",
+            "u_scatter_amplitude"} <= set(header)
     bad = cli("unmix", str(lib_path), str(spec_path), "--window", "400-700",
               "--reference-wavelength", "650")
     assert_cli_error(bad, "--reference-wavelength: 650 nm lies inside", literal=True)
