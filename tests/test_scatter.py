@@ -302,3 +302,15 @@ def test_scatter_coverage_with_libraries_from_standards() -> None:
     # 6 labs share 6 library errors: the coverage of so few labs scatters (20 labs: 0.988)
     assert 0.90 <= covered["scatter"] <= 0.999
     assert covered["linear"] < 0.8
+
+
+@pytest.mark.parametrize("baseline", ["scatter", "none"])
+def test_dask_chunks_give_the_eager_result(library: xr.Dataset, baseline: str) -> None:
+    """Scatter fit and reference subtraction chunk by chunk on dask equal the eager run (the
+    reference band is averaged lazily, per chunk)."""
+    spectra, _, _ = _extracts(14, 24, (0.03, 0.03))
+    eager = _unmix(spectra, library, baseline=baseline, reference_wavelength_nm=750.0)
+    lazy = _unmix(spectra.chunk({"sample": 8}), library, baseline=baseline,
+                  reference_wavelength_nm=750.0).compute()
+    for name in ("concentration", "u_noise", "residual", "scatter_z"):
+        np.testing.assert_allclose(lazy[name], eager[name], rtol=1e-9, atol=1e-12)
