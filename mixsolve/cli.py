@@ -421,7 +421,12 @@ fit_options = [
     click.option("--method", type=CoreChoice("mixsolve.solve.engine:METHODS"),
                  default=CoreDefault(UNMIX, "method"), show_default=True),
     click.option("--baseline", type=BASELINE_CHOICE, default=CoreDefault(UNMIX, "baseline"),
-                 show_default=True),
+                 show_default=True, help="Baseline terms fitted with the components: none, "
+                 "offset, linear (offset and slope) or scatter (offset and a·(λ/λ₀)^-n, n "
+                 "fitted per sample)."),
+    click.option("--reference-wavelength", "reference_wavelength", type=float,
+                 help="Subtract each sample's mean reading within ±2 nm of this wavelength "
+                 "(nm), outside the fitted ones, before the fit (e.g. 750 for pigments)."),
 ]
 noise_options = [
     click.option("--weights", type=CoreChoice("mixsolve.solve.unmix:WEIGHTS"),
@@ -517,6 +522,7 @@ API_PARAMETERS = {
     "wavelength_nm": "wavelength", "limit_au": "limit", "max_shift_nm": "max_shift",
     "wavelength_tolerance_nm": "wavelength_tolerance", "bandwidth_nm": "bandwidth",
     "pixels": "cube_pixels", "n_wavelengths": "cube_wavelengths",
+    "reference_wavelength_nm": "reference_wavelength",
 }
 _LEADING_NAME = re.compile(r"^([a-z][a-z0-9_]*)(?=:)")
 #: An API parameter named mid-sentence: an identifier with an underscore, not part of a file
@@ -735,6 +741,7 @@ def library_show(library_file: str) -> None:
 @add_options(measurement_options)
 def unmix(library_file: str, spectra: tuple[str, ...], window: tuple[float, float] | None,
           wavelengths: list[float] | None, method: str, baseline: str,
+          reference_wavelength: float | None,
           pathlength: float | None, unit: str | None, weights: str, noise: str | float | None,
           absorbance_range: tuple[float, float], fit_shift: bool,
           max_shift: float, wavelength_tolerance: float, out: str | None,
@@ -762,7 +769,7 @@ def unmix(library_file: str, spectra: tuple[str, ...], window: tuple[float, floa
                          bandwidth_nm=bandwidth_nm, measurement=measurement,
                          scheduler=scheduler, workers=workers,
                          progress=sys.stderr, quantity=quantity,  # type: ignore[arg-type]
-                         notes=sys.stderr)
+                         notes=sys.stderr, reference_wavelength_nm=reference_wavelength)
     click.echo(format_unmix(result) + budget_text(result), nl=False)
     if out:
         click.echo(f"wrote {out}", err=True)
@@ -957,8 +964,9 @@ class PlateProgress:
 def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
           library_from_plate: bool, out_dir: str, window: tuple[float, float] | None,
           wavelengths: list[float] | None,
-          method: str, baseline: str, unit: str | None, pathlength: float | None,
-          volume_ul: float | None, well_diameter_mm: float | None, water_band: bool,
+          method: str, baseline: str, reference_wavelength: float | None, unit: str | None,
+          pathlength: float | None, volume_ul: float | None,
+          well_diameter_mm: float | None, water_band: bool,
           water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
           plate_size: int | None, quantity: str | None, weights: str,
           noise: str | float | None, absorbance_range: tuple[float, float],
@@ -977,7 +985,7 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
             volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
             water_k_au_per_cm=water_k, max_cv=max_cv, weights=weights, noise=noise,
             absorbance_range=absorbance_range, stray_fraction=stray, u_stray_fraction=u_stray,
-            bandwidth_nm=bandwidth_nm)
+            bandwidth_nm=bandwidth_nm, reference_wavelength_nm=reference_wavelength)
     finally:
         progress.close()
     click.echo(batch.text, nl=False)

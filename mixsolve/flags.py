@@ -24,6 +24,8 @@ NO_SIGNAL = 512  # every used reading is exactly zero: nothing was measured
 TOO_DARK = 1024  # readings too dark to correct for the stated stray light: left out
 SHIFTED = 8192  # the fitted wavelength shift is significantly non-zero (fit_shift only)
 SATURATED = 16384  # a reading at the instrument's ceiling (a flat top above the range)
+SCATTER = 2048  # fitted scatter amplitude significantly non-zero (baseline="scatter")
+UNMODELLED_SCATTER = 4096  # scatter-shaped residual while scatter is not modelled
 
 STATUS_CODES: dict[int, str] = {
     NO_DOF: "no_dof",
@@ -39,6 +41,8 @@ STATUS_CODES: dict[int, str] = {
     TOO_DARK: "too_dark_for_stray",
     SHIFTED: "shifted",
     SATURATED: "saturated_reading",
+    SCATTER: "scatter",
+    UNMODELLED_SCATTER: "unmodelled_scatter",
 }
 
 #: Codes about one component, written ``code:<component>``.
@@ -88,6 +92,11 @@ FLAG_MEANINGS: dict[str, str] = {
                                    "above 1000): noise is amplified that much",
     STATUS_CODES[STRUCTURED]: "residual has shape wider than correlated noise: unmodelled "
                               "absorber, scatter or a wavelength shift",
+    STATUS_CODES[SCATTER]: "the fitted scatter term a·(λ/λ₀)^-n is significantly non-zero "
+                           "(|a| > 3.09 u(a)): a turbid sample; its results are corrected for it",
+    STATUS_CODES[UNMODELLED_SCATTER]: "the residual has the λ⁻⁴ shape of scatter, which the "
+                                      "fit does not model: refit with baseline scatter or a "
+                                      "reference wavelength",
     AT_ZERO: "held at zero by the non-negativity constraint",
     NEGATIVE: "ordinary least squares gave a negative concentration",
     SHIFT_SENSITIVE: "(older result files) a small wavelength error would move this result "
@@ -220,6 +229,8 @@ FLAG_SEVERITY: dict[str, str] = {
     STATUS_CODES[ILL_CONDITIONED]: DOUBTFUL,  # this sample's own design, after missing readings
     STATUS_CODES[SATURATED]: DOUBTFUL,
     MARKER: DOUBTFUL,  # a saturation or error marker in the export
+    STATUS_CODES[SCATTER]: LOOK,  # modelled: the result is corrected for it
+    STATUS_CODES[UNMODELLED_SCATTER]: DOUBTFUL,  # not modelled: the result is biased
     NO_RESULT: DOUBTFUL,
     NO_PATHLENGTH: DOUBTFUL,
     NOT_READ: DOUBTFUL,

@@ -197,7 +197,7 @@ def analyse_plate(
         Passed to :func:`mixsolve.unmix` (``weights``, ``noise``, ``absorbance_range``,
         ``fit_shift``, ``max_shift_nm``, ``wavelength_tolerance_nm``, ``bandwidth_nm``, the
         reader's bandpass to which a narrower library is broadened): its trust checks flag
-        each well.
+        each well; ``reference_wavelength_nm``).
 
     Returns
     -------

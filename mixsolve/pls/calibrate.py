@@ -18,7 +18,7 @@ from mixsolve._version import __version__
 from mixsolve.errors import InputError
 from mixsolve.library import COMPONENT
 from mixsolve.pls.blocks import block_groups, fit_block, project
-from mixsolve.pls.compare import cls_cross_validate
+from mixsolve.pls.compare import CLS_BASELINES, cls_compare, ratio_lower_bound
 from mixsolve.pls.cross_validation import (
     DEFAULT_MAX_LATENT,
     ONE_SE_RULE,
@@ -198,14 +198,20 @@ def calibrate(
     model["reference_max"] = ((COMPONENT,), y.max(axis=0))
     _add_cv_curves(model, cv, y)
     if compare:
-        cls_cv, cls_fit = cls_cross_validate(x, y, fold)
-        model["cls_rmsecv"] = ((COMPONENT,), rms_error(cls_cv, y))
-        model["cls_rmsec"] = ((COMPONENT,), rms_error(cls_fit, y))
-        model["cls_cv_predicted"] = ((SAMPLE, COMPONENT), cls_cv)
+        cls = cls_compare(x, y, fold, wl, deriv)
+        model["cls_rmsecv"] = ((COMPONENT,), rms_error(cls.cv, y))
+        model["cls_rmsec"] = ((COMPONENT,), rms_error(cls.fitted, y))
+        model["cls_cv_predicted"] = ((SAMPLE, COMPONENT), cls.cv)
+        model["cls_rmsecv_by_baseline"] = (("cls_baseline", COMPONENT),
+                                           cls.rmsecv_by_baseline)
+        model = model.assign_coords(cls_baseline=list(CLS_BASELINES))
+        model["cls_ratio_low"] = ((COMPONENT,), ratio_lower_bound(
+            cls.cv, model["cv_predicted"].values, y))
+        model.attrs["cls_baseline"] = cls.baseline
     unit = ref.attrs["unit"]
     for name in ("rmsec", "rmsecv", "reference_min", "reference_max", "reference", "fitted",
                  "cv_predicted", "cv_rmsecv", "y_mean", "y_scale", "cls_rmsecv", "cls_rmsec",
-                 "cls_cv_predicted"):
+                 "cls_cv_predicted", "cls_rmsecv_by_baseline"):
         if name in model:
             model[name].attrs["units"] = unit
     model.attrs.update({

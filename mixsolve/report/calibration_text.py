@@ -146,21 +146,33 @@ def _comparison(model: xr.Dataset, comps: list[str], cw: int) -> list[str]:
     """The CLS-against-PLS table and its verdict (:func:`compare_verdict`)."""
     cls_cv, pls_cv = model["cls_rmsecv"].values, model["rmsecv"].values
     ratio = cls_cv / pls_cv
+    low = model["cls_ratio_low"].values if "cls_ratio_low" in model else None
+    baseline = model.attrs.get("cls_baseline", "none")
     lines = [f"CLS against PLS on the same folds: RMSECV ({model.attrs['unit']})",
-             f"{'component':<{cw}}{'CLS':>11}{'PLS':>11}{'CLS/PLS':>9}"]
+             f"CLS baseline: {baseline} (of none, offset, linear, scatter λ⁻⁴: the lowest "
+             "cross-validated error)" if low is not None else "CLS baseline: none",
+             f"{'component':<{cw}}{'CLS':>11}{'PLS':>11}{'CLS/PLS':>9}"
+             + (f"{'≥ (95 %)':>10}" if low is not None else "")]
     for k, c in enumerate(comps):
-        lines.append(f"{c:<{cw}}{_num(cls_cv[k], 11)}{_num(pls_cv[k], 11)}{_num(ratio[k], 9)}")
-    verdict = compare_verdict(cls_cv, pls_cv)
+        lines.append(f"{c:<{cw}}{_num(cls_cv[k], 11)}{_num(pls_cv[k], 11)}{_num(ratio[k], 9)}"
+                     + (_num(low[k], 10) if low is not None else ""))
+    verdict = compare_verdict(cls_cv, pls_cv, low)
     if verdict == "no_verdict":
         text = ("CLS could not be fitted on every fold (the training concentrations do not "
                 "separate the components); no verdict.")
     elif verdict == "pls_better":
-        better = [c for c, r in zip(comps, ratio, strict=True) if r > CLEARLY_BETTER]
-        text = (f"PLS predicts {', '.join(better)} clearly better than CLS (CLS/PLS > "
-                f"{CLEARLY_BETTER:g}): the spectra are probably not additive (interaction, "
-                "matrix effect or an unlisted absorber that varies); use the PLS model.")
+        limit = CLEARLY_BETTER if low is None else AS_GOOD
+        better = [c for c, r in zip(comps, ratio if low is None else low, strict=True)
+                  if r > limit]
+        rule = (f"CLS/PLS > {CLEARLY_BETTER:g}" if low is None else
+                f"the ratio's 95 % lower bound > {AS_GOOD:g}")
+        text = (f"PLS predicts {', '.join(better)} clearly better than CLS ({rule}): the "
+                "spectra are probably not additive (interaction, matrix effect or an "
+                "unlisted absorber that varies); use the PLS model.")
     elif verdict == "additive":
-        text = (f"CLS does as well as PLS (CLS/PLS ≤ {AS_GOOD:g}): the mixtures behave "
+        rule = (f"CLS/PLS ≤ {AS_GOOD:g}" if low is None else
+                "no ratio's 95 % lower bound above 1")
+        text = (f"CLS does as well as PLS ({rule}): the mixtures behave "
                 "additively; a library (CLS) is simpler and safer to extrapolate.")
     else:
         text = ("PLS does somewhat better than CLS: mild non-additivity or an unlisted "

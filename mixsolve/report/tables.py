@@ -14,8 +14,9 @@ RESULT_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "un
 #: Columns added after ``flags`` when the result holds them (the parts of std_uncertainty;
 #: a fitted wavelength shift; PLS predictions).
 OPTIONAL_COLUMNS = ("u_noise", "u_library", "u_stray", "wavelength_shift_nm",
-                    "u_wavelength_shift_nm", "t2", "t2_limit_95", "t2_limit_99", "q_residual",
-                    "q_limit_95", "q_limit_99")
+                    "u_wavelength_shift_nm", "scatter_exponent", "u_scatter_exponent",
+                    "scatter_amplitude", "u_scatter_amplitude", "t2", "t2_limit_95",
+                    "t2_limit_99", "q_residual", "q_limit_95", "q_limit_99")
 
 
 def results_table(result: xr.Dataset) -> pd.DataFrame:
@@ -36,7 +37,9 @@ def results_table(result: xr.Dataset) -> pd.DataFrame:
         doubtful). The parts of ``std_uncertainty`` follow when the
         result has them (``u_noise, u_library, u_stray``). With ``fit_shift`` the fitted
         offset adds
-        ``wavelength_shift_nm, u_wavelength_shift_nm``. Results of
+        ``wavelength_shift_nm, u_wavelength_shift_nm``; with ``baseline="scatter"``
+        ``scatter_exponent, u_scatter_exponent, scatter_amplitude, u_scatter_amplitude``
+        (AU at λ₀). Results of
         :func:`mixsolve.predict` (PLS) add
         ``t2, t2_limit_95, t2_limit_99, q_residual, q_limit_95, q_limit_99``; there
         ``rms_residual`` and ``dof`` may differ per component. Over several dimensions,

@@ -27,7 +27,15 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from mixsolve.errors import InfiniteReadingError
-from mixsolve.flags import ILL_CONDITIONED, MISSING, SATURATED, TOO_DARK, flag_texts
+from mixsolve.flags import (
+    ILL_CONDITIONED,
+    MISSING,
+    SATURATED,
+    SCATTER,
+    TOO_DARK,
+    UNMODELLED_SCATTER,
+    flag_texts,
+)
 from mixsolve.library import COMPONENT
 from mixsolve.library_error import library_variance
 from mixsolve.noise import NoiseModel
@@ -37,6 +45,7 @@ from mixsolve.solve.engine import Method
 from mixsolve.solve.outputs import TERM, kernel_outputs
 from mixsolve.solve.residuals import ResidualSummary, summarise
 from mixsolve.solve.sample_checks import flat_top, lack_of_fit, target_absorbance
+from mixsolve.solve.scatter import fit_with_scatter
 from mixsolve.solve.shift_fit import fit_with_shift
 from mixsolve.solve.stray import StrayCorrection, coefficient_sensitivity
 from mixsolve.solve.trust import (
@@ -78,8 +87,17 @@ class ShiftFit:
     max_shift_nm: float  #: bound of the search (nm)
 
 
+@dataclass(frozen=True, eq=False)
+class ScatterFit:
+    """An offset and a power-law scatter term a·(λ/λ₀)^(−n) per spectrum, n fitted with the
+    concentrations (:func:`mixsolve.solve.scatter.fit_with_scatter`)."""
+
+    base: np.ndarray  #: (m, q + 1) absorptivity columns at 1 cm, then the offset column
+    wavelengths_nm: np.ndarray  #: (m,) the used wavelengths; λ₀ is the shortest
+
+
 #: The choice of fit of one unmix call.
-FitKind = PlainFit | WeightedFit | ShiftFit
+FitKind = PlainFit | WeightedFit | ShiftFit | ScatterFit
 
 
 @dataclass(frozen=True)
@@ -110,10 +128,19 @@ class BlockSettings:
     stray: StrayCorrection | None = None
     #: readings over which noise may be correlated (:func:`mixsolve.solve.trust.structure_lag`)
     structure_lag: int | None = None
+    #: orthonormal columns (m, k) of what a constant and the λ⁻⁴ shape add to the design,
+    #: the last the probe of the unmodelled-scatter check
+    #: (:func:`mixsolve.solve.scatter.scatter_probe`; None: scatter is fitted, or the
+    #: design spans the shape)
+    scatter_probe: np.ndarray | None = None
+    #: readings averaged at the reference wavelength (0: no reference subtracted)
+    reference_readings: int = 0
+    #: (n,) G·1 of the components: how a reference reading's error moves each coefficient
+    reference_gain: np.ndarray | None = None
 
 
-def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
-                ) -> tuple[np.ndarray, ...]:
+def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings,
+                reference: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
     """All per-spectrum outputs of one block, in the order of
     :func:`mixsolve.solve.outputs.kernel_outputs`.
 
@@ -124,6 +151,9 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     pathlength_cm : array, broadcastable to shape (...)
         Pathlength b (cm).
     settings : BlockSettings
+    reference : array, broadcastable to shape (...), optional
+        Each spectrum's mean reading (AU) at the reference wavelength, subtracted from every
+        reading after the stray-light correction and before the fit.
 
     Returns
     -------
@@ -143,8 +173,11 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
     m = spectra.shape[-1]
     flat = spectra.reshape(-1, m)
     b = np.broadcast_to(np.asarray(pathlength_cm, dtype=float), lead).reshape(-1)
+    ref = None if reference is None else np.broadcast_to(
+        np.asarray(reference, dtype=float), lead).reshape(-1)
     n_spec = flat.shape[0]
-    described = kernel_outputs(isinstance(settings.fit, ShiftFit))
+    described = kernel_outputs(isinstance(settings.fit, ShiftFit),
+                               isinstance(settings.fit, ScatterFit))
     sizes = {TERM: settings.design.shape[1], COMPONENT: len(settings.components),
              WAVELENGTH: m}
     outputs = {o.name: np.empty((n_spec, *(sizes[d] for d in o.dims)), dtype=o.dtype)
@@ -158,7 +191,9 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
 
     def fit(rows: slice) -> _Fitted:
         try:
-            return _reading_checks(_fit_task(flat[rows], settings), flat[rows], settings)
+            return _reading_checks(
+                _fit_task(flat[rows], settings, None if ref is None else ref[rows]),
+                flat[rows], settings)
         except InfiniteReadingError as exc:  # its position within the block, not the task
             raise InfiniteReadingError(
                 str(exc), None if exc.spectrum is None else rows.start + exc.spectrum,
@@ -235,14 +270,34 @@ class _Fitted(NamedTuple):
     extra: dict[str, np.ndarray]
     #: stray correction: ∂coef/∂s·u(s) (n, p) and which spectra had readings too dark
     stray: tuple[np.ndarray, np.ndarray] | None = None
+    #: the scatter figure (:func:`_amplitude_z`, :func:`_probe_z`); NaN where none
+    scatter_z: np.ndarray | None = None
 
 
-def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
-    """Fit spectra (n, m): the plain, weighted or shift fit, and the lack-of-fit figures."""
+def _fit_task(spectra: np.ndarray, settings: BlockSettings,
+              reference: np.ndarray | None = None) -> _Fitted:
+    """Fit spectra (n, m): the plain, weighted, shift or scatter fit, and the lack-of-fit
+    figures; ``reference`` (n,) AU is subtracted first (after the stray correction)."""
     if settings.stray is not None:
-        return _fit_corrected(spectra, settings)
+        return _fit_corrected(spectra, settings, reference)
+    if reference is not None:
+        spectra = spectra - reference[:, None]
     n = len(settings.components)
     kind = settings.fit
+    if isinstance(kind, ScatterFit):
+        coef, se, fitted, dof, status, exponent, u_exponent = fit_with_scatter(
+            spectra, kind.base, kind.wavelengths_nm, n, settings.method,
+            engine=settings.engine)
+        residual = spectra - fitted
+        lack = None if settings.noise is None else lack_of_fit(
+            residual, fitted, dof, settings.noise)
+        summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + exponent
+                            settings.structure_lag)
+        return _Fitted(coef, se, dof, status, summary, lack,
+                       {"scatter_exponent": exponent, "u_scatter_exponent": u_exponent,
+                        "scatter_amplitude": coef[:, -1], "u_scatter_amplitude": se[:, -1],
+                        "fitted": fitted, "residual": residual},
+                       scatter_z=_amplitude_z(coef[:, -1], se[:, -1]))
     if isinstance(kind, ShiftFit):
         coef, se, fitted, dof, status, shift, u_shift = fit_with_shift(
             spectra, kind.eps, kind.grid_nm, kind.wavelengths_nm, kind.baseline,
@@ -255,7 +310,8 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
         status = status | shifted_status(shift, u_shift)
         return _Fitted(coef, se, dof, status, summary, lack,
                        {"wavelength_shift_nm": shift, "u_wavelength_shift_nm": u_shift,
-                        "fitted": fitted, "residual": residual})
+                        "fitted": fitted, "residual": residual},
+                       scatter_z=_probe_z(residual, summary, dof, settings))
     fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine,
                       structure_lag=settings.structure_lag)
     if isinstance(kind, WeightedFit):
@@ -266,7 +322,10 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
                           structure_lag=settings.structure_lag)
     lack = None if settings.noise is None else lack_of_fit_model(
         spectra, fit.coef, settings.design, fit.dof, settings.noise)
-    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
+    # the probe is orthogonal to the design: its product with the residual is that with
+    # the readings, whatever the coefficients
+    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {},
+                   scatter_z=_probe_z(spectra, fit.summary, fit.dof, settings, fit.coef))
 
 
 def _reading_checks(fit: _Fitted, spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
@@ -290,7 +349,61 @@ def _reading_checks(fit: _Fitted, spectra: np.ndarray, settings: BlockSettings) 
     return fit._replace(status=status)
 
 
-def _fit_corrected(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
+#: |a|/u(a) above which a fitted scatter amplitude is flagged ``scatter``: the one-sided
+#: 0.1 % point of the other checks (judgement). With the exponent's uncertainty in u(a),
+#: |a|/u(a) of a spectrum without scatter is narrower than N(0, 1) (99th percentile about
+#: 0.4 in tests/test_scatter.py), so the limit is conservative there.
+SCATTER_Z_LIMIT = 3.09
+#: Projection z above which unmodelled scatter is flagged (one-sided; judgement, measured
+#: in tests/test_scatter.py).
+UNMODELLED_SCATTER_Z_LIMIT = 3.09
+#: Screening z above which the probe's z is computed again from the extended fit.
+SCREEN_Z = 2.0
+
+
+def _amplitude_z(amplitude: np.ndarray, u_amplitude: np.ndarray) -> np.ndarray:
+    """a/u(a) of the fitted scatter amplitude (NaN where u(a) is not finite or 0)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(u_amplitude > 0, amplitude / u_amplitude, np.nan)
+
+
+def _probe_z(values: np.ndarray, summary: ResidualSummary, dof: np.ndarray,
+             settings: BlockSettings, coef: np.ndarray | None = None) -> np.ndarray:
+    """z = vᵀr/(f′·s′) of the residual r along the unit λ⁻⁴ probe v orthogonal to the
+    design; NaN without a probe, with missing readings (v is orthogonal on all of them
+    only) or without dof.
+
+    ``values`` is the residual, or the readings with ``coef`` given (then r = a − D·coef;
+    vᵀa = vᵀr as v ⟂ the columns of D). s′ and f′ are the residual SD and the
+    correlated-noise inflation of r′ = r − QQᵀr, the residual of the fit extended by the
+    probe's basis Q (k columns: the constant too when D has none; s′² = ‖r′‖²/(dof − k)),
+    so that a strong scatter residual does not widen its
+    own yardstick: first a screening z from the fit's own s and f, then s′ and f′ for the
+    spectra it puts above ``SCREEN_Z`` only (a t statistic of the extended linear model).
+    """
+    basis = settings.scatter_probe
+    n = values.shape[0]
+    if basis is None:
+        return np.full(n, np.nan)
+    along = values @ basis[:, -1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s = np.sqrt(summary.sum_squares / np.where(dof > 0, dof, np.nan))
+        z = along / (s * summary.noise_inflation)
+        rows = np.flatnonzero(z > SCREEN_Z)
+        if rows.size:
+            part = values[rows] if coef is None else \
+                values[rows] - coef[rows] @ settings.design.T
+            rest = part - (part @ basis) @ basis.T
+            extended = summarise(part, rest, settings.design.shape[1] + basis.shape[1],
+                                 settings.structure_lag)
+            k = dof[rows] - basis.shape[1]
+            s_rest = np.sqrt(extended.sum_squares / np.where(k > 0, k, np.nan))
+            z[rows] = along[rows] / (s_rest * extended.noise_inflation)
+    return z
+
+
+def _fit_corrected(spectra: np.ndarray, settings: BlockSettings,
+                   reference: np.ndarray | None = None) -> _Fitted:
     """:func:`_fit_task` of the readings corrected for the stated stray light (too dark
     ones left out), with ∂coef/∂s·u(s) and the spectra that had readings too dark.
 
@@ -302,6 +415,8 @@ def _fit_corrected(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
     assert stray is not None
     missing = np.isnan(spectra).any(axis=1)
     corrected, dark = stray.apply(spectra)
+    if reference is not None:  # the reference reading corrected as the others
+        corrected = corrected - stray.apply(reference[:, None])[0]
     fit = _fit_task(corrected, dataclasses.replace(settings, stray=None))
     fitted = fit.extra["fitted"] if "fitted" in fit.extra else fit.coef @ settings.design.T
     fitted = np.where(np.isnan(corrected), np.nan, fitted)  # the readings the fit used
@@ -324,12 +439,12 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     checks = summary_checks(fit.summary, fit.lack)
     status = fit.status | trust_status(
         checks, rms, settings.design.shape[0], settings.absorbance_range,
-        settings.noise is not None)
+        settings.noise is not None) | _scatter_status(fit.scatter_z, settings)
     per_b = (1.0 / b)[:, None]
     canonical = fit.coef[:, :n] * per_b
     conc = canonical * settings.unit_factor
     to_result = per_b * settings.unit_factor  # coefficient units → result unit
-    u_noise = _noise_term(fit, to_result, n)
+    u_noise = _noise_term(fit, to_result, n, settings)
     u_library = np.sqrt(library_variance(fit.coef[:, :n], settings.library_quadratic))
     u_library *= to_result
     u_stray, status = _stray_terms(fit, to_result, n, status)
@@ -350,6 +465,7 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
             "u_noise": u_noise, "u_library": u_library, "u_stray": u_stray,
             "at_zero": at_zero, "shift_bias_per_nm": bias, "rms_residual": rms,
             "noise_inflation": fit.summary.noise_inflation,
+            "scatter_z": np.full(rms.shape, np.nan) if fit.scatter_z is None else fit.scatter_z,
             "dof": fit.dof, "status": status, **dict(zip(CHECK_NAMES, checks, strict=True)),
             "suggested_dilution": dilution, "flags": flags, **fit.extra}
 
@@ -365,8 +481,32 @@ def _stray_terms(fit: _Fitted, to_result: np.ndarray, n: int, status: np.ndarray
     return per_coef[:, :n] * to_result, status | np.where(dark, TOO_DARK, 0)
 
 
-def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int) -> np.ndarray:
+def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int, settings: BlockSettings
+                ) -> np.ndarray:
     """u_noise (spectra, n components), result unit: the fit's standard error
     s·√diag((DᵀD)⁻¹) times ``to_result`` (1/b × unit factor) and the correlated-noise
-    inflation f of each spectrum (:func:`mixsolve.solve.residuals.lag_figures`)."""
-    return fit.std_error[:, :n] * (to_result * fit.summary.noise_inflation[:, None])
+    inflation f of each spectrum (:func:`mixsolve.solve.residuals.lag_figures`).
+
+    With a reference reading subtracted (the mean of k readings), its error δr moves every
+    reading alike and each coefficient by (G·1)ⱼ·δr, var(δr) = f²s²/k (s² = RSS/dof, the
+    spectrum's own noise): u_noise² = f²s²·diag((DᵀD)⁻¹) + (G·1)²·f²s²/k. With an offset in
+    the design G·1 = 0 for every component: the offset takes the reference's error."""
+    u = fit.std_error[:, :n] * (to_result * fit.summary.noise_inflation[:, None])
+    gain = settings.reference_gain
+    if settings.reference_readings and gain is not None and np.any(gain != 0):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            s = np.sqrt(fit.summary.sum_squares / np.where(fit.dof > 0, fit.dof, np.nan))
+        ref = (s * fit.summary.noise_inflation / np.sqrt(settings.reference_readings))
+        u = np.hypot(u, np.abs(gain) * ref[:, None] * to_result)
+    return u
+
+
+def _scatter_status(scatter_z: np.ndarray | None, settings: BlockSettings) -> np.ndarray:
+    """``SCATTER`` where a fitted amplitude has |a|/u(a) > ``SCATTER_Z_LIMIT``;
+    ``UNMODELLED_SCATTER`` where, scatter not fitted, the probe z > the one-sided limit."""
+    if scatter_z is None:
+        return np.zeros((), dtype=np.int64)
+    with np.errstate(invalid="ignore"):
+        if isinstance(settings.fit, ScatterFit):
+            return np.where(np.abs(scatter_z) > SCATTER_Z_LIMIT, SCATTER, 0)
+        return np.where(scatter_z > UNMODELLED_SCATTER_Z_LIMIT, UNMODELLED_SCATTER, 0)

@@ -2,7 +2,9 @@
 
 The design matrix holds, per used wavelength λᵢ (rows), the library absorptivity of
 each component at 1 cm (columns) followed by the optional baseline columns:
-``offset`` (1 at every λ) and ``slope`` (λ − λ̄, nm, λ̄ the mean used wavelength).
+``offset`` (1 at every λ) and ``slope`` (λ − λ̄, nm, λ̄ the mean used wavelength), or
+``offset`` and ``scatter`` ((λ/λ₀)^(−n), λ₀ the shortest used wavelength; ``unmix`` fits n
+per spectrum, :mod:`mixsolve.solve.scatter`; the design here holds the nominal n = 4).
 """
 
 from __future__ import annotations
@@ -15,13 +17,27 @@ import numpy as np
 from mixsolve.errors import InputError, SolveError
 from mixsolve.spectra import check_wavelength_list
 
-Baseline = Literal["none", "offset", "linear"]
-BASELINES: tuple[str, ...] = ("none", "offset", "linear")
+Baseline = Literal["none", "offset", "linear", "scatter"]
+BASELINES: tuple[str, ...] = ("none", "offset", "linear", "scatter")
 BASELINE_TERMS: dict[str, tuple[str, ...]] = {
     "none": (),
     "offset": ("offset",),
     "linear": ("offset", "slope"),
+    "scatter": ("offset", "scatter"),
 }
+#: The exponent of the scatter column of a design with ``baseline="scatter"`` where one
+#: design stands for all spectra (figures of merit, the library's error, the shift bias):
+#: Rayleigh scatter, λ⁻⁴, a linearisation at the usual case of small particles.
+NOMINAL_SCATTER_EXPONENT = 4.0
+
+
+def scatter_column(wavelengths_nm: np.ndarray, exponent: float | np.ndarray) -> np.ndarray:
+    """(λ/λ₀)^(−n) at the wavelengths (λ₀ their shortest): shape (m,), or (k, m) for k
+    exponents. 1 at λ₀, dimensionless."""
+    wl = np.asarray(wavelengths_nm, dtype=float)
+    ratio = wl / wl.min()
+    n = np.asarray(exponent, dtype=float)
+    return ratio ** (-n[..., None]) if n.ndim else ratio ** (-float(n))
 #: How close (nm) a requested discrete wavelength must be to a measured one.
 WAVELENGTH_MATCH_NM = 0.01
 
@@ -120,17 +136,20 @@ def design_matrix(
     absorptivity : array, shape (n_wavelengths, n_components)
         Library ε at the used wavelengths, library unit.
     wavelengths_nm : array, shape (n_wavelengths,)
-    baseline : {"none", "offset", "linear"}
+    baseline : {"none", "offset", "linear", "scatter"}
+        ``scatter``: the offset and (λ/λ₀)^(−4) (``NOMINAL_SCATTER_EXPONENT``).
 
     Returns
     -------
     ndarray, shape (n_wavelengths, n_components + n_baseline_terms)
     """
     columns = [np.asarray(absorptivity, dtype=float)]
-    if baseline in ("offset", "linear"):
+    if baseline in ("offset", "linear", "scatter"):
         columns.append(np.ones((wavelengths_nm.size, 1)))
     if baseline == "linear":
         columns.append((wavelengths_nm - wavelengths_nm.mean())[:, None])
+    if baseline == "scatter":
+        columns.append(scatter_column(wavelengths_nm, NOMINAL_SCATTER_EXPONENT)[:, None])
     return np.hstack(columns)
 
 

@@ -27,7 +27,7 @@ BASELINE_TERM = "baseline_term"
 #: the result holds it only then); the model spectra, which the kernel returns for the
 #: shift fit (one design per spectrum) and the result otherwise computes when read, from
 #: the coefficients (:mod:`mixsolve.solve.model_spectra`); or ``unmix`` itself.
-MadeBy = Literal["kernel", "shift kernel", "model", "unmix"]
+MadeBy = Literal["kernel", "shift kernel", "scatter kernel", "model", "unmix"]
 
 UNCERTAINTY_BASIS = (
     "combined standard uncertainty sqrt(u_noise^2 + u_library^2 + u_stray^2) of independent "
@@ -97,7 +97,13 @@ OUTPUTS: tuple[Output, ...] = (
     Output("noise_inflation", (), "f, the factor by which correlated noise widens u_noise: "
            "Newey–West long-run-variance ratio of the residual, Bartlett window chosen by "
            "Newey–West 1994 (1: independent readings)"),
-    Output("dof", (), "residual degrees of freedom n − p", dtype=np.int64),
+    Output("scatter_z", (), "with baseline scatter: a/u(a) of the fitted scatter amplitude "
+           "(flag scatter above 3.09 in size); otherwise the residual along the λ⁻⁴ shape "
+           "orthogonal to the design, vᵀr/(f·s) with v of unit length, s² = RSS/dof and f "
+           "the noise inflation (flag unmodelled_scatter above 3.09); NaN with missing "
+           "readings or when the design spans the shape"),
+    Output("dof", (), "residual degrees of freedom n − p (n − p − 1 with a fitted shift or "
+           "scatter exponent)", dtype=np.int64),
     Output("status", (), "bit mask of the status bits of mixsolve.flags", dtype=np.int64),
     Output("absorbance_max", (), "largest measured absorbance over the used wavelengths",
            "AU"),
@@ -119,8 +125,19 @@ OUTPUTS: tuple[Output, ...] = (
            made_by="shift kernel"),
     Output("u_wavelength_shift_nm", (), "standard uncertainty u(δ)", "nm",
            made_by="shift kernel"),
+    Output("scatter_exponent", (), "fitted Ångström-type exponent n of the scatter term "
+           "a·(λ/λ₀)^-n, searched over 0.25-4.5 (λ₀ the shortest used wavelength)",
+           made_by="scatter kernel"),
+    Output("u_scatter_exponent", (), "standard uncertainty u(n), linearised (NaN when a = 0)",
+           made_by="scatter kernel"),
+    Output("scatter_amplitude", (), "fitted scatter amplitude a: the scatter term at λ₀ "
+           "(attrs scatter_lambda0_nm)", "AU",
+           made_by="scatter kernel"),
+    Output("u_scatter_amplitude", (), "standard uncertainty u(a), the exponent's "
+           "uncertainty included", "AU", made_by="scatter kernel"),
     Output("baseline", (BASELINE_TERM,), "baseline coefficients: offset and slope (about "
-           "the mean used wavelength)", "AU (offset), AU/nm (slope)", made_by="unmix"),
+           "the mean used wavelength), or offset and scatter amplitude (AU at λ₀)",
+           "AU (offset, scatter), AU/nm (slope)", made_by="unmix"),
     Output("fitted", (WAVELENGTH,), "fitted spectrum over the used wavelengths", "AU",
            made_by="model"),
     Output("residual", (WAVELENGTH,), "measured minus fitted spectrum", "AU",
@@ -133,16 +150,23 @@ OUTPUTS: tuple[Output, ...] = (
 BY_NAME: dict[str, Output] = {o.name: o for o in OUTPUTS}
 
 
-def kernel_outputs(shift: bool) -> tuple[Output, ...]:
-    """What the kernel returns, in order: for the shift fit (``shift``) or another."""
-    made = ("kernel", "shift kernel", "model") if shift else ("kernel",)
+def kernel_outputs(shift: bool, scatter: bool = False) -> tuple[Output, ...]:
+    """What the kernel returns, in order: for the shift fit (``shift``), the scatter fit
+    (``scatter``) or another."""
+    made = {"kernel"}
+    if shift:
+        made |= {"shift kernel", "model"}
+    if scatter:
+        made |= {"scatter kernel", "model"}
     return tuple(o for o in OUTPUTS if o.made_by in made)
 
 
-def result_outputs(shift: bool) -> tuple[Output, ...]:
-    """The variables of a result, in order: of a shift fit (``shift``) or another."""
+def result_outputs(shift: bool, scatter: bool = False) -> tuple[Output, ...]:
+    """The variables of a result, in order: of a shift fit (``shift``), a scatter fit
+    (``scatter``) or another."""
     return tuple(o for o in OUTPUTS
-                 if o.in_result and (shift or o.made_by != "shift kernel"))
+                 if o.in_result and (shift or o.made_by != "shift kernel")
+                 and (scatter or o.made_by != "scatter kernel"))
 
 
 def describe(indent: str = "", width: int = 92) -> str:
@@ -156,6 +180,7 @@ def describe(indent: str = "", width: int = 92) -> str:
         text = f"- ``{o.name}``" + (f" ({dims})" if dims else "")
         text += "" if o.unit is None else f" [{o.unit.format(unit='unit')}]"
         text += " (with fit_shift)" if o.made_by == "shift kernel" else ""
+        text += " (with baseline scatter)" if o.made_by == "scatter kernel" else ""
         items.append(textwrap.fill(f"{text}: {o.meaning}", width, initial_indent=indent,
                                    subsequent_indent=indent + "  "))
     return "\n".join(items)

@@ -102,6 +102,12 @@ class _ShiftedLibrary:
         _interpolate(self.tables[1], *self._locate(deltas), columns)
         return columns.transpose(0, 2, 1)
 
+    def jacobian(self, deltas: np.ndarray, coef: np.ndarray) -> np.ndarray:
+        """∂(model)/∂δ per spectrum (n, n_wavelengths): Σₖ xₖ εₖ′(λ + δ) (coef (n, n_terms);
+        NaN coefficients count as 0)."""
+        return np.einsum("nmk,nk->nm", self.slopes(deltas),
+                         np.nan_to_num(coef[:, :self.n_components]))
+
     def _locate(self, deltas: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Grid interval j (n, m) of each λ + δ and the fraction f of it, clamped."""
         last = self.grid.size - 1
@@ -353,7 +359,11 @@ def _update(s: _BrentState, i: np.ndarray, u: np.ndarray, fu: np.ndarray) -> Non
 
 def _final_fit(flat: np.ndarray, lib: _ShiftedLibrary, shift: np.ndarray, method: Method
                ) -> tuple[np.ndarray, ...]:
-    """coef, std_error, fitted, dof, status, u_shift at each spectrum's δ, block by block."""
+    """coef, std_error, fitted, dof, status, u_shift at each spectrum's δ, block by block.
+
+    ``lib`` may be any object with ``n_components``, ``n_terms``, ``designs(deltas)`` and
+    ``jacobian(deltas, coef)``: the scatter fit (:mod:`mixsolve.solve.scatter`) uses it with
+    the exponent in place of δ."""
     n_spec, m = flat.shape
     p = lib.n_terms
     coef = np.full((n_spec, p), np.nan)
@@ -392,8 +402,7 @@ def _final_block(values: np.ndarray, lib: _ShiftedLibrary, shift: np.ndarray, me
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = np.einsum("nm,nm->n", residual, residual) / dof
     # linearised joint covariance of (coefficients, δ): s² (JᵀJ)⁻¹, J = [D | ∂A/∂δ]
-    jac = np.einsum("nmk,nk->nm", lib.slopes(shift),
-                    np.nan_to_num(coef[:, :lib.n_components])) * present
+    jac = lib.jacobian(shift, coef) * present
     diag, joint_ok = inverse_diagonal(np.concatenate([masked_design, jac[:, :, None]], axis=2))
     good = ok & (dof > 0) & joint_ok
     sd = np.sqrt(np.clip(diag * np.where(good, s2, np.nan)[:, None], 0, None))

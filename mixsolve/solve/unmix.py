@@ -46,6 +46,7 @@ from mixsolve.solve.block import (
     BlockSettings,
     FitKind,
     PlainFit,
+    ScatterFit,
     ShiftFit,
     WeightedFit,
     unmix_block,
@@ -71,6 +72,7 @@ from mixsolve.solve.outputs import (
     result_outputs,
 )
 from mixsolve.solve.run_notes import design_shift_risk, ill_conditioned_design, shift_risk
+from mixsolve.solve.scatter import reference_gain, scatter_probe
 from mixsolve.solve.stray import (
     StrayCorrectedNoise,
     StrayCorrection,
@@ -117,6 +119,7 @@ def unmix(
     stray_fraction: float | None = None,
     u_stray_fraction: float | None = None,
     bandwidth_nm: float | None = None,
+    reference_wavelength_nm: float | None = None,
 ) -> xr.Dataset:
     """Resolve absorbance spectra into component concentrations by classical least squares.
 
@@ -140,9 +143,12 @@ def unmix(
     method : {"nnls", "ols"}
         ``nnls`` constrains concentrations to ≥ 0 (baseline terms stay free);
         ``ols`` is ordinary least squares.
-    baseline : {"none", "offset", "linear"}
+    baseline : {"none", "offset", "linear", "scatter"}
         Extra columns for a constant offset (AU) and a linear slope (AU/nm, about the
-        mean used wavelength), for cell offsets or turbidity.
+        mean used wavelength), for cell offsets or turbidity; ``scatter``: the offset and
+        a power-law scatter term a·(λ/λ₀)^(−n) per spectrum, λ₀ the shortest used
+        wavelength, the exponent n fitted over 0.25–4.5 (:mod:`mixsolve.solve.scatter`;
+        not with ``fit_shift`` or ``weights="noise"``).
     pathlength_cm : float or DataArray, optional
         Pathlength b (cm), one value or one per spectrum; default the ``pathlength_cm``
         attribute of ``spectra``, else 1 cm.
@@ -185,6 +191,12 @@ def unmix(
         bandwidth, or a library's bandwidth without this one, gives the run note
         ``bandwidth_mismatch`` with the predicted bias per component (docs/method.md,
         "Spectral bandwidth").
+    reference_wavelength_nm : float, optional
+        Subtract each spectrum's mean reading over ±``REFERENCE_HALF_BAND_NM`` (2 nm) of
+        this wavelength before the fit (after any stray-light correction), e.g. 750 nm for
+        pigment extracts (common practice). It must lie outside the fitted wavelengths and
+        inside the measured ones. Its error moves every reading alike and is propagated
+        to u_noise (docs/method.md, "Reference wavelength").
 
     Returns
     -------
@@ -246,7 +258,7 @@ def unmix(
         noise=noise, absorbance_range=absorbance_range, fit_shift=fit_shift,
         max_shift_nm=max_shift_nm, wavelength_tolerance_nm=wavelength_tolerance_nm,
         stray_fraction=stray_fraction, u_stray_fraction=u_stray_fraction,
-        bandwidth_nm=bandwidth_nm)
+        bandwidth_nm=bandwidth_nm, reference_wavelength_nm=reference_wavelength_nm)
     plan = _plan(options)
     return _result(options, plan, _run_kernel(options, plan))
 
@@ -275,6 +287,7 @@ class _Options:
     tolerance_nm: float
     stray: StrayCorrection | None = None  #: the stated stray fraction, when above 0
     bandwidth: _Bandwidth | None = None  #: the bandpasses and any broadening of the library
+    reference_nm: float | None = None  #: the reference wavelength (nm), checked
 
 
 @dataclass(frozen=True, eq=False)
@@ -292,7 +305,8 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
                    weights: Any, noise: Any, absorbance_range: Any, fit_shift: bool,
                    max_shift_nm: Any, wavelength_tolerance_nm: Any,
                    stray_fraction: Any = None, u_stray_fraction: Any = None,
-                   bandwidth_nm: Any = None) -> _Options:
+                   bandwidth_nm: Any = None,
+                   reference_wavelength_nm: Any = None) -> _Options:
     """Check every option of :func:`unmix` (the public boundary: the spectra are checked
     here once, their values by the solver as it reads them)."""
     spectra = check_spectra(spectra, scan_values=False)
@@ -316,6 +330,14 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
     if fit_shift and weights != "none":
         raise InputError("fit_shift: a fitted wavelength shift cannot be combined with "
                          "weights='noise' (the shift search is unweighted); drop one of them")
+    if baseline == "scatter" and fit_shift:
+        raise InputError("baseline: 'scatter' cannot be combined with fit_shift (one "
+                         "nonlinear term per fit); drop one of them")
+    if baseline == "scatter" and weights != "none":
+        raise InputError("baseline: 'scatter' is fitted unweighted and cannot be combined "
+                         "with weights='noise'; drop one of them")
+    reference = None if reference_wavelength_nm is None else check_number(
+        reference_wavelength_nm, "reference_wavelength_nm", "nm", positive=True)
     if weights == "noise" and model is None:
         raise InputError("weights='noise' needs a noise model: give noise= a preset name "
                          f"({', '.join(PRESETS)}), a NoiseModel or σ_A in AU")
@@ -329,7 +351,7 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
     return _Options(spectra, _fitted_library(bandwidth), window, wavelengths, method,
                     baseline, _pathlength(spectra, pathlength_cm), unit, weights, model,
                     (low, high), bool(fit_shift), max_shift, tolerance,
-                    _stray(model, stray_fraction, u_stray_fraction), bandwidth)
+                    _stray(model, stray_fraction, u_stray_fraction), bandwidth, reference)
 
 
 def _bandwidth(library: xr.Dataset, bandwidth_nm: Any, window: tuple[float, float] | None,
@@ -404,6 +426,8 @@ class _Plan:
     condition: float  #: scaled condition number of the design
     unit: str  #: concentration unit of the result
     settings: BlockSettings
+    #: each spectrum's mean reading at the reference wavelength (AU), or None
+    reference: xr.DataArray | None = None
 
 
 def _plan(options: _Options) -> _Plan:
@@ -424,6 +448,7 @@ def _plan(options: _Options) -> _Plan:
     components = [str(c) for c in library[COMPONENT].values]
     absorptivity = absorptivity_at(library, used_wl)
     design = design_matrix(absorptivity, used_wl, options.baseline)
+    reference, k_ref = _reference(options, used_wl)
     terms = components + list(BASELINE_TERMS[options.baseline])
     condition = check_solvable(design, terms)
     if condition > ILL_CONDITIONED_ABOVE:
@@ -451,8 +476,45 @@ def _plan(options: _Options) -> _Plan:
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
                                                    if d != WAVELENGTH]))),
         stray=options.stray,
-        structure_lag=structure_lag(used_wl))
-    return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings)
+        structure_lag=structure_lag(used_wl),
+        scatter_probe=None if options.baseline == "scatter" else scatter_probe(design, used_wl),
+        reference_readings=k_ref,
+        reference_gain=None if reference is None else reference_gain(design, len(components)))
+    return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings,
+                 reference)
+
+
+#: Half-width (nm) of the band averaged at the reference wavelength (judgement: a few
+#: readings at 1 nm spacing, narrow beside the flat region a reference is chosen in).
+REFERENCE_HALF_BAND_NM = 2.0
+
+
+def _reference(options: _Options, used_wl: np.ndarray) -> tuple[xr.DataArray | None, int]:
+    """Each spectrum's mean reading over ±``REFERENCE_HALF_BAND_NM`` of the reference
+    wavelength (NaN readings skipped), and how many readings the band holds; refused
+    inside the fitted range or outside the measured one."""
+    ref = options.reference_nm
+    if ref is None:
+        return None, 0
+    spectra = options.spectra
+    measured = spectra[WAVELENGTH].values
+    if used_wl[0] <= ref <= used_wl[-1]:
+        raise InputError(f"reference_wavelength_nm: {ref:g} nm lies inside the fitted "
+                         f"wavelengths ({used_wl[0]:g}-{used_wl[-1]:g} nm); choose one "
+                         "outside them where nothing absorbs, e.g. 750 nm for pigments")
+    band = np.flatnonzero(np.abs(measured - ref) <= REFERENCE_HALF_BAND_NM + 1e-9)
+    if not band.size:
+        raise InputError(f"reference_wavelength_nm: no reading within "
+                         f"{REFERENCE_HALF_BAND_NM:g} nm of {ref:g} nm (measured "
+                         f"{measured[0]:g}-{measured[-1]:g} nm); choose a measured wavelength")
+    fitted = np.isin(measured[band], used_wl)
+    if fitted.any():
+        raise InputError(f"reference_wavelength_nm: the band {ref:g} ± "
+                         f"{REFERENCE_HALF_BAND_NM:g} nm includes the fitted wavelength "
+                         f"{measured[band][fitted][0]:g} nm; move the reference or the window")
+    mean = spectra.isel({WAVELENGTH: band}).mean(WAVELENGTH, skipna=True)
+    return mean.drop_vars([c for c in mean.coords if WAVELENGTH in spectra[c].dims],
+                          errors="ignore"), int(band.size)
 
 
 def _fit_noise(options: _Options) -> NoiseModel | None:
@@ -468,6 +530,9 @@ def _fit_kind(options: _Options, used_wl: np.ndarray) -> FitKind:
     noise = _fit_noise(options)
     if options.weights == "noise" and noise is not None:
         return WeightedFit(noise)
+    if options.baseline == "scatter":  # the design's last column: the nominal exponent's
+        return ScatterFit(base=design_matrix(absorptivity_at(options.library, used_wl),
+                                             used_wl, "offset"), wavelengths_nm=used_wl)
     if not options.fit_shift:
         return PlainFit()
     library, max_shift = options.library, options.max_shift_nm
@@ -487,11 +552,14 @@ def _fit_kind(options: _Options, used_wl: np.ndarray) -> FitKind:
 
 def _run_kernel(options: _Options, plan: _Plan) -> dict[str, xr.DataArray]:
     """The kernel's outputs (:func:`mixsolve.solve.block.unmix_block`), labelled, by name."""
-    described = kernel_outputs(isinstance(plan.settings.fit, ShiftFit))
+    described = kernel_outputs(*_nonlinear(plan))
+    inputs = [plan.used, options.pathlength]
+    if plan.reference is not None:
+        inputs.append(plan.reference)
     try:
         outputs = xr.apply_ufunc(
-            unmix_block, plan.used, options.pathlength, kwargs={"settings": plan.settings},
-            input_core_dims=[[WAVELENGTH], []],
+            functools.partial(_block, settings=plan.settings), *inputs,
+            input_core_dims=[[WAVELENGTH]] + [[]] * (len(inputs) - 1),
             output_core_dims=[list(o.dims) for o in described],
             dask="parallelized",
             output_dtypes=[o.dtype for o in described],
@@ -503,10 +571,24 @@ def _run_kernel(options: _Options, plan: _Plan) -> dict[str, xr.DataArray]:
     return {o.name: da for o, da in zip(described, outputs, strict=True)}
 
 
+def _block(spectra: np.ndarray, pathlength_cm: np.ndarray,
+           reference: np.ndarray | None = None, *, settings: BlockSettings
+           ) -> tuple[np.ndarray, ...]:
+    """:func:`unmix_block` with the reference readings as an optional third input."""
+    if reference is None:
+        return unmix_block(spectra, pathlength_cm, settings)
+    return unmix_block(spectra, pathlength_cm, settings, reference)
+
+
+def _nonlinear(plan: _Plan) -> tuple[bool, bool]:
+    """Whether the fit has a shift, and whether a scatter exponent."""
+    return isinstance(plan.settings.fit, ShiftFit), isinstance(plan.settings.fit, ScatterFit)
+
+
 def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> xr.Dataset:
     """The result Dataset: the kernel's outputs and those built here, with their
     attributes (:mod:`mixsolve.solve.outputs`), coordinates and the call's record."""
-    shift = isinstance(plan.settings.fit, ShiftFit)
+    shift, scatter = _nonlinear(plan)
     n_comp = len(plan.components)
     coef = kernel["coef"].assign_coords({TERM: plan.terms})
     # plain variables and one set of coordinates: no alignment per variable
@@ -521,7 +603,7 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
     made["pathlength_cm"] = options.pathlength.variable
     made["unit_factor"] = xr.Variable((COMPONENT,), plan.settings.unit_factor)
     variables = {}
-    for o in result_outputs(shift):
+    for o in result_outputs(shift, scatter):
         variables[o.name] = made[o.name]
         variables[o.name].attrs.update(o.attrs(plan.unit))
     coords = {**dict(plan.used.coords.items()), COMPONENT: plan.components,
@@ -551,6 +633,11 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
             "wavelength_tolerance_nm": options.tolerance_nm,
             **_stray_attrs(options.stray),
             **_bandwidth_attrs(options.bandwidth),
+            "scatter_lambda0_nm": float(plan.used_wl[0]) if scatter else float("nan"),
+            "reference_wavelength_nm": float("nan") if options.reference_nm is None
+            else options.reference_nm,
+            "reference_band_nm": 0.0 if options.reference_nm is None
+            else REFERENCE_HALF_BAND_NM,
         },
     )
     note = _bandwidth_note(options, plan, result)
@@ -603,11 +690,17 @@ def _uncertainty_basis(options: _Options, plan: _Plan) -> str:
 def _fitted_readings(plan: _Plan) -> xr.DataArray:
     """The readings the fit saw: the used spectra, corrected for stray light when a
     fraction is stated (too dark ones NaN; lazy for dask-backed spectra)."""
-    stray = plan.settings.stray
-    if stray is None:
-        return plan.used
-    return xr.apply_ufunc(lambda a: stray.apply(a)[0], plan.used, dask="parallelized",
-                          output_dtypes=[float]).assign_attrs(plan.used.attrs)
+    stray, reference = plan.settings.stray, plan.reference
+    used = plan.used
+    if stray is not None:
+        used = xr.apply_ufunc(lambda a: stray.apply(a)[0], used, dask="parallelized",
+                              output_dtypes=[float]).assign_attrs(used.attrs)
+    if reference is not None:
+        if stray is not None:
+            reference = xr.apply_ufunc(lambda a: stray.apply(a)[0], reference,
+                                       dask="parallelized", output_dtypes=[float])
+        used = (used - reference).assign_attrs(plan.used.attrs)
+    return used
 
 
 def _stray_attrs(stray: StrayCorrection | None) -> dict[str, Any]:

@@ -52,7 +52,7 @@ Spectra = PathLike | Sequence[PathLike]
 #: at unmix's own defaults.
 LS_ONLY = ("window", "wavelengths", "baseline", "method", "weights", "noise", "fit_shift",
            "absorbance_range", "max_shift_nm", "wavelength_tolerance_nm", "stray_fraction",
-           "u_stray_fraction", "bandwidth_nm")
+           "u_stray_fraction", "bandwidth_nm", "reference_wavelength_nm")
 
 
 def unmix_files(library: PathLike, spectra: Spectra, *,
