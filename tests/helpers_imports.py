@@ -18,3 +18,14 @@ def numerical_imports(code: str) -> list[str]:
                          text=True, check=False, timeout=120)
     assert run.returncode == 0, run.stderr
     return json.loads(run.stdout.strip().splitlines()[-1])
+
+
+def modules_after(code: str, names: tuple[str, ...]) -> list[str]:
+    """Run ``code`` in a fresh interpreter; return which of the modules ``names`` (full
+    dotted names) it imported."""
+    report = ("\nimport json, sys\nprint(json.dumps(sorted(set(sys.modules)"
+              f" & set({names!r}))))\n")
+    run = subprocess.run([sys.executable, "-c", code + report], capture_output=True,
+                         text=True, check=False, timeout=120)
+    assert run.returncode == 0, run.stderr
+    return json.loads(run.stdout.strip().splitlines()[-1])
