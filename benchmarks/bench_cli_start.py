@@ -6,8 +6,9 @@ with ``--report`` (the HTML page and its figures) at most 3x. Most of a one-spec
 is starting Python and importing; this shows what a command pays beyond the libraries
 every run needs.
 
-The library (three invented Gaussian bands, specific absorptivities) and the one-spectrum
-CSV (synthetic, seeded noise) are written to a temporary folder first (not timed). Each
+The problem is ``bench_nnls.py``'s (300 wavelengths, 5 invented bands, specific
+absorptivities); the library and a one-spectrum CSV (one of its synthetic mixtures, seeded
+noise) are written to a temporary folder first (not timed). Each
 round then runs, as fresh subprocesses with the same interpreter and alternating:
 
 - ``bare``: ``python -c "import xarray, pandas"``, the reference of the targets;
@@ -37,15 +38,13 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
+from bench_nnls import WAVELENGTHS_NM, design, spectra
+from bench_unmix import library
 
 import mixsolve as ms
 
 ROOT = Path(__file__).resolve().parent.parent
 TARGETS = {"unmix": 1.5, "unmix --report": 3.0}
-WAVELENGTHS_NM = np.arange(380.0, 761.0, 2.0)
-#: Invented bands: (centre nm, width nm, peak specific absorptivity L g⁻¹ cm⁻¹).
-BANDS = {"ochre": (450.0, 30.0, 50.0), "plum": (530.0, 35.0, 40.0), "jade": (620.0, 28.0, 60.0)}
 BARE = "import xarray, pandas"
 LABELLED = ("import xarray, pandas, numpy\n"
             "xarray.DataArray(numpy.zeros(3), dims='x', coords={'x': [1.0, 2.0, 3.0]})")
@@ -54,15 +53,10 @@ CLI = "import sys; sys.path.insert(0, {tree!r}); from mixsolve.cli import main; 
 
 def write_inputs(folder: Path) -> tuple[Path, Path]:
     """The library file and a one-spectrum CSV (wide: wavelength_nm, one column)."""
-    eps = np.vstack([h * np.exp(-0.5 * ((WAVELENGTHS_NM - c) / w) ** 2)
-                     for c, w, h in BANDS.values()])
-    lib = ms.import_absorptivities(
-        ms.make_spectra(eps, WAVELENGTHS_NM, list(BANDS)).rename(sample="component"),
-        "L/(g*cm)", source="invented benchmark bands")
-    ms.write_library(lib, folder / "lib.nc")
-    rng = np.random.default_rng(19)
-    absorbance = np.array([0.006, 0.004, 0.003]) @ eps + rng.normal(0, 0.002, eps.shape[1])
-    rows = [f"{w:g},{a:.5f}" for w, a in zip(WAVELENGTHS_NM, absorbance, strict=True)]
+    k = design()
+    ms.write_library(library(k), folder / "lib.nc")
+    absorbance = spectra(1, k, seed=19)[0]
+    rows = [f"{w:.4f},{a:.5f}" for w, a in zip(WAVELENGTHS_NM, absorbance, strict=True)]
     (folder / "one.csv").write_text("wavelength_nm,extract_1\n" + "\n".join(rows) + "\n")
     return folder / "lib.nc", folder / "one.csv"
 
@@ -116,7 +110,7 @@ def main() -> None:
             if args.base:
                 subprocess.run(["git", "-C", str(ROOT), "worktree", "remove", "--force",
                                 str(base)], check=False)
-    print(f"one spectrum ({WAVELENGTHS_NM.size} wavelengths, {len(BANDS)} components), "
+    print(f"one spectrum ({WAVELENGTHS_NM.size} wavelengths, {design().shape[1]} components), "
           f"CSV in and out; best of {args.rounds} rounds, {os.cpu_count()} CPU(s)")
     print(f"  {'':<28} {'wall':>6}    {'ratio':>5}       {'CPU':>6}    {'ratio':>5}"
           "  (CPU = user + system: less sensitive to other load)")
