@@ -55,7 +55,6 @@ from typing import Literal, NamedTuple
 
 import numpy as np
 import xarray as xr
-from scipy.stats import chi2
 
 from mixsolve.errors import InputError
 from mixsolve.names import per_component
@@ -184,6 +183,8 @@ def preparation_scale(s_a: float, s_b: float, dof: int, level: float = 0.95) -> 
     ``dof`` degrees of freedom) shows it too small at ``level``: s_a² > s_b²·χ²_level(ν)/ν
     (``scipy.stats.chi2``); then ``s_a``. Without a declaration (``s_b`` NaN), ``s_a``.
     """
+    from scipy.stats import chi2  # here: scipy.stats costs ~0.5 s to import
+
     if not np.isfinite(s_b):
         return s_a
     if dof > 0 and s_a**2 > s_b**2 * chi2.ppf(level, dof) / dof:

@@ -19,7 +19,6 @@ from __future__ import annotations
 from dataclasses import asdict, dataclass
 
 import numpy as np
-from scipy.optimize import minimize_scalar
 
 from mixsolve.errors import InputError
 from mixsolve.spectra import check_number
@@ -110,6 +109,8 @@ class NoiseModel:
         Returns ``inf`` when the error keeps falling to the top of the search range
         (pure flicker noise has no minimum).
         """
+        from scipy.optimize import minimize_scalar  # only this search needs it
+
         upper = min(6.0, self.saturation_absorbance())
         res = minimize_scalar(lambda a: float(np.log(self.relative_concentration_error(a))),
                               bounds=(0.01, upper), method="bounded",

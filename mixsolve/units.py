@@ -9,12 +9,14 @@ with pint and converted to the canonical one of the same kind.
 from __future__ import annotations
 
 from functools import lru_cache
-from typing import Literal
+from typing import TYPE_CHECKING, Literal
 
 import numpy as np
-import pint
 
 from mixsolve.errors import UnitError
+
+if TYPE_CHECKING:  # pint is imported when a unit is first parsed: a run in the library's
+    import pint  # own units never needs it (issue 19: pay only for what a command uses)
 
 Basis = Literal["molar", "mass"]
 
@@ -26,7 +28,9 @@ CONCENTRATION_UNITS: dict[str, str] = {"molar": "mol/L", "mass": "g/L"}
 
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
-    """Return the shared pint registry (created once)."""
+    """Return the shared pint registry (created once, with pint imported, on first use)."""
+    import pint
+
     ureg = pint.UnitRegistry()
     # Common lab spellings pint does not know by default.
     ureg.define("molar = mol / L = M")
@@ -34,6 +38,8 @@ def registry() -> pint.UnitRegistry:
 
 
 def _parse(text: str, what: str) -> pint.Unit:
+    import pint
+
     ureg = registry()
     cleaned = str(text).strip().replace("µ", "u").replace("μ", "u")
     if not cleaned:

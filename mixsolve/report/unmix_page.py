@@ -13,7 +13,6 @@ from mixsolve.report.budget_text import format_budget
 from mixsolve.report.figures import library_figure, precision_figure, sample_figure
 from mixsolve.report.tables import results_table
 from mixsolve.report.text import _result_notes, run_note_sentences
-from mixsolve.uncertainty.budget import budget_table
 
 #: Most sample figures drawn; beyond this the worst fits (largest RMS residual) are shown.
 MAX_SAMPLE_FIGURES = 36
@@ -43,6 +42,9 @@ def unmix_report(result: xr.Dataset, library: xr.Dataset, *, title: str = "",
         ``MAX_SAMPLE_FIGURES``, the worst fits first when there are more), the predicted
         relative error against absorbance, and the cautions.
     """
+    if budget is not None:  # imported only then: the budget's modules are not cheap
+        from mixsolve.uncertainty.budget import budget_table
+
     samples = [str(s) for s in result["sample"].values]
     used = np.asarray(json.loads(result.attrs["wavelengths_nm"]))
     model_json = result.attrs.get("noise_model", "")

@@ -27,7 +27,6 @@ import os
 from typing import Literal
 
 import numpy as np
-from scipy.optimize import nnls as _scipy_nnls
 
 from mixsolve.errors import InputError
 
@@ -111,6 +110,8 @@ def scipy_fallback(r: np.ndarray, y: np.ndarray, constrained: np.ndarray) -> np.
         Coefficients of the scaled columns: the constrained ones by scipy's NNLS on the
         problem with the free columns projected out, then the free ones by least squares.
     """
+    from scipy.optimize import nnls as _scipy_nnls  # scipy.optimize: only this fallback
+
     free = ~constrained
     r_con, r_free = r[:, constrained], r[:, free]
     q = np.linalg.qr(r_free)[0] if free.any() else np.zeros((r.shape[0], 0))

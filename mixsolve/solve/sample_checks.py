@@ -24,7 +24,6 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
-from scipy import stats
 
 from mixsolve.noise import NoiseModel
 
@@ -51,6 +50,8 @@ def target_absorbance(low: float, high: float) -> float:
 def lack_of_fit(residual: np.ndarray, fitted: np.ndarray, dof: np.ndarray,
                 noise: NoiseModel) -> tuple[np.ndarray, np.ndarray]:
     """Ratio √(χ²/dof) and its p-value per spectrum (NaN where dof = 0)."""
+    from scipy import stats  # here, not above: scipy.stats costs ~0.5 s to import
+
     sigma = noise.sigma_absorbance(np.clip(fitted, 0.0, None))
     chi2 = np.nansum((residual / sigma) ** 2, axis=-1)
     dof = np.asarray(dof, dtype=float)
@@ -66,6 +67,8 @@ def runs_test(residual: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]
     NaN where fewer than ``MIN_POINTS_RUNS`` non-zero residuals are available or all share
     one sign.
     """
+    from scipy import stats
+
     lead = residual.shape[:-1]
     flat = residual.reshape(-1, residual.shape[-1])
     z = np.full(flat.shape[0], np.nan)

@@ -35,7 +35,6 @@ docs/uncertainty.md) rather than through significant digits:
 from __future__ import annotations
 
 import numpy as np
-from scipy.interpolate import CubicSpline
 
 from mixsolve.spectra import check_number
 from mixsolve.uncertainty.inputs import DEFAULT_MC_TOLERANCE, MIN_DRAWS
@@ -86,6 +85,8 @@ def _sample_draws(model: MeasurementModel, s: SampleModel, draws: int,
                 delta = rng.standard_normal(size) * model.wavelength_u_nm
             else:
                 delta = rng.uniform(-1.0, 1.0, size) * model.wavelength_u_nm * np.sqrt(3.0)
+            from scipy.interpolate import CubicSpline  # only a wavelength term needs it
+
             spline = CubicSpline(model.grid_nm, model.absorptivity_grid, axis=1)
             moved = spline(s.wavelengths_nm[None, :] + delta[:, None])  # (n_comp, size, n)
             here = spline(s.wavelengths_nm)  # (n_comp, n)

@@ -22,7 +22,6 @@ from typing import Any
 import xarray as xr
 
 from mixsolve.errors import InputError
-from mixsolve.instrument.repeatability import repeatability
 from mixsolve.report.budget_text import format_budget
 from mixsolve.spectra import check_number
 from mixsolve.uncertainty.corrections import (
@@ -174,6 +173,8 @@ def file_budget_inputs(options: MeasurementOptions, corrections: Corrections,
     if corrections.u_offset_nm is not None:
         found["wavelength_u_nm"] = corrections.u_offset_nm
     if repeat_scans is not None:
+        from mixsolve.instrument.repeatability import repeatability  # scipy.stats: ~0.5 s
+
         sd = repeatability(repeat_scans)["sd"]
         found["noise_sd"] = correct_spectra(sd, offset_nm=corrections.offset_nm)[0]
     return budget_inputs(options.inputs, **found)

@@ -29,11 +29,9 @@ from mixsolve.io.spectra_io import (
     write_notes,
 )
 from mixsolve.pls.model import MODEL_KIND
-from mixsolve.pls.predict import predict
 from mixsolve.report.tables import results_table
 from mixsolve.solve.unmix import unmix
 from mixsolve.spectra import Quantity
-from mixsolve.uncertainty.budget import budget_table, uncertainty_budget
 from mixsolve.workflows.cluster import compute, dask_client, require_scale
 from mixsolve.workflows.measurement import (
     Corrections,
@@ -181,6 +179,8 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
         if report is not None:
             raise InputError("report: the HTML page covers least-squares results; for a PLS "
                              "model use the results CSV and the calibration figures")
+        from mixsolve.pls.predict import predict  # scikit-learn: only a PLS model needs it
+
         measured, done = _corrected(_read(spectra, quantity, notes), extra, quantity)
         result = predict(measured, model, pathlength_cm=pathlength_cm, unit=unit)
     else:
@@ -193,6 +193,8 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
                        baseline=baseline,  # type: ignore[arg-type]
                        pathlength_cm=pathlength_cm, unit=unit, **options)
         if extra.budget is not None:  # built before anything is written
+            from mixsolve.uncertainty.budget import budget_table, uncertainty_budget
+
             inputs = file_budget_inputs(extra, done, scans)
             result = attach_budget(result, uncertainty_budget(result, lib, inputs))
             budget_rows = budget_table(attached_budget(result))  # type: ignore[arg-type]
