@@ -106,6 +106,9 @@ class BlockSettings:
     stray: StrayCorrection | None = None
     #: readings over which noise may be correlated (:func:`mixsolve.solve.trust.structure_lag`)
     structure_lag: int | None = None
+    #: (m, n, n) the library's error left in the residual, for the lack-of-fit test
+    #: (:func:`mixsolve.library_error.library_residual_form`); None: exact library
+    library_residual: np.ndarray | None = None
 
 
 def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings
@@ -245,7 +248,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
             settings.method, kind.max_shift_nm)
         residual = spectra - fitted
         lack = None if settings.noise is None else lack_of_fit(
-            residual, fitted, dof, settings.noise)
+            residual, fitted, dof, settings.noise, coef[:, :n], settings.library_residual)
         summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + the shift
                             settings.structure_lag)
         return _Fitted(coef, se, dof, status, summary, lack,
@@ -260,7 +263,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
         fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights,
                           structure_lag=settings.structure_lag)
     lack = None if settings.noise is None else lack_of_fit_model(
-        spectra, fit.coef, settings.design, fit.dof, settings.noise)
+        spectra, fit.coef, settings.design, fit.dof, settings.noise, settings.library_residual)
     return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {})
 
 

@@ -23,6 +23,7 @@ from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, flag_texts
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.library_error import (
     library_quadratic,
+    library_residual_form,
     library_sensitivity,
     pattern_counts,
     patterns_at,
@@ -365,6 +366,7 @@ def _plan(options: _Options) -> _Plan:
         factor = factor * conversion_factor(conc_unit, options.unit,
                                             library["molar_mass_g_per_mol"].values)
         conc_unit = options.unit
+    patterns = patterns_at(library, used_wl)
     settings = BlockSettings(
         design=design, components=components, method=options.method,
         noise=_fit_noise(options), fit=_fit_kind(options, used_wl),
@@ -373,12 +375,14 @@ def _plan(options: _Options) -> _Plan:
         design_status=ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE else 0,
         unit_factor=factor, shift_matrix=shift_bias_matrix(library, design, used_wl),
         library_quadratic=library_quadratic(
-            library_sensitivity(design, patterns_at(library, used_wl)), len(components)),
+            library_sensitivity(design, patterns), len(components)),
         tolerance_nm=options.tolerance_nm,
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
                                                    if d != WAVELENGTH]))),
         stray=options.stray,
-        structure_lag=structure_lag(used_wl))
+        structure_lag=structure_lag(used_wl),
+        library_residual=None if options.noise is None else library_residual_form(
+            design, patterns))
     return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings)
 
 
