@@ -78,13 +78,15 @@ def lack_of_fit(residual: np.ndarray, fitted: np.ndarray, dof: np.ndarray,
     for weighted and shift fits it is an approximation.
     """
     sigma = noise.sigma_absorbance(np.clip(fitted, 0.0, None))
-    w = (1.0 / sigma) ** 2
-    chi2 = np.nansum(residual**2 * w, axis=-1)
+    chi2 = np.nansum((residual / sigma) ** 2, axis=-1)
     dof = np.asarray(dof, dtype=float)
     expected = dof
     if library_form is not None and coef is not None:
         m, n, _ = library_form.shape
-        w = np.where(np.isnan(residual), 0.0, w).reshape(-1, m)
+        w = np.reciprocal(sigma, out=sigma)
+        w *= w  # 1/σᵢ², 0 where the reading is missing
+        missing = np.isnan(residual)
+        w = (np.where(missing, 0.0, w) if missing.any() else w).reshape(-1, m)
         x = np.asarray(coef, dtype=float).reshape(-1, n)
         outer = (x[:, :, None] * x[:, None, :]).reshape(-1, n * n)
         extra = np.einsum("sk,sk->s", w @ library_form.reshape(m, n * n), outer)
