@@ -32,6 +32,15 @@ import mixsolve as ms
 from mixsolve.noise import PRESETS
 
 
+def _two_lines(code: str) -> tuple[str, str]:
+    """A column heading on two lines of at most 10 characters, split at a separator."""
+    if len(code) <= 10:
+        return "", code
+    cuts = [i for i, ch in enumerate(code) if ch in "_ "]
+    cut = min(cuts, key=lambda i: abs(i - len(code) / 2), default=10)
+    return code[:cut][:10], code[cut + 1:][:10]
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--labs", type=int, default=10,
@@ -59,12 +68,15 @@ def main() -> None:
         print(f"flags not in this version (columns '-'): {', '.join(missing)}")
     shown = [c for c in table.columns if c != "n"]
     shown = [c for c in shown if not table[c].isna().all() or c in fs.CODE_PROBLEMS]
+    split = [_two_lines(c) for c in shown]
     head = f"{'problem':<10} {'option':<17} {'library':<10}" + "".join(
-        f" {c[:11]:>11}" for c in shown) + f" {'n':>6}"
-    print(head)
-    print("-" * len(head))
+        f" {top:>10}" for top, _ in split)
+    second = f"{'':<39}" + "".join(f" {low:>10}" for _, low in split) + f" {'n':>6}"
+    print(head.rstrip())
+    print(second)
+    print("-" * len(second))
     for (problem, option, library), row in table.iterrows():
-        cells = "".join(f" {'-' if np.isnan(row[c]) else f'{row[c]:.3f}':>11}" for c in shown)
+        cells = "".join(f" {'-' if np.isnan(row[c]) else f'{row[c]:.3f}':>10}" for c in shown)
         print(f"{problem:<10} {option:<17} {library:<10}{cells} {int(row['n']):>6}")
     print()
     for code, worst in fs.false_alarms(table).items():
