@@ -14,7 +14,12 @@ patterns (25 standards' scatter, 5 preparation, 5 stock). Timed in this one proc
 The ratio with/without is the target of issue 14 (no worse than 1.3). Printed for the
 engine ``auto`` picks and for the numpy engine, eager, and for a dask-backed run.
 
-Run: ``python benchmarks/bench_library_error.py [--sizes 10000,100000]``. Never a test.
+With ``--noise PRESET`` (or a σ_A in AU) every call also states the noise, so the
+lack-of-fit test runs, and with the library's error it adds the error the library leaves
+in the residual (a product of m·n² per spectrum).
+
+Run: ``python benchmarks/bench_library_error.py [--sizes 10000,100000] [--noise PRESET]``.
+Never a test.
 """
 
 from __future__ import annotations
@@ -57,12 +62,18 @@ def main() -> None:
     parser.add_argument("--sizes", default="10000,100000")
     parser.add_argument("--chunk", type=int, default=32768)
     parser.add_argument("--repeat", type=int, default=3)
+    parser.add_argument("--noise", default=None,
+                        help="state a noise preset or σ_A (AU) to every call, so the lack-of-fit "
+                        "test runs too (with the library's error left in the residual) [none]")
     args = parser.parse_args()
+    options = {} if args.noise is None else {
+        "noise": float(args.noise) if args.noise[0].isdigit() else args.noise}
     warnings.simplefilter("ignore")
     k = design()
     with_error = library_from_standards(k)
     without = with_error.drop_vars(["error_pattern", "error_kind", "error_source"])
     without["u_absorptivity"][:] = np.nan
+    print(f"noise stated: {args.noise or 'none (no lack-of-fit test)'}")
     print(f"library: {with_error.sizes['error_source']} error patterns, "
           f"{with_error.sizes['component']} components, {with_error.sizes['wavelength']} "
           "wavelengths")
@@ -72,9 +83,10 @@ def main() -> None:
     for n in (int(s) for s in args.sizes.split(",")):
         sp = labelled(spectra(n, k))
         runs = {
-            "eager, auto": lambda lib, sp=sp: ms.unmix(sp, lib),
+            "eager, auto": lambda lib, sp=sp: ms.unmix(sp, lib, **options),
             "eager, numpy": None,
-            "dask, auto": lambda lib, sp=sp: ms.unmix(sp.chunk({"sample": args.chunk}), lib)
+            "dask, auto": lambda lib, sp=sp: ms.unmix(sp.chunk({"sample": args.chunk}), lib,
+                                                      **options)
             .drop_vars(["fitted", "residual"]).compute(),
         }
         for name, run in runs.items():

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import tempfile
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -198,11 +199,15 @@ def lab_library(cond: Condition, rng: np.random.Generator) -> xr.Dataset:
     return ms.build_library(standards, sheet, source="synthetic coverage study (standards)")
 
 
-def lab_standards(cond: Condition, rng: np.random.Generator
+def lab_standards(cond: Condition, rng: np.random.Generator,
+                  read: Callable[[np.ndarray, np.random.Generator], np.ndarray] | None = None
                   ) -> tuple[xr.DataArray, pd.DataFrame]:
     """One lab's standards: five per component at ``STANDARD_LEVELS_AU``, made up with the
     condition's preparation and stock errors, read with its noise; and the standards sheet
-    (nominal concentrations, and what the lab declares, see ``Condition.declared``)."""
+    (nominal concentrations, and what the lab declares, see ``Condition.declared``).
+
+    ``read(true_au, rng)``: how the lab's instrument reads true absorbances (default
+    :func:`measure` with the condition's noise); benchmarks/flag_sim.py passes its own."""
     eps = absorptivity()
     names = list(BANDS)
     rows, true_au = [], []
@@ -220,7 +225,9 @@ def lab_standards(cond: Condition, rng: np.random.Generator
                 row.update(stock=f"stock of {comp}", u_stock_rel=cond.stock_rel)
             rows.append(row)
     sheet = pd.DataFrame(rows)
-    standards = ms.make_spectra(measure(np.array(true_au), cond, rng), WAVELENGTHS_NM,
+    readings = (measure(np.array(true_au), cond, rng) if read is None
+                else read(np.array(true_au), rng))
+    standards = ms.make_spectra(readings, WAVELENGTHS_NM,
                                 sheet["sample"].tolist(), pathlength_cm=1.0)
     return standards, sheet
 

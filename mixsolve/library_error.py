@@ -369,6 +369,34 @@ def library_quadratic(sensitivity: np.ndarray, n_out: int | None = None) -> np.n
     return np.einsum("fjn,fjm->jnm", rows, rows)
 
 
+def library_residual_form(design: np.ndarray, patterns: np.ndarray) -> np.ndarray | None:
+    """The library's error left in the residual, as one quadratic form per wavelength.
+
+    ``design`` (m, p) and ``patterns`` (F, m, n) as for :func:`library_sensitivity`.
+
+    Returns
+    -------
+    ndarray, shape (m, n, n), or None
+        K_i = Σ_f R_f[i]ᵀ R_f[i] with R_f = (I − H)·P_f and H = D·D⁺ the hat matrix of the
+        fit: a library in error by Σ_f z_f·P_f leaves (I − H)·Σ_f z_f P_f·x in the residual
+        of a spectrum with component coefficients x, of expected square xᵀ K_i x at reading
+        i. None when the library states no error (F = 0).
+
+    Notes
+    -----
+    A pattern along a component's own spectrum (``preparation``, ``stock``,
+    ``declared_scale``) lies in the span of D and leaves nothing: only the parts of the
+    patterns the fit cannot absorb (the standards' scatter) count. Summed over the readings,
+    Σ_i xᵀ K_i x = xᵀ (Σ_f P_fᵀ(I − H)P_f) x, the expected residual sum of squares the
+    library adds; per reading, so that it can be weighted by 1/σ_i²
+    (:func:`mixsolve.solve.sample_checks.lack_of_fit`).
+    """
+    if patterns.shape[0] == 0:
+        return None
+    left = patterns - np.einsum("mp,fpn->fmn", design, library_sensitivity(design, patterns))
+    return np.einsum("fia,fib->iab", left, left)
+
+
 def library_variance(coef: np.ndarray, quadratic: np.ndarray) -> np.ndarray:
     """Variance of each coefficient from the library's error, per spectrum.
 

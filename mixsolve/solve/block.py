@@ -137,6 +137,9 @@ class BlockSettings:
     reference_readings: int = 0
     #: (n,) G·1 of the components: how a reference reading's error moves each coefficient
     reference_gain: np.ndarray | None = None
+    #: (m, n, n) the library's error left in the residual, for the lack-of-fit test
+    #: (:func:`mixsolve.library_error.library_residual_form`); None: exact library
+    library_residual: np.ndarray | None = None
 
 
 def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockSettings,
@@ -304,7 +307,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings,
             settings.method, kind.max_shift_nm)
         residual = spectra - fitted
         lack = None if settings.noise is None else lack_of_fit(
-            residual, fitted, dof, settings.noise)
+            residual, fitted, dof, settings.noise, coef[:, :n], settings.library_residual)
         summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + the shift
                             settings.structure_lag)
         status = status | shifted_status(shift, u_shift)
@@ -321,7 +324,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings,
         fit = fit_spectra(spectra, settings.design, n, settings.method, weights=weights,
                           structure_lag=settings.structure_lag)
     lack = None if settings.noise is None else lack_of_fit_model(
-        spectra, fit.coef, settings.design, fit.dof, settings.noise)
+        spectra, fit.coef, settings.design, fit.dof, settings.noise, settings.library_residual)
     # the probe is orthogonal to the design: its product with the residual is that with
     # the readings, whatever the coefficients
     return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {},

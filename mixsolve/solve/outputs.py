@@ -115,8 +115,9 @@ OUTPUTS: tuple[Output, ...] = (
     Output("structure_z", (), "autocorrelation of the residual at lag s + 1 in units of its "
            "standard error for noise correlated over at most s readings, s the readings "
            "within 5 nm (Bartlett 1946); structured_residual above 3.09"),
-    Output("lack_of_fit_ratio", (), "√(χ²/dof) against the noise model (NaN without one)"),
-    Output("lack_of_fit_p", (), "p = P(χ²_dof ≥ χ²) (NaN without a noise model)"),
+    Output("lack_of_fit_ratio", (), "√(χ²/E[χ²]) against the noise model and the library's "
+           "stated error, E[χ²] = dof + what the library leaves (NaN without a noise model)"),
+    Output("lack_of_fit_p", (), "p = P(χ²_dof ≥ χ²·dof/E[χ²]) (NaN without a noise model)"),
     Output("suggested_dilution", (), "dilution factor bringing the peak to sqrt(low*high) AU",
            "1", meaning_attr=True),
     Output("flags", (), "the spectrum's ';'-joined flag codes (docs/flags.md)",

@@ -8,7 +8,8 @@ and return arrays over the leading axes.
   geometric middle of the reliable range) that would bring the peak there. d > 1: dilute
   d-fold (or use a cell 1/d as long); d < 1: concentrate 1/d-fold or use a cell 1/d longer.
 - Lack of fit (needs a noise model): χ² = Σ (rᵢ/σᵢ)² with σᵢ = σ_A(fitted Aᵢ); the ratio
-  √(χ²/dof) is 1 when the residual is as large as the noise predicts; p = P(χ²_dof ≥ χ²).
+  √(χ²/E[χ²]) is 1 when the residual is as large as the noise (and the library's stated
+  error) predicts; p = P(χ²_dof ≥ χ²) for an exact library (:func:`lack_of_fit`).
 - Residual structure: the Wald–Wolfowitz runs test on the signs of the residual in
   wavelength order. Too few runs (long stretches of one sign) mean the residual has shape —
   an unmodelled absorber, scatter or a wavelength shift — rather than noise. One-sided
@@ -48,16 +49,55 @@ def target_absorbance(low: float, high: float) -> float:
 
 
 def lack_of_fit(residual: np.ndarray, fitted: np.ndarray, dof: np.ndarray,
-                noise: NoiseModel) -> tuple[np.ndarray, np.ndarray]:
-    """Ratio √(χ²/dof) and its p-value per spectrum (NaN where dof = 0)."""
+                noise: NoiseModel, coef: np.ndarray | None = None,
+                library_form: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Ratio √(χ²/E[χ²]) and its p-value per spectrum (NaN where dof = 0).
+
+    Parameters
+    ----------
+    residual, fitted : arrays, shape (..., m)
+        Residual and fitted absorbance (AU); NaN where a reading is missing.
+    dof : array, shape (...)
+        Degrees of freedom of the fit, n − p.
+    noise : NoiseModel
+        σ_i = σ_A(fitted Aᵢ).
+    coef : array, shape (..., n), optional
+        The component coefficients x (with ``library_form``).
+    library_form : array, shape (m, n, n), optional
+        :func:`mixsolve.library_error.library_residual_form`: the library's error left in
+        the residual; None: the library is taken as exact.
+
+    Notes
+    -----
+    χ² = Σ (rᵢ/σᵢ)². With an exact library E[χ²] = dof. A library with error patterns P_f
+    leaves (I − H)·δD·x in the residual, of expected size L = Σᵢ xᵀKᵢx/σᵢ² (readings
+    present), so E[χ²] = dof + L: the residual is compared with what the noise *and* the
+    library's stated error predict. The test scales the χ² distribution to that mean
+    (Satterthwaite's approximation, the library part taken as noise-like over the same
+    readings): p = P(χ²_dof ≥ χ²·dof/(dof + L)), ratio = √(χ²/(dof + L)); L = 0 gives the
+    plain test, p = P(χ²_dof ≥ χ²). The form Kᵢ is that of the plain fit's hat matrix;
+    for weighted and shift fits it is an approximation.
+    """
     from scipy import stats  # here, not above: scipy.stats costs ~0.5 s to import
 
     sigma = noise.sigma_absorbance(np.clip(fitted, 0.0, None))
     chi2 = np.nansum((residual / sigma) ** 2, axis=-1)
     dof = np.asarray(dof, dtype=float)
+    expected = dof
+    if library_form is not None and coef is not None:
+        m, n, _ = library_form.shape
+        w = np.reciprocal(sigma, out=sigma)
+        w *= w  # 1/σᵢ², 0 where the reading is missing
+        missing = np.isnan(residual)
+        w = (np.where(missing, 0.0, w) if missing.any() else w).reshape(-1, m)
+        x = np.asarray(coef, dtype=float).reshape(-1, n)
+        outer = (x[:, :, None] * x[:, None, :]).reshape(-1, n * n)
+        extra = np.einsum("sk,sk->s", w @ library_form.reshape(m, n * n), outer)
+        expected = dof + np.where(np.isfinite(extra), extra, 0.0).reshape(dof.shape)
     with np.errstate(divide="ignore", invalid="ignore"):
-        ratio = np.where(dof > 0, np.sqrt(chi2 / dof), np.nan)
-        p = np.where(dof > 0, stats.chi2.sf(chi2, np.where(dof > 0, dof, 1)), np.nan)
+        ratio = np.where(dof > 0, np.sqrt(chi2 / expected), np.nan)
+        scaled = chi2 * dof / expected
+        p = np.where(dof > 0, stats.chi2.sf(scaled, np.where(dof > 0, dof, 1)), np.nan)
     return ratio, p
 
 

@@ -129,7 +129,9 @@ def runs_from_summary(summary: ResidualSummary) -> tuple[np.ndarray, np.ndarray,
 
 
 def lack_of_fit_model(values: np.ndarray, coef: np.ndarray, design: np.ndarray,
-                      dof: np.ndarray, noise: NoiseModel) -> tuple[np.ndarray, np.ndarray]:
+                      dof: np.ndarray, noise: NoiseModel,
+                      library_form: np.ndarray | None = None
+                      ) -> tuple[np.ndarray, np.ndarray]:
     """:func:`~mixsolve.solve.sample_checks.lack_of_fit` of r = values − coef·Dᵀ.
 
     Parameters
@@ -140,6 +142,10 @@ def lack_of_fit_model(values: np.ndarray, coef: np.ndarray, design: np.ndarray,
     design : array, shape (m, p)
     dof : array of int, shape (...)
     noise : NoiseModel
+    library_form : array, shape (m, n, n), optional
+        The library's error left in the residual
+        (:func:`mixsolve.library_error.library_residual_form`), n the leading components
+        of ``coef``; None: the library is taken as exact.
 
     Returns
     -------
@@ -153,7 +159,9 @@ def lack_of_fit_model(values: np.ndarray, coef: np.ndarray, design: np.ndarray,
     ratio = np.full(flat.shape[0], np.nan)
     p = np.full(flat.shape[0], np.nan)
     for rows, _, fitted, residual in model_blocks(flat, coef, design):
-        ratio[rows], p[rows] = lack_of_fit(residual, fitted, dof[rows], noise)
+        n = 0 if library_form is None else library_form.shape[1]
+        ratio[rows], p[rows] = lack_of_fit(residual, fitted, dof[rows], noise,
+                                           coef[rows, :n], library_form)
     return ratio.reshape(lead), p.reshape(lead)
 
 

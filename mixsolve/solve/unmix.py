@@ -23,6 +23,7 @@ from mixsolve.flags import ILL_CONDITIONED, VLEN_STR, RunNote, add_run_notes, fl
 from mixsolve.library import COMPONENT, absorptivity_at, check_library
 from mixsolve.library_error import (
     library_quadratic,
+    library_residual_form,
     library_sensitivity,
     pattern_counts,
     patterns_at,
@@ -463,6 +464,7 @@ def _plan(options: _Options) -> _Plan:
         factor = factor * conversion_factor(conc_unit, options.unit,
                                             library["molar_mass_g_per_mol"].values)
         conc_unit = options.unit
+    patterns = patterns_at(library, used_wl)
     settings = BlockSettings(
         design=design, components=components, method=options.method,
         noise=_fit_noise(options), fit=_fit_kind(options, used_wl),
@@ -471,7 +473,7 @@ def _plan(options: _Options) -> _Plan:
         design_status=ILL_CONDITIONED if condition > ILL_CONDITIONED_ABOVE else 0,
         unit_factor=factor, shift_matrix=shift_bias_matrix(library, design, used_wl),
         library_quadratic=library_quadratic(
-            library_sensitivity(design, patterns_at(library, used_wl)), len(components)),
+            library_sensitivity(design, patterns), len(components)),
         tolerance_nm=options.tolerance_nm,
         engine=choose_engine("auto", int(np.prod([used.sizes[d] for d in used.dims
                                                    if d != WAVELENGTH]))),
@@ -479,7 +481,9 @@ def _plan(options: _Options) -> _Plan:
         structure_lag=structure_lag(used_wl),
         scatter_probe=None if options.baseline == "scatter" else scatter_probe(design, used_wl),
         reference_readings=k_ref,
-        reference_gain=None if reference is None else reference_gain(design, len(components)))
+        reference_gain=None if reference is None else reference_gain(design, len(components)),
+        library_residual=None if options.noise is None else library_residual_form(
+            design, patterns))
     return _Plan(used, used_wl, left_out, components, terms, condition, conc_unit, settings,
                  reference)
 
