@@ -29,9 +29,12 @@ from threadpoolctl import ThreadpoolController
 from mixsolve.errors import InfiniteReadingError
 from mixsolve.flags import (
     ILL_CONDITIONED,
+    LACK_OF_FIT,
     MISSING,
     SATURATED,
     SCATTER,
+    SHIFTED,
+    STRUCTURED,
     TOO_DARK,
     UNMODELLED_SCATTER,
     flag_texts,
@@ -50,6 +53,7 @@ from mixsolve.solve.shift_fit import fit_with_shift
 from mixsolve.solve.stray import StrayCorrection, coefficient_sensitivity
 from mixsolve.solve.trust import (
     CHECK_NAMES,
+    STRUCTURE_Z_LIMIT,
     lack_of_fit_model,
     own_design_status,
     shifted_status,
@@ -275,6 +279,9 @@ class _Fitted(NamedTuple):
     stray: tuple[np.ndarray, np.ndarray] | None = None
     #: the scatter figure (:func:`_amplitude_z`, :func:`_probe_z`); NaN where none
     scatter_z: np.ndarray | None = None
+    #: where the fit extended by the scatter probe still leaves a structured residual: the
+    #: residual is not scatter-shaped (a shift or an absorber), so no ``UNMODELLED_SCATTER``
+    scatter_unexplained: np.ndarray | None = None
 
 
 def _fit_task(spectra: np.ndarray, settings: BlockSettings,
@@ -293,7 +300,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings,
             engine=settings.engine)
         residual = spectra - fitted
         lack = None if settings.noise is None else lack_of_fit(
-            residual, fitted, dof, settings.noise)
+            residual, fitted, dof, settings.noise, coef[:, :n], settings.library_residual)
         summary = summarise(spectra, residual, settings.design.shape[1] + 1,  # + exponent
                             settings.structure_lag)
         return _Fitted(coef, se, dof, status, summary, lack,
@@ -314,7 +321,7 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings,
         return _Fitted(coef, se, dof, status, summary, lack,
                        {"wavelength_shift_nm": shift, "u_wavelength_shift_nm": u_shift,
                         "fitted": fitted, "residual": residual},
-                       scatter_z=_probe_z(residual, summary, dof, settings))
+                       None, *_probe_z(residual, summary, dof, settings))
     fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine,
                       structure_lag=settings.structure_lag)
     if isinstance(kind, WeightedFit):
@@ -327,8 +334,8 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings,
         spectra, fit.coef, settings.design, fit.dof, settings.noise, settings.library_residual)
     # the probe is orthogonal to the design: its product with the residual is that with
     # the readings, whatever the coefficients
-    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {},
-                   scatter_z=_probe_z(spectra, fit.summary, fit.dof, settings, fit.coef))
+    return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {}, None,
+                   *_probe_z(spectra, fit.summary, fit.dof, settings, fit.coef))
 
 
 def _reading_checks(fit: _Fitted, spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
@@ -371,7 +378,8 @@ def _amplitude_z(amplitude: np.ndarray, u_amplitude: np.ndarray) -> np.ndarray:
 
 
 def _probe_z(values: np.ndarray, summary: ResidualSummary, dof: np.ndarray,
-             settings: BlockSettings, coef: np.ndarray | None = None) -> np.ndarray:
+             settings: BlockSettings, coef: np.ndarray | None = None
+             ) -> tuple[np.ndarray, np.ndarray]:
     """z = vᵀr/(f′·s′) of the residual r along the unit λ⁻⁴ probe v orthogonal to the
     design; NaN without a probe, with missing readings (v is orthogonal on all of them
     only) or without dof.
@@ -383,11 +391,17 @@ def _probe_z(values: np.ndarray, summary: ResidualSummary, dof: np.ndarray,
     so that a strong scatter residual does not widen its
     own yardstick: first a screening z from the fit's own s and f, then s′ and f′ for the
     spectra it puts above ``SCREEN_Z`` only (a t statistic of the extended linear model).
+
+    Also returns where the extended fit's residual is still structured (its structure z
+    above ``trust.STRUCTURE_Z_LIMIT``): the probe then does not explain the residual's
+    shape — a wavelength shift's derivative or an absorber's band projects onto the λ⁻⁴
+    shape too — and the residual is not called scatter (``structured_residual`` says it).
     """
     basis = settings.scatter_probe
     n = values.shape[0]
+    unexplained = np.zeros(n, dtype=bool)
     if basis is None:
-        return np.full(n, np.nan)
+        return np.full(n, np.nan), unexplained
     along = values @ basis[:, -1]
     with np.errstate(invalid="ignore", divide="ignore"):
         s = np.sqrt(summary.sum_squares / np.where(dof > 0, dof, np.nan))
@@ -402,7 +416,8 @@ def _probe_z(values: np.ndarray, summary: ResidualSummary, dof: np.ndarray,
             k = dof[rows] - basis.shape[1]
             s_rest = np.sqrt(extended.sum_squares / np.where(k > 0, k, np.nan))
             z[rows] = along[rows] / (s_rest * extended.noise_inflation)
-    return z
+            unexplained[rows] = extended.structure_z > STRUCTURE_Z_LIMIT
+    return z, unexplained
 
 
 def _fit_corrected(spectra: np.ndarray, settings: BlockSettings,
@@ -442,7 +457,11 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
     checks = summary_checks(fit.summary, fit.lack)
     status = fit.status | trust_status(
         checks, rms, settings.design.shape[0], settings.absorbance_range,
-        settings.noise is not None) | _scatter_status(fit.scatter_z, settings)
+        settings.noise is not None) | _scatter_status(fit.scatter_z, fit.scatter_unexplained,
+                                                      settings)
+    # a shift fitted to a residual the model still does not explain is not read as the
+    # instrument's shift: the residual flags say what is wrong
+    status = np.where(status & (LACK_OF_FIT | STRUCTURED), status & ~SHIFTED, status)
     per_b = (1.0 / b)[:, None]
     canonical = fit.coef[:, :n] * per_b
     conc = canonical * settings.unit_factor
@@ -504,12 +523,17 @@ def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int, settings: BlockSett
     return u
 
 
-def _scatter_status(scatter_z: np.ndarray | None, settings: BlockSettings) -> np.ndarray:
+def _scatter_status(scatter_z: np.ndarray | None, unexplained: np.ndarray | None,
+                    settings: BlockSettings) -> np.ndarray:
     """``SCATTER`` where a fitted amplitude has |a|/u(a) > ``SCATTER_Z_LIMIT``;
-    ``UNMODELLED_SCATTER`` where, scatter not fitted, the probe z > the one-sided limit."""
+    ``UNMODELLED_SCATTER`` where, scatter not fitted, the probe z > the one-sided limit and
+    the probe explains the residual's shape (not ``unexplained``, :func:`_probe_z`)."""
     if scatter_z is None:
         return np.zeros((), dtype=np.int64)
     with np.errstate(invalid="ignore"):
         if isinstance(settings.fit, ScatterFit):
             return np.where(np.abs(scatter_z) > SCATTER_Z_LIMIT, SCATTER, 0)
-        return np.where(scatter_z > UNMODELLED_SCATTER_Z_LIMIT, UNMODELLED_SCATTER, 0)
+        on = scatter_z > UNMODELLED_SCATTER_Z_LIMIT
+        if unexplained is not None:
+            on &= ~unexplained
+        return np.where(on, UNMODELLED_SCATTER, 0)
