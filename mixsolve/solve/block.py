@@ -324,6 +324,9 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings,
                        None, *_probe_z(residual, summary, dof, settings))
     fit = fit_spectra(spectra, settings.design, n, settings.method, engine=settings.engine,
                       structure_lag=settings.structure_lag)
+    # the unmodelled-scatter probe extends the unweighted fit: a weighted fit's residual is
+    # not orthogonal to the design, so it is not the residual of that extension
+    unweighted = fit
     if isinstance(kind, WeightedFit):
         first = fit.coef @ settings.design.T
         at = np.where(np.isfinite(first), first, spectra)
@@ -335,7 +338,8 @@ def _fit_task(spectra: np.ndarray, settings: BlockSettings,
     # the probe is orthogonal to the design: its product with the residual is that with
     # the readings, whatever the coefficients
     return _Fitted(fit.coef, fit.std_error, fit.dof, fit.status, fit.summary, lack, {}, None,
-                   *_probe_z(spectra, fit.summary, fit.dof, settings, fit.coef))
+                   *_probe_z(spectra, unweighted.summary, unweighted.dof, settings,
+                             unweighted.coef))
 
 
 def _reading_checks(fit: _Fitted, spectra: np.ndarray, settings: BlockSettings) -> _Fitted:
