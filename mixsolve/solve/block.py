@@ -465,7 +465,10 @@ def _outputs_of(fit: _Fitted, b: np.ndarray, settings: BlockSettings,
                                                       settings)
     # a shift fitted to a residual the model still does not explain is not read as the
     # instrument's shift: the residual flags say what is wrong
-    status = np.where(status & (LACK_OF_FIT | STRUCTURED), status & ~SHIFTED, status)
+    # (and a scatter term fitted to such a residual is not the sample's turbidity: a shift's
+    # derivative drove the amplitude negative with the exponent at its bound)
+    status = np.where(status & (LACK_OF_FIT | STRUCTURED), status & ~(SHIFTED | SCATTER),
+                      status)
     per_b = (1.0 / b)[:, None]
     canonical = fit.coef[:, :n] * per_b
     conc = canonical * settings.unit_factor
@@ -529,14 +532,16 @@ def _noise_term(fit: _Fitted, to_result: np.ndarray, n: int, settings: BlockSett
 
 def _scatter_status(scatter_z: np.ndarray | None, unexplained: np.ndarray | None,
                     settings: BlockSettings) -> np.ndarray:
-    """``SCATTER`` where a fitted amplitude has |a|/u(a) > ``SCATTER_Z_LIMIT``;
+    """``SCATTER`` where a fitted amplitude has a/u(a) > ``SCATTER_Z_LIMIT`` (positive:
+    scatter only ever adds apparent absorbance);
     ``UNMODELLED_SCATTER`` where, scatter not fitted, the probe z > the one-sided limit and
     the probe explains the residual's shape (not ``unexplained``, :func:`_probe_z`)."""
     if scatter_z is None:
         return np.zeros((), dtype=np.int64)
     with np.errstate(invalid="ignore"):
         if isinstance(settings.fit, ScatterFit):
-            return np.where(np.abs(scatter_z) > SCATTER_Z_LIMIT, SCATTER, 0)
+            return np.where(scatter_z > SCATTER_Z_LIMIT, SCATTER, 0)  # turbidity adds light
+            # loss: only a positive amplitude is scatter
         on = scatter_z > UNMODELLED_SCATTER_Z_LIMIT
         if unexplained is not None:
             on &= ~unexplained

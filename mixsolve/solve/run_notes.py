@@ -78,18 +78,32 @@ def shift_risk(conc: np.ndarray, u: np.ndarray, bias: np.ndarray, components: li
                    + ", ".join(parts) + ": wavelengths on steep band flanks", SHIFT_FIX)
 
 
-def design_shift_risk(shift_matrix: np.ndarray, components: list[str],
+def design_shift_risk(shift_matrix: np.ndarray, design: np.ndarray, components: list[str],
                       tolerance_nm: float) -> RunNote | None:
     """``shift_risk`` from the design alone (lazy results, whose values are not computed):
-    each component's relative move |Sₖₖ|·tol when it is alone in the solution."""
-    self_move = np.abs(np.diag(np.asarray(shift_matrix, dtype=float))) * tolerance_nm
-    parts = [f"{name} by {100 * r:.2g} % when alone" for name, r in
-             zip(components, self_move, strict=True) if np.isfinite(r)
+    each component's relative move in a mixture of equal peak absorbances.
+
+    Notes
+    -----
+    c⁰ₖ = 1/maxλ Dλₖ (each component 1 AU at its own peak over the used wavelengths at
+    1 cm), bias = S c⁰ with S the bias per nm per unit of each component (the matrix
+    ``shift_bias_per_nm`` is made with), rₖ = |biasₖ|·tol / c⁰ₖ. The off-diagonal terms
+    count: in a mixture a component moves mostly through its neighbours' flanks.
+    """
+    shift_matrix = np.asarray(shift_matrix, dtype=float)
+    n = shift_matrix.shape[0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        typical = 1.0 / np.max(np.asarray(design, dtype=float)[:, :n], axis=0)
+        moves = np.abs(shift_matrix @ typical) * tolerance_nm / typical
+    parts = [f"{name} by {100 * r:.2g} %" for name, r in
+             zip(components, moves, strict=True) if np.isfinite(r)
              and r > SHIFT_FLAG_FRACTION]
     if not parts:
         return None
     return RunNote(SHIFT_RISK, LOOK, f"a wavelength error of {tolerance_nm:g} nm would move "
-                   + ", ".join(parts) + ": wavelengths on steep band flanks", SHIFT_FIX)
+                   + ", ".join(parts) + " in a mixture of equal peak absorbances (a lazy "
+                   "run's results are not read for this note): wavelengths on steep band "
+                   "flanks", SHIFT_FIX)
 
 
 def noise_amplification(design: np.ndarray, n_components: int) -> np.ndarray:

@@ -667,7 +667,8 @@ def _run_notes(options: _Options, plan: _Plan, result: xr.Dataset) -> list[RunNo
                                     result["std_uncertainty"].values,
                                     result["shift_bias_per_nm"].values, plan.components, tol))
         else:
-            notes.append(design_shift_risk(plan.settings.shift_matrix, plan.components, tol))
+            notes.append(design_shift_risk(plan.settings.shift_matrix, plan.settings.design,
+                                            plan.components, tol))
     return [n for n in notes if n is not None]
 
 
