@@ -260,3 +260,19 @@ def test_cli_library_import_and_unmix_in_cm1(tmp_path, cli):
     assert_cli_error(cli("unmix", tmp_path / "lib.nc", nm_file, "--out", tmp_path / "r2.csv"),
                      "spectra: given as wavelength in nm, but library as wavenumber in cm⁻¹",
                      literal=True, must_not_exist=[tmp_path / "r2.csv"])
+
+
+def test_big_file_fast_path_reads_cm1(tmp_path):
+    """A wide cm⁻¹ file above the fast reader's size threshold reads to the same numbers
+    and axis as written (synthetic values)."""
+    from mixsolve.io import fast_read
+
+    nu = np.arange(12000.0, 4000.0, -4.0)
+    values = np.random.default_rng(10).uniform(0.0, 1.0, (30, nu.size))
+    path = _write_wide(tmp_path / "big.csv", nu, "wavenumber_cm-1", values,
+                       [f"s{i}" for i in range(30)])
+    assert path.stat().st_size > fast_read.FAST_PATH_MIN_BYTES
+    da = ms.read_spectra(path)
+    assert da.attrs["axis"] == "wavenumber_cm-1"
+    np.testing.assert_allclose(da["wavelength"].values, 1e7 / nu, rtol=1e-15)
+    np.testing.assert_array_equal(da.values, values)

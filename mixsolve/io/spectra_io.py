@@ -238,14 +238,16 @@ def read_spectra(
         ``attrs["quantity_read"]`` says what the file held; ``attrs["read_notes"]`` (JSON
         list, :func:`read_notes`) what was skipped or decided (preamble, comments, units
         row, how a one-spectrum file was named); with several files ``attrs["files"]``
-        (JSON list of names) and ``layout`` ``"files"``.
+        (JSON list of names) and ``layout`` ``"files"``. A file on a wavenumber axis gives
+        λ = 10⁷/ν̃ nm and ``attrs["axis"] = "wavenumber_cm-1"`` (none for nm).
 
     Raises
     ------
     FileFormatError, InputError
         Unreadable files, unknown layout, duplicate wavelengths or samples, text in
         numeric cells, values that cannot be absorbance when ``quantity`` is omitted,
-        wavenumber axes; several files whose grids differ or that share a sample name;
+        micrometre axes; several files whose grids or axes (nm, cm⁻¹) differ or that
+        share a sample name;
         the message names the file, line, column and value.
     """
     if pathlength_cm is not None:
