@@ -38,7 +38,15 @@ from mixsolve.library_error import (
     stock_weights,
 )
 from mixsolve.names import check_spellings, check_unique_names, per_component
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
+from mixsolve.spectra import (
+    SAMPLE,
+    WAVELENGTH,
+    WAVENUMBER_AXIS,
+    check_number,
+    check_spectra,
+    native_axis,
+    nm_from_wavenumber,
+)
 from mixsolve.units import (
     ABSORPTIVITY_UNITS,
     CONCENTRATION_UNITS,
@@ -82,6 +90,7 @@ def _new_library(
     bandwidth_nm: float | None,
     provenance: dict[str, Any],
     patterns: tuple[np.ndarray, list[str], list[str]] | None = None,
+    axis: str = "nm",
 ) -> xr.Dataset:
     unit = ABSORPTIVITY_UNITS[basis]
     dims = (COMPONENT, WAVELENGTH)
@@ -112,6 +121,7 @@ def _new_library(
             "solvent": solvent,
             "bandwidth_nm": _bandwidth(bandwidth_nm),
             "provenance": json.dumps({**provenance, "mixsolve_version": __version__}),
+            **({} if axis == "nm" else {"axis": axis}),
         },
     )
     return check_library(ds)
@@ -202,6 +212,7 @@ def import_absorptivities(
         bandwidth_nm,
         provenance,
         patterns,
+        native_axis(eps, "absorptivity"),
     )
 
 
@@ -389,6 +400,7 @@ def check_library(library: Any, name: str = "library") -> xr.Dataset:
             "'absorptivity' variable; make one with import_absorptivities or build_library)"
         )
     library = _check_contents(library, name)
+    native_axis(library, name)
     if library.attrs.get("unit") not in ABSORPTIVITY_UNITS.values():
         raise InputError(
             f"{name}: absorptivity unit {library.attrs.get('unit')!r} is not one of "
@@ -597,7 +609,7 @@ def build_library(
     patterns = _standards_patterns(components, eps, scatter_parts, prep_parts, stock_share,
                                    stock_u, table)
     lib = _new_library(eps, u_eps, components, wl, basis, molar_mass_g_per_mol, solvent,
-                       bandwidth_nm, provenance, patterns)
+                       bandwidth_nm, provenance, patterns, native_axis(spectra, "standards"))
     for name, values in zip(("u_preparation_rel", "u_preparation_rel_scatter",
                              "u_preparation_rel_declared"), zip(*scale_u, strict=True),
                             strict=True):
@@ -878,12 +890,17 @@ def resample_library(
 
     Notes
     -----
-    Linear interpolation (``numpy.interp``) of ε and of u(ε); wavelengths that are
-    already on the library grid keep their values exactly. Nothing is extrapolated.
+    Linear interpolation (``numpy.interp``) of ε and of u(ε), linear in the library's
+    own axis (``attrs["axis"]``: in λ, or in ν̃ = 10⁷/λ for a library given in cm⁻¹);
+    wavelengths that are already on the library grid keep their values exactly. Nothing
+    is extrapolated.
     """
     library = check_library(library)
     target = np.asarray(wavelengths_nm, dtype=float)
     grid = library[WAVELENGTH].values
+    # −ν̃ rises with λ: interpolating in it is linear in wavenumber, on ascending abscissas
+    on_axis = ((lambda w: -nm_from_wavenumber(w)) if native_axis(library, "library")
+               == WAVENUMBER_AXIS else (lambda w: w))
     tol = 1e-9 * max(1.0, float(grid.max()))
     inside = (target >= grid[0] - tol) & (target <= grid[-1] + tol)
     keep = np.clip(target[inside], grid[0], grid[-1])
@@ -894,7 +911,8 @@ def resample_library(
             continue
         moved = np.moveaxis(var.values, var.dims.index(WAVELENGTH), -1)
         flat = moved.reshape(-1, grid.size)
-        new = np.stack([np.interp(keep, grid, row) for row in flat]) if flat.size else flat
+        new = (np.stack([np.interp(on_axis(keep), on_axis(grid), row) for row in flat])
+               if flat.size else flat)
         new = np.moveaxis(new.reshape(*moved.shape[:-1], keep.size), -1,
                           var.dims.index(WAVELENGTH))
         data_vars[name] = (var.dims, new, var.attrs)

@@ -3,7 +3,10 @@
 A spectra array is an :class:`xarray.DataArray` with a ``wavelength`` dimension
 (nm, float, strictly increasing) and any other dimensions (usually ``sample``).
 Attributes: ``quantity`` ("absorbance"), ``quantity_read`` (what the numbers were before
-:func:`to_absorbance` turned them into absorbance), ``pathlength_cm`` where known, ``source``.
+:func:`to_absorbance` turned them into absorbance), ``pathlength_cm`` where known, ``source``,
+and ``axis`` (:data:`AXES`) when the file gave wavenumbers: the coordinate is still the
+wavelength in nm, λ = 10⁷/ν̃ (:func:`nm_from_wavenumber`), and ``axis`` says the grid the
+file was measured on (even in cm⁻¹, so uneven in nm; docs/formats.md, "Wavenumber axes").
 """
 
 from __future__ import annotations
@@ -30,6 +33,67 @@ NOT_ABSORBANCE_MEDIAN = 10.0
 #: ... and if none is above this, they look like percent transmittance (a reading at the
 #: blank's level lies a little above 100 %); otherwise like milliabsorbance.
 PERCENT_T_MAX = 110.0
+#: The spectral axes a file may be given in (``attrs["axis"]``, absent meaning ``"nm"``):
+#: wavelength in nm, or wavenumber in cm⁻¹ held as wavelength λ = 10⁷/ν̃ nm.
+AXES = ("nm", "wavenumber_cm-1")
+WAVENUMBER_AXIS = "wavenumber_cm-1"
+#: nm per cm: λ (nm) = 10⁷ / ν̃ (cm⁻¹).
+NM_PER_CM = 1e7
+#: How each axis is named in messages.
+AXIS_WORDS = {"nm": "wavelength in nm", WAVENUMBER_AXIS: "wavenumber in cm⁻¹"}
+
+
+def nm_from_wavenumber(wavenumber_cm: Any) -> np.ndarray:
+    """Wavelength (nm) of wavenumbers (cm⁻¹): λ = 10⁷/ν̃, its own inverse.
+
+    Parameters
+    ----------
+    wavenumber_cm : array_like
+        Wavenumbers ν̃ (cm⁻¹), positive.
+
+    Returns
+    -------
+    ndarray
+        λ (nm); applied to wavelengths (nm) it gives wavenumbers (cm⁻¹).
+    """
+    return NM_PER_CM / np.asarray(wavenumber_cm, dtype=float)
+
+
+def native_axis(data: xr.DataArray | xr.Dataset, name: str = "spectra") -> str:
+    """The axis ``data`` were given in: ``attrs["axis"]``, ``"nm"`` when absent.
+
+    Raises
+    ------
+    InputError
+        An ``axis`` attribute that is not one of :data:`AXES`.
+    """
+    axis = data.attrs.get("axis", "nm")
+    if axis not in AXES:
+        raise InputError(f"{name}: attribute axis {axis!r} is not one of "
+                         f"{', '.join(AXES)}")
+    return str(axis)
+
+
+def check_same_axis(first: xr.DataArray | xr.Dataset, first_name: str,
+                    second: xr.DataArray | xr.Dataset, second_name: str) -> str:
+    """Refuse data given on different axes (nm against cm⁻¹); return the common axis.
+
+    The values would combine correctly (both are held in nm), but a library measured in
+    the ultraviolet–visible and spectra from an infrared instrument are almost surely a
+    mistake, so mixing them is never silent (docs/formats.md, "Wavenumber axes").
+
+    Raises
+    ------
+    InputError
+        The two ``axis`` attributes differ; the message names both and the fix.
+    """
+    a, b = native_axis(first, first_name), native_axis(second, second_name)
+    if a != b:
+        raise InputError(
+            f"{second_name}: given as {AXIS_WORDS[b]}, but {first_name} as {AXIS_WORDS[a]}; "
+            "the two are not mixed silently: give both on one axis (convert one file, "
+            "λ nm = 10⁷/ν̃ cm⁻¹; in Python, set attrs['axis'] of one to the other's)")
+    return a
 
 
 def make_spectra(

@@ -145,8 +145,6 @@ def test_transmittance_converted(tmp_path):
 
 
 @pytest.mark.parametrize("xunits, pattern", [
-    ("1/CM", r"##XUNITS=1/CM: wavenumber axes are not yet supported; export the spectrum "
-             r"with ##XUNITS=NANOMETERS$"),
     ("MICROMETERS", r"##XUNITS=MICROMETERS: wavelengths in µm are not read"),
     ("SECONDS", r"##XUNITS=SECONDS is not a wavelength axis")])
 def test_other_x_units_refused(tmp_path, xunits, pattern):

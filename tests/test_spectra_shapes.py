@@ -61,12 +61,15 @@ def test_axis_of_other_units(cell, axis):
     assert axis_of(cell) == axis
 
 
-def test_wavenumber_header_refused_with_fix(tmp_path, columns):
-    path = write_text(tmp_path / "ir.csv", _wide_text("Wavenumber (cm-1)", columns))
-    with pytest.raises(InputError, match=r"^ir\.csv, line 1, column 1: 'Wavenumber \(cm-1\)': "
-                                         r"wavenumber axes \(cm-1\) are not yet supported; give "
-                                         r"the spectra against wavelength in nm$"):
-        ms.read_spectra(path)
+def test_wavenumber_header_read_as_wavelength(tmp_path, columns, plain):
+    """A cm-1 header is read, not refused: the axis values become λ = 10⁷/ν̃ nm (the
+    definition of wavenumber, ν̃ = 1/λ; IUPAC Green Book, 3rd ed., 2007, section 2.7, from
+    memory) and the numbers are the ones written (tests/test_wavenumber.py has the rest)."""
+    da = ms.read_spectra(write_text(tmp_path / "ir.csv", _wide_text("Wavenumber (cm-1)",
+                                                                    columns)))
+    assert da.attrs["axis"] == "wavenumber_cm-1"
+    np.testing.assert_allclose(da["wavelength"].values, np.sort(1e7 / WL), rtol=1e-15)
+    np.testing.assert_array_equal(da.values, plain.values[:, ::-1])
 
 
 def test_preamble_is_skipped_and_said(tmp_path, columns, plain):
@@ -125,12 +128,21 @@ def test_units_row_unknown_unit_refused(tmp_path, columns):
         ms.read_spectra(write_text(tmp_path / "u.csv", "\n".join(lines) + "\n"))
 
 
-def test_units_row_cm1_refused(tmp_path, columns):
+def test_units_row_cm1_decides_a_bare_header_and_contradicts_a_unit(tmp_path, columns, plain):
+    """Under a header naming no unit the units row says the axis; under ``nm`` a ``cm-1``
+    row is a contradiction, refused naming both."""
     lines = _wide_text("x", columns).splitlines()
     lines[0] = "Wavelength,mix_1,mix_2"
     lines.insert(1, "cm-1,A,A")
-    with pytest.raises(InputError, match=r"^u\.csv, line 2 \(units row\): 'cm-1': wavenumber"):
-        ms.read_spectra(write_text(tmp_path / "u.csv", "\n".join(lines) + "\n"))
+    da = ms.read_spectra(write_text(tmp_path / "u.csv", "\n".join(lines) + "\n"))
+    assert da.attrs["axis"] == "wavenumber_cm-1"
+    np.testing.assert_allclose(da["wavelength"].values, np.sort(1e7 / WL), rtol=1e-15)
+    np.testing.assert_array_equal(da.values, plain.values[:, ::-1])
+    lines[0] = "Wavelength (nm),mix_1,mix_2"
+    with pytest.raises(InputError, match=r"^v\.csv, line 2 \(units row\): 'cm-1' says "
+                                         r"wavenumber in cm⁻¹, but the header 'Wavelength "
+                                         r"\(nm\)' says wavelength in nm; correct one of them$"):
+        ms.read_spectra(write_text(tmp_path / "v.csv", "\n".join(lines) + "\n"))
 
 
 def test_trailing_empty_columns(tmp_path, columns, plain):

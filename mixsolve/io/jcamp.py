@@ -15,8 +15,9 @@ blocks (one spectrum each). Read here:
   again (the Y check); it is compared and dropped.
 - ``##XYPOINTS=(XY..XY)``: (x, y) pairs in AFFN.
 - ``##XFACTOR``/``##YFACTOR`` scale the numbers written to the values they stand for.
-- ``##TITLE`` names the sample; ``##XUNITS`` must be ``NANOMETERS`` (``1/CM`` and
-  ``MICROMETERS`` are refused, with the fix); ``##YUNITS`` ``ABSORBANCE`` or
+- ``##TITLE`` names the sample; ``##XUNITS`` must be ``NANOMETERS`` or ``1/CM``
+  (wavenumbers, read as λ = 10⁷/ν̃ nm with ``axis`` ``"wavenumber_cm-1"``; ``MICROMETERS``
+  is refused, with the fix); ``##YUNITS`` ``ABSORBANCE`` or
   ``TRANSMITTANCE`` (a fraction, or percent with ``quantity="percent_transmittance"``).
 - An exponent is written with its sign (``1.5E+02``, as C and Fortran print it): a bare
   ``E`` or ``e`` is the SQZ letter for +5 or −5.
@@ -55,7 +56,7 @@ import numpy as np
 
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.limits import MAX_TEXT_BYTES
-from mixsolve.spectra import Quantity
+from mixsolve.spectra import WAVENUMBER_AXIS, Quantity, nm_from_wavenumber
 
 #: File name endings read as JCAMP-DX.
 JCAMP_SUFFIXES = (".jdx", ".dx")
@@ -83,13 +84,15 @@ _TOKEN = re.compile(r"""
 
 @dataclass
 class JcampSpectrum:
-    """One spectrum of a JCAMP-DX file, in the file's units (x in nm)."""
+    """One spectrum of a JCAMP-DX file, in the file's units (x in nm, converted from
+    wavenumbers when ``axis`` is ``"wavenumber_cm-1"``)."""
 
     title: str
     wavelength_nm: np.ndarray
     values: np.ndarray
     y_units: str
     line: int
+    axis: str = "nm"
 
 
 def is_jcamp(path: str | os.PathLike[str]) -> bool:
@@ -209,27 +212,27 @@ def _line(block: dict[str, tuple[str, int, list[tuple[int, str]]]]) -> int:
     return block["TITLE"][1]
 
 
-def _x_unit(block: dict[str, tuple[str, int, list[tuple[int, str]]]], name: str) -> None:
+def _x_unit(block: dict[str, tuple[str, int, list[tuple[int, str]]]], name: str) -> str:
+    """The axis ##XUNITS names (``"nm"`` or ``"wavenumber_cm-1"``); others refused."""
     if "XUNITS" not in block:
         raise FileFormatError(f"{name}, line {_line(block)}: ##XUNITS= is missing; add "
                               "##XUNITS=NANOMETERS (wavelengths in nm)")
     text, line, _ = block["XUNITS"]
     unit = text.strip().upper()
     if unit in X_UNITS_NM:
-        return
+        return "nm"
     if unit.replace(" ", "") in _WAVENUMBER:
-        raise InputError(f"{name}, line {line}: ##XUNITS={text}: wavenumber axes are not yet "
-                         "supported; export the spectrum with ##XUNITS=NANOMETERS")
+        return WAVENUMBER_AXIS
     if unit in _MICROMETRE:
         raise InputError(f"{name}, line {line}: ##XUNITS={text}: wavelengths in µm are not "
                          "read; export the spectrum with ##XUNITS=NANOMETERS")
     raise InputError(f"{name}, line {line}: ##XUNITS={text} is not a wavelength axis; "
-                     "mixsolve reads ##XUNITS=NANOMETERS")
+                     "mixsolve reads ##XUNITS=NANOMETERS or ##XUNITS=1/CM")
 
 
 def _spectrum(block: dict[str, tuple[str, int, list[tuple[int, str]]]], name: str
               ) -> JcampSpectrum:
-    _x_unit(block, name)
+    axis = _x_unit(block, name)
     xfactor = _number(block, "XFACTOR", name, 1.0)
     yfactor = _number(block, "YFACTOR", name, 1.0)
     for label, factor in (("XFACTOR", xfactor), ("YFACTOR", yfactor)):
@@ -250,7 +253,12 @@ def _spectrum(block: dict[str, tuple[str, int, list[tuple[int, str]]]], name: st
         x, y = _xypoints(block, rows, xfactor, yfactor, name, line)
     title = block["TITLE"][0].strip()
     y_units = block["YUNITS"][0].strip().upper() if "YUNITS" in block else ""
-    return JcampSpectrum(title, x, y, y_units, _line(block))
+    if axis == WAVENUMBER_AXIS:
+        if np.any(x <= 0):
+            raise InputError(f"{name}, line {line}: wavenumber {x[x <= 0][0]:g} cm-1 is not "
+                             "positive")
+        x = nm_from_wavenumber(x)
+    return JcampSpectrum(title, x, y, y_units, _line(block), axis)
 
 
 def _tokens(text: str, name: str, number: int) -> list[tuple[str, float]]:

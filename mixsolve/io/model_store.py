@@ -19,6 +19,7 @@ from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.netcdf_store import ENGINE, file_kind, open_kind, write_netcdf
 from mixsolve.library import describe_dtype, parse_json_object
 from mixsolve.pls.model import MODEL_KIND, check_model
+from mixsolve.spectra import WAVENUMBER_AXIS, native_axis
 from mixsolve.units import concentration_basis
 
 __all__ = ["ENGINE", "file_kind", "read_model", "write_model"]
@@ -160,10 +161,16 @@ def _check_attributes(model: xr.Dataset, name: str) -> None:
         raise InputError(f"{name}: attribute mode {attrs.get('mode')!r} is not text")
     prep = parse_json_object(attrs.get("preprocessing"), f"{name}: attribute preprocessing")
     derivative = prep.get("derivative", "absent")
+    step = "step_cm-1" if isinstance(derivative, dict) \
+        and derivative.get("axis") == WAVENUMBER_AXIS else "step_nm"
     if derivative is not None and not (
             isinstance(derivative, dict)
             and all(isinstance(derivative.get(k), int | float)
-                    for k in ("window_points", "polyorder", "step_nm"))):
+                    for k in ("window_points", "polyorder", step))):
         raise InputError(f"{name}: attribute preprocessing holds derivative {derivative!r}, "
-                         "not null or the window_points, polyorder and step_nm of a "
-                         "Savitzky–Golay derivative")
+                         "not null or the window_points, polyorder and step_nm (step_cm-1 "
+                         "on a wavenumber axis) of a Savitzky–Golay derivative")
+    if step == "step_cm-1" and native_axis(model, name) != WAVENUMBER_AXIS:
+        raise InputError(f"{name}: the derivative was taken along wavenumbers, but attribute "
+                         f"axis is {model.attrs.get('axis', 'nm')!r}, not 'wavenumber_cm-1'")
+    native_axis(model, name)

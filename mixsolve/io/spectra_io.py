@@ -7,10 +7,15 @@ in ``attrs["layout"]``. A preamble before the header, ``#`` comment lines and a 
 under the header are skipped and said in ``attrs["read_notes"]``
 (:func:`read_notes`). JCAMP-DX files: :mod:`mixsolve.io.jcamp`.
 
+A wavenumber axis (``wavenumber_cm-1``, ``Wavenumber (cm-1)``, ``cm-1``, ``1/cm``) is read
+as wavelength λ = 10⁷/ν̃ nm with ``attrs["axis"] = "wavenumber_cm-1"``
+(:data:`mixsolve.spectra.AXES`; docs/formats.md, "Wavenumber axes").
+
 Several files (a list, a folder, a glob) read into one array: their wavelength grids must
-agree and their sample names be unique across files. A file with one spectrum (two
-columns) names its sample from the column header, or from the file name when the header
-is a generic word (``absorbance``, ``A``, ``abs``: :data:`GENERIC_VALUE_HEADERS`).
+agree, their axes (nm or cm⁻¹) too, and their sample names be unique across files. A file
+with one spectrum (two columns) names its sample from the column header, or from the file
+name when the header is a generic word (``absorbance``, ``A``, ``abs``:
+:data:`GENERIC_VALUE_HEADERS`).
 """
 
 from __future__ import annotations
@@ -40,13 +45,17 @@ from mixsolve.io.tables import (
 )
 from mixsolve.names import check_unique_names, normalise_name
 from mixsolve.spectra import (
+    AXIS_WORDS,
     QUANTITIES,
     SAMPLE,
     WAVELENGTH,
+    WAVENUMBER_AXIS,
     Quantity,
     check_number,
     check_option,
     check_spectra,
+    native_axis,
+    nm_from_wavenumber,
     to_absorbance,
 )
 
@@ -66,10 +75,26 @@ VALUE_UNITS = {"au": "absorbance", "a": "absorbance", "abs": "absorbance",
                "%": "percent_transmittance", "% t": "percent_transmittance",
                "mau": "milliabsorbance", "milliabsorbance": "milliabsorbance"}
 _UNSUPPORTED_AXIS = {
-    "wavenumber": "wavenumber axes (cm-1) are not yet supported; give the spectra against "
-                  "wavelength in nm",
     "micrometre": "wavelengths in µm are not read; give them in nm (µm × 1000)",
 }
+
+#: Axes a header may name (:func:`mixsolve.io.tables.axis_of`), as ``attrs["axis"]``.
+_READ_AXES = {"nm": "nm", "wavenumber": WAVENUMBER_AXIS}
+#: The word and unit of each axis's values, for messages.
+_AXIS_UNIT = {"nm": ("wavelength", "nm"), WAVENUMBER_AXIS: ("wavenumber", "cm-1")}
+
+
+def _on_axis(attrs: dict[str, object], x: np.ndarray) -> tuple[dict[str, object], np.ndarray]:
+    """Attributes and wavelengths (nm) of axis values ``x`` read on ``attrs["axis"]``.
+
+    Wavenumbers become λ = 10⁷/ν̃ nm and keep ``axis``; an nm axis leaves no ``axis`` key
+    (spectra without one are in nm).
+    """
+    axis = attrs.get("axis", "nm")
+    attrs = {k: v for k, v in attrs.items() if k != "axis"}
+    if axis == "nm":
+        return attrs, x
+    return {**attrs, "axis": axis}, nm_from_wavenumber(x)
 
 
 def _norm(text: object) -> str:
@@ -213,14 +238,16 @@ def read_spectra(
         ``attrs["quantity_read"]`` says what the file held; ``attrs["read_notes"]`` (JSON
         list, :func:`read_notes`) what was skipped or decided (preamble, comments, units
         row, how a one-spectrum file was named); with several files ``attrs["files"]``
-        (JSON list of names) and ``layout`` ``"files"``.
+        (JSON list of names) and ``layout`` ``"files"``. A file on a wavenumber axis gives
+        λ = 10⁷/ν̃ nm and ``attrs["axis"] = "wavenumber_cm-1"`` (none for nm).
 
     Raises
     ------
     FileFormatError, InputError
         Unreadable files, unknown layout, duplicate wavelengths or samples, text in
         numeric cells, values that cannot be absorbance when ``quantity`` is omitted,
-        wavenumber axes; several files whose grids differ or that share a sample name;
+        micrometre axes; several files whose grids or axes (nm, cm⁻¹) differ or that
+        share a sample name;
         the message names the file, line, column and value.
     """
     if pathlength_cm is not None:
@@ -303,7 +330,8 @@ def _read_jcamp(p: Path, quantity: Quantity | None) -> xr.DataArray:
         da = xr.DataArray(values[order][None, :], dims=(SAMPLE, WAVELENGTH),
                           coords={SAMPLE: [title], WAVELENGTH: wl[order]}, name="absorbance",
                           attrs={"quantity": "absorbance", "source": p.name, "layout": "jcamp-dx",
-                                 "read_notes": json.dumps(notes)})
+                                 "read_notes": json.dumps(notes),
+                                 **({} if spectrum.axis == "nm" else {"axis": spectrum.axis})})
         parts.append(to_absorbance(check_spectra(da, where), read_as, where))  # type: ignore[arg-type]
     if len(parts) == 1:
         return parts[0]
@@ -326,6 +354,13 @@ def _combine(parts: list[xr.DataArray], places: Sequence[PathLike],
     """
     names = [str(Path(p).name) if not isinstance(p, str) or os.path.exists(p) else str(p)
              for p in places]
+    axis = native_axis(parts[0], names[0])
+    for part, name in zip(parts[1:], names[1:], strict=True):
+        if native_axis(part, name) != axis:
+            raise InputError(
+                f"{name}: its axis is {AXIS_WORDS[native_axis(part, name)]}, but {names[0]} "
+                f"gives {AXIS_WORDS[axis]}; files read together share one axis: convert one "
+                "(λ nm = 10⁷/ν̃ cm⁻¹), or read them in separate runs")
     grid = parts[0][WAVELENGTH].values
     for part, name in zip(parts[1:], names[1:], strict=True):
         wl = part[WAVELENGTH].values
@@ -371,6 +406,8 @@ def _combine(parts: list[xr.DataArray], places: Sequence[PathLike],
     dark = sum(int(part.attrs.get("dark_readings", 0)) for part in parts)
     if dark:
         attrs["dark_readings"] = dark
+    if axis != "nm":
+        attrs["axis"] = axis
     da = xr.DataArray(np.vstack([part.values for part in parts]), dims=(SAMPLE, WAVELENGTH),
                       coords={SAMPLE: samples, WAVELENGTH: grid}, name="absorbance",
                       attrs=attrs)
@@ -396,7 +433,8 @@ def _read_large_text(p: Path) -> xr.DataArray | None:
     attrs = {"quantity": "absorbance", "source": p.name, "separator": SEPARATOR_NAMES[sep],
              "decimal": decimal}
     text_columns: tuple[int, ...] = ()
-    if axis_of(names[0]) == "nm":
+    if axis_of(names[0]) in _READ_AXES:
+        attrs["axis"] = _READ_AXES[axis_of(names[0])]
         samples = [normalise_name(h) for h in header[1:]]
         if not all(samples) or len({n.casefold() for n in samples}) != len(samples):
             return None  # the careful reader names the column
@@ -405,8 +443,9 @@ def _read_large_text(p: Path) -> xr.DataArray | None:
     else:
         wl_cols = [i for i, n in enumerate(names) if axis_of(n) is not None]
         if not ("sample" in names and "absorbance" in names and wl_cols) \
-                or axis_of(names[wl_cols[0]]) != "nm":
+                or axis_of(names[wl_cols[0]]) not in _READ_AXES:
             return None
+        attrs["axis"] = _READ_AXES[axis_of(names[wl_cols[0]])]
         cols = (names.index("sample"), wl_cols[0], names.index("absorbance"))
         text_columns = tuple(i for i in range(len(header)) if i not in cols[1:])
         frame = fast_read.read_numeric(p, sep, decimal, header, text_columns)
@@ -426,6 +465,7 @@ def _fast_wide(frame: object, samples: list[str], attrs: dict[str, object]
     wl = values[:, 0]
     if np.isnan(wl).any() or np.any(wl <= 0) or np.unique(wl).size != wl.size:
         return None
+    attrs, wl = _on_axis(attrs, wl)
     order = np.argsort(wl)
     da = xr.DataArray(values[order, 1:].T, dims=(SAMPLE, WAVELENGTH),
                       coords={SAMPLE: samples, WAVELENGTH: wl[order]},
@@ -449,6 +489,7 @@ def _fast_long(frame: object, cols: tuple[int, int, int], attrs: dict[str, objec
     flat = codes.astype(np.int64) * grid.size + w_idx
     if np.unique(flat).size != flat.size:
         return None
+    attrs, grid = _on_axis(attrs, grid)
     values = np.full((len(uniques), grid.size), np.nan)
     values[codes, w_idx] = absorb
     da = xr.DataArray(values, dims=(SAMPLE, WAVELENGTH),
@@ -466,12 +507,13 @@ def read_absorptivity_table(path: str | os.PathLike[str], *, sheet: str | None =
     DataArray with dims ("component", "wavelength")
     """
     table = read_table(path, sheet=sheet)
-    _check_axis(table, 0)
+    axis = _check_axis(table, 0)
     if axis_of(table.header[0]) is None:
         raise FileFormatError(
             f"{table.name}, line {table.header_line}: first column is {table.header[0]!r}; an "
-            "absorptivity table starts with wavelength_nm, then one column per component")
-    da = _wide(table, "component")
+            "absorptivity table starts with wavelength_nm (or wavenumber_cm-1), then one "
+            "column per component")
+    da = _wide(table, "component", axis)
     for i, _ in enumerate(da["component"].values):
         values = da.values[i]
         if np.isnan(values).any():
@@ -482,12 +524,14 @@ def read_absorptivity_table(path: str | os.PathLike[str], *, sheet: str | None =
     return da
 
 
-def _check_axis(table: RawTable, column: int) -> None:
-    """Refuse a wavenumber or micrometre axis, naming the header cell and the fix."""
+def _check_axis(table: RawTable, column: int) -> str:
+    """The axis (``attrs["axis"]`` value) a header cell names; a micrometre axis refused,
+    naming the header cell and the fix."""
     axis = axis_of(table.header[column])
     if axis in _UNSUPPORTED_AXIS:
         raise InputError(f"{table.name}, line {table.header_line}, column {column + 1}: "
                          f"{str(table.header[column])!r}: {_UNSUPPORTED_AXIS[axis]}")
+    return _READ_AXES.get(str(axis), "nm")
 
 
 def _to_array(table: RawTable, label: str) -> tuple[xr.DataArray, str | None]:
@@ -496,13 +540,14 @@ def _to_array(table: RawTable, label: str) -> tuple[xr.DataArray, str | None]:
     wl_cols = [i for i, n in enumerate(names) if _is_axis(n)]
     # Long first: its columns may come in any order, wavelength_nm first included.
     if "sample" in names and "absorbance" in names and wl_cols:
-        _check_axis(table, wl_cols[0])
-        units = _units_row(table, wl_cols[0], [names.index("absorbance")])
-        return _long(table, names.index("sample"), wl_cols[0], names.index("absorbance")), units
+        axis = _check_axis(table, wl_cols[0])
+        units, axis = _units_row(table, wl_cols[0], [names.index("absorbance")], axis)
+        return _long(table, names.index("sample"), wl_cols[0], names.index("absorbance"),
+                     axis), units
     if wl_cols and wl_cols[0] == 0:
-        _check_axis(table, 0)
-        units = _units_row(table, 0, range(1, len(table.header)))
-        return _wide(table, label), units
+        axis = _check_axis(table, 0)
+        units, axis = _units_row(table, 0, range(1, len(table.header)), axis)
+        return _wide(table, label, axis), units
     seen = ", ".join(map(repr, table.header[:4]))
     raise FileFormatError(
         f"{table.name}, line {table.header_line}: cannot tell the layout from the header "
@@ -512,22 +557,34 @@ def _to_array(table: RawTable, label: str) -> tuple[xr.DataArray, str | None]:
         "above the header if they hold one")
 
 
-def _units_row(table: RawTable, wl_col: int, value_cols: Sequence[int]) -> str | None:
-    """Drop a units row under the header (``nm``, ``AU``, ``%T``) and say what it states.
+def _units_row(table: RawTable, wl_col: int, value_cols: Sequence[int], axis: str
+               ) -> tuple[str | None, str]:
+    """Drop a units row under the header (``nm``, ``cm-1``, ``AU``, ``%T``) and say what it
+    states.
 
     Returns the quantity the value columns' units name (one for all; None when the row
-    names none), or None when the first data row is not a units row.
+    names none, or when the first data row is not a units row), and the axis: the row's
+    unit under a header that names no unit (``wavelength``, ``λ``), else the header's
+    ``axis``; a row contradicting a header's unit is refused.
     """
     if not table.rows:
-        return None
+        return None, axis
     row = table.rows[0]
     cell = str(row[wl_col]).strip() if wl_col < len(row) else ""
     bare = cell.strip("()[] ").lower()
     if axis_of(bare) is None or bare in ("wavelength", "λ", "lambda", "wl"):
-        return None
+        return None, axis
     where = f"{table.name}, line {table.lines[0]}"
     if axis_of(bare) in _UNSUPPORTED_AXIS:
         raise InputError(f"{where} (units row): {cell!r}: {_UNSUPPORTED_AXIS[axis_of(bare)]}")
+    row_axis = _READ_AXES[str(axis_of(bare))]
+    header = _norm(table.header[wl_col])
+    if row_axis != axis:
+        if header not in ("wavelength", "wave length", "λ", "lambda", "wl"):
+            raise InputError(
+                f"{where} (units row): {cell!r} says {AXIS_WORDS[row_axis]}, but the header "
+                f"{str(table.header[wl_col])!r} says {AXIS_WORDS[axis]}; correct one of them")
+        axis = row_axis
     found: dict[str, str] = {}
     for j in value_cols:
         text = str(row[j]).strip() if j < len(row) else ""
@@ -547,7 +604,7 @@ def _units_row(table: RawTable, wl_col: int, value_cols: Sequence[int]) -> str |
     quantity = next(iter(found), None)
     table.skipped.append(f"skipped the units row on line {int(where.rsplit(' ', 1)[1])}"
                          + (f" (read as {quantity.replace('_', ' ')})" if quantity else ""))
-    return quantity
+    return quantity, axis
 
 
 def _attrs(table: RawTable, layout: str) -> dict[str, object]:
@@ -563,7 +620,7 @@ def _attrs(table: RawTable, layout: str) -> dict[str, object]:
     return attrs
 
 
-def _wide(table: RawTable, label: str) -> xr.DataArray:
+def _wide(table: RawTable, label: str, axis: str = "nm") -> xr.DataArray:
     header = list(table.header)
     while len(header) > 1 and not str(header[-1]).strip():
         header.pop()  # trailing empty header cells from spreadsheet exports
@@ -593,35 +650,39 @@ def _wide(table: RawTable, label: str) -> xr.DataArray:
         if extra:
             raise FileFormatError(f"{table.where(i)}: {len(row)} cells, but the header has "
                                   f"{width}")
-        wl[i] = parse_number(row[0], table.decimal, table.where(i, 0) + " wavelength",
-                             allow_missing=False)
+        wl[i] = parse_number(row[0], table.decimal,
+                             f"{table.where(i, 0)} {_AXIS_UNIT[axis][0]}", allow_missing=False)
         for j in range(1, width):
             values[i, j - 1] = parse_number(row[j], table.decimal, table.where(i, j))
-    _check_wavelengths(table, wl)
+    _check_wavelengths(table, wl, axis)
+    attrs, wl = _on_axis({**_attrs(table, "wide"), "axis": axis}, wl)
     order = np.argsort(wl)
     da = xr.DataArray(
         values[order].T,
         dims=(label, WAVELENGTH),
         coords={label: names, WAVELENGTH: wl[order]},
-        attrs=_attrs(table, "wide"),
+        attrs=attrs,
         name="absorbance" if label == SAMPLE else "absorptivity",
     )
     return check_spectra(da, table.name)
 
 
-def _check_wavelengths(table: RawTable, wl: np.ndarray) -> None:
+def _check_wavelengths(table: RawTable, wl: np.ndarray, axis: str = "nm") -> None:
+    word, unit = _AXIS_UNIT[axis]
     for i, w in enumerate(wl):
         if w <= 0:
-            raise InputError(f"{table.where(i, 0)}: wavelength {w:g} nm is not positive")
+            raise InputError(f"{table.where(i, 0)}: {word} {w:g} {unit} is not positive")
     _, first, counts = np.unique(wl, return_index=True, return_counts=True)
     if (counts > 1).any():
         w = wl[first[counts > 1][0]]
         dup_rows = np.flatnonzero(wl == w)
-        raise InputError(f"{table.name}, line {table.lines[dup_rows[1]]}: wavelength {w:g} nm "
+        raise InputError(f"{table.name}, line {table.lines[dup_rows[1]]}: {word} {w:g} {unit} "
                          f"appears twice (also on line {table.lines[dup_rows[0]]})")
 
 
-def _long(table: RawTable, s_col: int, w_col: int, a_col: int) -> xr.DataArray:
+def _long(table: RawTable, s_col: int, w_col: int, a_col: int, axis: str = "nm"
+          ) -> xr.DataArray:
+    word, unit = _AXIS_UNIT[axis]
     samples: dict[str, dict[float, float]] = {}
     first_line: dict[tuple[str, float], int] = {}
     need = max(s_col, w_col, a_col) + 1
@@ -633,12 +694,12 @@ def _long(table: RawTable, s_col: int, w_col: int, a_col: int) -> xr.DataArray:
             raise FileFormatError(f"{table.where(i, s_col)}: empty sample name")
         w = parse_number(row[w_col], table.decimal, table.where(i, w_col), allow_missing=False)
         if w <= 0:
-            raise InputError(f"{table.where(i, w_col)}: wavelength {w:g} nm is not positive")
+            raise InputError(f"{table.where(i, w_col)}: {word} {w:g} {unit} is not positive")
         a = parse_number(row[a_col], table.decimal, table.where(i, a_col))
         spectrum = samples.setdefault(name, {})
         if w in spectrum:
             raise InputError(
-                f"{table.where(i)}: sample {name!r} has wavelength {w:g} nm twice (also on line "
+                f"{table.where(i)}: sample {name!r} has {word} {w:g} {unit} twice (also on line "
                 f"{first_line[(name, w)]})")
         spectrum[w] = a
         first_line[(name, w)] = table.lines[i]
@@ -648,9 +709,10 @@ def _long(table: RawTable, s_col: int, w_col: int, a_col: int) -> xr.DataArray:
     for k, spectrum in enumerate(samples.values()):
         pos = np.searchsorted(grid, np.fromiter(spectrum, float))
         values[k, pos] = np.fromiter(spectrum.values(), float)
+    attrs, grid = _on_axis({**_attrs(table, "long"), "axis": axis}, grid)
     da = xr.DataArray(values, dims=(SAMPLE, WAVELENGTH),
                       coords={SAMPLE: names, WAVELENGTH: grid},
-                      attrs=_attrs(table, "long"), name="absorbance")
+                      attrs=attrs, name="absorbance")
     return check_spectra(da, table.name)
 
 

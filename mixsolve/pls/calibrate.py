@@ -49,6 +49,7 @@ from mixsolve.spectra import (
     check_option,
     check_spectra,
     check_window,
+    native_axis,
 )
 
 Mode = Literal["auto", "pls2", "pls1"]
@@ -174,7 +175,8 @@ def calibrate(
     if flat.size:
         raise InputError(f"reference: component {comps[flat[0]]!r} has the same concentration "
                          "in every calibration sample; it must vary to be calibrated")
-    deriv = check_derivative(derivative, polyorder, wl)
+    axis = native_axis(spectra)
+    deriv = check_derivative(derivative, polyorder, wl, axis)
     x = preprocess(raw, deriv)
     n = x.shape[0]
     k_folds = check_counts(n, folds, max_latent)
@@ -223,6 +225,7 @@ def calibrate(
         "pathlength_cm": b,
         "window_nm": "" if window is None else f"{window[0]:g}-{window[1]:g}",
         "preprocessing": json.dumps({"centring": "mean", "scale": scale, "derivative": deriv}),
+        "axis": axis,
         "cross_validation": json.dumps({
             "split": split, "folds": k_folds, "seed": seed if split == "random" else None,
             "latent_requested": latent, "max_latent_tried": a_max, "rule": ONE_SE_RULE}),

@@ -6,6 +6,7 @@ Spectra on another wavelength grid are resampled inside the model's range only.
 from __future__ import annotations
 
 import json
+from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -24,11 +25,20 @@ from mixsolve.library import COMPONENT
 from mixsolve.pls.blocks import project
 from mixsolve.pls.model import UNCERTAINTY_BASIS, check_model
 from mixsolve.pls.preprocessing import preprocess
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
+from mixsolve.spectra import (
+    SAMPLE,
+    WAVELENGTH,
+    WAVENUMBER_AXIS,
+    check_number,
+    check_same_axis,
+    check_spectra,
+    nm_from_wavenumber,
+)
 from mixsolve.units import concentration_basis
 
 
-def resample_to_model(spectra: xr.DataArray, model_nm: np.ndarray) -> np.ndarray:
+def resample_to_model(spectra: xr.DataArray, model_nm: np.ndarray, axis: str = "nm"
+                      ) -> np.ndarray:
     """Absorbance at the model's wavelengths, interpolated inside the measured range only.
 
     Parameters
@@ -37,13 +47,16 @@ def resample_to_model(spectra: xr.DataArray, model_nm: np.ndarray) -> np.ndarray
         Absorbance (AU); wavelength in nm, strictly increasing.
     model_nm : array, shape (n_model_wavelengths,)
         The model's wavelength grid (nm), increasing.
+    axis : {"nm", "wavenumber_cm-1"}
+        The axis of the model and the spectra (``attrs["axis"]``): interpolation is linear
+        in λ, or in ν̃ = 10⁷/λ on a wavenumber axis.
 
     Returns
     -------
     ndarray, shape (n_samples, n_model_wavelengths)
         Absorbance (AU): the reading itself where the model wavelength was measured
-        (within 1e-6 nm), else linear interpolation between the two neighbouring
-        readings. A NaN reading makes the interpolated values it touches NaN.
+        (within 1e-6 nm, or 1e-6 cm⁻¹), else linear interpolation between the two
+        neighbouring readings. A NaN reading makes the interpolated values it touches NaN.
 
     Raises
     ------
@@ -58,6 +71,8 @@ def resample_to_model(spectra: xr.DataArray, model_nm: np.ndarray) -> np.ndarray
             f"spectra: measured {wl[0]:g}-{wl[-1]:g} nm does not cover the model's "
             f"{model_nm[0]:g}-{model_nm[-1]:g} nm; nothing is extrapolated, so measure the "
             "model's whole range")
+    if axis == WAVENUMBER_AXIS:  # −ν̃ rises with λ: linear in wavenumber, order kept
+        wl, model_nm = -nm_from_wavenumber(wl), -nm_from_wavenumber(model_nm)
     lo = np.clip(np.searchsorted(wl, model_nm, side="right") - 1, 0, max(wl.size - 2, 0))
     hi = np.minimum(lo + 1, wl.size - 1)
     span = np.where(wl[hi] > wl[lo], wl[hi] - wl[lo], 1.0)
@@ -97,16 +112,17 @@ def predict(
         Per (sample, component): ``concentration``, ``std_uncertainty``, ``leverage``,
         ``t2``, ``q_residual`` (of the block predicting the component; the same for all
         components in PLS2) and ``rms_residual`` (√(Q·scale²/n_wavelengths): RMS spectral
-        residual in AU, AU/nm after a derivative); per component ``t2_limit_95``,
-        ``t2_limit_99``, ``q_limit_95``, ``q_limit_99``, ``n_latent`` and ``dof``
-        (n_calibration − a − 1); per sample ``flags`` (``;``-joined codes of
-        :data:`mixsolve.flags.FLAG_MEANINGS`, docs/flags.md);
-        ``attrs["method"] = "pls"``.
+        residual in AU, AU/nm after a derivative, AU·cm after one along a wavenumber axis);
+        per component ``t2_limit_95``, ``t2_limit_99``, ``q_limit_95``, ``q_limit_99``,
+        ``n_latent`` and ``dof`` (n_calibration − a − 1); per sample ``flags`` (``;``-joined
+        codes of :data:`mixsolve.flags.FLAG_MEANINGS`, docs/flags.md); ``attrs["method"] =
+        "pls"``.
 
     Raises
     ------
     InputError
-        Not a model, spectra not covering the model's wavelengths, a bad pathlength or unit.
+        Not a model, spectra not covering the model's wavelengths, spectra on another
+        axis than the model's (nm against cm⁻¹), a bad pathlength or unit.
 
     Notes
     -----
@@ -123,8 +139,9 @@ def predict(
     b = check_number(spectra.attrs.get("pathlength_cm", b_cal) if pathlength_cm is None
                      else pathlength_cm, "pathlength_cm", "cm", positive=True)
     factor = _unit_factor(model.attrs["unit"], unit)
+    axis = check_same_axis(model, "model", spectra, "spectra")
     model_nm = model[WAVELENGTH].values
-    raw = resample_to_model(spectra, model_nm) * (b_cal / b)
+    raw = resample_to_model(spectra, model_nm, axis) * (b_cal / b)
     prep = json.loads(model.attrs["preprocessing"])
     incomplete = np.isnan(raw).any(axis=1)
     x = preprocess(np.where(np.isnan(raw), 0.0, raw), prep["derivative"])
@@ -169,7 +186,7 @@ def predict(
             "t2": (sd, per["t2"]),
             "q_residual": (sd, per["q_residual"], {"units": "preprocessed, scaled units²"}),
             "rms_residual": (sd, per["rms_residual"],
-                             {"units": "AU/nm" if prep["derivative"] else "AU"}),
+                             {"units": _preprocessed_units(prep["derivative"])}),
             "t2_limit_95": ((COMPONENT,), t2_lim[:, 0]),
             "t2_limit_99": ((COMPONENT,), t2_lim[:, 1]),
             "q_limit_95": ((COMPONENT,), q_lim[:, 0]),
@@ -177,7 +194,7 @@ def predict(
             "n_latent": ((COMPONENT,), a_comp),
             "dof": ((COMPONENT,), n_cal - a_comp - 1),
             "x_residual": (("block", SAMPLE, WAVELENGTH), residuals,
-                           {"units": "AU/nm" if prep["derivative"] else "AU"}),
+                           {"units": _preprocessed_units(prep["derivative"])}),
         },
         coords={SAMPLE: [str(s) for s in spectra[SAMPLE].values], COMPONENT: comps,
                 "block": model["block"].values, WAVELENGTH: model_nm},
@@ -189,6 +206,7 @@ def predict(
             "pathlength_cm": b,
             "calibration_pathlength_cm": b_cal,
             "wavelengths_nm": json.dumps([float(w) for w in model_nm]),
+            "axis": axis,
             "preprocessing": model.attrs["preprocessing"],
             "uncertainty_basis": UNCERTAINTY_BASIS,
             "source": str(spectra.attrs.get("source", "")),
@@ -198,6 +216,13 @@ def predict(
     )
     result["flags"] = _flags(result, model, incomplete, factor)
     return result
+
+
+def _preprocessed_units(derivative: dict[str, Any] | None) -> str:
+    """AU; AU/nm after a derivative along λ; AU·cm after one along ν̃ (cm⁻¹)."""
+    if derivative is None:
+        return "AU"
+    return "AU·cm" if derivative.get("axis") == WAVENUMBER_AXIS else "AU/nm"
 
 
 def _unit_factor(model_unit: str, unit: str | None) -> float:

@@ -13,7 +13,13 @@ import xarray as xr
 from scipy.signal import savgol_filter
 
 from mixsolve.errors import InputError
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number
+from mixsolve.spectra import (
+    SAMPLE,
+    WAVELENGTH,
+    WAVENUMBER_AXIS,
+    check_number,
+    nm_from_wavenumber,
+)
 
 Scale = Literal["none", "autoscale"]
 SCALES: tuple[str, ...] = ("none", "autoscale")
@@ -61,14 +67,27 @@ def calibration_arrays(spectra: xr.DataArray, window: tuple[float, float] | None
     return values, spectra[WAVELENGTH].values.astype(float)
 
 
-def check_derivative(window_points: int | None, polyorder: int, wavelengths_nm: np.ndarray
-                     ) -> dict[str, Any] | None:
-    """Validate Savitzky–Golay settings against the wavelength grid.
+def check_derivative(window_points: int | None, polyorder: int, wavelengths_nm: np.ndarray,
+                     axis: str = "nm") -> dict[str, Any] | None:
+    """Validate Savitzky–Golay settings against the grid, on the spectra's own axis.
+
+    Parameters
+    ----------
+    window_points, polyorder : int
+        Savitzky–Golay window (points, odd) and polynomial order.
+    wavelengths_nm : array, shape (n_wavelengths,)
+        The model's grid (nm), ascending.
+    axis : {"nm", "wavenumber_cm-1"}
+        The axis the spectra were measured on (``attrs["axis"]``): the grid must be even
+        on it, and the derivative is taken along it (an even cm⁻¹ grid is uneven in nm).
 
     Returns
     -------
     dict or None
-        ``{"order": 1, "window_points", "polyorder", "step_nm"}``; None without a derivative.
+        ``{"order": 1, "window_points", "polyorder", "step_nm"}`` on an nm axis;
+        ``{"order": 1, "window_points", "polyorder", "axis": "wavenumber_cm-1",
+        "step_cm-1"}`` on a wavenumber axis (the step of ν̃ = 10⁷/λ, positive; ν̃ falls
+        along the ascending wavelengths); None without a derivative.
 
     Raises
     ------
@@ -86,12 +105,27 @@ def check_derivative(window_points: int | None, polyorder: int, wavelengths_nm: 
     if w > wavelengths_nm.size:
         raise InputError(f"derivative: window of {w} points is longer than the "
                          f"{wavelengths_nm.size} wavelengths used")
+    if axis == WAVENUMBER_AXIS:
+        steps = -np.diff(nm_from_wavenumber(wavelengths_nm))
+        step = float(np.median(steps))
+        if np.any(np.abs(steps - step) > 1e-6 * max(step, 1e-12) + 1e-9):
+            raise InputError(
+                f"derivative: the wavenumbers used are not evenly spaced (steps "
+                f"{steps.min():g}-{steps.max():g} cm-1); a Savitzky–Golay derivative needs "
+                "an even grid")
+        return {"order": 1, "window_points": w, "polyorder": p, "axis": WAVENUMBER_AXIS,
+                "step_cm-1": step}
     steps = np.diff(wavelengths_nm)
     step = float(np.median(steps))
     if np.any(np.abs(steps - step) > 1e-6 * max(step, 1e-12) + 1e-9):
+        per_cm = -np.diff(nm_from_wavenumber(wavelengths_nm))
+        even_cm = bool(np.all(np.abs(per_cm - np.median(per_cm))
+                              <= 1e-6 * float(np.median(per_cm))))
         raise InputError(
             f"derivative: the wavelengths used are not evenly spaced (steps "
-            f"{steps.min():g}-{steps.max():g} nm); a Savitzky–Golay derivative needs an even grid")
+            f"{steps.min():g}-{steps.max():g} nm); a Savitzky–Golay derivative needs an even grid"
+            + ("; they are even in wavenumber: give the axis in cm-1 (header wavenumber_cm-1) "
+               "and the derivative is taken along it" if even_cm else ""))
     return {"order": 1, "window_points": w, "polyorder": p, "step_nm": step}
 
 
@@ -110,12 +144,16 @@ def preprocess(absorbance: np.ndarray, derivative: dict[str, Any] | None) -> np.
     ndarray
         Absorbance (AU) unchanged, or its first derivative dA/dλ (AU/nm) by
         ``scipy.signal.savgol_filter(..., deriv=1, delta=step_nm)`` (edges: polynomial fit
-        to the first/last window, the filter's ``mode="interp"``).
+        to the first/last window, the filter's ``mode="interp"``); on a wavenumber axis
+        dA/dν̃ (AU·cm) with ``delta=-step_cm-1`` (the columns run along ascending λ, so
+        ν̃ falls by one step from each to the next).
     """
     if derivative is None:
         return np.asarray(absorbance, dtype=float)
+    delta = (-derivative["step_cm-1"] if derivative.get("axis") == WAVENUMBER_AXIS
+             else derivative["step_nm"])
     return savgol_filter(np.asarray(absorbance, dtype=float), derivative["window_points"],
-                         derivative["polyorder"], deriv=1, delta=derivative["step_nm"],
+                         derivative["polyorder"], deriv=1, delta=delta,
                          axis=-1, mode="interp")
 
 

@@ -87,8 +87,10 @@ from mixsolve.solve.trust import (
 )
 from mixsolve.spectra import (
     WAVELENGTH,
+    WAVENUMBER_AXIS,
     check_number,
     check_option,
+    check_same_axis,
     check_spectra,
     check_window,
 )
@@ -96,7 +98,7 @@ from mixsolve.units import conversion_factor
 
 #: Attributes of the input spectra that must not label the result's variables.
 INPUT_ATTRS = ("quantity", "quantity_read", "dark_readings", "source", "layout", "separator",
-               "decimal", "pathlength_cm", "read_notes", "files")
+               "decimal", "pathlength_cm", "read_notes", "files", "axis")
 Weights = Literal["none", "noise"]
 WEIGHTS: tuple[str, ...] = ("none", "noise")
 
@@ -312,6 +314,10 @@ def _check_options(spectra: Any, library: Any, *, window: Any, wavelengths: Any,
     here once, their values by the solver as it reads them)."""
     spectra = check_spectra(spectra, scan_values=False)
     library = check_library(library)
+    if check_same_axis(library, "library", spectra, "spectra") == WAVENUMBER_AXIS \
+            and bandwidth_nm is not None:
+        raise InputError("bandwidth_nm: the spectra are on a wavenumber axis, where a "
+                         "bandpass is constant in cm⁻¹, not in nm; leave bandwidth_nm out")
     check_option(method, METHODS, "method")
     check_option(baseline, BASELINES, "baseline")
     check_option(weights, WEIGHTS, "weights")
@@ -642,6 +648,8 @@ def _result(options: _Options, plan: _Plan, kernel: dict[str, xr.DataArray]) -> 
             else options.reference_nm,
             "reference_band_nm": 0.0 if options.reference_nm is None
             else REFERENCE_HALF_BAND_NM,
+            **({"axis": WAVENUMBER_AXIS} if options.spectra.attrs.get("axis")
+               == WAVENUMBER_AXIS else {}),
         },
     )
     note = _bandwidth_note(options, plan, result)
