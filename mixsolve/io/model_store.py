@@ -19,7 +19,6 @@ from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.netcdf_store import ENGINE, file_kind, open_kind, write_netcdf
 from mixsolve.library import describe_dtype, parse_json_object
 from mixsolve.pls.model import MODEL_KIND, check_model
-from mixsolve.pls.preprocessing import SCATTERS
 from mixsolve.units import reference_unit
 
 __all__ = ["ENGINE", "file_kind", "read_model", "write_model"]
@@ -161,6 +160,8 @@ def _check_attributes(model: xr.Dataset, name: str) -> None:
     if not isinstance(attrs.get("mode"), str):
         raise InputError(f"{name}: attribute mode {attrs.get('mode')!r} is not text")
     prep = parse_json_object(attrs.get("preprocessing"), f"{name}: attribute preprocessing")
+    from mixsolve.pls.preprocessing import SCATTERS  # deferred: scipy.signal, read on use
+
     scatter = prep.get("scatter", "none")
     if scatter not in SCATTERS:
         raise InputError(f"{name}: attribute preprocessing holds scatter {scatter!r}, not one "
