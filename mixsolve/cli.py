@@ -854,7 +854,8 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
 @main.command()
 @click.argument("spectra", nargs=-1, required=True)
 @click.option("--reference", required=True,
-              help="Known concentrations: sample, component, concentration, unit.")
+              help="Known concentrations: sample, component, concentration, unit "
+                   "[, group].")
 @click.option("--out", required=True, help="Model file to write (.nc).")
 @click.option("--window", callback=callback(parse_window),
               help="Wavelength window LOW-HIGH in nm, both ends included.")
@@ -876,6 +877,10 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
 @click.option("--scale", type=CoreChoice("mixsolve.pls.preprocessing:SCALES"),
               default=CoreDefault(CALIBRATE, "scale"), show_default=True,
               help="Scale each wavelength to unit variance after centring.")
+@click.option("--scatter", type=CoreChoice("mixsolve.pls.preprocessing:SCATTERS"),
+              default=CoreDefault(CALIBRATE, "scatter"), show_default=True,
+              help="Scatter correction of each spectrum: offset removal, standard normal "
+                   "variate (snv) or multiplicative scatter correction (msc).")
 @click.option("--derivative", type=int,
               help="Savitzky-Golay first derivative over this many points (odd).")
 @click.option("--polyorder", type=int, default=CoreDefault(CALIBRATE, "polyorder"),
@@ -889,18 +894,20 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
 def calibrate(spectra: tuple[str, ...], reference: str, out: str,
               window: tuple[float, float] | None, latent: int | str,
               max_latent: int, folds: int | None, split: str, seed: int, mode: str,
-              scale: str, derivative: int | None, polyorder: int, pathlength: float | None,
-              compare: bool, plot: str | None, quantity: str | None) -> None:
+              scale: str, scatter: str, derivative: int | None, polyorder: int,
+              pathlength: float | None, compare: bool, plot: str | None,
+              quantity: str | None) -> None:
     """Build a PLS model from SPECTRA of mixtures of known composition (--reference).
 
-    SPECTRA: one or more tables or JCAMP-DX files, folders of them, or globs.
+    SPECTRA: one or more tables or JCAMP-DX files, folders of them, or globs. A group
+    column in the reference keeps each group's spectra in one cross-validation fold.
     """
     from mixsolve.workflows.calibrate import calibrate_files
 
     run = calibrate_files(spectra, reference, out, plot=plot, window=window,
                           latent=latent, max_latent=max_latent, folds=folds,
                           split=split, seed=seed, mode=mode, scale=scale,
-                          derivative=derivative, polyorder=polyorder,
+                          scatter=scatter, derivative=derivative, polyorder=polyorder,
                           pathlength_cm=pathlength, compare=compare,
                           quantity=quantity, notes=sys.stderr)  # type: ignore[arg-type]
     click.echo(run.text, nl=False)

@@ -110,6 +110,9 @@ def concentration_basis(unit: str, where: str = "concentration unit") -> tuple[B
     factor : float
         Multiply values in ``unit`` by this to get mol/L (molar) or g/L (mass).
     """
+    if str(unit).strip().lower() in _PARTS_PER:
+        raise UnitError(f"{where}: {unit!r} does not say per what (mass or volume); say mg/L "
+                        "or mg/kg (ug/L or ug/kg for ppb)")
     found = _classify(_parse(unit, where), CONCENTRATION_UNITS)
     if found is not None:
         return found
@@ -150,3 +153,112 @@ def conversion_factor(
     mm = np.asarray(molar_mass_g_per_mol, dtype=float)
     # mol/L -> g/L multiplies by M; g/L -> mol/L divides by M.
     return factor * mm if basis_from == "molar" else factor / mm
+
+
+#: Kinds of reference value a PLS calibration accepts, and the unit each is converted to.
+#: "fraction" is a fraction of unstated kind (a bare ``1`` or ``%``).
+REFERENCE_KINDS: dict[str, str] = {
+    "molar": "mol/L", "mass": "g/L", "mole fraction": "mol/mol", "mass fraction": "g/g",
+    "volume fraction": "L/L", "fraction": "1",
+}
+#: Parts-per notations: refused, their kind (mass or volume basis) is not stated.
+_PARTS_PER = ("ppm", "ppb", "ppt", "ppmv", "ppmw", "ppbv", "ppbw", "ppq")
+#: "% w/v" (g per 100 mL) is a mass concentration; the other qualifiers name a fraction.
+_PERCENT_QUALIFIERS: dict[str, tuple[str, float]] = {
+    "w/w": ("mass fraction", 0.01), "m/m": ("mass fraction", 0.01),
+    "v/v": ("volume fraction", 0.01),
+    "mol/mol": ("mole fraction", 0.01), "n/n": ("mole fraction", 0.01),
+    "mol": ("mole fraction", 0.01),
+    "w/v": ("mass", 10.0), "m/v": ("mass", 10.0),
+}
+_FRACTION_OF = {"[mass]": "mass fraction", "[substance]": "mole fraction",
+                "[length]": "volume fraction"}
+
+
+def _fraction_kind(text: str, where: str) -> tuple[str, float] | None:
+    """Kind and factor of a fraction or percentage unit; None when ``text`` is not one."""
+    import re
+
+    cleaned = " ".join(str(text).strip().replace("µ", "u").replace("μ", "u").split())
+    low = cleaned.lower()
+    if low in _PARTS_PER:
+        raise UnitError(f"{where}: {text!r} does not say per what (mass or volume); say mg/L "
+                        "or mg/kg (ug/L or ug/kg for ppb)")
+    percent = re.fullmatch(r"(?:%|percent)\s*(?:\(?\s*([a-z/]+)\s*\)?)?", low) or \
+        re.fullmatch(r"(mol)\s*%", low)
+    if percent:
+        qualifier = percent.group(1)
+        if qualifier is None:
+            return "fraction", 0.01
+        if qualifier in _PERCENT_QUALIFIERS:
+            return _PERCENT_QUALIFIERS[qualifier]
+        raise UnitError(f"{where}: unknown percentage {text!r}; use % w/w (mass fraction), "
+                        "% v/v (volume fraction), % mol/mol (mole fraction) or % w/v "
+                        "(g per 100 mL)")
+    if low in ("1", "dimensionless", "fraction"):
+        return "fraction", 1.0
+    if low.count("/") != 1 or "(" in low or "*" in low:
+        return None
+    top, bottom = (_parse(part, where) for part in low.split("/"))
+    dims_top, dims_bottom = top.dimensionality, bottom.dimensionality
+    if dims_top != dims_bottom or len(dims_top) != 1:
+        return None
+    (dim, power), = dims_top.items()
+    kind = _FRACTION_OF.get(dim) if dim != "[length]" or power == 3 else None
+    if kind is None:
+        return None
+    return kind, float((1 * top / bottom).to("dimensionless").magnitude)
+
+
+def reference_unit(unit: str, where: str = "unit") -> tuple[str, float]:
+    """Classify a unit of known concentrations (PLS references and predictions).
+
+    Parameters
+    ----------
+    unit : str
+        A concentration (``mg/L``, ``mmol/L``, ``% w/v``), a fraction (``1``, ``mol/mol``,
+        ``g/g``, ``mg/kg``, ``mL/mL``) or a percentage (``%``, ``% w/w``, ``% v/v``,
+        ``% mol/mol``, ``mol %``).
+    where : str
+        Used in the error message to say where the unit came from.
+
+    Returns
+    -------
+    kind : str
+        A key of :data:`REFERENCE_KINDS`.
+    factor : float
+        Multiply values in ``unit`` by this to get the kind's unit of
+        :data:`REFERENCE_KINDS` (mol/L, g/L or a plain fraction).
+
+    Raises
+    ------
+    UnitError
+        Unknown units, units of no such kind, and parts-per notations (``ppm``, ``ppb``:
+        mass or volume basis unstated; the message says mg/L or mg/kg).
+
+    Notes
+    -----
+    A fraction is a ratio of like quantities: amount/amount (mole fraction), mass/mass
+    (mass fraction), volume/volume (volume fraction); ``1`` and ``%`` alone are fractions
+    of unstated kind. ``% w/v`` is not a fraction: 1 % w/v = 1 g/100 mL = 10 g/L, a mass
+    concentration (the pharmacopoeias' usage, common practice). Kinds are never converted
+    into one another: that needs molar masses or densities a PLS model does not hold.
+    """
+    found = _fraction_kind(unit, where)
+    if found is not None:
+        return found
+    try:
+        return concentration_basis(unit, where)
+    except UnitError as exc:
+        if "is not a concentration" not in str(exc):
+            raise
+    raise UnitError(f"{where}: {unit!r} is neither a concentration nor a fraction; expected "
+                    "e.g. mg/L, mmol/L, g/g, mol/mol, mL/mL, %, % w/w or % v/v") from None
+
+
+def kind_words(kind: str) -> str:
+    """A kind of :data:`REFERENCE_KINDS` in words for messages (``molar-based``, ``a mass
+    fraction``, ...)."""
+    if kind in ("molar", "mass"):
+        return f"{kind}-based"
+    return "a fraction of unstated kind" if kind == "fraction" else f"a {kind}"

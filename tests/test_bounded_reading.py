@@ -517,7 +517,8 @@ MODEL_CASES: dict[str, tuple[Callable[[xr.Dataset], xr.Dataset], str]] = {
                         r"attribute pathlength_cm np\.float64\(0\.0\) is not a positive number"),
     "unknown unit": (_attrs(unit="bananas"), r"attribute unit: unknown unit 'bananas'"),
     "unit that is no concentration": (_attrs(unit="cm"),
-                                      r"attribute unit: 'cm' is not a concentration"),
+                                      r"attribute unit: 'cm' is neither a concentration "
+                                      r"nor a fraction"),
     "bad preprocessing JSON": (_attrs(preprocessing="{derivative"),
                                r"attribute preprocessing '\{derivative' is not JSON text of an "
                                r"object"),

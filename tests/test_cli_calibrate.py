@@ -121,3 +121,32 @@ def test_unmix_with_a_model_refuses_library_options_and_short_spectra(files, cli
     short[short["wavelength_nm"] >= 500].to_csv(folder / "short.csv", index=False)
     res = cli("unmix", model_path, folder / "short.csv")
     assert_cli_error(res, "does not cover the model's 420-680 nm", literal=True)
+
+
+def test_calibrate_with_groups_and_scatter_correction(files, cli) -> None:
+    """A group column in the reference keeps each group in one fold; --scatter msc is stored
+    in the model and repeated by `unmix MODEL.nc`."""
+    folder, spectra, ref, new = files
+    table = pd.read_csv(ref)
+    table["group"] = [f"g{(int(s[-2:]) - 1) // 4}" for s in table["sample"]]
+    table.to_csv(ref, index=False)
+    model_path = folder / "model.nc"
+    res = cli("calibrate", spectra, "--reference", ref, "--out", model_path, "--folds", 5,
+              "--max-latent", 6, "--scatter", "msc")
+    assert res.exit_code == 0, res.output
+    assert "5 folds of whole groups (5 groups, never split), leave one group out" in res.stdout
+    assert "multiplicative scatter correction" in res.stdout
+    model = ms.read_model(model_path)
+    assert "msc_reference" in model
+    res = cli("unmix", model_path, new, "--out", folder / "out.csv")
+    assert res.exit_code == 0, res.output
+
+
+def test_calibrate_refuses_ppm_with_the_fix(files, cli) -> None:
+    folder, spectra, ref, _ = files
+    table = pd.read_csv(ref)
+    table["unit"] = "ppm"
+    table.to_csv(ref, index=False)
+    assert_cli_error(cli("calibrate", spectra, "--reference", ref, "--out",
+                         folder / "m.nc"), r"'ppm' does not say per what \(mass or volume\); "
+                     r"say mg/L or mg/kg", must_not_exist=[folder / "m.nc"])

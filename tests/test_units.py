@@ -12,6 +12,7 @@ from mixsolve.units import (
     absorptivity_basis,
     concentration_basis,
     conversion_factor,
+    reference_unit,
     registry,
 )
 
@@ -168,3 +169,46 @@ def test_conversion_refuses_non_concentrations() -> None:
         conversion_factor("g/L", "L/(g*cm)")
     with pytest.raises(UnitError, match="unit of the results"):
         conversion_factor("furlong", "g/L")
+
+
+@pytest.mark.parametrize(("unit", "kind", "factor"), [
+    ("1", "fraction", 1.0), ("%", "fraction", 0.01), ("percent", "fraction", 0.01),
+    ("mol/mol", "mole fraction", 1.0), ("mmol/mol", "mole fraction", 1e-3),
+    ("mol %", "mole fraction", 0.01), ("% mol/mol", "mole fraction", 0.01),
+    ("g/g", "mass fraction", 1.0), ("mg/kg", "mass fraction", 1e-6),
+    ("% w/w", "mass fraction", 0.01), ("%m/m", "mass fraction", 0.01),
+    ("mL/mL", "volume fraction", 1.0), ("mL/L", "volume fraction", 1e-3),
+    ("% v/v", "volume fraction", 0.01), ("% (v/v)", "volume fraction", 0.01),
+    ("% w/v", "mass", 10.0), ("mg/L", "mass", 1e-3), ("mmol/L", "molar", 1e-3),
+])
+def test_reference_units_fractions_and_percentages(unit: str, kind: str, factor: float) -> None:
+    """SI prefixes (BIPM SI Brochure, seen); 1 % w/v = 1 g per 100 mL = 10 g/L (the
+    pharmacopoeias' convention, common practice); a fraction is like over like."""
+    found, f = reference_unit(unit)
+    assert found == kind
+    assert f == pytest.approx(factor, rel=1e-12)
+
+
+@pytest.mark.parametrize("unit", ["ppm", "ppb", "PPM"])
+def test_parts_per_refused_with_the_fix(unit: str) -> None:
+    with pytest.raises(UnitError, match=rf"unit: '{unit}' does not say per what \(mass or "
+                       r"volume\); say mg/L or mg/kg"):
+        reference_unit(unit)
+    with pytest.raises(UnitError, match=r"say mg/L or mg/kg"):
+        concentration_basis(unit)
+
+
+@pytest.mark.parametrize(("unit", "message"), [
+    ("% x/y", r"unknown percentage '% x/y'; use % w/w"),
+    ("cm", r"'cm' is neither a concentration nor a fraction"),
+    ("mL/g", r"'mL/g' is neither a concentration nor a fraction"),
+])
+def test_reference_unit_refusals(unit: str, message: str) -> None:
+    with pytest.raises(UnitError, match=message):
+        reference_unit(unit)
+
+
+def test_fractions_are_not_concentrations_for_absorptivities() -> None:
+    """Beer's law needs amount or mass per volume: a fraction stays refused there."""
+    with pytest.raises(UnitError, match=r"'mol/mol' is not a concentration"):
+        concentration_basis("mol/mol")

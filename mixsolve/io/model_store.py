@@ -20,7 +20,7 @@ from mixsolve.io.netcdf_store import ENGINE, file_kind, open_kind, write_netcdf
 from mixsolve.library import describe_dtype, parse_json_object
 from mixsolve.pls.model import MODEL_KIND, check_model
 from mixsolve.spectra import WAVENUMBER_AXIS, native_axis
-from mixsolve.units import concentration_basis
+from mixsolve.units import reference_unit
 
 __all__ = ["ENGINE", "file_kind", "read_model", "write_model"]
 
@@ -41,6 +41,7 @@ MODEL_ARRAYS: dict[str, tuple[str, ...]] = {
 OPTIONAL_ARRAYS: dict[str, tuple[str, ...]] = {
     "cv_t2": ("sample", "block"),
     "t2_false_alarm_cv": ("block", "confidence"), "q_false_alarm_cv": ("block", "confidence"),
+    "msc_reference": ("wavelength",),
 }
 
 
@@ -156,10 +157,21 @@ def _check_attributes(model: xr.Dataset, name: str) -> None:
     if not np.isfinite(b) or b <= 0:
         raise InputError(f"{name}: attribute pathlength_cm {attrs.get('pathlength_cm')!r} is "
                          "not a positive number of cm")
-    concentration_basis(str(attrs.get("unit", "")), f"{name}: attribute unit")
+    reference_unit(str(attrs.get("unit", "")), f"{name}: attribute unit")
     if not isinstance(attrs.get("mode"), str):
         raise InputError(f"{name}: attribute mode {attrs.get('mode')!r} is not text")
     prep = parse_json_object(attrs.get("preprocessing"), f"{name}: attribute preprocessing")
+    from mixsolve.pls.preprocessing import SCATTERS  # deferred: scipy.signal, read on use
+
+    scatter = prep.get("scatter", "none")
+    if scatter not in SCATTERS:
+        raise InputError(f"{name}: attribute preprocessing holds scatter {scatter!r}, not one "
+                         f"of {', '.join(SCATTERS)}")
+    if scatter == "msc":
+        if "msc_reference" not in model.data_vars:
+            raise InputError(f"{name}: scatter correction msc needs the variable "
+                             "'msc_reference'")
+        _finite(model, "msc_reference", name)
     derivative = prep.get("derivative", "absent")
     step = "step_cm-1" if isinstance(derivative, dict) \
         and derivative.get("axis") == WAVENUMBER_AXIS else "step_nm"

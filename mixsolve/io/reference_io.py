@@ -1,4 +1,5 @@
-"""Read a reference table of known concentrations: ``sample, component, concentration, unit``.
+"""Read a reference table of known concentrations: ``sample, component, concentration, unit``
+and an optional ``group``.
 
 The layout is that of the tidy results CSV, so the results of one run can serve as the
 reference of another; other columns (``std_uncertainty``, ``flags`` ...) are ignored. The
@@ -26,7 +27,9 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
     Returns
     -------
     DataFrame
-        Columns ``sample``, ``component``, ``concentration`` (float), ``unit`` and ``line``
+        Columns ``sample``, ``component``, ``concentration`` (float), ``unit``, ``group``
+        when the file has that optional column (which spectra belong together, for
+        cross-validation: :func:`mixsolve.pls.reference.reference_matrix`) and ``line``
         (the file's line number, for messages); ``attrs["source"]`` is the file name.
 
     Raises
@@ -38,8 +41,8 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
         naming both and their lines (:func:`mixsolve.names.check_spellings`).
     """
     table = read_table(path, sheet=sheet, keep_spaces=True)  # names as written
-    names = header_names(table, REQUIRED, "a reference table")
-    cols = {c: names.index(c) for c in REQUIRED}
+    names = header_names(table, REQUIRED, "a reference table", optional_note="optional: group")
+    cols = {c: names.index(c) for c in (*REQUIRED, *(["group"] if "group" in names else []))}
     records = []
     for i, row in enumerate(table.rows):
         cells = list(row) + [""] * (len(names) - len(row))
@@ -53,14 +56,14 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
             core = text.strip()
             if not core:
                 raise FileFormatError(f"{table.where(i, j)}: empty {col}")
-            if col == "unit":
+            if col in ("unit", "group"):
                 text = core
             # CSV/TSV only: an XLSX cell is text as it stands (mixsolve writes no apostrophe)
             if table.separator is not None and unquote_cell(core) != core:
                 text = text.replace(core, unquote_cell(core), 1)  # spaces around kept
             rec[col] = text
         records.append(rec)
-    frame = pd.DataFrame.from_records(records, columns=[*REQUIRED, "line"])
+    frame = pd.DataFrame.from_records(records, columns=[*cols, "line"])
     for col in ("sample", "component"):  # names as people read them (mixsolve.names)
         frame[col] = check_spellings(frame[col], f"{table.name}, {col}s",
                                      frame["line"].tolist())

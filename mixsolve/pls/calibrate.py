@@ -35,10 +35,14 @@ from mixsolve.pls.limits import CONFIDENCE, cv_false_alarm, cv_limit, q_limit
 from mixsolve.pls.model import FORMAT_VERSION, MODEL_KIND, UNCERTAINTY_BASIS
 from mixsolve.pls.preprocessing import (
     SCALES,
+    SCATTERS,
     Scale,
+    Scatter,
     calibration_arrays,
     centre_scale,
     check_derivative,
+    correct_scatter,
+    msc_reference,
     preprocess,
 )
 from mixsolve.pls.reference import match_samples, reference_matrix
@@ -68,6 +72,7 @@ def calibrate(
     seed: int = 0,
     mode: Mode = "auto",
     scale: Scale = "none",
+    scatter: Scatter = "none",
     derivative: int | None = None,
     polyorder: int = 2,
     compare: bool = False,
@@ -81,8 +86,10 @@ def calibrate(
         Blank-corrected absorbance (AU) of the calibration mixtures; wavelength in nm.
         Complete (no NaN) over the wavelengths used.
     reference : DataFrame or DataArray
-        Known concentrations (see :func:`mixsolve.pls.reference.reference_matrix`);
-        its samples must be exactly those of ``spectra``.
+        Known concentrations or fractions (see
+        :func:`mixsolve.pls.reference.reference_matrix`); its samples must be exactly those
+        of ``spectra``. With a ``group`` column (coordinate), cross-validation never
+        splits a group.
     window : (float, float), optional
         Use the measured wavelengths from ``low`` to ``high`` nm, both included; default all.
     latent : int or "auto"
@@ -91,10 +98,13 @@ def calibrate(
     max_latent : int
         Most latent variables tried (also bounded by the rank of every training set).
     folds : int, optional
-        Number of cross-validation folds, 2 ≤ folds ≤ n; default min(10, n).
+        Number of cross-validation folds, 2 ≤ folds ≤ n; default min(10, n). With groups,
+        2 ≤ folds ≤ the number of groups, default min(10, groups).
     split : {"blocks", "random"}
         Folds as contiguous blocks in the order of the spectra (keeps replicates measured
-        one after another together), or shuffled with ``seed``.
+        one after another together), or shuffled with ``seed``. With groups: whole groups,
+        balanced by size (``blocks``) or shuffled with ``seed`` (``random``)
+        (:func:`mixsolve.pls.cross_validation.make_folds`).
     seed : int
         Seed of the ``random`` split.
     mode : {"auto", "pls2", "pls1"}
@@ -102,8 +112,14 @@ def calibrate(
         cross-validates better (lower mean variance-scaled error).
     scale : {"none", "autoscale"}
         After mean-centring (always), divide each wavelength by its standard deviation.
+    scatter : {"none", "offset", "snv", "msc"}
+        Scatter correction of each spectrum, first of all preprocessing: its mean removed
+        (``offset``), standard normal variate (``snv``) or multiplicative scatter
+        correction against the mean calibration spectrum (``msc``, the reference stored as
+        ``msc_reference``); see :func:`mixsolve.pls.preprocessing.correct_scatter`.
     derivative : int, optional
-        Savitzky–Golay first derivative over this many points (odd), before centring.
+        Savitzky–Golay first derivative over this many points (odd), after the scatter
+        correction, before centring.
     polyorder : int
         Polynomial order of the derivative filter.
     compare : bool
@@ -116,7 +132,8 @@ def calibrate(
     Returns
     -------
     Dataset
-        The model: ``x_mean``, ``x_scale`` (wavelength); ``y_mean``, ``y_scale``
+        The model: ``x_mean``, ``x_scale`` and, with ``scatter="msc"``, ``msc_reference``
+        (wavelength); ``y_mean``, ``y_scale``
         (component); per block ``x_weights`` W, ``x_rotations`` R = W(PᵀW)⁻¹ and
         ``x_loadings`` P (block, wavelength, latent),
         ``y_loadings`` (block, component, latent), ``score_variance`` (block, latent),
@@ -161,6 +178,7 @@ def calibrate(
     check_option(split, SPLITS, "split")
     check_option(mode, MODES, "mode")
     check_option(scale, SCALES, "scale")
+    check_option(scatter, SCATTERS, "scatter")
     window = check_window(window)
     if latent != "auto" and (isinstance(latent, bool) or not isinstance(latent, int | np.integer)
                              or latent < 1):
@@ -177,10 +195,14 @@ def calibrate(
                          "in every calibration sample; it must vary to be calibrated")
     axis = native_axis(spectra)
     deriv = check_derivative(derivative, polyorder, wl, axis)
-    x = preprocess(raw, deriv)
+    m_ref = msc_reference(raw) if scatter == "msc" else None
+    x = preprocess(correct_scatter(raw, scatter, m_ref, [str(v) for v in ref[SAMPLE].values]),
+                   deriv)
     n = x.shape[0]
-    k_folds = check_counts(n, folds, max_latent)
-    fold = make_folds(n, k_folds, split, seed)
+    groups = ref["group"].values if "group" in ref.coords else None
+    n_groups = None if groups is None else len(set(groups.tolist()))
+    k_folds = check_counts(n, folds, max_latent, n_groups)
+    fold = make_folds(n, k_folds, split, seed, groups)
     a_max = latent_bound(x, fold, max_latent)
     if latent != "auto" and latent > a_max:
         raise InputError(f"latent: {latent} latent variables is more than the {a_max} this "
@@ -196,6 +218,10 @@ def calibrate(
     model["reference"] = ((SAMPLE, COMPONENT), y)
     model = model.assign_coords({SAMPLE: [str(s) for s in ref[SAMPLE].values]})
     model["fold"] = ((SAMPLE,), fold)
+    if m_ref is not None:
+        model["msc_reference"] = ((WAVELENGTH,), m_ref, {"units": "AU"})
+    if groups is not None:
+        model = model.assign_coords(group=(SAMPLE, [str(g) for g in groups]))
     model["reference_min"] = ((COMPONENT,), y.min(axis=0))
     model["reference_max"] = ((COMPONENT,), y.max(axis=0))
     _add_cv_curves(model, cv, y)
@@ -224,10 +250,12 @@ def calibrate(
         "unit": unit,
         "pathlength_cm": b,
         "window_nm": "" if window is None else f"{window[0]:g}-{window[1]:g}",
-        "preprocessing": json.dumps({"centring": "mean", "scale": scale, "derivative": deriv}),
+        "preprocessing": json.dumps({"centring": "mean", "scale": scale, "derivative": deriv,
+                                     "scatter": scatter}),
         "axis": axis,
         "cross_validation": json.dumps({
             "split": split, "folds": k_folds, "seed": seed if split == "random" else None,
+            "groups": n_groups,
             "latent_requested": latent, "max_latent_tried": a_max, "rule": ONE_SE_RULE}),
         "uncertainty_basis": UNCERTAINTY_BASIS,
         "source": str(spectra.attrs.get("source", "")),

@@ -1,7 +1,8 @@
 """Cross-validation of PLS models and the choice of the number of latent variables.
 
-Folds are contiguous blocks or seeded shuffles (scikit-learn's ``KFold``); the number of
-latent variables follows the one-standard-error rule (docs/calibration.md).
+Folds are contiguous blocks or seeded shuffles (scikit-learn's ``KFold``), or, when the
+samples are grouped, whole groups (scikit-learn's ``GroupKFold``); the number of latent
+variables follows the one-standard-error rule (docs/calibration.md).
 """
 
 from __future__ import annotations
@@ -10,7 +11,7 @@ from collections.abc import Iterator
 from typing import Any, Literal, NamedTuple
 
 import numpy as np
-from sklearn.model_selection import KFold
+from sklearn.model_selection import GroupKFold, KFold
 
 from mixsolve.errors import InputError
 from mixsolve.pls.blocks import block_groups, fit_block, project
@@ -31,7 +32,8 @@ ONE_SE_RULE = (
 )
 
 
-def make_folds(n_samples: int, folds: int, split: str, seed: int) -> np.ndarray:
+def make_folds(n_samples: int, folds: int, split: str, seed: int,
+               groups: np.ndarray | None = None) -> np.ndarray:
     """Fold index (0-based) of each sample: contiguous blocks in order, or shuffled.
 
     Parameters
@@ -42,6 +44,9 @@ def make_folds(n_samples: int, folds: int, split: str, seed: int) -> np.ndarray:
         Contiguous blocks in sample order, or a shuffle seeded with ``seed``.
     seed : int
         Seed of the shuffle (ignored for blocks).
+    groups : array, shape (n_samples,), optional
+        Group label of each sample; a group is never split between folds
+        (2 ≤ folds ≤ number of groups).
 
     Returns
     -------
@@ -50,7 +55,20 @@ def make_folds(n_samples: int, folds: int, split: str, seed: int) -> np.ndarray:
     Notes
     -----
     ``sklearn.model_selection.KFold``: fold sizes differ by at most one, the larger first.
+    With groups, ``sklearn.model_selection.GroupKFold``: ``blocks`` puts the largest groups
+    first, each into the fold with the fewest samples so far (folds of nearly equal size,
+    deterministic); ``random`` shuffles the groups with ``seed`` first
+    (``shuffle=True``). As many folds as groups is leave-one-group-out.
     """
+    if groups is not None:
+        shuffled = split == "random"
+        splitter = GroupKFold(n_splits=folds, shuffle=shuffled,
+                              random_state=seed if shuffled else None)
+        index = np.empty(n_samples, dtype=np.int64)
+        for f, (_, test) in enumerate(splitter.split(np.zeros(n_samples),
+                                                     groups=np.asarray(groups))):
+            index[test] = f
+        return index
     kfold = KFold(n_splits=folds, shuffle=split == "random",
                   random_state=seed if split == "random" else None)
     index = np.empty(n_samples, dtype=np.int64)
@@ -59,7 +77,8 @@ def make_folds(n_samples: int, folds: int, split: str, seed: int) -> np.ndarray:
     return index
 
 
-def check_counts(n: int, folds: int | None, max_latent: int) -> int:
+def check_counts(n: int, folds: int | None, max_latent: int,
+                 n_groups: int | None = None) -> int:
     """Check the number of samples, folds and latent variables; return the folds to use.
 
     Parameters
@@ -67,21 +86,30 @@ def check_counts(n: int, folds: int | None, max_latent: int) -> int:
     n : int
         Number of calibration samples.
     folds : int or None
-        Folds asked for; None gives min(:data:`DEFAULT_FOLDS`, n).
+        Folds asked for; None gives min(:data:`DEFAULT_FOLDS`, n), or
+        min(:data:`DEFAULT_FOLDS`, groups) when the samples are grouped.
     max_latent : int
         Most latent variables to try.
+    n_groups : int, optional
+        Number of groups of samples, when grouped.
 
     Raises
     ------
     InputError
-        Fewer than 3 samples, folds outside 2..n, or ``max_latent`` below 1.
+        Fewer than 3 samples (or 2 groups), folds outside 2..n (2..groups), or
+        ``max_latent`` below 1.
     """
     if n < 3:
         raise InputError(f"calibration: {n} sample(s); cross-validation needs at least 3 "
                          "calibration mixtures (use many more in practice)")
-    k = min(DEFAULT_FOLDS, n) if folds is None else int(check_number(
-        folds, "folds", low=2, high=n, integer=True,
-        hint=f"at most one fold per calibration sample ({n})"))
+    if n_groups is not None and n_groups < 2:
+        raise InputError(f"reference: all {n} samples are in one group; cross-validation "
+                         "needs at least 2 groups (folds never split a group)")
+    most = n if n_groups is None else n_groups
+    k = min(DEFAULT_FOLDS, most) if folds is None else int(check_number(
+        folds, "folds", low=2, high=most, integer=True,
+        hint=f"at most one fold per calibration sample ({n})" if n_groups is None else
+        f"at most one fold per group of samples ({n_groups} groups; a group is never split)"))
     check_number(max_latent, "max_latent", low=1, integer=True)
     return k
 

@@ -6,7 +6,6 @@ Spectra on another wavelength grid are resampled inside the model's range only.
 from __future__ import annotations
 
 import json
-from typing import Any
 
 import numpy as np
 import xarray as xr
@@ -24,7 +23,7 @@ from mixsolve.flags import (
 from mixsolve.library import COMPONENT
 from mixsolve.pls.blocks import project
 from mixsolve.pls.model import UNCERTAINTY_BASIS, check_model
-from mixsolve.pls.preprocessing import preprocess
+from mixsolve.pls.preprocessing import correct_scatter, preprocess
 from mixsolve.spectra import (
     SAMPLE,
     WAVELENGTH,
@@ -34,7 +33,7 @@ from mixsolve.spectra import (
     check_spectra,
     nm_from_wavenumber,
 )
-from mixsolve.units import concentration_basis
+from mixsolve.units import kind_words, reference_unit
 
 
 def resample_to_model(spectra: xr.DataArray, model_nm: np.ndarray, axis: str = "nm"
@@ -112,21 +111,25 @@ def predict(
         Per (sample, component): ``concentration``, ``std_uncertainty``, ``leverage``,
         ``t2``, ``q_residual`` (of the block predicting the component; the same for all
         components in PLS2) and ``rms_residual`` (√(Q·scale²/n_wavelengths): RMS spectral
-        residual in AU, AU/nm after a derivative, AU·cm after one along a wavenumber axis);
-        per component ``t2_limit_95``, ``t2_limit_99``, ``q_limit_95``, ``q_limit_99``,
-        ``n_latent`` and ``dof`` (n_calibration − a − 1); per sample ``flags`` (``;``-joined
-        codes of :data:`mixsolve.flags.FLAG_MEANINGS`, docs/flags.md); ``attrs["method"] =
-        "pls"``.
+        residual in AU, AU/nm after a derivative, AU·cm after one along a wavenumber axis,
+        dimensionless (1, 1/nm, cm) after SNV); per component
+        ``t2_limit_95``, ``t2_limit_99``, ``q_limit_95``, ``q_limit_99``, ``n_latent`` and ``dof``
+        (n_calibration − a − 1); per sample ``flags`` (``;``-joined codes of
+        :data:`mixsolve.flags.FLAG_MEANINGS`, docs/flags.md);
+        ``attrs["method"] = "pls"``.
 
     Raises
     ------
     InputError
         Not a model, spectra not covering the model's wavelengths, spectra on another
-        axis than the model's (nm against cm⁻¹), a bad pathlength or unit.
+        axis than the model's (nm against cm⁻¹), a bad pathlength or unit, a spectrum the
+        model's scatter correction cannot correct (flat for SNV, MSC slope ≤ 0).
 
     Notes
     -----
-    With x the preprocessed spectrum centred and scaled as in calibration, a block's scores
+    Preprocessing repeats the calibration's: scatter correction (with the stored MSC
+    reference), derivative, centring and scaling. With x the preprocessed spectrum centred
+    and scaled as in calibration, a block's scores
     are t = x R (R the x rotations), ŷ = t Qᵀ · s_y + ȳ, T² = Σₐ tₐ²/s²(tₐ) over the
     calibration score variances, Q = ‖x − t Pᵀ‖² (P the x loadings). The uncertainty is an
     approximation: see ``attrs["uncertainty_basis"]``.
@@ -144,7 +147,15 @@ def predict(
     raw = resample_to_model(spectra, model_nm, axis) * (b_cal / b)
     prep = json.loads(model.attrs["preprocessing"])
     incomplete = np.isnan(raw).any(axis=1)
-    x = preprocess(np.where(np.isnan(raw), 0.0, raw), prep["derivative"])
+    scatter = prep.get("scatter", "none")  # models before scatter corrections have none
+    filled = np.where(np.isnan(raw), 0.0, raw)
+    if scatter != "none" and (~incomplete).any():  # incomplete spectra give no result anyway
+        complete = np.flatnonzero(~incomplete)
+        filled[complete] = correct_scatter(
+            filled[complete], scatter,
+            model["msc_reference"].values if scatter == "msc" else None,
+            [str(spectra[SAMPLE].values[i]) for i in complete])
+    x = preprocess(filled, prep["derivative"])
     xs = (x - model["x_mean"].values) / model["x_scale"].values
     comps = [str(c) for c in model[COMPONENT].values]
     n, n_y = xs.shape[0], len(comps)
@@ -185,8 +196,7 @@ def predict(
             "leverage": (sd, per["leverage"]),
             "t2": (sd, per["t2"]),
             "q_residual": (sd, per["q_residual"], {"units": "preprocessed, scaled units²"}),
-            "rms_residual": (sd, per["rms_residual"],
-                             {"units": _preprocessed_units(prep["derivative"])}),
+            "rms_residual": (sd, per["rms_residual"], {"units": _x_units(prep)}),
             "t2_limit_95": ((COMPONENT,), t2_lim[:, 0]),
             "t2_limit_99": ((COMPONENT,), t2_lim[:, 1]),
             "q_limit_95": ((COMPONENT,), q_lim[:, 0]),
@@ -194,7 +204,7 @@ def predict(
             "n_latent": ((COMPONENT,), a_comp),
             "dof": ((COMPONENT,), n_cal - a_comp - 1),
             "x_residual": (("block", SAMPLE, WAVELENGTH), residuals,
-                           {"units": _preprocessed_units(prep["derivative"])}),
+                           {"units": _x_units(prep)}),
         },
         coords={SAMPLE: [str(s) for s in spectra[SAMPLE].values], COMPONENT: comps,
                 "block": model["block"].values, WAVELENGTH: model_nm},
@@ -218,22 +228,28 @@ def predict(
     return result
 
 
-def _preprocessed_units(derivative: dict[str, Any] | None) -> str:
-    """AU; AU/nm after a derivative along λ; AU·cm after one along ν̃ (cm⁻¹)."""
-    if derivative is None:
-        return "AU"
-    return "AU·cm" if derivative.get("axis") == WAVENUMBER_AXIS else "AU/nm"
+def _x_units(prep: dict) -> str:
+    """Unit of preprocessed spectra: AU (1 after SNV); per nm after a derivative along λ,
+    times cm after one along ν̃ (cm⁻¹)."""
+    base = "1" if prep.get("scatter") == "snv" else "AU"
+    derivative = prep["derivative"]
+    if not derivative:
+        return base
+    if derivative.get("axis") == WAVENUMBER_AXIS:
+        return "cm" if base == "1" else "AU·cm"
+    return f"{base}/nm" if base == "AU" else "1/nm"
 
 
 def _unit_factor(model_unit: str, unit: str | None) -> float:
     """Factor from the model's concentration unit to ``unit`` (1 when None)."""
     if unit is None:
         return 1.0
-    basis_m, f_m = concentration_basis(model_unit, "model unit")
-    basis_u, f_u = concentration_basis(unit, "unit")
+    basis_m, f_m = reference_unit(model_unit, "model unit")
+    basis_u, f_u = reference_unit(unit, "unit")
     if basis_m != basis_u:
-        raise InputError(f"unit: {unit!r} is {basis_u}-based but the model predicts {model_unit} "
-                         f"({basis_m}-based); a PLS model holds no molar masses to convert")
+        raise InputError(f"unit: {unit!r} is {kind_words(basis_u)} but the model predicts "
+                         f"{model_unit} ({kind_words(basis_m)}); a PLS model holds no molar "
+                         "masses or densities to convert")
     return f_m / f_u
 
 

@@ -1,4 +1,5 @@
-"""Preprocessing of PLS spectra: wavelength window, Savitzky–Golay derivative, centring, scaling.
+"""Preprocessing of PLS spectra: wavelength window, scatter correction (offset removal, SNV,
+MSC), Savitzky–Golay derivative, centring, scaling.
 
 The same steps, with the settings and means recorded in the model, are applied to the
 calibration mixtures and to every spectrum predicted later (docs/calibration.md).
@@ -23,6 +24,8 @@ from mixsolve.spectra import (
 
 Scale = Literal["none", "autoscale"]
 SCALES: tuple[str, ...] = ("none", "autoscale")
+Scatter = Literal["none", "offset", "snv", "msc"]
+SCATTERS: tuple[str, ...] = ("none", "offset", "snv", "msc")
 
 
 def calibration_arrays(spectra: xr.DataArray, window: tuple[float, float] | None
@@ -178,3 +181,100 @@ def centre_scale(x: np.ndarray, scale: str) -> tuple[np.ndarray, np.ndarray]:
         return mean, np.ones(x.shape[1])
     sd = x.std(axis=0, ddof=1)
     return mean, np.where(sd > 0, sd, 1.0)
+
+
+def msc_reference(absorbance: np.ndarray) -> np.ndarray:
+    """The reference spectrum of multiplicative scatter correction: the mean spectrum.
+
+    Parameters
+    ----------
+    absorbance : array, shape (n_samples, n_wavelengths)
+        Absorbance (AU) of the calibration mixtures over the model's window.
+
+    Returns
+    -------
+    array, shape (n_wavelengths,)
+        Their mean spectrum (AU), stored in the model (``msc_reference``) and used for every
+        spectrum predicted later.
+    """
+    return np.asarray(absorbance, dtype=float).mean(axis=0)
+
+
+def correct_scatter(absorbance: np.ndarray, scatter: str,
+                    reference: np.ndarray | None = None,
+                    names: list[str] | None = None) -> np.ndarray:
+    """Remove each spectrum's offset, or its offset and scale (SNV, MSC).
+
+    Parameters
+    ----------
+    absorbance : array, shape (n_samples, n_wavelengths)
+        Absorbance (AU) over the model's window.
+    scatter : {"none", "offset", "snv", "msc"}
+        The correction (see Notes).
+    reference : array, shape (n_wavelengths,), optional
+        The MSC reference spectrum (AU), :func:`msc_reference` of the calibration mixtures;
+        needed for ``msc`` only.
+    names : list of str, optional
+        Sample names, for messages.
+
+    Returns
+    -------
+    ndarray, shape (n_samples, n_wavelengths)
+        ``none``: absorbance (AU) unchanged; ``offset``: AU; ``snv`` and ``msc``:
+        dimensionless (SNV) or on the scale of the reference (MSC, AU).
+
+    Raises
+    ------
+    InputError
+        A spectrum that SNV cannot scale (the same reading everywhere) or that MSC cannot
+        match to the reference (slope b ≤ 0: it does not resemble the mean calibration
+        spectrum); the message names the sample.
+
+    Notes
+    -----
+    With x a spectrum over its p wavelengths, x̄ its mean and s its standard deviation
+    (ddof 1):
+
+    - offset: x − x̄, a constant baseline removed from each spectrum;
+    - standard normal variate (Barnes, Dhanoa & Lister, Appl. Spectrosc. 43 (1989)
+      772–777): (x − x̄)/s;
+    - multiplicative scatter correction (Geladi, MacDougall & Martens, Appl. Spectrosc.
+      39 (1985) 491–500): x = a + b·m + e fitted by least squares against the reference m,
+      then (x − a)/b.
+
+    Each acts on one spectrum at a time, so a prediction applies exactly what the
+    calibration did (for MSC, with the calibration's reference).
+    """
+    x = np.asarray(absorbance, dtype=float)
+    if scatter == "none":
+        return x
+    centred = x - x.mean(axis=-1, keepdims=True)
+    if scatter == "offset":
+        return centred
+    if scatter == "snv":
+        sd = x.std(axis=-1, ddof=1, keepdims=True)
+        _refuse(sd[:, 0] <= 0, names, "has the same reading at every wavelength: SNV cannot "
+                "scale it")
+        return centred / sd
+    if reference is None:
+        raise InputError("scatter: multiplicative scatter correction needs its reference "
+                         "spectrum")
+    m = np.asarray(reference, dtype=float)
+    mc = m - m.mean()
+    denominator = float(mc @ mc)
+    if denominator <= 0:
+        raise InputError("scatter: the MSC reference spectrum (the mean calibration spectrum) "
+                         "is flat; use snv or offset")
+    b = centred @ mc / denominator
+    a = x.mean(axis=-1) - b * m.mean()
+    _refuse(~(b > 0), names, "does not resemble the mean calibration spectrum (MSC slope "
+            "≤ 0): MSC cannot correct it")
+    return (x - a[:, None]) / b[:, None]
+
+
+def _refuse(bad: np.ndarray, names: list[str] | None, what: str) -> None:
+    if bad.any():
+        i = int(np.flatnonzero(bad)[0])
+        who = repr(names[i]) if names is not None else f"number {i + 1}"
+        raise InputError(f"spectra: sample {who} {what}; remove it or choose another "
+                         "scatter correction")

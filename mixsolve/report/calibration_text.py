@@ -24,6 +24,12 @@ def _who(names: list[str]) -> str:
     return ", ".join(names[:6]) + (f" and {len(names) - 6} more" if len(names) > 6 else "")
 
 
+#: How each scatter correction is named in a summary (none: not mentioned).
+SCATTER_WORDS = {"offset": "offset removed (each spectrum's mean)",
+                 "snv": "standard normal variate", "msc": "multiplicative scatter correction "
+                 "(reference: mean calibration spectrum)"}
+
+
 def describe_preprocessing(preprocessing: str) -> str:
     """One line saying how spectra are preprocessed.
 
@@ -46,6 +52,9 @@ def describe_preprocessing(preprocessing: str) -> str:
     parts.insert(0, "no derivative" if not d else
                  f"Savitzky–Golay 1st derivative ({d['window_points']} points, "
                  f"order {d['polyorder']})")
+    scatter = SCATTER_WORDS.get(prep.get("scatter", "none"))
+    if scatter:
+        parts.insert(0, scatter)
     return "; ".join(parts)
 
 
@@ -80,9 +89,7 @@ def format_calibration(model: xr.Dataset) -> str:
         f"  mixtures       {model.sizes[SAMPLE]} samples, {wl.size} wavelengths "
         f"{wl[0]:g}-{wl[-1]:g} nm, pathlength {model.attrs['pathlength_cm']:g} cm",
         f"  preprocessing  {describe_preprocessing(model.attrs['preprocessing'])}",
-        f"  validation     {cvs['folds']} folds, "
-        + ("contiguous blocks" if cvs["split"] == "blocks" else f"random (seed {cvs['seed']})")
-        + ", one-standard-error rule",
+        f"  validation     {_validation(cvs)}, one-standard-error rule",
         f"  unit           {unit}",
         "",
     ]
@@ -110,6 +117,19 @@ def format_calibration(model: xr.Dataset) -> str:
         lines += ["", *_comparison(model, comps, cw)]
     lines += ["", *_notes(_calibration_notes(model, comps, cvs)), CAUTION]
     return "\n".join(lines) + "\n"
+
+
+def _validation(cvs: dict[str, Any]) -> str:
+    """How the folds were made, e.g. ``5 folds of whole groups (12 groups, never split),
+    balanced by size``."""
+    groups = cvs.get("groups")
+    if not groups:
+        return f"{cvs['folds']} folds, " + (
+            "contiguous blocks" if cvs["split"] == "blocks" else f"random (seed {cvs['seed']})")
+    how = ("leave one group out" if cvs["folds"] == groups else
+           "balanced by size" if cvs["split"] == "blocks" else
+           f"groups shuffled (seed {cvs['seed']})")
+    return f"{cvs['folds']} folds of whole groups ({groups} groups, never split), {how}"
 
 
 def _false_alarm_lines(model: xr.Dataset, cw: int) -> list[str]:
