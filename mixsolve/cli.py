@@ -393,21 +393,6 @@ def parse_whole(text: str, option: str) -> int:
     return int(text)
 
 
-def max_cv_percent(fraction: float) -> float:
-    """The core's replicate CV limit (a fraction) as ``--max-cv`` shows it (%)."""
-    return 100 * fraction
-
-
-def max_cv_fraction(ctx: click.Context, param: click.Parameter, percent: float) -> float:
-    """``--max-cv`` is given in % (20 means a CV of 0.2); the core takes a fraction.
-
-    The percent is checked here, so that a refusal speaks the unit the user typed.
-    """
-    from mixsolve.spectra import check_number
-
-    return check_number(percent, "--max-cv", "%", positive=True) / 100
-
-
 # where the defaults live: the API functions the commands call
 UNMIX = "mixsolve.solve.unmix:unmix"
 ANALYSE_PLATE = "mixsolve.plate.analysis:analyse_plate"
@@ -930,19 +915,22 @@ class PlateProgress:
 
 
 @main.command()
-@click.argument("exports", nargs=-1, required=True)
+@click.argument("paths", nargs=-1, required=True, metavar="LIBRARY_FILE EXPORTS...")
 @click.option("--layout", "layout_file", required=True,
               help="Layout: well, role, sample, dilution (standards: component, "
                    "concentration, unit).")
-@click.option("--library", "library_file", help="Library file (.nc).")
+@click.option("--library", "library_file", hidden=True,
+              help="Old spelling of LIBRARY_FILE, given first as for unmix.")
 @click.option("--library-from-plate", is_flag=True,
-              help="Build the library from the plate's standard wells.")
+              help="Build the library from the plate's standard wells (then give no "
+              "LIBRARY_FILE, only EXPORTS).")
 @click.option("--out", "out_dir", required=True,
               help="Output folder: a subfolder per export, samples.csv for all.")
 @add_options(selection_options)
 @add_options(fit_options)
 @click.option("--unit", help='Concentration unit of the results, e.g. "mg/L", "umol/L".')
-@click.option("--pathlength", type=float, help="One pathlength for every well (cm) [1].")
+@click.option("--pathlength", type=float, help="One pathlength for every well (cm); or "
+              "--volume-ul with --well-diameter-mm, or --water-band: one is required.")
 @click.option("--volume-ul", type=float, help="Fill volume (µL), with --well-diameter-mm.")
 @click.option("--well-diameter-mm", type=float, help="Well diameter (mm), flat bottom.")
 @click.option("--water-band", is_flag=True,
@@ -950,8 +938,8 @@ class PlateProgress:
 @click.option("--water-k", type=float, show_default=True,
               default=CoreDefault(ANALYSE_PLATE, "water_k_au_per_cm"),
               help="A(977) - A(900) of 1 cm of water (AU/cm); depends on temperature.")
-@click.option("--max-cv", type=float, default=CoreDefault(ANALYSE_PLATE, "max_cv", max_cv_percent),
-              show_default=True, callback=max_cv_fraction,
+@click.option("--max-cv", "max_cv_percent", type=float, show_default=True,
+              default=CoreDefault(ANALYSE_PLATE, "max_cv_percent"),
               help="Replicate CV (%) above which a sample is flagged high_cv.")
 @click.option("--sheet", help="XLSX sheet of the exports [first].")
 @click.option("--layout-sheet", help="XLSX sheet of the layout [first].")
@@ -961,19 +949,26 @@ class PlateProgress:
 @add_options(noise_options)
 @add_options(stray_options)
 @spectra_bandwidth_option
-def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
+def plate(paths: tuple[str, ...], layout_file: str, library_file: str | None,
           library_from_plate: bool, out_dir: str, window: tuple[float, float] | None,
           wavelengths: list[float] | None,
           method: str, baseline: str, reference_wavelength: float | None, unit: str | None,
           pathlength: float | None, volume_ul: float | None,
           well_diameter_mm: float | None, water_band: bool,
-          water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
+          water_k: float, max_cv_percent: float, sheet: str | None, layout_sheet: str | None,
           plate_size: int | None, quantity: str | None, weights: str,
           noise: str | float | None, absorbance_range: tuple[float, float],
           stray: float | None, u_stray: float | None, bandwidth_nm: float | None) -> None:
-    """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample."""
-    from mixsolve.workflows.plate import run_plates
+    """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample
+    with the library LIBRARY_FILE (given first, as for unmix), or with --library-from-plate.
+    """
+    from mixsolve.workflows.plate import plate_arguments, run_plates
 
+    if library_file is not None:
+        click.echo("note: --library LIB is now given as the first argument, as for unmix "
+                   "(mixsolve plate LIB EXPORTS...); --library works until the next release",
+                   err=True)
+    library_file, exports = plate_arguments(paths, library_file, library_from_plate)
     progress = PlateProgress()
     try:
         batch = run_plates(
@@ -983,7 +978,8 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
             progress=progress, window=window, wavelengths=wavelengths,
             method=method, baseline=baseline, unit=unit, pathlength_cm=pathlength,
             volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
-            water_k_au_per_cm=water_k, max_cv=max_cv, weights=weights, noise=noise,
+            water_k_au_per_cm=water_k, max_cv_percent=max_cv_percent, weights=weights,
+            noise=noise,
             absorbance_range=absorbance_range, stray_fraction=stray, u_stray_fraction=u_stray,
             bandwidth_nm=bandwidth_nm, reference_wavelength_nm=reference_wavelength)
     finally:

@@ -236,7 +236,7 @@ def test_plate_with_a_malformed_layout(tmp_path, layout, message, cli):
     cli("library", "build", demo_file("standards_spectra.csv"), "--standards",
         demo_file("standards.csv"), "--out", lib)
     out = tmp_path / "out"
-    result = cli("plate", export, "--layout", lay, "--library", lib, "--out", out)
+    result = cli("plate", lib, export, "--layout", lay, "--out", out, "--pathlength", "0.5")
     assert_cli_error(result)
     assert message in result.stderr
     assert not out.exists() or not any(out.iterdir())

@@ -141,8 +141,8 @@ def test_plate_export_with_a_dotted_name_writes_inside_its_subfolder(plate_dir, 
     plate_dir["export"].rename(export)
     out = plate_dir["dir"] / "out"
     before = snapshot(plate_dir["dir"])
-    result = cli("plate", export, "--layout", plate_dir["layout"], "--library",
-                 plate_dir["lib"], "--out", out)
+    result = cli("plate", plate_dir["lib"], export, "--layout", plate_dir["layout"],
+                 "--out", out, "--pathlength", "0.5")
     assert result.exit_code == 0, result.output
     after = snapshot(plate_dir["dir"])
     assert {k: v for k, v in after.items() if not k.startswith("out/")} == before
@@ -155,8 +155,8 @@ def test_plate_out_holding_the_layout_is_refused(plate_dir, cli):
     """`plate RUN.csv --layout DIR/samples.csv --out DIR`: the combined table would replace
     the layout; refused before any work, nothing written."""
     before = snapshot(plate_dir["dir"])
-    result = cli("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
-                 plate_dir["lib"], "--out", plate_dir["dir"])
+    result = cli("plate", plate_dir["lib"], plate_dir["export"], "--layout",
+                 plate_dir["layout"], "--out", plate_dir["dir"], "--pathlength", "0.5")
     assert_cli_error(result, "samples.csv", "is also an input", literal=True)
     assert snapshot(plate_dir["dir"]) == before
 
@@ -297,8 +297,8 @@ def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch, cli):
     """A plate run whose workbook write fails (disk full) exits 2 and leaves no output;
     the outputs of an earlier run in --out stay exactly as they were."""
     out = plate_dir["dir"] / "out"
-    args = ("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
-            plate_dir["lib"], "--out", out)
+    args = ("plate", plate_dir["lib"], plate_dir["export"], "--layout", plate_dir["layout"],
+            "--out", out, "--pathlength", "0.5")
     cli.ok(*args)
     before = snapshot(plate_dir["dir"])
 
@@ -323,8 +323,8 @@ def test_plate_out_holding_a_users_own_file_is_refused(plate_dir, cli):
     out.mkdir()
     (out / "samples.csv").write_text("my own sample list\n")
     before = snapshot(plate_dir["dir"])
-    args = ("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
-            plate_dir["lib"], "--out", out)
+    args = ("plate", plate_dir["lib"], plate_dir["export"], "--layout", plate_dir["layout"],
+            "--out", out, "--pathlength", "0.5")
     assert_cli_error(cli(*args), "samples.csv: exists and was not written by mixsolve",
                      literal=True)
     assert snapshot(plate_dir["dir"]) == before
@@ -346,8 +346,8 @@ def test_file_size_limit_in_a_real_process_leaves_nothing(plate_dir, library):
 
     proc = subprocess.run(
         [sys.executable, "-c", "from mixsolve.cli import main; main()", "plate",
-         str(plate_dir["export"]), "--layout", str(plate_dir["layout"]), "--library",
-         str(plate_dir["lib"]), "--out", str(out)],
+         str(plate_dir["lib"]), str(plate_dir["export"]), "--layout", str(plate_dir["layout"]),
+         "--out", str(out), "--pathlength", "0.5"],
         capture_output=True, text=True, preexec_fn=limit, timeout=300)
     assert proc.returncode == 2, proc.stderr
     lines = [ln for ln in proc.stderr.splitlines() if ln.startswith("error")]
