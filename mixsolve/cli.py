@@ -402,6 +402,10 @@ WAVELENGTH_SCALE = "mixsolve.instrument.wavelength_scale:check_wavelength_scale"
 STRAY_LIGHT = "mixsolve.instrument.stray_light:check_stray_light"
 BASELINE_CHOICE = CoreChoice("mixsolve.solve.design:BASELINES")
 
+#: What --noise is, in every command that has it (the ``noise`` of ``mixsolve.unmix``).
+NOISE_HELP = ("Noise model: a preset (benchtop_double_beam, diode_array, microplate, "
+              "field_photometer) or σ_A in AU")
+
 fit_options = [
     click.option("--method", type=CoreChoice("mixsolve.solve.engine:METHODS"),
                  default=CoreDefault(UNMIX, "method"), show_default=True),
@@ -418,8 +422,7 @@ noise_options = [
                  default=CoreDefault(UNMIX, "weights"), show_default=True,
                  help="Weight readings by 1/σ_A² of the noise model."),
     click.option("--noise", callback=callback(parse_noise),
-                 help="Noise model: a preset (benchtop_double_beam, diode_array, "
-                 "microplate, field_photometer) or σ_A in AU; enables the lack-of-fit test."),
+                 help=NOISE_HELP + "; enables the lack-of-fit test."),
     click.option("--range", "absorbance_range", type=str,
                  default=CoreDefault(UNMIX, "absorbance_range", window_text), show_default=True,
                  callback=callback(parse_window),
@@ -639,7 +642,12 @@ def library() -> None:
 
 @library.command("import")
 @click.argument("table")
-@click.option("--unit", required=True, help='Absorptivity unit, e.g. "L/(mol*cm)" or "L/(g*cm)".')
+@click.option("--absorptivity-unit", "absorptivity_unit",
+              help='Unit of the table\'s absorptivities, e.g. "L/(mol*cm)" or "L/(g*cm)" '
+              "(required).")
+@click.option("--unit", "old_unit", hidden=True,
+              help="Old name of --absorptivity-unit (until the next release); --unit is the "
+              "results' concentration unit elsewhere.")
 @click.option("--out", required=True, help="Library file to write (.nc).")
 @click.option("--molar-mass", callback=callback(parse_molar_masses),
               help="Molar masses, NAME=G_PER_MOL,...")
@@ -648,11 +656,18 @@ def library() -> None:
 @click.option("--u-scale-rel", callback=callback(parse_scale_uncertainty),
               help="Relative standard uncertainty of each whole spectrum, e.g. 0.02, or "
               "NAME=VALUE,... (a published absorptivity's).")
-def library_import(table: str, unit: str, out: str, molar_mass: dict[str, float] | None,
+def library_import(table: str, absorptivity_unit: str | None, old_unit: str | None, out: str,
+                   molar_mass: dict[str, float] | None,
                    solvent: str, bandwidth_nm: float | None,
                    u_scale_rel: float | dict[str, float] | None) -> None:
     """Make a library from a table of known absorptivities (wavelength_nm, one column each)."""
+    from mixsolve.errors import InputError, renamed
     from mixsolve.workflows.library_files import import_library_file
+
+    unit = renamed("--unit", "--absorptivity-unit", old_unit, absorptivity_unit)
+    if unit is None:
+        raise InputError('missing --absorptivity-unit: the unit of the table\'s values, e.g. '
+                         '--absorptivity-unit "L/(mol*cm)" or "L/(g*cm)"')
 
     lib = import_library_file(table, unit, out, molar_mass=molar_mass,
                               solvent=solvent, bandwidth_nm=bandwidth_nm,
@@ -765,8 +780,7 @@ def unmix(library_file: str, spectra: tuple[str, ...], window: tuple[float, floa
 merit_options = [
     click.option("--noise", type=str, show_default=True, callback=callback(parse_noise),
                  default=CoreDefault("mixsolve.wavelengths.check:DEFAULT_SIGMA_A", text=str),
-                 help="Reading noise: σ_A in AU, or a preset (benchtop_double_beam, "
-                 "diode_array, microplate, field_photometer) taken at A = 0."),
+                 help=NOISE_HELP + ", taken at A = 0 for the figures of merit."),
     click.option("--baseline", type=BASELINE_CHOICE, show_default=True,
                  default=CoreDefault("mixsolve.wavelengths.check:check_wavelengths", "baseline")),
     click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead."),

@@ -341,7 +341,7 @@ def test_near_duplicate_names_refused_by_cli(tmp_path, command, cli):
     elif command == "import":
         table = write_wide(tmp_path / "eps.csv", {"Ext_03 ": band("red"),
                                                   "ext_03": band("blue")})
-        args = ["library", "import", table, "--unit", "L/(mol*cm)", "--out",
+        args = ["library", "import", table, "--absorptivity-unit", "L/(mol*cm)", "--out",
                 tmp_path / "new.nc"]
     else:
         lib = tmp_path / "lib.nc"
@@ -459,7 +459,7 @@ def test_instrument_options_refused_by_the_api():
      "--pathlength: inf cm is not a finite number"),
     (["unmix", "{lib}", "{spectra}", "--max-shift", "nan", "--out", "{out}"],
      "--max-shift: nan nm is not a finite number"),
-    (["library", "import", "{table}", "--unit", "L/(mol*cm)", "--molar-mass", "red=nan",
+    (["library", "import", "{table}", "--absorptivity-unit", "L/(mol*cm)", "--molar-mass", "red=nan",
       "--out", "{out}"], "--molar-mass: nan in 'red=nan' is not a finite number"),
     (["wavelengths", "check", "{lib}", "--wavelengths", "450,nan,620"],
      "--wavelengths: nan in '450,nan,620' is not a finite number"),
@@ -599,7 +599,7 @@ def test_unmix_report_with_dollar_names_and_huge_reading(tmp_path, cli):
     table = write_wide(tmp_path / "eps.csv", {"$\\frac$": frame["red"].to_numpy(),
                                               "a$_$": frame["blue"].to_numpy()})
     lib = tmp_path / "lib.nc"
-    assert cli("library", "import", table, "--unit", "L/(mol*cm)", "--out",
+    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)", "--out",
                lib).exit_code == 0
     cols = list(mixtures().values())
     huge = cols[1].copy()
