@@ -41,7 +41,8 @@ def files(tmp_path: Path, cli) -> dict[str, Path]:
     mix = {f"mix_{i}": (1e-5 * (i + 1)) * _eps("red") + 3e-5 * _eps("blue") for i in range(3)}
     f["spectra"] = _wide(tmp_path / "mix.csv", mix)
     f["lib"] = tmp_path / "lib.nc"
-    result = cli("library", "import", f["table"], "--absorptivity-unit", "L/(mol*cm)", "--out", f["lib"])
+    result = cli("library", "import", f["table"], "--absorptivity-unit", "L/(mol*cm)",
+                 "--out", f["lib"])
     assert result.exit_code == 0, result.output
     broken = {
         "missing": None,
@@ -172,7 +173,8 @@ def test_library_with_inseparable_components(files, kind, cli):
     table = _wide(files["dir"] / "bad_eps.csv",
                   {"a": red, "b": red if kind == "identical" else 2.5 * red})
     lib = files["dir"] / "bad.nc"
-    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)",
+               "--out", lib).exit_code == 0
     result = cli("unmix", lib, files["spectra"])
     assert_cli_error(result)
     assert "rank deficient" in result.stderr
@@ -185,7 +187,8 @@ def test_more_components_than_wavelengths(files, cli):
                                               "b": np.array([2.0, 1.0]),
                                               "c": np.array([1.0, 1.5])}, wl)
     lib = files["dir"] / "three.nc"
-    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)",
+               "--out", lib).exit_code == 0
     spectra = _wide(files["dir"] / "two.csv", {"s": np.array([0.5, 0.6])}, wl)
     result = cli("unmix", lib, spectra)
     assert_cli_error(result)

@@ -62,7 +62,8 @@ def cuvette(tmp_path: Path, cli) -> dict[str, Path]:
     """A two-band library file and spectra in tmp_path, plus an unrelated notes file."""
     eps = write_wide(tmp_path / "eps.csv", {n: band(n) for n in ("red", "blue")})
     lib = tmp_path / "lib.nc"
-    assert cli("library", "import", eps, "--absorptivity-unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    assert cli("library", "import", eps, "--absorptivity-unit", "L/(mol*cm)",
+               "--out", lib).exit_code == 0
     spectra = write_wide(tmp_path / "mix.csv",
                          {"s1": 2e-5 * band("red") + 3e-5 * band("blue"),
                           "s2": 1e-5 * band("red") + 2e-5 * band("blue")})
@@ -229,7 +230,8 @@ def test_out_naming_a_socket_is_refused(cuvette, cli):
     with socket.socket(socket.AF_UNIX) as sock:
         sock.bind(str(path))
         for args in (["unmix", cuvette["lib"], cuvette["spectra"], "--report", path],
-                     ["library", "import", cuvette["eps"], "--absorptivity-unit", "L/(mol*cm)", "--out",
+                     ["library", "import", cuvette["eps"], "--absorptivity-unit", "L/(mol*cm)",
+                      "--out",
                       path]):
             assert_cli_error(cli(*args), "is a socket, not a regular file", literal=True)
             assert stat.S_ISSOCK(os.lstat(path).st_mode)

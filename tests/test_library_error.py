@@ -240,7 +240,8 @@ def test_cli_import_states_a_scale_uncertainty_like_the_api(tmp_path, cli) -> No
                         (f"{NAMES[1]}=0.02,{NAMES[1]}=0.03",
                          f"--u-scale-rel: '{NAMES[1]}' is given twice")):
         out = tmp_path / "refused.nc"
-        refused = cli("library", "import", tmp_path / "t.csv", "--absorptivity-unit", "L/(g*cm)", "--out",
+        refused = cli("library", "import", tmp_path / "t.csv", "--absorptivity-unit", "L/(g*cm)",
+                      "--out",
                       out, "--u-scale-rel", given)
         assert_cli_error(refused, says, literal=True, must_not_exist=[out])
 
