@@ -93,7 +93,7 @@ def main() -> None:
             before = resource.getrusage(resource.RUSAGE_CHILDREN)
             start = time.perf_counter()
             done = subprocess.run(
-                [script, "plate", str(export), "--layout", str(layout), "--library", str(lib),
+                [script, "plate", str(lib), str(export), "--layout", str(layout),
                  "--out", str(out), "--volume-ul", "50", "--well-diameter-mm", "3.3"],
                 capture_output=True, text=True, env={**os.environ, "MPLBACKEND": "Agg"})
             times.append(time.perf_counter() - start)

@@ -393,21 +393,6 @@ def parse_whole(text: str, option: str) -> int:
     return int(text)
 
 
-def max_cv_percent(fraction: float) -> float:
-    """The core's replicate CV limit (a fraction) as ``--max-cv`` shows it (%)."""
-    return 100 * fraction
-
-
-def max_cv_fraction(ctx: click.Context, param: click.Parameter, percent: float) -> float:
-    """``--max-cv`` is given in % (20 means a CV of 0.2); the core takes a fraction.
-
-    The percent is checked here, so that a refusal speaks the unit the user typed.
-    """
-    from mixsolve.spectra import check_number
-
-    return check_number(percent, "--max-cv", "%", positive=True) / 100
-
-
 # where the defaults live: the API functions the commands call
 UNMIX = "mixsolve.solve.unmix:unmix"
 ANALYSE_PLATE = "mixsolve.plate.analysis:analyse_plate"
@@ -416,6 +401,10 @@ ABSORBANCE_SCALE = "mixsolve.instrument.absorbance_scale:check_absorbance_scale"
 WAVELENGTH_SCALE = "mixsolve.instrument.wavelength_scale:check_wavelength_scale"
 STRAY_LIGHT = "mixsolve.instrument.stray_light:check_stray_light"
 BASELINE_CHOICE = CoreChoice("mixsolve.solve.design:BASELINES")
+
+#: What --noise is, in every command that has it (the ``noise`` of ``mixsolve.unmix``).
+NOISE_HELP = ("Noise model: a preset (benchtop_double_beam, diode_array, microplate, "
+              "field_photometer) or σ_A in AU")
 
 fit_options = [
     click.option("--method", type=CoreChoice("mixsolve.solve.engine:METHODS"),
@@ -433,8 +422,7 @@ noise_options = [
                  default=CoreDefault(UNMIX, "weights"), show_default=True,
                  help="Weight readings by 1/σ_A² of the noise model."),
     click.option("--noise", callback=callback(parse_noise),
-                 help="Noise model: a preset (benchtop_double_beam, diode_array, "
-                 "microplate, field_photometer) or σ_A in AU; enables the lack-of-fit test."),
+                 help=NOISE_HELP + "; enables the lack-of-fit test."),
     click.option("--range", "absorbance_range", type=str,
                  default=CoreDefault(UNMIX, "absorbance_range", window_text), show_default=True,
                  callback=callback(parse_window),
@@ -654,7 +642,12 @@ def library() -> None:
 
 @library.command("import")
 @click.argument("table")
-@click.option("--unit", required=True, help='Absorptivity unit, e.g. "L/(mol*cm)" or "L/(g*cm)".')
+@click.option("--absorptivity-unit", "absorptivity_unit",
+              help='Unit of the table\'s absorptivities, e.g. "L/(mol*cm)" or "L/(g*cm)" '
+              "(required).")
+@click.option("--unit", "old_unit", hidden=True,
+              help="Old name of --absorptivity-unit (until the next release); --unit is the "
+              "results' concentration unit elsewhere.")
 @click.option("--out", required=True, help="Library file to write (.nc).")
 @click.option("--molar-mass", callback=callback(parse_molar_masses),
               help="Molar masses, NAME=G_PER_MOL,...")
@@ -663,11 +656,18 @@ def library() -> None:
 @click.option("--u-scale-rel", callback=callback(parse_scale_uncertainty),
               help="Relative standard uncertainty of each whole spectrum, e.g. 0.02, or "
               "NAME=VALUE,... (a published absorptivity's).")
-def library_import(table: str, unit: str, out: str, molar_mass: dict[str, float] | None,
+def library_import(table: str, absorptivity_unit: str | None, old_unit: str | None, out: str,
+                   molar_mass: dict[str, float] | None,
                    solvent: str, bandwidth_nm: float | None,
                    u_scale_rel: float | dict[str, float] | None) -> None:
     """Make a library from a table of known absorptivities (wavelength_nm, one column each)."""
+    from mixsolve.errors import InputError, renamed
     from mixsolve.workflows.library_files import import_library_file
+
+    unit = renamed("--unit", "--absorptivity-unit", old_unit, absorptivity_unit)
+    if unit is None:
+        raise InputError('missing --absorptivity-unit: the unit of the table\'s values, e.g. '
+                         '--absorptivity-unit "L/(mol*cm)" or "L/(g*cm)"')
 
     lib = import_library_file(table, unit, out, molar_mass=molar_mass,
                               solvent=solvent, bandwidth_nm=bandwidth_nm,
@@ -780,8 +780,7 @@ def unmix(library_file: str, spectra: tuple[str, ...], window: tuple[float, floa
 merit_options = [
     click.option("--noise", type=str, show_default=True, callback=callback(parse_noise),
                  default=CoreDefault("mixsolve.wavelengths.check:DEFAULT_SIGMA_A", text=str),
-                 help="Reading noise: σ_A in AU, or a preset (benchtop_double_beam, "
-                 "diode_array, microplate, field_photometer) taken at A = 0."),
+                 help=NOISE_HELP + ", taken at A = 0 for the figures of merit."),
     click.option("--baseline", type=BASELINE_CHOICE, show_default=True,
                  default=CoreDefault("mixsolve.wavelengths.check:check_wavelengths", "baseline")),
     click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead."),
@@ -937,19 +936,22 @@ class PlateProgress:
 
 
 @main.command()
-@click.argument("exports", nargs=-1, required=True)
+@click.argument("paths", nargs=-1, required=True, metavar="LIBRARY_FILE EXPORTS...")
 @click.option("--layout", "layout_file", required=True,
               help="Layout: well, role, sample, dilution (standards: component, "
                    "concentration, unit).")
-@click.option("--library", "library_file", help="Library file (.nc).")
+@click.option("--library", "library_file", hidden=True,
+              help="Old spelling of LIBRARY_FILE, given first as for unmix.")
 @click.option("--library-from-plate", is_flag=True,
-              help="Build the library from the plate's standard wells.")
+              help="Build the library from the plate's standard wells (then give no "
+              "LIBRARY_FILE, only EXPORTS).")
 @click.option("--out", "out_dir", required=True,
               help="Output folder: a subfolder per export, samples.csv for all.")
 @add_options(selection_options)
 @add_options(fit_options)
 @click.option("--unit", help='Concentration unit of the results, e.g. "mg/L", "umol/L".')
-@click.option("--pathlength", type=float, help="One pathlength for every well (cm) [1].")
+@click.option("--pathlength", type=float, help="One pathlength for every well (cm); or "
+              "--volume-ul with --well-diameter-mm, or --water-band: one is required.")
 @click.option("--volume-ul", type=float, help="Fill volume (µL), with --well-diameter-mm.")
 @click.option("--well-diameter-mm", type=float, help="Well diameter (mm), flat bottom.")
 @click.option("--water-band", is_flag=True,
@@ -957,8 +959,8 @@ class PlateProgress:
 @click.option("--water-k", type=float, show_default=True,
               default=CoreDefault(ANALYSE_PLATE, "water_k_au_per_cm"),
               help="A(977) - A(900) of 1 cm of water (AU/cm); depends on temperature.")
-@click.option("--max-cv", type=float, default=CoreDefault(ANALYSE_PLATE, "max_cv", max_cv_percent),
-              show_default=True, callback=max_cv_fraction,
+@click.option("--max-cv", "max_cv_percent", type=float, show_default=True,
+              default=CoreDefault(ANALYSE_PLATE, "max_cv_percent"),
               help="Replicate CV (%) above which a sample is flagged high_cv.")
 @click.option("--sheet", help="XLSX sheet of the exports [first].")
 @click.option("--layout-sheet", help="XLSX sheet of the layout [first].")
@@ -968,19 +970,26 @@ class PlateProgress:
 @add_options(noise_options)
 @add_options(stray_options)
 @spectra_bandwidth_option
-def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
+def plate(paths: tuple[str, ...], layout_file: str, library_file: str | None,
           library_from_plate: bool, out_dir: str, window: tuple[float, float] | None,
           wavelengths: list[float] | None,
           method: str, baseline: str, reference_wavelength: float | None, unit: str | None,
           pathlength: float | None, volume_ul: float | None,
           well_diameter_mm: float | None, water_band: bool,
-          water_k: float, max_cv: float, sheet: str | None, layout_sheet: str | None,
+          water_k: float, max_cv_percent: float, sheet: str | None, layout_sheet: str | None,
           plate_size: int | None, quantity: str | None, weights: str,
           noise: str | float | None, absorbance_range: tuple[float, float],
           stray: float | None, u_stray: float | None, bandwidth_nm: float | None) -> None:
-    """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample."""
-    from mixsolve.workflows.plate import run_plates
+    """Turn plate-reader EXPORTS (files or folders) into concentrations per well and sample
+    with the library LIBRARY_FILE (given first, as for unmix), or with --library-from-plate.
+    """
+    from mixsolve.workflows.plate import plate_arguments, run_plates
 
+    if library_file is not None:
+        click.echo("note: --library LIB is now given as the first argument, as for unmix "
+                   "(mixsolve plate LIB EXPORTS...); --library works until the next release",
+                   err=True)
+    library_file, exports = plate_arguments(paths, library_file, library_from_plate)
     progress = PlateProgress()
     try:
         batch = run_plates(
@@ -990,7 +999,8 @@ def plate(exports: tuple[str, ...], layout_file: str, library_file: str | None,
             progress=progress, window=window, wavelengths=wavelengths,
             method=method, baseline=baseline, unit=unit, pathlength_cm=pathlength,
             volume_ul=volume_ul, well_diameter_mm=well_diameter_mm, water_band=water_band,
-            water_k_au_per_cm=water_k, max_cv=max_cv, weights=weights, noise=noise,
+            water_k_au_per_cm=water_k, max_cv_percent=max_cv_percent, weights=weights,
+            noise=noise,
             absorbance_range=absorbance_range, stray_fraction=stray, u_stray_fraction=u_stray,
             bandwidth_nm=bandwidth_nm, reference_wavelength_nm=reference_wavelength)
     finally:

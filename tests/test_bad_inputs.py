@@ -41,7 +41,8 @@ def files(tmp_path: Path, cli) -> dict[str, Path]:
     mix = {f"mix_{i}": (1e-5 * (i + 1)) * _eps("red") + 3e-5 * _eps("blue") for i in range(3)}
     f["spectra"] = _wide(tmp_path / "mix.csv", mix)
     f["lib"] = tmp_path / "lib.nc"
-    result = cli("library", "import", f["table"], "--unit", "L/(mol*cm)", "--out", f["lib"])
+    result = cli("library", "import", f["table"], "--absorptivity-unit", "L/(mol*cm)",
+                 "--out", f["lib"])
     assert result.exit_code == 0, result.output
     broken = {
         "missing": None,
@@ -83,7 +84,7 @@ def test_unmix_with_broken_spectra(files, bad, cli):
 def test_library_import_with_broken_table(files, bad, cli):
     """library import BROKEN: an error and no library file."""
     out = files["dir"] / "new.nc"
-    assert_cli_error(cli("library", "import", files[bad], "--unit", "L/(mol*cm)",
+    assert_cli_error(cli("library", "import", files[bad], "--absorptivity-unit", "L/(mol*cm)",
                          "--out", out), must_not_exist=[out])
 
 
@@ -172,7 +173,8 @@ def test_library_with_inseparable_components(files, kind, cli):
     table = _wide(files["dir"] / "bad_eps.csv",
                   {"a": red, "b": red if kind == "identical" else 2.5 * red})
     lib = files["dir"] / "bad.nc"
-    assert cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)",
+               "--out", lib).exit_code == 0
     result = cli("unmix", lib, files["spectra"])
     assert_cli_error(result)
     assert "rank deficient" in result.stderr
@@ -185,7 +187,8 @@ def test_more_components_than_wavelengths(files, cli):
                                               "b": np.array([2.0, 1.0]),
                                               "c": np.array([1.0, 1.5])}, wl)
     lib = files["dir"] / "three.nc"
-    assert cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)",
+               "--out", lib).exit_code == 0
     spectra = _wide(files["dir"] / "two.csv", {"s": np.array([0.5, 0.6])}, wl)
     result = cli("unmix", lib, spectra)
     assert_cli_error(result)
@@ -236,7 +239,7 @@ def test_plate_with_a_malformed_layout(tmp_path, layout, message, cli):
     cli("library", "build", demo_file("standards_spectra.csv"), "--standards",
         demo_file("standards.csv"), "--out", lib)
     out = tmp_path / "out"
-    result = cli("plate", export, "--layout", lay, "--library", lib, "--out", out)
+    result = cli("plate", lib, export, "--layout", lay, "--out", out, "--pathlength", "0.5")
     assert_cli_error(result)
     assert message in result.stderr
     assert not out.exists() or not any(out.iterdir())
@@ -291,7 +294,7 @@ def test_outputs_never_overwrite_inputs(files, which, cli):
 def test_library_import_onto_its_own_table_is_refused(files, cli):
     """library import TABLE --out TABLE would replace the table with netCDF."""
     before = files["table"].read_bytes()
-    assert_cli_error(cli("library", "import", files["table"], "--unit", "L/(mol*cm)",
+    assert_cli_error(cli("library", "import", files["table"], "--absorptivity-unit", "L/(mol*cm)",
                          "--out", files["table"]))
     assert files["table"].read_bytes() == before
 
@@ -306,7 +309,7 @@ def test_wavelengths_choose_refuses_non_positive_noise(files, noise, cli):
 def test_negative_bandwidth_is_refused(files, cli):
     """A spectral bandwidth must be a positive number of nm."""
     out = files["dir"] / "bw.nc"
-    assert_cli_error(cli("library", "import", files["table"], "--unit", "L/(mol*cm)",
+    assert_cli_error(cli("library", "import", files["table"], "--absorptivity-unit", "L/(mol*cm)",
                          "--bandwidth-nm", "-1", "--out", out), must_not_exist=[out])
 
 

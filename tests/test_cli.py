@@ -102,7 +102,7 @@ def test_library_help_lists_subcommands(cli):
     ("command", "options"),
     [(["unmix"], ["--window", "--wavelengths", "--method", "--baseline", "--pathlength",
                   "--unit", "--out"]),
-     (["library", "import"], ["--unit", "--out", "--molar-mass", "--solvent",
+     (["library", "import"], ["--absorptivity-unit", "--out", "--molar-mass", "--solvent",
                               "--bandwidth-nm"]),
      (["library", "build"], ["--standards", "--out", "--intercept", "--pathlength"]),
      (["library", "show"], []),
@@ -127,7 +127,8 @@ def test_no_command_shows_usage(cli):
 
 def test_library_import(tmp_path, files, cli):
     out = tmp_path / "lib.nc"
-    result = cli.ok("library", "import", files["eps"], "--unit", "L/(mol*cm)", "--out", out)
+    result = cli.ok("library", "import", files["eps"], "--absorptivity-unit", "L/(mol*cm)",
+                    "--out", out)
     assert result.stdout == ""
     assert result.stderr == f"wrote {out}: 2 components, 31 wavelengths, L/(mol*cm)\n"
     lib = ms.read_library(out)
@@ -141,7 +142,7 @@ def test_library_import(tmp_path, files, cli):
 
 def test_library_import_options(tmp_path, files, cli):
     out = tmp_path / "lib.nc"
-    cli.ok("library", "import", files["eps"], "--unit", "L mol^-1 cm^-1", "--out", out,
+    cli.ok("library", "import", files["eps"], "--absorptivity-unit", "L mol^-1 cm^-1", "--out", out,
            "--molar-mass", "red=500, blue=800", "--solvent", "90 % acetone",
            "--bandwidth-nm", "1.5")
     lib = ms.read_library(out)
@@ -153,7 +154,8 @@ def test_library_import_options(tmp_path, files, cli):
 
 def test_library_import_converts_units(tmp_path, files, cli):
     out = tmp_path / "mass.nc"
-    result = cli.ok("library", "import", files["eps"], "--unit", "mL/(mg*cm)", "--out", out)
+    result = cli.ok("library", "import", files["eps"], "--absorptivity-unit", "mL/(mg*cm)",
+                    "--out", out)
     assert result.stderr.endswith("L/(g*cm)\n")
     lib = ms.read_library(out)
     assert lib.attrs["unit"] == "L/(g*cm)"

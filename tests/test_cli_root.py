@@ -216,18 +216,20 @@ def test_the_choices_are_the_cores_tuples():
     assert params["plate_size"].type.choices == tuple(str(n) for n in PLATE_SHAPES)
 
 
-def test_max_cv_is_a_percent_on_the_command_line_and_a_fraction_in_the_core(monkeypatch):
+def test_max_cv_is_a_percent_on_the_command_line_and_in_the_core(monkeypatch):
+    """--max-cv and max_cv_percent are one number in % (issue 17 item 4: CV as a percent
+    everywhere); the core's default is the command's."""
     from mixsolve.plate.analysis import analyse_plate
 
     command = dict(COMMANDS)[("plate",)]
     seen: dict[str, object] = {}
     result = run_instead(command, lambda **options: seen.update(options), monkeypatch)
     assert result.exit_code == 0
-    assert seen["max_cv"] == 0.2
-    assert analyse_plate.__kwdefaults__["max_cv"] == 0.2
+    assert seen["max_cv_percent"] == 20.0
+    assert analyse_plate.__kwdefaults__["max_cv_percent"] == 20.0
     assert "[default: 20.0]" in invoke("plate", "--help").stdout
     assert invoke("plate", *required(command), "--max-cv", "5").exit_code == 0
-    assert seen["max_cv"] == 0.05
+    assert seen["max_cv_percent"] == 5.0
 
 
 def test_plate_size_reaches_the_core_as_a_number(monkeypatch):

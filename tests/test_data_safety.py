@@ -62,7 +62,8 @@ def cuvette(tmp_path: Path, cli) -> dict[str, Path]:
     """A two-band library file and spectra in tmp_path, plus an unrelated notes file."""
     eps = write_wide(tmp_path / "eps.csv", {n: band(n) for n in ("red", "blue")})
     lib = tmp_path / "lib.nc"
-    assert cli("library", "import", eps, "--unit", "L/(mol*cm)", "--out", lib).exit_code == 0
+    assert cli("library", "import", eps, "--absorptivity-unit", "L/(mol*cm)",
+               "--out", lib).exit_code == 0
     spectra = write_wide(tmp_path / "mix.csv",
                          {"s1": 2e-5 * band("red") + 3e-5 * band("blue"),
                           "s2": 1e-5 * band("red") + 2e-5 * band("blue")})
@@ -141,8 +142,8 @@ def test_plate_export_with_a_dotted_name_writes_inside_its_subfolder(plate_dir, 
     plate_dir["export"].rename(export)
     out = plate_dir["dir"] / "out"
     before = snapshot(plate_dir["dir"])
-    result = cli("plate", export, "--layout", plate_dir["layout"], "--library",
-                 plate_dir["lib"], "--out", out)
+    result = cli("plate", plate_dir["lib"], export, "--layout", plate_dir["layout"],
+                 "--out", out, "--pathlength", "0.5")
     assert result.exit_code == 0, result.output
     after = snapshot(plate_dir["dir"])
     assert {k: v for k, v in after.items() if not k.startswith("out/")} == before
@@ -155,8 +156,8 @@ def test_plate_out_holding_the_layout_is_refused(plate_dir, cli):
     """`plate RUN.csv --layout DIR/samples.csv --out DIR`: the combined table would replace
     the layout; refused before any work, nothing written."""
     before = snapshot(plate_dir["dir"])
-    result = cli("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
-                 plate_dir["lib"], "--out", plate_dir["dir"])
+    result = cli("plate", plate_dir["lib"], plate_dir["export"], "--layout",
+                 plate_dir["layout"], "--out", plate_dir["dir"], "--pathlength", "0.5")
     assert_cli_error(result, "samples.csv", "is also an input", literal=True)
     assert snapshot(plate_dir["dir"]) == before
 
@@ -229,7 +230,8 @@ def test_out_naming_a_socket_is_refused(cuvette, cli):
     with socket.socket(socket.AF_UNIX) as sock:
         sock.bind(str(path))
         for args in (["unmix", cuvette["lib"], cuvette["spectra"], "--report", path],
-                     ["library", "import", cuvette["eps"], "--unit", "L/(mol*cm)", "--out",
+                     ["library", "import", cuvette["eps"], "--absorptivity-unit", "L/(mol*cm)",
+                      "--out",
                       path]):
             assert_cli_error(cli(*args), "is a socket, not a regular file", literal=True)
             assert stat.S_ISSOCK(os.lstat(path).st_mode)
@@ -297,8 +299,8 @@ def test_disk_full_in_a_plate_run_leaves_nothing(plate_dir, monkeypatch, cli):
     """A plate run whose workbook write fails (disk full) exits 2 and leaves no output;
     the outputs of an earlier run in --out stay exactly as they were."""
     out = plate_dir["dir"] / "out"
-    args = ("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
-            plate_dir["lib"], "--out", out)
+    args = ("plate", plate_dir["lib"], plate_dir["export"], "--layout", plate_dir["layout"],
+            "--out", out, "--pathlength", "0.5")
     cli.ok(*args)
     before = snapshot(plate_dir["dir"])
 
@@ -323,8 +325,8 @@ def test_plate_out_holding_a_users_own_file_is_refused(plate_dir, cli):
     out.mkdir()
     (out / "samples.csv").write_text("my own sample list\n")
     before = snapshot(plate_dir["dir"])
-    args = ("plate", plate_dir["export"], "--layout", plate_dir["layout"], "--library",
-            plate_dir["lib"], "--out", out)
+    args = ("plate", plate_dir["lib"], plate_dir["export"], "--layout", plate_dir["layout"],
+            "--out", out, "--pathlength", "0.5")
     assert_cli_error(cli(*args), "samples.csv: exists and was not written by mixsolve",
                      literal=True)
     assert snapshot(plate_dir["dir"]) == before
@@ -346,8 +348,8 @@ def test_file_size_limit_in_a_real_process_leaves_nothing(plate_dir, library):
 
     proc = subprocess.run(
         [sys.executable, "-c", "from mixsolve.cli import main; main()", "plate",
-         str(plate_dir["export"]), "--layout", str(plate_dir["layout"]), "--library",
-         str(plate_dir["lib"]), "--out", str(out)],
+         str(plate_dir["lib"]), str(plate_dir["export"]), "--layout", str(plate_dir["layout"]),
+         "--out", str(out), "--pathlength", "0.5"],
         capture_output=True, text=True, preexec_fn=limit, timeout=300)
     assert proc.returncode == 2, proc.stderr
     lines = [ln for ln in proc.stderr.splitlines() if ln.startswith("error")]
@@ -446,6 +448,6 @@ def test_typos_in_paths_and_numbers_are_refused(cuvette, cli, args, message):
 def test_a_molar_mass_given_twice_is_refused(cuvette, cli):
     """--molar-mass amber=0,amber=3 used to keep the last value silently."""
     out = cuvette["dir"] / "l2.nc"
-    assert_cli_error(cli("library", "import", cuvette["eps"], "--unit", "L/(mol*cm)",
+    assert_cli_error(cli("library", "import", cuvette["eps"], "--absorptivity-unit", "L/(mol*cm)",
                          "--molar-mass", "red=500,red=3", "--out", out),
                      "--molar-mass: 'red' is given twice", literal=True, must_not_exist=[out])

@@ -144,7 +144,8 @@ def test_library_build_bad_spectra(tmp_path, inputs, case, cli):
 def test_library_import_bad_table(tmp_path, text, parts, cli):
     out = tmp_path / "lib.nc"
     table = write_text(tmp_path / "eps.csv", text)
-    assert_cli_error(cli("library", "import", table, "--unit", "L/(mol*cm)", "--out", out),
+    assert_cli_error(cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)",
+                         "--out", out),
                      *parts)
     assert_nothing_written(out)
 
@@ -339,7 +340,7 @@ def test_library_build_non_positive_pathlength(tmp_path, inputs, cli):
 )
 def test_library_import_bad_unit(tmp_path, inputs, unit, parts, cli):
     out = tmp_path / "lib.nc"
-    result = cli("library", "import", inputs["eps"], "--unit", unit, "--out", out)
+    result = cli("library", "import", inputs["eps"], "--absorptivity-unit", unit, "--out", out)
     assert_cli_error(result, *parts)
     assert_nothing_written(out)
 
@@ -352,7 +353,8 @@ def test_library_import_bad_unit(tmp_path, inputs, unit, parts, cli):
 )
 def test_library_import_bad_molar_mass(tmp_path, inputs, text, parts, cli):
     out = tmp_path / "lib.nc"
-    result = cli("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out,
+    result = cli("library", "import", inputs["eps"], "--absorptivity-unit", "L/(mol*cm)",
+                 "--out", out,
                  "--molar-mass", text)
     assert_cli_error(result, *parts)
     assert_nothing_written(out)
@@ -379,7 +381,8 @@ def test_unmix_out_is_a_folder(tmp_path, inputs, cli):
 
 def test_library_import_out_folder_missing(tmp_path, inputs, cli):
     out = tmp_path / "missing" / "lib.nc"
-    result = cli("library", "import", inputs["eps"], "--unit", "L/(mol*cm)", "--out", out)
+    result = cli("library", "import", inputs["eps"], "--absorptivity-unit", "L/(mol*cm)",
+                 "--out", out)
     assert_cli_error(result, r"lib\.nc: folder .*missing does not exist$")
     assert list(tmp_path.iterdir()) == []
 

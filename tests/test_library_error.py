@@ -226,7 +226,7 @@ def test_cli_import_states_a_scale_uncertainty_like_the_api(tmp_path, cli) -> No
     table = pd.DataFrame(EPS.T, columns=NAMES)
     table.insert(0, "wavelength_nm", WL)
     table.to_csv(tmp_path / "t.csv", index=False, float_format="%.17g")
-    cli.ok("library", "import", tmp_path / "t.csv", "--unit", "L/(g*cm)", "--out",
+    cli.ok("library", "import", tmp_path / "t.csv", "--absorptivity-unit", "L/(g*cm)", "--out",
            tmp_path / "lib.nc", "--u-scale-rel", f"{NAMES[0]}=0.02")
     api = ms.import_absorptivities(_table(), "L/(g*cm)", u_scale_rel={NAMES[0]: 0.02})
     np.testing.assert_allclose(error_patterns(read_library(tmp_path / "lib.nc")),
@@ -240,7 +240,8 @@ def test_cli_import_states_a_scale_uncertainty_like_the_api(tmp_path, cli) -> No
                         (f"{NAMES[1]}=0.02,{NAMES[1]}=0.03",
                          f"--u-scale-rel: '{NAMES[1]}' is given twice")):
         out = tmp_path / "refused.nc"
-        refused = cli("library", "import", tmp_path / "t.csv", "--unit", "L/(g*cm)", "--out",
+        refused = cli("library", "import", tmp_path / "t.csv", "--absorptivity-unit", "L/(g*cm)",
+                      "--out",
                       out, "--u-scale-rel", given)
         assert_cli_error(refused, says, literal=True, must_not_exist=[out])
 

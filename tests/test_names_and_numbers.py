@@ -266,7 +266,8 @@ def test_standards_sheet_names(tmp_path):
 def test_layout_names(tmp_path):
     """Layout: well '\\u200bA1' is A1; 'Ext\\xa003' in two wells is one sample 'Ext 03';
     'Ext 03' beside 'Ext\\xa003', and 'Ext_03 ' beside 'ext_03', are refused naming both
-    spellings as written and their lines."""
+    spellings as written, their lines and wells; so are 'Ext-03' beside 'ext_03' and
+    'Ext  03' (two spaces) beside 'ext 03' (issue 17 item 4)."""
     rows = [["\u200bA1", "sample", "Ext\u00a003"], ["A2", "sample", "Ext\u00a003"],
             ["A3", "blank", ""]]
     path = write_text(tmp_path / "layout.csv", table_text(["well", "role", "sample"], rows))
@@ -275,16 +276,26 @@ def test_layout_names(tmp_path):
     assert list(layout["sample"]) == ["Ext 03", "Ext 03", ""]
     rows[1][2] = "Ext 03"
     path.write_text(table_text(["well", "role", "sample"], rows))
-    with pytest.raises(InputError, match=r"^layout.csv, samples: names 'Ext\\xa003' \(line 2\) "
-                                         r"and 'Ext 03' \(line 3\) differ only in case or "
-                                         "spacing; " + ONE_SPELLING + "$"):
+    with pytest.raises(InputError, match=r"^layout.csv, samples: names 'Ext\\xa003' \(line 2, "
+                                         r"well A1\) and 'Ext 03' \(line 3, well A2\) differ "
+                                         "only in case or spacing; " + ONE_SPELLING + "$"):
         read_layout(path)
     rows[1][2] = "ext_03"
     rows[0][2] = "Ext_03 "
     path.write_text(table_text(["well", "role", "sample"], rows))
-    with pytest.raises(InputError, match=r"layout.csv, samples: names 'Ext_03 ' \(line 2\) "
-                                         r"and 'ext_03' \(line 3\) differ only in case"):
+    with pytest.raises(InputError, match=r"layout.csv, samples: names 'Ext_03 ' \(line 2, "
+                                         r"well A1\) and 'ext_03' \(line 3, well A2\) differ "
+                                         "only in case"):
         read_layout(path)
+    for first, second, shown in (("Ext-03", "ext_03", "'Ext-03'"),
+                                 ("Ext  03", "ext 03", r"'Ext\\x20\\x2003'")):
+        rows[0][2], rows[1][2] = first, second
+        path.write_text(table_text(["well", "role", "sample"], rows))
+        with pytest.raises(InputError, match=rf"^layout.csv, samples: names {shown} \(line 2, "
+                                             rf"well A1\) and '{second}' \(line 3, well A2\) "
+                                             r"differ only in case, spacing or - and _; "
+                                             + ONE_SPELLING + "$"):
+            read_layout(path)
 
 
 def test_reference_table_names(tmp_path):
@@ -330,7 +341,7 @@ def test_near_duplicate_names_refused_by_cli(tmp_path, command, cli):
     elif command == "import":
         table = write_wide(tmp_path / "eps.csv", {"Ext_03 ": band("red"),
                                                   "ext_03": band("blue")})
-        args = ["library", "import", table, "--unit", "L/(mol*cm)", "--out",
+        args = ["library", "import", table, "--absorptivity-unit", "L/(mol*cm)", "--out",
                 tmp_path / "new.nc"]
     else:
         lib = tmp_path / "lib.nc"
@@ -340,12 +351,13 @@ def test_near_duplicate_names_refused_by_cli(tmp_path, command, cli):
         text = text.replace("A2,sample,extract_01,", "A2,sample,Ext_03 ,").replace(
             "A3,sample,extract_01,", "A3,sample,ext_03,")
         layout = write_text(tmp_path / "layout.csv", text)
-        args = ["plate", demo_file("plate_export.csv"), "--layout", layout, "--library", lib,
-                "--out", tmp_path / "out"]
+        args = ["plate", lib, demo_file("plate_export.csv"), "--layout", layout,
+                "--out", tmp_path / "out", "--pathlength", "0.5"]
     before = digest(tmp_path)
     # a layout keeps its cells as written, so the layout's 'Ext_03 ' is shown with its space
     needle = (NEAR_FILE if command != "plate" else
-              "names 'Ext_03 ' (line 3) and 'ext_03' (line 4) differ only in case or spacing")
+              "names 'Ext_03 ' (line 3, well A2) and 'ext_03' (line 4, well A3) differ only "
+              "in case or spacing")
     assert_refused(cli(*args), tmp_path, before, needle)
 
 
@@ -447,7 +459,8 @@ def test_instrument_options_refused_by_the_api():
      "--pathlength: inf cm is not a finite number"),
     (["unmix", "{lib}", "{spectra}", "--max-shift", "nan", "--out", "{out}"],
      "--max-shift: nan nm is not a finite number"),
-    (["library", "import", "{table}", "--unit", "L/(mol*cm)", "--molar-mass", "red=nan",
+    (["library", "import", "{table}", "--absorptivity-unit", "L/(mol*cm)",
+      "--molar-mass", "red=nan",
       "--out", "{out}"], "--molar-mass: nan in 'red=nan' is not a finite number"),
     (["wavelengths", "check", "{lib}", "--wavelengths", "450,nan,620"],
      "--wavelengths: nan in '450,nan,620' is not a finite number"),
@@ -587,7 +600,7 @@ def test_unmix_report_with_dollar_names_and_huge_reading(tmp_path, cli):
     table = write_wide(tmp_path / "eps.csv", {"$\\frac$": frame["red"].to_numpy(),
                                               "a$_$": frame["blue"].to_numpy()})
     lib = tmp_path / "lib.nc"
-    assert cli("library", "import", table, "--unit", "L/(mol*cm)", "--out",
+    assert cli("library", "import", table, "--absorptivity-unit", "L/(mol*cm)", "--out",
                lib).exit_code == 0
     cols = list(mixtures().values())
     huge = cols[1].copy()
@@ -640,8 +653,8 @@ def test_plate_with_dollar_component_names(tmp_path, cli):
     assert cli("library", "build", demo_file("standards_spectra.csv"), "--standards", std,
                "--out", lib).exit_code == 0
     out = tmp_path / "out"
-    result = cli("plate", demo_file("plate_export.csv"), "--layout",
-                 demo_file("plate_layout.csv"), "--library", lib, "--out", out)
+    result = cli("plate", lib, demo_file("plate_export.csv"), "--layout",
+                 demo_file("plate_layout.csv"), "--out", out, "--pathlength", "0.5")
     assert result.exit_code == 0, (result.output, result.exception)
     assert (out / "plate_export" / "report.html").stat().st_size > 0
 
@@ -656,9 +669,9 @@ def _plate_run(folder: Path, samples: dict[str, str] | None = None,
     for row in layout:
         row["sample"] = (samples or {}).get(str(row["well"]), row.get("sample", ""))
         row["component"] = (components or {}).get(str(row["well"]), row.get("component", ""))
-    return ["plate", write_scenario(folder), "--layout", write_layout(folder / "layout.csv",
-                                                                      layout),
-            "--library", write_library_file(folder / "lib.nc"), "--out", folder / "out"]
+    return ["plate", write_library_file(folder / "lib.nc"), write_scenario(folder), "--layout",
+            write_layout(folder / "layout.csv", layout), "--out", folder / "out",
+            "--pathlength", "0.5"]
 
 
 #: Sample S1 fills wells B1-B6 of the scenario (layout lines 6-11).
@@ -677,6 +690,10 @@ S1_WELLS = [f"B{c}" for c in range(1, 7)]
     ("Ext\u00e903", "Exte\u030103", r"'Ext\xe903' (line 6) and 'Exte\u030103' (line 11)",
      "Unicode form"),
     ("Ext03", "ext03", "'Ext03' (line 6) and 'ext03' (line 11)", "case or spacing"),
+    ("Ext_03", "ext-03", "'Ext_03' (line 6) and 'ext-03' (line 11)",
+     "case, spacing or - and _"),
+    ("Ext 03", "Ext  03", r"'Ext 03' (line 6) and 'Ext\x20\x2003' (line 11)",
+     "case, spacing or - and _"),
 ])
 def test_plate_layout_refuses_two_spellings_of_one_sample(tmp_path, name, variant, shown,
                                                           how, cli):
@@ -685,6 +702,8 @@ def test_plate_layout_refuses_two_spellings_of_one_sample(tmp_path, name, varian
     another case) is refused, not pooled: exit 2, one line naming the file, both
     spellings as they differ and their lines, and the fix; inputs intact, nothing
     written."""
+    shown = shown.replace("(line 6)", "(line 6, wells B1, B2, B3, B4, B5)").replace(
+        "(line 11)", "(line 11, well B6)")
     spellings = dict.fromkeys(S1_WELLS, name) | {"B6": variant}
     args = _plate_run(tmp_path, samples=spellings)
     before = digest(tmp_path)

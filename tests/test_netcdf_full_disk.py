@@ -58,7 +58,7 @@ def run_limited(args: list[object], prelude: str = IN_MEMORY) -> subprocess.Comp
 def _library_import(folder: Path) -> tuple[list[object], Path]:
     table = write_absorptivity_table(folder / "eps.csv")
     out = folder / "lib.nc"
-    return ["library", "import", table, "--unit", "L/(mol*cm)", "--out", out], out
+    return ["library", "import", table, "--absorptivity-unit", "L/(mol*cm)", "--out", out], out
 
 
 def _library_build(folder: Path) -> tuple[list[object], Path]:

@@ -30,7 +30,7 @@ from helpers_plate import (
 )
 
 import mixsolve as ms
-from mixsolve.errors import FileFormatError, InputError, UnitError
+from mixsolve.errors import FileFormatError, InputError, RenamedWarning, UnitError
 from mixsolve.plate.wells import plate_wells
 from mixsolve.report.html import SAFETY_CAUTIONS
 from mixsolve.report.plate_text import plate_notes, plate_settings
@@ -144,7 +144,7 @@ def test_plate_with_library_recovers_samples_and_lists_every_well(files):
     assert settings["export"].startswith("plate1.csv (grid blocks, 96-well, separator comma")
     assert settings["pathlength"] == "0.5 cm (given)"
     assert settings["high_cv flag"].startswith("CV > 20 % for a component")
-    assert done.options.pathlength_mode == "fixed" and done.options.max_cv == 0.2
+    assert done.options.pathlength_mode == "fixed" and done.options.max_cv_percent == 20.0
     assert len(done.options.blank_wells) == 4
     # Sample statistics follow the documented rule, from the wells' own numbers.
     s1 = wells.loc[[(f"B{c}", "red") for c in range(1, 7)]]
@@ -153,7 +153,7 @@ def test_plate_with_library_recovers_samples_and_lists_every_well(files):
     assert row["sd"] == pytest.approx(s1["concentration"].std(ddof=1))
     floor = np.mean(s1["std_uncertainty"] ** 2)
     assert row["std_uncertainty"] == pytest.approx(np.sqrt(max(row["sd"] ** 2, floor) / 6))
-    assert row["cv"] == pytest.approx(row["sd"] / row["concentration"])
+    assert row["cv_percent"] == pytest.approx(100 * row["sd"] / row["concentration"])
     # S3 has no blue: its wells were held at zero, but the sample's mean is formed from the
     # unconstrained (OLS) fit of the same wells and the bound applied to the mean alone.
     assert wells.loc[[(f"D{c}", "blue") for c in range(1, 7)], "flags"].str.contains(
@@ -230,8 +230,8 @@ def test_volume_pathlength_and_option_conflicts(files):
         ms.analyse_plate(plate, layout)
     for options, message in (
             ({"pathlength_cm": 0.0}, r"^pathlength_cm: 0 cm is not a positive number$"),
-            ({"max_cv": -0.05}, r"^max_cv: -0\.05 is not a positive number; a fraction of the "
-                                r"mean: 0\.2 flags a CV above 20 %$"),
+            ({"max_cv_percent": -5}, r"^max_cv_percent: -5 % is not a positive number; a "
+                                     r"percent of the mean: 20 flags a CV above 20 %$"),
             ({"water_band": True, "water_k_au_per_cm": 0.0},
              r"^water_k_au_per_cm: 0 AU/cm is not a positive number$")):
         with pytest.raises(InputError, match=message):
@@ -241,13 +241,17 @@ def test_volume_pathlength_and_option_conflicts(files):
         ms.analyse_plate(plate, layout, lib, water_band=True)
 
 
-def test_default_pathlength_is_one_cm_with_a_note(files):
-    done = ms.analyse_plate(ms.read_plate(files["export"]), ms.read_layout(files["layout"]),
-                            make_library())
-    assert (done.pathlength_cm == 1.0).all()
-    assert plate_notes(done)[0].startswith("No pathlength was given, so 1 cm was assumed")
-    s1 = _samples(done).loc[("S1", "red"), "concentration"]
-    assert s1 == pytest.approx(2.0e-5 * 0.5, rel=0.05)  # b 0.5 cm read as 1 cm: half
+def test_no_pathlength_is_refused_with_the_three_ways(files):
+    """A plate run states its pathlength: without one (formerly 1 cm with a note, which
+    halves results in 0.5 cm wells) it is refused naming the three ways to give it
+    (issue 17 item 4)."""
+    with pytest.raises(InputError, match=r"^no pathlength: a well is not 1 cm deep .* give one "
+                                         r"of pathlength_cm \(one value for every well\), "
+                                         r"volume_ul with well_diameter_mm \(fill volume and "
+                                         r"well geometry\), or water_band \(per well from the "
+                                         r"water band at 900 and 977 nm\)$"):
+        ms.analyse_plate(ms.read_plate(files["export"]), ms.read_layout(files["layout"]),
+                         make_library())
 
 
 def test_layout_well_off_the_plate(files, tmp_path):
@@ -273,7 +277,7 @@ def test_library_from_plate_standards(files, tmp_path):
     no_std = ms.read_layout(write_text(tmp_path / "nostd.csv", "well,role\nA1,blank\n"))
     with pytest.raises(InputError, match=r"^nostd\.csv: library_from_plate needs standard "
                                          r"wells read in plate1\.csv; the layout has none$"):
-        ms.analyse_plate(plate, no_std, library_from_plate=True)
+        ms.analyse_plate(plate, no_std, library_from_plate=True, pathlength_cm=0.5)
 
 
 def test_high_cv_and_single_well_flags(tmp_path):
@@ -290,13 +294,18 @@ def test_high_cv_and_single_well_flags(tmp_path):
         write_layout(tmp_path / "l.csv", layout)), make_library(), pathlength_cm=0.5)
     samples = _samples(done)
     assert "high_cv" in samples.loc[("S1", "red"), "flags"]
-    assert samples.loc[("S1", "red"), "cv"] > 0.2
+    assert samples.loc[("S1", "red"), "cv_percent"] > 20
     assert "single_well" in samples.loc[("S5", "red"), "flags"]
     assert samples.loc[("S5", "red"), "std_uncertainty"] == pytest.approx(
         done.wells.set_index(["well", "component"]).loc[("C1", "red"), "std_uncertainty"])
     relaxed = ms.analyse_plate(ms.read_plate(path), ms.read_layout(tmp_path / "l.csv"),
-                               make_library(), pathlength_cm=0.5, max_cv=10.0)
+                               make_library(), pathlength_cm=0.5, max_cv_percent=1000)
     assert "high_cv" not in _samples(relaxed).loc[("S1", "red"), "flags"]
+    with pytest.warns(RenamedWarning, match=r"^max_cv \(a fraction\) is now max_cv_percent"):
+        old = ms.analyse_plate(ms.read_plate(path), ms.read_layout(tmp_path / "l.csv"),
+                               make_library(), pathlength_cm=0.5, max_cv=10.0)
+    assert old.options.max_cv_percent == 1000
+    pd.testing.assert_frame_equal(old.samples, relaxed.samples)
 
 
 # --- batches, outputs, report ---------------------------------------------------------------
@@ -380,8 +389,10 @@ def test_batch_of_a_folder_writes_every_output(tmp_path, files):
         assert len(wells) == 96 * 2 and set(wells["unit"]) == {"umol/L"}
         samples = pd.read_csv(sub / "samples.csv")
         assert list(samples.columns) == ["sample", "component", "concentration",
-                                         "std_uncertainty", "unit", "n_wells",
-                                         "mean_unconstrained", "sd", "cv", "wells", "flags"]
+                                         "std_uncertainty", "coverage_factor",
+                                         "expanded_uncertainty", "unit", "n_wells",
+                                         "mean_unconstrained", "sd", "cv_percent", "wells",
+                                         "flags"]
         book = pd.read_excel(sub / "results.xlsx", sheet_name=None)
         assert list(book) == ["wells", "samples", "settings"]
         assert len(book["wells"]) == len(wells) and len(book["samples"]) == len(samples)
@@ -453,8 +464,8 @@ def test_same_export_names_and_library_from_plate(tmp_path, files):
 
 def test_cli_plate(tmp_path, files, cli):
     out = tmp_path / "cli"
-    run = cli("plate", files["export"], "--layout", files["layout"], "--library",
-              files["library"], "--out", out, "--volume-ul", "160.8495",
+    run = cli("plate", files["library"], files["export"], "--layout", files["layout"],
+              "--out", out, "--volume-ul", "160.8495",
               "--well-diameter-mm", "6.4", "--unit", "umol/L", "--max-cv", "25")
     assert run.exit_code == 0, run.output
     assert run.stdout.startswith("plate1.csv: grid blocks, 96-well; 46 wells fitted")
@@ -464,10 +475,30 @@ def test_cli_plate(tmp_path, files, cli):
     assert (out / "samples.csv").exists()
 
 
+def test_cli_plate_takes_the_library_first_as_unmix_does(tmp_path, files, cli):
+    """``plate LIB EXPORTS...`` as ``unmix LIB SPECTRA...``; the old ``--library LIB`` still
+    works, with a note on stderr, and gives the same results; an export in the library's
+    place, or no export after it, is refused in one line (issue 17 item 6)."""
+    common = ["--layout", files["layout"], "--pathlength", "0.5"]
+    cli.ok("plate", files["library"], files["export"], *common, "--out", tmp_path / "new")
+    old = cli.ok("plate", files["export"], "--library", files["library"], *common, "--out",
+                 tmp_path / "old")
+    assert old.stderr.startswith("note: --library LIB is now given as the first argument, "
+                                 "as for unmix")
+    pd.testing.assert_frame_equal(pd.read_csv(tmp_path / "old" / "samples.csv"),
+                                  pd.read_csv(tmp_path / "new" / "samples.csv"))
+    assert_cli_error(cli("plate", files["export"], *common, "--out", tmp_path / "x"),
+                     r"^error: .*plate1\.csv: the first path is the library file \(\.nc\), "
+                     r"then the exports; give the library first", must_not_exist=[tmp_path / "x"])
+    assert_cli_error(cli("plate", files["library"], *common, "--out", tmp_path / "y"),
+                     r"^error: no plate export after the library .*lib\.nc",
+                     must_not_exist=[tmp_path / "y"])
+
+
 @pytest.mark.parametrize(("extra", "message"), [
     (["--library-from-plate"], "error: give either a library or --library-from-plate, not "
                                "both"),
-    (["--pathlength", "0.5", "--water-band"], "error: pathlength given 2 ways (fixed, water "
+    (["--water-band"], "error: pathlength given 2 ways (fixed, water "
                                               "band); give one of --pathlength, --volume-ul "
                                               "with --well-diameter-mm, or --water-band\n"),
     (["--volume-ul", "100"], "error: --volume-ul and --well-diameter-mm go together: the "
@@ -476,8 +507,8 @@ def test_cli_plate(tmp_path, files, cli):
 ])
 def test_cli_plate_errors_are_one_line_exit_2(tmp_path, files, extra, message, cli):
     out = tmp_path / "cli"
-    run = cli("plate", files["export"], "--layout", files["layout"], "--library",
-              files["library"], "--out", out, *extra)
+    run = cli("plate", files["library"], files["export"], "--layout", files["layout"],
+              "--out", out, "--pathlength", "0.5", *extra)
     assert_cli_error(run, "^" + re.escape(message.rstrip("\n")) + ("$" if message.endswith(
         "\n") else ""), must_not_exist=[out])
 

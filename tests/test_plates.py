@@ -312,7 +312,7 @@ def test_replicate_statistics_rule():
     # Replicates scatter more than their fits say: SD²/n rules.
     stats = replicate_statistics(np.array([1.0, 1.2, 0.8]), np.array([0.01, 0.01, 0.01]))
     assert stats["n"] == 3 and stats["mean"] == pytest.approx(1.0)
-    assert stats["sd"] == pytest.approx(0.2) and stats["cv"] == pytest.approx(0.2)
+    assert stats["sd"] == pytest.approx(0.2) and stats["cv_percent"] == pytest.approx(20.0)
     assert stats["std_uncertainty"] == pytest.approx(0.2 / np.sqrt(3))
     # Replicates agree by chance better than the fit noise allows: the fit variance is a floor.
     close = replicate_statistics(np.array([1.0, 1.001, np.nan]), np.array([0.05, 0.03, 0.02]))
@@ -321,10 +321,58 @@ def test_replicate_statistics_rule():
     # One well: its own fit uncertainty, no SD or CV.
     one = replicate_statistics(np.array([2.0]), np.array([0.1]))
     assert one["std_uncertainty"] == pytest.approx(0.1)
-    assert np.isnan(one["sd"]) and np.isnan(one["cv"])
+    assert np.isnan(one["sd"]) and np.isnan(one["cv_percent"])
     # No result at all: NaN throughout, n = 0.
     none = replicate_statistics(np.array([np.nan]), np.array([np.nan]))
     assert none["n"] == 0 and np.isnan(none["std_uncertainty"])
     # Unknown fit uncertainty (no_dof): only the scatter is used.
     blind = replicate_statistics(np.array([1.0, 1.2]), np.array([np.nan, 0.1]))
     assert blind["std_uncertainty"] == pytest.approx(np.std([1.0, 1.2], ddof=1) / np.sqrt(2))
+
+
+def test_student_t_coverage_factor_of_a_mean_of_wells():
+    """Where the wells' spread sets u(mean), k = t(0.975, n - 1): 4.303 for n = 3 and 12.706
+    for n = 2 (Student's t table, e.g. NIST/SEMATECH e-Handbook of Statistical Methods,
+    1.3.6.7.2; from memory); where the fit's variance sets it (many degrees of freedom),
+    k = 2; the shared library and stray terms keep k = 2 and are not averaged down
+    (JCGM 100:2008, G.3 and 5.2.2; issue 17 item 4)."""
+    spread = replicate_statistics(np.array([1.0, 1.2, 0.8]), np.full(3, 0.01))
+    assert spread["dof"] == 2
+    assert spread["coverage_factor"] == pytest.approx(4.303, abs=5e-4)
+    assert spread["expanded_uncertainty"] == pytest.approx(4.303 * 0.2 / np.sqrt(3), rel=1e-3)
+    two = replicate_statistics(np.array([1.0, 1.2]), np.full(2, 0.01))
+    assert two["coverage_factor"] == pytest.approx(12.706, abs=5e-4)
+    floor = replicate_statistics(np.array([1.0, 1.001, 0.999]), np.full(3, 0.05))
+    assert np.isinf(floor["dof"]) and floor["coverage_factor"] == 2.0
+    one = replicate_statistics(np.array([2.0]), np.array([0.1]))
+    assert one["coverage_factor"] == 2.0 and one["expanded_uncertainty"] == pytest.approx(0.2)
+    # parts: U = sqrt((t u_noise)^2 + (2 u_shared)^2), k = U / u
+    both = replicate_statistics(np.array([1.0, 1.2, 0.8]), np.full(3, 0.01),
+                                u_shared=[np.full(3, 0.1)])
+    u_noise = 0.2 / np.sqrt(3)
+    assert both["std_uncertainty"] == pytest.approx(np.hypot(u_noise, 0.1))
+    assert both["expanded_uncertainty"] == pytest.approx(np.hypot(4.303 * u_noise, 0.2),
+                                                         rel=1e-3)
+    assert both["coverage_factor"] == pytest.approx(both["expanded_uncertainty"]
+                                                    / both["std_uncertainty"])
+
+
+def test_student_t_interval_covers_95_percent_of_triplicate_means():
+    """Synthetic, seeded: triplicate wells whose well-to-well scatter (SD 0.1) dwarfs the
+    fit noise (0.001). mean ± U covers the true value in 95 % of runs with the Student-t
+    factor; with k = 2 it would cover P(|T₂| < 2) = 0.816 (scipy.stats.t, 2 degrees of
+    freedom), the trap the factor removes."""
+    from scipy.stats import t
+
+    rng = np.random.default_rng(17)
+    truth, trials = 1.0, 4000
+    draws = truth + 0.1 * rng.standard_normal((trials, 3))
+    covered_t = covered_2 = 0
+    for wells in draws:
+        stats = replicate_statistics(wells, np.full(3, 0.001))
+        error = abs(stats["mean"] - truth)
+        covered_t += error <= stats["expanded_uncertainty"]
+        covered_2 += error <= 2 * stats["std_uncertainty"]
+    sigma = np.sqrt(0.95 * 0.05 / trials)  # binomial SD of the rate
+    assert abs(covered_t / trials - 0.95) < 4 * sigma
+    assert abs(covered_2 / trials - (2 * t.cdf(2, 2) - 1)) < 4 * np.sqrt(0.2 / trials)

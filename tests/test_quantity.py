@@ -309,13 +309,13 @@ def test_plate_export_in_percent_transmittance(tmp_path, cli, library_file):
     with pytest.raises(InputError,
                        match=r"^plate_t\.csv: most readings are above 10 .* percent transmittance"):
         ms.read_plate(t_file)
-    common = ["--layout", demo_file("plate_layout.csv"), "--library", library_file,
-              "--window", "400-700", "--pathlength", "0.5"]
-    refused = cli("plate", t_file, *common, "--out", tmp_path / "refused")
+    common = ["--layout", demo_file("plate_layout.csv"), "--window", "400-700",
+              "--pathlength", "0.5"]
+    refused = cli("plate", library_file, t_file, *common, "--out", tmp_path / "refused")
     assert_cli_error(refused, "give --quantity percent_transmittance", literal=True,
                      progress=True, must_not_exist=[tmp_path / "refused"])
-    cli.ok("plate", a_file, *common, "--out", tmp_path / "a")
-    cli.ok("plate", t_file, *common, "--quantity", "percent_transmittance", "--out",
+    cli.ok("plate", library_file, a_file, *common, "--out", tmp_path / "a")
+    cli.ok("plate", library_file, t_file, *common, "--quantity", "percent_transmittance", "--out",
            tmp_path / "t")
     expected = pd.read_csv(tmp_path / "a" / "plate_a" / "samples.csv")
     got = pd.read_csv(tmp_path / "t" / "plate_t" / "samples.csv")

@@ -331,8 +331,7 @@ def test_cli_plate_bandwidth(cli, tmp_path) -> None:
     export = write_scenario(tmp_path)
     layout = write_layout(tmp_path / "layout.csv")
     lib = write_library_file(tmp_path / "lib.nc")
-    args = ("plate", str(export), "--layout", str(layout), "--library", str(lib),
-            "--pathlength", "0.5")
+    args = ("plate", str(lib), str(export), "--layout", str(layout), "--pathlength", "0.5")
     cli.ok(*args, "--out", str(tmp_path / "out"), "--bandwidth-nm", "6")
     assert_cli_error(cli(*args, "--out", str(tmp_path / "bad"), "--bandwidth-nm", "-2"),
                      r"--bandwidth-nm: -2 nm is not a positive number")

@@ -199,7 +199,7 @@ def test_cli_plate_with_formula_sample_names(tmp_path, cli):
     layout_file = write_layout(tmp_path / "layout.csv", layout)
     library = write_library_file(tmp_path / "lib.nc")
     out = tmp_path / "out"
-    run = cli("plate", export, "--layout", layout_file, "--library", library, "--out", out,
+    run = cli("plate", library, export, "--layout", layout_file, "--out", out,
               "--pathlength", "0.5")
     assert run.exit_code == 0, run.output
     plate = out / "plate1"

@@ -316,8 +316,8 @@ def test_plate_command_states_the_stray_fraction_like_the_api(tmp_path, cli) -> 
     lib = tmp_path / "lib.nc"
     cli.ok("library", "build", demo_file("standards_spectra.csv"), "--standards",
            demo_file("standards.csv"), "--out", lib)
-    cli.ok("plate", demo_file("plate_export.csv"), "--layout", demo_file("plate_layout.csv"),
-           "--library", lib, "--out", tmp_path / "run", "--volume-ul", "300",
+    cli.ok("plate", lib, demo_file("plate_export.csv"), "--layout",
+           demo_file("plate_layout.csv"), "--out", tmp_path / "run", "--volume-ul", "300",
            "--well-diameter-mm", "6.96", "--stray", "0.001", "--u-stray", "0.0002")
     wells = pd.read_csv(next((tmp_path / "run").rglob("wells.csv")))
     args = (ms.read_plate(demo_file("plate_export.csv")),

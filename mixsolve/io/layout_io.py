@@ -16,7 +16,7 @@ import pandas as pd
 from mixsolve.errors import FileFormatError, InputError
 from mixsolve.io.tables import parse_number, read_table
 from mixsolve.names import check_spellings, normalise_name
-from mixsolve.plate.wells import parse_well, well_name
+from mixsolve.plate.wells import check_sample_names, parse_well, well_name
 from mixsolve.spectra import check_number
 from mixsolve.units import concentration_basis
 
@@ -54,7 +54,10 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
         and component names are compared in normal form (:mod:`mixsolve.names`): one
         sample (or component) may fill many wells under one spelling, but two spellings
         of one name (``Ext03`` and ``Ext03 ``, a no-break or zero-width space, another
-        Unicode form, another case) are refused naming both and their lines.
+        Unicode form, another case) are refused naming both and their lines; two sample
+        names that differ only in case, runs of white space or ``-`` against ``_``
+        (``Ext_03 `` and ``ext-03``) are refused naming both and their wells
+        (:func:`mixsolve.plate.wells.check_sample_names`).
     """
     table = read_table(path, sheet=sheet, keep_spaces=True)  # names as written
     names = [str(h).strip().lstrip("\ufeff").lower() for h in table.header]
@@ -103,6 +106,8 @@ def read_layout(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd
             record.update(_standard(table.name, where, col, cells, table.decimal))
         records.append(record)
     frame = pd.DataFrame.from_records(records, columns=list(LAYOUT_COLUMNS))
+    check_sample_names(frame["sample"].tolist(), frame["well"].tolist(), table.name,
+                       frame["line"].tolist())
     for name in ("sample", "component"):  # one spelling per name (mixsolve.names)
         frame[name] = check_spellings(frame[name], f"{table.name}, {name}s",
                                        frame["line"].tolist())

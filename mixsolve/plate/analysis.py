@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from mixsolve.errors import InputError, MixsolveWarning
+from mixsolve.errors import InputError, MixsolveWarning, RenamedWarning
 from mixsolve.flags import (
     AT_ZERO,
     COMPONENT_CODES,
@@ -35,9 +35,10 @@ from mixsolve.flags import (
 )
 from mixsolve.library import COMPONENT, build_library, check_library
 from mixsolve.plate.wells import (
-    DEFAULT_MAX_CV,
+    DEFAULT_MAX_CV_PERCENT,
     WATER_BAND_AU_PER_CM,
     WELL,
+    check_sample_names,
     on_plate,
     parse_well,
     pathlength_from_volume,
@@ -57,8 +58,9 @@ from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
 FITTED_ROLES = ("blank", "sample", "standard")
 WELL_COLUMNS = ("well", "sample", "role", "component", "concentration", "std_uncertainty",
                 "unit", "dilution", "pathlength_cm", "rms_residual_au", "flags")
-SAMPLE_COLUMNS = ("sample", "component", "concentration", "std_uncertainty", "unit",
-                  "n_wells", "mean_unconstrained", "sd", "cv", "wells", "flags")
+SAMPLE_COLUMNS = ("sample", "component", "concentration", "std_uncertainty",
+                  "coverage_factor", "expanded_uncertainty", "unit", "n_wells",
+                  "mean_unconstrained", "sd", "cv_percent", "wells", "flags")
 #: Per-well uncertainty parts shared by every well of a run: not averaged down in a mean.
 SHARED_PARTS = ("u_library", "u_stray")
 
@@ -69,13 +71,13 @@ class PlateOptions:
 
     Attributes
     ----------
-    pathlength_mode : {"fixed", "volume", "water band", "default"}
-        ``pathlength_cm`` given, from ``volume_ul`` and ``well_diameter_mm``, from the
-        water band, or 1 cm because none was given.
+    pathlength_mode : {"fixed", "volume", "water band"}
+        ``pathlength_cm`` given, from ``volume_ul`` and ``well_diameter_mm``, or from the
+        water band.
     water_k_au_per_cm : float
         A(977) − A(900) of 1 cm of water (AU/cm), for the water band.
-    max_cv : float
-        Replicate CV (fraction) above which a component is flagged ``high_cv``.
+    max_cv_percent : float
+        Replicate CV (%) above which a component is flagged ``high_cv``.
     library_from_plate : bool
         Whether the library was built from the plate's standard wells.
     method, baseline : str
@@ -88,7 +90,7 @@ class PlateOptions:
 
     pathlength_mode: str
     water_k_au_per_cm: float
-    max_cv: float
+    max_cv_percent: float
     library_from_plate: bool
     method: str
     baseline: str
@@ -161,7 +163,8 @@ def analyse_plate(
     well_diameter_mm: float | None = None,
     water_band: bool = False,
     water_k_au_per_cm: float = WATER_BAND_AU_PER_CM,
-    max_cv: float = DEFAULT_MAX_CV,
+    max_cv_percent: float = DEFAULT_MAX_CV_PERCENT,
+    max_cv: float | None = None,
     **fit_options: Any,
 ) -> PlateResult:
     """Turn one plate's readings into concentrations per well and per sample.
@@ -188,11 +191,17 @@ def analyse_plate(
         Fill volume (µL) and well diameter (mm): b = V / (π (d/2)²).
     water_band : bool
         Pathlength per well from A(977) − A(900) of the raw readings / ``water_k_au_per_cm``.
+        Exactly one of ``pathlength_cm``, ``volume_ul`` with ``well_diameter_mm``, or
+        ``water_band`` must be given: a well is not 1 cm deep (200 µL in a 96-well plate
+        is about 0.5 cm), so no pathlength is assumed.
     water_k_au_per_cm : float
         A(977) − A(900) of 1 cm of water (AU/cm); 0.18 at room temperature (from memory).
-    max_cv : float
-        Replicate CV (fraction) above which a clearly detected component is flagged
-        ``high_cv``.
+    max_cv_percent : float
+        Replicate CV (%, 100 · SD / |mean|) above which a clearly detected component is
+        flagged ``high_cv``.
+    max_cv : float, optional
+        Old name of the same limit as a fraction (0.2 for 20 %): converted, with a
+        :class:`mixsolve.errors.RenamedWarning`; it works until the next release.
     **fit_options
         Passed to :func:`mixsolve.unmix` (``weights``, ``noise``, ``absorbance_range``,
         ``fit_shift``, ``max_shift_nm``, ``wavelength_tolerance_nm``, ``bandwidth_nm``, the
@@ -206,9 +215,10 @@ def analyse_plate(
     Raises
     ------
     InputError
-        Layout wells off the plate, conflicting pathlength or library options, no
-        standards for ``library_from_plate``, and every error of :func:`mixsolve.unmix`
-        and :func:`mixsolve.build_library`.
+        Layout wells off the plate, two spellings of one sample, no pathlength or
+        conflicting pathlength or library options, no standards for
+        ``library_from_plate``, and every error of :func:`mixsolve.unmix` and
+        :func:`mixsolve.build_library`.
 
     Notes
     -----
@@ -222,8 +232,15 @@ def analyse_plate(
     :func:`mixsolve.plate.wells.replicate_statistics` (docs/plates.md).
     """
     plate = check_spectra(plate, "plate")
-    max_cv = check_number(max_cv, "max_cv", positive=True,
-                          hint="a fraction of the mean: 0.2 flags a CV above 20 %")
+    if max_cv is not None:  # the old name, a fraction
+        max_cv = check_number(max_cv, "max_cv", positive=True,
+                              hint="a fraction of the mean: 0.2 flags a CV above 20 %")
+        warnings.warn("max_cv (a fraction) is now max_cv_percent (a percent: 20 for 0.2); "
+                      "the old name works until the next release", RenamedWarning,
+                      stacklevel=2)
+        max_cv_percent = 100 * max_cv
+    max_cv_percent = check_number(max_cv_percent, "max_cv_percent", "%", positive=True,
+                                  hint="a percent of the mean: 20 flags a CV above 20 %")
     water_k_au_per_cm = check_number(water_k_au_per_cm, "water_k_au_per_cm", "AU/cm",
                                      positive=True)
     if pathlength_cm is not None:
@@ -273,9 +290,9 @@ def analyse_plate(
     components = [str(c) for c in library[COMPONENT].values]
     all_wells = [w for w in plate_wells(size) if w in set(read) | set(roles)]
     wells = _wells_table(plate, layout, all_wells, read, b, result, components, out_unit)
-    samples = _samples_table(layout, wells, unconstrained, components, out_unit, max_cv,
+    samples = _samples_table(layout, wells, unconstrained, components, out_unit, max_cv_percent,
                              non_negative=method != "ols")
-    options = PlateOptions(mode, water_k_au_per_cm, max_cv, library_from_plate, method,
+    options = PlateOptions(mode, water_k_au_per_cm, max_cv_percent, library_from_plate, method,
                            baseline, out_unit, tuple(blanks))
     return PlateResult(source, plate, corrected, layout, library, result, wells, samples,
                        blank_mean, blank_sd, b, size, options, unconstrained)
@@ -291,6 +308,9 @@ def _check_layout(layout: pd.DataFrame, layout_name: str, size: int, source: str
         if pos is None or not on_plate(pos, size):
             raise InputError(f"{layout_name}, line {row.line}: well {row.well} is not on the "
                              f"{size}-well plate of {source} ({plate_range(size)})")
+    sample_wells = layout[layout["role"] == "sample"]
+    check_sample_names(sample_wells["sample"].tolist(), sample_wells["well"].tolist(),
+                       layout_name, sample_wells["line"].tolist())
 
 
 def _pathlength_mode(pathlength_cm: float | None, volume_ul: float | None,
@@ -303,7 +323,13 @@ def _pathlength_mode(pathlength_cm: float | None, volume_ul: float | None,
     if len(given) > 1:
         raise InputError(f"pathlength given {len(given)} ways ({', '.join(given)}); give one of "
                          "pathlength_cm, volume_ul with well_diameter_mm, or water_band")
-    return given[0] if given else "default"
+    if not given:
+        raise InputError(
+            "no pathlength: a well is not 1 cm deep (200 µL in a 96-well plate is about "
+            "0.5 cm), so give one of pathlength_cm (one value for every well), volume_ul "
+            "with well_diameter_mm (fill volume and well geometry), or water_band (per well "
+            "from the water band at 900 and 977 nm)")
+    return given[0]
 
 
 def _pathlengths(plate: xr.DataArray, fitted: list[str], mode: str, pathlength_cm: float | None,
@@ -316,7 +342,7 @@ def _pathlengths(plate: xr.DataArray, fitted: list[str], mode: str, pathlength_c
     elif mode == "volume":
         values = np.full(len(fitted), pathlength_from_volume(volume_ul, well_diameter_mm))
     else:
-        values = np.full(len(fitted), 1.0 if pathlength_cm is None else pathlength_cm)
+        values = np.full(len(fitted), pathlength_cm)
     return pd.Series(values, index=pd.Index(fitted, name=WELL), dtype=float, name="pathlength_cm")
 
 
@@ -426,7 +452,7 @@ def _per_well(result: xr.Dataset | None, name: str, all_wells: list[str],
 
 
 def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, free: xr.Dataset | None,
-                   components: list[str], unit: str, max_cv: float, *,
+                   components: list[str], unit: str, max_cv_percent: float, *,
                    non_negative: bool) -> pd.DataFrame:
     """One row per sample and component from the unconstrained fit ``free`` of the wells.
 
@@ -451,15 +477,16 @@ def _samples_table(layout: pd.DataFrame, wells: pd.DataFrame, free: xr.Dataset |
             stats = replicate_statistics(conc[idx, k], u[idx, k],
                                          u_shared=[part[idx, k] for part in shared],
                                          non_negative=non_negative)
-            codes = _sample_flags(flags[idx], comp, stats, len(members), max_cv)
-            rows.append((sample, comp, stats["value"], stats["std_uncertainty"], unit,
-                         stats["n"], stats["mean"], stats["sd"], stats["cv"],
+            codes = _sample_flags(flags[idx], comp, stats, len(members), max_cv_percent)
+            rows.append((sample, comp, stats["value"], stats["std_uncertainty"],
+                         stats["coverage_factor"], stats["expanded_uncertainty"], unit,
+                         stats["n"], stats["mean"], stats["sd"], stats["cv_percent"],
                          ";".join(members), ";".join(by_severity(codes))))
     return pd.DataFrame(rows, columns=list(SAMPLE_COLUMNS))
 
 
 def _sample_flags(well_flags: Sequence[str], component: str, stats: dict[str, Any],
-                  n_listed: int, max_cv: float) -> list[str]:
+                  n_listed: int, max_cv_percent: float) -> list[str]:
     codes: dict[str, None] = {}
     for text in well_flags:
         for code in filter(None, str(text).split(";")):
@@ -479,6 +506,6 @@ def _sample_flags(well_flags: Sequence[str], component: str, stats: dict[str, An
     if n == 1:
         codes[SINGLE_WELL] = None
     detected = np.isfinite(stats["u_fit_rms"]) and stats["mean"] > 3 * stats["u_fit_rms"]
-    if np.isfinite(stats["cv"]) and stats["cv"] > max_cv and detected:
+    if np.isfinite(stats["cv_percent"]) and stats["cv_percent"] > max_cv_percent and detected:
         codes[HIGH_CV] = None
     return list(codes)

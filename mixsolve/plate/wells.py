@@ -8,6 +8,7 @@ a DataArray with dims ``("well", "wavelength")``.
 from __future__ import annotations
 
 import re
+import unicodedata
 from collections.abc import Iterable, Sequence
 
 import numpy as np
@@ -16,6 +17,9 @@ import xarray as xr
 from mixsolve.errors import InputError
 from mixsolve.names import normalise_name
 from mixsolve.spectra import WAVELENGTH, check_number
+
+#: Letter case, runs of white space and ``-`` against ``_`` do not tell two samples apart.
+_LOOSE_SPACE = re.compile(r"\s+")
 
 WELL = "well"
 #: Plate formats: wells → (rows, columns).
@@ -29,8 +33,14 @@ WATER_BAND_AU_PER_CM = 0.18
 WATER_BAND_NM = (900.0, 977.0)
 #: How close (nm) a reading must be to a water-band wavelength to count as one.
 WATER_BAND_TOLERANCE_NM = 0.5
-#: Replicate CV above which a sample is flagged ``high_cv`` (common practice, settable).
-DEFAULT_MAX_CV = 0.20
+#: Replicate CV (%) above which a sample is flagged ``high_cv`` (common practice, settable).
+DEFAULT_MAX_CV_PERCENT = 20.0
+#: Coverage factor of a term whose standard uncertainty is known with many degrees of
+#: freedom (the fit's, the library's, stray light's): k = 2, as the budget's
+#: (``mixsolve.uncertainty.inputs.DEFAULT_COVERAGE_FACTOR``).
+COVERAGE_FACTOR = 2.0
+#: Two-sided level of the Student-t coverage factor of a spread estimated from n wells.
+T_LEVEL = 0.975
 
 
 def parse_well(text: object) -> tuple[int, int] | None:
@@ -177,6 +187,93 @@ def water_band_pathlength(
     return b.assign_attrs(units="cm")
 
 
+def sample_key(name: object) -> str:
+    """What two sample names of a layout must not share.
+
+    The normal form (:func:`mixsolve.names.normalise_name`), case-folded, each run of
+    white space as one space and ``-`` read as ``_``: ``Ext_03 ``, ``ext-03`` and
+    ``EXT_03`` share the key ``ext_03``.
+    """
+    return _LOOSE_SPACE.sub(" ", normalise_name(name)).casefold().replace("-", "_")
+
+
+def check_sample_names(samples: Sequence[object], wells: Sequence[str], where: str,
+                       lines: Sequence[int] | None = None) -> None:
+    """Refuse two spellings of one sample in a layout, naming both, their lines and wells.
+
+    Parameters
+    ----------
+    samples : sequence
+        The sample name of each row as written (empty for rows without one).
+    wells : sequence of str
+        The well of each row.
+    where : str
+        The layout's name, for the message.
+    lines : sequence of int, optional
+        The file line of each row: the first line of each spelling is named.
+
+    Raises
+    ------
+    InputError
+        Two spellings with one :func:`sample_key` (another Unicode form, case, spacing,
+        runs of white space, ``-`` against ``_``): pooling them, or splitting one sample
+        in two, would be silent. "layout.csv, samples: names 'Ext_03 ' (line 3, well A2)
+        and 'ext-03' (line 4, well A3) differ only in case, spacing or - and _; ...".
+    """
+    spellings: dict[str, dict[str, list[int]]] = {}
+    for row, name in enumerate(samples):
+        text = str(name)
+        if normalise_name(text):
+            spellings.setdefault(sample_key(text), {}).setdefault(text, []).append(row)
+    for found in spellings.values():
+        if len(found) > 1:
+            (a, rows_a), (b, rows_b) = list(found.items())[:2]
+            shown = (_visible, ascii)[normalise_name(repr(a)) == normalise_name(repr(b))]
+            if unicodedata.normalize("NFC", a) == unicodedata.normalize("NFC", b):
+                how = "Unicode form"
+            elif normalise_name(a).casefold() == normalise_name(b).casefold():
+                how = "case or spacing"
+            else:
+                how = "case, spacing or - and _"
+
+            def place(rows: list[int]) -> str:
+                named = [str(wells[r]) for r in rows]
+                text = ", ".join(named[:6]) + (f" and {len(named) - 6} more"
+                                               if len(named) > 6 else "")
+                line = "" if lines is None else f"line {lines[rows[0]]}, "
+                return f"{line}well{'s' if len(named) > 1 else ''} {text}"
+
+            raise InputError(
+                f"{where}, samples: names {shown(a)} ({place(rows_a)}) and {shown(b)} "
+                f"({place(rows_b)}) differ only in {how}; write one name the same way on "
+                "every line, or rename one")
+
+
+def _visible(text: str) -> str:
+    """``repr`` with each run of spaces shown as ``\\x20`` escapes (one-line errors
+    collapse runs of white space, which would hide the difference)."""
+    return re.sub(r" {2,}", lambda m: r"\x20" * len(m.group()), repr(text))
+
+
+def coverage_factor(dof: float) -> float:
+    """Coverage factor of a standard uncertainty with ``dof`` degrees of freedom.
+
+    Notes
+    -----
+    k = t(0.975, ν), the two-sided 95 % point of Student's t (``scipy.stats.t.ppf``) for
+    ν = n − 1 when the spread was estimated from n wells (JCGM 100:2008, G.3 and G.6.4;
+    4.30 for n = 3); k = 2 (:data:`COVERAGE_FACTOR`) for ν = inf, a term known with many
+    degrees of freedom. NaN for ν < 1.
+    """
+    if not np.isfinite(dof):
+        return COVERAGE_FACTOR
+    if dof < 1:
+        return float("nan")
+    from scipy.stats import t
+
+    return float(t.ppf(T_LEVEL, dof))
+
+
 def replicate_statistics(values: np.ndarray, u_fit: np.ndarray, *,
                          u_shared: Sequence[np.ndarray] = (),
                          non_negative: bool = False) -> dict[str, float]:
@@ -202,10 +299,12 @@ def replicate_statistics(values: np.ndarray, u_fit: np.ndarray, *,
     dict
         ``n`` (wells with a result), ``mean`` (of ``values``, unconstrained), ``value``
         (the mean, or 0 where ``non_negative`` and the mean is negative), ``at_zero``
-        (whether that happened), ``sd`` (n − 1 denominator; NaN for n < 2), ``cv`` =
-        sd / |mean| (NaN for n < 2 or a zero mean), ``u_fit_rms`` = √mean(u_fit²),
-        ``u_noise`` and ``u_shared`` (the two parts below) and ``std_uncertainty`` of the
-        mean.
+        (whether that happened), ``sd`` (n − 1 denominator; NaN for n < 2),
+        ``cv_percent`` = 100 · sd / |mean| (%; NaN for n < 2 or a zero mean),
+        ``u_fit_rms`` = √mean(u_fit²), ``u_noise`` and ``u_shared`` (the two parts below),
+        ``std_uncertainty`` of the mean, ``dof`` (degrees of freedom of the noise part:
+        n − 1 when the wells' spread sets it, inf when the fit's does), ``coverage_factor``
+        k and ``expanded_uncertainty`` U = k · u (below).
 
     Notes
     -----
@@ -229,6 +328,18 @@ def replicate_statistics(values: np.ndarray, u_fit: np.ndarray, *,
     divided by √n (JCGM 100:2008, 5.2.2 with r = 1: u = Σ cᵢuᵢ, cᵢ = 1/n). A NaN there
     makes the uncertainty NaN.
 
+    Expanded uncertainty: each part keeps its own coverage factor,
+
+        U = √( (k_noise · u_noise)² + (2 · u_shared)² ),   k = U / u(mean)
+
+    with k_noise = t(0.975, n − 1) (Student's t, :func:`coverage_factor`) where the
+    noise part is the wells' spread (SD² above the floor, n ≥ 2): an SD from n wells
+    has n − 1 degrees of freedom, and mean ± 2 SD/√n covers far less than 95 % for small
+    n (JCGM 100:2008, G.3.2 and G.6.4). Where the floor (the fit's variance, from many
+    residuals) sets it, k_noise = 2, as for the shared part, whose library and stray
+    terms are known with many degrees of freedom and keep k = 2. With n = 3 and the
+    spread dominant, k = 4.30.
+
     Bound: the mean of unconstrained estimates is unbiased; averaging values already held
     at zero is not (an absent component's NNLS values are ≥ 0, so their mean is biased
     upwards by about E[max(0, Z)] = 1/√(2π) ≈ 0.4 u_well whatever n). The bound is
@@ -243,16 +354,24 @@ def replicate_statistics(values: np.ndarray, u_fit: np.ndarray, *,
     n = int(x.size)
     nan = float("nan")
     if n == 0:
-        return {"n": 0, "mean": nan, "value": nan, "at_zero": False, "sd": nan, "cv": nan,
-                "u_fit_rms": nan, "u_noise": nan, "u_shared": nan, "std_uncertainty": nan}
+        return {"n": 0, "mean": nan, "value": nan, "at_zero": False, "sd": nan,
+                "cv_percent": nan, "u_fit_rms": nan, "u_noise": nan, "u_shared": nan,
+                "std_uncertainty": nan, "dof": nan, "coverage_factor": nan,
+                "expanded_uncertainty": nan}
     mean = float(x.mean())
     sd = float(x.std(ddof=1)) if n >= 2 else nan
-    cv = sd / abs(mean) if n >= 2 and mean != 0 else nan
+    cv = 100 * sd / abs(mean) if n >= 2 and mean != 0 else nan
     u_rms = float(np.sqrt(np.mean(u**2))) if np.all(np.isfinite(u)) else nan
     variances = [v for v in (sd**2, u_rms**2) if np.isfinite(v)]
     u_noise = float(np.sqrt(max(variances) / n)) if variances else nan
+    # the wells' spread sets the noise part: n - 1 degrees of freedom; the fit's floor: many
+    dof = float(n - 1) if np.isfinite(sd) and not sd**2 < u_rms**2 else float("inf")
     u_common = float(np.sqrt(sum(np.mean(part) ** 2 for part in shared)))
+    u_mean = float(np.hypot(u_noise, u_common))
+    expanded = float(np.hypot(coverage_factor(dof) * u_noise, COVERAGE_FACTOR * u_common))
     at_zero = non_negative and mean < 0
     return {"n": n, "mean": mean, "value": 0.0 if at_zero else mean, "at_zero": at_zero,
-            "sd": sd, "cv": cv, "u_fit_rms": u_rms, "u_noise": u_noise,
-            "u_shared": u_common, "std_uncertainty": float(np.hypot(u_noise, u_common))}
+            "sd": sd, "cv_percent": cv, "u_fit_rms": u_rms, "u_noise": u_noise,
+            "u_shared": u_common, "std_uncertainty": u_mean, "dof": dof,
+            "coverage_factor": expanded / u_mean if u_mean > 0 else nan,
+            "expanded_uncertainty": expanded}

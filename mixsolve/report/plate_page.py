@@ -120,11 +120,22 @@ def _samples_view(samples: pd.DataFrame) -> pd.DataFrame:
         "component": samples["component"],
         "value ± u": [value_with_uncertainty(c, u) for c, u in
                       zip(samples["concentration"], samples["std_uncertainty"], strict=True)],
+        "U (k)": [_expanded_text(c, big_u, k) for c, big_u, k in
+                  zip(samples["concentration"], samples["expanded_uncertainty"],
+                      samples["coverage_factor"], strict=True)],
         "unit": samples["unit"],
         "n": samples["n_wells"],
-        "CV %": 100 * samples["cv"],
+        "CV %": samples["cv_percent"],
         "flags": samples["flags"],
     })
+
+
+def _expanded_text(value: float, expanded: float, k: float) -> str:
+    """``U (k = 4.30)``: the expanded uncertainty, to the digits of ``value ± U``."""
+    if not (np.isfinite(expanded) and np.isfinite(k)):
+        return "n/a"
+    shown = value_with_uncertainty(value if np.isfinite(value) else 0.0, expanded)
+    return f"{shown.split(' ± ')[-1]} (k = {k:.2f})"
 
 
 def plate_page(

@@ -57,7 +57,9 @@ SAMPLE_MEAN_RULE = (
     "u(mean) = sqrt(u_noise^2 + u_shared^2), u_noise = sqrt(max(SD^2, mean(u_fit^2)) / n) "
     "(replicate scatter, with the wells' mean fit variance as a floor), u_shared = the "
     "wells' mean library and stray-light terms (shared by every well, not divided by "
-    "sqrt(n)); n wells with a result, results multiplied by their dilution"
+    "sqrt(n)); n wells with a result, results multiplied by their dilution. Expanded: "
+    "U = sqrt((k_noise u_noise)^2 + (2 u_shared)^2), k_noise = t(0.975, n - 1) of Student's "
+    "t where the wells' scatter sets u_noise (4.30 for 3 wells), else 2; k = U / u"
 )
 
 
@@ -75,7 +77,6 @@ def plate_settings(done: PlateResult) -> dict[str, str]:
         "volume": f"{lengths} from the fill volume and well diameter, b = V / (π (d/2)²)",
         "water band": f"{lengths} per well from the water band, (A(977) − A(900)) / "
                       f"{options.water_k_au_per_cm:g} AU/cm",
-        "default": "1 cm (none given)",
     }[options.pathlength_mode]
     sd = done.blank_sd.values
     blank = "none: nothing subtracted" if not options.blank_wells else (
@@ -109,7 +110,7 @@ def plate_settings(done: PlateResult) -> dict[str, str]:
         "well uncertainty": "std_uncertainty of each well (noise, library, stray light; "
                             "docs/uncertainty.md), times the dilution",
         "sample uncertainty": SAMPLE_MEAN_RULE,
-        "high_cv flag": f"CV > {100 * options.max_cv:g} % for a component whose mean exceeds "
+        "high_cv flag": f"CV > {options.max_cv_percent:g} % for a component whose mean exceeds "
                         "3 × its fit uncertainty",
         "mixsolve": __version__,
     }
@@ -120,10 +121,6 @@ def plate_notes(done: PlateResult) -> list[str]:
     plate, result, wells = done.plate, done.result, done.wells
     mode = done.options.pathlength_mode
     notes = []
-    if mode == "default":
-        notes.append("No pathlength was given, so 1 cm was assumed: microplate wells are "
-                     "usually shorter. Give --pathlength, --volume-ul with "
-                     "--well-diameter-mm, or --water-band.")
     if not done.options.blank_wells:
         notes.append("The layout has no blank wells: nothing was subtracted, so the readings "
                      "are taken as blank-corrected already.")

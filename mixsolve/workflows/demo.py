@@ -145,7 +145,7 @@ def run_demo_plate(out_dir: Path, library: xr.Dataset) -> tuple[PlateBatch, pd.D
                        well_diameter_mm=PLATE_WELL_DIAMETER_MM, window=(400, 700),
                        unit=DEMO_UNIT, bandwidth_nm=2.0)  # as the library's (invented data)
     found = batch.plates[0].samples[["sample", "component", "concentration",
-                                     "std_uncertainty", "n_wells", "cv", "flags"]]
+                                     "std_uncertainty", "n_wells", "cv_percent", "flags"]]
     truth = pd.read_csv(demo_file("plate_truth.csv")).rename(columns={"concentration": "known"})
     table = found.merge(truth[["sample", "component", "known"]], on=["sample", "component"],
                         how="left", validate="one_to_one")

@@ -87,6 +87,34 @@ def find_exports(exports: Sequence[PathLike], *, exclude: Sequence[PathLike] = (
     return found
 
 
+def plate_arguments(paths: Sequence[str], library: str | None, library_from_plate: bool
+                    ) -> tuple[str | None, list[str]]:
+    """The library file and the exports of ``mixsolve plate LIBRARY_FILE EXPORTS...``.
+
+    The library comes first, as for ``mixsolve unmix``; with ``--library-from-plate`` (or
+    the old ``--library LIB``) every path is an export.
+
+    Raises
+    ------
+    InputError
+        No export after the library, or a first path that is an export or a folder (the
+        library was left out).
+    """
+    first = Path(paths[0])
+    if library_from_plate and library is None and first.suffix.lower() == ".nc":
+        raise InputError("give either a library or --library-from-plate, not both")
+    if library_from_plate or library is not None:
+        return library, list(paths)
+    if first.is_dir() or first.suffix.lower() in EXPORT_SUFFIXES:
+        raise InputError(f"{first}: the first path is the library file (.nc), then the "
+                         "exports; give the library first (mixsolve plate LIB.nc EXPORTS...), "
+                         "or build it from the plate with --library-from-plate")
+    if len(paths) < 2:
+        raise InputError(f"no plate export after the library {first}; give "
+                         "mixsolve plate LIB.nc EXPORTS...")
+    return paths[0], list(paths[1:])
+
+
 #: Files written for each plate, in its own subfolder (``library.nc`` only when built there).
 PLATE_FILES = ("wells.csv", "samples.csv", "results.xlsx", "report.html")
 #: The combined table at the top of the output folder.
