@@ -273,14 +273,17 @@ def test_every_flag_code_has_a_fix():
 # --- cubes and the budget CSV ---------------------------------------------------------------
 
 
-def test_netcdf_result_carries_its_provenance(files, cli):
-    """A cube output (.nc) holds the record as its ``provenance`` attribute (JSON)."""
+@pytest.mark.parametrize("suffix", [".nc", ".zarr"])
+def test_cube_result_carries_its_provenance(files, cli, suffix):
+    """A cube output (.nc, .zarr) holds the record as its ``provenance`` attribute (JSON)."""
     pytest.importorskip("dask")
-    out = files["dir"] / "r.nc"
+    if suffix == ".zarr":
+        pytest.importorskip("zarr")
+    out = files["dir"] / f"r{suffix}"
     cli.ok("unmix", files["lib"], files["spectra"], "--out", out)
-    import xarray as xr
+    from mixsolve.workflows.unmix_files import open_result
 
-    with xr.open_dataset(out, engine="h5netcdf") as ds:
+    with open_result(out) as ds:
         prov = json.loads(ds.attrs["provenance"])
     assert prov["library_sha256"] == sha256_of(files["lib"])
     assert prov["spectra"] == [str(files["spectra"])]
