@@ -398,7 +398,7 @@ def test_workbook_and_wide_table_are_staged_with_the_run(cuvette, monkeypatch, c
 
     monkeypatch.setattr(unmix_files, "write_text", failing)
     assert_cli_error(cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", target,
-                         "--table", "wide", "--report", cuvette["dir"] / "page.html"),
+                         "--shape", "wide", "--report", cuvette["dir"] / "page.html"),
                      r"page.html: cannot write the file \(No space left on device\)")
     assert snapshot(cuvette["dir"]) == before
 

@@ -106,8 +106,8 @@ def test_csv_numbers_keep_full_precision(result, tmp_path):
                                   result["std_uncertainty"].values.ravel())
 
 
-@pytest.mark.parametrize(("out", "args"), [("r.csv", []), ("r.csv", ["--table", "tidy"]),
-                                           ("w.csv", ["--table", "wide"]), ("r.xlsx", [])])
+@pytest.mark.parametrize(("out", "args"), [("r.csv", []), ("r.csv", ["--shape", "tidy"]),
+                                           ("w.csv", ["--shape", "wide"]), ("r.xlsx", [])])
 def test_cli_results_read_back_as_the_tidy_table(files, result, cli, out, args):
     """`unmix --out` in each shape, read back with read_results: the tidy table of the
     result (pandas ``assert_frame_equal``), exactly from CSV, to 16 significant digits from
@@ -294,8 +294,8 @@ def test_table_shape_with_a_cube_is_refused(files, cli):
     pytest.importorskip("dask")
     out = files["dir"] / "r.nc"
     assert_cli_error(cli("unmix", files["lib"], files["spectra"], "--out", out,
-                         "--table", "wide"),
-                     r"table: 'wide' shapes a CSV; a cube \(r.nc\) holds the whole result")
+                         "--shape", "wide"),
+                     r"shape: 'wide' shapes a CSV; a cube \(r.nc\) holds the whole result")
     assert not out.exists()
 
 

@@ -68,14 +68,14 @@ def unmix_files(library: PathLike, spectra: Spectra, *,
                 measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                 scheduler: str | None = None, workers: int | None = None,
                 progress: TextIO | None = None, quantity: Quantity | None = None,
-                notes: TextIO | None = None, table: Shape = "tidy",
+                notes: TextIO | None = None, shape: Shape = "tidy",
                 **options: Any) -> xr.Dataset:
     """Read both files, run :func:`mixsolve.unmix`, write ``out`` when given.
 
     ``out`` by its suffix (docs/formats.md, "Results files"): ``.xlsx`` a results
     workbook (sheets results (wide), tidy, flags explained, run notes, settings;
     :func:`mixsolve.report.tables.results_sheets`); ``.zarr`` or ``.nc`` the whole result
-    as a cube; anything else a CSV, tidy or wide as ``table`` says
+    as a cube; anything else a CSV, tidy or wide as ``shape`` says
     (:func:`mixsolve.results_table`), numbers at full precision. Every output carries the
     run's provenance (:func:`mixsolve.io.provenance.run_provenance`: version, library and
     its SHA-256, spectra files, settings, UTC date): ``#`` lines above a CSV, the settings
@@ -120,8 +120,8 @@ def unmix_files(library: PathLike, spectra: Spectra, *,
             library, spectra, window=window, wavelengths=wavelengths, method=method,
             baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, out=out,
             report=report, measurement=measurement, scheduler=scheduler, workers=workers,
-            progress=progress, quantity=quantity, notes=notes, table=table, **options)
-    check_option(table, SHAPES, "table")
+            progress=progress, quantity=quantity, notes=notes, shape=shape, **options)
+    check_option(shape, SHAPES, "shape")
     extra = measurement_options(measurement)
     # Before any work: a bad path costs nothing, and no output may overwrite an input.
     guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
@@ -129,7 +129,7 @@ def unmix_files(library: PathLike, spectra: Spectra, *,
         return _unmix_table(library, spectra, extra, window=window, wavelengths=wavelengths,
                             method=method, baseline=baseline, pathlength_cm=pathlength_cm,
                             unit=unit, out=out, report=report, quantity=quantity,
-                            notes=notes, table=table, **options)
+                            notes=notes, shape=shape, **options)
 
 
 def _spectra_argument(library: PathLike, spectra: Spectra) -> PathLike | list[PathLike]:
@@ -178,7 +178,7 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
                  window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
                  method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
                  out: PathLike | None, report: PathLike | None, quantity: Quantity | None,
-                 notes: TextIO | None = None, table: Shape = "tidy",
+                 notes: TextIO | None = None, shape: Shape = "tidy",
                  **options: Any) -> xr.Dataset:
     """:func:`unmix_files` for a table in memory; the caller guards and stages the outputs."""
     budget_rows = None
@@ -227,7 +227,7 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
                             budget=attached_budget(result) if budget_rows is not None
                             else None)
     if out is not None:
-        write_results_file(result, out, table, provenance)
+        write_results_file(result, out, shape, provenance)
     if page is not None:
         write_text(page, report)  # type: ignore[arg-type]
     if budget_rows is not None:
@@ -235,14 +235,14 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
     return result
 
 
-def write_results_file(result: xr.Dataset, out: PathLike, table: Shape,
+def write_results_file(result: xr.Dataset, out: PathLike, shape: Shape,
                        provenance: Mapping[str, Any]) -> None:
     """Write a table result as ``out`` says: a workbook (``.xlsx``) or a tidy or wide CSV,
     with its provenance (inside the run's staging)."""
     if Path(out).suffix.lower() == WORKBOOK_SUFFIX:
         write_workbook(results_sheets(result, provenance), out)
     else:
-        write_results(results_table(result, shape=table), out, provenance)
+        write_results(results_table(result, shape=shape), out, provenance)
 
 
 def _read(spectra: Spectra, quantity: Quantity | None, notes: TextIO | None) -> xr.DataArray:
@@ -261,7 +261,7 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
                      measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                      scheduler: str | None = None, workers: int | None = None,
                      progress: TextIO | None = None, quantity: Quantity | None = None,
-                     notes: TextIO | None = None, table: Shape = "tidy",
+                     notes: TextIO | None = None, shape: Shape = "tidy",
                      **options: Any) -> xr.Dataset:
     """Unmix a spectra cube (or a table) on dask, chunk by chunk, into a cube or a table.
 
@@ -274,13 +274,13 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
         ``.zarr`` or ``.nc``: the whole result Dataset, written as it is computed (memory
         holds a few chunks), its provenance in the ``provenance`` attribute; anything
         else: the results table as for :func:`unmix_files` (``.xlsx`` a workbook, else a
-        CSV shaped by ``table``).
+        CSV shaped by ``shape``).
     scheduler, workers
         An existing dask.distributed scheduler's address, or a local cluster of this many
         worker processes (:func:`mixsolve.workflows.cluster.dask_client`); default dask's threads.
     progress : text stream, optional
         Where the progress bar of a long run goes (the CLI passes stderr).
-    window, wavelengths, method, baseline, pathlength_cm, unit, measurement, quantity, table,
+    window, wavelengths, method, baseline, pathlength_cm, unit, measurement, quantity, shape,
     options
         As for :func:`unmix_files`; the uncertainty budget, the HTML report and PLS models
         are not available for cubes.
@@ -292,9 +292,9 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
         computed result without the ``fitted`` and ``residual`` spectra.
     """
     spectra = _spectra_argument(library, spectra)
-    check_option(table, SHAPES, "table")
-    if table != "tidy" and out is not None and is_cube_path(out):
-        raise InputError(f"table: {table!r} shapes a CSV; a cube ({Path(out).name}) holds "
+    check_option(shape, SHAPES, "shape")
+    if shape != "tidy" and out is not None and is_cube_path(out):
+        raise InputError(f"shape: {shape!r} shapes a CSV; a cube ({Path(out).name}) holds "
                          "the whole result; write .csv or .xlsx for a table")
     _require_scale(spectra, out)
     extra = measurement_options(measurement)
@@ -310,7 +310,7 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
         result = _unmix_cube(library, spectra, extra, window=window, wavelengths=wavelengths,
                              method=method, baseline=baseline, pathlength_cm=pathlength_cm,
                              unit=unit, out=out, scheduler=scheduler, workers=workers,
-                             progress=progress, quantity=quantity, notes=notes, table=table,
+                             progress=progress, quantity=quantity, notes=notes, shape=shape,
                              **options)
     if out is not None and is_cube_path(out) and not in_run():
         return open_result(out)  # the written store, now in place
@@ -323,7 +323,7 @@ def _unmix_cube(library: PathLike, spectra: PathLike | list[PathLike],
                 method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
                 out: PathLike | None, scheduler: str | None, workers: int | None,
                 progress: TextIO | None, quantity: Quantity | None,
-                notes: TextIO | None = None, table: Shape = "tidy",
+                notes: TextIO | None = None, shape: Shape = "tidy",
                 **options: Any) -> xr.Dataset:
     """:func:`unmix_cube_files` once checked; the caller guards and stages the outputs."""
     lib = read_library(library)
@@ -345,7 +345,7 @@ def _unmix_cube(library: PathLike, spectra: PathLike | list[PathLike],
             return result.drop_vars(["fitted", "residual"])  # opened from the file below
         small = run(result.drop_vars(["fitted", "residual"]))
     if out is not None:
-        write_results_file(small, out, table, provenance)
+        write_results_file(small, out, shape, provenance)
     return small
 
 
