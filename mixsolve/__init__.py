@@ -43,6 +43,7 @@ _LAZY: dict[str, str] = {
     "read_library": "mixsolve.io.library_store",
     "read_model": "mixsolve.io.model_store",
     "read_plate": "mixsolve.io.plates",
+    "read_results": "mixsolve.io.results_io",
     "read_spectra": "mixsolve.io.spectra_io",
     "repeatability": "mixsolve.instrument.repeatability",
     "resample_library": "mixsolve.library",
@@ -66,6 +67,7 @@ if TYPE_CHECKING:
     from mixsolve.io.library_store import read_library, write_library
     from mixsolve.io.model_store import read_model, write_model
     from mixsolve.io.plates import read_plate
+    from mixsolve.io.results_io import read_results
     from mixsolve.io.spectra_io import read_spectra
     from mixsolve.library import build_library, import_absorptivities, resample_library
     from mixsolve.noise import NoiseModel
@@ -129,6 +131,7 @@ __all__ = [
     "read_library",
     "read_model",
     "read_plate",
+    "read_results",
     "read_spectra",
     "repeatability",
     "resample_library",

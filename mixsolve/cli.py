@@ -732,7 +732,13 @@ def library_show(library_file: str) -> None:
 @click.option("--wavelength-tolerance", type=float, show_default=True,
               default=CoreDefault(UNMIX, "wavelength_tolerance_nm"),
               help="Instrument wavelength accuracy (nm) for the shift_risk run note.")
-@click.option("--out", help="Results to write: a tidy CSV, or a .zarr or .nc cube.")
+@click.option("--out", help="Results to write, by suffix: .csv (shaped by --shape), .xlsx "
+              "(workbook: wide and tidy tables, flags, run notes, settings), .zarr or .nc "
+              "(cube); each with its provenance.")
+@click.option("--shape", type=CoreChoice("mixsolve.report.tables:SHAPES"), show_default=True,
+              default=CoreDefault("mixsolve.workflows.unmix_files:unmix_files", "shape"),
+              help="Shape of a CSV --out: one row per sample × component (tidy) or per "
+              "sample (wide).")
 @click.option("--report", help="HTML page to write: settings, results, notes and figures.")
 @click.option("--scheduler", help="Run on this dask.distributed scheduler (tcp://HOST:PORT).")
 @click.option("--workers", type=int, help="Run on a local dask cluster of N worker processes.")
@@ -744,7 +750,7 @@ def unmix(library_file: str, spectra: tuple[str, ...], window: tuple[float, floa
           reference_wavelength: float | None,
           pathlength: float | None, unit: str | None, weights: str, noise: str | float | None,
           absorbance_range: tuple[float, float], fit_shift: bool,
-          max_shift: float, wavelength_tolerance: float, out: str | None,
+          max_shift: float, wavelength_tolerance: float, out: str | None, shape: str,
           report: str | None, scheduler: str | None, workers: int | None,
           quantity: str | None, bandwidth_nm: float | None, **measurement: Any) -> None:
     """Resolve SPECTRA into concentrations with the library (or PLS model) LIBRARY_FILE.
@@ -769,7 +775,8 @@ def unmix(library_file: str, spectra: tuple[str, ...], window: tuple[float, floa
                          bandwidth_nm=bandwidth_nm, measurement=measurement,
                          scheduler=scheduler, workers=workers,
                          progress=sys.stderr, quantity=quantity,  # type: ignore[arg-type]
-                         notes=sys.stderr, reference_wavelength_nm=reference_wavelength)
+                         notes=sys.stderr, reference_wavelength_nm=reference_wavelength,
+                         shape=shape)  # type: ignore[arg-type]
     click.echo(format_unmix(result) + budget_text(result), nl=False)
     if out:
         click.echo(f"wrote {out}", err=True)

@@ -303,3 +303,55 @@ def add_run_notes(attrs: dict, notes: list[RunNote]) -> None:
 def run_notes_of(attrs: Mapping) -> list[RunNote]:
     """The run notes kept in a result's attrs (an empty list when there are none)."""
     return [RunNote(**n) for n in json.loads(attrs.get(RUN_NOTES_ATTR) or "[]")]
+
+
+#: What to do about each flag code, in one clause (the "what to do" column of docs/flags.md,
+#: docs/plates.md and docs/calibration.md); the flags sheet of a results workbook shows it.
+FLAG_FIXES: dict[str, str] = {
+    STATUS_CODES[MISSING]: "check the instrument export",
+    STATUS_CODES[TOO_FEW]: "re-measure the sample",
+    STATUS_CODES[DEPENDENT]: "re-measure the sample",
+    STATUS_CODES[NO_DOF]: "measure more wavelengths than components, or take the uncertainty "
+                          "from replicate measurements",
+    STATUS_CODES[ABOVE_RANGE]: "dilute by about suggested_dilution and measure again",
+    STATUS_CODES[BELOW_RANGE]: "use a longer cell or less dilution",
+    STATUS_CODES[NO_SIGNAL]: "measure the sample; check the export",
+    STATUS_CODES[LACK_OF_FIT]: "look at the residual: a missing absorber, scatter, the wrong "
+                               "library or noise model",
+    STATUS_CODES[TOO_DARK]: "dilute or use a shorter cell",
+    STATUS_CODES[ILL_CONDITIONED]: "re-measure the sample",
+    STATUS_CODES[STRUCTURED]: "a missing absorber, scatter (--baseline linear or scatter) or a "
+                              "wavelength shift (--fit-shift)",
+    STATUS_CODES[SCATTER]: "a turbid sample: clarify (centrifuge, filter) if the scatter is "
+                           "large beside the absorbance",
+    STATUS_CODES[UNMODELLED_SCATTER]: "--baseline scatter, or --reference-wavelength where "
+                                      "nothing absorbs; clarify the sample",
+    AT_ZERO: "usually absent; if it should be present, check the residual, the library, a "
+             "baseline (--baseline offset) or a wavelength shift",
+    NEGATIVE: "probably absent, or the model misses something; consider --method nnls",
+    SHIFT_SENSITIVE: "as the run note shift_risk: check the wavelength scale",
+    STATUS_CODES[SHIFTED]: "check the wavelength scale (mixsolve instrument wavelength); "
+                           "correct it with --wavelength-offset",
+    STATUS_CODES[SATURATED]: "dilute or use a shorter cell and measure again",
+    MARKER: "dilute or re-read the wells; check the export",
+    NO_PATHLENGTH: "check the water band readings, or state the pathlength or volume",
+    NOT_READ: "check the export and the layout",
+    NOT_IN_LAYOUT: "add the well to the layout if it holds a sample",
+    EMPTY_WELL: "nothing to do if the well is empty",
+    NO_RESULT: "see the flags of the sample's wells",
+    WELLS_WITHOUT_RESULT: "see the flags of the wells left out",
+    SINGLE_WELL: "measure replicate wells for an SD",
+    HIGH_CV: "look at the wells: a pipetting error, a bubble, an outlier",
+    T2_ABOVE_95: "compare with the calibration mixtures",
+    T2_ABOVE_99: "outside the calibration: extend the calibration or use CLS",
+    Q_ABOVE_95: "look at the spectrum's residual",
+    Q_ABOVE_99: "a feature the calibration does not explain: check the sample, extend the "
+                "calibration",
+    OUTSIDE_RANGE: "dilute into the calibrated range, or extend the calibration",
+    INCOMPLETE_SPECTRUM: "re-measure the sample over the model's wavelengths",
+}
+
+
+def flag_fix(code: str) -> str:
+    """What to do about one flag code such as ``at_zero:rose`` ("" for an unknown code)."""
+    return FLAG_FIXES.get(code.partition(":")[0], "")

@@ -334,7 +334,7 @@ def test_cli_budget_writes_the_table_and_reports_top_contributors(files, tmp_pat
               "--dilution", "1/10", "--carryover", "15", "--stray", "1e-4",
               "--wavelength-tolerance", "1", "--monte-carlo", "1000")
     assert run.exit_code == 0, run.output
-    table = pd.read_csv(out)
+    table = pd.read_csv(out, comment="#")
     assert len(table) == 2 * 2 * len(SOURCES)
     assert table["value"].iloc[0] == pytest.approx(10 * 2.0e-5, rel=0.05)
     assert "Uncertainty budget (JCGM 100:2008)" in run.stdout
@@ -374,7 +374,7 @@ def test_cli_repeat_scans_are_the_type_a_noise(files, tmp_path, rng, cli) -> Non
     assert "noise         repeat scans" in run.stdout
 
     def noise(path):
-        table = pd.read_csv(path)
+        table = pd.read_csv(path, comment="#")
         return table[table["source"] == "spectral_noise"]["contribution"].to_numpy()
 
     assert np.all(noise(tmp_path / "rep.csv") > 1.3 * noise(tmp_path / "fit.csv"))

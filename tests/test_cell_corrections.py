@@ -141,7 +141,7 @@ def test_blank_with_a_missing_reading_is_refused(wl_grid) -> None:
 
 def read_conc(path) -> pd.DataFrame:
     """Results CSV → concentration table (sample × component)."""
-    table = pd.read_csv(path, keep_default_na=False, dtype={"flags": str})
+    table = pd.read_csv(path, comment="#", keep_default_na=False, dtype={"sample_flags": str})
     return table.pivot(index="sample", columns="component", values="concentration")
 
 
@@ -161,7 +161,7 @@ def test_cli_cell_blank_and_ratio(tmp_path, cli) -> None:
     for name, mix in MIXTURES.items():
         for comp in BANDS:
             assert conc.loc[name, comp] == pytest.approx(mix[comp], rel=1e-3)
-    budget = pd.read_csv(tmp_path / "b.csv")
+    budget = pd.read_csv(tmp_path / "b.csv", comment="#")
     ratio_rows = budget[budget["source"] == "cell_ratio"]
     assert np.all(ratio_rows["contribution"] > 0)
     assert np.all(budget[budget["source"] == "cell_blank"]["contribution"] > 0)
@@ -210,7 +210,7 @@ def test_cli_offset_uncertainty_replaces_the_tolerance_in_the_budget(tmp_path, c
               "--cell-blank", blank, "--wavelength-offset", "0.8±0.05",
               "--budget", tmp_path / "b.csv")
     assert run.exit_code == 0, run.output
-    budget = pd.read_csv(tmp_path / "b.csv")
+    budget = pd.read_csv(tmp_path / "b.csv", comment="#")
     rows = budget[budget["source"] == "wavelength"]
     assert np.allclose(rows["input_uncertainty"], 0.05)
     assert set(rows["distribution"]) == {"normal"}

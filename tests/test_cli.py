@@ -33,12 +33,14 @@ from helpers_io import (
 
 import mixsolve as ms
 
-RESULT_COLUMNS = ["sample", "component", "concentration", "std_uncertainty", "unit", "flags"]
+RESULT_COLUMNS = ["sample", "component", "concentration", "std_uncertainty", "unit",
+                  "sample_flags"]
 
 
 def read_results(path) -> pd.DataFrame:
-    """Parse a results CSV; empty flags stay empty strings."""
-    table = pd.read_csv(path, dtype={"flags": str, "sample": str}, keep_default_na=False,
+    """Parse a results CSV (its `#` provenance lines skipped); empty flags stay empty."""
+    table = pd.read_csv(path, dtype={"sample_flags": str, "sample": str}, comment="#",
+                        keep_default_na=False,
                         na_values={"concentration": ["nan"], "std_uncertainty": ["nan"]})
     return table
 
@@ -246,12 +248,12 @@ def test_unmix_out_csv(tmp_path, files, cli):
     assert result.stderr == f"wrote {out}\n"
     table = read_results(out)
     assert list(table.columns[: len(RESULT_COLUMNS) - 1]) == RESULT_COLUMNS[:-1]
-    assert "flags" in table.columns
+    assert "sample_flags" in table.columns
     assert len(table) == 4
     assert list(table["sample"]) == ["mix_1", "mix_1", "mix_2", "mix_2"]
     assert list(table["component"]) == ["red", "blue", "red", "blue"]
     assert set(table["unit"]) == {"mol/L"}
-    assert (table["flags"] == "").all()
+    assert (table["sample_flags"] == "").all()
     for sample, truth in MIXTURES.items():
         for component, value in truth.items():
             assert conc(table, sample, component) == pytest.approx(value, rel=0.05)
@@ -317,7 +319,7 @@ def test_unmix_methods_and_flags(tmp_path, files, cli):
     result = cli.ok("unmix", files["lib"], files["flagged"], "--out", nnls)
     assert "at_zero:blue" in result.stdout
     table = read_results(nnls)
-    flags = dict(zip(table["sample"], table["flags"], strict=False))
+    flags = dict(zip(table["sample"], table["sample_flags"], strict=False))
     assert flags["clean"] == ""
     assert "at_zero:blue" in flags["odd"].split(";")
     assert conc(table, "odd", "blue") == 0.0
@@ -325,7 +327,7 @@ def test_unmix_methods_and_flags(tmp_path, files, cli):
     result = cli.ok("unmix", files["lib"], files["flagged"], "--method", "ols", "--out", ols)
     assert result.stdout.startswith("Concentrations by classical least squares (ols,")
     table = read_results(ols)
-    flags = dict(zip(table["sample"], table["flags"], strict=False))
+    flags = dict(zip(table["sample"], table["sample_flags"], strict=False))
     assert flags["clean"] == ""
     assert "negative:blue" in flags["odd"].split(";")
     assert "at_zero:blue" not in flags["odd"]
@@ -408,7 +410,7 @@ def test_unmix_missing_readings_are_flagged(tmp_path, files, cli):
     out = tmp_path / "r.csv"
     cli.ok("unmix", files["lib"], spectra, "--out", out)
     table = read_results(out)
-    flags = dict(zip(table["sample"], table["flags"], strict=False))
+    flags = dict(zip(table["sample"], table["sample_flags"], strict=False))
     assert flags["mix_1"] == "missing_readings"
     assert flags["mix_2"] == ""
 

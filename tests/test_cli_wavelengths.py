@@ -79,7 +79,8 @@ def files(tmp_path_factory):
 
 def read_csv(path) -> pd.DataFrame:
     """A results CSV with empty flags kept as empty strings."""
-    return pd.read_csv(path, dtype={"flags": str, "sample": str}, keep_default_na=False)
+    return pd.read_csv(path, dtype={"sample_flags": str, "sample": str}, comment="#",
+                       keep_default_na=False)
 
 
 # --- wavelengths check ---------------------------------------------------------------------
@@ -316,7 +317,7 @@ def test_unmix_range_flags_through_the_cli(files, tmp_path, cli):
     """--range sets the reliable range: the 4× sample is above it, the 0.2× below it."""
     out = tmp_path / "range.csv"
     result = cli.ok("unmix", files["lib"], files["plain"], "--range", "0.3-1.5", "--out", out)
-    flags = read_csv(out).groupby("sample")["flags"].first()
+    flags = read_csv(out).groupby("sample")["sample_flags"].first()
     assert "above_range" in flags["strong"]
     assert "below_range" in flags["weak"]
     assert "range" not in flags["mid"]
@@ -331,9 +332,9 @@ def test_unmix_noise_model_flags_lack_of_fit_through_the_cli(files, tmp_path, cl
     """
     out = tmp_path / "lof.csv"
     cli.ok("unmix", files["lib"], files["noisy"], "--noise", "benchtop_double_beam", "--out", out)
-    assert all("lack_of_fit" in f for f in read_csv(out)["flags"])
+    assert all("lack_of_fit" in f for f in read_csv(out)["sample_flags"])
     cli.ok("unmix", files["lib"], files["noisy"], "--noise", "0.02", "--out", out)
-    assert not any("lack_of_fit" in f for f in read_csv(out)["flags"])
+    assert not any("lack_of_fit" in f for f in read_csv(out)["sample_flags"])
 
 
 def test_unmix_noise_weights_through_the_cli(files, tmp_path, cli):

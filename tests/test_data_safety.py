@@ -385,6 +385,26 @@ def test_ctrl_c_exits_130_with_one_line_and_changes_nothing(cuvette, monkeypatch
     assert snapshot(cuvette["dir"]) == before
 
 
+@pytest.mark.parametrize("out", ["results.xlsx", "wide.csv"])
+def test_workbook_and_wide_table_are_staged_with_the_run(cuvette, monkeypatch, cli, out):
+    """A results workbook or a wide CSV with its provenance is staged like any output: the
+    report failing after it leaves no file, and an earlier file of that name as it was."""
+    import mixsolve.workflows.unmix_files as unmix_files
+
+    target = cuvette["dir"] / out
+    target.write_bytes(b"an earlier result\n")
+    before = snapshot(cuvette["dir"])
+
+    def failing(text, path):
+        raise OutputError(f"{path}: cannot write the file (No space left on device)")
+
+    monkeypatch.setattr(unmix_files, "write_text", failing)
+    assert_cli_error(cli("unmix", cuvette["lib"], cuvette["spectra"], "--out", target,
+                         "--shape", "wide", "--report", cuvette["dir"] / "page.html"),
+                     r"page.html: cannot write the file \(No space left on device\)")
+    assert snapshot(cuvette["dir"]) == before
+
+
 def test_a_swallowed_ctrl_c_still_commits_nothing(tmp_path):
     """A Ctrl-C that some callback swallowed ('Exception ignored in ...') is noted; the run
     then moves nothing into place and ends as interrupted."""

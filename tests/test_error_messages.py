@@ -402,7 +402,10 @@ def test_failed_write_keeps_previous_results(tmp_path, inputs, monkeypatch, cli)
     out.write_text("previous results\n")
 
     def full_disk(self, path, *args, **kwargs):
-        Path(path).write_text("sample,comp")
+        if hasattr(path, "write"):  # an open file (after the provenance lines)
+            path.write("sample,comp")
+        else:
+            Path(path).write_text("sample,comp")
         raise OSError(28, "No space left on device")
 
     monkeypatch.setattr(pd.DataFrame, "to_csv", full_disk)

@@ -183,7 +183,7 @@ def test_the_command_line_reports_what_the_api_does(tmp_path, cli, rng) -> None:
            str(tmp_path / "sheet.csv"), "--out", str(tmp_path / "lab.nc"))
     cli.ok("unmix", str(tmp_path / "lab.nc"), str(tmp_path / "samples.csv"), "--unit", "mg/L",
            "--out", str(tmp_path / "results.csv"))
-    table = pd.read_csv(tmp_path / "results.csv").set_index(["sample", "component"])
+    table = pd.read_csv(tmp_path / "results.csv", comment="#").set_index(["sample", "component"])
     api = ms.unmix(ms.read_spectra(tmp_path / "samples.csv"),
                    ms.read_library(tmp_path / "lab.nc"), unit="mg/L")
     expected = ms.results_table(api).set_index(["sample", "component"])

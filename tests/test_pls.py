@@ -401,7 +401,7 @@ def test_results_table_of_a_prediction(model, calibration) -> None:
     table = ms.results_table(ms.predict(spectra.isel(sample=[0, 1]), model))
     assert list(table.columns) == [
         "sample", "component", "concentration", "std_uncertainty", "unit", "rms_residual_au",
-        "dof", "flags", "t2", "t2_limit_95", "t2_limit_99", "q_residual", "q_limit_95",
+        "dof", "sample_flags", "t2", "t2_limit_95", "t2_limit_99", "q_residual", "q_limit_95",
         "q_limit_99"]
     assert table["dof"].tolist() == [24 - 3 - 1] * 6
     assert (table["t2_limit_99"] > table["t2_limit_95"]).all()

@@ -134,4 +134,4 @@ def test_ill_conditioned_only_where_missing_readings_spoil_the_sample_design():
     status = result["status"].values
     assert [bool(s & ILL_CONDITIONED) for s in status] == [False, True, False]
     assert result["flags"].values[1].split(";") == ["missing_readings", "ill_conditioned"]
-    assert ms.results_table(result)["flags"].iloc[2] == "ill_conditioned;missing_readings"
+    assert ms.results_table(result)["sample_flags"].iloc[2] == "ill_conditioned;missing_readings"

@@ -85,7 +85,7 @@ def test_shift_risk_is_said_once_with_its_size_and_not_on_rows(flank_run):
                 f"{100 * np.median(moves[:, k]):.2g} %)")
         assert (size in notes[0].text) == (name in said), (size, notes[0].text)
     assert not any("shift_sensitive" in f for f in result["flags"].values)
-    assert not any("shift_sensitive" in f for f in ms.results_table(result)["flags"])
+    assert not any("shift_sensitive" in f for f in ms.results_table(result)["sample_flags"])
 
 
 def test_reports_show_each_run_note_once_in_their_header(flank_run):
@@ -146,7 +146,7 @@ def test_flags_column_is_ordered_doubtful_first(flank_run):
                       window=FLANKS, noise=0.002)
     assert result["flags"].values[0].split(";")[:2] == ["missing_readings", "lack_of_fit"]
     table = ms.results_table(result)
-    assert table["flags"].iloc[0].split(";")[:2] == ["lack_of_fit", "missing_readings"]
+    assert table["sample_flags"].iloc[0].split(";")[:2] == ["lack_of_fit", "missing_readings"]
 
 
 def test_old_result_with_shift_sensitive_rows_is_still_explained(flank_run):

@@ -250,7 +250,8 @@ def test_cli_scatter_and_reference(cli, tmp_path, library: xr.Dataset) -> None:
     out = cli.ok("unmix", str(lib_path), str(spec_path), "--window", "400-700",
                  "--baseline", "scatter", "--reference-wavelength", "750", "--out", str(table))
     assert "baseline scatter" in out.output and "scatter" in out.output.split("flags")[1]
-    header = table.read_text().splitlines()[0].split(",")
+    header = next(ln for ln in table.read_text().splitlines()  # after the '#' lines
+                  if not ln.startswith("#")).split(",")
     assert {"scatter_exponent", "u_scatter_exponent", "scatter_amplitude",
             "u_scatter_amplitude"} <= set(header)
     bad = cli("unmix", str(lib_path), str(spec_path), "--window", "400-700",

@@ -293,8 +293,8 @@ def test_cli_stray_corrects_like_the_api(rng, tmp_path, cli) -> None:
            "--unit", "mg/L", "--out", tmp_path / "r.csv")
     cli.ok("unmix", tmp_path / "lib.nc", tmp_path / "s.csv", "--unit", "mg/L",
            "--out", tmp_path / "raw.csv")
-    table = pd.read_csv(tmp_path / "r.csv").set_index(["sample", "component"])
-    raw = pd.read_csv(tmp_path / "raw.csv").set_index(["sample", "component"])
+    table = pd.read_csv(tmp_path / "r.csv", comment="#").set_index(["sample", "component"])
+    raw = pd.read_csv(tmp_path / "raw.csv", comment="#").set_index(["sample", "component"])
     want = api["concentration"].to_series()
     got = table["concentration"].reindex(want.index)
     np.testing.assert_allclose(got.values, want.values, rtol=1e-5)  # 6 digits in the CSV

@@ -2,7 +2,8 @@
 and an optional ``group``.
 
 The layout is that of the tidy results CSV, so the results of one run can serve as the
-reference of another; other columns (``std_uncertainty``, ``flags`` ...) are ignored. The
+reference of another (its ``#`` provenance lines skipped; a results workbook read from its
+``tidy`` sheet); other columns (``std_uncertainty``, ``sample_flags`` ...) are ignored. The
 apostrophe mixsolve puts before a CSV name that would start a spreadsheet formula
 (:mod:`mixsolve.io.cell_text`) is removed, so ``=a`` written as ``'=a`` reads back as ``=a``.
 """
@@ -15,10 +16,17 @@ import pandas as pd
 
 from mixsolve.errors import FileFormatError
 from mixsolve.io.cell_text import unquote_cell
+from mixsolve.io.results_io import tidy_sheet
 from mixsolve.io.tables import header_names, parse_number, read_table
 from mixsolve.names import check_spellings
 
 REQUIRED = ("sample", "component", "concentration", "unit")
+
+
+def _has_columns(cells: list[str]) -> bool:
+    """The header row: it names every required column."""
+    names = {c.strip().lower() for c in cells}
+    return all(c in names for c in REQUIRED)
 
 
 def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) -> pd.DataFrame:
@@ -40,7 +48,9 @@ def read_reference(path: str | os.PathLike[str], *, sheet: str | None = None) ->
         component name (``mix 1`` and ``mix 1 ``, ``Red`` and ``red``) are refused,
         naming both and their lines (:func:`mixsolve.names.check_spellings`).
     """
-    table = read_table(path, sheet=sheet, keep_spaces=True)  # names as written
+    # names as written; '#' lines (a results CSV's provenance) and a preamble skipped
+    table = read_table(path, sheet=sheet if sheet is not None else tidy_sheet(path),
+                       keep_spaces=True, find_header=_has_columns)
     names = header_names(table, REQUIRED, "a reference table", optional_note="optional: group")
     cols = {c: names.index(c) for c in (*REQUIRED, *(["group"] if "group" in names else []))}
     records = []

@@ -58,6 +58,7 @@ def value_with_uncertainty(value: float, u: float) -> str:
     if scale < 1e-3 or scale >= 1e6:
         exponent = int(np.floor(np.log10(scale)))
         value, u = value / 10.0**exponent, u / 10.0**exponent
+    u = float(f"{u:.2g}")  # two significant digits first: 0.0996 is 0.10, not 0.100
     decimals = max(0, 1 - int(np.floor(np.log10(u))))
     if decimals > 8:  # u negligible against the value (noise-free data): no long digit runs
         text = f"{value:.6g} ± {u:.2g}"

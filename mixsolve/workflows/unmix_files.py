@@ -1,4 +1,5 @@
-"""Unmix spectra files with a library file, optionally writing the tidy results CSV.
+"""Unmix spectra files with a library file, optionally writing the results (a tidy or wide
+CSV, a workbook, or a cube), each with its provenance (:mod:`mixsolve.io.provenance`).
 
 A PLS model file (``mixsolve calibrate``) is recognised by its ``mixsolve_kind`` attribute
 and used in place of a library: the spectra are then predicted by the model.
@@ -11,7 +12,7 @@ import inspect
 import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any, TextIO
+from typing import Any, Literal, TextIO
 
 import xarray as xr
 
@@ -20,18 +21,20 @@ from mixsolve.io.cubes import NETCDF_ENGINE, chunk_plan, is_cube_path, read_cube
 from mixsolve.io.library_store import read_library
 from mixsolve.io.model_store import file_kind, read_model
 from mixsolve.io.outputs import all_or_nothing, guard_outputs, in_run
-from mixsolve.io.results_io import write_table, write_text
+from mixsolve.io.provenance import run_provenance, with_provenance
+from mixsolve.io.results_io import write_results, write_text, write_workbook
 from mixsolve.io.spectra_io import (
     SPECTRA_SUFFIXES,
     one_or_many,
     read_spectra,
     spectra_inputs,
+    spectra_paths,
     write_notes,
 )
 from mixsolve.pls.model import MODEL_KIND
-from mixsolve.report.tables import results_table
+from mixsolve.report.tables import SHAPES, results_sheets, results_table
 from mixsolve.solve.unmix import unmix
-from mixsolve.spectra import Quantity
+from mixsolve.spectra import Quantity, check_option
 from mixsolve.workflows.cluster import compute, dask_client, require_scale
 from mixsolve.workflows.measurement import (
     Corrections,
@@ -51,6 +54,9 @@ Spectra = PathLike | Sequence[PathLike]
 LS_ONLY = ("window", "wavelengths", "baseline", "method", "weights", "noise", "fit_shift",
            "absorbance_range", "max_shift_nm", "wavelength_tolerance_nm", "stray_fraction",
            "u_stray_fraction", "bandwidth_nm", "reference_wavelength_nm")
+#: Suffix of a results workbook output (any other non-cube suffix: a CSV).
+WORKBOOK_SUFFIX = ".xlsx"
+Shape = Literal["tidy", "wide"]
 
 
 def unmix_files(library: PathLike, spectra: Spectra, *,
@@ -62,8 +68,19 @@ def unmix_files(library: PathLike, spectra: Spectra, *,
                 measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                 scheduler: str | None = None, workers: int | None = None,
                 progress: TextIO | None = None, quantity: Quantity | None = None,
-                notes: TextIO | None = None, **options: Any) -> xr.Dataset:
-    """Read both files, run :func:`mixsolve.unmix`, write ``out`` (CSV) when given.
+                notes: TextIO | None = None, shape: Shape = "tidy",
+                **options: Any) -> xr.Dataset:
+    """Read both files, run :func:`mixsolve.unmix`, write ``out`` when given.
+
+    ``out`` by its suffix (docs/formats.md, "Results files"): ``.xlsx`` a results
+    workbook (sheets results (wide), tidy, flags explained, run notes, settings;
+    :func:`mixsolve.report.tables.results_sheets`); ``.zarr`` or ``.nc`` the whole result
+    as a cube; anything else a CSV, tidy or wide as ``shape`` says
+    (:func:`mixsolve.results_table`), numbers at full precision. Every output carries the
+    run's provenance (:func:`mixsolve.io.provenance.run_provenance`: version, library and
+    its SHA-256, spectra files, settings, UTC date): ``#`` lines above a CSV, the settings
+    sheet, the cube's ``provenance`` attribute; the returned result holds it in
+    ``attrs["provenance"]``.
 
     ``spectra`` is one file, a folder or a glob, or a list of them
     (:func:`mixsolve.read_spectra`); ``notes`` receives what reading skipped or decided
@@ -103,7 +120,8 @@ def unmix_files(library: PathLike, spectra: Spectra, *,
             library, spectra, window=window, wavelengths=wavelengths, method=method,
             baseline=baseline, pathlength_cm=pathlength_cm, unit=unit, out=out,
             report=report, measurement=measurement, scheduler=scheduler, workers=workers,
-            progress=progress, quantity=quantity, notes=notes, **options)
+            progress=progress, quantity=quantity, notes=notes, shape=shape, **options)
+    check_option(shape, SHAPES, "shape")
     extra = measurement_options(measurement)
     # Before any work: a bad path costs nothing, and no output may overwrite an input.
     guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
@@ -111,7 +129,7 @@ def unmix_files(library: PathLike, spectra: Spectra, *,
         return _unmix_table(library, spectra, extra, window=window, wavelengths=wavelengths,
                             method=method, baseline=baseline, pathlength_cm=pathlength_cm,
                             unit=unit, out=out, report=report, quantity=quantity,
-                            notes=notes, **options)
+                            notes=notes, shape=shape, **options)
 
 
 def _spectra_argument(library: PathLike, spectra: Spectra) -> PathLike | list[PathLike]:
@@ -160,7 +178,8 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
                  window: tuple[float, float] | None, wavelengths: Sequence[float] | None,
                  method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
                  out: PathLike | None, report: PathLike | None, quantity: Quantity | None,
-                 notes: TextIO | None = None, **options: Any) -> xr.Dataset:
+                 notes: TextIO | None = None, shape: Shape = "tidy",
+                 **options: Any) -> xr.Dataset:
     """:func:`unmix_files` for a table in memory; the caller guards and stages the outputs."""
     budget_rows = None
     if file_kind(library) == MODEL_KIND:
@@ -198,6 +217,8 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
             inputs = file_budget_inputs(extra, done, scans)
             result = attach_budget(result, uncertainty_budget(result, lib, inputs))
             budget_rows = budget_table(attached_budget(result))  # type: ignore[arg-type]
+    provenance = run_provenance(result, library, spectra_paths(spectra))
+    result = with_provenance(result, provenance)
     page = None
     if report is not None:  # built before anything is written: a failure leaves no file
         from mixsolve.report.unmix_page import unmix_report
@@ -206,12 +227,22 @@ def _unmix_table(library: PathLike, spectra: Spectra, extra: MeasurementOptions,
                             budget=attached_budget(result) if budget_rows is not None
                             else None)
     if out is not None:
-        write_table(results_table(result), out)
+        write_results_file(result, out, shape, provenance)
     if page is not None:
         write_text(page, report)  # type: ignore[arg-type]
     if budget_rows is not None:
-        write_table(budget_rows, extra.budget)  # type: ignore[arg-type]
+        write_results(budget_rows, extra.budget, provenance)  # type: ignore[arg-type]
     return result
+
+
+def write_results_file(result: xr.Dataset, out: PathLike, shape: Shape,
+                       provenance: Mapping[str, Any]) -> None:
+    """Write a table result as ``out`` says: a workbook (``.xlsx``) or a tidy or wide CSV,
+    with its provenance (inside the run's staging)."""
+    if Path(out).suffix.lower() == WORKBOOK_SUFFIX:
+        write_workbook(results_sheets(result, provenance), out)
+    else:
+        write_results(results_table(result, shape=shape), out, provenance)
 
 
 def _read(spectra: Spectra, quantity: Quantity | None, notes: TextIO | None) -> xr.DataArray:
@@ -230,8 +261,9 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
                      measurement: MeasurementOptions | Mapping[str, Any] | None = None,
                      scheduler: str | None = None, workers: int | None = None,
                      progress: TextIO | None = None, quantity: Quantity | None = None,
-                     notes: TextIO | None = None, **options: Any) -> xr.Dataset:
-    """Unmix a spectra cube (or a table) on dask, chunk by chunk, into a cube or a CSV.
+                     notes: TextIO | None = None, shape: Shape = "tidy",
+                     **options: Any) -> xr.Dataset:
+    """Unmix a spectra cube (or a table) on dask, chunk by chunk, into a cube or a table.
 
     Parameters
     ----------
@@ -240,13 +272,16 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
         (:func:`mixsolve.io.cubes.read_cube`) or a table (:func:`read_spectra`).
     out : path-like, optional
         ``.zarr`` or ``.nc``: the whole result Dataset, written as it is computed (memory
-        holds a few chunks); anything else: the tidy results CSV.
+        holds a few chunks), its provenance in the ``provenance`` attribute; anything
+        else: the results table as for :func:`unmix_files` (``.xlsx`` a workbook, else a
+        CSV shaped by ``shape``).
     scheduler, workers
         An existing dask.distributed scheduler's address, or a local cluster of this many
         worker processes (:func:`mixsolve.workflows.cluster.dask_client`); default dask's threads.
     progress : text stream, optional
         Where the progress bar of a long run goes (the CLI passes stderr).
-    window, wavelengths, method, baseline, pathlength_cm, unit, measurement, quantity, options
+    window, wavelengths, method, baseline, pathlength_cm, unit, measurement, quantity, shape,
+    options
         As for :func:`unmix_files`; the uncertainty budget, the HTML report and PLS models
         are not available for cubes.
 
@@ -257,6 +292,10 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
         computed result without the ``fitted`` and ``residual`` spectra.
     """
     spectra = _spectra_argument(library, spectra)
+    check_option(shape, SHAPES, "shape")
+    if shape != "tidy" and out is not None and is_cube_path(out):
+        raise InputError(f"shape: {shape!r} shapes a CSV; a cube ({Path(out).name}) holds "
+                         "the whole result; write .csv or .xlsx for a table")
     _require_scale(spectra, out)
     extra = measurement_options(measurement)
     guard_unmix_outputs(library, spectra, out=out, report=report, measurement=extra)
@@ -271,7 +310,8 @@ def unmix_cube_files(library: PathLike, spectra: Spectra, *,
         result = _unmix_cube(library, spectra, extra, window=window, wavelengths=wavelengths,
                              method=method, baseline=baseline, pathlength_cm=pathlength_cm,
                              unit=unit, out=out, scheduler=scheduler, workers=workers,
-                             progress=progress, quantity=quantity, notes=notes, **options)
+                             progress=progress, quantity=quantity, notes=notes, shape=shape,
+                             **options)
     if out is not None and is_cube_path(out) and not in_run():
         return open_result(out)  # the written store, now in place
     return result
@@ -283,7 +323,8 @@ def _unmix_cube(library: PathLike, spectra: PathLike | list[PathLike],
                 method: str, baseline: str, pathlength_cm: float | None, unit: str | None,
                 out: PathLike | None, scheduler: str | None, workers: int | None,
                 progress: TextIO | None, quantity: Quantity | None,
-                notes: TextIO | None = None, **options: Any) -> xr.Dataset:
+                notes: TextIO | None = None, shape: Shape = "tidy",
+                **options: Any) -> xr.Dataset:
     """:func:`unmix_cube_files` once checked; the caller guards and stages the outputs."""
     lib = read_library(library)
     measured, _ = _corrected(
@@ -296,14 +337,21 @@ def _unmix_cube(library: PathLike, spectra: PathLike | list[PathLike],
                        method=method,  # type: ignore[arg-type]
                        baseline=baseline,  # type: ignore[arg-type]
                        pathlength_cm=pathlength_cm, unit=unit, **options)
+        provenance = run_provenance(result, library, _cube_inputs(spectra))
+        result = with_provenance(result, provenance)
         run = functools.partial(compute, client=client, progress=progress)
         if out is not None and is_cube_path(out):
             write_cube(result, out, compute=run)
             return result.drop_vars(["fitted", "residual"])  # opened from the file below
         small = run(result.drop_vars(["fitted", "residual"]))
     if out is not None:
-        write_table(results_table(small), out)
+        write_results_file(small, out, shape, provenance)
     return small
+
+
+def _cube_inputs(spectra: PathLike | list[PathLike]) -> list[PathLike]:
+    """The spectra files of a cube run: the cube itself, or the tables read."""
+    return [spectra] if _is_cube(spectra) else list(spectra_paths(spectra))
 
 
 def _corrected(measured: xr.DataArray, extra: MeasurementOptions,
