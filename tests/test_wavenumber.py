@@ -250,9 +250,9 @@ def test_cli_library_import_and_unmix_in_cm1(tmp_path, cli):
     cli.ok("library", "import", table, "--unit", "L/(g*cm)", "--out", tmp_path / "lib.nc")
     spectra = _write_wide(tmp_path / "s.csv", NU, "cm-1", absorbance, names)
     cli.ok("unmix", tmp_path / "lib.nc", spectra, "--unit", "g/L", "--out", tmp_path / "r.csv")
-    rows = pd.read_csv(tmp_path / "r.csv")
+    rows = ms.read_results(tmp_path / "r.csv").table  # after its '#' provenance lines
     got = rows.pivot(index="sample", columns="component", values="concentration")
-    # noise-free data: lstsq returns conc; the results CSV holds 6 significant digits
+    # noise-free data: lstsq returns conc; the results CSV holds every digit
     lstsq = np.linalg.lstsq(_eps(NU).T, absorbance.T, rcond=None)[0].T
     np.testing.assert_allclose(lstsq, conc, rtol=1e-9)
     np.testing.assert_allclose(got.loc[names, COMPONENTS].values, lstsq, rtol=5e-6)
