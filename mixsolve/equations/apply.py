@@ -44,7 +44,8 @@ from mixsolve.flags import DOUBTFUL, LOOK, RunNote, add_run_notes, run_notes_of
 from mixsolve.library import COMPONENT, check_library
 from mixsolve.names import name_key
 from mixsolve.noise import DEFAULT_ABSORBANCE_RANGE, NoiseModel, noise_model
-from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_spectra
+from mixsolve.solve.engine import METHODS, Method
+from mixsolve.spectra import SAMPLE, WAVELENGTH, check_number, check_option, check_spectra
 
 #: |z| above which the published and the full-spectrum result disagree (a run note).
 DISAGREE_Z = 3.0
@@ -63,7 +64,7 @@ def apply_equations(
     noise: NoiseModel | str | float = DEFAULT_NOISE,
     absorbance_range: tuple[float, float] = DEFAULT_ABSORBANCE_RANGE,
     library: xr.Dataset | None = None,
-    method: str = "ols",
+    method: Method = "ols",
     bandwidth_nm: float | None = None,
 ) -> xr.Dataset:
     """Concentrations by a set of published equations, with u and the checks of unmix.
@@ -111,6 +112,7 @@ def apply_equations(
         raise InputError("equations: expected an equation set from read_equations, got "
                          f"{type(equations).__name__}")
     eq = equations
+    check_option(method, METHODS, "method")
     if len(eq.reads) > 1:
         raise InputError(f"equations {eq.name}: an acidification set needs two reads of "
                          "each extract (before and after acid); apply reads one spectrum per "
@@ -231,7 +233,7 @@ def _flags(used: np.ndarray, conc: np.ndarray, comps: list[str], low: float, hig
 
 
 def _beside_library(out: xr.Dataset, spectra: xr.DataArray, library: xr.Dataset,
-                    eq: EquationSet, path: float, model: NoiseModel, method: str,
+                    eq: EquationSet, path: float, model: NoiseModel, method: Method,
                     bandwidth_nm: float | None, *,
                     absorbance_range: tuple[float, float]) -> list[RunNote]:
     """Add the full-spectrum result beside the published one; the notes it gives."""
@@ -239,7 +241,7 @@ def _beside_library(out: xr.Dataset, spectra: xr.DataArray, library: xr.Dataset,
 
     full = unmix(spectra, library, method=method, pathlength_cm=path, unit=eq.unit,
                  noise=model, absorbance_range=absorbance_range,
-                 bandwidth_nm=bandwidth_nm)  # type: ignore[arg-type]
+                 bandwidth_nm=bandwidth_nm)
     names = {name_key(c): c for c in full[COMPONENT].values.tolist()}
     shape = out["concentration"].shape
     c_full, u_full = np.full(shape, np.nan), np.full(shape, np.nan)
