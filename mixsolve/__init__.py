@@ -21,12 +21,14 @@ from mixsolve.errors import InputError, MixsolveError, MixsolveWarning
 _LAZY: dict[str, str] = {
     "NoiseModel": "mixsolve.noise",
     "analyse_plate": "mixsolve.plate.analysis",
+    "apply_equations": "mixsolve.equations.apply",
     "BudgetInputs": "mixsolve.uncertainty.inputs",
     "budget_table": "mixsolve.uncertainty.budget",
     "build_library": "mixsolve.library",
     "calibrate": "mixsolve.pls.calibrate",
     "cell_blank": "mixsolve.uncertainty.corrections",
     "check_absorbance_scale": "mixsolve.instrument.absorbance_scale",
+    "check_equations": "mixsolve.equations.check",
     "check_stray_light": "mixsolve.instrument.stray_light",
     "check_wavelength_scale": "mixsolve.instrument.wavelength_scale",
     "check_wavelengths": "mixsolve.wavelengths.check",
@@ -39,6 +41,7 @@ _LAZY: dict[str, str] = {
     "predict": "mixsolve.pls.predict",
     "prepared_standard": "mixsolve.uncertainty.preparation",
     "read_cube": "mixsolve.io.cubes",
+    "read_equations": "mixsolve.io.equations_io",
     "read_layout": "mixsolve.io.layout_io",
     "read_library": "mixsolve.io.library_store",
     "read_model": "mixsolve.io.model_store",
@@ -58,11 +61,14 @@ _LAZY: dict[str, str] = {
 }
 
 if TYPE_CHECKING:
+    from mixsolve.equations.apply import apply_equations
+    from mixsolve.equations.check import check_equations
     from mixsolve.instrument.absorbance_scale import check_absorbance_scale
     from mixsolve.instrument.repeatability import repeatability
     from mixsolve.instrument.stray_light import check_stray_light
     from mixsolve.instrument.wavelength_scale import check_wavelength_scale
     from mixsolve.io.cubes import read_cube, write_cube
+    from mixsolve.io.equations_io import read_equations
     from mixsolve.io.layout_io import read_layout
     from mixsolve.io.library_store import read_library, write_library
     from mixsolve.io.model_store import read_model, write_model
@@ -110,11 +116,13 @@ __all__ = [
     "NoiseModel",
     "__version__",
     "analyse_plate",
+    "apply_equations",
     "budget_table",
     "build_library",
     "calibrate",
     "cell_blank",
     "check_absorbance_scale",
+    "check_equations",
     "check_stray_light",
     "check_wavelength_scale",
     "check_wavelengths",
@@ -127,6 +135,7 @@ __all__ = [
     "predict",
     "prepared_standard",
     "read_cube",
+    "read_equations",
     "read_layout",
     "read_library",
     "read_model",

@@ -857,6 +857,88 @@ def wavelengths_choose(library_file: str, count: int, window: tuple[float, float
 
 
 
+
+EQUATIONS_CHECK = "mixsolve.equations.check:check_equations"
+EQUATIONS_APPLY = "mixsolve.equations.apply:apply_equations"
+equations_noise_option = click.option(
+    "--noise", type=str, show_default=True, callback=callback(parse_noise),
+    default=CoreDefault("mixsolve.equations.check:DEFAULT_NOISE", text=str),
+    help="Reading noise: a preset (benchtop_double_beam, diode_array, microplate, "
+    "field_photometer) or σ_A in AU.")
+
+
+@main.group()
+def equations() -> None:
+    """Published fixed-wavelength equations: check them, apply them (docs/equations.md)."""
+
+
+@equations.command("check")
+@click.argument("equations_file", metavar="EQUATIONS")
+@click.option("--library", "library_file", help="Your own library (.nc): published vs "
+              "measured absorptivities, shift and bandwidth sensitivity.")
+@equations_noise_option
+@click.option("--shift-nm", type=float, show_default=True,
+              default=CoreDefault(EQUATIONS_CHECK, "shift_nm"),
+              help="Wavelength error (nm) the shift sensitivity is stated for.")
+@click.option("--bandpass-nm", type=float, show_default=True,
+              default=CoreDefault(EQUATIONS_CHECK, "bandpass_nm"),
+              help="Spectral bandpass (nm) the bandwidth sensitivity is stated for.")
+@click.option("--json", "as_json", is_flag=True, help="Print one JSON object instead.")
+def equations_check(equations_file: str, library_file: str | None, noise: str | float,
+                    shift_nm: float, bandpass_nm: float, as_json: bool) -> None:
+    """What the equations EQUATIONS imply and how far to trust them.
+
+    EQUATIONS: an equations file (docs/formats.md) or a shipped set's name (porra1989,
+    lichtenthaler1987, jeffrey_humphrey1975, lorenzen1967).
+    """
+    import json
+
+    from mixsolve.report.equations_text import format_check
+    from mixsolve.workflows.equations_files import check_equations_file
+
+    check = check_equations_file(equations_file, library=library_file, noise=noise,
+                                 shift_nm=shift_nm, bandpass_nm=bandpass_nm)
+    click.echo(json.dumps(check.to_dict()) if as_json else format_check(check),
+               nl=as_json)
+
+
+@equations.command("apply")
+@click.argument("equations_file", metavar="EQUATIONS")
+@click.argument("spectra", nargs=-1, required=True)
+@click.option("--library", "library_file", help="Your own library (.nc): the full-spectrum "
+              "result beside each published one.")
+@click.option("--out", help="Results to write (tidy CSV).")
+@click.option("--pathlength", type=float, help="Pathlength in cm [that of the equations].")
+@equations_noise_option
+@click.option("--range", "absorbance_range", type=str, show_default=True,
+              default=CoreDefault(EQUATIONS_APPLY, "absorbance_range", window_text),
+              callback=callback(parse_window),
+              help="Reliable absorbance range LOW-HIGH (AU) for the range flags.")
+@click.option("--method", type=CoreChoice("mixsolve.solve.engine:METHODS"),
+              default=CoreDefault(EQUATIONS_APPLY, "method"), show_default=True,
+              help="Method of the full-spectrum fit (with --library).")
+@quantity_option
+@spectra_bandwidth_option
+def equations_apply(equations_file: str, spectra: tuple[str, ...], library_file: str | None,
+                    out: str | None, pathlength: float | None, noise: str | float,
+                    absorbance_range: tuple[float, float], method: str,
+                    quantity: str | None, bandwidth_nm: float | None) -> None:
+    """Results of SPECTRA by the equations EQUATIONS, with u and checks.
+
+    EQUATIONS: an equations file or a shipped set's name. SPECTRA: one or more tables or
+    JCAMP-DX files, folders of them, or globs.
+    """
+    from mixsolve.report.equations_text import format_apply
+    from mixsolve.workflows.equations_files import apply_equations_files
+
+    result = apply_equations_files(
+        equations_file, spectra, library=library_file, out=out, pathlength_cm=pathlength,
+        noise=noise, absorbance_range=absorbance_range, method=method,
+        bandwidth_nm=bandwidth_nm, quantity=quantity, notes=sys.stderr)  # type: ignore[arg-type]
+    click.echo(format_apply(result), nl=False)
+    if out:
+        click.echo(f"wrote {out}", err=True)
+
 @main.command()
 @click.argument("spectra", nargs=-1, required=True)
 @click.option("--reference", required=True,

@@ -4,7 +4,7 @@ The layers, lowest first (DEVELOPERS.md, "Architecture in a page"):
 
     base         mixsolve/*.py (errors, units, names, spectra, library, noise, flags, ...)
     solve        the classical least-squares fit and its per-sample trust checks
-    capabilities pls, wavelengths, instrument, uncertainty, plate (side by side: none
+    capabilities pls, wavelengths, instrument, uncertainty, plate, equations (side by side: none
                  imports another)
     io           reading and writing files
     report       tables, text, figures and pages made from results
@@ -25,7 +25,7 @@ import pytest
 
 PACKAGE = Path(__file__).resolve().parents[1] / "mixsolve"
 LAYERS = ["base", "solve", "capability", "io", "report", "workflows", "cli"]
-CAPABILITIES = {"pls", "wavelengths", "instrument", "uncertainty", "plate"}
+CAPABILITIES = {"pls", "wavelengths", "instrument", "uncertainty", "plate", "equations"}
 #: Packages outside the layers: the facade re-exports lazily; the demo data package holds
 #: the scripts that generate the (synthetic) demo files and sits with the workflows.
 EXEMPT = {"mixsolve"}

@@ -58,8 +58,9 @@ def run_instead(command: click.Command, body, monkeypatch, *args: object):
 
 
 def test_the_commands_are_all_here():
-    assert len(COMMANDS) == 13
+    assert len(COMMANDS) == 15
     assert ("instrument", "stray-light") in [path for path, _ in COMMANDS]
+    assert {("equations", "check"), ("equations", "apply")} <= {p for p, _ in COMMANDS}
 
 
 # --- errors and Ctrl-C: one line, from the root group ------------------------------------

@@ -53,3 +53,15 @@ def test_no_public_name_is_shadowed_by_a_submodule():
     modules = {p.stem for p in (ROOT / "mixsolve").glob("*.py")} | {
         p.parent.name for p in (ROOT / "mixsolve").glob("*/__init__.py")}
     assert not modules & set(mixsolve.__all__)
+
+
+def test_shipped_equation_sets_are_package_data():
+    """Every shipped equations file exists and matches the package-data glob (installs)."""
+    from fnmatch import fnmatch
+
+    from mixsolve.io.equations_io import SHIPPED, shipped_path
+
+    globs = _pyproject()["tool"]["setuptools"]["package-data"]["mixsolve.equations"]
+    for name, file in SHIPPED.items():
+        assert shipped_path(name).is_file(), name
+        assert any(fnmatch(f"published/{file}", g) for g in globs), file
