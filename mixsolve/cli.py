@@ -863,8 +863,7 @@ EQUATIONS_APPLY = "mixsolve.equations.apply:apply_equations"
 equations_noise_option = click.option(
     "--noise", type=str, show_default=True, callback=callback(parse_noise),
     default=CoreDefault("mixsolve.equations.check:DEFAULT_NOISE", text=str),
-    help="Reading noise: a preset (benchtop_double_beam, diode_array, microplate, "
-    "field_photometer) or σ_A in AU.")
+    help=NOISE_HELP + ", the readings' noise the results' u comes from.")
 
 
 @main.group()
