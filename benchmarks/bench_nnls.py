@@ -69,6 +69,18 @@ def best_of(repeat: int, func, *args) -> float:
     return min(times)
 
 
+def scipy_loop(k: np.ndarray, a: np.ndarray, sample: int) -> tuple[float, str]:
+    """Seconds of ``scipy.optimize.nnls`` over every row of ``a``, timed on the first
+    ``sample`` rows and extrapolated linearly, and the note that says so (or "")."""
+    n = a.shape[0]
+    sample = min(n, sample)
+    start = time.perf_counter()
+    for row in a[:sample]:
+        nnls(k, row)
+    note = "" if sample == n else f"  (scipy timed on {sample}, x{n / sample:g})"
+    return (time.perf_counter() - start) * n / sample, note
+
+
 def blas_report() -> str:
     """What threadpoolctl says about the BLAS numpy and scipy use."""
     return "; ".join(f"{i.get('internal_api')} {i.get('version')} {i.get('architecture')} "
@@ -110,12 +122,7 @@ def main() -> None:
             t_unc = min(t_unc, best_of(1, lambda a=a: pinv @ a.T))
         t_lstsq = best_of(1, lambda a=a: np.linalg.lstsq(k, a.T, rcond=None)) \
             if n <= 100000 else float("nan")
-        sample = min(n, args.scipy_sample)
-        start = time.perf_counter()
-        for row in a[:sample]:
-            nnls(k, row)
-        t_scipy = (time.perf_counter() - start) * n / sample
-        note = "" if sample == n else f"  (scipy timed on {sample}, x{n / sample:g})"
+        t_scipy, note = scipy_loop(k, a, args.scipy_sample)
         for engine in engines:
             t = t_batch[engine]
             print(f"{n:>9} {engine:>9} {t:>10.4f} {t_unc:>10.4f} {t_lstsq:>9.4f} "

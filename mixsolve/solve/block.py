@@ -212,8 +212,15 @@ def unmix_block(spectra: np.ndarray, pathlength_cm: np.ndarray, settings: BlockS
         # one BLAS thread each, or OpenBLAS's threads (which spin after each product)
         # would take the cores from the tasks' own threads.
         with ThreadPoolExecutor(min(settings.threads, len(tasks))) as pool, \
-                _one_blas_thread():
+                one_blas_thread():
             list(pool.map(lambda rows: store(rows, fit(rows)), tasks))
+    elif settings.threads == 1 and n_spec >= TASK_SPECTRA:
+        # a dask chunk (or a one-core machine): other chunks run in the other threads, so
+        # BLAS's own threads would only compete with them (measured: the small products of
+        # a task 10-100x slower on a loaded machine)
+        with one_blas_thread():
+            for rows in tasks:
+                store(rows, fit(rows))
     else:
         for rows in tasks:
             store(rows, fit(rows))
@@ -232,12 +239,16 @@ _blas_limiter: Any = None
 
 
 @contextlib.contextmanager
-def _one_blas_thread() -> Iterator[None]:
+def one_blas_thread() -> Iterator[None]:
     """BLAS limited to one thread while any unmix block runs its tasks.
 
     The limit is process-wide: the first block to start sets it and the last to finish
     restores the original, so blocks running at the same time in several threads do not
     restore each other's limits out of order (which could leave BLAS on one thread).
+    A dask computation of unmix results holds it for its whole length
+    (:func:`mixsolve.workflows.cluster.compute`): restoring the limit between chunks wakes
+    OpenBLAS's threads, which then spin beside the chunks' threads (measured: twice the
+    CPU per spectrum on 2 cores).
     """
     global _blas_users, _blas_limiter
     with _blas_lock:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import json
+import operator
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -566,19 +567,64 @@ def _run_kernel(options: _Options, plan: _Plan) -> dict[str, xr.DataArray]:
     inputs = [plan.used, options.pathlength]
     if plan.reference is not None:
         inputs.append(plan.reference)
+    sizes = {TERM: len(plan.terms), COMPONENT: len(plan.components),
+             WAVELENGTH: plan.used.sizes[WAVELENGTH]}
+    block = functools.partial(_block, settings=plan.settings)
     try:
         outputs = xr.apply_ufunc(
-            functools.partial(_block, settings=plan.settings), *inputs,
+            block if plan.used.chunks is None else
+            functools.partial(_lazy_blocks, block, described, sizes), *inputs,
             input_core_dims=[[WAVELENGTH]] + [[]] * (len(inputs) - 1),
             output_core_dims=[list(o.dims) for o in described],
-            dask="parallelized",
-            output_dtypes=[o.dtype for o in described],
-            dask_gufunc_kwargs={"output_sizes": {TERM: len(plan.terms),
-                                                 COMPONENT: len(plan.components)}},
+            dask="allowed",
         )
     except InfiniteReadingError as exc:  # eager: say which spectrum and wavelength
         raise InputError(_where_infinite(plan.used, exc)) from None
     return {o.name: da for o, da in zip(described, outputs, strict=True)}
+
+
+def _lazy_blocks(block: Any, described: Sequence[Any], sizes: dict[str, int],
+                 spectra: Any, *others: Any) -> tuple[Any, ...]:
+    """``block`` on every dask chunk of ``spectra`` (..., m), the wavelength in one chunk;
+    ``others`` (pathlength, reference) are numpy or dask arrays over the trailing
+    dimensions of the spectra's but the wavelength, of size 1 (broadcast) or chunked like
+    the spectra. One dask array per output.
+
+    ``dask.array.blockwise`` with ``concatenate=False``: each task gets its chunk of
+    spectra as it is. ``apply_ufunc(dask="parallelized")`` (dask's ``apply_gufunc``)
+    concatenates the wavelength axis of every chunk first, which copies the whole chunk
+    even when it is a single piece: a second pass over the data and fresh memory the size
+    of the chunk.
+    """
+    import dask.array as dsa
+    from dask.highlevelgraph import HighLevelGraph
+
+    loop = tuple(f"s{d}" for d in range(spectra.ndim - 1))
+    args: list[Any] = [spectra, (*loop, "m")]
+    for other in others:  # xarray leaves out leading dimensions of size 1
+        args += [dsa.asarray(other), loop[len(loop) - np.ndim(other):]]
+    tuples = dsa.blockwise(_chunk, loop, *args, block=block, concatenate=False,
+                           dtype=float, meta=np.empty((0,) * len(loop)))
+    keys = list(dsa.core.flatten(tuples.__dask_keys__()))
+    outputs = []
+    for i, o in enumerate(described):
+        core = tuple(sizes[d] for d in o.dims)
+        name = f"{tuples.name}-{i}"
+        graph = {(name, *key[1:], *(0,) * len(core)): (operator.getitem, key, i)
+                 for key in keys}
+        outputs.append(dsa.Array(
+            HighLevelGraph.from_collections(name, graph, dependencies=[tuples]), name,
+            chunks=(*tuples.chunks, *((c,) for c in core)), dtype=o.dtype,
+            meta=np.empty((0,) * (len(loop) + len(core)), dtype=o.dtype)))
+    return tuple(outputs)
+
+
+def _chunk(spectra: Any, *others: np.ndarray, block: Any) -> tuple[np.ndarray, ...]:
+    """One dask chunk through ``block``: the spectra arrive as a list of their pieces along
+    the wavelength (one piece: the wavelength is never split)."""
+    if isinstance(spectra, list):
+        (spectra,) = spectra
+    return block(spectra, *others)
 
 
 def _block(spectra: np.ndarray, pathlength_cm: np.ndarray,

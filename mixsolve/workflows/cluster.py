@@ -122,6 +122,8 @@ def compute(obj: Any, *, client: Any = None, progress: TextIO | None = None) -> 
     The computed object (``dask.compute(obj)[0]``).
     """
     dask = _require("dask")
+    from mixsolve.solve.block import one_blas_thread
+
     labelled = hasattr(obj, "compute") and hasattr(obj, "dims")  # an xarray object
     if client is None:
         bar: Any = contextlib.nullcontext()
@@ -129,7 +131,9 @@ def compute(obj: Any, *, client: Any = None, progress: TextIO | None = None) -> 
             from dask.diagnostics import ProgressBar
 
             bar = ProgressBar(minimum=PROGRESS_AFTER_S, dt=0.5, out=progress)
-        with bar:
+        # dask's threads run the chunks' BLAS-calling code side by side: BLAS on one thread
+        # for the whole run (mixsolve.solve.block.one_blas_thread)
+        with bar, one_blas_thread():
             # xarray objects compute through their own method: dask.compute() on a whole
             # Dataset can lose graph keys when one variable derives from another through
             # xarray arithmetic (xarray issue 11329); unmix results avoid that, objects a
